@@ -1,0 +1,206 @@
+"""Every error spinc raises on bad input.
+
+One root class, :class:`SpincError`, and one subclass per pipeline stage.
+Each error carries a list of :class:`Problem` records; a problem knows the
+file, line and column it points at, the offending text, and a hint.  The
+command line prints them with the source line and a caret under the text,
+and exits with code 2.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections import OrderedDict
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable, Sequence
+
+MAX_SHOWN = 10  # problems printed in full before "and N more"
+
+
+@dataclass(frozen=True)
+class Span:
+    """A stretch of source text: 1-based line and column, end exclusive."""
+
+    file: str
+    line: int
+    col: int
+    end_line: int
+    end_col: int
+
+    def __str__(self) -> str:
+        return f"{self.file}:{self.line}:{self.col}"
+
+    @staticmethod
+    def join(a: "Span", b: "Span") -> "Span":
+        return Span(a.file, a.line, a.col, b.end_line, b.end_col)
+
+
+NO_SPAN = Span("<none>", 0, 0, 0, 0)
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with the input."""
+
+    message: str
+    span: Span | None = None
+    hint: str = ""
+    source_line: str = ""  # the text of span.line, for the caret display
+    context: tuple[str, ...] = ()  # e.g. "in block 'echo' called at f:3:1"
+
+    def to_dict(self) -> dict:
+        d = {"message": self.message, "hint": self.hint}
+        if self.span is not None:
+            d.update(file=self.span.file, line=self.span.line, column=self.span.col,
+                     end_line=self.span.end_line, end_column=self.span.end_col,
+                     text=self.offending_text())
+        if self.context:
+            d["context"] = list(self.context)
+        return d
+
+    def offending_text(self) -> str:
+        if self.span is None or not self.source_line:
+            return ""
+        start = self.span.col - 1
+        end = self.span.end_col - 1 if self.span.end_line == self.span.line else len(self.source_line)
+        return self.source_line[start:max(end, start + 1)]
+
+    def render(self, level: str = "error") -> str:
+        where = f"{self.span}: " if self.span is not None and self.span.line > 0 else (
+            f"{self.span.file}: " if self.span is not None else "")
+        out = [f"{where}{level}: {self.message}"]
+        if self.span is not None and self.source_line:
+            text = self.source_line.rstrip("\n").expandtabs(1)
+            start = max(self.span.col - 1, 0)
+            if self.span.end_line == self.span.line:
+                width = max(self.span.end_col - self.span.col, 1)
+            else:
+                width = max(len(text) - start, 1)
+            out.append(f"    {text}")
+            out.append("    " + " " * start + "^" * width)
+        for c in self.context:
+            out.append(f"    {c}")
+        if self.hint:
+            out.append(f"  hint: {self.hint}")
+        return "\n".join(out)
+
+
+class SpincError(Exception):
+    """Root of every input error spinc reports; holds one or more problems."""
+
+    stage = "input"
+
+    def __init__(self, problems: Problem | Sequence[Problem] | str, span: Span | None = None,
+                 hint: str = "", source_line: str = ""):
+        if isinstance(problems, str):
+            problems = [Problem(problems, span, hint, source_line)]
+        elif isinstance(problems, Problem):
+            problems = [problems]
+        self.problems: list[Problem] = list(problems)
+        super().__init__(self.render())
+
+    @property
+    def first(self) -> Problem:
+        return self.problems[0]
+
+    def render(self) -> str:
+        shown = [p.render() for p in self.problems[:MAX_SHOWN]]
+        rest = len(self.problems) - MAX_SHOWN
+        if rest > 0:
+            shown.append(f"... and {rest} more {self.stage} error{'s' if rest > 1 else ''}")
+        return "\n".join(shown)
+
+    def to_dict(self) -> dict:
+        return {"ok": False, "stage": self.stage,
+                "errors": [p.to_dict() for p in self.problems]}
+
+
+class SequenceSyntaxError(SpincError):
+    """The sequence text does not follow the grammar."""
+    stage = "syntax"
+
+
+class SequenceError(SpincError):
+    """The sequence is well formed but means something impossible
+    (unknown name, wrong unit, bad sweep, include cycle, ...)."""
+    stage = "sequence"
+
+
+class DeviceError(SpincError):
+    """The device description is malformed or physically inconsistent."""
+    stage = "device"
+
+
+class CheckError(SpincError):
+    """The program asks for something the device cannot do."""
+    stage = "check"
+
+
+class ScheduleError(SpincError):
+    """A step cannot be placed in time or played within the channel limits."""
+    stage = "schedule"
+
+
+class UsageError(SpincError):
+    """Bad command-line arguments."""
+    stage = "usage"
+
+
+def suggest(word: str, candidates: Iterable[str]) -> str:
+    """A did-you-mean hint, or '' when nothing is close."""
+    cands = sorted(set(candidates))
+    close = difflib.get_close_matches(word, cands, n=1, cutoff=0.6)
+    if close:
+        return f"did you mean '{close[0]}'?"
+    if cands and len(cands) <= 12:
+        return "known: " + ", ".join(cands)
+    return ""
+
+
+def did_you_mean(word: str, candidates: Iterable[str]) -> str:
+    """'did you mean X?' when a candidate is close, else ''."""
+    close = difflib.get_close_matches(word, sorted(set(candidates)), n=1, cutoff=0.6)
+    return f"did you mean '{close[0]}'? " if close else ""
+
+
+_SOURCES: "OrderedDict[str, list[str]]" = OrderedDict()
+_SOURCES_KEPT = 64
+
+
+def remember_source(file: str, text: str) -> None:
+    """Keep the text of a parsed file so later stages can show its lines in
+    error messages (the last few files only)."""
+    _SOURCES[str(file)] = text.split("\n")
+    _SOURCES.move_to_end(str(file))
+    while len(_SOURCES) > _SOURCES_KEPT:
+        _SOURCES.popitem(last=False)
+
+
+def read_source_line(file: str | Path, line: int) -> str:
+    """The text of one line of a parsed (or readable) file, '' when unavailable."""
+    lines = _SOURCES.get(str(file))
+    if lines is None:
+        try:
+            lines = Path(file).read_text(encoding="utf-8", errors="replace").split("\n")
+        except (OSError, ValueError):
+            return ""
+    return lines[line - 1] if 0 < line <= len(lines) else ""
+
+
+@dataclass
+class ProblemList:
+    """Collects problems of one stage so it can report all of them at once."""
+
+    problems: list[Problem] = field(default_factory=list)
+
+    def add(self, message: str, span: Span | None = None, hint: str = "",
+            source_line: str = "", context: tuple[str, ...] = ()) -> None:
+        self.problems.append(Problem(message, span, hint, source_line, context))
+
+    def raise_if_any(self, cls: type[SpincError]) -> None:
+        if self.problems:
+            raise cls(self.problems)
+
+    def __bool__(self) -> bool:
+        return bool(self.problems)
