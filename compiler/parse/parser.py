@@ -1,0 +1,574 @@
+"""Recursive-descent parser: tokens -> immutable program tree.
+
+The grammar is documented in docs/language.md.  The parser collects every
+problem it can (re-synchronising at the end of each statement) and raises one
+:class:`~compiler.errors.SequenceSyntaxError` at the end.  ``include``
+statements are read and parsed here, so the tree is complete; include cycles
+are reported with the chain of files.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, SpincError,
+                      did_you_mean, remember_source, suggest)
+from ..units import UNIT_WORDS
+from . import tree as T
+from .lexer import MAX_FILE_CHARS, Token, tokenize
+
+KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
+            "isqrtswap", "swap", "wait", "read", "trigger", "together", "repeat",
+            "block", "do")
+FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
+             "min": 2, "max": 2, "round": 1}
+CONSTANTS = ("pi",)
+ROT_OPTIONS = ("shape", "duration", "amplitude")
+EXCHANGE_OPTIONS = ("duration", "amplitude")
+SHAPES = ("square", "gauss", "flattop")
+INSIDE_TOGETHER = ("rot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "do")
+CONNECTORS = ("on", "to", "in", "from", "over")
+MAX_INCLUDE_DEPTH = 32
+MAX_NESTING = 64
+
+SEQUENCE_SUFFIX = ".dotseq"
+
+
+class _Bail(Exception):
+    """Abandon the current statement; the problem is already recorded."""
+
+
+class Parser:
+    def __init__(self, text: str, file: str, chain: tuple[str, ...] = ()):
+        self.file = file
+        self.lines = text.split("\n")
+        self.tokens, lex_problems = tokenize(text, file)
+        self.problems: list[Problem] = list(lex_problems)
+        self.i = 0
+        self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
+        self.depth = 0
+
+    # ------------------------------------------------------------ helpers
+    @property
+    def tok(self) -> Token:
+        return self.tokens[self.i]
+
+    def peek(self, k: int = 1) -> Token:
+        return self.tokens[min(self.i + k, len(self.tokens) - 1)]
+
+    def advance(self) -> Token:
+        t = self.tokens[self.i]
+        if t.kind != "EOF":
+            self.i += 1
+        return t
+
+    def line_text(self, span: Span) -> str:
+        if span.file == self.file and 0 < span.line <= len(self.lines):
+            return self.lines[span.line - 1]
+        return ""
+
+    def error(self, message: str, span: Span, hint: str = "") -> _Bail:
+        self.problems.append(Problem(message, span, hint, self.line_text(span)))
+        return _Bail()
+
+    def describe(self, t: Token) -> str:
+        if t.kind == "NEWLINE":
+            return "end of line"
+        if t.kind == "EOF":
+            return "end of file"
+        return f"'{t.text}'"
+
+    def at_op(self, text: str) -> bool:
+        return self.tok.kind == "OP" and self.tok.text == text
+
+    def expect_op(self, text: str, hint: str = "") -> Token:
+        if not self.at_op(text):
+            raise self.error(f"expected '{text}', found {self.describe(self.tok)}", self.tok.span, hint)
+        return self.advance()
+
+    def expect_name(self, what: str, hint: str = "") -> Token:
+        if self.tok.kind != "NAME":
+            raise self.error(f"expected {what}, found {self.describe(self.tok)}", self.tok.span, hint)
+        return self.advance()
+
+    def expect_word(self, word: str, hint: str = "") -> Token:
+        if self.tok.kind != "NAME" or self.tok.text != word:
+            raise self.error(f"expected '{word}', found {self.describe(self.tok)}", self.tok.span, hint)
+        return self.advance()
+
+    def at_end_of_statement(self) -> bool:
+        t = self.tok
+        return t.kind in ("NEWLINE", "EOF") or (t.kind == "OP" and t.text in (";", "}"))
+
+    def span_from(self, start: Span) -> Span:
+        prev = self.tokens[max(self.i - 1, 0)]
+        return Span(start.file, start.line, start.col, prev.span.end_line, prev.span.end_col)
+
+    def sync(self) -> None:
+        """Skip to the end of the current statement (respecting braces)."""
+        depth = 0
+        while self.tok.kind != "EOF":
+            t = self.tok
+            if t.kind == "OP" and t.text == "{":
+                depth += 1
+            elif t.kind == "OP" and t.text == "}":
+                if depth == 0:
+                    return
+                depth -= 1
+            elif depth == 0 and (t.kind == "NEWLINE" or (t.kind == "OP" and t.text == ";")):
+                return
+            self.advance()
+
+    # ------------------------------------------------------------ statements
+    def parse_file(self) -> T.SourceFile:
+        body = self.parse_body(top=True)
+        return T.SourceFile(self.file, tuple(body))
+
+    def parse_body(self, top: bool) -> list[T.Stmt]:
+        body: list[T.Stmt] = []
+        while True:
+            while self.tok.kind == "NEWLINE" or self.at_op(";"):
+                self.advance()
+            if self.tok.kind == "EOF":
+                break
+            if self.at_op("}"):
+                if top:
+                    self.error("'}' without a matching '{'", self.tok.span, "remove it")
+                    self.advance()
+                    continue
+                break
+            try:
+                stmt = self.parse_statement(top)
+                if stmt is not None:
+                    body.append(stmt)
+                if not self.at_end_of_statement():
+                    t = self.tok
+                    hint = "put one statement per line, or separate statements with ';'"
+                    if t.kind == "NAME" and t.text not in KEYWORDS:
+                        if t.text in UNIT_WORDS:
+                            raise self.error(
+                                f"unit '{t.text}' must follow a number or a closing parenthesis",
+                                t.span, f"write e.g. 'x * 1 {t.text}' or '(x) {t.text}' for a plain "
+                                "number x; a parameter that has a unit needs none")
+                        close = did_you_mean(t.text, UNIT_WORDS) if t.text not in CONNECTORS else ""
+                        if close:
+                            raise self.error(f"unknown unit '{t.text}'", t.span, close.strip())
+                    raise self.error(f"unexpected {self.describe(t)} after the statement", t.span, hint)
+            except _Bail:
+                self.sync()
+        return body
+
+    def parse_statement(self, top: bool) -> T.Stmt | None:
+        t = self.tok
+        if t.kind != "NAME":
+            raise self.error(f"expected a statement, found {self.describe(t)}", t.span,
+                             "statements start with a keyword: " + ", ".join(KEYWORDS))
+        word = t.text
+        if word not in KEYWORDS:
+            hint = suggest(word, KEYWORDS)
+            if not hint.startswith("did"):
+                hint = "statements start with a keyword: " + ", ".join(KEYWORDS)
+            raise self.error(f"unknown statement '{word}'", t.span, hint)
+        if not top and word in ("device", "include", "let", "sweep", "block", "prepare"):
+            raise self.error(f"'{word}' is only allowed at the top level of a file, "
+                             "not inside a block, repeat or together", t.span,
+                             "move it before the steps")
+        self.advance()
+        return getattr(self, f"st_{word}")(t.span)
+
+    def st_device(self, start: Span) -> T.Stmt:
+        s = self.tok
+        if s.kind != "STRING":
+            raise self.error("expected the device file path in double quotes", s.span,
+                             'e.g. device "devices/demo_pair.yaml"')
+        self.advance()
+        return T.DeviceStmt(s.text[1:-1], self.span_from(start))
+
+    def st_include(self, start: Span) -> T.Stmt:
+        s = self.tok
+        if s.kind != "STRING":
+            raise self.error("expected the file to include, in double quotes", s.span,
+                             'e.g. include "blocks/echo.dotseq"')
+        self.advance()
+        span = self.span_from(start)
+        rel = s.text[1:-1]
+        base = Path(self.file).parent if not self.file.startswith("<") else Path.cwd()
+        target = (base / rel)
+        resolved = str(target.resolve())
+        if resolved in self.chain:
+            chain = [Path(c).name for c in self.chain] + [Path(resolved).name]
+            raise self.error("include cycle: " + " -> ".join(chain), s.span,
+                             "remove one of these include statements")
+        if len(self.chain) > MAX_INCLUDE_DEPTH:
+            raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
+        try:
+            sub = parse_path(target, chain=self.chain)
+        except SpincError as e:
+            self.problems.extend(e.problems)
+            raise _Bail() from None
+        except _MissingInclude as e:
+            raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
+                             f"tried {target}; paths are relative to the including file") from None
+        return T.Include(rel, str(target), sub.body, span)
+
+    def st_let(self, start: Span) -> T.Stmt:
+        n = self.expect_name("a parameter name after 'let'", "e.g. let tau = 100 ns")
+        self.check_new_name(n)
+        self.expect_op("=", f"e.g. let {n.text} = 100 ns")
+        e = self.expr()
+        return T.Let(n.text, e, self.span_from(start))
+
+    def check_new_name(self, n: Token) -> None:
+        if n.text in KEYWORDS or n.text in CONSTANTS or n.text in FUNCTIONS or n.text in UNIT_WORDS:
+            kind = ("a keyword" if n.text in KEYWORDS else "a unit" if n.text in UNIT_WORDS
+                    else "a built-in name")
+            raise self.error(f"'{n.text}' is {kind} and cannot be used as a parameter name",
+                             n.span, "choose another name")
+
+    def st_sweep(self, start: Span) -> T.Stmt:
+        n = self.expect_name("the swept parameter's name", "e.g. sweep tau from 0 ns to 400 ns in 21")
+        self.check_new_name(n)
+        how = self.expect_name("'from' or 'over'", "sweep tau from 0 ns to 400 ns in 21  |  "
+                               "sweep amp over [10 mV, 20 mV, 40 mV]")
+        if how.text == "from":
+            a = self.expr()
+            self.expect_word("to", "e.g. sweep tau from 0 ns to 400 ns in 21")
+            b = self.expr()
+            self.expect_word("in", "give the number of points: ... in 21")
+            c = self.expr()
+            return T.SweepRange(n.text, a, b, c, self.span_from(start))
+        if how.text == "over":
+            self.expect_op("[", "list the values in brackets: over [10 mV, 20 mV]")
+            values = [self.expr()]
+            while self.at_op(","):
+                self.advance()
+                values.append(self.expr())
+            self.expect_op("]", "close the list with ']'")
+            return T.SweepList(n.text, tuple(values), self.span_from(start))
+        raise self.error(f"expected 'from' or 'over', found '{how.text}'", how.span,
+                         suggest(how.text, ("from", "over")) or "sweep NAME from A to B in N")
+
+    def qubit(self, what: str = "a qubit name") -> T.Ident:
+        t = self.expect_name(what)
+        if t.text in KEYWORDS:
+            raise self.error(f"'{t.text}' is a keyword, not a qubit name", t.span,
+                             "did you forget a line break or ';'?")
+        return T.Ident(t.text, t.span)
+
+    def st_prepare(self, start: Span) -> T.Stmt:
+        names: list[Token] = []
+        while self.tok.kind == "NAME":
+            names.append(self.advance())
+        if not names or names[-1].text not in T.STATES:
+            at = names[-1].span if names else self.tok.span
+            word = names[-1].text if names else ""
+            raise self.error("prepare needs qubits followed by a state", at,
+                             did_you_mean(word, T.STATES)
+                             + "states: " + ", ".join(T.STATES) + "; e.g. prepare A B up")
+        if len(names) < 2:
+            raise self.error("prepare needs at least one qubit before the state", names[-1].span,
+                             "e.g. prepare A B up")
+        state = names[-1].text
+        qubits = tuple(T.Ident(t.text, t.span) for t in names[:-1])
+        if state == "singlet" and len(qubits) != 2:
+            raise self.error("a singlet is prepared on exactly two qubits", self.span_from(start),
+                             "e.g. prepare A B singlet")
+        return T.Prepare(qubits, state, self.span_from(start))
+
+    def axis(self) -> T.Axis:
+        start = self.tok.span
+        neg = False
+        if self.at_op("-"):
+            self.advance()
+            neg = True
+        t = self.expect_name("a rotation axis (x, y, z, -x, -y, -z or phase(ANGLE))")
+        if t.text in ("x", "y", "z"):
+            return T.Axis(t.text, neg, None, self.span_from(start))
+        if t.text == "phase" and not neg:
+            self.expect_op("(", "write the axis phase in parentheses: phase(45 deg)")
+            e = self.expr()
+            self.expect_op(")", "close with ')'")
+            return T.Axis("phase", False, e, self.span_from(start))
+        raise self.error(f"unknown rotation axis '{t.text}'", t.span,
+                         did_you_mean(t.text, ("x", "y", "z", "phase"))
+                         + "axes: x, y, z, -x, -y, -z, or phase(ANGLE) for any axis in the xy-plane")
+
+    def options(self, allowed: tuple[str, ...], what: str) -> tuple[T.Option, ...]:
+        opts: list[T.Option] = []
+        seen: set[str] = set()
+        while self.tok.kind == "NAME" and self.peek().kind == "OP" and self.peek().text == "=":
+            k = self.advance()
+            self.advance()
+            if k.text not in allowed:
+                raise self.error(f"unknown option '{k.text}' for {what}", k.span,
+                                 did_you_mean(k.text, allowed) + f"options: {', '.join(allowed)}")
+            if k.text in seen:
+                raise self.error(f"option '{k.text}' given twice", k.span, "keep one")
+            seen.add(k.text)
+            if k.text == "shape":
+                v = self.expect_name("an envelope shape", "shapes: " + ", ".join(SHAPES))
+                if v.text not in SHAPES:
+                    raise self.error(f"unknown shape '{v.text}'", v.span,
+                                     suggest(v.text, SHAPES) or "shapes: " + ", ".join(SHAPES))
+                value: T.Expr | T.Ident = T.Ident(v.text, v.span)
+            else:
+                value = self.expr()
+            opts.append(T.Option(k.text, value, self.span_from(k.span)))
+        return tuple(opts)
+
+    def st_rot(self, start: Span) -> T.Stmt:
+        q = self.qubit("the qubit to rotate")
+        ax = self.axis()
+        angle = self.expr()
+        opts = self.options(ROT_OPTIONS, "rot")
+        if ax.kind == "z" and opts:
+            raise self.error("z rotations are frame updates: they take no time and no options",
+                             opts[0].span, "remove the options")
+        return T.Rot(q, ax, angle, opts, self.span_from(start))
+
+    def _exchange(self, kind: str, start: Span) -> T.Stmt:
+        a = self.qubit(f"the first qubit of {kind}")
+        b = self.qubit(f"the second qubit of {kind}")
+        opts = self.options(EXCHANGE_OPTIONS, kind)
+        return T.Exchange(kind, a, b, opts, self.span_from(start))
+
+    def st_sqrtswap(self, start: Span) -> T.Stmt:
+        return self._exchange("sqrtswap", start)
+
+    def st_isqrtswap(self, start: Span) -> T.Stmt:
+        return self._exchange("isqrtswap", start)
+
+    def st_swap(self, start: Span) -> T.Stmt:
+        return self._exchange("swap", start)
+
+    def st_wait(self, start: Span) -> T.Stmt:
+        d = self.expr()
+        qubits: list[T.Ident] = []
+        if self.tok.kind == "NAME" and self.tok.text == "on":
+            self.advance()
+            qubits.append(self.qubit())
+            while self.tok.kind == "NAME" and self.tok.text not in KEYWORDS:
+                qubits.append(self.qubit())
+        return T.Wait(d, tuple(qubits), self.span_from(start))
+
+    def st_read(self, start: Span) -> T.Stmt:
+        qubits = [self.qubit("a qubit to read")]
+        while self.tok.kind == "NAME" and self.tok.text not in KEYWORDS:
+            qubits.append(self.qubit())
+        return T.Read(tuple(qubits), self.span_from(start))
+
+    def st_trigger(self, start: Span) -> T.Stmt:
+        label = ""
+        if self.tok.kind == "STRING":
+            label = self.advance().text[1:-1]
+        return T.Trigger(label, self.span_from(start))
+
+    def braced(self, what: str) -> tuple[T.Stmt, ...]:
+        opening = self.expect_op("{", f"{what} needs a body in braces {{ ... }}")
+        self.depth += 1
+        if self.depth > MAX_NESTING:
+            raise self.error(f"blocks nested deeper than {MAX_NESTING}", self.tok.span)
+        body = self.parse_body(top=False)
+        self.depth -= 1
+        if not self.at_op("}"):
+            raise self.error(f"the '{{' that opens the body of {what} is never closed",
+                             opening.span, "add '}' at the end of the body")
+        self.advance()
+        return tuple(body)
+
+    def st_together(self, start: Span) -> T.Stmt:
+        body = self.braced("together")
+        for s in body:
+            if not isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Do)):
+                kw = type(s).__name__.lower()
+                raise self.error(f"'{kw}' cannot run inside 'together'", s.span,
+                                 "together holds single steps on different qubits: "
+                                 + ", ".join(INSIDE_TOGETHER))
+        return T.Together(body, self.span_from(start))
+
+    def st_repeat(self, start: Span) -> T.Stmt:
+        n = self.expr()
+        body = self.braced("repeat")
+        return T.Repeat(n, body, self.span_from(start))
+
+    def st_block(self, start: Span) -> T.Stmt:
+        n = self.expect_name("the block's name", "e.g. block echo(q, tau) { ... }")
+        self.check_new_name(n)
+        self.expect_op("(", "list the parameters in parentheses, e.g. block echo(q, tau) { ... }")
+        params: list[str] = []
+        if not self.at_op(")"):
+            while True:
+                p = self.expect_name("a parameter name")
+                self.check_new_name(p)
+                if p.text in params:
+                    raise self.error(f"parameter '{p.text}' appears twice", p.span)
+                params.append(p.text)
+                if not self.at_op(","):
+                    break
+                self.advance()
+        self.expect_op(")", "close the parameter list with ')'")
+        body = self.braced(f"block {n.text}")
+        return T.BlockDef(n.text, tuple(params), body, self.span_from(start))
+
+    def st_do(self, start: Span) -> T.Stmt:
+        n = self.expect_name("the block to run", "e.g. do echo(A, 100 ns)")
+        self.expect_op("(", "give the arguments in parentheses, e.g. do echo(A, 100 ns)")
+        args: list[T.Expr] = []
+        if not self.at_op(")"):
+            while True:
+                args.append(self.expr())
+                if not self.at_op(","):
+                    break
+                self.advance()
+        self.expect_op(")", "close the argument list with ')'")
+        return T.Do(n.text, tuple(args), self.span_from(start))
+
+    # ------------------------------------------------------------ expressions
+    def expr(self) -> T.Expr:
+        self.depth += 1
+        if self.depth > MAX_NESTING:
+            raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
+                             "simplify it or split it with let")
+        try:
+            left = self.term()
+            while self.tok.kind == "OP" and self.tok.text in ("+", "-"):
+                op = self.advance().text
+                right = self.term()
+                left = T.Binary(op, left, right, Span.join(left.span, right.span))
+            return left
+        finally:
+            self.depth -= 1
+
+    def term(self) -> T.Expr:
+        left = self.unary()
+        while self.tok.kind == "OP" and self.tok.text in ("*", "/"):
+            op = self.advance().text
+            right = self.unary()
+            left = T.Binary(op, left, right, Span.join(left.span, right.span))
+        return left
+
+    def unary(self) -> T.Expr:
+        if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
+            t = self.advance()
+            self.depth += 1
+            if self.depth > MAX_NESTING:
+                raise self.error("expression nested too deeply", t.span)
+            try:
+                operand = self.unary()
+            finally:
+                self.depth -= 1
+            return T.Unary(t.text, operand, Span.join(t.span, operand.span))
+        return self.power()
+
+    def power(self) -> T.Expr:
+        base = self.primary()
+        if self.at_op("^"):
+            self.advance()
+            exp = self.unary()
+            return T.Binary("^", base, exp, Span.join(base.span, exp.span))
+        return base
+
+    def unit_after(self) -> Token | None:
+        t = self.tok
+        if t.kind == "NAME" and t.text in UNIT_WORDS and not (
+                self.peek().kind == "OP" and self.peek().text == "="):
+            return self.advance()
+        if t.kind == "NAME" and not t.spaced and t.text not in KEYWORDS:
+            # letters glued to a number: '90dg'
+            raise self.error(f"unknown unit '{t.text}'", t.span,
+                             suggest(t.text, UNIT_WORDS) or "units: ns us ms s, Hz kHz MHz GHz, "
+                             "mV V, mT T, deg rad, mK K, ueV meV")
+        return None
+
+    def primary(self) -> T.Expr:
+        t = self.tok
+        if t.kind == "NUMBER":
+            self.advance()
+            u = self.unit_after()
+            span = Span.join(t.span, u.span) if u else t.span
+            return T.Num(t.text, u.text if u else None, span)
+        if t.kind == "NAME":
+            if t.text in KEYWORDS:
+                raise self.error(f"expected a value, found the keyword '{t.text}'", t.span,
+                                 "did you forget a line break or ';'?")
+            self.advance()
+            if self.at_op("("):
+                if t.text not in FUNCTIONS:
+                    raise self.error(f"unknown function '{t.text}'", t.span,
+                                     suggest(t.text, FUNCTIONS) or "functions: " + ", ".join(FUNCTIONS))
+                self.advance()
+                args: list[T.Expr] = []
+                if not self.at_op(")"):
+                    while True:
+                        args.append(self.expr())
+                        if not self.at_op(","):
+                            break
+                        self.advance()
+                close = self.expect_op(")", "close the function call with ')'")
+                span = Span.join(t.span, close.span)
+                if len(args) != FUNCTIONS[t.text]:
+                    raise self.error(f"{t.text}() takes {FUNCTIONS[t.text]} argument"
+                                     f"{'s' if FUNCTIONS[t.text] > 1 else ''}, got {len(args)}", span)
+                return T.Call(t.text, tuple(args), span)
+            return T.Name(t.text, t.span)
+        if t.kind == "OP" and t.text == "(":
+            self.advance()
+            inner = self.expr()
+            close = self.expect_op(")", "close the parenthesis")
+            u = self.unit_after()
+            if u is not None:
+                return T.WithUnit(inner, u.text, Span.join(t.span, u.span))
+            return inner
+        hint = ""
+        if t.kind in ("NEWLINE", "EOF"):
+            hint = "the statement ends before its value; e.g. wait 100 ns"
+        raise self.error(f"expected a value, found {self.describe(t)}", t.span, hint)
+
+
+class _MissingInclude(Exception):
+    def __init__(self, reason: str):
+        self.reason = reason
+
+
+def _read(path: Path) -> str:
+    try:
+        size = path.stat().st_size
+        if path.is_dir():
+            raise _MissingInclude("it is a directory")
+        if size > MAX_FILE_CHARS:
+            raise _MissingInclude(f"it is {size} bytes; the limit is {MAX_FILE_CHARS}")
+        return path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise _MissingInclude("no such file") from None
+    except UnicodeDecodeError as e:
+        raise _MissingInclude(f"not UTF-8 text (byte {e.start})") from None
+    except OSError as e:
+        raise _MissingInclude(e.strerror or str(e)) from None
+
+
+def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = ()) -> T.SourceFile:
+    """Parse sequence text; raises SequenceSyntaxError listing every problem."""
+    if len(text) > MAX_FILE_CHARS:
+        raise SequenceSyntaxError(f"sequence text is {len(text)} characters; the limit is "
+                                  f"{MAX_FILE_CHARS}", Span(file, 1, 1, 1, 1))
+    remember_source(file, text)
+    p = Parser(text, file, chain)
+    result = p.parse_file()
+    if p.problems:
+        raise SequenceSyntaxError(p.problems)
+    return result
+
+
+def parse_path(path: str | Path, chain: tuple[str, ...] = ()) -> T.SourceFile:
+    """Read and parse one sequence file (and the files it includes)."""
+    path = Path(path)
+    if not chain:
+        try:
+            text = _read(path)
+        except _MissingInclude as e:
+            raise SequenceError(f"cannot read sequence file '{path}': {e.reason}",
+                                Span(str(path), 0, 0, 0, 0),
+                                f"sequence files end in {SEQUENCE_SUFFIX}; check the path") from None
+    else:
+        text = _read(path)
+    return parse_text(text, str(path), chain)
