@@ -1,0 +1,149 @@
+"""The expanded program: concrete steps with SI values, one list per run.
+
+Produced by :mod:`compiler.expand` from the parsed tree (parameters
+evaluated, sweeps split into runs, repeats and blocks unrolled, includes
+inlined); checked against the device by :mod:`compiler.check`; placed in
+time by :mod:`compiler.schedule`.  Every step keeps the span of the statement
+it came from and, when it came from a block call, the chain of calls.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Union
+
+from .errors import Span
+from .units import Dim
+
+
+@dataclass(frozen=True)
+class Rotation:
+    """A rotation by ``angle`` (rad, signed) about the xy-plane axis at azimuth
+    ``phase`` (rad; 0 = x, π/2 = y), played as a microwave burst."""
+    qubit: str
+    phase: float
+    angle: float
+    shape: str | None          # None: the device default
+    duration: float | None     # s, None: from the device default / angle
+    amplitude: float | None    # V, None: from the device default / angle
+    span: Span
+    via: tuple[str, ...] = ()
+    qubit_spans: tuple[Span, ...] = ()   # where each qubit is named
+    kind = "rot"
+
+
+@dataclass(frozen=True)
+class FrameRotation:
+    """A z rotation by ``angle`` (rad): a frame update, no waveform, no time."""
+    qubit: str
+    angle: float
+    span: Span
+    via: tuple[str, ...] = ()
+    qubit_spans: tuple[Span, ...] = ()
+    kind = "zrot"
+
+
+@dataclass(frozen=True)
+class ExchangeGate:
+    """√SWAP, its inverse, or SWAP between two coupled dots."""
+    gate: str                  # "sqrtswap", "isqrtswap", "swap"
+    a: str
+    b: str
+    duration: float | None     # s
+    amplitude: float | None    # V, barrier level during the pulse
+    span: Span
+    via: tuple[str, ...] = ()
+    qubit_spans: tuple[Span, ...] = ()
+
+    @property
+    def kind(self) -> str:
+        return self.gate
+
+
+@dataclass(frozen=True)
+class Idle:
+    """Wait ``duration`` seconds on ``qubits`` (empty: on every dot)."""
+    duration: float
+    qubits: tuple[str, ...]
+    span: Span
+    via: tuple[str, ...] = ()
+    qubit_spans: tuple[Span, ...] = ()
+    kind = "wait"
+
+
+@dataclass(frozen=True)
+class Readout:
+    qubits: tuple[str, ...]
+    span: Span
+    via: tuple[str, ...] = ()
+    qubit_spans: tuple[Span, ...] = ()
+    kind = "read"
+
+
+@dataclass(frozen=True)
+class Trigger:
+    label: str
+    span: Span
+    via: tuple[str, ...] = ()
+    kind = "trigger"
+
+
+@dataclass(frozen=True)
+class Parallel:
+    """Steps on different qubits that start together."""
+    steps: tuple["Step", ...]
+    span: Span
+    via: tuple[str, ...] = ()
+    kind = "together"
+
+
+Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Parallel]
+
+
+@dataclass(frozen=True)
+class SweepAxis:
+    name: str
+    values: tuple[float, ...]  # SI
+    dim: Dim
+    span: Span
+
+
+@dataclass(frozen=True)
+class Run:
+    """One concrete experiment: a point of the sweep grid."""
+    index: int
+    sweep: tuple[tuple[str, float], ...]   # (name, SI value) per axis
+    prepare: tuple[tuple[str, str, Span], ...]   # (qubit, state, span) as declared
+    steps: tuple[Step, ...]
+
+
+@dataclass(frozen=True)
+class Expanded:
+    """The whole file after expansion; ``runs`` is one Run per sweep point,
+    in row-major order (first declared sweep outermost)."""
+    file: str
+    device_path: str | None    # resolved path, None: the bundled default
+    device_span: Span | None
+    axes: tuple[SweepAxis, ...]
+    runs: tuple[Run, ...]
+
+
+def leaf_steps(steps):
+    """Iterate over steps with Parallel groups opened."""
+    for s in steps:
+        if isinstance(s, Parallel):
+            yield from s.steps
+        else:
+            yield s
+
+
+def step_qubits(s: Step) -> tuple[str, ...]:
+    if isinstance(s, (Rotation, FrameRotation)):
+        return (s.qubit,)
+    if isinstance(s, ExchangeGate):
+        return (s.a, s.b)
+    if isinstance(s, (Idle, Readout)):
+        return s.qubits
+    if isinstance(s, Parallel):
+        return tuple(q for x in s.steps for q in step_qubits(x))
+    return ()
