@@ -1,0 +1,1036 @@
+"""Read a device description (YAML) into a :class:`~compiler.device.model.Device`.
+
+The text is composed with ``yaml.SafeLoader`` into a node tree (no Python
+objects are built by YAML itself), so every value keeps its line and column.
+The reader walks the tree against the schema below, converts quantities to
+SI floats with :func:`compiler.units.parse_quantity`, collects every problem
+it finds, then checks the physics across sections (coherence times, Larmor
+frequency against the microwave band, channel kinds, exchange ranges) and
+raises one :class:`~compiler.errors.DeviceError` listing all of them.
+
+The file format is described key by key in ``docs/device.md``.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import yaml
+from yaml.constructor import ConstructorError, SafeConstructor
+from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
+
+from .. import physics
+from ..errors import DeviceError, Problem, ProblemList, Span, suggest
+from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
+                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_quantity,
+                     parse_quantity)
+from . import exchange as xch
+from .model import (Channel, Coupling, Device, Dot, Drive, ExchangeModel, Readout,
+                    RotationDefaults)
+from .presets import PRESETS
+
+# --------------------------------------------------------------------- schema
+
+TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
+TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings")
+
+DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger")
+DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt")
+
+CHANNEL_KINDS = ("iq", "gate", "marker")
+CHANNEL_KEYS = ("kind", "sample_rate", "bits", "range", "rise_time", "bandwidth",
+                "min_length", "granularity", "bias_tee", "lo", "if_band")
+CHANNEL_REQUIRED = {
+    "iq": ("sample_rate", "bits", "range", "lo", "if_band"),
+    "gate": ("sample_rate", "bits", "range"),
+    "marker": ("sample_rate",),
+}
+CHANNEL_ONLY = {"lo": ("iq",), "if_band": ("iq",), "bias_tee": ("iq", "gate")}
+
+COUPLING_KEYS = ("dots", "barrier", "exchange", "idle_voltage", "pulse_voltage",
+                 "charge_noise", "detune")
+EXCHANGE_REQUIRED = {
+    "exponential": ("j0", "v0"),
+    "hubbard": ("t0", "vt", "u"),
+    "table": ("points",),
+}
+EXCHANGE_OPTIONAL = {"exponential": (), "hubbard": ("detuning",), "table": ()}
+EXCHANGE_ALL = ("model", "j0", "v0", "t0", "vt", "u", "detuning", "points")
+
+ROTATION_KEYS = ("mode", "shape", "amplitude", "duration", "sigmas", "edge")
+ROTATION_MODES = ("amplitude", "duration")
+ROTATION_SHAPES = ("square", "gauss", "flattop")
+READOUT_KEYS = ("marker", "duration", "trigger_marker")
+
+# Example lines for "missing key" hints.
+KEY_EXAMPLES = {
+    "name": 'name: "my double dot"', "field": "field: 500 mT", "temperature": "temperature: 50 mK",
+    "dots": "dots: {A: {preset: bilayer_graphene, drive: {line: mw, rabi_per_volt: 10 MHz/V}, "
+            "plunger: P_A}}",
+    "channels": "channels: {mw: {kind: iq, ...}, P_A: {kind: gate, ...}}",
+    "kind": "kind: gate", "sample_rate": "sample_rate: 1 GS/s", "bits": "bits: 16",
+    "range": "range: [-1 V, 1 V]", "lo": "lo: 14 GHz", "if_band": "if_band: [-300 MHz, 300 MHz]",
+    "drive": "drive: {line: mw, rabi_per_volt: 10 MHz/V}", "plunger": "plunger: P_A",
+    "line": "line: mw", "barrier": "barrier: B_AB", "exchange":
+        "exchange: {model: exponential, j0: 20 kHz, v0: 40 mV}",
+    "model": "model: exponential", "marker": "marker: M1", "duration": "duration: 2 us",
+    "j0": "j0: 20 kHz", "v0": "v0: 40 mV", "t0": "t0: 2 ueV", "vt": "vt: 150 mV", "u": "u: 1 meV",
+    "points": "points: [[0 mV, 10 kHz], [100 mV, 200 kHz]]",
+}
+
+_IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
+
+# Thresholds of the (non-fatal) warnings.
+IDLE_EXCHANGE_RATIO = 1e-2     # J(idle)/J(pulse) above this is worth a warning
+THERMAL_RATIO = 3.0            # h·f_L/(k_B·T) below this: weak spin polarisation
+RWA_RATIO = 0.1                # f_Rabi(full scale)/f_L above this: RWA doubtful
+HUBBARD_T_RATIO = 0.2          # t/(U − |ε|) above this: 4t²U/(U²−ε²) unreliable
+BANDWIDTH_RISE = 0.35          # t_rise = 0.35/f_3dB (common practice, no source)
+
+
+class _Skip(Exception):
+    """Internal: stop reading one value after its problem has been recorded."""
+
+
+@dataclass
+class _Val:
+    """A value read from the file, with the node it came from."""
+    value: Any
+    node: Node
+
+
+def _kind_of(node: Node) -> str:
+    if isinstance(node, MappingNode):
+        return "a mapping"
+    if isinstance(node, SequenceNode):
+        return "a list"
+    if node.tag.endswith(":null"):
+        return "nothing"
+    return f"'{node.value}'"
+
+
+class _Reader:
+    """Walks one composed YAML tree; collects problems and warnings."""
+
+    def __init__(self, text: str, file: str):
+        self.file = file
+        self.lines = text.splitlines()
+        self.problems = ProblemList()
+        self.warnings = ProblemList()
+        self._ctor = SafeConstructor()
+        # channels declared but unreadable: references to them are not
+        # reported again as "not in channels"
+        self.broken_channels: set[str] = set()
+
+    # ---------------------------------------------------------------- report
+    def span(self, node: Node) -> Span:
+        s, e = node.start_mark, node.end_mark
+        if e.line > s.line and e.column == 0:
+            # block nodes end at the start of the next token: back up over
+            # blank and comment lines to the node's last line of text
+            last = min(e.line - 1, len(self.lines) - 1)
+            while last > s.line and self.lines[last].strip()[:1] in ("", "#"):
+                last -= 1
+            return Span(self.file, s.line + 1, s.column + 1, last + 1,
+                        len(self.lines[last].rstrip()) + 1)
+        return Span(self.file, s.line + 1, s.column + 1, e.line + 1, e.column + 1)
+
+    def _line(self, span: Span) -> str:
+        return self.lines[span.line - 1] if 0 < span.line <= len(self.lines) else ""
+
+    def error(self, node: Node, message: str, hint: str = "") -> None:
+        sp = self.span(node)
+        self.problems.add(message, sp, hint, self._line(sp))
+
+    def warn(self, node: Node, message: str, hint: str = "") -> None:
+        sp = self.span(node)
+        self.warnings.add(message, sp, hint, self._line(sp))
+
+    def fail(self, node: Node, message: str, hint: str = "") -> None:
+        self.error(node, message, hint)
+        raise _Skip
+
+    # ------------------------------------------------------------- structure
+    def mapping(self, node: Node, path: str, allowed: tuple[str, ...],
+                required: tuple[str, ...] = (), anchor: Node | None = None,
+                example: str = "") -> dict[str, tuple[Node, Node]]:
+        """Check a mapping's keys; return key -> (key node, value node).
+
+        Unknown and duplicate keys are reported; missing required keys are
+        reported at ``anchor`` (the key naming this mapping).
+        """
+        where = anchor if anchor is not None else node
+        if not isinstance(node, MappingNode):
+            self.fail(node, f"{path} must be a mapping of 'key: value' lines, got {_kind_of(node)}",
+                      example)
+        out: dict[str, tuple[Node, Node]] = {}
+        for knode, vnode in node.value:
+            if not isinstance(knode, ScalarNode):
+                self.error(knode, f"{path}: a key must be a plain name, got {_kind_of(knode)}")
+                continue
+            key = knode.value
+            if key in out:
+                first = out[key][0].start_mark.line + 1
+                self.error(knode, f"duplicate key '{key}' in {path} (first given on line {first})",
+                           "remove one of the two; YAML would silently keep only the last")
+                continue
+            if key == "<<":
+                self.error(knode, f"{path}: YAML merge keys ('<<') are not supported",
+                           "write the keys out in full")
+                continue
+            if key not in allowed:
+                hint = suggest(key, allowed) or ("allowed keys: " + ", ".join(allowed))
+                self.error(knode, f"unknown key '{key}' in {path}", hint)
+                continue
+            out[key] = (knode, vnode)
+        for key in required:
+            if key not in out:
+                ex = KEY_EXAMPLES.get(key, f"{key}: ...")
+                self.error(where, f"{path} is missing the required key '{key}'",
+                           f"add a line like '{ex}'")
+        return out
+
+    def scalar(self, node: Node, path: str, example: str = "") -> Any:
+        """The Python value of a scalar node (int, float, str, bool, None)."""
+        if not isinstance(node, ScalarNode):
+            self.fail(node, f"{path} must be a single value, got {_kind_of(node)}",
+                      f"write it like '{example}'" if example else "")
+        try:
+            value = self._ctor.construct_object(node, deep=True)
+        except (ConstructorError, ValueError, TypeError, OverflowError) as exc:
+            self.fail(node, f"{path}: cannot read '{node.value}' ({exc})")
+        if value is None:
+            self.fail(node, f"{path} has no value",
+                      f"write it like '{path.rsplit('.', 1)[-1]}: {example}'" if example else "")
+        return value
+
+    def text(self, node: Node, path: str) -> str:
+        self.scalar(node, path, '"some text"')
+        return str(node.value)
+
+    def ident(self, node: Node, path: str, what: str) -> str:
+        """A name (dot, channel) written as an identifier."""
+        if not isinstance(node, ScalarNode) or node.tag.endswith(":null"):
+            self.fail(node, f"{path} must be the name of a {what}, got {_kind_of(node)}")
+        name = node.value
+        if not _IDENT.match(name):
+            self.fail(node, f"{path}: '{name}' is not a valid {what} name",
+                      "names start with a letter or '_' and contain only letters, digits and '_'")
+        return name
+
+    def choice(self, node: Node, path: str, options: tuple[str, ...]) -> str:
+        if not isinstance(node, ScalarNode):
+            self.fail(node, f"{path} must be one of {', '.join(options)}, got {_kind_of(node)}")
+        word = node.value
+        if word not in options:
+            self.fail(node, f"{path} must be one of {', '.join(options)}, got '{word}'",
+                      suggest(word, options))
+        return word
+
+    def quantity(self, node: Node, path: str, dim: Dim, *, positive: bool = False,
+                 nonnegative: bool = False, bare_zero: bool = False) -> float:
+        """A quantity with unit as an SI float; checks its sign when asked."""
+        example = EXAMPLE_UNIT.get(dim, "")
+        value = self.scalar(node, path, example)
+        try:
+            x = parse_quantity(value, dim, path, allow_bare_zero=bare_zero)
+        except UnitError as exc:
+            hint = (f"write it with a unit, like '{example}'"
+                    if example and "needs a unit" in str(exc) else "")
+            self.fail(node, str(exc), hint)
+        if positive and not x > 0:
+            self.fail(node, f"{path} must be greater than zero, got '{node.value}'")
+        if nonnegative and x < 0:
+            self.fail(node, f"{path} must not be negative, got '{node.value}'")
+        return x
+
+    def number(self, node: Node, path: str, *, positive: bool = False,
+               nonzero: bool = False) -> float:
+        """A plain (dimensionless) number."""
+        value = self.scalar(node, path, "2.0")
+        try:
+            x = parse_quantity(value, NONE, path)
+        except UnitError as exc:
+            self.fail(node, str(exc), "a plain number without unit, e.g. 2.0")
+        if positive and not x > 0:
+            self.fail(node, f"{path} must be greater than zero, got '{node.value}'")
+        if nonzero and x == 0:
+            self.fail(node, f"{path} must not be zero")
+        return x
+
+    def integer(self, node: Node, path: str, lo: int, hi: int | None = None) -> int:
+        value = self.scalar(node, path, str(lo))
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or (
+                isinstance(value, float) and not (math.isfinite(value) and value.is_integer())):
+            self.fail(node, f"{path} must be a whole number, got '{node.value}'")
+        n = int(value)
+        if n < lo or (hi is not None and n > hi):
+            rng = f"from {lo} to {hi}" if hi is not None else f"at least {lo}"
+            self.fail(node, f"{path} must be {rng}, got {n}")
+        return n
+
+    def pair(self, node: Node, path: str, dim: Dim, bare_zero: bool = False
+             ) -> tuple[_Val, _Val]:
+        """A two-element list of quantities [low, high]."""
+        ex = EXAMPLE_UNIT.get(dim, "1")
+        if not isinstance(node, SequenceNode) or len(node.value) != 2:
+            self.fail(node, f"{path} must be a list of two values [low, high], got {_kind_of(node)}",
+                      f"e.g. [-{ex}, {ex}]")
+        a = self.quantity(node.value[0], f"{path}[0]", dim, bare_zero=bare_zero)
+        b = self.quantity(node.value[1], f"{path}[1]", dim, bare_zero=bare_zero)
+        if not a < b:
+            self.fail(node, f"{path}: the low end must be below the high end, got '{node.value[0].value}'"
+                            f" and '{node.value[1].value}'", f"e.g. [-{ex}, {ex}]")
+        return _Val(a, node.value[0]), _Val(b, node.value[1])
+
+    def get(self, m: dict[str, tuple[Node, Node]], key: str, fn, *args, **kw):
+        """Read m[key] with ``fn(value_node, *args)``; None when absent or bad."""
+        if key not in m:
+            return None
+        try:
+            return _Val(fn(m[key][1], *args, **kw), m[key][1])
+        except _Skip:
+            return None
+
+
+# ------------------------------------------------------------------ sections
+
+def _read_channels(r: _Reader, node: Node, anchor: Node) -> dict[str, tuple[Channel, dict]]:
+    out: dict[str, tuple[Channel, dict]] = {}
+    if not isinstance(node, MappingNode) or not node.value:
+        r.error(node if isinstance(node, MappingNode) else anchor,
+                "channels must be a mapping of channel name -> settings with at least one channel",
+                "e.g. 'mw: {kind: iq, sample_rate: 1 GS/s, ...}'")
+        return out
+    names = r.mapping(node, "channels", tuple(k.value for k, _ in node.value
+                                             if isinstance(k, ScalarNode)))
+    for name, (knode, vnode) in names.items():
+        path = f"channels.{name}"
+        try:
+            r.ident(knode, path, "channel")
+            m = r.mapping(vnode, path, CHANNEL_KEYS, ("kind",), anchor=knode)
+            if "kind" not in m:
+                continue
+            kind = r.choice(m["kind"][1], f"{path}.kind", CHANNEL_KINDS)
+        except _Skip:
+            continue
+        n_before = len(r.problems.problems)
+        for key, kinds in CHANNEL_ONLY.items():
+            if key in m and kind not in kinds:
+                r.error(m[key][0], f"{path}.{key} applies only to channels of kind "
+                                   f"{' or '.join(kinds)}, and '{name}' is kind '{kind}'")
+        for key in CHANNEL_REQUIRED[kind]:
+            if key not in m:
+                r.error(knode, f"{path} is missing the required key '{key}' "
+                               f"(needed by a channel of kind '{kind}')",
+                        f"add '{KEY_EXAMPLES.get(key, key + ': ...')}'")
+        ch = _read_channel_values(r, m, path, kind)
+        if ch is None or len(r.problems.problems) > n_before:
+            continue
+        ch["name"] = name
+        ch["kind"] = kind
+        ch["span"] = r.span(knode)
+        out[name] = (ch, m)
+    r.broken_channels = set(names) - set(out)
+    return out
+
+
+def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
+    n_before = len(r.problems.problems)
+    fs = r.get(m, "sample_rate", r.quantity, f"{path}.sample_rate", FREQUENCY, positive=True)
+    bits = r.get(m, "bits", r.integer, f"{path}.bits", 1, 32)
+    rng = r.get(m, "range", r.pair, f"{path}.range", VOLTAGE, True)
+    rise = r.get(m, "rise_time", r.quantity, f"{path}.rise_time", TIME, nonnegative=True,
+                 bare_zero=True)
+    bw = r.get(m, "bandwidth", r.quantity, f"{path}.bandwidth", FREQUENCY, positive=True)
+    if "rise_time" in m and "bandwidth" in m:
+        r.error(m["bandwidth"][0], f"{path} gives both rise_time and bandwidth",
+                "give one: the other follows from t_rise = 0.35/bandwidth")
+    minlen = r.get(m, "min_length", r.integer, f"{path}.min_length", 1)
+    gran = r.get(m, "granularity", r.integer, f"{path}.granularity", 1)
+    tee = r.get(m, "bias_tee", r.quantity, f"{path}.bias_tee", TIME, nonnegative=True,
+                bare_zero=True)
+    lo = r.get(m, "lo", r.quantity, f"{path}.lo", FREQUENCY, positive=True)
+    band = r.get(m, "if_band", r.pair, f"{path}.if_band", FREQUENCY, True)
+    if fs is not None and band is not None:
+        edge = max(abs(band.value[0].value), abs(band.value[1].value))
+        if not edge < fs.value / 2:
+            r.error(band.node, f"{path}.if_band reaches {format_quantity(edge, FREQUENCY)}, "
+                               f"not below the Nyquist frequency "
+                               f"{format_quantity(fs.value / 2, FREQUENCY)} "
+                               f"(half of sample_rate {m['sample_rate'][1].value})",
+                    "narrow the IF band or raise the sample rate: |IF| < sample_rate/2")
+    if len(r.problems.problems) > n_before:
+        return None
+    ch: dict = {"sample_rate": fs.value if fs else 0.0}
+    if bits:
+        ch["bits"] = bits.value
+    if rng:
+        ch["v_min"], ch["v_max"] = rng.value[0].value, rng.value[1].value
+    if rise:
+        ch["rise_time"] = rise.value
+    if bw:
+        ch["rise_time"] = BANDWIDTH_RISE / bw.value
+    if minlen:
+        ch["min_length"] = minlen.value
+    if gran:
+        ch["granularity"] = gran.value
+    if tee:
+        ch["bias_tee"] = tee.value
+    if lo:
+        ch["lo"] = lo.value
+    if band:
+        ch["if_min"], ch["if_max"] = band.value[0].value, band.value[1].value
+    return ch
+
+
+def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
+    path = f"dots.{name}"
+    try:
+        r.ident(knode, path, "dot")
+        m = r.mapping(vnode, path, DOT_KEYS, ("drive", "plunger"), anchor=knode,
+                      example=f"e.g. '{name}: {{preset: gaas, drive: {{line: mw, "
+                              f"rabi_per_volt: 10 MHz/V}}, plunger: P_{name}}}'")
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    preset = r.get(m, "preset", r.choice, f"{path}.preset", tuple(PRESETS))
+    values: dict[str, _Val] = {}
+    sources: list[str] = []
+    g = r.get(m, "g", r.number, f"{path}.g", nonzero=True)
+    if g is not None:
+        values["g"] = g
+    for key in ("t1", "t2", "t2_star"):
+        v = r.get(m, key, r.quantity, f"{path}.{key}", TIME, positive=True)
+        if v is not None:
+            values[key] = v
+    for key in ("g", "t1", "t2", "t2_star"):
+        if key in m:
+            continue
+        if preset is not None:
+            p = PRESETS[preset.value]
+            values[key] = _Val(p.value(key), preset.node)
+            sources.append(f"{key}: {p.source(key)}")
+        elif "preset" not in m:
+            r.error(knode, f"{path} needs '{key}' (or a 'preset' to take it from)",
+                    "presets: " + ", ".join(PRESETS))
+    # coherence: T2* <= T2 <= 2 T1 (Bloch relaxation; common practice, no source)
+    t1, t2, t2s = values.get("t1"), values.get("t2"), values.get("t2_star")
+    if t1 is not None and t2 is not None and t2.value > 2 * t1.value * (1 + 1e-12):
+        r.error(t2.node, f"{path}.t2 = {format_quantity(t2.value, TIME)} is longer than "
+                         f"2·T1 = {format_quantity(2 * t1.value, TIME)}",
+                "T2 cannot exceed 2·T1: check the units of t1 and t2")
+    if t2 is not None and t2s is not None and t2s.value > t2.value * (1 + 1e-12):
+        r.error(t2s.node, f"{path}.t2_star = {format_quantity(t2s.value, TIME)} is longer "
+                          f"than the Hahn-echo T2 = {format_quantity(t2.value, TIME)}",
+                "an echo only removes dephasing, so T2* ≤ T2")
+    drive = None
+    if "drive" in m:
+        drive = _read_drive(r, m["drive"], f"{path}.drive", values.get("g"))
+    plunger = r.get(m, "plunger", r.ident, f"{path}.plunger", "channel")
+    if len(r.problems.problems) > n_before or drive is None or plunger is None:
+        return None
+    return {"name": name, "values": values, "drive": drive, "plunger": plunger,
+            "preset": preset.value if preset else "", "sources": tuple(sources),
+            "node": knode, "span": r.span(knode)}
+
+
+def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) -> dict | None:
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, path, DRIVE_KEYS, ("line",), anchor=knode,
+                      example="e.g. 'drive: {line: mw, rabi_per_volt: 40 MHz/V}'")
+    except _Skip:
+        return None
+    line = r.get(m, "line", r.ident, f"{path}.line", "channel")
+    rabi = r.get(m, "rabi_per_volt", r.quantity, f"{path}.rabi_per_volt", FREQ_PER_VOLT,
+                 positive=True)
+    b1 = r.get(m, "b1_per_volt", r.quantity, f"{path}.b1_per_volt", FIELD_PER_VOLT,
+               positive=True)
+    if "rabi_per_volt" in m and "b1_per_volt" in m:
+        r.error(m["b1_per_volt"][0], f"{path} gives both rabi_per_volt and b1_per_volt",
+                "give one: f_Rabi = |g|·μB·B1/(2h)")
+        return None
+    if "rabi_per_volt" not in m and "b1_per_volt" not in m:
+        r.error(knode, f"{path} needs 'rabi_per_volt' (e.g. 40 MHz/V) or 'b1_per_volt' "
+                       "(e.g. 1 mT/V)")
+        return None
+    if line is None:
+        return None
+    if rabi is not None:
+        per_volt = rabi
+    elif b1 is not None and g is not None:
+        # linear drive, rotating-wave approximation (Abragam 1961)
+        per_volt = _Val(physics.rabi_from_b1(g.value, b1.value), b1.node)
+    else:
+        return None
+    return {"line": line, "rabi": per_volt, "span": r.span(knode)}
+
+
+def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, path, EXCHANGE_ALL, ("model",), anchor=knode,
+                      example="e.g. 'exchange: {model: exponential, j0: 20 kHz, v0: 40 mV}'")
+        if "model" not in m:
+            return None
+        kind = r.choice(m["model"][1], f"{path}.model", xch.KINDS)
+    except _Skip:
+        return None
+    allowed = EXCHANGE_REQUIRED[kind] + EXCHANGE_OPTIONAL[kind]
+    bad = False
+    for key, (kn, _) in m.items():
+        if key != "model" and key not in allowed:
+            r.error(kn, f"{path}.{key} is not a parameter of the {kind} model "
+                        f"(it takes {', '.join(allowed)})")
+            bad = True
+    for key in EXCHANGE_REQUIRED[kind]:
+        if key not in m:
+            r.error(knode, f"{path} is missing the required key '{key}' of the {kind} model",
+                    f"add '{KEY_EXAMPLES.get(key, key + ': ...')}'")
+            bad = True
+    if kind == "exponential":
+        j0 = r.get(m, "j0", r.quantity, f"{path}.j0", FREQUENCY, positive=True)
+        v0 = r.get(m, "v0", r.quantity, f"{path}.v0", VOLTAGE, positive=True)
+        if bad or j0 is None or v0 is None:
+            return None
+        return _Val(ExchangeModel("exponential", j0=j0.value, v0=v0.value), vnode)
+    if kind == "hubbard":
+        t0 = r.get(m, "t0", _energy_or_freq, r, f"{path}.t0", positive=True)
+        vt = r.get(m, "vt", r.quantity, f"{path}.vt", VOLTAGE, positive=True)
+        u = r.get(m, "u", _energy_or_freq, r, f"{path}.u", positive=True)
+        eps = r.get(m, "detuning", _energy_or_freq, r, f"{path}.detuning")
+        eps_v = eps.value if eps else 0.0
+        if u is not None and eps is not None and not abs(eps_v) < u.value:
+            r.error(eps.node, f"{path}.detuning |ε| = {format_quantity(abs(eps_v), FREQUENCY)}"
+                              f" (as ε/h) is not below the charging energy U/h = "
+                              f"{format_quantity(u.value, FREQUENCY)}",
+                    "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
+                    "charge moves to one dot)")
+            return None
+        if bad or None in (t0, vt, u):
+            return None
+        return _Val(ExchangeModel("hubbard", t0=t0.value, vt=vt.value, u=u.value,
+                                  detuning=eps_v), vnode)
+    pts = r.get(m, "points", _table_points, r, f"{path}.points")
+    if bad or pts is None:
+        return None
+    volts, joules = pts.value
+    return _Val(ExchangeModel("table", volts=volts, joules=joules), vnode)
+
+
+def _energy_or_freq(node: Node, r: _Reader, path: str, positive: bool = False) -> float:
+    """An energy (eV units) as E/h in Hz, or a frequency given directly."""
+    value = r.scalar(node, path, "10 ueV")
+    try:
+        x = physics.energy_to_frequency(parse_quantity(value, ENERGY, path,
+                                                       allow_bare_zero=not positive))
+    except UnitError as exc_e:
+        try:
+            x = parse_quantity(value, FREQUENCY, path, allow_bare_zero=not positive)
+        except UnitError:
+            if "finite" in str(exc_e):
+                r.fail(node, str(exc_e))
+            r.fail(node, f"{path} must be an energy like '10 ueV' or a frequency (E/h) like "
+                         f"'2.4 GHz', got '{node.value}'")
+    if positive and not x > 0:
+        r.fail(node, f"{path} must be greater than zero, got '{node.value}'")
+    return x
+
+
+def _table_points(node: Node, r: _Reader, path: str) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    if not isinstance(node, SequenceNode) or len(node.value) < 2:
+        r.fail(node, f"{path} must be a list of at least two [voltage, J] points, "
+                     f"got {_kind_of(node) if not isinstance(node, SequenceNode) else 'fewer'}",
+               "e.g. points: [[0 mV, 10 kHz], [100 mV, 200 kHz]]")
+    volts: list[_Val] = []
+    joules: list[_Val] = []
+    ok = True
+    for i, item in enumerate(node.value):
+        p = f"{path}[{i}]"
+        try:
+            if not isinstance(item, SequenceNode) or len(item.value) != 2:
+                r.fail(item, f"{p} must be a pair [voltage, J], got {_kind_of(item)}",
+                       "e.g. [100 mV, 200 kHz]")
+            v = r.quantity(item.value[0], f"{p} voltage", VOLTAGE, bare_zero=True)
+            j = r.quantity(item.value[1], f"{p} exchange J", FREQUENCY, positive=True)
+            volts.append(_Val(v, item.value[0]))
+            joules.append(_Val(j, item.value[1]))
+        except _Skip:
+            ok = False
+    if not ok:
+        raise _Skip
+    for i in range(1, len(volts)):
+        if not volts[i].value > volts[i - 1].value:
+            r.error(volts[i].node, f"{path}[{i}]: voltage '{volts[i].node.value}' is not above "
+                                   f"the previous point's '{volts[i - 1].node.value}'",
+                    "list the calibration points in strictly increasing voltage")
+            ok = False
+        elif not joules[i].value > joules[i - 1].value:
+            r.error(joules[i].node, f"{path}[{i}]: J table is not monotonic: "
+                                    f"'{joules[i].node.value}' at '{volts[i].node.value}' is not "
+                                    f"above '{joules[i - 1].node.value}' at the previous point",
+                    "J must strictly increase with barrier voltage; re-measure or drop the point")
+            ok = False
+    if not ok:
+        raise _Skip
+    return tuple(v.value for v in volts), tuple(j.value for j in joules)
+
+
+def _read_coupling(r: _Reader, i: int, node: Node, dots: dict, dot_names: set) -> dict | None:
+    path = f"couplings[{i}]"
+    try:
+        m = r.mapping(node, path, COUPLING_KEYS, ("dots", "barrier", "exchange"),
+                      example="e.g. '- {dots: [A, B], barrier: B_AB, exchange: {...}}'")
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    pair = None
+    if "dots" in m:
+        dn = m["dots"][1]
+        if not isinstance(dn, SequenceNode) or len(dn.value) != 2:
+            r.error(dn, f"{path}.dots must list exactly two dots, got {_kind_of(dn)}"
+                        if not isinstance(dn, SequenceNode) else
+                        f"{path}.dots must list exactly two dots, got {len(dn.value)}",
+                    "e.g. dots: [A, B]")
+        else:
+            names = []
+            for j, item in enumerate(dn.value):
+                try:
+                    nm = r.ident(item, f"{path}.dots[{j}]", "dot")
+                except _Skip:
+                    continue
+                if nm not in dot_names:
+                    r.error(item, f"{path}.dots names the dot '{nm}', which is not in dots",
+                            suggest(nm, dot_names))
+                names.append((nm, item))
+            if len(names) == 2 and names[0][0] == names[1][0]:
+                r.error(names[1][1], f"{path} couples dot '{names[0][0]}' to itself",
+                        "an exchange coupling joins two different dots")
+            elif len(names) == 2:
+                pair = _Val((names[0][0], names[1][0]), dn)
+    barrier = r.get(m, "barrier", r.ident, f"{path}.barrier", "channel")
+    model = _read_exchange(r, m["exchange"], f"{path}.exchange") if "exchange" in m else None
+    idle = r.get(m, "idle_voltage", r.quantity, f"{path}.idle_voltage", VOLTAGE, bare_zero=True)
+    pulse = r.get(m, "pulse_voltage", r.quantity, f"{path}.pulse_voltage", VOLTAGE,
+                  bare_zero=True)
+    noise = r.get(m, "charge_noise", r.quantity, f"{path}.charge_noise", VOLTAGE,
+                  nonnegative=True, bare_zero=True)
+    detune: list[tuple[str, float, Node]] = []
+    if "detune" in m:
+        dk, dv = m["detune"]
+        try:
+            if not isinstance(dv, MappingNode):
+                r.fail(dv, f"{path}.detune must map dot names to plunger offsets, "
+                           f"got {_kind_of(dv)}", "e.g. detune: {B: 20 mV}")
+            seen = r.mapping(dv, f"{path}.detune",
+                             tuple(k.value for k, _ in dv.value if isinstance(k, ScalarNode)))
+            for nm, (kn, vn) in seen.items():
+                try:
+                    r.ident(kn, f"{path}.detune", "dot")
+                    off = r.quantity(vn, f"{path}.detune.{nm}", VOLTAGE, bare_zero=True)
+                except _Skip:
+                    continue
+                if nm not in dot_names:
+                    r.error(kn, f"{path}.detune names the dot '{nm}', which is not in dots",
+                            suggest(nm, dot_names))
+                elif pair is not None and nm in pair.value:
+                    r.error(kn, f"{path}.detune: '{nm}' is one of the coupled pair itself",
+                            "detune lists only the dots in between the pair")
+                detune.append((nm, off, kn))
+        except _Skip:
+            pass
+    if len(r.problems.problems) > n_before or None in (pair, barrier, model):
+        return None
+    return {"pair": pair, "barrier": barrier, "model": model, "idle": idle, "pulse": pulse,
+            "noise": noise, "detune": detune, "node": node, "span": r.span(node), "index": i}
+
+
+def _read_rotation(r: _Reader, kv: tuple[Node, Node]) -> tuple[RotationDefaults, dict] | None:
+    knode, vnode = kv
+    path = "rotation"
+    try:
+        m = r.mapping(vnode, path, ROTATION_KEYS, anchor=knode)
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    mode = r.get(m, "mode", r.choice, f"{path}.mode", ROTATION_MODES)
+    shape = r.get(m, "shape", r.choice, f"{path}.shape", ROTATION_SHAPES)
+    amp = r.get(m, "amplitude", r.quantity, f"{path}.amplitude", VOLTAGE, positive=True)
+    dur = r.get(m, "duration", r.quantity, f"{path}.duration", TIME, positive=True)
+    sig = r.get(m, "sigmas", r.number, f"{path}.sigmas", positive=True)
+    edge = r.get(m, "edge", r.quantity, f"{path}.edge", TIME, positive=True)
+    mode_v = mode.value if mode else "amplitude"
+    shape_v = shape.value if shape else "square"
+    if mode_v == "duration" and "duration" not in m:
+        r.error(knode, "rotation.mode is 'duration' but rotation.duration is missing",
+                "e.g. 'duration: 40 ns'")
+    if shape_v == "flattop" and "edge" not in m:
+        r.error(knode, "rotation.shape is 'flattop' but rotation.edge is missing",
+                "e.g. 'edge: 5 ns' (length of each rising and falling edge)")
+    if mode_v == "duration" and dur is not None and edge is not None and shape_v == "flattop" \
+            and 2 * edge.value > dur.value:
+        r.error(edge.node, f"rotation.edge: two edges of {edge.node.value} do not fit in "
+                           f"rotation.duration {dur.node.value}")
+    if len(r.problems.problems) > n_before:
+        return None
+    kw: dict = {"mode": mode_v, "shape": shape_v}
+    if amp:
+        kw["amplitude"] = amp.value
+    if dur:
+        kw["duration"] = dur.value
+    if sig:
+        kw["sigmas"] = sig.value
+    if edge:
+        kw["edge"] = edge.value
+    return RotationDefaults(**kw), {"amplitude": amp}
+
+
+def _read_readout(r: _Reader, kv: tuple[Node, Node]) -> tuple[Readout, dict] | None:
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, "readout", READOUT_KEYS, ("marker", "duration"), anchor=knode)
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    marker = r.get(m, "marker", r.ident, "readout.marker", "channel")
+    dur = r.get(m, "duration", r.quantity, "readout.duration", TIME, positive=True)
+    trig = r.get(m, "trigger_marker", r.ident, "readout.trigger_marker", "channel")
+    if len(r.problems.problems) > n_before or marker is None or dur is None:
+        return None
+    return (Readout(marker=marker.value, duration=dur.value,
+                    trigger_marker=trig.value if trig else ""),
+            {"marker": marker, "trigger_marker": trig})
+
+
+# ------------------------------------------------------------------ the walk
+
+def _need_channel(r: _Reader, channels: dict, ref: _Val, path: str, kind: str) -> Channel | None:
+    name = ref.value
+    if name in r.broken_channels:
+        return None
+    if name not in channels:
+        r.error(ref.node, f"{path} names the channel '{name}', which is not in channels",
+                suggest(name, channels) or f"add '{name}: {{kind: {kind}, ...}}' to channels")
+        return None
+    ch = channels[name]
+    if ch.kind != kind:
+        r.error(ref.node, f"{path} must name a channel of kind '{kind}', but '{name}' is "
+                          f"kind '{ch.kind}'")
+        return None
+    return ch
+
+
+def _build(r: _Reader, root: Node) -> Device:
+    if not isinstance(root, MappingNode):
+        r.fail(root, f"a device file must be a mapping of 'key: value' lines at the top, "
+                     f"got {_kind_of(root)}", "start with 'name: ...', 'field: ...'")
+    top = r.mapping(root, "the device file", TOP_REQUIRED + TOP_OPTIONAL, TOP_REQUIRED)
+    name = r.get(top, "name", r.text, "name")
+    notes = r.get(top, "notes", r.text, "notes")
+    fld = r.get(top, "field", r.quantity, "field", FIELD, positive=True)
+    temp = r.get(top, "temperature", r.quantity, "temperature", TEMPERATURE, positive=True)
+
+    # channels first: dots and couplings refer to them
+    raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
+        if "channels" in top else {}
+    channels = {nm: Channel(**ch) for nm, (ch, _) in raw_channels.items()}
+
+    raw_dots: dict[str, dict] = {}
+    dot_names: set[str] = set()
+    if "dots" in top:
+        dk, dv = top["dots"]
+        if not isinstance(dv, MappingNode) or not dv.value:
+            r.error(dv if isinstance(dv, MappingNode) else dk,
+                    "dots must be a mapping of dot name -> settings with at least one dot",
+                    "e.g. 'A: {preset: bilayer_graphene, drive: {...}, plunger: P_A}'")
+        else:
+            entries = r.mapping(dv, "dots", tuple(k.value for k, _ in dv.value
+                                                  if isinstance(k, ScalarNode)))
+            dot_names = set(entries)
+            for nm, (kn, vn) in entries.items():
+                d = _read_dot(r, nm, kn, vn)
+                if d is not None:
+                    raw_dots[nm] = d
+
+    raw_couplings: list[dict] = []
+    if "couplings" in top:
+        ck, cv = top["couplings"]
+        if isinstance(cv, ScalarNode) and cv.tag.endswith(":null"):
+            pass
+        elif not isinstance(cv, SequenceNode):
+            r.error(cv, f"couplings must be a list of '- dots: [A, B] ...' items, "
+                        f"got {_kind_of(cv)}")
+        else:
+            seen_pairs: dict[frozenset, int] = {}
+            for i, item in enumerate(cv.value):
+                c = _read_coupling(r, i, item, raw_dots, dot_names)
+                if c is None:
+                    continue
+                key = frozenset(c["pair"].value)
+                if key in seen_pairs:
+                    a, b = c["pair"].value
+                    r.error(c["pair"].node, f"couplings[{i}] repeats the pair {a}-{b} "
+                                            f"(already couplings[{seen_pairs[key]}])",
+                            "give each pair of dots one coupling")
+                    continue
+                seen_pairs[key] = i
+                raw_couplings.append(c)
+
+    rotation = _read_rotation(r, top["rotation"]) if "rotation" in top else None
+    readout = _read_readout(r, top["readout"]) if "readout" in top else None
+
+    # ------------------------------------------------ cross-section checks
+    dots: dict[str, Dot] = {}
+    plungers: dict[str, str] = {}
+    for nm, d in raw_dots.items():
+        path = f"dots.{nm}"
+        line = _need_channel(r, channels, d["drive"]["line"], f"{path}.drive.line", "iq")
+        _need_channel(r, channels, d["plunger"], f"{path}.plunger", "gate")
+        pl = d["plunger"].value
+        if pl in plungers:
+            r.error(d["plunger"].node, f"{path}.plunger '{pl}' is already the plunger of "
+                                       f"dot '{plungers[pl]}'", "each dot needs its own plunger gate")
+        plungers.setdefault(pl, nm)
+        g = d["values"]["g"].value
+        if line is not None and fld is not None:
+            _check_larmor(r, nm, g, fld, line, d)
+        if line is not None and fld is not None:
+            f_l = physics.larmor_frequency(g, fld.value)
+            full = d["drive"]["rabi"].value * max(abs(line.v_min), abs(line.v_max))
+            if full > RWA_RATIO * f_l:
+                r.warn(d["drive"]["rabi"].node,
+                       f"{path}.drive: Rabi frequency at full scale "
+                       f"{format_quantity(full, FREQUENCY)} exceeds "
+                       f"{RWA_RATIO:g}·f_L = {format_quantity(RWA_RATIO * f_l, FREQUENCY)}",
+                       "the rotating-wave approximation becomes doubtful at strong drive")
+            if temp is not None and physics.H * f_l < THERMAL_RATIO * physics.K_B * temp.value:
+                r.warn(d["node"], f"{path}: Zeeman energy h·f_L = h·{format_quantity(f_l, FREQUENCY)}"
+                                  f" is below {THERMAL_RATIO:g}·k_B·T at "
+                                  f"{format_quantity(temp.value, TEMPERATURE)}",
+                       "thermal initialisation and spin-to-charge readout will be poor; "
+                       "raise the field or lower the temperature")
+        v = d["values"]
+        dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
+                       t2_star=v["t2_star"].value,
+                       drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
+                                   d["drive"]["span"]),
+                       plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"])
+
+    couplings: list[Coupling] = []
+    for c in raw_couplings:
+        couplings.append(_check_coupling(r, c, channels, plungers))
+
+    if rotation is not None:
+        rot, extra = rotation
+        amp = extra["amplitude"]
+        if amp is not None:
+            for nm, d in dots.items():
+                ch = channels.get(d.drive.line)
+                if ch is not None and amp.value > max(abs(ch.v_min), abs(ch.v_max)):
+                    r.error(amp.node, f"rotation.amplitude {amp.node.value} is above the range "
+                                      f"of drive line '{ch.name}' (dot {nm})",
+                            f"keep it within ±{format_quantity(max(abs(ch.v_min), abs(ch.v_max)), VOLTAGE)}")
+                    break
+    if readout is not None:
+        ro, refs = readout
+        _need_channel(r, channels, refs["marker"], "readout.marker", "marker")
+        if refs["trigger_marker"] is not None:
+            _need_channel(r, channels, refs["trigger_marker"], "readout.trigger_marker", "marker")
+
+    if r.problems:
+        raise _Skip
+    return Device(name=name.value, path=r.file, field=fld.value, temperature=temp.value,
+                  dots=dots, couplings=tuple(couplings), channels=channels,
+                  rotation=rotation[0] if rotation else RotationDefaults(),
+                  readout=readout[0] if readout else Readout(),
+                  notes=notes.value if notes else "",
+                  warnings=tuple(r.warnings.problems))
+
+
+def _check_larmor(r: _Reader, nm: str, g: float, fld: _Val, line: Channel, d: dict) -> None:
+    """f_L = LO + IF must put IF inside the line's band (common practice, no source)."""
+    f_l = physics.larmor_frequency(g, fld.value)
+    if_needed = f_l - line.lo
+    if line.if_min <= if_needed <= line.if_max:
+        return
+    fq = lambda x: format_quantity(x, FREQUENCY, 6)  # noqa: E731
+    r.error(d["drive"]["line"].node,
+            f"dots.{nm}: Larmor frequency {fq(f_l)} (|g| = {abs(g):g} at "
+            f"{format_quantity(fld.value, FIELD)}) is not reachable on line '{line.name}': "
+            f"LO {fq(line.lo)} + IF band [{fq(line.if_min)}, {fq(line.if_max)}] covers "
+            f"{fq(line.lo + line.if_min)} to {fq(line.lo + line.if_max)}",
+            f"it needs IF = f_L − LO = {fq(if_needed)}; move the LO, widen if_band, or "
+            "check g and field")
+
+
+def _check_coupling(r: _Reader, c: dict, channels: dict, plungers: dict) -> Coupling:
+    a, b = c["pair"].value
+    path = f"couplings[{c['index']}]"
+    model: ExchangeModel = c["model"].value
+    barrier = _need_channel(r, channels, c["barrier"], f"{path}.barrier", "gate")
+    idle_v = c["idle"].value if c["idle"] else 0.0
+    pulse_v = c["pulse"].value if c["pulse"] else None
+    lo, hi = xch.v_range(model)
+    for key, val in (("idle_voltage", c["idle"]), ("pulse_voltage", c["pulse"])):
+        if val is None:
+            continue
+        if barrier is not None and not barrier.v_min <= val.value <= barrier.v_max:
+            r.error(val.node, f"{path}.{key} {val.node.value} is outside the range of barrier "
+                              f"channel '{barrier.name}' "
+                              f"[{format_quantity(barrier.v_min, VOLTAGE)}, "
+                              f"{format_quantity(barrier.v_max, VOLTAGE)}]")
+        elif not lo <= val.value <= hi:
+            r.error(val.node, f"{path}.{key} {val.node.value} is outside the exchange table "
+                              f"[{format_quantity(lo, VOLTAGE)}, {format_quantity(hi, VOLTAGE)}]",
+                    "the table is never extrapolated: add a calibration point")
+    if c["pulse"] is not None and not pulse_v > idle_v:
+        r.error(c["pulse"].node, f"{path}.pulse_voltage {c['pulse'].node.value} is not above "
+                                 f"idle_voltage ({format_quantity(idle_v, VOLTAGE)})",
+                "J rises with barrier voltage: the exchange pulse must go above idle")
+    elif c["pulse"] is not None:
+        try:
+            j_idle = float(xch.j_of_v(model, idle_v))
+            j_pulse = float(xch.j_of_v(model, pulse_v))
+        except ValueError:
+            pass  # reported above
+        else:
+            if j_idle > IDLE_EXCHANGE_RATIO * j_pulse:
+                node = c["idle"].node if c["idle"] else c["pulse"].node
+                r.warn(node, f"{path}: exchange at idle {format_quantity(j_idle, FREQUENCY)} is "
+                             f"{j_idle / j_pulse:.2g} of the exchange at the pulse level "
+                             f"{format_quantity(j_pulse, FREQUENCY)}",
+                       "the dots stay coupled between gates; lower idle_voltage")
+            if model.kind == "hubbard":
+                t = model.t0 * math.exp(pulse_v / model.vt)
+                if t > HUBBARD_T_RATIO * (model.u - abs(model.detuning)):
+                    r.warn(c["pulse"].node,
+                           f"{path}: tunnel coupling t/h = {format_quantity(t, FREQUENCY)} at the "
+                           f"pulse level is not small against U − |ε|",
+                           "J = 4t²U/(U²−ε²) holds only for t ≪ U − |ε|")
+    for nm, off, kn in c["detune"]:
+        pl = None
+        for dot_pl, dot_nm in plungers.items():
+            if dot_nm == nm:
+                pl = channels.get(dot_pl)
+        if pl is not None and abs(off) > pl.v_max - pl.v_min:
+            r.error(kn, f"{path}.detune.{nm}: offset {format_quantity(off, VOLTAGE)} is larger "
+                        f"than the whole range of plunger '{pl.name}'")
+    return Coupling(dots=(a, b), barrier=c["barrier"].value, exchange=model,
+                    idle_voltage=idle_v, pulse_voltage=pulse_v,
+                    charge_noise=c["noise"].value if c["noise"] else 0.0,
+                    detune=tuple((nm, off) for nm, off, _ in c["detune"]), span=c["span"])
+
+
+# ------------------------------------------------------------------ entry points
+
+def _yaml_problem(exc: yaml.YAMLError, text: str, file: str) -> Problem:
+    lines = text.splitlines()
+    mark = getattr(exc, "problem_mark", None)
+    if mark is not None:
+        line, col = mark.line + 1, mark.column + 1
+    elif getattr(exc, "position", None) is not None:  # ReaderError: bad character
+        before = text[:exc.position]
+        line = before.count("\n") + 1
+        col = exc.position - (before.rfind("\n") + 1) + 1
+    else:
+        line, col = 1, 1
+    problem = getattr(exc, "problem", None) or getattr(exc, "reason", None) or str(exc)
+    msg = f"YAML syntax error: {problem}"
+    ctx_mark = getattr(exc, "context_mark", None)
+    context = getattr(exc, "context", None)
+    if context:
+        msg += f" ({context}" + (f" at line {ctx_mark.line + 1}" if ctx_mark else "") + ")"
+    hint = "check indentation (spaces, not tabs), colons and brackets"
+    src = lines[line - 1] if 0 < line <= len(lines) else ""
+    return Problem(msg, Span(file, line, col, line, col + 1), hint, src)
+
+
+def load_device_text(text: str, path: str = "<string>") -> Device:
+    """Read a device description from YAML text.
+
+    Parameters
+    ----------
+    text : str
+        The YAML text.
+    path : str
+        File name used in error positions.
+
+    Returns
+    -------
+    Device
+        All quantities in SI units (Hz, s, V, T, K); exchange as J/h in Hz.
+
+    Raises
+    ------
+    DeviceError
+        With one positioned :class:`~compiler.errors.Problem` per mistake found.
+    """
+    if not isinstance(text, str):
+        raise DeviceError(f"device text must be a string, got {type(text).__name__}",
+                          Span(path, 0, 0, 0, 0))
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    try:
+        root = yaml.compose(text, Loader=yaml.SafeLoader)
+    except yaml.YAMLError as exc:
+        raise DeviceError(_yaml_problem(exc, text, path)) from None
+    except RecursionError:
+        raise DeviceError("the device file is nested too deeply to read",
+                          Span(path, 1, 1, 1, 2)) from None
+    if root is None:
+        raise DeviceError("the device file is empty", Span(path, 1, 1, 1, 1),
+                          "start with 'name: ...', 'field: ...', 'temperature: ...', "
+                          "'dots:', 'channels:'")
+    r = _Reader(text, path)
+    try:
+        return _build(r, root)
+    except _Skip:
+        pass
+    problems = sorted(r.problems.problems,
+                      key=lambda q: (q.span.line, q.span.col) if q.span else (0, 0))
+    raise DeviceError(problems)
+
+
+def load_device(path: str | Path) -> Device:
+    """Read a device description file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        YAML file, UTF-8.
+
+    Returns
+    -------
+    Device
+
+    Raises
+    ------
+    DeviceError
+        The file cannot be read (missing, a directory, not UTF-8) or its
+        content is wrong; every problem is positioned in the file.
+    """
+    p = Path(path)
+    where = Span(str(path), 0, 0, 0, 0)
+    try:
+        data = p.read_bytes()
+    except IsADirectoryError:
+        raise DeviceError(f"cannot read device file '{path}': it is a directory", where) from None
+    except FileNotFoundError:
+        raise DeviceError(f"cannot read device file '{path}': no such file", where,
+                          "check the path; bundled devices live in sequences/devices/") from None
+    except OSError as exc:
+        raise DeviceError(f"cannot read device file '{path}': {exc.strerror or exc}",
+                          where) from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        raise DeviceError(f"device file '{path}' is not UTF-8 text (byte 0x{data[exc.start]:02x} "
+                          f"at offset {exc.start})", Span(str(path), line, 1, line, 2),
+                          "save the file as UTF-8") from None
+    return load_device_text(text, str(path))

@@ -1,0 +1,152 @@
+"""The device description as plain frozen data (SI floats everywhere).
+
+Produced by :func:`compiler.device.load_device`; consumed by the checker,
+the scheduler and (later) waveform synthesis and simulation.  Every record
+keeps ``span`` pointing at its place in the YAML file for error messages.
+Exchange strengths are frequencies J/h in Hz; energies in the file (eV) are
+converted with E/h.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..errors import Problem, Span
+
+
+@dataclass(frozen=True)
+class ExchangeModel:
+    """J(V) of a barrier gate: J/h in Hz as a function of barrier voltage V.
+
+    kind:
+      * ``"exponential"``: J = j0·exp(V/v0)  (common practice, no single source)
+      * ``"hubbard"``: J = 4·t(V)²·U/(U² − ε²), t(V) = t0·exp(V/vt)
+        (Burkard, Loss & DiVincenzo, PRB 59, 2070 (1999); t0, U, ε as J/h in Hz)
+      * ``"table"``: calibration points (V_i, J_i), J interpolated
+        monotonically (PCHIP in log J) and never extrapolated.
+    """
+
+    kind: str
+    j0: float = 0.0          # Hz        (exponential)
+    v0: float = 0.0          # V         (exponential)
+    t0: float = 0.0          # Hz        (hubbard: tunnel coupling at V = 0, t/h)
+    vt: float = 0.0          # V         (hubbard: voltage scale of t)
+    u: float = 0.0           # Hz        (hubbard: charging energy U/h)
+    detuning: float = 0.0    # Hz        (hubbard: ε/h)
+    volts: tuple[float, ...] = ()   # V  (table)
+    joules: tuple[float, ...] = ()  # Hz (table: J/h values; name kept short)
+
+
+@dataclass(frozen=True)
+class Drive:
+    """How a dot is driven by ESR: microwave line and calibration."""
+
+    line: str                 # name of an IQ channel pair
+    rabi_per_volt: float      # Hz/V of microwave amplitude (from B1/V if given so)
+    span: Span | None = None
+
+
+@dataclass(frozen=True)
+class Dot:
+    name: str
+    g: float
+    t1: float                 # s
+    t2: float                 # s  (Hahn echo)
+    t2_star: float            # s
+    drive: Drive
+    plunger: str              # gate channel name
+    preset: str = ""          # material preset the values came from, if any
+    sources: tuple[str, ...] = ()  # where each preset value came from
+    span: Span | None = None
+
+
+@dataclass(frozen=True)
+class Coupling:
+    """Exchange between two dots (any pair: the couplings form a graph)."""
+
+    dots: tuple[str, str]
+    barrier: str              # gate channel name
+    exchange: ExchangeModel
+    idle_voltage: float = 0.0       # V  barrier level between gates
+    pulse_voltage: float | None = None  # V default barrier level during exchange
+    charge_noise: float = 0.0       # V rms voltage noise on the barrier
+    detune: tuple[tuple[str, float], ...] = ()  # intermediate dot -> plunger offset (V)
+    span: Span | None = None
+
+    @property
+    def key(self) -> frozenset[str]:
+        return frozenset(self.dots)
+
+
+@dataclass(frozen=True)
+class Channel:
+    """One generator output, or an I/Q pair for microwave lines."""
+
+    name: str
+    kind: str                 # "iq", "gate" or "marker"
+    sample_rate: float        # Hz
+    bits: int = 1
+    v_min: float = 0.0        # V
+    v_max: float = 1.0        # V
+    rise_time: float = 0.0    # s (10-90 %); 0 = ideal
+    min_length: int = 1       # samples
+    granularity: int = 1      # samples
+    lo: float = 0.0           # Hz   (iq)
+    if_min: float = 0.0       # Hz   (iq, signed)
+    if_max: float = 0.0       # Hz   (iq, signed)
+    bias_tee: float = 0.0     # s, high-pass time constant; 0 = DC coupled
+    span: Span | None = None
+
+    @property
+    def bandwidth(self) -> float:
+        """-3 dB bandwidth of a first-order response with this rise time:
+        f = 0.35/t_rise (common practice, no source); inf when ideal."""
+        return 0.35 / self.rise_time if self.rise_time > 0 else float("inf")
+
+
+@dataclass(frozen=True)
+class RotationDefaults:
+    """How a rotation becomes a burst unless a step overrides it."""
+
+    mode: str = "amplitude"   # "amplitude": fixed amplitude, duration from angle
+                              # "duration": fixed duration, amplitude from angle
+    shape: str = "square"     # "square", "gauss", "flattop"
+    amplitude: float = 0.1    # V   (mode amplitude)
+    duration: float = 0.0     # s   (mode duration)
+    sigmas: float = 4.0       # gauss: total length in standard deviations
+    edge: float = 0.0         # s   flattop: length of each cosine edge
+
+
+@dataclass(frozen=True)
+class Readout:
+    marker: str = ""          # marker channel for readout windows
+    duration: float = 0.0     # s
+    trigger_marker: str = ""  # marker channel for trigger steps
+
+
+@dataclass(frozen=True)
+class Device:
+    name: str
+    path: str                 # file it was loaded from
+    field: float              # T
+    temperature: float        # K
+    dots: dict[str, Dot]
+    couplings: tuple[Coupling, ...]
+    channels: dict[str, Channel]
+    rotation: RotationDefaults = RotationDefaults()
+    readout: Readout = Readout()
+    notes: str = ""
+    # Physically doubtful but legal settings (large idle exchange, weak
+    # thermal polarisation, ...): positioned like errors, never raised.
+    warnings: tuple[Problem, ...] = ()
+
+    def coupling(self, a: str, b: str) -> Coupling | None:
+        key = frozenset((a, b))
+        for c in self.couplings:
+            if c.key == key:
+                return c
+        return None
+
+    def larmor(self, dot: str) -> float:
+        from ..physics import larmor_frequency
+        return larmor_frequency(self.dots[dot].g, self.field)
