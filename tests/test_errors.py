@@ -1,0 +1,127 @@
+"""Bad sequence text: the tool's own error, at the right line and column,
+with the offending text and a hint.  (Device-file errors: test_device.py.)"""
+
+import pytest
+
+from compiler.errors import SequenceError, SequenceSyntaxError, SpincError
+from compiler.expand import expand
+from compiler.parse import parse_text
+
+# (source, error class, line, column, message fragment, hint fragment)
+CASES = [
+    pytest.param("rot A x 90", SequenceError, 1, 9, "needs an angle unit", "90 deg", id="angle-without-unit"),
+    pytest.param("rot A x 90 dg", SequenceSyntaxError, 1, 12, "unknown unit 'dg'", "did you mean 'deg'", id="misspelt-unit"),
+    pytest.param("rot A x 90dg", SequenceSyntaxError, 1, 11, "unknown unit 'dg'", "deg", id="glued-unit"),
+    pytest.param("rott A x 90 deg", SequenceSyntaxError, 1, 1, "unknown statement 'rott'", "did you mean 'rot'", id="misspelt-keyword"),
+    pytest.param("rot A w 90 deg", SequenceSyntaxError, 1, 7, "unknown rotation axis 'w'", "phase(ANGLE)", id="bad-axis"),
+    pytest.param("wait 10 MHz", SequenceError, 1, 6, "must be a time, but this is a frequency", "ns", id="wait-wrong-unit"),
+    pytest.param("wait -5 ns", SequenceError, 1, 6, "the wait is negative", "zero or longer", id="negative-wait"),
+    pytest.param("let a = 1 ns\nlet a = 2 ns", SequenceError, 2, 1, "'a' is already defined", "1:1", id="redefined"),
+    pytest.param("let tau = 3 ns\nwait tua", SequenceError, 2, 6, "unknown name 'tua'", "did you mean 'tau'", id="misspelt-parameter"),
+    pytest.param("together { rot A x 90 deg ; rot A y 90 deg }", SequenceError, 1, 29, "qubit A is used twice", "different qubits", id="together-same-qubit"),
+    pytest.param("repeat 2.5 { wait 1 ns }", SequenceError, 1, 8, "whole number", "", id="fractional-repeat"),
+    pytest.param("block echo(q) { rot q x 90 deg }\ndo ecko(A)", SequenceError, 2, 1, "unknown block 'ecko'", "did you mean 'echo'", id="misspelt-block"),
+    pytest.param("block b(q) { rot q x 90 deg }\ndo b(A, B)", SequenceError, 2, 1, "takes 1 argument", "defined at", id="block-arity"),
+    pytest.param("block b(q) { do b(q) }\ndo b(A)", SequenceError, 1, 14, "block calls itself: b -> b", "recursive", id="recursive-block"),
+    pytest.param("sqrtswap A A", SequenceError, 1, 12, "two different qubits", "", id="exchange-same-qubit"),
+    pytest.param("let x = 2 ^ 100000", SequenceError, 1, 13, "beyond the limit", "bounds powers", id="huge-exponent"),
+    pytest.param("let x = 1 ns / 0", SequenceError, 1, 16, "division by zero", "", id="division-by-zero"),
+    pytest.param('device "a.yaml"\ndevice "b.yaml"', SequenceError, 2, 1, "a second device statement", "1:1", id="two-devices"),
+    pytest.param("sweep t from 0 ns to 1 us in 0", SequenceError, 1, 30, "at least 1", "", id="sweep-zero-points"),
+    pytest.param("sweep t from 0 ns to 1 V in 3", SequenceError, 1, 22, "must be a time", "", id="sweep-mixed-units"),
+    pytest.param("rot A x 90 deg shpe=gauss", SequenceSyntaxError, 1, 16, "unknown option 'shpe'", "did you mean 'shape'", id="misspelt-option"),
+    pytest.param("rot A x 90 deg shape=gaussian", SequenceSyntaxError, 1, 22, "unknown shape 'gaussian'", "gauss", id="bad-shape"),
+    pytest.param("rot A x 90 deg duration=10 ns amplitude=1 mV", SequenceError, 1, 31, "not both", "remove one", id="over-determined-burst"),
+    pytest.param("let s = 3", SequenceSyntaxError, 1, 5, "'s' is a unit", "another name", id="unit-as-name"),
+    pytest.param("wait 1 ns\nprepare A up", SequenceError, 2, 1, "before the first step", "line 1", id="late-prepare"),
+    pytest.param("prepare A sideways", SequenceSyntaxError, 1, 11, "qubits followed by a state", "states:", id="bad-state"),
+    pytest.param("together { rot A x 90 deg", SequenceSyntaxError, 1, 10, "never closed", "'}'", id="open-brace"),
+    pytest.param("wait (2 + 3 ns)", SequenceError, 1, 7, "cannot add a time to a plain number", "same kind of unit", id="mixed-sum"),
+    pytest.param("let t = 2\nwait t ns", SequenceSyntaxError, 2, 8, "must follow a number", "x * 1 ns", id="unit-after-name"),
+    pytest.param("rot A z 90 deg shape=gauss", SequenceSyntaxError, 1, 16, "frame updates", "remove", id="options-on-z"),
+    pytest.param('"unterminated', SequenceSyntaxError, 1, 1, "string is not closed", "double quote", id="open-string"),
+    pytest.param("wait 1 ns }", SequenceSyntaxError, 1, 11, "without a matching", "remove", id="stray-brace"),
+    pytest.param("let x = sin(3 ns)", SequenceError, 1, 9, "sin() needs an angle", "", id="sin-of-time"),
+    pytest.param("wait 1 ns @", SequenceSyntaxError, 1, 11, "unexpected character '@'", "operators", id="bad-character"),
+    pytest.param("rot A x 1e999 deg", SequenceError, 1, 9, "too large", "", id="overflowing-number"),
+    pytest.param("sweep n over [1, 2]\nsweep m from 0 ns to n * 1 ns in 2", SequenceError, 2, 22,
+                 "cannot depend on the swept parameter 'n'", "fixed", id="sweep-depends-on-sweep"),
+    pytest.param("let a = 1 ns\nwait a\nwait b", SequenceError, 3, 6, "unknown name 'b'", "let NAME", id="undefined-name"),
+    pytest.param("block b(q) { rot q x 90 deg }\nlet t = 1 ns\ndo b(t)", SequenceError, 1, 18,
+                 "'q' is a parameter, not a qubit", "qubit", id="number-as-qubit"),
+]
+
+
+@pytest.mark.parametrize("src, cls, line, col, message, hint", CASES)
+def test_bad_sequence(src, cls, line, col, message, hint):
+    with pytest.raises(SpincError) as info:
+        expand(parse_text(src + "\n", "bad.dotseq"))
+    err = info.value
+    assert isinstance(err, cls), err.render()
+    p = err.first
+    assert (p.span.file, p.span.line, p.span.col) == ("bad.dotseq", line, col), err.render()
+    assert message in p.message
+    assert hint in p.hint
+    # the rendering shows the position, the source line and a caret under the text
+    text = err.render()
+    assert f"bad.dotseq:{line}:{col}: error:" in text
+    assert "^" in text
+
+
+def test_there_are_at_least_twenty_distinct_cases():
+    assert len({c.id for c in CASES}) >= 20
+
+
+def test_all_problems_are_collected_and_capped():
+    src = "\n".join(f"rott A x {i} deg" for i in range(15)) + "\n"
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_text(src, "many.dotseq")
+    assert len(info.value.problems) == 15
+    assert "... and 5 more syntax errors" in info.value.render()
+
+
+def test_caret_is_under_the_offending_text():
+    with pytest.raises(SpincError) as info:
+        expand(parse_text("wait   10 MHz\n", "c.dotseq"))
+    lines = info.value.render().splitlines()
+    src_line = next(i for i, l in enumerate(lines) if "wait   10 MHz" in l)
+    caret = lines[src_line + 1]
+    start = caret.index("^")
+    assert lines[src_line][start:start + caret.count("^")] == "10 MHz"
+
+
+def test_errors_in_a_block_name_the_call():
+    src = "block b(q, t) { wait t on q }\ndo b(A, 5 MHz)\n"
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src, "calls.dotseq"))
+    p = info.value.first
+    assert p.span.line == 1
+    assert any("called at calls.dotseq:2:1" in c for c in p.context)
+
+
+def test_errors_at_one_sweep_point_name_the_point():
+    src = "sweep t over [10 ns, -10 ns]\nwait t\n"
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src, "s.dotseq"))
+    assert "t = -10 ns (run 1)" in info.value.render()
+
+
+def test_include_cycle_shows_the_chain(write):
+    a = write("a.dotseq", 'include "b.dotseq"\n')
+    write("b.dotseq", 'wait 1 ns\ninclude "a.dotseq"\n')
+    from compiler.parse import parse_path
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(a)
+    p = info.value.first
+    assert "include cycle: a.dotseq -> b.dotseq -> a.dotseq" in p.message
+    assert p.span.file.endswith("b.dotseq") and p.span.line == 2
+
+
+def test_missing_include_names_the_path_tried(write):
+    a = write("a.dotseq", 'include "lib/none.dotseq"\n')
+    from compiler.parse import parse_path
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(a)
+    p = info.value.first
+    assert "cannot read included file 'lib/none.dotseq'" in p.message
+    assert str(a.parent / "lib" / "none.dotseq") in p.hint
