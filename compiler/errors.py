@@ -142,6 +142,11 @@ class ScheduleError(SpincError):
     stage = "schedule"
 
 
+class SynthesisError(SpincError):
+    """A waveform sample falls outside what a channel can play."""
+    stage = "synthesis"
+
+
 class UsageError(SpincError):
     """Bad command-line arguments."""
     stage = "usage"

@@ -12,8 +12,9 @@ from ..physics import COHERENCE_RULE
 from ..schedule import Timeline
 from ..units import FIELD, FREQUENCY, NONE, TEMPERATURE, TIME, Dim, format_quantity as fq
 
-GATE_KINDS = ("rot", "sqrtswap", "isqrtswap", "swap")
-KIND_ORDER = ("rot", "zrot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "trigger")
+GATE_KINDS = ("rot", "sqrtswap", "isqrtswap", "swap", "zcorrect")
+KIND_ORDER = ("rot", "zrot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "trigger",
+              "align", "zcorrect")
 
 
 @dataclass(frozen=True)
@@ -68,7 +69,7 @@ class Summary:
 
 def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -> Summary:
     used = sorted({q for tl in timelines for s in tl.slots
-                   for q in P.step_qubits(s.step)} | {q for r in expanded.runs for q, *_ in r.prepare},
+                   for q in s.qubits} | {q for r in expanded.runs for q, *_ in r.prepare},
                   key=list(device.dots).index)
     qubits = tuple(QubitInfo(q, device.dots[q].g, device.larmor(q), device.dots[q].t1,
                              device.dots[q].t2, device.dots[q].t2_star, device.dots[q].preset)
@@ -82,9 +83,9 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
         for s in tl.slots:
             if s.kind not in GATE_KINDS:
                 continue
-            qs = P.step_qubits(s.step)
+            qs = s.qubits
             if longest is None or s.duration > longest.duration:
-                longest = Longest(s.kind, qs, s.duration, s.step.span)
+                longest = Longest(s.kind, qs, s.duration, s.span)
             for q in qs:
                 per_qubit[q] = max(per_qubit.get(q, 0.0), s.duration)
     margins = tuple(Margin(q, device.dots[q].t2, d, device.dots[q].t2 / d,
@@ -92,11 +93,12 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
                     for q, d in sorted(per_qubit.items(), key=lambda kv: list(device.dots).index(kv[0]))
                     if d > 0)
     warnings = [w.render("warning") for w in device.warnings]
+    worst: dict[str, object] = {}
     for tl in timelines:
         for w in tl.warnings:
-            r = w.render()
-            if r not in warnings:
-                warnings.append(r)
+            if w.key not in worst or w.severity > worst[w.key].severity:
+                worst[w.key] = w
+    warnings += [w.render() for w in worst.values()]
     totals = [tl.total for tl in timelines]
     axes = tuple((a.name, a.values[0], a.values[-1], len(a.values), a.dim) for a in expanded.axes)
     return Summary(expanded.file, device.name, device.path, device.field, device.temperature,

@@ -147,6 +147,11 @@ class Device:
                 return c
         return None
 
+    @property
+    def sample_rate(self) -> float:
+        """The sample rate all channels share (Hz); checked when loading."""
+        return next(iter(self.channels.values())).sample_rate
+
     def larmor(self, dot: str) -> float:
         from ..physics import larmor_frequency
         return larmor_frequency(self.dots[dot].g, self.field)

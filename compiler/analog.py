@@ -1,0 +1,153 @@
+"""What a generator channel really outputs: the shared model of the analog
+path, used by waveform synthesis (pulse design, the as-played copy) and by
+the simulator, so that what is simulated is what is played.
+
+Chain, for every analog output:
+
+1. DAC: the sample is quantised to a code k (0 ≤ k < 2^bits) of
+   v = v_min + k·LSB with LSB = (v_max − v_min)/2^bits, and held for one
+   sample period (zero-order hold: sample i on [i·dt, (i+1)·dt)).
+2. Analog response: a first-order low-pass (RC) with time constant
+   τ = t_rise/ln 9 (10–90 % rise time of an RC stage; bandwidth
+   0.35/t_rise; common practice, no source).
+3. Optional bias tee: a first-order high-pass H(s) = sτ_b/(1 + sτ_b), whose
+   DC port adds the channel's DC level (common practice).
+
+The RC response of a held staircase is computed exactly at any time, not by
+numerical integration: within sample k, y(t) = x_k + (y_k − x_k)·e^{−(t−t_k)/τ}.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+LN9 = math.log(9.0)
+
+
+def rc_tau(rise_time: float) -> float:
+    """RC time constant (s) of a 10–90 % rise time (s); 0 for an ideal path."""
+    return rise_time / LN9 if rise_time > 0 else 0.0
+
+
+def lsb(v_min: float, v_max: float, bits: int) -> float:
+    """Volts per DAC code."""
+    return (v_max - v_min) / float(2 ** bits)
+
+
+def quantise(volts: np.ndarray, v_min: float, v_max: float, bits: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest DAC codes and their voltages.  The caller has checked the
+    range; values are never clipped here (a code outside 0..2^bits−1 raises)."""
+    q = lsb(v_min, v_max, bits)
+    codes = np.rint((np.asarray(volts, dtype=float) - v_min) / q)
+    top = 2 ** bits - 1
+    if codes.size and (codes.min() < 0 or codes.max() > top):
+        raise ValueError("value outside the DAC range reached quantisation")
+    codes = codes.astype(np.int32)
+    return codes, v_min + codes * q
+
+
+def top_voltage(v_min: float, v_max: float, bits: int) -> float:
+    """Highest voltage the DAC can output: v_max − LSB/2 rounds to the top code."""
+    return v_min + (2 ** bits - 1) * lsb(v_min, v_max, bits)
+
+
+def rc_boundaries(x: np.ndarray, dt: float, tau: float, y0=0.0) -> np.ndarray:
+    """RC output at the sample boundaries t_k = k·dt for held input ``x``
+    (length n) starting from ``y0``; returns n + 1 values.  Works on real or
+    complex arrays (I + iQ filtered together, as two identical real paths)."""
+    x = np.asarray(x)
+    n = x.shape[-1]
+    if tau <= 0:
+        y = np.empty(x.shape[:-1] + (n + 1,), dtype=x.dtype)
+        y[..., 0] = y0
+        y[..., 1:] = x
+        return y
+    a = math.exp(-dt / tau)
+    # y_{k+1} = a·y_k + (1 − a)·x_k  — a linear recursion, solved with lfilter
+    from scipy.signal import lfilter
+    zi = np.asarray(a * y0, dtype=np.result_type(x, float))[..., None] if np.ndim(y0) else \
+        np.full(x.shape[:-1] + (1,), a * y0, dtype=np.result_type(x, float))
+    out, _ = lfilter([1.0 - a], [1.0, -a], x, axis=-1, zi=zi)
+    y = np.empty(x.shape[:-1] + (n + 1,), dtype=out.dtype)
+    y[..., 0] = y0
+    y[..., 1:] = out
+    return y
+
+
+def rc_oversampled(x: np.ndarray, dt: float, tau: float, m: int, y0=0.0) -> np.ndarray:
+    """Exact RC output at the midpoints of m sub-intervals of every sample:
+    t = (k + (j + 1/2)/m)·dt, j = 0..m−1; returns n·m values."""
+    x = np.asarray(x)
+    n = x.shape[-1]
+    if tau <= 0:
+        return np.repeat(x, m, axis=-1)
+    yb = rc_boundaries(x, dt, tau, y0)[..., :-1]
+    u = (np.arange(m) + 0.5) / m * dt
+    decay = np.exp(-u / tau)
+    y = x[..., :, None] + (yb - x)[..., :, None] * decay
+    return y.reshape(x.shape[:-1] + (n * m,))
+
+
+def rc_mean_per_sub(x: np.ndarray, dt: float, tau: float, m: int, y0=0.0) -> np.ndarray:
+    """Exact mean of the RC output over each of m sub-intervals of every
+    sample (the value a piecewise-constant propagator should use to keep the
+    time integral of the signal exact)."""
+    x = np.asarray(x)
+    n = x.shape[-1]
+    if tau <= 0:
+        return np.repeat(x, m, axis=-1)
+    yb = rc_boundaries(x, dt, tau, y0)[..., :-1]
+    h = dt / m
+    j = np.arange(m)
+    # mean of e^{-u/τ} over [j h, (j+1) h]
+    w = tau / h * (np.exp(-j * h / tau) - np.exp(-(j + 1) * h / tau))
+    y = x[..., :, None] + (yb - x)[..., :, None] * w
+    return y.reshape(x.shape[:-1] + (n * m,))
+
+
+def rc_at(x: np.ndarray, dt: float, tau: float, t: np.ndarray, y0=0.0) -> np.ndarray:
+    """Exact RC output at arbitrary times ``t`` (s) inside [0, n·dt]; after the
+    last sample the input is taken as held at its last value."""
+    x = np.asarray(x)
+    t = np.asarray(t, dtype=float)
+    n = x.shape[-1]
+    k = np.clip(np.floor(t / dt).astype(int), 0, n - 1)
+    if tau <= 0:
+        return x[..., k]
+    yb = rc_boundaries(x, dt, tau, y0)
+    return x[..., k] + (yb[..., k] - x[..., k]) * np.exp(-(t - k * dt) / tau)
+
+
+def bias_tee(y: np.ndarray, h: float, tau_b: float) -> np.ndarray:
+    """High-pass of a bias tee with time constant ``tau_b`` (s) applied to a
+    signal sampled every ``h`` seconds (treated as held): out = y − lowpass(y).
+    ``tau_b`` = 0 means DC coupled (no change)."""
+    if tau_b <= 0:
+        return np.asarray(y)
+    low = rc_boundaries(y, h, tau_b)[..., :-1]
+    return y - low
+
+
+def predistort_bias_tee(v: np.ndarray, dt: float, tau_b: float) -> np.ndarray:
+    """Pre-distortion that cancels a bias tee's droop: V_pre = V + (1/τ)∫V dt
+    (common practice), with the integral taken over the held samples up to the
+    middle of each sample."""
+    if tau_b <= 0:
+        return np.asarray(v)
+    v = np.asarray(v, dtype=float)
+    integral = (np.cumsum(v) - 0.5 * v) * dt
+    return v + integral / tau_b
+
+
+def tone_response(if_freq: float, dt: float, tau: float) -> complex:
+    """Complex gain of hold + RC for a steady tone at ``if_freq`` (Hz), for
+    samples that take the tone's value at the middle of their hold interval:
+    sinc(ω dt/2) from the hold (averaged over the sample, referred to its
+    middle) times 1/(1 + iωτ) from the RC, so bursts can be pre-compensated
+    at their IF."""
+    w = 2 * math.pi * if_freq
+    x = w * dt / 2
+    hold = math.sin(x) / x if x != 0 else 1.0
+    return hold / complex(1.0, w * tau)

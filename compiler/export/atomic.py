@@ -1,0 +1,276 @@
+"""Putting a finished bundle folder in place without ever showing a half
+written one at the target path.
+
+The writer fills a temporary folder beside the target (same parent, so the
+move is a rename on one file system), named ``.NAME.partial-PID-TOKEN``.
+Then:
+
+* target absent: ``rename(temp, target)``;
+* target present (a spinc bundle, or an empty folder) and overwriting
+  allowed: ``rename(target, .NAME.old-PID-TOKEN)``, ``rename(temp, target)``,
+  then delete the old folder.
+
+A process killed while writing leaves only its ``.partial-`` folder; one
+killed between the two renames leaves the previous bundle complete under its
+``.old-`` name and nothing at the target.  :func:`recover` tidies both on
+the next export (only for processes that no longer run).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import secrets
+import shutil
+from pathlib import Path
+
+from .errors import fail
+from .files import fsync_dir
+from .manifest import FORMAT_NAME, MANIFEST_NAME
+
+PARTIAL = "partial"
+OLD = "old"
+
+ABSENT, EMPTY, BUNDLE = "absent", "empty", "bundle"
+
+
+def resolve_target(out_dir) -> Path:
+    """The absolute target folder; checks that its parent folder exists.
+
+    Raises
+    ------
+    BundleError
+        Empty path, a parent that does not exist or is not a folder.
+    """
+    try:
+        raw = os.fspath(out_dir)
+    except TypeError:
+        raise fail("<output folder>", f"output folder {out_dir!r} is not a path",
+                   "give the folder to write as a string or pathlib.Path") from None
+    if not str(raw).strip():
+        raise fail("<output folder>", "no output folder given", "give a folder name with -o")
+    target = Path(os.path.abspath(raw))
+    if target.parent == target:
+        raise fail(target, "cannot write a bundle to the root of a file system",
+                   "choose a folder below it with -o")
+    parent = target.parent
+    if not parent.exists():
+        raise fail(target, f"the folder that should hold the bundle, {parent}, does not exist",
+                   f"create it first (mkdir -p {parent}) or choose another -o folder")
+    if not parent.is_dir():
+        raise fail(target, f"{parent} is not a folder", "choose another -o folder")
+    return target
+
+
+def read_format(folder: Path) -> str | None:
+    """The ``format`` recorded in ``folder/manifest.json``, or None when
+    there is no readable manifest."""
+    try:
+        with open(folder / MANIFEST_NAME, encoding="utf-8") as f:
+            m = json.load(f)
+    except (OSError, ValueError):
+        return None
+    return m.get("format") if isinstance(m, dict) and isinstance(m.get("format"), str) else None
+
+
+def is_bundle(folder: Path) -> bool:
+    """Whether ``folder`` is a real folder holding a spinc manifest."""
+    return (folder.is_dir() and not folder.is_symlink()
+            and read_format(folder) == FORMAT_NAME)
+
+
+def target_state(target: Path, overwrite: bool) -> str:
+    """What is at the target now: ``"absent"``, ``"empty"`` (an empty
+    folder) or ``"bundle"``.
+
+    Raises
+    ------
+    BundleError
+        The target is a file, a symbolic link, a folder that is not a spinc
+        bundle, or a bundle while ``overwrite`` is False.  Nothing is touched.
+    """
+    if not os.path.lexists(target):
+        return ABSENT
+    if target.is_symlink():
+        raise fail(target, "the output path is a symbolic link; spinc does not replace links",
+                   "give the real folder, or choose another -o folder")
+    if not target.is_dir():
+        raise fail(target, "the output path exists and is a file, not a spinc bundle; "
+                           "nothing was written",
+                   "choose another -o folder")
+    try:
+        empty = not any(os.scandir(target))
+    except OSError as e:
+        raise fail(target, f"cannot read the output folder: {e.strerror or e}",
+                   "check its permissions or choose another -o folder") from None
+    if empty:
+        return EMPTY
+    if read_format(target) != FORMAT_NAME:
+        raise fail(target, f"the output folder exists and is not a spinc bundle (no "
+                           f"{MANIFEST_NAME} with format '{FORMAT_NAME}'); nothing was "
+                           "written and nothing was deleted",
+                   "choose another -o folder (a new or empty one)")
+    if not overwrite:
+        raise fail(target, "the output folder already holds a spinc bundle",
+                   "allow overwriting, or choose another -o folder")
+    return BUNDLE
+
+
+def aside_name(target: Path, what: str, pid: int | None = None) -> Path:
+    """A fresh name beside the target: ``.NAME.partial-PID-TOKEN`` or
+    ``.NAME.old-PID-TOKEN``."""
+    pid = os.getpid() if pid is None else pid
+    return target.parent / f".{target.name}.{what}-{pid}-{secrets.token_hex(4)}"
+
+
+def parse_aside(target: Path, entry: str) -> tuple[str, int] | None:
+    """``(what, pid)`` when ``entry`` is a temporary or old folder of
+    ``target``, else None."""
+    for what in (PARTIAL, OLD):
+        prefix = f".{target.name}.{what}-"
+        if entry.startswith(prefix):
+            pid, _, token = entry[len(prefix):].partition("-")
+            if pid.isdigit() and token:
+                return what, int(pid)
+    return None
+
+
+def pid_alive(pid: int) -> bool:
+    """Whether a process with this id runs on this machine.  Unknown counts
+    as alive, so nothing of a running writer is ever removed (on Windows the
+    check is not made at all)."""
+    if os.name == "nt" or pid <= 0:
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:
+        return True
+    return True
+
+
+def leftovers(target: Path) -> list[tuple[Path, str, int]]:
+    """Temporary (``partial``) and old folders beside ``target``:
+    ``(path, what, pid)``, sorted by name."""
+    out = []
+    try:
+        entries = sorted(os.scandir(target.parent), key=lambda e: e.name)
+    except OSError:
+        return out
+    for e in entries:
+        p = parse_aside(target, e.name)
+        if p is not None and e.is_dir(follow_symlinks=False):
+            out.append((Path(e.path), p[0], p[1]))
+    return out
+
+
+def recover(target: Path) -> list[str]:
+    """Tidy what interrupted exports to ``target`` left behind, for
+    processes that no longer run.
+
+    * an unfinished ``.partial-`` folder is removed;
+    * an ``.old-`` folder holding a bundle is renamed back to the target when
+      the target is missing (the export died between its two renames), and
+      removed when the target holds a bundle again;
+    * anything else is left alone and reported.
+
+    Returns
+    -------
+    list of str
+        One sentence per action, for the caller to show.
+    """
+    done: list[str] = []
+    stale = [(p, w, pid) for p, w, pid in leftovers(target)
+             if pid != os.getpid() and not pid_alive(pid)]
+    olds = sorted((p for p, w, _ in stale if w == OLD), key=_newest_first)
+    for p, what, pid in stale:
+        if what == PARTIAL:
+            shutil.rmtree(p, ignore_errors=True)
+            done.append(f"removed {p}, an unfinished export (process {pid} no longer runs)")
+    for p in olds:
+        if not os.path.lexists(target) and is_bundle(p):
+            try:
+                os.rename(p, target)
+            except OSError as e:
+                done.append(f"could not restore {p} to {target}: {e.strerror or e}")
+                continue
+            fsync_dir(target.parent)
+            done.append(f"restored the previous bundle {target} from {p} (an export was "
+                        "interrupted between its two renames)")
+        elif is_bundle(p) and is_bundle(target):
+            shutil.rmtree(p, ignore_errors=True)
+            done.append(f"removed {p}, an old copy of the bundle left by an interrupted export")
+        else:
+            done.append(f"left {p} in place: it is not a complete bundle; look at it and "
+                        "delete it yourself")
+    return done
+
+
+def _newest_first(p: Path) -> tuple:
+    try:
+        return (-p.stat().st_mtime_ns, p.name)
+    except OSError:
+        return (0, p.name)
+
+
+def make_temp(target: Path) -> Path:
+    """Create the temporary folder beside ``target`` (mode from the umask).
+
+    Raises
+    ------
+    BundleError
+        The parent folder is not writable.
+    """
+    for _ in range(100):
+        tmp = aside_name(target, PARTIAL)
+        try:
+            os.mkdir(tmp)
+            return tmp
+        except FileExistsError:
+            continue
+        except OSError as e:
+            raise fail(target, f"cannot create a folder in {target.parent}: "
+                               f"{e.strerror or e}",
+                       "check that the folder is writable, or choose another -o folder") from None
+    raise fail(target, f"cannot find a free temporary name in {target.parent}")
+
+
+def publish(tmp: Path, target: Path, state: str) -> None:
+    """Move the finished folder ``tmp`` to ``target`` (see module notes).
+
+    On any failure between the two renames the old folder is renamed back
+    before the error propagates.  A leftover old folder that cannot be
+    deleted stays beside the target and is removed by the next
+    :func:`recover` once this process has ended.
+    """
+    parent = target.parent
+    if state == ABSENT:
+        os.rename(tmp, target)
+        fsync_dir(parent)
+        return
+    aside = aside_name(target, OLD)
+    os.rename(target, aside)
+    try:
+        os.rename(tmp, target)
+    except BaseException:
+        os.rename(aside, target)
+        raise
+    fsync_dir(parent)
+    if state == EMPTY:
+        try:
+            os.rmdir(aside)
+        except OSError:
+            pass
+    else:
+        shutil.rmtree(aside, ignore_errors=True)
+
+
+def remove(tmp: Path) -> None:
+    """Delete the temporary folder (if it still exists)."""
+    if os.path.lexists(tmp):
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+__all__ = ["resolve_target", "target_state", "recover", "make_temp", "publish", "remove",
+           "leftovers", "is_bundle"]

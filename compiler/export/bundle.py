@@ -1,0 +1,486 @@
+"""The export bundle: a folder with ``manifest.json`` and the sampled arrays
+of every run, written atomically and read back with every checksum verified.
+
+The format is described in ``docs/bundle.md``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import posixpath
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from ..synth.types import Waveforms
+from . import atomic
+from .errors import BundleError, at, fail
+from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, csv_bytes_bound, fsync_dir,
+                    npy_bytes, sha256_file, write_csv, write_npy, write_npy_rows)
+from .manifest import (ARRAYS_FOLDER, CSV_NAME, FORMAT_NAME, FORMAT_VERSION, MANIFEST_NAME, Plan,
+                       build, check_runs, codes_file, dumps, output_file, pad_values,
+                       run_folder)
+
+
+# ---------------------------------------------------------------- writing
+
+def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapping,
+                 csv: bool = False, stacked: bool = False, overwrite: bool = True) -> Path:
+    """Write the waveforms of every run as a bundle folder, atomically.
+
+    Parameters
+    ----------
+    runs : sequence of Waveforms
+        The runs, all at one sample rate (Hz).  Volts in V, markers 0/1.
+    out_dir : str or Path
+        The bundle folder.  Its parent must exist.  It may be absent, an
+        empty folder, or a spinc bundle (replaced when ``overwrite``).
+    source : mapping
+        What the bundle was made from (sequence path, device path, device
+        name, spinc version, SHA-256 of the input texts); copied into the
+        manifest as given (JSON-able values only).
+    csv : bool, optional
+        Also write ``run_NNNN/samples.csv`` per run (time in ns, volts in V).
+    stacked : bool, optional
+        One ``arrays/NAME.npy`` of shape (runs, longest run) per output
+        instead of one folder per run; shorter runs are padded at the end
+        with the output's last sample, recorded in the manifest.
+    overwrite : bool, optional
+        Replace an existing bundle at ``out_dir`` (default True).
+
+    Returns
+    -------
+    Path
+        The absolute path of the bundle folder.
+
+    Raises
+    ------
+    BundleError
+        Malformed waveforms, an output folder that is not a spinc bundle
+        (never deleted), a missing parent folder, or an IO error (disk full,
+        no permission).  Nothing is left at ``out_dir`` but the previous
+        content, and the temporary folder is removed, also on
+        KeyboardInterrupt (which is re-raised).
+
+    Notes
+    -----
+    Everything is written and fsynced into ``.NAME.partial-PID-TOKEN``
+    beside the target, then renamed into place; see ``docs/bundle.md`` for
+    what a crash at each moment leaves behind.  Folders left by earlier
+    exports that were killed are tidied first (:func:`recover`).
+    """
+    if not isinstance(source, Mapping):
+        raise BundleError(at("<source>", f"source is a {type(source).__name__}, expected a dict",
+                             "pass source={'sequence': ..., 'device': ..., ...}"))
+    plan = check_runs(runs, stacked=stacked)
+    _dry_manifest(plan, source, csv=False)  # refuse unusable values before touching the disk
+    target = atomic.resolve_target(out_dir)
+    try:
+        atomic.recover(target)
+    except OSError:
+        pass  # tidying is best effort; the checks below still protect the target
+    atomic.target_state(target, overwrite)
+    tmp = atomic.make_temp(target)
+    try:
+        written = _write_data(plan, tmp, csv)
+        checksums = {rel: w.sha256 for rel, w in written.items()}
+        sizes = {rel: w.size for rel, w in written.items()}
+        text = dumps(build(plan, source, checksums, sizes, csv))
+        f = _HashingFile(tmp / MANIFEST_NAME)
+        try:
+            f.write(text.encode("utf-8"))
+        except BaseException:
+            f.abort()
+            raise
+        f.close()
+        for sub in {Path(rel).parent for rel in written}:
+            fsync_dir(tmp / sub)
+        fsync_dir(tmp)
+        state = atomic.target_state(target, overwrite)  # again: it may have changed meanwhile
+        atomic.publish(tmp, target, state)
+    except OSError as e:
+        atomic.remove(tmp)
+        where = getattr(e, "filename", None) or tmp
+        raise fail(target, f"could not write the bundle ({e.strerror or e}; at {where}); "
+                           "nothing was changed at the output folder",
+                   "check free disk space and permissions, or choose another -o folder") from None
+    except BaseException:
+        atomic.remove(tmp)
+        raise
+    return target
+
+
+def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
+    """Write every data file into ``tmp``; the files by relative path."""
+    written: dict[str, Written] = {}
+
+    def put(rel: str, w: Written) -> None:
+        written[rel] = w
+
+    if plan.stacked:
+        (tmp / ARRAYS_FOLDER).mkdir()
+        n_rows, width = len(plan.runs), plan.n_max
+        for name in plan.order:
+            put(f"{ARRAYS_FOLDER}/{output_file(name)}", write_npy_rows(
+                tmp / ARRAYS_FOLDER / output_file(name),
+                _padded(plan.runs, name, width, codes=False), n_rows, width, VOLTS_DTYPE))
+            if plan.runs[0].outputs[name].codes is not None:
+                put(f"{ARRAYS_FOLDER}/{codes_file(name)}", write_npy_rows(
+                    tmp / ARRAYS_FOLDER / codes_file(name),
+                    _padded(plan.runs, name, width, codes=True), n_rows, width, CODES_DTYPE))
+    for w in plan.runs:
+        folder = run_folder(int(w.run_index))
+        if plan.stacked and not csv:
+            continue
+        (tmp / folder).mkdir()
+        if not plan.stacked:
+            for name, o in w.outputs.items():
+                put(f"{folder}/{output_file(name)}",
+                    write_npy(tmp / folder / output_file(name), o.volts, VOLTS_DTYPE))
+                if o.codes is not None:
+                    put(f"{folder}/{codes_file(name)}",
+                        write_npy(tmp / folder / codes_file(name), o.codes, CODES_DTYPE))
+        if csv:
+            names = list(w.outputs)
+            put(f"{folder}/{CSV_NAME}", write_csv(
+                tmp / folder / CSV_NAME, plan.sample_rate, int(w.n_samples),
+                [w.outputs[n].volts for n in names], names,
+                [w.outputs[n].kind for n in names]))
+    return written
+
+
+def _padded(runs: Sequence[Waveforms], name: str, width: int, *, codes: bool):
+    """Rows of one stacked output: each run's samples, padded at the end to
+    ``width`` with the output's idle value (its last sample)."""
+    for w in runs:
+        o = w.outputs[name]
+        a = np.asarray(o.codes if codes else o.volts)
+        value, code = pad_values(o)
+        fill = code if codes else value
+        if a.shape[0] == width:
+            yield a
+        else:
+            row = np.empty(width, dtype=CODES_DTYPE if codes else VOLTS_DTYPE)
+            row[:a.shape[0]] = a
+            row[a.shape[0]:] = fill
+            yield row
+
+
+def recover(out_dir: str | Path) -> list[str]:
+    """Tidy what killed exports into ``out_dir`` left beside it (for
+    processes that no longer run); one sentence per action.
+
+    :func:`write_bundle` calls this itself; the command line may call it to
+    show what was done.
+    """
+    return atomic.recover(atomic.resolve_target(out_dir))
+
+
+# ---------------------------------------------------------------- sizes
+
+@dataclass(frozen=True)
+class RunSize:
+    """The size of one run before its waveforms exist (from the schedule)."""
+
+    n_samples: int      # samples per output
+    n_analog: int       # outputs with DAC codes (volts float64 + codes int32)
+    n_marker: int = 0   # outputs without codes (0/1 as float64)
+    n_steps: int = 0    # timeline entries (for the manifest size)
+
+
+_MANIFEST_BASE = 2048      # bytes: top-level keys, units, source
+_MANIFEST_PER_RUN = 1024   # bytes: run keys, frames, Larmor frequencies
+_MANIFEST_PER_OUTPUT = 700  # bytes per output per run
+_MANIFEST_PER_STEP = 900   # bytes per timeline entry
+
+
+def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = False,
+                          stacked: bool = False, sample_rate: float = 1e9,
+                          source: Mapping | None = None) -> int:
+    """Bytes the bundle will take on disk (file contents, not file-system
+    blocks), so a caller can refuse before writing.
+
+    Parameters
+    ----------
+    runs : sequence of Waveforms or RunSize
+        The runs, or their sizes when the waveforms are not made yet.
+    csv, stacked : bool
+        As for :func:`write_bundle`.
+    sample_rate : float, Hz, optional
+        Used only for :class:`RunSize` entries (the width of the CSV time
+        column); Waveforms carry their own.
+    source : mapping, optional
+        The ``source`` that will be passed to :func:`write_bundle`.
+
+    Returns
+    -------
+    int
+        Bytes.  The ``.npy`` part is exact; the CSV part is an upper bound
+        (each value at its widest printed form); the manifest is exact up
+        to a few digits for Waveforms and a generous guess for RunSize.  For
+        Waveforms the total is never below what :func:`write_bundle` writes.
+    """
+    runs = list(runs)
+    if not runs:
+        return 0
+    if all(isinstance(r, Waveforms) for r in runs):
+        return _estimate_waveforms(runs, csv, stacked, source or {})
+    total = _MANIFEST_BASE
+    n_max = max(_n_samples(r) for r in runs)
+    for r in runs:
+        if isinstance(r, Waveforms):
+            n_an = sum(o.codes is not None for o in r.outputs.values())
+            n_mk = len(r.outputs) - n_an
+            kinds = [o.kind for o in r.outputs.values()]
+            steps, fs = len(r.steps), r.sample_rate
+        elif isinstance(r, RunSize):
+            n_an, n_mk, steps, fs = r.n_analog, r.n_marker, r.n_steps, sample_rate
+            kinds = ["gate"] * n_an + ["marker"] * n_mk
+        else:
+            raise BundleError(at("<sizes>", f"cannot size a {type(r).__name__}",
+                                 "pass Waveforms or RunSize items"))
+        n = _n_samples(r)
+        total += (_MANIFEST_PER_RUN + _MANIFEST_PER_OUTPUT * (n_an + n_mk)
+                  + _MANIFEST_PER_STEP * steps)
+        if not stacked:
+            total += (n_an + n_mk) * npy_bytes((n,), VOLTS_DTYPE) + n_an * npy_bytes((n,),
+                                                                                   CODES_DTYPE)
+        if csv:
+            total += csv_bytes_bound(fs, n, kinds)
+    if stacked:
+        first = runs[0]
+        if isinstance(first, Waveforms):
+            n_an = sum(o.codes is not None for o in first.outputs.values())
+            n_mk = len(first.outputs) - n_an
+        else:
+            n_an, n_mk = first.n_analog, first.n_marker
+        shape = (len(runs), n_max)
+        total += (n_an + n_mk) * npy_bytes(shape, VOLTS_DTYPE) + n_an * npy_bytes(shape,
+                                                                                 CODES_DTYPE)
+    return int(total)
+
+
+def _n_samples(r) -> int:
+    n = int(r.n_samples)
+    if n < 0:
+        raise BundleError(at("<sizes>", f"n_samples {n} is negative"))
+    return n
+
+
+def _file_sizes(plan: Plan, csv: bool) -> dict[str, int]:
+    """Every data file the bundle will hold, by relative path: its exact
+    size (``.npy``) or an upper bound (``samples.csv``)."""
+    sizes: dict[str, int] = {}
+    if plan.stacked:
+        shape = (len(plan.runs), plan.n_max)
+        for name in plan.order:
+            sizes[f"{ARRAYS_FOLDER}/{output_file(name)}"] = npy_bytes(shape, VOLTS_DTYPE)
+            if plan.runs[0].outputs[name].codes is not None:
+                sizes[f"{ARRAYS_FOLDER}/{codes_file(name)}"] = npy_bytes(shape, CODES_DTYPE)
+    for w in plan.runs:
+        folder = run_folder(int(w.run_index))
+        n = int(w.n_samples)
+        if not plan.stacked:
+            for name, o in w.outputs.items():
+                sizes[f"{folder}/{output_file(name)}"] = npy_bytes((n,), VOLTS_DTYPE)
+                if o.codes is not None:
+                    sizes[f"{folder}/{codes_file(name)}"] = npy_bytes((n,), CODES_DTYPE)
+        if csv:
+            names = list(w.outputs)
+            kinds = [w.outputs[k].kind for k in names]
+            extreme = [_has_extreme(w.outputs[k].volts) for k in names]
+            sizes[f"{folder}/{CSV_NAME}"] = csv_bytes_bound(w.sample_rate, n, kinds, extreme,
+                                                            names)
+    return sizes
+
+
+def _dry_manifest(plan: Plan, source: Mapping, csv: bool) -> tuple[dict[str, int], str]:
+    """The file sizes and the manifest text with placeholder checksums:
+    builds everything the real manifest will hold, so a value the manifest
+    cannot hold is refused before anything is written."""
+    sizes = _file_sizes(plan, csv)
+    fake = {rel: "0" * 64 for rel in sizes}
+    return sizes, dumps(build(plan, source, fake, sizes, csv))
+
+
+def _estimate_waveforms(runs: list[Waveforms], csv: bool, stacked: bool,
+                        source: Mapping) -> int:
+    plan = check_runs(runs, stacked=stacked)
+    sizes, text = _dry_manifest(plan, source, csv)
+    return int(sum(sizes.values()) + len(text.encode("utf-8")) + 64)
+
+
+def _has_extreme(v) -> bool:
+    """Whether a value may print with a three-digit exponent in ``%.9e``."""
+    a = np.abs(np.asarray(v, dtype=np.float64))
+    nz = a[a != 0]
+    return bool(nz.size and (nz.max() >= 9.99e99 or nz.min() < 1.01e-99))
+
+
+# ---------------------------------------------------------------- reading
+
+def read_bundle(out_dir: str | Path) -> dict:
+    """Load a bundle and verify every checksum.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        The bundle folder.
+
+    Returns
+    -------
+    dict
+        ``path`` (Path), ``manifest`` (the parsed JSON), ``runs`` (one dict
+        per run in manifest order: ``index``, ``volts`` {output: float64
+        array, V or 0/1}, ``codes`` {output: int32 array}, each of the run's
+        own length, padding removed) and ``stacked`` (``{"volts": {...},
+        "codes": {...}}`` of 2-D arrays, padding included, or None).
+
+    Raises
+    ------
+    BundleError
+        The folder or its manifest is missing or malformed, a listed file is
+        missing, or its size or SHA-256 differs from the manifest; every bad
+        file is named.  When an interrupted export left the previous bundle
+        under an ``.old-`` name, the hint says where.
+    """
+    try:
+        target = Path(os.path.abspath(os.fspath(out_dir)))
+    except TypeError:
+        raise fail("<bundle>", f"{out_dir!r} is not a path") from None
+    if not target.is_dir():
+        olds = [p for p, what, _ in atomic.leftovers(target)
+                if what == atomic.OLD and atomic.is_bundle(p)]
+        if olds:
+            hint = (f"an export into this folder was interrupted; the last complete bundle is "
+                    f"{olds[0]}: rename it to {target.name}, or export again (which restores "
+                    "it first)")
+        else:
+            hint = "check the path, or export the bundle again"
+        what = "is not a folder" if os.path.lexists(target) else "does not exist"
+        raise fail(target, f"bundle folder {what}", hint)
+    mpath = target / MANIFEST_NAME
+    if not mpath.is_file():
+        raise fail(mpath, f"no {MANIFEST_NAME}: {target} is not a spinc bundle",
+                   "give the folder that spinc compile -o wrote")
+    try:
+        m = json.loads(mpath.read_text(encoding="utf-8"))
+    except UnicodeDecodeError:
+        raise fail(mpath, "the manifest is not UTF-8 text", _DAMAGED) from None
+    except json.JSONDecodeError as e:
+        raise BundleError(at(mpath, f"the manifest is not valid JSON (line {e.lineno}, "
+                                    f"column {e.colno}: {e.msg})", _DAMAGED)) from None
+    except OSError as e:
+        raise fail(mpath, f"cannot read the manifest: {e.strerror or e}") from None
+    if not isinstance(m, dict) or m.get("format") != FORMAT_NAME:
+        raise fail(mpath, f"the manifest does not name the format '{FORMAT_NAME}'",
+                   "give the folder that spinc compile -o wrote")
+    version = m.get("format_version")
+    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
+        raise fail(mpath, f"format_version {version!r} is not a whole number >= 1", _DAMAGED)
+    if version > FORMAT_VERSION:
+        raise fail(mpath, f"bundle format version {version} is newer than this spinc reads "
+                          f"({FORMAT_VERSION})", "update spinc to read it")
+    try:
+        files = _verify_files(target, m)
+        return _load(target, m, files)
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as e:
+        raise fail(mpath, f"the manifest is malformed ({type(e).__name__}: {e})",
+                   _DAMAGED) from None
+
+
+_DAMAGED = "the bundle is damaged; export it again"
+
+
+def _inside(target: Path, rel: Any) -> Path | None:
+    """``target/rel`` when ``rel`` is a plain relative path inside it."""
+    if not isinstance(rel, str) or not rel or "\\" in rel or "\x00" in rel:
+        return None
+    norm = posixpath.normpath(rel)
+    if norm != rel or norm.startswith(("/", "../")) or norm in (".", ".."):
+        return None
+    return target.joinpath(*norm.split("/"))
+
+
+def _verify_files(target: Path, m: dict) -> dict[str, dict]:
+    """Check size and SHA-256 of every listed file; all problems at once."""
+    files = m["files"]
+    if not isinstance(files, dict):
+        raise TypeError("'files' is not an object")
+    problems = []
+    for rel in sorted(files):
+        info = files[rel]
+        p = _inside(target, rel)
+        if p is None:
+            problems.append(at(target / MANIFEST_NAME, f"listed file {rel!r} is not a path "
+                                                       "inside the bundle", _DAMAGED))
+            continue
+        if not p.is_file():
+            problems.append(at(p, "file listed in the manifest is missing", _DAMAGED))
+            continue
+        try:
+            sha, size = sha256_file(p)
+        except OSError as e:
+            problems.append(at(p, f"cannot read: {e.strerror or e}"))
+            continue
+        if size != info["bytes"]:
+            problems.append(at(p, f"file has {size} bytes, the manifest says {info['bytes']}",
+                               _DAMAGED))
+        elif sha != info["sha256"]:
+            problems.append(at(p, "SHA-256 checksum differs from the manifest: the file was "
+                                  "changed or damaged", _DAMAGED))
+    if problems:
+        raise BundleError(problems)
+    return files
+
+
+def _load(target: Path, m: dict, files: dict) -> dict:
+    cache: dict[str, np.ndarray] = {}
+
+    def load(rel: str, sha: str, dtype: np.dtype, shape: list) -> np.ndarray:
+        p = _inside(target, rel)
+        if p is None or rel not in files:
+            raise BundleError(at(target / MANIFEST_NAME, f"{rel!r} is not listed in 'files'",
+                                 _DAMAGED))
+        if files[rel]["sha256"] != sha:
+            raise BundleError(at(p, "checksum in the run entry differs from the one in 'files'",
+                                 _DAMAGED))
+        if rel not in cache:
+            try:
+                a = np.load(p, allow_pickle=False)
+            except (OSError, ValueError) as e:
+                raise BundleError(at(p, f"not a readable .npy file ({e})", _DAMAGED)) from None
+            if a.dtype != dtype or list(a.shape) != list(shape):
+                raise BundleError(at(p, f"holds {a.dtype} {list(a.shape)}, the manifest says "
+                                        f"{np.dtype(dtype)} {list(shape)}", _DAMAGED))
+            cache[rel] = a
+        return cache[rel]
+
+    stacked = m["layout"] == "stacked"
+    runs = []
+    st_volts: dict[str, np.ndarray] = {}
+    st_codes: dict[str, np.ndarray] = {}
+    for r in m["runs"]:
+        n = int(r["n_samples"])
+        volts, codes = {}, {}
+        for name in r["output_order"]:
+            e = r["outputs"][name]
+            a = load(e["file"], e["sha256"], VOLTS_DTYPE, e["shape"])
+            c = (load(e["codes_file"], e["codes_sha256"], CODES_DTYPE, e["shape"])
+                 if e["codes_file"] else None)
+            if stacked:
+                st_volts[name] = a
+                volts[name] = a[int(e["row"]), :n]
+                if c is not None:
+                    st_codes[name] = c
+                    codes[name] = c[int(e["row"]), :n]
+            else:
+                volts[name] = a
+                if c is not None:
+                    codes[name] = c
+        runs.append({"index": r["index"], "volts": volts, "codes": codes})
+    return {"path": target, "manifest": m, "runs": runs,
+            "stacked": {"volts": st_volts, "codes": st_codes} if stacked else None}

@@ -1,0 +1,196 @@
+"""Render a timeline into sample arrays.
+
+Microwave bursts (single-sideband I/Q)
+    A line carries the complex baseband c = I + iQ; the generator's I/Q
+    mixer plays V(t) = Re[c(t)·e^{i2π·LO·t}], a tone at LO + IF for
+    c ∝ e^{i2π·IF·t} (upper sideband for IF > 0).  In the rotating frame of
+    dot q (Larmor f_q, IF_q = f_q − LO) the drive is b_q = c·e^{−i2π·IF_q·t}
+    and, under the rotating-wave approximation, turns the spin about the axis
+    at arg(b_q) for g > 0 and at π − arg(b_q) for g < 0 (the spin precesses
+    the other way), at Rabi frequency r·|b_q|.  So a rotation about axis φ
+    with envelope A·e_k is played as
+        c_k = A·e_k·e^{iφ_b}·e^{i2π·IF_q·(t_k + dt/2)} / H(IF_q),
+    φ_b = φ for g > 0, π − φ for g < 0, where H is the gain of the hold and
+    the channel's RC response at the IF (:func:`compiler.analog.tone_response`),
+    so that the drive averaged over each sample is exactly A·e_k at the axis.
+    Bursts on several dots of one line add up (multi-tone).
+
+Gate voltages
+    Barrier gates sit at their coupling's idle level and carry the exchange
+    pulses; plungers of dots that a long-range exchange detunes carry the
+    offset for the whole exchange slot.  A channel behind a bias tee gets
+    V − V_idle from the generator (the DC level comes through the tee's DC
+    port and is recorded); with ``predistort`` the droop of the tee is
+    pre-compensated (:func:`compiler.analog.predistort_bias_tee`).
+
+Every output is quantised to the DAC's codes; any value outside the range is
+an error naming the step and the time, never clipped.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+
+import numpy as np
+
+from .. import analog, program as P
+from ..device.model import Device
+from ..errors import Problem, SynthesisError, read_source_line
+from ..physics import precession_sign
+from ..schedule.timeline import TRIGGER_WIDTH, Slot, Timeline
+from ..units import TIME, VOLTAGE, format_quantity as fq
+from .types import Output, StepRecord, Waveforms
+
+
+@lru_cache(maxsize=4096)
+def _rotor(if_freq: float, n: int, dt: float) -> np.ndarray:
+    """e^{i2π·IF·(k + 1/2)·dt} for k < n (cached; shifted per burst)."""
+    return np.exp(2j * math.pi * if_freq * (np.arange(n) + 0.5) * dt)
+
+
+@lru_cache(maxsize=4096)
+def _env(envelope: tuple) -> np.ndarray:
+    return np.asarray(envelope, dtype=float)
+
+
+def _lcm(a: int, b: int) -> int:
+    return a * b // math.gcd(a, b)
+
+
+def _slot_text(slot: Slot) -> tuple[str, str]:
+    if slot.span is None:
+        return "", ""
+    line = read_source_line(slot.span.file, slot.span.line).strip()
+    return f"{slot.span.file}:{slot.span.line}:{slot.span.col}", line
+
+
+def _slot_channels(slot: Slot, device: Device) -> tuple[str, ...]:
+    chans = []
+    for r in slot.resources:
+        kind, _, name = r.partition(":")
+        if kind in ("line", "ch"):
+            chans.append(name)
+    return tuple(chans)
+
+
+def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Waveforms:
+    """Sample arrays of one scheduled run (see the module notes)."""
+    dt = tl.dt
+    fs = device.sample_rate
+    chans = device.channels
+    # length: the timeline, then the generators' minimum length and granularity
+    used = [c for c in chans.values()]
+    n_min = max([c.min_length for c in used] + [1])
+    gran = 1
+    for c in used:
+        gran = _lcm(gran, max(1, c.granularity))
+    n = max(tl.n_samples, n_min)
+    n = int(math.ceil(n / gran) * gran)
+
+    iq: dict[str, np.ndarray] = {name: np.zeros(n, dtype=complex)
+                                 for name, c in chans.items() if c.kind == "iq"}
+    gate: dict[str, np.ndarray] = {}
+    dc: dict[str, float] = {}
+    idle_of: dict[str, float] = {}
+    for c in device.couplings:
+        idle_of.setdefault(c.barrier, c.idle_voltage)
+    for name, c in chans.items():
+        if c.kind == "gate":
+            gate[name] = np.full(n, idle_of.get(name, 0.0))
+            dc[name] = idle_of.get(name, 0.0) if c.bias_tee > 0 else 0.0
+    markers = {name: np.zeros(n) for name, c in chans.items() if c.kind == "marker"}
+
+    owner = np.full(n, -1, dtype=np.int64)   # which slot wrote each sample last (for errors)
+    records: list[StepRecord] = []
+    for i, s in enumerate(tl.slots):
+        a, b = s.start_sample, s.end_sample
+        src, text = _slot_text(s)
+        params: dict = {}
+        if s.burst is not None and s.n > 0:
+            q = s.qubits[0]
+            dot = device.dots[q]
+            line = chans[dot.drive.line]
+            f_if = device.larmor(q) - line.lo
+            phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
+            h = analog.tone_response(f_if, dt, analog.rc_tau(line.rise_time))
+            amp = s.burst.amplitude * complex(math.cos(phi), math.sin(phi)) / h
+            shift = np.exp(2j * math.pi * f_if * a * dt)
+            iq[line.name][a:b] += (amp * shift) * _env(s.burst.envelope) * _rotor(f_if, s.n, dt)
+            owner[a:b] = i
+            params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
+                      "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
+                      "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
+            if s.step is not None:
+                params["frame_rad"] = s.info.get("frame", 0.0)
+        elif s.exchange is not None:
+            d = s.exchange
+            c = device.coupling(*s.qubits)
+            gate[c.barrier][a:b] = d.samples()
+            for dd, offset in c.detune:
+                gate[device.dots[dd].plunger][a:b] += offset
+            owner[a:b] = i
+            params = {"level_V": d.level, "idle_V": d.idle, "j_peak_Hz": d.j_peak,
+                      "exchange_integral": d.integral, "target_integral": d.target,
+                      "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
+                      "frame_updates_rad": s.info.get("frame_updates", {}),
+                      "frame_fidelity": s.info.get("frame_fidelity", 1.0),
+                      "zeeman_difference_Hz": s.info.get("zeeman_difference_Hz", 0.0)}
+        elif isinstance(s.step, P.Readout):
+            markers[device.readout.marker][a:b] = 1.0
+        elif isinstance(s.step, P.Trigger):
+            w = int(math.ceil(TRIGGER_WIDTH / dt - 1e-9))
+            markers[device.readout.trigger_marker][a:min(a + w, n)] = 1.0
+            params = {"label": s.step.label, "width_s": w * dt}
+        elif isinstance(s.step, P.FrameRotation):
+            params = {"angle_rad": s.step.angle, "frame_rad": s.info.get("frame", 0.0)}
+        if s.info.get("reason"):
+            params["reason"] = s.info["reason"]
+        records.append(StepRecord(len(records), s.kind, s.qubits, a, b, _slot_channels(s, device),
+                                  src, text, params))
+    if n > tl.n_samples:
+        records.append(StepRecord(len(records), "pad", (), tl.n_samples, n, tuple(chans), "", "",
+                                  {"reason": f"generator minimum length {n_min} and granularity "
+                                             f"{gran} samples"}))
+
+    outputs: dict[str, Output] = {}
+    problems: list[Problem] = []
+
+    def add_analog(name: str, ch, ideal: np.ndarray, dc_level: float) -> None:
+        top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+        q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
+        bad = np.flatnonzero((ideal < ch.v_min - q / 2) | (ideal > top + q / 2) | ~np.isfinite(ideal))
+        if bad.size:
+            k = int(bad[0])
+            slot = tl.slots[owner[k]] if owner[k] >= 0 else None
+            where = (f"during the {slot.kind} step at {slot.span}" if slot is not None and slot.span
+                     else "outside any step")
+            v = ideal[k]
+            problems.append(Problem(
+                f"output '{name}' would need {fq(float(v), VOLTAGE)} at t = {fq(k * dt, TIME)} "
+                f"(sample {k}), {where}; the channel plays {fq(ch.v_min, VOLTAGE)} to "
+                f"{fq(top, VOLTAGE)}", slot.span if slot is not None else None,
+                "lower the amplitude or lengthen the step; nothing is clipped",
+                read_source_line(slot.span.file, slot.span.line) if slot is not None and slot.span
+                else "", slot.via if slot is not None else ()))
+            return
+        codes, volts = analog.quantise(np.clip(ideal, ch.v_min, top), ch.v_min, ch.v_max, ch.bits)
+        outputs[name] = Output(name, ch.name, ch.kind, volts, codes, ideal, dc_level, q)
+
+    for name, ch in chans.items():
+        if ch.kind == "iq":
+            add_analog(f"{name}.I", ch, iq[name].real.copy(), 0.0)
+            add_analog(f"{name}.Q", ch, iq[name].imag.copy(), 0.0)
+        elif ch.kind == "gate":
+            v = gate[name] - dc[name]
+            if predistort and ch.bias_tee > 0:
+                v = analog.predistort_bias_tee(v, dt, ch.bias_tee)
+            add_analog(name, ch, v, dc[name])
+        else:
+            m = markers[name]
+            outputs[name] = Output(name, name, "marker", m, None, m, 0.0, 0.0)
+    if problems:
+        raise SynthesisError(problems)
+    warnings = tuple(w.render() for w in tl.warnings)
+    return Waveforms(tl.run.index, tl.run.sweep, fs, n, outputs, tuple(records), dict(tl.frames),
+                     {q: device.larmor(q) for q in device.dots}, warnings)

@@ -1,0 +1,69 @@
+"""What waveform synthesis produces: the sampled arrays every generator
+channel plays, and the timeline that explains them.
+
+All channels of a device share one sample rate (checked when the device is
+loaded); sample ``i`` of every array is held on [i/fs, (i+1)/fs) (zero-order
+hold).  Analog channels hold volts (already quantised to the DAC's codes),
+markers hold 0/1.  An I/Q line ``mw`` gives two arrays, ``mw.I`` and ``mw.Q``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Output:
+    """One generator output (an analog channel, one half of an I/Q pair, or a
+    marker) and its samples."""
+
+    name: str                 # "mw.I", "mw.Q", "P_A", "B_AB", "M1"
+    channel: str              # device channel it belongs to: "mw", "P_A", ...
+    kind: str                 # "iq", "gate" or "marker"
+    volts: np.ndarray         # float64 V (markers: 0.0/1.0), quantised, length n_samples
+    codes: np.ndarray | None  # DAC codes (int32) for analog outputs, None for markers
+    ideal: np.ndarray         # float64 V before quantisation (what the design asked for)
+    dc_level: float = 0.0     # V supplied through the bias tee's DC port, not by the generator
+    lsb: float = 0.0          # V per DAC code (0 for markers)
+
+
+@dataclass(frozen=True)
+class StepRecord:
+    """One entry of the timeline: a step, padding or alignment, on the sample grid."""
+
+    index: int                # position in the timeline
+    kind: str                 # rot, zrot, sqrtswap, isqrtswap, swap, wait, read, trigger,
+                              # align (wait inserted to phase-align an exchange), pad (end padding)
+    qubits: tuple[str, ...]
+    start: int                # first sample
+    stop: int                 # one past the last sample
+    channels: tuple[str, ...]  # device channels the step writes to
+    source: str               # "file:line:col" of the statement, "" for padding
+    text: str                 # the statement as written, "" for padding
+    params: dict = field(default_factory=dict)  # SI values: angle_rad, phase_rad, amplitude_V,
+                                                # level_V, j_Hz, frame_rad, ...
+
+
+@dataclass(frozen=True)
+class Waveforms:
+    """Everything one run plays, on a common sample grid."""
+
+    run_index: int
+    sweep: tuple[tuple[str, float], ...]     # (name, SI value) of this run's sweep point
+    sample_rate: float                       # Hz
+    n_samples: int
+    outputs: dict[str, Output]               # by output name, in device channel order
+    steps: tuple[StepRecord, ...]
+    frames: dict[str, float]                 # final frame phase of each dot (rad)
+    larmor: dict[str, float]                 # Hz, per dot
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def duration(self) -> float:
+        return self.n_samples / self.sample_rate
+
+    def time(self) -> np.ndarray:
+        """Start time (s) of each sample."""
+        return np.arange(self.n_samples) / self.sample_rate
