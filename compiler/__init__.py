@@ -3,7 +3,8 @@
 The pipeline, one subpackage per stage::
 
     text --parse--> tree --expand--> runs --check--> (against the device)
-         --schedule--> timelines --> (waveforms, simulation: later stages)
+         --schedule--> timelines --synth--> waveforms --export--> bundle
+                                                      --preview--> figure
 
 The functions here chain the stages; the command line calls only these.
 """
@@ -22,6 +23,7 @@ from .expand import expand
 from .parse import parse_path, parse_text
 from .program import Expanded
 from .schedule import Timeline, schedule
+from .synth import Waveforms, synthesize
 
 __version__ = "0.1.0"
 
@@ -55,5 +57,27 @@ def check_file(path: str | Path, device: str | Path | None = None) -> Summary:
     return summarize(c.expanded, c.device, list(c.timelines))
 
 
-__all__ = ["load", "check_file", "parse_path", "parse_text", "expand", "check", "schedule",
+@dataclass(frozen=True)
+class Compiled:
+    """A checked file and the sampled waveforms of every run."""
+    checked: Checked
+    waveforms: tuple[Waveforms, ...]
+
+
+def compile_checked(checked: Checked, *, predistort: bool = False,
+                    runs: list[int] | None = None) -> Compiled:
+    """Synthesise the waveforms of the chosen runs (all by default)."""
+    idx = range(len(checked.timelines)) if runs is None else runs
+    wfs = tuple(synthesize(checked.timelines[i], checked.device, predistort=predistort)
+                for i in idx)
+    return Compiled(checked, wfs)
+
+
+def compile_file(path: str | Path, device: str | Path | None = None, *,
+                 predistort: bool = False, runs: list[int] | None = None) -> Compiled:
+    """Parse, check, schedule and synthesise: the arrays each channel plays."""
+    return compile_checked(load(path, device), predistort=predistort, runs=runs)
+
+
+__all__ = ["compile_file", "compile_checked", "Compiled", "Waveforms", "synthesize","load", "check_file", "parse_path", "parse_text", "expand", "check", "schedule",
            "load_device", "summarize", "SpincError", "Checked", "__version__"]

@@ -151,3 +151,47 @@ def tone_response(if_freq: float, dt: float, tau: float) -> complex:
     x = w * dt / 2
     hold = math.sin(x) / x if x != 0 else 1.0
     return hold / complex(1.0, w * tau)
+
+
+def tone_burst(envelope: np.ndarray, if_freq: float, dt: float, tau: float) -> np.ndarray:
+    """Held samples x_k that make a tone at ``if_freq`` (Hz) with envelope
+    e_k, seen through hold + RC, average exactly e_k over every sample in the
+    frame rotating at the IF:  (1/dt)∫ y(t)·e^{−iω(t − t0)} dt = e_k on sample
+    k, with y the RC output and t0 the first sample's start.  The RC tail
+    after the last sample is folded into the last sample, so the drive's
+    time integral is exact as well.  Multiply by A·e^{iφ}·e^{iω t0}.
+
+    Inverts the exact per-sample response:  within sample k the RC output is
+    x_k + (y_k − x_k)e^{−u/τ}, so the rotating-frame mean is
+    e^{−iωkdt}[x_k S0 + (y_k − x_k) S1] with S0 = mean of e^{−iωu},
+    S1 = mean of e^{−u/τ − iωu} over the sample; solved as a first-order
+    recursion (scipy.signal.lfilter)."""
+    e = np.asarray(envelope, dtype=float)
+    n = len(e)
+    w = 2 * math.pi * if_freq
+    k = np.arange(n)
+    rot = np.exp(1j * w * k * dt)
+    x_ = w * dt / 2
+    s0 = (math.sin(x_) / x_ if x_ != 0 else 1.0) * complex(math.cos(x_), -math.sin(x_))
+    if tau <= 0 or n == 0:
+        return e * rot / s0
+    lam = 1.0 / tau + 1j * w
+    s1 = (1 - np.exp(-lam * dt)) / (lam * dt)
+    a = math.exp(-dt / tau)
+    alpha = 1.0 / (s0 - s1)
+    d = e * rot                                       # wanted mean, in the line's frame
+    from scipy.signal import lfilter
+    # y_{k+1} = (a − (1−a)α S1)·y_k + (1−a)α·d_k,  y_0 = 0
+    pole = a - (1 - a) * alpha * s1
+    ynext = lfilter([(1 - a) * alpha], [1.0, -pole], d)
+    y = np.concatenate(([0.0], ynext[:-1]))
+    x = alpha * (d - s1 * y)
+    # last sample: its own mean plus the tail after it give the wanted integral
+    kl = n - 1
+    tail = tau / (1 + 1j * w * tau)                   # ∫ e^{−u/τ − iωu} du
+    r_last = np.exp(-1j * w * kl * dt)
+    r_end = np.exp(-1j * w * n * dt)
+    coef_x = r_last * dt * (s0 - s1) + r_end * tail * (1 - a)
+    coef_y = r_last * dt * s1 + r_end * tail * a
+    x[kl] = (e[kl] * dt - coef_y * y[kl]) / coef_x
+    return x

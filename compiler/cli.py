@@ -10,9 +10,11 @@ import sys
 import traceback
 from pathlib import Path
 
-from . import __version__, check_file
+from . import __version__, check_file, compile_checked, load
 from .check.summary import render_text, to_dict
 from .errors import SpincError, UsageError
+from .limits import check_synthesis_size, default_limit, human, parse_size
+from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
 
@@ -39,7 +41,41 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("file", help="sequence file (.dotseq)")
     c.add_argument("--device", help="device description (YAML) to use instead of the file's own")
     c.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+
+    k = sub.add_parser("compile", help="compile a sequence into the sample arrays each channel "
+                       "plays, written as a bundle folder",
+                       description="Check, schedule and synthesise every run of a sequence and write "
+                       "a bundle folder: one .npy per output (volts and DAC codes), a JSON manifest "
+                       "with the step timeline, frames and checksums (docs/bundle.md). The folder is "
+                       "written atomically.", epilog=CAUTION)
+    k.add_argument("file", help="sequence file (.dotseq)")
+    k.add_argument("-o", "--out", required=True, help="bundle folder to write (replaced if it holds "
+                   "an earlier bundle)")
+    _common(k)
+    k.add_argument("--csv", action="store_true", help="also write samples.csv per run")
+    k.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
+                   "output (shorter runs padded at the end, recorded in the manifest)")
+    k.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+
+    v = sub.add_parser("preview", help="draw what the generators will play (PNG, SVG or PDF)",
+                       description="Draw the step timeline, every output against time and the "
+                       "microwave spectrum with each dot's Larmor frequency marked.", epilog=CAUTION)
+    v.add_argument("file", help="sequence file (.dotseq)")
+    v.add_argument("-o", "--out", required=True, help="image file: .png, .svg or .pdf")
+    _common(v)
+    v.add_argument("--run", type=int, default=0, help="which run of a sweep to draw (default 0)")
+    v.add_argument("--from", dest="t_from", help="start of the time window, e.g. '1.5 us'")
+    v.add_argument("--to", dest="t_to", help="end of the time window, e.g. '3 us'")
+    v.add_argument("--step", type=int, help="zoom on one timeline entry (its index in the manifest)")
     return p
+
+
+def _common(p) -> None:
+    p.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    p.add_argument("--predistort", action="store_true", help="pre-distort gate outputs for their "
+                   "bias tee's droop")
+    p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
+                   "(default: half the memory available)")
 
 
 def cmd_check(args) -> int:
@@ -51,6 +87,98 @@ def cmd_check(args) -> int:
     return EXIT_OK
 
 
+def _synthesised(args, runs: list[int] | None = None):
+    checked = load(args.file, args.device)
+    limit = parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
+    chosen = range(len(checked.timelines)) if runs is None else runs
+    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
+    total = sum(checked.timelines[i].n_samples for i in chosen)
+    need = check_synthesis_size(total, n_outputs, limit)
+    return compile_checked(checked, predistort=args.predistort, runs=runs), need
+
+
+def _source(args, compiled) -> dict:
+    import hashlib
+    from pathlib import Path
+    dev = compiled.checked.device
+    files = {}
+    for label, path in (("sequence", args.file), ("device", dev.path)):
+        try:
+            files[label] = hashlib.sha256(Path(path).read_bytes()).hexdigest()
+        except OSError:
+            files[label] = ""
+    return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
+            "spinc_version": __version__, "sha256": files,
+            "predistort_bias_tee": bool(args.predistort)}
+
+
+def cmd_compile(args) -> int:
+    from .export import write_bundle
+    compiled, need = _synthesised(args)
+    path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
+                        csv=args.csv, stacked=args.stack)
+    wfs = compiled.waveforms
+    warnings = sorted({w for wf in wfs for w in wf.warnings})
+    if args.json:
+        print(json.dumps({"ok": True, "bundle": str(path), "runs": len(wfs),
+                          "samples": [wf.n_samples for wf in wfs],
+                          "sample_rate_Hz": wfs[0].sample_rate if wfs else None,
+                          "outputs": list(wfs[0].outputs) if wfs else [],
+                          "warnings": warnings}, indent=2))
+        return EXIT_OK
+    fs = wfs[0].sample_rate
+    durs = [wf.n_samples / fs for wf in wfs]
+    print(f"compiled  {args.file}: {len(wfs)} run{'s' * (len(wfs) != 1)}, "
+          f"{format_quantity(min(durs), TIME)}"
+          + (f" .. {format_quantity(max(durs), TIME)}" if max(durs) != min(durs) else "")
+          + f", {format_quantity(fs, FREQUENCY).replace('Hz', 'S/s')}")
+    print(f"outputs   {', '.join(wfs[0].outputs)}")
+    for name, out in wfs[0].outputs.items():
+        if out.kind != "marker":
+            lo = min(float(w.outputs[name].volts.min()) for w in wfs)
+            hi = max(float(w.outputs[name].volts.max()) for w in wfs)
+            print(f"  {name:<8} {lo * 1e3:9.3f} mV .. {hi * 1e3:9.3f} mV"
+                  + (f"  (+ {out.dc_level * 1e3:.4g} mV DC through the bias tee)" if out.dc_level else ""))
+    print(f"bundle    {path}  (manifest.json, checksums; about {human(need)} in memory)")
+    for w in warnings:
+        print(w)
+    print(CAUTION)
+    return EXIT_OK
+
+
+def _time_arg(text: str | None, flag: str) -> float | None:
+    if text is None:
+        return None
+    try:
+        return parse_quantity(text, TIME, flag)
+    except UnitError as e:
+        raise UsageError(str(e), hint=f"e.g. {flag} '1.5 us'") from None
+
+
+def cmd_preview(args) -> int:
+    from .preview import preview
+    checked = load(args.file, args.device)
+    n = len(checked.timelines)
+    if not 0 <= args.run < n:
+        raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
+                         f"(0..{n - 1})")
+    args_runs = [args.run]
+    limit = parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
+    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
+    check_synthesis_size(checked.timelines[args.run].n_samples, n_outputs, limit)
+    wf = compile_checked(checked, predistort=args.predistort, runs=args_runs).waveforms[0]
+    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
+    sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
+    title = f"{args.file} (run {args.run}{': ' + sweep if sweep else ''}) on {checked.device.name}"
+    out = preview(wf, args.out, start=_time_arg(args.t_from, "--from"),
+                  stop=_time_arg(args.t_to, "--to"), step=args.step, title=title, lo=lo)
+    print(f"preview   {out}")
+    for w in wf.warnings:
+        print(w)
+    print(CAUTION)
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
@@ -59,7 +187,7 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         if args.command is None:
             raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
-        return {"check": cmd_check}[args.command](args)
+        return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview}[args.command](args)
     except SpincError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))

@@ -59,7 +59,8 @@ def propagate(wf, device, *, stop: int | None = None, m: int = 8, ideal: bool = 
         x = (out.ideal if ideal else out.volts)[:stop]
         ch = device.channels[out.channel]
         tau = analog.rc_tau(ch.rise_time) if filtered else 0.0
-        y = analog.rc_oversampled(x, dt, tau, m, y0=x[0])
+        y0 = 0.0 if out.kind == "iq" else x[0]     # silent line, idle gate before the run
+        y = analog.rc_oversampled(x, dt, tau, m, y0=y0)
         if ch.bias_tee > 0 and not ideal:
             y = analog.bias_tee(y, h, ch.bias_tee)
         return y + out.dc_level

@@ -53,9 +53,9 @@ def make_waveforms(repeats: int = 1) -> Waveforms:
     marker[500:1500] = 1.0
     steps = []
     pattern = [
-        ("rot", ("A",), 0, 128, ("mw",), {"angle_rad": math.pi / 2, "phase_rad": 0.0}),
+        ("rot", ("A",), 0, 128, ("mw",), {"angle_rad": math.pi / 2, "axis_phase_rad": 0.0}),
         ("zrot", ("A",), 128, 128, (), {"angle_rad": math.pi / 2}),
-        ("rot", ("B",), 128, 384, ("mw",), {"angle_rad": math.pi, "phase_rad": math.pi / 2}),
+        ("rot", ("B",), 128, 384, ("mw",), {"angle_rad": math.pi, "axis_phase_rad": math.pi / 2}),
         ("wait", ("A",), 128, 384, (), {}),
         ("sqrtswap", ("A", "B"), 384, 484, ("B_AB",), {"level_V": 0.25, "j_Hz": 2.5e6}),
         ("align", ("A", "B"), 484, 500, (), {}),
@@ -190,6 +190,7 @@ def test_step_zoom(wf, tmp_path):
     pytest.param(dict(start=-1e-6, stop=1e-6), ["outside", "-1 us", "1.6 us"], id="before"),
     pytest.param(dict(start=0.0, stop=5e-6), ["outside", "5 us", "1.6 us"], id="after"),
     pytest.param(dict(start=2e-6), ["empty", "2 us", "1.6 us"], id="start-after-end"),
+    pytest.param(dict(start=-0.4e-9, stop=-0.1e-9), ["no part", "1.6 us"], id="in-the-slack"),
     pytest.param(dict(start=float("nan")), ["finite"], id="nan"),
     pytest.param(dict(start="1 us"), ["seconds"], id="text"),
     pytest.param(dict(start=0.0, step=2), ["not both"], id="both"),
@@ -294,8 +295,11 @@ def test_units():
 
 def test_step_labels():
     assert step_labels("rot", ("A",), {"angle_rad": math.pi / 2, "phase_rad": 0})[0] == "x 90°"
-    assert step_labels("rot", ("A",), {"angle_rad": math.pi, "phase_rad": math.pi / 2})[0] \
+    assert step_labels("rot", ("A",), {"angle_rad": math.pi, "axis_phase_rad": math.pi / 2})[0] \
         == "y 180°"
+    assert step_labels("rot", ("A",), {"angle_rad": math.pi, "phase_rad": math.pi / 2})[0] \
+        == "y 180°"                                 # older key, still read
+    assert step_labels("trigger", (), {"label": "scope"})[0] == "trigger scope"
     assert step_labels("rot", ("A",), {"angle_rad": -math.pi / 2, "phase_rad": math.pi})[0] \
         == "−x -90°"
     assert step_labels("sqrtswap", ("A", "B"), {})[:2] == ["√SWAP A–B", "√SWAP"]
@@ -341,7 +345,7 @@ def test_figure_contents(wf):
                      "and lab's limits before loading.", "x 90°", "y 180°", "z 90°",
                      "√SWAP A–B", "wait", "read", "pad", "time from the start of the run (ns)",
                      "mw\nI/Q (mV)", "B_AB\n(mV)", "M1", "RF frequency (GHz)", "A  13.996 GHz",
-                     "B  14.136 GHz", "LO 14.05 GHz", "50 mV DC", "test warning", "I", "Q"]:
+                     "B  14.136 GHz", "LO 14.05 GHz", "DC level 50 mV", "test warning", "I", "Q"]:
         assert expected in text, expected
     assert "decimated" not in text
 
@@ -411,3 +415,16 @@ def test_any_window_request(wf, start, stop, step):
     assert 0 <= w.i0 < w.i1 <= wf.n_samples
     assert 0 <= w.start < w.stop <= wf.duration
     assert w.i0 / FS <= w.start + 1e-15 and w.stop <= w.i1 / FS + 1e-15
+
+
+def test_occupied_span():
+    from compiler.preview.signal import occupied_span
+    f = np.linspace(-500e6, 500e6, 10_001)
+    level = np.full_like(f, -120.0)
+    level[(f > 40e6) & (f < 60e6)] = -20.0
+    lo, hi, zoomed = occupied_span(f, level, [], (-500e6, 500e6))
+    assert zoomed and lo < 40e6 and hi > 60e6 and hi - lo >= 50e6   # at least band/20
+    lo, hi, zoomed = occupied_span(f, level, [-100e6], (-500e6, 500e6))
+    assert lo < -100e6 and hi > 60e6                                   # Larmor mark kept
+    lo, hi, zoomed = occupied_span(f, level, [-450e6, 450e6], (-500e6, 500e6))
+    assert not zoomed and (lo, hi) == (-500e6, 500e6)

@@ -739,6 +739,17 @@ def _build(r: _Reader, root: Node) -> Device:
     raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
         if "channels" in top else {}
     channels = {nm: Channel(**ch) for nm, (ch, _) in raw_channels.items()}
+    # one sample grid for the whole device: the compiler places every step on it
+    if channels:
+        first = next(iter(channels.values()))
+        for nm, (ch, nodes) in raw_channels.items():
+            if ch["sample_rate"] and first.sample_rate and ch["sample_rate"] != first.sample_rate:
+                node = nodes["sample_rate"][1] if "sample_rate" in nodes else nodes.get("kind", (root,))[0]
+                r.error(node, f"channels.{nm}.sample_rate is {format_quantity(ch['sample_rate'], FREQUENCY)} "
+                              f"but channel '{first.name}' runs at "
+                              f"{format_quantity(first.sample_rate, FREQUENCY)}",
+                        "all channels of a device must share one sample rate (mixed rates are not "
+                        "supported)")
 
     raw_dots: dict[str, dict] = {}
     dot_names: set[str] = set()

@@ -28,6 +28,7 @@ from matplotlib.collections import PolyCollection
 from matplotlib.figure import Figure
 from matplotlib.colors import to_rgba
 from matplotlib.patches import Patch, Rectangle
+from matplotlib.ticker import MaxNLocator
 
 from ..synth.types import Output, StepRecord, Waveforms
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity
@@ -277,22 +278,23 @@ def _draw_steps(ax, wf: Waveforms, window: Window, lanes: list[str], tscale: flo
                                   alpha=0.75) if S.step_style(kind)[1] else None)
                 shown += 1
                 break
-    # zero-length steps (frame updates): a diamond on the lane, label above
+    # zero-length steps (frame updates, triggers): a diamond on the lane, label above
     if zero_marks:
-        xs = [m[0] for m in zero_marks]
-        ys = [m[1] for m in zero_marks]
-        face = S.step_style("zrot")[0]
-        ax.scatter(xs, ys, marker="D", s=30, c=face, edgecolors=S.STEP_EDGE, linewidths=0.6,
-                   zorder=5)
+        ax.scatter([m[0] for m in zero_marks], [m[1] for m in zero_marks], marker="D", s=30,
+                   c=[S.step_style(m[2].kind)[0] for m in zero_marks], edgecolors=S.STEP_EDGE,
+                   linewidths=0.6, zorder=5, clip_on=False)
         last_right: dict[float, float] = {}
+        axis_px = (hi_x - lo_x) * px_per_unit
         for x, y, rec in sorted(zero_marks, key=lambda m: m[0]):
             text = S.step_labels(rec.kind, rec.qubits, rec.params)[0]
             w = _text_px(text, FONT - 1.5)
-            left = x * px_per_unit - w / 2
+            px = (x - lo_x) * px_per_unit
+            # centred over the mark, but kept inside the strip at its ends
+            left = min(max(px - w / 2, 0.0), max(axis_px - w, 0.0))
             if left < last_right.get(y, -math.inf) + 6 or shown >= MAX_BOX_LABELS:
                 continue
-            ax.text(x, y + half + 0.04, text, ha="center", va="bottom", fontsize=FONT - 1.5,
-                    color=S.TEXT, zorder=5, clip_on=True)
+            ax.text(lo_x + (left + w / 2) / px_per_unit, y + half + 0.04, text, ha="center",
+                    va="bottom", fontsize=FONT - 1.5, color=S.TEXT, zorder=5, clip_on=True)
             last_right[y] = left + w
             shown += 1
     if window.step is not None:
@@ -437,8 +439,12 @@ def _draw_spectrum(ax, wf: Waveforms, panel: _Panel, window: Window, lo: float |
             continue
         colour = S.LARMOR_COLOURS[k % len(S.LARMOR_COLOURS)]
         ax.axvline(fl * fscale, color=colour, lw=1.0, ls=(0, (4, 3)), zorder=3)
-        ax.text(fl * fscale, 0.97 - 0.1 * (k % 3), f" {name}  {format_quantity(fl, FREQUENCY, 6)}",
-                transform=ax.get_xaxis_transform(), ha="left", va="top", fontsize=FONT - 1,
+        near_right = (fl - f_lo) > 0.75 * (f_hi - f_lo)
+        ax.text(fl * fscale, 0.97 - 0.1 * (k % 3),
+                f"{name}  {format_quantity(fl, FREQUENCY, 6)} " if near_right
+                else f" {name}  {format_quantity(fl, FREQUENCY, 6)}",
+                transform=ax.get_xaxis_transform(), ha="right" if near_right else "left",
+                va="top", fontsize=FONT - 1,
                 color=colour, zorder=4,
                 bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none", alpha=0.8))
         k += 1
@@ -557,6 +563,11 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
                                      "bias tee, not drawn", right=False)
             lo_v, hi_v = _voltage_limits(vmin, vmax, symmetric=panel.kind == "iq")
             ax.set_ylim(lo_v * vscale, hi_v * vscale)
+            if vmin == vmax:
+                ax.set_yticks([vmin * vscale])     # a flat output: one tick at its value
+            else:
+                ax.yaxis.set_major_locator(MaxNLocator(nbins=4 if h < 1.2 else 6,
+                                                       steps=[1, 2, 2.5, 5, 10]))
         decimated_any |= dec
         ax.tick_params(axis="x", labelbottom=False)
     last = axes[-1] if axes else strip

@@ -194,7 +194,11 @@ def resolve_window(wf: Waveforms, start: float | None = None, stop: float | None
         raise PreviewError(f"the window {_t(t0)} .. {_t(t1)} reaches outside the run, "
                            f"which covers 0 s .. {_t(duration)}",
                            hint=f"choose start and stop within 0 s .. {_t(duration)}; {valid}")
-    t0, t1 = max(t0, 0.0), min(t1, duration)
+    t0, t1 = min(max(t0, 0.0), duration), max(min(t1, duration), 0.0)
+    if t1 <= t0:   # inside the slack but nothing of the run left
+        raise PreviewError(f"the window {_t(t0)} .. {_t(t1)} holds no part of the run, "
+                           f"which covers 0 s .. {_t(duration)}",
+                           hint=f"choose start < stop within 0 s .. {_t(duration)}; {valid}")
     i0 = min(max(int(math.floor(t0 * fs + 1e-9)), 0), n - 1)
     i1 = max(min(int(math.ceil(t1 * fs - 1e-9)), n), i0 + 1)
     return Window(t0, t1, i0, i1)

@@ -22,8 +22,10 @@ def as_played(wf: Waveforms, device: Device, name: str, oversample: int = 1) -> 
     dt = 1.0 / wf.sample_rate
     if out.kind == "marker":
         return np.repeat(out.volts, oversample)
-    y = analog.rc_mean_per_sub(out.volts, dt, analog.rc_tau(ch.rise_time), oversample,
-                               y0=out.volts[0] if len(out.volts) else 0.0)
+    # before the run a microwave output is silent and a gate output sits at its
+    # first (idle) value
+    y0 = 0.0 if out.kind == "iq" or not len(out.volts) else out.volts[0]
+    y = analog.rc_mean_per_sub(out.volts, dt, analog.rc_tau(ch.rise_time), oversample, y0=y0)
     if ch.bias_tee > 0:
         y = analog.bias_tee(y, dt / oversample, ch.bias_tee)
     return y + out.dc_level

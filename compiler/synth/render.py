@@ -44,14 +44,11 @@ from .types import Output, StepRecord, Waveforms
 
 
 @lru_cache(maxsize=4096)
-def _rotor(if_freq: float, n: int, dt: float) -> np.ndarray:
-    """e^{i2π·IF·(k + 1/2)·dt} for k < n (cached; shifted per burst)."""
-    return np.exp(2j * math.pi * if_freq * (np.arange(n) + 0.5) * dt)
-
-
-@lru_cache(maxsize=4096)
-def _env(envelope: tuple) -> np.ndarray:
-    return np.asarray(envelope, dtype=float)
+def _burst_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.ndarray:
+    """Normalised held samples of a burst (see analog.tone_burst), cached."""
+    x = analog.tone_burst(np.asarray(envelope, dtype=float), if_freq, dt, tau)
+    x.setflags(write=False)
+    return x
 
 
 def _lcm(a: int, b: int) -> int:
@@ -113,10 +110,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             line = chans[dot.drive.line]
             f_if = device.larmor(q) - line.lo
             phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-            h = analog.tone_response(f_if, dt, analog.rc_tau(line.rise_time))
-            amp = s.burst.amplitude * complex(math.cos(phi), math.sin(phi)) / h
-            shift = np.exp(2j * math.pi * f_if * a * dt)
-            iq[line.name][a:b] += (amp * shift) * _env(s.burst.envelope) * _rotor(f_if, s.n, dt)
+            shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+            amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
+                                              math.sin(phi + 2 * math.pi * f_if * a * dt))
+            iq[line.name][a:b] += amp * shape
             owner[a:b] = i
             params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
                       "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,

@@ -1,0 +1,278 @@
+"""Waveform synthesis: what the generators play, checked against physics.
+
+Propagation uses tests/reference.py (dense matrix exponentials on a fine grid,
+written independently of the compiler's pulse design)."""
+
+import math
+
+import numpy as np
+import pytest
+
+from compiler import analog, compile_file, load
+from compiler.check import check
+from compiler.device import load_device, load_device_text
+from compiler.errors import SynthesisError
+from compiler.expand import expand
+from compiler.parse import parse_text
+from compiler.pulses import SQRT_SWAP
+from compiler.schedule import schedule
+from compiler.synth import as_played, synthesize
+from conftest import SEQUENCES
+from reference import I2, gate_fidelity, propagate, rotation, rz
+
+CNOT = np.eye(4, dtype=complex)[[0, 1, 3, 2]]   # control A, target B; |0> = spin up
+
+
+def device_text(*, g_b="2.0", lo_a="LO_A", lo_b="LO_B", rise="0 ns", bits=16, b_line="mwB",
+                shape="square", mode="amplitude", amp="200 mV", dur="100 ns", field="500 mT",
+                g_a="2.0", extra_mw=""):
+    """Two dots; by default each on its own microwave line with LO = its Larmor
+    frequency (IF = 0) and ideal channels, so that hold and filter effects vanish."""
+    from compiler.physics import larmor_frequency
+    B = float(field.split()[0]) * 1e-3
+    fa = larmor_frequency(float(g_a), B)
+    fb = larmor_frequency(float(g_b), B)
+    lo_a = f"{fa:.0f} Hz" if lo_a == "LO_A" else lo_a
+    lo_b = f"{fb:.0f} Hz" if lo_b == "LO_B" else lo_b
+    return f"""
+name: synthetic pair
+field: {field}
+temperature: 50 mK
+rotation: {{mode: {mode}, shape: {shape}, amplitude: {amp}, duration: {dur}, sigmas: 4, edge: 10 ns}}
+readout: {{marker: M1, duration: 100 ns, trigger_marker: M2}}
+dots:
+  A: {{g: {g_a}, t1: 1 ms, t2: 100 us, t2_star: 10 us, drive: {{line: mwA, rabi_per_volt: 10 MHz/V}}, plunger: P_A}}
+  B: {{g: {g_b}, t1: 1 ms, t2: 100 us, t2_star: 10 us, drive: {{line: {b_line}, rabi_per_volt: 10 MHz/V}}, plunger: P_B}}
+couplings:
+  - {{dots: [A, B], barrier: B_AB, exchange: {{model: exponential, j0: 20 kHz, v0: 40 mV}}, idle_voltage: -400 mV, pulse_voltage: 300 mV}}
+channels:
+  mwA: {{kind: iq, sample_rate: 1 GS/s, bits: {bits}, range: [-500 mV, 500 mV], rise_time: {rise}, lo: {lo_a}, if_band: [-300 MHz, 300 MHz]{extra_mw}}}
+  mwB: {{kind: iq, sample_rate: 1 GS/s, bits: {bits}, range: [-500 mV, 500 mV], rise_time: {rise}, lo: {lo_b}, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: {bits}, range: [-1 V, 1 V], rise_time: {rise}}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: {bits}, range: [-1 V, 1 V], rise_time: {rise}}}
+  B_AB: {{kind: gate, sample_rate: 1 GS/s, bits: {bits}, range: [-1 V, 1 V], rise_time: {rise}, min_length: 256, granularity: 64}}
+  M1: {{kind: marker, sample_rate: 1 GS/s}}
+  M2: {{kind: marker, sample_rate: 1 GS/s}}
+"""
+
+
+def build(src: str, dev):
+    ex = expand(parse_text(src, "t.dotseq"))
+    check(ex, dev)
+    tl = schedule(ex.runs[0], dev)
+    return tl, synthesize(tl, dev)
+
+
+def frame_unitary(wf, dev, **kw):
+    """Played unitary seen in the qubit frames: Rz(F_final)·U_rotating."""
+    stop = kw.pop("stop", None)
+    U = propagate(wf, dev, stop=stop if stop is not None else wf.n_samples, **kw)
+    return rz([wf.frames[q] for q in dev.dots]) @ U
+
+
+# ------------------------------------------------------------- bursts
+
+@pytest.mark.parametrize("g_a", ["2.0", "-0.44"], ids=["g-positive", "g-negative"])
+@pytest.mark.parametrize("shape", ["square", "gauss", "flattop"])
+@pytest.mark.parametrize("axis, phase", [("x", 0.0), ("y", math.pi / 2), ("phase(30 deg)", math.pi / 6)])
+def test_burst_gives_the_angle_through_the_rotating_frame(g_a, shape, axis, phase):
+    # A burst compiled for θ about φ, played through hold + RC at an IF of
+    # 83 MHz and propagated in the exact two-level rotating-frame Hamiltonian,
+    # is the rotation exp(-iθ(cosφ σx + sinφ σy)/2) in the qubit's frame
+    # (Rabi, Phys. Rev. 51, 652 (1937); Abragam, Principles of Nuclear Magnetism
+    # (1961)); for negative g the rotation sense must not flip.
+    from compiler.physics import larmor_frequency
+    fa = larmor_frequency(float(g_a), 0.5)
+    dev = load_device_text(device_text(g_a=g_a, g_b="2.0" if g_a == "-0.44" else "1.0",
+                                       lo_a=f"{fa - 83e6:.0f} Hz", rise="1 ns", bits=16,
+                                       shape=shape), "d.yaml")
+    for theta in (90, 180, 33):
+        tl, wf = build(f"rot A {axis} {theta} deg\n", dev)
+        U = frame_unitary(wf, dev, m=16, ideal=True)
+        T = np.kron(rotation(phase, math.radians(theta)), I2)
+        assert 1 - gate_fidelity(U, T) < 2e-6, (theta, 1 - gate_fidelity(U, T))
+
+
+def test_off_resonant_spectator_follows_the_detuned_rabi_formula():
+    # A square burst on A also drives B on the same line, detuned by Δ:
+    # P_flip = Ω²/(Ω²+Δ²)·sin²(√(Ω²+Δ²)·t/2) (Rabi 1937)
+    from compiler.physics import larmor_frequency
+    fa = larmor_frequency(2.0, 0.5)
+    g_b = 2.0 + 4e6 / (larmor_frequency(1.0, 0.5))       # B sits 4 MHz above A
+    dev = load_device_text(device_text(g_b=f"{g_b:.12f}", lo_a=f"{fa:.0f} Hz", b_line="mwA",
+                                       shape="square"), "d.yaml")
+    tl, wf = build("rot A x 180 deg duration=400 ns\n", dev)
+    slot = tl.slots[0]
+    U = propagate(wf, dev, stop=slot.end_sample, m=16, ideal=True)
+    omega = 10e6 * slot.level                              # Rabi frequency, Hz
+    delta = dev.larmor("B") - dev.larmor("A")
+    t = slot.duration
+    gen = math.hypot(omega, delta)
+    expected = omega ** 2 / gen ** 2 * math.sin(math.pi * gen * t) ** 2
+    # B flips from |↑↑> to |↑↓>... here from A up, B up: population of |B down>
+    psi = U @ np.array([1, 0, 0, 0], dtype=complex)
+    p_b_down = abs(psi[1]) ** 2 + abs(psi[3]) ** 2
+    assert p_b_down == pytest.approx(expected, abs=2e-4)
+    assert expected > 0.05                                 # the check is not trivial
+
+
+def test_single_sideband_tone_lands_on_the_dot():
+    # Up-convert I/Q numerically, V = I·cos(2π LO t) − Q·sin(2π LO t), and find
+    # the tone at the dot's Larmor frequency LO + IF (common practice, no source)
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    for q in ("A", "B"):
+        tl, wf = build(f"rot {q} x 180 deg duration=2 us\n", dev)
+        i = wf.outputs["mw.I"].volts[:2000]
+        qq = wf.outputs["mw.Q"].volts[:2000]
+        lo = dev.channels["mw"].lo
+        fs_rf = 64e9
+        t = np.arange(int(2e-6 * fs_rf)) / fs_rf
+        k = np.minimum((t * 1e9).astype(int), 1999)
+        v = i[k] * np.cos(2 * np.pi * lo * t) - qq[k] * np.sin(2 * np.pi * lo * t)
+        spec = np.abs(np.fft.rfft(v * np.hanning(len(v))))
+        f = np.fft.rfftfreq(len(v), 1 / fs_rf)
+        band = (f > lo - 300e6) & (f < lo + 300e6)
+        peak = f[band][np.argmax(spec[band])]
+        assert abs(peak - dev.larmor(q)) < 1e6, (q, peak, dev.larmor(q))
+
+
+# ------------------------------------------------------------- exchange and CNOT
+
+def test_loss_divincenzo_cnot_ideally_propagated_is_exact():
+    # CNOT from two √SWAPs and single-qubit rotations (Loss & DiVincenzo, PRA 57,
+    # 120 (1998)) compiled for an ideal device (equal g, IF = 0, no rise time):
+    # the compiled samples, propagated, give CNOT up to a global phase to 1e-9
+    dev = load_device_text(device_text(), "ideal.yaml")
+    src = (SEQUENCES / "lib" / "gates.dotseq").read_text() + (
+        "do hadamard(B)\nsqrtswap A B\nrot A z -180 deg\nsqrtswap A B\n"
+        "rot A z 90 deg\nrot B z -90 deg\ndo hadamard(B)\n")
+    tl, wf = build(src, dev)
+    assert any(s.kind == "zcorrect" for s in tl.slots)       # equal g: a physical z is needed
+    U = frame_unitary(wf, dev, m=1, ideal=True)
+    assert 1 - gate_fidelity(U, CNOT) < 1e-9
+
+
+def test_demo_cnot_as_played_is_close_to_cnot():
+    # The example sequence on the demo device, played through the full analog
+    # model (codes, rise times, bias tee) with its 6.7 MHz Zeeman difference
+    c = load(SEQUENCES / "cnot_pair.dotseq")
+    wf = synthesize(c.timelines[0], c.device)
+    stop = next(r.start for r in wf.steps if r.kind == "read")
+    U = frame_unitary(wf, c.device, stop=stop, m=4)
+    assert gate_fidelity(U, CNOT) > 0.999
+
+
+def test_sqrtswap_with_zeeman_difference_matches_its_frame_model():
+    # the compiler's own estimate of the compensated gate (pulses.pair_gate) agrees
+    # with direct propagation in the rotating frames
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    tl, wf = build("rot A z 40 deg\nwait 37 ns\nsqrtswap A B\n", dev)
+    ex = next(s for s in tl.slots if s.kind == "sqrtswap")
+    U = frame_unitary(wf, dev, m=8, ideal=True)
+    T = SQRT_SWAP @ np.kron(np.diag([np.exp(-0.5j * math.radians(40)), np.exp(0.5j * math.radians(40))]), I2)
+    f = gate_fidelity(U, T)
+    assert f == pytest.approx(ex.info["frame_fidelity"], abs=2e-5)
+    assert f > 0.9999
+
+
+# ------------------------------------------------------------- samples
+
+def test_grid_padding_and_lengths():
+    dev = load_device_text(device_text(), "d.yaml")
+    tl, wf = build("rot A x 90 deg\nwait 3 ns\n", dev)
+    assert wf.n_samples >= 256 and wf.n_samples % 64 == 0       # B_AB: min 256, granularity 64
+    pad = wf.steps[-1]
+    assert pad.kind == "pad" and pad.start == tl.n_samples and pad.stop == wf.n_samples
+    for out in wf.outputs.values():
+        assert out.volts.shape == (wf.n_samples,)
+    for r in wf.steps:
+        assert 0 <= r.start <= r.stop <= wf.n_samples
+        assert isinstance(r.start, int) and isinstance(r.stop, int)
+
+
+def test_quantisation_error_is_at_most_half_an_lsb():
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    tl, wf = build("rot A x 77 deg\nsqrtswap A B\n", dev)
+    for out in wf.outputs.values():
+        if out.kind == "marker":
+            continue
+        assert np.max(np.abs(out.volts - out.ideal)) <= out.lsb / 2 * (1 + 1e-9)
+        ch = dev.channels[out.channel]
+        assert np.array_equal(out.volts, ch.v_min + out.codes * out.lsb)
+
+
+def test_multitone_beyond_range_is_an_error_naming_step_and_time():
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    with pytest.raises(SynthesisError) as info:
+        build("wait 10 ns\ntogether { rot A x 180 deg duration=300 ns ; rot B x 180 deg duration=300 ns }\n", dev)
+    p = info.value.first
+    assert "output 'mw." in p.message and "at t = " in p.message and "nothing is clipped" in p.hint
+    assert p.span.line == 2
+
+
+def test_synthesis_is_deterministic():
+    a = compile_file(SEQUENCES / "ribbon_long_range.dotseq")
+    b = compile_file(SEQUENCES / "ribbon_long_range.dotseq")
+    for wa, wb in zip(a.waveforms, b.waveforms):
+        for name in wa.outputs:
+            assert np.array_equal(wa.outputs[name].codes if wa.outputs[name].codes is not None
+                                  else wa.outputs[name].volts,
+                                  wb.outputs[name].codes if wb.outputs[name].codes is not None
+                                  else wb.outputs[name].volts)
+
+
+def test_markers():
+    dev = load_device_text(device_text(), "d.yaml")
+    tl, wf = build("trigger\nrot A x 90 deg\nread A\n", dev)
+    m1, m2 = wf.outputs["M1"].volts, wf.outputs["M2"].volts
+    read = next(r for r in wf.steps if r.kind == "read")
+    assert m1[read.start:read.stop].all() and m1.sum() == read.stop - read.start
+    assert m2[:20].all() and m2.sum() == 20                  # 20 ns trigger at t = 0
+
+
+def test_frame_updates_inside_repeat_shift_later_bursts():
+    dev = load_device_text(device_text(), "d.yaml")
+    tl, wf = build("repeat 3 { rot A z 30 deg }\nrot A x 90 deg\n", dev)
+    burst = next(s for s in tl.slots if s.kind == "rot")
+    assert burst.play_phase == pytest.approx(-math.pi / 2)
+    U = frame_unitary(wf, dev, m=1, ideal=True)
+    rz90 = np.diag([np.exp(-0.25j * math.pi), np.exp(0.25j * math.pi)])   # Rz(α) = exp(−iασz/2)
+    T = np.kron(rotation(0, math.pi / 2) @ rz90, I2)
+    assert 1 - gate_fidelity(U, T) < 1e-12
+
+
+def test_long_echo_train_keeps_its_phase():
+    # zero-order-hold timing: an off-by-one sample would show as a growing phase
+    # error on a long train; here 20 echoes on a line at 61 MHz IF must stay exact
+    # (the reference propagator's own error at m = 16 sub-steps is ~5e-7 here)
+    from compiler.physics import larmor_frequency
+    fa = larmor_frequency(2.0, 0.5)
+    dev = load_device_text(device_text(lo_a=f"{fa - 61e6:.0f} Hz", rise="0 ns", bits=16,
+                                       mode="duration", dur="120 ns", amp="300 mV"), "d.yaml")
+    src = "rot A x 90 deg\nrepeat 20 { wait 37 ns on A ; rot A y 180 deg ; wait 37 ns on A }\nrot A x 90 deg\n"
+    tl, wf = build(src, dev)
+    U = frame_unitary(wf, dev, m=16, ideal=True)
+    T = np.kron(rotation(0, math.pi / 2) @ np.linalg.matrix_power(rotation(math.pi / 2, math.pi), 20)
+                @ rotation(0, math.pi / 2), I2)
+    assert 1 - gate_fidelity(U, T) < 2e-6
+
+
+def test_bias_tee_droop_and_predistortion():
+    # A long flat pulse behind a bias tee droops by about t/τ (first-order
+    # high-pass; common practice); pre-distortion V + (1/τ)∫V dt removes it
+    text = device_text().replace("B_AB: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: 0 ns",
+                                 "B_AB: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: 0 ns, bias_tee: 20 us")
+    dev = load_device_text(text, "d.yaml")
+    src = "sqrtswap A B duration=2 us\n"
+    ex = expand(parse_text(src, "t.dotseq"))
+    check(ex, dev)
+    tl = schedule(ex.runs[0], dev)
+    slot = next(s for s in tl.slots if s.exchange is not None)
+    a, b = slot.start_sample + slot.exchange.pre, slot.start_sample + slot.exchange.pre + slot.exchange.n
+    plain = as_played(synthesize(tl, dev), dev, "B_AB")[a:b]
+    pre = as_played(synthesize(tl, dev, predistort=True), dev, "B_AB")[a:b]
+    droop_plain = plain[0] - plain[-1]
+    droop_pre = abs(pre[0] - pre[-1])
+    height = plain[0] - slot.exchange.idle
+    assert droop_plain / height == pytest.approx(2e-6 / 20e-6, rel=0.1)
+    assert droop_pre < droop_plain / 100
