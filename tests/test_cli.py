@@ -95,3 +95,56 @@ def test_version(capsys):
         main(["--version"])
     assert info.value.code == 0
     assert "spinc" in capsys.readouterr().out
+
+
+# ---------------------------------------------------------------- compile and preview
+
+def test_compile_writes_a_verified_bundle(tmp_path):
+    from compiler.export import read_bundle
+    out = tmp_path / "bundle"
+    code, stdout, err = spinc("compile", "sequences/cnot_pair.dotseq", "-o", out)
+    assert code == 0, err
+    assert "Caution" in stdout and "mw.I" in stdout
+    b = read_bundle(out)                      # verifies every checksum
+    m = b["manifest"]
+    assert m["sample_rate_Hz"] == 1e9 and m["n_runs"] == 1
+    kinds = [s["kind"] for s in m["runs"][0]["steps"]]
+    assert "sqrtswap" in kinds and "read" in kinds
+
+
+def test_compile_twice_is_byte_identical(tmp_path):
+    for d in ("a", "b"):
+        code, _, err = spinc("compile", "sequences/ramsey_pair.dotseq", "-o", tmp_path / d, "--stack")
+        assert code == 0, err
+    files_a = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
+    files_b = sorted(p.relative_to(tmp_path / "b") for p in (tmp_path / "b").rglob("*") if p.is_file())
+    assert files_a == files_b
+    for f in files_a:
+        assert (tmp_path / "a" / f).read_bytes() == (tmp_path / "b" / f).read_bytes(), f
+
+
+def test_preview_draws_a_png(tmp_path):
+    out = tmp_path / "p.png"
+    code, stdout, err = spinc("preview", "sequences/ramsey_pair.dotseq", "-o", out, "--run", "3",
+                              "--from", "100 ns", "--to", "1.2 us")
+    assert code == 0, err
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.parametrize("args, fragment", [
+    pytest.param(["preview", "sequences/cnot_pair.dotseq", "-o", "x.png", "--run", "5"], "--run 5 does not exist", id="bad-run"),
+    pytest.param(["preview", "sequences/cnot_pair.dotseq", "-o", "x.png", "--from", "12"], "needs a unit", id="unitless-time"),
+    pytest.param(["preview", "sequences/cnot_pair.dotseq", "-o", "x.gif"], ".gif", id="bad-suffix"),
+    pytest.param(["compile", "sequences/cnot_pair.dotseq", "-o", "o", "--memory-limit", "1kB"], "--memory-limit", id="memory-guard"),
+    pytest.param(["compile", "sequences/cnot_pair.dotseq", "-o", "o", "--memory-limit", "lots"], "is not a size", id="bad-size"),
+    pytest.param(["compile", "sequences/cnot_pair.dotseq"], "required: -o", id="missing-out"),
+])
+def test_compile_and_preview_usage_errors(args, fragment, capsys, tmp_path, monkeypatch):
+    monkeypatch.chdir(ROOT)
+    args = [str(tmp_path / a) if a in ("x.png", "x.gif", "o") else a for a in args]
+    code = main(args)
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert fragment in err
+    assert "Traceback" not in err
+    assert not (tmp_path / "o").exists()

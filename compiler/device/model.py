@@ -10,6 +10,7 @@ converted with E/h.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 from ..errors import Problem, Span
 
@@ -153,5 +154,10 @@ class Device:
         return next(iter(self.channels.values())).sample_rate
 
     def larmor(self, dot: str) -> float:
+        """Larmor frequency of a dot (Hz)."""
+        return self.larmor_table[dot]
+
+    @cached_property
+    def larmor_table(self) -> dict[str, float]:
         from ..physics import larmor_frequency
-        return larmor_frequency(self.dots[dot].g, self.field)
+        return {name: larmor_frequency(d.g, self.field) for name, d in self.dots.items()}

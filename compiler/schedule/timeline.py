@@ -148,6 +148,10 @@ class _Scheduler:
         self.problems: dict[tuple, Problem] = {}
         self.warnings: dict[tuple, Warning_] = {}
         self.marker_free: dict[str, int] = {}
+        # repeated bodies reuse the same step objects: cache per object identity
+        self._res_cache: dict[int, tuple[str, ...]] = {}
+        self._burst_cache: dict[int, BurstDesign | None] = {}
+        self._spectator_cache: dict[tuple[int, str], float] = {}
 
     # ------------------------------------------------------------ reporting
     def fail(self, msg: str, step, hint: str = "") -> None:
@@ -166,7 +170,20 @@ class _Scheduler:
         for r in resources:
             self.free[r] = max(self.free.get(r, 0), end)
 
+    def resources(self, step) -> tuple[str, ...]:
+        r = self._res_cache.get(id(step))
+        if r is None:
+            r = self._res_cache[id(step)] = _resources(step, self.device)
+        return r
+
     def burst_for(self, step: P.Rotation) -> BurstDesign | None:
+        key = id(step)
+        if key in self._burst_cache:
+            return self._burst_cache[key]
+        b = self._burst_cache[key] = self._burst_for(step)
+        return b
+
+    def _burst_for(self, step: P.Rotation) -> BurstDesign | None:
         dot = self.device.dots[step.qubit]
         try:
             b = design_burst(step.angle, step.phase, dot.drive.rabi_per_volt, self.dt,
@@ -198,7 +215,7 @@ class _Scheduler:
 
     # ------------------------------------------------------------ placement
     def place_simple(self, step, start: int, n: int, group: int, **kw) -> Slot:
-        res = _resources(step, self.device)
+        res = self.resources(step)
         slot = Slot(step, step.kind, P.step_qubits(step), start, n, res, self.dt,
                     span=step.span, via=step.via, group=group, **kw)
         self.slots.append(slot)
@@ -292,8 +309,12 @@ class _Scheduler:
         for o, dot in dots.items():
             if o == q or o in group_dots or dot.drive.line != line:
                 continue
-            alpha = spectator_phase(burst, dot.drive.rabi_per_volt, f_q - self.device.larmor(o),
-                                    self.dt, precession_sign(dot.g))
+            key = (id(burst), o, q)
+            alpha = self._spectator_cache.get(key)
+            if alpha is None:
+                alpha = self._spectator_cache[key] = spectator_phase(
+                    burst, dot.drive.rabi_per_volt, f_q - self.device.larmor(o), self.dt,
+                    precession_sign(dot.g))
             if alpha:
                 self.frames[o] -= alpha
                 shifts[o] = -alpha
@@ -301,7 +322,7 @@ class _Scheduler:
             self.slots[-1].info["spectator_frame_updates"] = shifts
 
     def place(self, step, group: int, t_group: int | None = None) -> None:
-        res = _resources(step, self.device)
+        res = self.resources(step)
         t0 = self.earliest(res) if t_group is None else t_group
         if isinstance(step, P.Rotation):
             b = self.burst_for(step)
@@ -333,7 +354,7 @@ class _Scheduler:
             del slot
 
     def place_group(self, group: P.Parallel, gi: int) -> None:
-        res = {r for m in group.steps for r in _resources(m, self.device)}
+        res = {r for m in group.steps for r in self.resources(m)}
         t0 = self.earliest(res)
         # exchanges in a group are phase-corrected with bursts before the group starts
         for m in group.steps:
@@ -361,7 +382,8 @@ class _Scheduler:
         if self.problems:
             raise ScheduleError(list(self.problems.values()))
         n = max([s.end_sample for s in self.slots] + list(self.free.values()) + [0])
-        slots = tuple(sorted(self.slots, key=lambda s: (s.start_sample, self.slots.index(s))))
+        order = sorted(range(len(self.slots)), key=lambda i: (self.slots[i].start_sample, i))
+        slots = tuple(self.slots[i] for i in order)
         return Timeline(self.run, slots, n, self.dt, dict(self.frames),
                         tuple(self.warnings.values()))
 

@@ -71,6 +71,16 @@ def _slot_channels(slot: Slot, device: Device) -> tuple[str, ...]:
     return tuple(chans)
 
 
+def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
+    """The step that writes sample ``k`` of ``channel`` (for error messages)."""
+    best = None
+    for s in tl.slots:
+        if s.start_sample <= k < s.end_sample and (
+                channel in _slot_channels(s, device) or best is None):
+            best = s
+    return best
+
+
 def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Waveforms:
     """Sample arrays of one scheduled run (see the module notes)."""
     dt = tl.dt
@@ -85,8 +95,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
     n = max(tl.n_samples, n_min)
     n = int(math.ceil(n / gran) * gran)
 
-    iq: dict[str, np.ndarray] = {name: np.zeros(n, dtype=complex)
-                                 for name, c in chans.items() if c.kind == "iq"}
+    # I and Q accumulate separately (real arrays: half the memory traffic of a
+    # complex array for long runs); bursts are formed in slot-sized temporaries
+    iq_i: dict[str, np.ndarray] = {name: np.zeros(n) for name, c in chans.items() if c.kind == "iq"}
+    iq_q: dict[str, np.ndarray] = {name: np.zeros(n) for name, c in chans.items() if c.kind == "iq"}
     gate: dict[str, np.ndarray] = {}
     dc: dict[str, float] = {}
     idle_of: dict[str, float] = {}
@@ -98,11 +110,18 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             dc[name] = idle_of.get(name, 0.0) if c.bias_tee > 0 else 0.0
     markers = {name: np.zeros(n) for name, c in chans.items() if c.kind == "marker"}
 
-    owner = np.full(n, -1, dtype=np.int64)   # which slot wrote each sample last (for errors)
     records: list[StepRecord] = []
+    texts: dict = {}          # repeated steps share their source text and channel list
+    chan_of: dict = {}
     for i, s in enumerate(tl.slots):
         a, b = s.start_sample, s.end_sample
-        src, text = _slot_text(s)
+        st = texts.get(s.span)
+        if st is None:
+            st = texts[s.span] = _slot_text(s)
+        src, text = st
+        ch_list = chan_of.get(s.resources)
+        if ch_list is None:
+            ch_list = chan_of[s.resources] = _slot_channels(s, device)
         params: dict = {}
         if s.burst is not None and s.n > 0:
             q = s.qubits[0]
@@ -113,8 +132,9 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
             amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                               math.sin(phi + 2 * math.pi * f_if * a * dt))
-            iq[line.name][a:b] += amp * shape
-            owner[a:b] = i
+            z = amp * shape
+            iq_i[line.name][a:b] += z.real
+            iq_q[line.name][a:b] += z.imag
             params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
                       "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
                       "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
@@ -126,7 +146,6 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             gate[c.barrier][a:b] = d.samples()
             for dd, offset in c.detune:
                 gate[device.dots[dd].plunger][a:b] += offset
-            owner[a:b] = i
             params = {"level_V": d.level, "idle_V": d.idle, "j_peak_Hz": d.j_peak,
                       "exchange_integral": d.integral, "target_integral": d.target,
                       "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
@@ -143,8 +162,7 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             params = {"angle_rad": s.step.angle, "frame_rad": s.info.get("frame", 0.0)}
         if s.info.get("reason"):
             params["reason"] = s.info["reason"]
-        records.append(StepRecord(len(records), s.kind, s.qubits, a, b, _slot_channels(s, device),
-                                  src, text, params))
+        records.append(StepRecord(len(records), s.kind, s.qubits, a, b, ch_list, src, text, params))
     if n > tl.n_samples:
         records.append(StepRecord(len(records), "pad", (), tl.n_samples, n, tuple(chans), "", "",
                                   {"reason": f"generator minimum length {n_min} and granularity "
@@ -156,10 +174,13 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
     def add_analog(name: str, ch, ideal: np.ndarray, dc_level: float) -> None:
         top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
         q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
-        bad = np.flatnonzero((ideal < ch.v_min - q / 2) | (ideal > top + q / 2) | ~np.isfinite(ideal))
+        lo_v, hi_v = (float(ideal.min()), float(ideal.max())) if ideal.size else (0.0, 0.0)
+        ok = ch.v_min - q / 2 <= lo_v and hi_v <= top + q / 2     # NaN fails both
+        bad = np.empty(0, dtype=np.int64) if ok else np.flatnonzero(
+            (ideal < ch.v_min - q / 2) | (ideal > top + q / 2) | ~np.isfinite(ideal))
         if bad.size:
             k = int(bad[0])
-            slot = tl.slots[owner[k]] if owner[k] >= 0 else None
+            slot = _writer(tl, k, ch.name, device)
             where = (f"during the {slot.kind} step at {slot.span}" if slot is not None and slot.span
                      else "outside any step")
             v = ideal[k]
@@ -171,20 +192,30 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
                 read_source_line(slot.span.file, slot.span.line) if slot is not None and slot.span
                 else "", slot.via if slot is not None else ()))
             return
-        codes, volts = analog.quantise(np.clip(ideal, ch.v_min, top), ch.v_min, ch.v_max, ch.bits)
+        if lo_v == hi_v:          # a constant output (an idle gate): one code, stored once
+            c1, v1 = analog.quantise(np.array([lo_v]), ch.v_min, ch.v_max, ch.bits)
+            codes = np.broadcast_to(c1[:1], (len(ideal),))      # read-only views
+            volts = np.broadcast_to(v1[:1], (len(ideal),))
+            ideal = np.broadcast_to(np.array([lo_v]), (len(ideal),))
+        else:
+            codes, volts = analog.quantise_chunked(ideal, ch.v_min, ch.v_max, ch.bits)
         outputs[name] = Output(name, ch.name, ch.kind, volts, codes, ideal, dc_level, q)
 
     for name, ch in chans.items():
         if ch.kind == "iq":
-            add_analog(f"{name}.I", ch, iq[name].real.copy(), 0.0)
-            add_analog(f"{name}.Q", ch, iq[name].imag.copy(), 0.0)
+            add_analog(f"{name}.I", ch, iq_i[name], 0.0)
+            add_analog(f"{name}.Q", ch, iq_q[name], 0.0)
         elif ch.kind == "gate":
-            v = gate[name] - dc[name]
+            v = gate[name]
+            if dc[name]:
+                v -= dc[name]
             if predistort and ch.bias_tee > 0:
                 v = analog.predistort_bias_tee(v, dt, ch.bias_tee)
             add_analog(name, ch, v, dc[name])
         else:
             m = markers[name]
+            if not m.any():
+                m = np.broadcast_to(np.zeros(1), (n,))
             outputs[name] = Output(name, name, "marker", m, None, m, 0.0, 0.0)
     if problems:
         raise SynthesisError(problems)

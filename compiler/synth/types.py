@@ -22,7 +22,8 @@ class Output:
     name: str                 # "mw.I", "mw.Q", "P_A", "B_AB", "M1"
     channel: str              # device channel it belongs to: "mw", "P_A", ...
     kind: str                 # "iq", "gate" or "marker"
-    volts: np.ndarray         # float64 V (markers: 0.0/1.0), quantised, length n_samples
+    volts: np.ndarray         # float64 V (markers: 0.0/1.0), quantised, length n_samples;
+                              # a constant output is a read-only broadcast view
     codes: np.ndarray | None  # DAC codes (int32) for analog outputs, None for markers
     ideal: np.ndarray         # float64 V before quantisation (what the design asked for)
     dc_level: float = 0.0     # V supplied through the bias tee's DC port, not by the generator
