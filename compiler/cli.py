@@ -67,7 +67,47 @@ def build_parser() -> argparse.ArgumentParser:
     v.add_argument("--from", dest="t_from", help="start of the time window, e.g. '1.5 us'")
     v.add_argument("--to", dest="t_to", help="end of the time window, e.g. '3 us'")
     v.add_argument("--step", type=int, help="zoom on one timeline entry (its index in the manifest)")
+
+    m = sub.add_parser("simulate", help="simulate what the generators play: fidelities and an "
+                       "error budget, written as a report folder",
+                       description="Lindblad simulation of the compiled waveforms (T1 at temperature, "
+                       "T2, quasi-static Zeeman noise for T2*, charge noise on exchange, drive "
+                       "crosstalk, rise times, quantisation, bias tee): per-step and whole-run "
+                       "fidelities, readout populations and an error budget (docs/simulate.md).",
+                       epilog=CAUTION)
+    m.add_argument("file", help="sequence file (.dotseq)")
+    m.add_argument("-o", "--out", required=True, help="report folder to write")
+    _common(m)
+    _sim_flags(m)
+    m.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+
+    r = sub.add_parser("run", help="check, compile, preview and simulate into one folder",
+                       description="The whole job: check the sequence, write the waveform bundle "
+                       "(DIR/bundle), a preview of the detail run (DIR/preview.png) and the "
+                       "simulation report (DIR/report).", epilog=CAUTION)
+    r.add_argument("file", help="sequence file (.dotseq)")
+    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report")
+    _common(r)
+    _sim_flags(r)
     return p
+
+
+def _sim_flags(p) -> None:
+    p.add_argument("--engine", choices=("fast", "reference"), default="fast",
+                   help="fast (exact piecewise-constant propagation, default) or reference "
+                   "(qutip mesolve, slow; for cross-checks)")
+    p.add_argument("--run", type=int, default=0, dest="detail_run",
+                   help="run of a sweep that gets per-step fidelities, the budget and traces")
+    p.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
+                   "variable (default 5)")
+    p.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
+                   help="full product grid, one noise at a time (exact to second order), or auto")
+    p.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
+                   "(default 2)")
+    p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
+                   "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
+    p.add_argument("--no-budget", action="store_true", help="skip the error budget")
+    p.add_argument("--no-steps", action="store_true", help="skip per-step fidelities")
 
 
 def _common(p) -> None:
@@ -179,6 +219,70 @@ def cmd_preview(args) -> int:
     return EXIT_OK
 
 
+def _sim_options(args):
+    from .simulate import SimOptions
+    return SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes, rwa=not args.no_rwa,
+                      quadrature=args.quadrature, budget=not args.no_budget,
+                      steps=not args.no_steps, detail_run=args.detail_run)
+
+
+def _simulated(args, checked):
+    from .simulate import simulate
+    n = len(checked.timelines)
+    if not 0 <= args.detail_run < n:
+        raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
+                         f"{'s' * (n != 1)} (0..{n - 1})")
+    return simulate(checked, _sim_options(args))
+
+
+def cmd_simulate(args) -> int:
+    from .report import summary_text, write_report
+    checked = load(args.file, args.device)
+    result = _simulated(args, checked)
+    path = write_report(result, args.out)
+    if args.json:
+        from .report.data import results_json
+        print(results_json(result))
+        return EXIT_OK
+    print(summary_text(result), end="")
+    print(f"report    {path}")
+    return EXIT_OK
+
+
+def cmd_run(args) -> int:
+    """check + compile + export + preview + simulate into one folder."""
+    from pathlib import Path
+    from .export import write_bundle
+    from .preview import preview
+    from .report import summary_text, write_report
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
+    if not out.parent.exists():
+        raise UsageError(f"the folder '{out.parent}' does not exist", hint="create it first")
+    summary = check_file(args.file, args.device)
+    print(render_text(summary))
+    print()
+    args.memory_limit = args.memory_limit
+    compiled, need = _synthesised(args)
+    out.mkdir(exist_ok=True)
+    bundle = write_bundle(compiled.waveforms, out / "bundle", source=_source(args, compiled))
+    print(f"bundle    {bundle}  ({len(compiled.waveforms)} run{'s' * (len(compiled.waveforms) != 1)})")
+    checked = compiled.checked
+    k = args.detail_run if 0 <= args.detail_run < len(compiled.waveforms) else 0
+    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
+    img = preview(compiled.waveforms[k], out / "preview.png",
+                  title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
+    print(f"preview   {img}")
+    print()
+    result = _simulated(args, checked)
+    report = write_report(result, out / "report")
+    print(summary_text(result), end="")
+    print(f"report    {report}")
+    print(CAUTION)
+    return EXIT_OK
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
@@ -187,7 +291,8 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         if args.command is None:
             raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
-        return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview}[args.command](args)
+        return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
+                "simulate": cmd_simulate, "run": cmd_run}[args.command](args)
     except SpincError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))

@@ -81,8 +81,10 @@ def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
     return best
 
 
-def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Waveforms:
-    """Sample arrays of one scheduled run (see the module notes)."""
+def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
+               per_dot: bool = False) -> Waveforms:
+    """Sample arrays of one scheduled run (see the module notes).  With
+    ``per_dot`` the result also holds each dot's own bursts separately."""
     dt = tl.dt
     fs = device.sample_rate
     chans = device.channels
@@ -110,6 +112,7 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             dc[name] = idle_of.get(name, 0.0) if c.bias_tee > 0 else 0.0
     markers = {name: np.zeros(n) for name, c in chans.items() if c.kind == "marker"}
 
+    own: dict[str, np.ndarray] = {}
     records: list[StepRecord] = []
     texts: dict = {}          # repeated steps share their source text and channel list
     chan_of: dict = {}
@@ -135,6 +138,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
             z = amp * shape
             iq_i[line.name][a:b] += z.real
             iq_q[line.name][a:b] += z.imag
+            if per_dot:
+                own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += z
             params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
                       "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
                       "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
@@ -221,4 +226,4 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False) -> Wav
         raise SynthesisError(problems)
     warnings = tuple(w.render() for w in tl.warnings)
     return Waveforms(tl.run.index, tl.run.sweep, fs, n, outputs, tuple(records), dict(tl.frames),
-                     {q: device.larmor(q) for q in device.dots}, warnings)
+                     {q: device.larmor(q) for q in device.dots}, warnings, own)

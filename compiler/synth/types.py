@@ -60,6 +60,9 @@ class Waveforms:
     frames: dict[str, float]                 # final frame phase of each dot (rad)
     larmor: dict[str, float]                 # Hz, per dot
     warnings: tuple[str, ...] = ()
+    # with synthesize(per_dot=True): each dot's own bursts as a complex baseband
+    # (I + iQ, V, before quantisation), for simulations without drive crosstalk
+    per_dot: dict = field(default_factory=dict)
 
     @property
     def duration(self) -> float:

@@ -1,0 +1,234 @@
+"""``results.json``: the whole :class:`SimulationResult` as deterministic JSON,
+and reading it back.
+
+The text is deterministic: keys sorted, two-space indent, a trailing newline,
+no timestamps; numpy arrays become lists and numpy scalars Python numbers;
+floats are written with ``repr`` (the shortest text that reads back to the
+same float), and non-finite floats as the strings ``"nan"``, ``"inf"`` and
+``"-inf"`` (so the file stays strict JSON).  The same result always gives
+the same bytes.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..simulate.types import BudgetLine, RunResult, SimulationResult, StepFidelity
+from .errors import fail
+
+FORMAT_NAME = "spinc-report"
+FORMAT_VERSION = 1
+RESULTS_NAME = "results.json"
+
+
+def jsonable(obj: Any) -> Any:
+    """A plain JSON value (dict, list, str, int, float, bool, None) for ``obj``.
+
+    Parameters
+    ----------
+    obj : object
+        Dataclasses become dicts of their fields, mappings dicts with text
+        keys, tuples, lists and numpy arrays lists, sets sorted lists, numpy
+        scalars Python numbers, complex numbers ``{"re": x, "im": y}``,
+        paths text; non-finite floats the strings ``"nan"``, ``"inf"``,
+        ``"-inf"``.  Anything else becomes ``str(obj)``.
+
+    Returns
+    -------
+    object
+        Something :func:`json.dumps` writes with ``allow_nan=False``.
+    """
+    if obj is None or isinstance(obj, (bool, str)):
+        return obj
+    if isinstance(obj, np.generic):
+        return jsonable(obj.item())
+    if isinstance(obj, int):
+        return int(obj)
+    if isinstance(obj, float):
+        return _float(obj)
+    if isinstance(obj, complex):
+        return {"im": _float(obj.imag), "re": _float(obj.real)}
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, Mapping):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, np.ndarray):
+        return jsonable(obj.tolist())
+    if isinstance(obj, (list, tuple)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, (set, frozenset)):
+        return sorted((jsonable(v) for v in obj), key=lambda v: json.dumps(v, sort_keys=True))
+    if isinstance(obj, Path):
+        return str(obj)
+    return str(obj)
+
+
+def _float(x: float) -> float | str:
+    x = float(x)
+    if math.isfinite(x):
+        return x
+    return "nan" if math.isnan(x) else ("inf" if x > 0 else "-inf")
+
+
+def results_document(result: SimulationResult, *, figures: tuple[str, ...] = (),
+                     detail_run: int | None = None, best_run: int | None = None) -> dict:
+    """The content of ``results.json`` as a plain dict.
+
+    Parameters
+    ----------
+    result : SimulationResult
+    figures : tuple of str
+        File names of the figures written beside it.
+    detail_run, best_run : int, optional
+        Position (in ``result.runs``) of the run whose steps and budget the
+        report shows, and of the sweep's best run.
+
+    Returns
+    -------
+    dict
+        ``{"format", "format_version", "figures", "detail_run", "best_run",
+        "result"}``.
+    """
+    return {"format": FORMAT_NAME, "format_version": FORMAT_VERSION,
+            "figures": list(figures), "detail_run": detail_run, "best_run": best_run,
+            "result": jsonable(result)}
+
+
+def results_json(result: SimulationResult, **kw: Any) -> str:
+    """The text of ``results.json`` (see :func:`results_document` for the
+    keywords): sorted keys, two-space indent, ``repr`` floats, newline at
+    the end."""
+    return json.dumps(results_document(result, **kw), sort_keys=True, indent=2,
+                      ensure_ascii=False, allow_nan=False) + "\n"
+
+
+# ---------------------------------------------------------------- reading back
+
+def read_format(folder: Path) -> str | None:
+    """The ``format`` recorded in ``folder/results.json``, or None when there
+    is no readable JSON object there."""
+    try:
+        with open(Path(folder) / RESULTS_NAME, encoding="utf-8") as f:
+            doc = json.load(f)
+    except (OSError, ValueError):
+        return None
+    fmt = doc.get("format") if isinstance(doc, dict) else None
+    return fmt if isinstance(fmt, str) else None
+
+
+def is_report(folder: Path) -> bool:
+    """Whether ``folder`` is a real folder holding a spinc report."""
+    folder = Path(folder)
+    return folder.is_dir() and not folder.is_symlink() and read_format(folder) == FORMAT_NAME
+
+
+def _num(x: Any) -> float:
+    return float(x)  # float("nan"), float("inf"), float("-inf") read the strings back
+
+
+def _opt(x: Any) -> float | None:
+    return None if x is None else _num(x)
+
+
+def _step(d: dict) -> StepFidelity:
+    return StepFidelity(index=int(d["index"]), kind=str(d["kind"]),
+                        qubits=tuple(d["qubits"]), label=str(d["label"]),
+                        source=str(d["source"]), start=_num(d["start"]),
+                        duration=_num(d["duration"]), fidelity=_num(d["fidelity"]))
+
+
+def _run(d: dict) -> RunResult:
+    return RunResult(
+        run_index=int(d["run_index"]),
+        sweep=tuple((str(n), _num(v)) for n, v in d["sweep"]),
+        dots=tuple(d["dots"]),
+        duration=_num(d["duration"]),
+        process_fidelity=_opt(d["process_fidelity"]),
+        average_fidelity=_opt(d["average_fidelity"]),
+        state_fidelity=_num(d["state_fidelity"]),
+        populations={k: _num(v) for k, v in d["populations"].items()},
+        steps=tuple(_step(s) for s in d.get("steps", ())),
+        budget=tuple(BudgetLine(str(b["source"]), _num(b["infidelity"]), str(b.get("note", "")))
+                     for b in d.get("budget", ())),
+        budget_total=_num(d.get("budget_total", 0.0)),
+        budget_floor=_num(d.get("budget_floor", 0.0)),
+        budget_remainder=_num(d.get("budget_remainder", 0.0)),
+        traces={k: np.asarray([_num(x) for x in v], dtype=float) if isinstance(v, list) else v
+                for k, v in d.get("traces", {}).items()},
+        stats=dict(d.get("stats", {})),
+    )
+
+
+def result_from_document(doc: dict) -> SimulationResult:
+    """Rebuild the :class:`SimulationResult` held in a ``results.json``
+    document (the dict :func:`results_document` made).
+
+    Traces come back as float64 arrays, tuples as tuples; ``settings`` and
+    ``stats`` hold what JSON can (lists for tuples and arrays).
+
+    Raises
+    ------
+    KeyError, TypeError, ValueError
+        The document does not hold a result in this format.
+    """
+    r = doc["result"]
+    return SimulationResult(
+        sequence=str(r["sequence"]), device_name=str(r["device_name"]), engine=str(r["engine"]),
+        rwa=bool(r["rwa"]),
+        runs=tuple(_run(x) for x in r["runs"]),
+        axes=tuple((str(n), tuple(_num(v) for v in vals), str(u)) for n, vals, u in r["axes"]),
+        coherence=tuple((str(q), _num(t2), _num(g), _num(ratio), bool(flag))
+                        for q, t2, g, ratio, flag in r["coherence"]),
+        settings=dict(r.get("settings", {})),
+        warnings=tuple(str(w) for w in r.get("warnings", ())),
+        stats=dict(r.get("stats", {})),
+    )
+
+
+def load_results(path: str | Path) -> SimulationResult:
+    """Read a report's ``results.json`` back into a :class:`SimulationResult`.
+
+    Parameters
+    ----------
+    path : str or Path
+        The report folder, or its ``results.json``.
+
+    Returns
+    -------
+    SimulationResult
+
+    Raises
+    ------
+    ReportError
+        Missing or unreadable file, not a spinc report, or a newer format.
+    """
+    p = Path(path)
+    if p.is_dir():
+        p = p / RESULTS_NAME
+    try:
+        with open(p, encoding="utf-8") as f:
+            doc = json.load(f)
+    except FileNotFoundError:
+        raise fail(p, "no results.json here", "give a folder written by spinc simulate -o") from None
+    except OSError as e:
+        raise fail(p, f"cannot read the file: {e.strerror or e}") from None
+    except ValueError as e:
+        raise fail(p, f"not valid JSON: {e}", "the file is damaged; simulate again") from None
+    if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
+        raise fail(p, f"not a spinc report (no format '{FORMAT_NAME}')",
+                   "give a folder written by spinc simulate -o")
+    version = doc.get("format_version")
+    if not isinstance(version, int) or version > FORMAT_VERSION:
+        raise fail(p, f"report format version {version!r} is not one this spinc reads "
+                      f"(up to {FORMAT_VERSION})", "update spinc")
+    try:
+        return result_from_document(doc)
+    except (KeyError, TypeError, ValueError) as e:
+        raise fail(p, f"the result in this file is incomplete or malformed ({e!r})",
+                   "the file is damaged; simulate again") from None

@@ -1,0 +1,62 @@
+"""What a simulation produces (plain frozen data, consumed by the report)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class StepFidelity:
+    """Average gate fidelity of one timeline entry (a step or a together group),
+    simulated alone on the whole register against its ideal operation."""
+    index: int                 # timeline entry index (first entry of a group)
+    kind: str                  # rot, sqrtswap, ..., or "together"
+    qubits: tuple[str, ...]
+    label: str                 # short text, e.g. "rot A x 90°"
+    source: str                # "file:line:col"
+    start: float               # s
+    duration: float            # s
+    fidelity: float            # average gate fidelity (Nielsen 2002)
+
+
+@dataclass(frozen=True)
+class BudgetLine:
+    source: str                # "T1", "T2", "T2*", "charge noise", ...
+    infidelity: float          # contribution: total infidelity minus infidelity with it off
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """One run (sweep point) simulated."""
+    run_index: int
+    sweep: tuple[tuple[str, float], ...]
+    dots: tuple[str, ...]                    # register order
+    duration: float                          # s, simulated span (to the start of the final readout)
+    process_fidelity: float | None           # against the ideal circuit (None above 5 qubits)
+    average_fidelity: float | None           # (d·F_pro + 1)/(d + 1)
+    state_fidelity: float                    # from the declared initial state
+    populations: dict[str, float]            # P(spin up) per dot at the end, in the qubit frames
+    steps: tuple[StepFidelity, ...] = ()
+    budget: tuple[BudgetLine, ...] = ()
+    budget_total: float = 0.0                # infidelity with everything on
+    budget_floor: float = 0.0                # infidelity with every listed source off
+    budget_remainder: float = 0.0            # total − floor − Σ contributions (interaction)
+    traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
+    stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
+
+
+@dataclass(frozen=True)
+class SimulationResult:
+    sequence: str
+    device_name: str
+    engine: str                                # "reference" (qutip mesolve) or "fast"
+    rwa: bool
+    runs: tuple[RunResult, ...]
+    axes: tuple[tuple[str, tuple[float, ...], str], ...]   # sweep name, values (SI), unit symbol
+    coherence: tuple[tuple[str, float, float, float, bool], ...]  # dot, T2, longest gate, ratio, flagged
+    settings: dict = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+    stats: dict = field(default_factory=dict)

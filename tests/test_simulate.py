@@ -1,0 +1,273 @@
+"""Simulation against outside references (each named beside its check), and
+the fast engine against qutip's mesolve."""
+
+import math
+
+import numpy as np
+import pytest
+
+from compiler import compile_checked, load
+from compiler.check import check
+from compiler.device import load_device_text
+from compiler.expand import expand
+from compiler.parse import parse_text
+from compiler.physics import H as PLANCK, K_B, larmor_frequency
+from compiler.schedule import schedule
+from compiler.simulate import SimOptions, simulate
+from compiler.simulate import fidelity as F
+from compiler.simulate.engines import FastEngine, ReferenceEngine
+from compiler.simulate.model import ALL_OFF, Switches, build_model, noise_points
+from compiler.simulate.run import compile_run, evaluate_whole
+from compiler.synth import synthesize
+from conftest import SEQUENCES
+
+QUIET = Switches().off("t1", "t2", "t2_star", "charge")
+
+
+def one_dot(t1="1 ms", t2="100 us", t2s="50 us", temp="10 mK", field="500 mT", g="2.0",
+            lo_offset=0.0, rise="0 ns", extra=""):
+    f = larmor_frequency(float(g), float(field.split()[0]) * (1e-3 if "mT" in field else 1))
+    return f"""
+name: one dot
+field: {field}
+temperature: {temp}
+rotation: {{mode: duration, shape: square, duration: 20 ns}}
+dots:
+  A: {{g: {g}, t1: {t1}, t2: {t2}, t2_star: {t2s}, drive: {{line: mw, rabi_per_volt: 100 MHz/V}}, plunger: P_A}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: {rise}, lo: {f - lo_offset:.3f} Hz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+{extra}"""
+
+
+def run_of(src: str, dev):
+    ex = expand(parse_text(src, "t.dotseq"))
+    check(ex, dev)
+    return ex.runs[0]
+
+
+def whole(src, dev, switches=Switches(), nodes=1, quadrature="tensor", **kw):
+    run = run_of(src, dev)
+    d, tl, wf = compile_run(run, dev)
+    return evaluate_whole(tl, wf, d, switches, SimOptions(nodes=nodes, quadrature=quadrature, **kw),
+                          FastEngine())
+
+
+# ------------------------------------------------------------------ decoherence
+
+@pytest.mark.parametrize("t", [0.5e-6, 2e-6, 5e-6])
+def test_idle_qubit_average_fidelity(t):
+    # amplitude damping at zero temperature plus dephasing:
+    # F_avg = 1/2 + e^{-t/T1}/6 + e^{-t/T2}/3 (derived from the channel; nearest
+    # published form: Abad et al., PRL 129, 150504 (2022)); here hf/kT ≈ 67, so
+    # thermal excitation is negligible
+    dev = load_device_text(one_dot(t1="4 us", t2="3 us", t2s="3 us"), "d.yaml")
+    w = whole(f"wait {t * 1e9:g} ns\n", dev, Switches().off("t2_star"))
+    expected = 0.5 + math.exp(-t / 4e-6) / 6 + math.exp(-t / 3e-6) / 3
+    assert w.f_avg == pytest.approx(expected, abs=1e-9)
+
+
+def test_ramsey_decay_is_gaussian_with_t2_star():
+    # quasi-static Gaussian detuning noise: Ramsey coherence exp(−(t/T2*)²)
+    # (Merkulov, Efros & Rosen, PRB 65, 205309 (2002)); pulses of 20 ns add a
+    # small effective free time, removed by comparing two delays
+    dev = load_device_text(one_dot(t1="1 s", t2="1 s", t2s="1 us"), "d.yaml")
+    coh = {}
+    for tau in (400e-9, 1000e-9):
+        src = f"prepare A down\nrot A x 90 deg\nwait {tau * 1e9:g} ns\nrot A x 90 deg\n"
+        w = whole(src, dev, Switches().off("t1", "t2"), nodes=15)
+        coh[tau] = 2 * w.pops["A"] - 1         # ideal: spin up, coherence 1
+    t_eff = lambda tau: tau + 2 * 20e-9 * 2 / math.pi   # free time of the two π/2 pulses
+    for tau, c in coh.items():
+        assert c == pytest.approx(math.exp(-(t_eff(tau) / 1e-6) ** 2), rel=2e-3)
+
+
+def test_hahn_echo_refocuses_quasi_static_noise():
+    # a Hahn echo removes quasi-static dephasing completely (Hahn 1950; Merkulov 2002)
+    dev = load_device_text(one_dot(t1="1 s", t2="1 s", t2s="1 us"), "d.yaml")
+    src = "prepare A down\nrot A x 90 deg\nwait 500 ns\nrot A y 180 deg\nwait 500 ns\nrot A x 90 deg\n"
+    w = whole(src, dev, Switches().off("t1", "t2"), nodes=9)
+    ramsey = whole("prepare A down\nrot A x 90 deg\nwait 1020 ns\nrot A x 90 deg\n", dev,
+                   Switches().off("t1", "t2"), nodes=9)
+    assert w.f_state > 0.999 and ramsey.f_state < 0.7
+
+
+def test_thermal_steady_state_polarisation():
+    # detailed balance: ⟨σz⟩ → −tanh(hf/2kT) (spin down lower for g > 0)
+    dev = load_device_text(one_dot(t1="200 ns", t2="400 ns", t2s="400 ns", temp="500 mK",
+                                   field="300 mT"), "d.yaml")
+    w = whole("prepare A up\nwait 6 us\n", dev, Switches().off("t2_star"))
+    f = dev.larmor("A")
+    sz = 2 * w.pops["A"] - 1
+    assert sz == pytest.approx(-math.tanh(PLANCK * f / (2 * K_B * 0.5)), abs=1e-6)
+
+
+# ------------------------------------------------------------------ gates
+
+def pair(g_b="2.0", rise="0 ns", lines=2, pulse="300 mV", j0="20 kHz"):
+    fa = larmor_frequency(2.0, 0.5)
+    fb = larmor_frequency(float(g_b), 0.5)
+    b_line = "mwB" if lines == 2 else "mwA"
+    return f"""
+name: pair
+field: 500 mT
+temperature: 10 mK
+rotation: {{mode: duration, shape: gauss, duration: 100 ns, sigmas: 4}}
+dots:
+  A: {{g: 2.0, t1: 1 ms, t2: 100 us, t2_star: 10 us, drive: {{line: mwA, rabi_per_volt: 20 MHz/V}}, plunger: P_A}}
+  B: {{g: {g_b}, t1: 1 ms, t2: 100 us, t2_star: 10 us, drive: {{line: {b_line}, rabi_per_volt: 20 MHz/V}}, plunger: P_B}}
+couplings:
+  - {{dots: [A, B], barrier: B_AB, exchange: {{model: exponential, j0: {j0}, v0: 40 mV}}, idle_voltage: -500 mV, pulse_voltage: {pulse}}}
+channels:
+  mwA: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: {rise}, lo: {fa:.3f} Hz, if_band: [-300 MHz, 300 MHz]}}
+  mwB: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: {rise}, lo: {fb:.3f} Hz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  B_AB: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: {rise}}}
+"""
+
+
+CNOT_SRC = ((SEQUENCES / "lib" / "gates.dotseq").read_text()
+            + "do hadamard(B)\nsqrtswap A B\nrot A z -180 deg\nsqrtswap A B\n"
+              "rot A z 90 deg\nrot B z -90 deg\ndo hadamard(B)\n")
+CNOT = np.eye(4, dtype=complex)[[0, 1, 3, 2]]
+
+
+def test_cnot_noise_off_is_exact():
+    # Loss & DiVincenzo, PRA 57, 120 (1998): with every imperfection off the
+    # simulated process is CNOT to 1e-9
+    dev = load_device_text(pair(), "d.yaml")
+    w = whole(CNOT_SRC, dev, ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True}))
+    assert 1 - w.f_avg < 1e-9
+    run = run_of(CNOT_SRC, dev)
+    assert np.allclose(abs(np.trace(F.ideal_unitary(run.steps, ("A", "B")).conj().T @ CNOT)), 4)
+
+
+def test_sqrtswap_with_zeeman_difference_comparable_to_j():
+    # square J pulse with a Zeeman difference δ: the flip-flop probability from
+    # |↑↓> is J²/(J²+δ²)·sin²(π√(J²+δ²)·t) (Hz units; Russ et al., PRB 97,
+    # 085421 (2018)); for a √SWAP pulse (J·t = 1/4) and δ = J that is
+    # ½·sin²(π√2/4) = 0.398, against ½ without the Zeeman difference
+    from compiler.device.exchange import j_of_v
+    base = load_device_text(pair(), "d.yaml")
+    J = float(j_of_v(base.coupling("A", "B").exchange, 0.3))
+    g_b = 2.0 + J / larmor_frequency(1.0, 0.5)             # δ = J
+    dev = load_device_text(pair(g_b=f"{g_b:.12f}"), "d.yaml")
+    run = run_of("prepare A up\nprepare B down\nsqrtswap A B amplitude=300 mV\n", dev)
+    d, tl, wf = compile_run(run, dev)
+    model = build_model(wf, dev, switches=ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True}), m=4)
+    rho0 = np.zeros((4, 4), complex)
+    rho0[1, 1] = 1                                          # |↑↓>
+    ev = FastEngine().evolve(model, noise_points(model, 1)[0], rho0=rho0)
+    slot = next(s for s in tl.slots if s.exchange is not None)
+    t = slot.exchange.n * tl.dt
+    delta = dev.larmor("A") - dev.larmor("B")
+    jj = slot.exchange.j_peak
+    gen = math.hypot(jj, delta)
+    expected = jj ** 2 / gen ** 2 * math.sin(math.pi * gen * t) ** 2
+    assert np.real(ev.rho[2, 2]) == pytest.approx(expected, abs=2e-3)
+    assert expected == pytest.approx(0.5 * math.sin(math.pi * math.sqrt(2) / 4) ** 2, abs=0.02)
+
+
+def test_bloch_siegert_shift_without_rwa():
+    # Without the rotating-wave approximation a linear drive of Rabi frequency
+    # f_R moves the resonance to f0 + f_R²/(4 f0) (Bloch & Siegert, Phys. Rev.
+    # 57, 522 (1940)).  Found from Floquet quasi-energies, as the REFERENCES
+    # advise (not from a short π pulse, where the micromotion of the
+    # counter-rotating term shifts the apparent centre): over whole periods of
+    # the counter-rotating term inside a flat burst, the quasi-energy splitting
+    # √(f_R² + Δ_eff²) is smallest where the spin's detuning x cancels the
+    # shift, x = −f_R²/(4 f0).  Scaled-down dot: f0 = 100 MHz, so 2·f0 is resolved.
+    from compiler.physics import MU_B, H
+    from compiler.simulate.model import NoisePoint
+    field = 100e6 * H / (2.0 * MU_B)
+    dev = load_device_text(one_dot(field=f"{field * 1e3:.9f} mT", lo_offset=40e6)
+                           .replace("100 MHz/V", "20 MHz/V")
+                           .replace("duration: 20 ns", "duration: 2000 ns")
+                           .replace("if_band: [-300 MHz, 300 MHz]", "if_band: [-60 MHz, 60 MHz]"),
+                           "d.yaml")
+    run = run_of("rot A x 1440 deg\n", dev)
+    _, tl, wf = compile_run(run, dev)
+    f_r = 20e6 * tl.slots[0].burst.amplitude                 # Rabi frequency, Hz
+    f0 = dev.larmor("A")
+    period = round(1e9 / (2 * f0))                           # samples per period of 2·f0
+    a, b = 500, 500 + 20 * period                            # inside the flat part (2π·f_R·T < π)
+    off = ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True})
+
+    def splitting(x, rwa):
+        model = build_model(wf, dev, switches=off, m=10, rwa=rwa, start=a, stop=b)
+        ev = FastEngine().evolve(model, NoisePoint((x,), (), 1.0), process=True)
+        return float(np.max(np.abs(np.angle(np.linalg.eigvals(ev.superop)))))
+
+    xs = np.linspace(-30e3, 30e3, 7)
+    centres = {}
+    for rwa in (True, False):
+        p2, p1, _ = np.polyfit(xs, [splitting(x, rwa) for x in xs], 2)
+        centres[rwa] = -p1 / (2 * p2)
+    assert abs(centres[True]) < 300
+    assert centres[False] == pytest.approx(-f_r ** 2 / (4 * f0), rel=0.05)
+
+
+def test_graphene_like_versus_gaas_like():
+    # the same sequence on a g ≈ 2, long-T2 device and a g ≈ −0.44, short-T2*
+    # device with equal B1 per volt: rotations are slower on GaAs (f_Rabi ∝ |g|,
+    # Abragam 1961) and the fidelity is lower (material values: REFERENCES,
+    # Koppens et al. PRL 100, 236802 (2008) for GaAs)
+    def dev_text(preset, g):
+        return f"""
+name: {preset}
+field: 500 mT
+temperature: 50 mK
+rotation: {{mode: amplitude, shape: gauss, amplitude: 300 mV, sigmas: 4}}
+dots:
+  A: {{preset: {preset}, g: {g}, drive: {{line: mw, b1_per_volt: 2 mT/V}}, plunger: P_A}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], lo: {larmor_frequency(g, 0.5) - 50e6:.0f} Hz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+"""
+    src = "prepare A down\nrot A x 90 deg\nrot A y 180 deg\nrot A x 90 deg\n"
+    res = {}
+    for preset, g in (("bilayer_graphene", 2.0), ("gaas", -0.44)):
+        dev = load_device_text(dev_text(preset, g), "d.yaml")
+        run = run_of(src, dev)
+        _, tl, _ = compile_run(run, dev)
+        res[preset] = (tl.slots[0].duration, whole(src, dev, nodes=5).f_avg)
+    (t_gr, f_gr), (t_ga, f_ga) = res["bilayer_graphene"], res["gaas"]
+    assert t_ga / t_gr == pytest.approx(2.0 / 0.44, rel=0.02)
+    assert f_gr > f_ga
+
+
+# ------------------------------------------------------------------ engines
+
+@pytest.mark.parametrize("name", ["cnot_pair.dotseq", "ramsey_pair.dotseq"])
+def test_fast_engine_agrees_with_mesolve(name):
+    # qutip mesolve (tolerances tightened) on the same piecewise-constant model
+    c = load(SEQUENCES / name)
+    wf = compile_checked(c, runs=[0]).waveforms[0]
+    stop = next(r.start for r in wf.steps if r.kind == "read")
+    model = build_model(wf, c.device, m=2, stop=stop)
+    pt = noise_points(model, 3, "tensor")[4]                 # an off-centre quadrature point
+    rho0 = np.zeros((4, 4), complex)
+    rho0[3, 3] = 1
+    a = FastEngine().evolve(model, pt, process=True, rho0=rho0)
+    b = ReferenceEngine().evolve(model, pt, process=True, rho0=rho0)
+    U = F.ideal_unitary([s for s in c.expanded.runs[0].steps if not hasattr(s, "qubits") or s.kind != "read"],
+                        tuple(c.device.dots))
+    fa = F.process_fidelity(a.superop, U)
+    fb = F.process_fidelity(b.superop, U)
+    assert abs(fa - fb) < 1e-7
+    assert np.max(np.abs(a.rho - b.rho)) < 1e-7
+
+
+def test_simulate_reports_steps_and_budget():
+    c = load(SEQUENCES / "cnot_pair.dotseq")
+    r = simulate(c, SimOptions(nodes=3, quadrature="additive"))
+    run = r.runs[0]
+    assert 0.5 < run.average_fidelity < 1 and run.steps and run.budget
+    names = {b.source for b in run.budget}
+    assert {"T1 relaxation", "pure dephasing (T2)", "quasi-static Zeeman noise (T2*)",
+            "charge noise on exchange", "drive crosstalk", "finite bandwidth", "quantisation",
+            "Zeeman difference in exchange", "bias tee"} <= names
+    total = run.budget_floor + sum(b.infidelity for b in run.budget) + run.budget_remainder
+    assert total == pytest.approx(run.budget_total, abs=1e-12)
+    assert run.budget_total == pytest.approx(1 - run.average_fidelity, abs=1e-12)
