@@ -118,6 +118,17 @@ def _common(p) -> None:
                    "(default: half the memory available)")
 
 
+def _make_parent(out: str) -> None:
+    """Create the folders above an output path (like mkdir -p), or say why not."""
+    from pathlib import Path
+    parent = Path(out).expanduser().resolve().parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise UsageError(f"cannot create the folder '{parent}' for -o {out}: "
+                         f"{e.strerror or e}", hint="choose another -o path") from None
+
+
 def cmd_check(args) -> int:
     summary = check_file(args.file, args.device)
     if args.json:
@@ -258,8 +269,6 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    if not out.parent.exists():
-        raise UsageError(f"the folder '{out.parent}' does not exist", hint="create it first")
     summary = check_file(args.file, args.device)
     print(render_text(summary))
     print()
@@ -291,6 +300,8 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         if args.command is None:
             raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
+        if getattr(args, "out", None):
+            _make_parent(args.out)
         return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
                 "simulate": cmd_simulate, "run": cmd_run}[args.command](args)
     except SpincError as e:

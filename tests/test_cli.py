@@ -19,7 +19,7 @@ def spinc(*args, cwd=ROOT):
 def test_check_demo_prints_the_summary():
     code, out, err = spinc("check", "sequences/ramsey_pair.dotseq")
     assert code == 0, err
-    for fragment in ("qubits", "Larmor", "GHz", "runs      21", "duration", "steps", "rot 4",
+    for fragment in ("qubits", "Larmor", "GHz", "runs      11", "duration", "steps", "rot 4",
                      "longest", "coherence", "rule of thumb"):
         assert fragment in out
     assert "Traceback" not in err
@@ -29,7 +29,7 @@ def test_check_json():
     code, out, _ = spinc("check", "sequences/ramsey_pair.dotseq", "--json")
     assert code == 0
     d = json.loads(out)
-    assert d["ok"] and d["runs"] == 21
+    assert d["ok"] and d["runs"] == 11
     assert {q["name"] for q in d["qubits"]} == {"A", "B"}
     assert d["step_counts"]["rot"] == {"min": 4, "max": 4}
     assert d["coherence_margin"] and all(m["ratio"] > 0 for m in d["coherence_margin"])
@@ -148,3 +148,38 @@ def test_compile_and_preview_usage_errors(args, fragment, capsys, tmp_path, monk
     assert fragment in err
     assert "Traceback" not in err
     assert not (tmp_path / "o").exists()
+
+
+def test_simulate_writes_a_report(tmp_path):
+    out = tmp_path / "deep" / "report"
+    code, stdout, err = spinc("simulate", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
+                              "--no-budget")
+    assert code == 0, err
+    assert "average gate fidelity" in stdout and "steps" in stdout
+    assert (out / "report.md").exists() and (out / "results.json").exists()
+
+
+def test_run_does_the_whole_job(tmp_path):
+    out = tmp_path / "all"
+    code, stdout, err = spinc("run", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
+                              "--no-budget", "--no-steps")
+    assert code == 0, err
+    assert (out / "bundle" / "manifest.json").exists()
+    assert (out / "preview.png").exists()
+    assert (out / "report" / "report.md").exists()
+    assert "Caution" in stdout and "Larmor" in stdout
+
+
+@pytest.mark.parametrize("args, fragment", [
+    pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--run", "3"], "--run 3 does not exist", id="bad-run"),
+    pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--nodes", "0"], "nodes 0", id="bad-nodes"),
+    pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--no-rwa"], "substeps", id="no-rwa-coarse"),
+    pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--engine", "magic"], "invalid choice", id="bad-engine"),
+])
+def test_simulate_usage_errors(args, fragment, capsys, tmp_path, monkeypatch):
+    monkeypatch.chdir(ROOT)
+    args = [str(tmp_path / a) if a == "r" else a for a in args]
+    code = main(args)
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert fragment in err and "Traceback" not in err
