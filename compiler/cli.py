@@ -243,7 +243,9 @@ def _simulated(args, checked):
     if not 0 <= args.detail_run < n:
         raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
                          f"{'s' * (n != 1)} (0..{n - 1})")
-    return simulate(checked, _sim_options(args))
+    def progress(text: str) -> None:
+        print(f"simulating: {text}", file=sys.stderr, flush=True)
+    return simulate(checked, _sim_options(args), progress=progress)
 
 
 def cmd_simulate(args) -> int:

@@ -14,6 +14,7 @@ from compiler.errors import SpincError
 from compiler.expand import expand
 from compiler.parse import parse_text
 from compiler.schedule import schedule
+from compiler.synth import synthesize
 from conftest import SEQUENCES
 
 SEEDS = [p.read_text() for p in sorted(SEQUENCES.glob("*.dotseq"))] + [
@@ -48,7 +49,9 @@ def run_pipeline(text: str) -> None:
             ex = expand(parse_text(text, "fuzz.dotseq"), max_runs=200, max_steps=20_000)
             check(ex, DEVICE)
             for r in ex.runs[:3]:
-                schedule(r, DEVICE)
+                tl = schedule(r, DEVICE)
+                if tl.n_samples <= 200_000:
+                    synthesize(tl, DEVICE)
         except SpincError as e:
             assert e.problems, "an error without problems"
             for p in e.problems:

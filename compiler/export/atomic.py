@@ -34,32 +34,41 @@ OLD = "old"
 ABSENT, EMPTY, BUNDLE = "absent", "empty", "bundle"
 
 
+def resolve_output_folder(out_dir, what: str, fail_with) -> Path:
+    """The absolute folder to write ``what`` ("bundle", "report") into;
+    checks that its parent folder exists.  ``fail_with(path, message, hint)``
+    builds the caller's own error."""
+    try:
+        raw = os.fspath(out_dir)
+    except TypeError:
+        raise fail_with("<output folder>", f"output folder {out_dir!r} is not a path",
+                        "give the folder to write as a string or pathlib.Path") from None
+    if isinstance(raw, bytes):
+        raw = os.fsdecode(raw)
+    if not raw.strip():
+        raise fail_with("<output folder>", "no output folder given", "give a folder name with -o")
+    target = Path(os.path.abspath(raw))
+    if target.parent == target:
+        raise fail_with(target, f"cannot write a {what} to the root of a file system",
+                        "choose a folder below it with -o")
+    parent = target.parent
+    if not parent.exists():
+        raise fail_with(target, f"the folder that should hold the {what}, {parent}, does not exist",
+                        f"create it first (mkdir -p {parent}) or choose another -o folder")
+    if not parent.is_dir():
+        raise fail_with(target, f"{parent} is not a folder", "choose another -o folder")
+    return target
+
+
 def resolve_target(out_dir) -> Path:
-    """The absolute target folder; checks that its parent folder exists.
+    """The absolute bundle folder; checks that its parent folder exists.
 
     Raises
     ------
     BundleError
         Empty path, a parent that does not exist or is not a folder.
     """
-    try:
-        raw = os.fspath(out_dir)
-    except TypeError:
-        raise fail("<output folder>", f"output folder {out_dir!r} is not a path",
-                   "give the folder to write as a string or pathlib.Path") from None
-    if not str(raw).strip():
-        raise fail("<output folder>", "no output folder given", "give a folder name with -o")
-    target = Path(os.path.abspath(raw))
-    if target.parent == target:
-        raise fail(target, "cannot write a bundle to the root of a file system",
-                   "choose a folder below it with -o")
-    parent = target.parent
-    if not parent.exists():
-        raise fail(target, f"the folder that should hold the bundle, {parent}, does not exist",
-                   f"create it first (mkdir -p {parent}) or choose another -o folder")
-    if not parent.is_dir():
-        raise fail(target, f"{parent} is not a folder", "choose another -o folder")
-    return target
+    return resolve_output_folder(out_dir, "bundle", fail)
 
 
 def read_format(folder: Path) -> str | None:

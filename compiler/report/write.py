@@ -48,26 +48,7 @@ def resolve_target(out_dir) -> Path:
         Not a path, empty, the root of a file system, or a parent folder
         that does not exist or is not a folder.
     """
-    try:
-        raw = os.fspath(out_dir)
-    except TypeError:
-        raise fail("<output folder>", f"output folder {out_dir!r} is not a path",
-                   "give the folder to write as a string or pathlib.Path") from None
-    if isinstance(raw, bytes):
-        raw = os.fsdecode(raw)
-    if not raw.strip():
-        raise fail("<output folder>", "no output folder given", "give a folder name with -o")
-    target = Path(os.path.abspath(raw))
-    if target.parent == target:
-        raise fail(target, "cannot write a report to the root of a file system",
-                   "choose a folder below it with -o")
-    parent = target.parent
-    if not parent.exists():
-        raise fail(target, f"the folder that should hold the report, {parent}, does not exist",
-                   f"create it first (mkdir -p {parent}) or choose another -o folder")
-    if not parent.is_dir():
-        raise fail(target, f"{parent} is not a folder", "choose another -o folder")
-    return target
+    return _atomic.resolve_output_folder(out_dir, "report", fail)
 
 
 def target_state(target: Path, overwrite: bool) -> str:

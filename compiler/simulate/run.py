@@ -226,11 +226,14 @@ def _label(step) -> str:
     return step.kind
 
 
-def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Whole):
+def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Whole,
+                 progress=None):
     """Contribution of each source: total infidelity minus the infidelity with
     that source switched off (recompiled where the source shapes the pulses)."""
     lines = []
     for name, switch, comp, note in BUDGET_SOURCES:
+        if progress:
+            progress(f"error budget: without {name}")
         dev, tl, wf = compile_run(run, device, **comp)
         w = evaluate_whole(tl, wf, dev, Switches().off(switch), opts, engine)
         lines.append(BudgetLine(name, total.infidelity - w.infidelity, note))
@@ -253,8 +256,9 @@ def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Wh
     return tuple(lines), floor, remainder
 
 
-def simulate(checked, opts: SimOptions = SimOptions()) -> SimulationResult:
-    """Simulate every run of a checked file (see module notes)."""
+def simulate(checked, opts: SimOptions = SimOptions(), progress=None) -> SimulationResult:
+    """Simulate every run of a checked file (see module notes).  ``progress``,
+    if given, is called with a short text before each long piece of work."""
     opts.check()
     t_start = time.perf_counter()
     device = checked.device
@@ -264,6 +268,8 @@ def simulate(checked, opts: SimOptions = SimOptions()) -> SimulationResult:
     detail = opts.detail_run if 0 <= opts.detail_run < n_runs else 0
     for i, run in enumerate(checked.expanded.runs):
         t0 = time.perf_counter()
+        if progress:
+            progress(f"run {i + 1}/{n_runs}")
         dev, tl, wf = compile_run(run, device)
         is_detail = i == detail
         run_opts = opts if is_detail else dataclasses.replace(
@@ -273,9 +279,11 @@ def simulate(checked, opts: SimOptions = SimOptions()) -> SimulationResult:
         steps = budget = ()
         floor = remainder = 0.0
         if is_detail and opts.steps:
+            if progress:
+                progress(f"per-step fidelities of run {i}")
             steps = step_fidelities(run, device, opts, engine)
         if is_detail and opts.budget:
-            budget, floor, remainder = error_budget(run, device, opts, engine, whole)
+            budget, floor, remainder = error_budget(run, device, opts, engine, whole, progress)
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
