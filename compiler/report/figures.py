@@ -194,8 +194,8 @@ def budget_figure(result: SimulationResult, i: int | None = None) -> Figure | No
     total = float(run.budget_total)
     if total > 0 and (not log or ax.get_xlim()[0] < total < ax.get_xlim()[1] * 1.0001):
         ax.axvline(total, color=S.TEXT, lw=1.0, ls=(0, (4, 3)))
-        ax.text(total, 1.005, f"total {fmt_sci(total)}", transform=blended_transform_factory(
-            ax.transData, ax.transAxes), ha="center", va="bottom", fontsize=FONT - 1.5,
+        ax.text(total, 1.005, f"total {fmt_sci(total)} ", transform=blended_transform_factory(
+            ax.transData, ax.transAxes), ha="right", va="bottom", fontsize=FONT - 1.5,
             color=S.TEXT)
     ax.set_yticks(y)
     ax.set_yticklabels(labels, fontsize=FONT - 1)

@@ -69,8 +69,9 @@ class SimOptions:
                              hint="use tensor, additive or auto")
         if not self.rwa and self.substeps < 8:
             raise UsageError("without the rotating-wave approximation the sub-steps must resolve "
-                             "twice the Larmor frequency", hint="give --substeps 64 or more "
-                             "(slow: the counter-rotating term oscillates at about 2·f_L)")
+                             "twice the Larmor frequency", hint="give --substeps of at least 8 "
+                             "per GHz of 2·f_L per sample period (about 64 or more for GHz "
+                             "qubits at 1 GS/s); it is slow")
 
 
 def _engine(name: str):
