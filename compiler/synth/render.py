@@ -71,6 +71,62 @@ def _slot_channels(slot: Slot, device: Device) -> tuple[str, ...]:
     return tuple(chans)
 
 
+STREAM_CHUNK = 1 << 15     # samples per pass: the working buffer stays in the CPU cache
+
+
+def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_pre: float,
+            dt: float):
+    """Write one output chunk by chunk: baseline, then the events that overlap
+    the chunk, minus the DC level, optional bias-tee pre-distortion, range
+    check, quantisation.  Returns (ideal, codes, volts), or (sample, value) of
+    the first value outside the channel's range."""
+    top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+    q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
+    lo_ok, hi_ok = ch.v_min - q / 2, top + q / 2
+    ideal = np.empty(n)
+    codes = np.empty(n, dtype=np.int32)
+    volts = np.empty(n)
+    nxt, active, carry = 0, [], 0.0
+    for c0 in range(0, n, STREAM_CHUNK):
+        c1 = min(c0 + STREAM_CHUNK, n)
+        buf = np.full(c1 - c0, baseline)
+        while nxt < len(evs) and evs[nxt][0] < c1:
+            active.append(evs[nxt])
+            nxt += 1
+        still = []
+        for ev in active:
+            a, b, val, mode = ev
+            lo, hi = max(a, c0), min(b, c1)
+            if hi > lo:
+                seg = val[lo - a:hi - a] if isinstance(val, np.ndarray) else val
+                if take is not None and isinstance(seg, np.ndarray):
+                    seg = take(seg)
+                if mode == "set":
+                    buf[lo - c0:hi - c0] = seg
+                else:
+                    buf[lo - c0:hi - c0] += seg
+            if b > c1:
+                still.append(ev)
+        active = still
+        if dc_level:
+            buf -= dc_level
+        if tau_pre > 0:
+            raw = buf
+            cum = carry + np.cumsum(raw) - 0.5 * raw
+            carry += float(raw.sum())
+            buf = raw + cum * dt / tau_pre
+        mn, mx = float(buf.min()), float(buf.max())
+        if not (lo_ok <= mn and mx <= hi_ok):
+            bad = np.flatnonzero((buf < lo_ok) | (buf > hi_ok) | ~np.isfinite(buf))
+            k = int(bad[0])
+            return c0 + k, float(buf[k])
+        ideal[c0:c1] = buf
+        c, v = analog.quantise(buf, ch.v_min, ch.v_max, ch.bits)
+        codes[c0:c1] = c
+        volts[c0:c1] = v
+    return ideal, codes, volts
+
+
 def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
     """The step that writes sample ``k`` of ``channel`` (for error messages)."""
     best = None
@@ -97,20 +153,18 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
     n = max(tl.n_samples, n_min)
     n = int(math.ceil(n / gran) * gran)
 
-    # I and Q accumulate separately (real arrays: half the memory traffic of a
-    # complex array for long runs); bursts are formed in slot-sized temporaries
-    iq_i: dict[str, np.ndarray] = {name: np.zeros(n) for name, c in chans.items() if c.kind == "iq"}
-    iq_q: dict[str, np.ndarray] = {name: np.zeros(n) for name, c in chans.items() if c.kind == "iq"}
-    gate: dict[str, np.ndarray] = {}
+    # What each channel plays is collected as events (start, stop, values,
+    # "add"/"set"), in time order, then streamed out in cache-sized chunks
+    # straight into the output arrays (see _stream): long runs never hold a
+    # second full-length copy of any output.
+    events: dict[str, list] = {name: [] for name in chans}
     dc: dict[str, float] = {}
     idle_of: dict[str, float] = {}
     for c in device.couplings:
         idle_of.setdefault(c.barrier, c.idle_voltage)
     for name, c in chans.items():
         if c.kind == "gate":
-            gate[name] = np.full(n, idle_of.get(name, 0.0))
             dc[name] = idle_of.get(name, 0.0) if c.bias_tee > 0 else 0.0
-    markers = {name: np.zeros(n) for name, c in chans.items() if c.kind == "marker"}
 
     own: dict[str, np.ndarray] = {}
     records: list[StepRecord] = []
@@ -136,8 +190,7 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
             amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                               math.sin(phi + 2 * math.pi * f_if * a * dt))
             z = amp * shape
-            iq_i[line.name][a:b] += z.real
-            iq_q[line.name][a:b] += z.imag
+            events[line.name].append((a, b, z, "add"))
             if per_dot:
                 own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += z
             params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
@@ -148,9 +201,9 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         elif s.exchange is not None:
             d = s.exchange
             c = device.coupling(*s.qubits)
-            gate[c.barrier][a:b] = d.samples()
+            events[c.barrier].append((a, b, d.samples(), "set"))
             for dd, offset in c.detune:
-                gate[device.dots[dd].plunger][a:b] += offset
+                events[device.dots[dd].plunger].append((a, b, float(offset), "add"))
             params = {"level_V": d.level, "idle_V": d.idle, "j_peak_Hz": d.j_peak,
                       "exchange_integral": d.integral, "target_integral": d.target,
                       "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
@@ -158,10 +211,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                       "frame_fidelity": s.info.get("frame_fidelity", 1.0),
                       "zeeman_difference_Hz": s.info.get("zeeman_difference_Hz", 0.0)}
         elif isinstance(s.step, P.Readout):
-            markers[device.readout.marker][a:b] = 1.0
+            events[device.readout.marker].append((a, b, 1.0, "set"))
         elif isinstance(s.step, P.Trigger):
             w = int(math.ceil(TRIGGER_WIDTH / dt - 1e-9))
-            markers[device.readout.trigger_marker][a:min(a + w, n)] = 1.0
+            events[device.readout.trigger_marker].append((a, min(a + w, n), 1.0, "set"))
             params = {"label": s.step.label, "width_s": w * dt}
         elif isinstance(s.step, P.FrameRotation):
             params = {"angle_rad": s.step.angle, "frame_rad": s.info.get("frame", 0.0)}
@@ -176,51 +229,54 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
     outputs: dict[str, Output] = {}
     problems: list[Problem] = []
 
-    def add_analog(name: str, ch, ideal: np.ndarray, dc_level: float) -> None:
+    def fail_at(name: str, ch, k: int, v: float) -> None:
         top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+        slot = _writer(tl, k, ch.name, device)
+        where = (f"during the {slot.kind} step at {slot.span}" if slot is not None and slot.span
+                 else "outside any step")
+        problems.append(Problem(
+            f"output '{name}' would need {fq(float(v), VOLTAGE)} at t = {fq(k * dt, TIME)} "
+            f"(sample {k}), {where}; the channel plays {fq(ch.v_min, VOLTAGE)} to "
+            f"{fq(top, VOLTAGE)}", slot.span if slot is not None else None,
+            "lower the amplitude or lengthen the step; nothing is clipped",
+            read_source_line(slot.span.file, slot.span.line) if slot is not None and slot.span
+            else "", slot.via if slot is not None else ()))
+
+    def add_analog(name: str, ch, evs: list, take, baseline: float, dc_level: float,
+                   tau_pre: float) -> None:
         q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
-        lo_v, hi_v = (float(ideal.min()), float(ideal.max())) if ideal.size else (0.0, 0.0)
-        ok = ch.v_min - q / 2 <= lo_v and hi_v <= top + q / 2     # NaN fails both
-        bad = np.empty(0, dtype=np.int64) if ok else np.flatnonzero(
-            (ideal < ch.v_min - q / 2) | (ideal > top + q / 2) | ~np.isfinite(ideal))
-        if bad.size:
-            k = int(bad[0])
-            slot = _writer(tl, k, ch.name, device)
-            where = (f"during the {slot.kind} step at {slot.span}" if slot is not None and slot.span
-                     else "outside any step")
-            v = ideal[k]
-            problems.append(Problem(
-                f"output '{name}' would need {fq(float(v), VOLTAGE)} at t = {fq(k * dt, TIME)} "
-                f"(sample {k}), {where}; the channel plays {fq(ch.v_min, VOLTAGE)} to "
-                f"{fq(top, VOLTAGE)}", slot.span if slot is not None else None,
-                "lower the amplitude or lengthen the step; nothing is clipped",
-                read_source_line(slot.span.file, slot.span.line) if slot is not None and slot.span
-                else "", slot.via if slot is not None else ()))
+        if not evs and tau_pre <= 0:     # a constant output (an idle gate): stored once
+            v0 = baseline - dc_level
+            top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+            if not (ch.v_min - q / 2 <= v0 <= top + q / 2):
+                fail_at(name, ch, 0, v0)
+                return
+            c1, v1 = analog.quantise(np.array([v0]), ch.v_min, ch.v_max, ch.bits)
+            outputs[name] = Output(name, ch.name, ch.kind, np.broadcast_to(v1[:1], (n,)),
+                                   np.broadcast_to(c1[:1], (n,)),
+                                   np.broadcast_to(np.array([v0]), (n,)), dc_level, q)
             return
-        if lo_v == hi_v:          # a constant output (an idle gate): one code, stored once
-            c1, v1 = analog.quantise(np.array([lo_v]), ch.v_min, ch.v_max, ch.bits)
-            codes = np.broadcast_to(c1[:1], (len(ideal),))      # read-only views
-            volts = np.broadcast_to(v1[:1], (len(ideal),))
-            ideal = np.broadcast_to(np.array([lo_v]), (len(ideal),))
-        else:
-            codes, volts = analog.quantise_chunked(ideal, ch.v_min, ch.v_max, ch.bits)
+        got = _stream(n, evs, take, baseline, dc_level, ch, tau_pre, dt)
+        if isinstance(got, tuple) and len(got) == 2:
+            fail_at(name, ch, *got)
+            return
+        ideal, codes, volts = got
         outputs[name] = Output(name, ch.name, ch.kind, volts, codes, ideal, dc_level, q)
 
     for name, ch in chans.items():
         if ch.kind == "iq":
-            add_analog(f"{name}.I", ch, iq_i[name], 0.0)
-            add_analog(f"{name}.Q", ch, iq_q[name], 0.0)
+            add_analog(f"{name}.I", ch, events[name], np.real, 0.0, 0.0, 0.0)
+            add_analog(f"{name}.Q", ch, events[name], np.imag, 0.0, 0.0, 0.0)
         elif ch.kind == "gate":
-            v = gate[name]
-            if dc[name]:
-                v -= dc[name]
-            if predistort and ch.bias_tee > 0:
-                v = analog.predistort_bias_tee(v, dt, ch.bias_tee)
-            add_analog(name, ch, v, dc[name])
+            tau_pre = ch.bias_tee if predistort and ch.bias_tee > 0 else 0.0
+            add_analog(name, ch, events[name], None, idle_of.get(name, 0.0), dc[name], tau_pre)
         else:
-            m = markers[name]
-            if not m.any():
+            if not events[name]:
                 m = np.broadcast_to(np.zeros(1), (n,))
+            else:
+                m = np.zeros(n)
+                for a, b, _, _ in events[name]:
+                    m[a:b] = 1.0
             outputs[name] = Output(name, name, "marker", m, None, m, 0.0, 0.0)
     if problems:
         raise SynthesisError(problems)
