@@ -81,12 +81,13 @@ class Compiled:
 
 
 def compile_checked(checked: Checked, *, predistort: bool = False,
-                    runs: list[int] | None = None) -> Compiled:
-    """Synthesise the waveforms of the chosen runs (all by default)."""
+                    runs: list[int] | None = None, keep_ideal: bool = False) -> Compiled:
+    """Synthesise the waveforms of the chosen runs (all by default).  Only the
+    DAC codes are kept unless ``keep_ideal`` (volts follow from the codes)."""
     idx = range(len(checked.timelines)) if runs is None else runs
     with _bulk():
-        wfs = tuple(synthesize(checked.timelines[i], checked.device, predistort=predistort)
-                    for i in idx)
+        wfs = tuple(synthesize(checked.timelines[i], checked.device, predistort=predistort,
+                               keep_ideal=keep_ideal) for i in idx)
     return Compiled(checked, wfs)
 
 

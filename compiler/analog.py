@@ -53,23 +53,6 @@ def quantise(volts: np.ndarray, v_min: float, v_max: float, bits: int) -> tuple[
     return codes, x
 
 
-QUANTISE_CHUNK = 1 << 15   # samples per pass: work arrays stay in the CPU cache
-
-
-def quantise_chunked(volts: np.ndarray, v_min: float, v_max: float, bits: int) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`quantise` in cache-sized chunks, writing into the two result
-    arrays directly (the same numbers, less memory traffic for long runs)."""
-    n = len(volts)
-    codes = np.empty(n, dtype=np.int32)
-    out = np.empty(n, dtype=float)
-    for a in range(0, n, QUANTISE_CHUNK):
-        b = min(a + QUANTISE_CHUNK, n)
-        c, v = quantise(volts[a:b], v_min, v_max, bits)
-        codes[a:b] = c
-        out[a:b] = v
-    return codes, out
-
-
 def top_voltage(v_min: float, v_max: float, bits: int) -> float:
     """Highest voltage the DAC can output: v_max − LSB/2 rounds to the top code."""
     return v_min + (2 ** bits - 1) * lsb(v_min, v_max, bits)

@@ -75,17 +75,16 @@ STREAM_CHUNK = 1 << 15     # samples per pass: the working buffer stays in the C
 
 
 def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_pre: float,
-            dt: float):
+            dt: float, keep_ideal: bool = True):
     """Write one output chunk by chunk: baseline, then the events that overlap
     the chunk, minus the DC level, optional bias-tee pre-distortion, range
-    check, quantisation.  Returns (ideal, codes, volts), or (sample, value) of
+    check, quantisation.  Returns (ideal or None, codes), or (sample, value) of
     the first value outside the channel's range."""
     top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
     q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
     lo_ok, hi_ok = ch.v_min - q / 2, top + q / 2
-    ideal = np.empty(n)
+    ideal = np.empty(n) if keep_ideal else None
     codes = np.empty(n, dtype=np.int32)
-    volts = np.empty(n)
     nxt, active, carry = 0, [], 0.0
     for c0 in range(0, n, STREAM_CHUNK):
         c1 = min(c0 + STREAM_CHUNK, n)
@@ -120,11 +119,15 @@ def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_p
             bad = np.flatnonzero((buf < lo_ok) | (buf > hi_ok) | ~np.isfinite(buf))
             k = int(bad[0])
             return c0 + k, float(buf[k])
-        ideal[c0:c1] = buf
-        c, v = analog.quantise(buf, ch.v_min, ch.v_max, ch.bits)
-        codes[c0:c1] = c
-        volts[c0:c1] = v
-    return ideal, codes, volts
+        if ideal is not None:
+            ideal[c0:c1] = buf
+        buf -= ch.v_min                      # codes = round((v − v_min)/LSB), in place
+        buf *= 1.0 / q
+        np.rint(buf, out=buf)
+        # values within half an LSB beyond the ends (allowed above) round to the end codes
+        np.clip(buf, 0, 2 ** ch.bits - 1, out=buf)
+        codes[c0:c1] = buf
+    return ideal, codes
 
 
 def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
@@ -138,9 +141,11 @@ def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
 
 
 def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
-               per_dot: bool = False) -> Waveforms:
+               per_dot: bool = False, keep_ideal: bool = True) -> Waveforms:
     """Sample arrays of one scheduled run (see the module notes).  With
-    ``per_dot`` the result also holds each dot's own bursts separately."""
+    ``per_dot`` the result also holds each dot's own bursts separately;
+    ``keep_ideal=False`` keeps only the DAC codes (volts follow from them on
+    use), which halves the memory of long runs."""
     dt = tl.dt
     fs = device.sample_rate
     chans = device.channels
@@ -254,14 +259,14 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
             c1, v1 = analog.quantise(np.array([v0]), ch.v_min, ch.v_max, ch.bits)
             outputs[name] = Output(name, ch.name, ch.kind, np.broadcast_to(v1[:1], (n,)),
                                    np.broadcast_to(c1[:1], (n,)),
-                                   np.broadcast_to(np.array([v0]), (n,)), dc_level, q)
+                                   np.broadcast_to(np.array([v0]), (n,)), dc_level, q, ch.v_min)
             return
-        got = _stream(n, evs, take, baseline, dc_level, ch, tau_pre, dt)
-        if isinstance(got, tuple) and len(got) == 2:
+        got = _stream(n, evs, take, baseline, dc_level, ch, tau_pre, dt, keep_ideal)
+        if isinstance(got[0], int):
             fail_at(name, ch, *got)
             return
-        ideal, codes, volts = got
-        outputs[name] = Output(name, ch.name, ch.kind, volts, codes, ideal, dc_level, q)
+        ideal, codes = got
+        outputs[name] = Output(name, ch.name, ch.kind, None, codes, ideal, dc_level, q, ch.v_min)
 
     for name, ch in chans.items():
         if ch.kind == "iq":
@@ -273,11 +278,13 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         else:
             if not events[name]:
                 m = np.broadcast_to(np.zeros(1), (n,))
+                outputs[name] = Output(name, name, "marker", m, None, m, 0.0, 0.0)
             else:
-                m = np.zeros(n)
+                marks = np.zeros(n, dtype=np.uint8)
                 for a, b, _, _ in events[name]:
-                    m[a:b] = 1.0
-            outputs[name] = Output(name, name, "marker", m, None, m, 0.0, 0.0)
+                    marks[a:b] = 1
+                outputs[name] = Output(name, name, "marker", None, None, None, 0.0, 0.0,
+                                       marks=marks)
     if problems:
         raise SynthesisError(problems)
     warnings = tuple(w.render() for w in tl.warnings)

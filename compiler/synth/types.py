@@ -10,6 +10,7 @@ markers hold 0/1.  An I/Q line ``mw`` gives two arrays, ``mw.I`` and ``mw.Q``.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -17,17 +18,38 @@ import numpy as np
 @dataclass(frozen=True)
 class Output:
     """One generator output (an analog channel, one half of an I/Q pair, or a
-    marker) and its samples."""
+    marker) and its samples.
 
-    name: str                 # "mw.I", "mw.Q", "P_A", "B_AB", "M1"
-    channel: str              # device channel it belongs to: "mw", "P_A", ...
-    kind: str                 # "iq", "gate" or "marker"
-    volts: np.ndarray         # float64 V (markers: 0.0/1.0), quantised, length n_samples;
-                              # a constant output is a read-only broadcast view
-    codes: np.ndarray | None  # DAC codes (int32) for analog outputs, None for markers
-    ideal: np.ndarray         # float64 V before quantisation (what the design asked for)
-    dc_level: float = 0.0     # V supplied through the bias tee's DC port, not by the generator
-    lsb: float = 0.0          # V per DAC code (0 for markers)
+    ``volts`` (float64 V, quantised; markers 0.0/1.0) is derived from the DAC
+    codes on first use when it was not stored (v = v_min + code·LSB), and
+    ``ideal`` (float64 V before quantisation, what the design asked for) is
+    kept only when synthesis was asked to keep it; otherwise it is ``volts``.
+    A constant output is a read-only broadcast view."""
+
+    name: str                        # "mw.I", "mw.Q", "P_A", "B_AB", "M1"
+    channel: str                     # device channel it belongs to: "mw", "P_A", ...
+    kind: str                        # "iq", "gate" or "marker"
+    stored_volts: np.ndarray | None  # V, or None: derived from the codes
+    codes: np.ndarray | None         # DAC codes (int32) for analog outputs, None for markers
+    stored_ideal: np.ndarray | None  # V before quantisation, or None: not kept
+    dc_level: float = 0.0            # V supplied through the bias tee's DC port, not by the generator
+    lsb: float = 0.0                 # V per DAC code (0 for markers)
+    v_min: float = 0.0               # V of code 0
+    marks: np.ndarray | None = None  # markers kept compactly as uint8 0/1
+
+    @cached_property
+    def volts(self) -> np.ndarray:
+        if self.stored_volts is not None:
+            return self.stored_volts
+        if self.codes is None:
+            return self.marks.astype(float)
+        v = np.multiply(self.codes, self.lsb, dtype=float)
+        v += self.v_min
+        return v
+
+    @property
+    def ideal(self) -> np.ndarray:
+        return self.stored_ideal if self.stored_ideal is not None else self.volts
 
 
 @dataclass(frozen=True)
