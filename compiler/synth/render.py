@@ -84,7 +84,8 @@ def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_p
     q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
     lo_ok, hi_ok = ch.v_min - q / 2, top + q / 2
     ideal = np.empty(n) if keep_ideal else None
-    codes = np.empty(n, dtype=np.int32)
+    # codes of DACs up to 16 bits fit in two bytes (half the memory of int32)
+    codes = np.empty(n, dtype=np.uint16 if ch.bits <= 16 else np.int64)
     nxt, active, carry = 0, [], 0.0
     for c0 in range(0, n, STREAM_CHUNK):
         c1 = min(c0 + STREAM_CHUNK, n)
@@ -97,9 +98,14 @@ def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_p
             a, b, val, mode = ev
             lo, hi = max(a, c0), min(b, c1)
             if hi > lo:
-                seg = val[lo - a:hi - a] if isinstance(val, np.ndarray) else val
-                if take is not None and isinstance(seg, np.ndarray):
-                    seg = take(seg)
+                if isinstance(val, tuple):                  # a burst: amplitude × shape
+                    seg = take(val[0] * val[1][lo - a:hi - a])
+                elif isinstance(val, np.ndarray):
+                    seg = val[lo - a:hi - a]
+                    if take is not None:
+                        seg = take(seg)
+                else:
+                    seg = val
                 if mode == "set":
                     buf[lo - c0:hi - c0] = seg
                 else:
@@ -194,10 +200,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
             shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
             amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                               math.sin(phi + 2 * math.pi * f_if * a * dt))
-            z = amp * shape
-            events[line.name].append((a, b, z, "add"))
+            # kept as (amplitude, shared cached shape): no per-burst array
+            events[line.name].append((a, b, (amp, shape), "add"))
             if per_dot:
-                own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += z
+                own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += amp * shape
             params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
                       "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
                       "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}

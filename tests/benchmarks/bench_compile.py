@@ -98,7 +98,7 @@ def measure(folder: Path, n_steps: int, repeats: int, mix: str = "dense") -> tup
 
 def main() -> None:
     ap = argparse.ArgumentParser()
-    ap.add_argument("--repeats", type=int, default=5)
+    ap.add_argument("--repeats", type=int, default=9)
     args = ap.parse_args()
     results = {}
     with tempfile.TemporaryDirectory() as d:
@@ -108,7 +108,7 @@ def main() -> None:
             measure(folder, 100, 1, mix)              # warm caches and imports
             rows = {}
             for n in (1_000, 10_000, 100_000):
-                reps = args.repeats if n < 100_000 else max(3, args.repeats // 2)
+                reps = args.repeats if n < 100_000 else max(5, args.repeats // 2)
                 t, samples, slots = measure(folder, n, reps, mix)
                 rows[n] = (t, samples)
                 print(f"{mix:>8} {n:>7} steps ({slots} timeline entries): median {t:.3f} s, "
