@@ -274,7 +274,6 @@ def cmd_run(args) -> int:
     summary = check_file(args.file, args.device)
     print(render_text(summary))
     print()
-    args.memory_limit = args.memory_limit
     compiled, need = _synthesised(args)
     out.mkdir(exist_ok=True)
     bundle = write_bundle(compiled.waveforms, out / "bundle", source=_source(args, compiled))
