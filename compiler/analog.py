@@ -146,18 +146,6 @@ def predistort_bias_tee(v: np.ndarray, dt: float, tau_b: float) -> np.ndarray:
     return v + integral / tau_b
 
 
-def tone_response(if_freq: float, dt: float, tau: float) -> complex:
-    """Complex gain of hold + RC for a steady tone at ``if_freq`` (Hz), for
-    samples that take the tone's value at the middle of their hold interval:
-    sinc(ω dt/2) from the hold (averaged over the sample, referred to its
-    middle) times 1/(1 + iωτ) from the RC, so bursts can be pre-compensated
-    at their IF."""
-    w = 2 * math.pi * if_freq
-    x = w * dt / 2
-    hold = math.sin(x) / x if x != 0 else 1.0
-    return hold / complex(1.0, w * tau)
-
-
 def tone_burst(envelope: np.ndarray, if_freq: float, dt: float, tau: float) -> np.ndarray:
     """Held samples x_k that make a tone at ``if_freq`` (Hz) with envelope
     e_k, seen through hold + RC, average exactly e_k over every sample in the

@@ -37,6 +37,21 @@ def _flatten(body, out: list) -> list:
     return out
 
 
+def _lookup(env: dict):
+    """Name resolution for the evaluator: a defined value, a quiet stop for a
+    name whose own definition already failed, else an unknown-name error."""
+    def lookup(n: T.Name):
+        if n.id in env:
+            v = env[n.id]
+            if isinstance(v, _Broken):
+                raise _Stop()
+            return v
+        raise EvalError(f"unknown name '{n.id}'", n.span,
+                        did_you_mean(n.id, [k for k in env if not isinstance(env[k], QubitRef)]).strip()
+                        or "define it first with: let NAME = VALUE")
+    return lookup
+
+
 class Expander:
     def __init__(self, src: T.SourceFile, max_runs: int, max_steps: int):
         self.src = src
@@ -57,17 +72,14 @@ class Expander:
     # ------------------------------------------------------------ values
     def value(self, e: T.Expr, env: dict, want: Dim | None, what: str,
               via: tuple[str, ...] = ()) -> float:
-        def lookup(n: T.Name):
-            if n.id in env:
-                v = env[n.id]
-                if isinstance(v, _Broken):
-                    raise _Stop()
-                return v
-            raise EvalError(f"unknown name '{n.id}'", n.span,
-                            did_you_mean(n.id, [k for k in env if not isinstance(env[k], QubitRef)]).strip()
-                            or "define it first with: let NAME = VALUE")
+        return self.quantity(e, env, want, what, via).value
+
+    def quantity(self, e: T.Expr, env: dict, want: Dim | None, what: str,
+                 via: tuple[str, ...] = ()) -> Quantity:
+        """Evaluate ``e`` in ``env``; the problem is recorded (and _Stop raised)
+        when it fails or its dimension is not ``want``."""
         try:
-            q = evaluate(e, lookup)
+            q = evaluate(e, _lookup(env))
         except EvalError as err:
             raise self.fail(err.message, err.span, err.hint, via) from None
         except _PendingUse as p:
@@ -80,7 +92,7 @@ class Expander:
             ex = EXAMPLE_UNIT.get(want, "")
             raise self.fail(f"{what} must be {want.name()}, but this is {q.dim.name()}", e.span,
                             f"e.g. {ex}" if ex else "", via)
-        return q.value
+        return q
 
     def count(self, e: T.Expr, env: dict, what: str, lo: int, hi: int, via=()) -> int:
         v = self.value(e, env, NONE, what, via)
@@ -110,9 +122,11 @@ class Expander:
                 if isinstance(s, T.Let):
                     self.define(s.name, s.span, defined)
                     try:
-                        env[s.name] = self._eval_let(s, env)
+                        env[s.name] = evaluate(s.expr, _lookup(env))
                     except _PendingUse as p:
                         env[s.name] = Pending(p.sweep_name)
+                    except EvalError as err:
+                        raise self.fail(err.message, err.span, err.hint) from None
                 elif isinstance(s, (T.SweepRange, T.SweepList)):
                     self.define(s.name, s.span, defined)
                     env[s.name] = _Broken()
@@ -155,24 +169,10 @@ class Expander:
                             f"first defined at {defined[name]}; choose another name")
         defined[name] = span
 
-    def _eval_let(self, s: T.Let, env: dict):
-        def lookup(n: T.Name):
-            if n.id in env:
-                v = env[n.id]
-                if isinstance(v, _Broken):
-                    raise _Stop()
-                return v
-            raise EvalError(f"unknown name '{n.id}'", n.span,
-                            did_you_mean(n.id, env).strip() or "define it first with: let NAME = VALUE")
-        try:
-            return evaluate(s.expr, lookup)
-        except EvalError as err:
-            raise self.fail(err.message, err.span, err.hint) from None
-
     def sweep_axis(self, s, env: dict) -> P.SweepAxis:
         if isinstance(s, T.SweepRange):
-            a = self.value(s.start, env, None, "the sweep start")
-            dim = evaluate(s.start, lambda n: env[n.id]).dim
+            start = self.quantity(s.start, env, None, "the sweep start")
+            a, dim = start.value, start.dim
             b = self.value(s.stop, env, dim, "the sweep stop")
             n = self.count(s.count, env, "the number of sweep points", 1, MAX_SWEEP_POINTS)
             if n == 1 and a != b:
@@ -182,10 +182,9 @@ class Expander:
         else:
             vals, dim = [], None
             for v in s.values:
-                x = self.value(v, env, dim, "a sweep value")
-                if dim is None:
-                    dim = evaluate(v, lambda n: env[n.id]).dim
-                vals.append(x)
+                q = self.quantity(v, env, dim, "a sweep value")
+                dim = q.dim
+                vals.append(q.value)
             values = tuple(vals)
         return P.SweepAxis(s.name, values, dim, s.span)
 
@@ -199,8 +198,7 @@ class Expander:
         for s in self.stmts:
             try:
                 if isinstance(s, T.Let):
-                    env[s.name] = Quantity(self.value(s.expr, env, None, f"'{s.name}'"),
-                                           self._dim(s.expr, env))
+                    env[s.name] = self.quantity(s.expr, env, None, f"'{s.name}'")
                 elif isinstance(s, (T.SweepRange, T.SweepList)):
                     env[s.name] = sweep_vals[s.name]
                 elif isinstance(s, T.Prepare):
@@ -222,9 +220,6 @@ class Expander:
                 if isinstance(s, T.Let):
                     env[s.name] = _Broken()
         return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps))
-
-    def _dim(self, e: T.Expr, env: dict) -> Dim:
-        return evaluate(e, lambda n: env[n.id]).dim
 
     def qubit(self, ident: T.Ident, env: dict, via) -> tuple[str, Span]:
         """The qubit an identifier names, and where that name is written
@@ -367,8 +362,7 @@ class Expander:
                 v = env.get(a.id)
                 local[p] = v if isinstance(v, QubitRef) else QubitRef(a.id, a.span)
             else:
-                local[p] = Quantity(self.value(a, env, None, f"argument '{p}'", via),
-                                    self._dim(a, env))
+                local[p] = self.quantity(a, env, None, f"argument '{p}'", via)
         inner_via = (f"in block '{s.name}' called at {s.span}",) + via
         for x in b.body:
             try:

@@ -239,10 +239,10 @@ class Parser:
             return T.SweepRange(n.text, a, b, c, self.span_from(start))
         if how.text == "over":
             self.expect_op("[", "list the values in brackets: over [10 mV, 20 mV]")
-            values = [self.expr()]
-            while self.at_op(","):
-                self.advance()
-                values.append(self.expr())
+            if self.at_op("]"):
+                raise self.error("a sweep needs at least one value", self.tok.span,
+                                 "e.g. over [10 mV, 20 mV]")
+            values = self.expr_list("]")
             self.expect_op("]", "close the list with ']'")
             return T.SweepList(n.text, tuple(values), self.span_from(start))
         raise self.error(f"expected 'from' or 'over', found '{how.text}'", how.span,
@@ -410,16 +410,20 @@ class Parser:
         body = self.braced(f"block {n.text}")
         return T.BlockDef(n.text, tuple(params), body, self.span_from(start))
 
+    def expr_list(self, closer: str) -> list[T.Expr]:
+        """Comma-separated expressions up to (not including) ``closer``."""
+        items: list[T.Expr] = []
+        if not self.at_op(closer):
+            items.append(self.expr())
+            while self.at_op(","):
+                self.advance()
+                items.append(self.expr())
+        return items
+
     def st_do(self, start: Span) -> T.Stmt:
         n = self.expect_name("the block to run", "e.g. do echo(A, 100 ns)")
         self.expect_op("(", "give the arguments in parentheses, e.g. do echo(A, 100 ns)")
-        args: list[T.Expr] = []
-        if not self.at_op(")"):
-            while True:
-                args.append(self.expr())
-                if not self.at_op(","):
-                    break
-                self.advance()
+        args = self.expr_list(")")
         self.expect_op(")", "close the argument list with ')'")
         return T.Do(n.text, tuple(args), self.span_from(start))
 
@@ -497,13 +501,7 @@ class Parser:
                     raise self.error(f"unknown function '{t.text}'", t.span,
                                      suggest(t.text, FUNCTIONS) or "functions: " + ", ".join(FUNCTIONS))
                 self.advance()
-                args: list[T.Expr] = []
-                if not self.at_op(")"):
-                    while True:
-                        args.append(self.expr())
-                        if not self.at_op(","):
-                            break
-                        self.advance()
+                args = self.expr_list(")")
                 close = self.expect_op(")", "close the function call with ')'")
                 span = Span.join(t.span, close.span)
                 if len(args) != FUNCTIONS[t.text]:

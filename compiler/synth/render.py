@@ -7,12 +7,11 @@ Microwave bursts (single-sideband I/Q)
     dot q (Larmor f_q, IF_q = f_q − LO) the drive is b_q = c·e^{−i2π·IF_q·t}
     and, under the rotating-wave approximation, turns the spin about the axis
     at arg(b_q) for g > 0 and at π − arg(b_q) for g < 0 (the spin precesses
-    the other way), at Rabi frequency r·|b_q|.  So a rotation about axis φ
-    with envelope A·e_k is played as
-        c_k = A·e_k·e^{iφ_b}·e^{i2π·IF_q·(t_k + dt/2)} / H(IF_q),
-    φ_b = φ for g > 0, π − φ for g < 0, where H is the gain of the hold and
-    the channel's RC response at the IF (:func:`compiler.analog.tone_response`),
-    so that the drive averaged over each sample is exactly A·e_k at the axis.
+    the other way), at Rabi frequency r·|b_q|.  A rotation about axis φ with
+    envelope A·e_k is played so that b_q, averaged over every sample after the
+    hold and the channel's RC response, is exactly A·e_k·e^{iφ_b}, with
+    φ_b = φ for g > 0 and π − φ for g < 0 (the RC is inverted sample by
+    sample: :func:`compiler.analog.tone_burst`).
     Bursts on several dots of one line add up (multi-tone).
 
 Gate voltages
