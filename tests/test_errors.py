@@ -46,6 +46,7 @@ CASES = [
     pytest.param("rot A x 1e999 deg", SequenceError, 1, 9, "too large", "", id="overflowing-number"),
     pytest.param("sweep n over [1, 2]\nsweep m from 0 ns to n * 1 ns in 2", SequenceError, 2, 22,
                  "cannot depend on the swept parameter 'n'", "fixed", id="sweep-depends-on-sweep"),
+    pytest.param("sweep t over []", SequenceSyntaxError, 1, 15, "at least one value", "over [", id="empty-sweep-list"),
     pytest.param("let a = 1 ns\nwait a\nwait b", SequenceError, 3, 6, "unknown name 'b'", "let NAME", id="undefined-name"),
     pytest.param("block b(q) { rot q x 90 deg }\nlet t = 1 ns\ndo b(t)", SequenceError, 1, 18,
                  "'q' is a parameter, not a qubit", "qubit", id="number-as-qubit"),
