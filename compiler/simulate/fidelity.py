@@ -8,7 +8,7 @@ superoperators act on column-stacked density matrices (vec(AρB) =
 from __future__ import annotations
 
 import math
-from functools import reduce
+from functools import lru_cache, reduce
 
 import numpy as np
 from scipy.linalg import expm
@@ -49,10 +49,17 @@ def rotation(phase: float, angle: float) -> np.ndarray:
     return math.cos(angle / 2) * I2 - 1j * math.sin(angle / 2) * n
 
 
+@lru_cache(maxsize=256)
+def _exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
+    s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
+    u = expm(-2j * math.pi * EXCHANGE_TARGET[gate] * s1s2)
+    u.flags.writeable = False
+    return u
+
+
 def exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
     """exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate (1/4 for √SWAP)."""
-    s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
-    return expm(-2j * math.pi * EXCHANGE_TARGET[gate] * s1s2)
+    return _exchange_unitary(gate, a, b, n)
 
 
 def step_unitary(step, dots: tuple[str, ...]) -> np.ndarray:

@@ -73,6 +73,7 @@ class Pair:
     v_lo: float
     v_hi: float
     sigma_v: float               # rms quasi-static charge offset, V (0 when off)
+    delta: float = 0.0           # Hz, frequency δ of the flip-flop phase e^{i2πδt}
 
     def coefficients(self, dv: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
         """(J mean, mean of J·e^{i2πδt}) per sub-step, Hz, with a voltage offset."""
@@ -205,7 +206,7 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = Switches(
         phase = np.exp(2j * math.pi * delta * tn)
         lo_v, hi_v = X.v_range(cpl.exchange)
         pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
-                          lo_v, hi_v, cpl.charge_noise if sw.charge else 0.0))
+                          lo_v, hi_v, cpl.charge_noise if sw.charge else 0.0, delta))
     relax, ground_up, sigma_f = [], [], []
     for q in dots:
         d = device.dots[q]

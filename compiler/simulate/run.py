@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import os
 import time
 from dataclasses import dataclass
 
@@ -56,6 +57,17 @@ class SimOptions:
     trace_points: int = 300
     max_step_entries: int = 200   # per-step fidelities for at most this many program steps
     sweep_nodes: int = 3          # quadrature nodes for the runs other than the detail run
+    threads: int = 0              # threads for independent evaluations; 0: automatic
+
+    def worker_threads(self) -> int:
+        """``threads``, or automatically one per core (at most 4), and one
+        when the process was told to keep to one thread (OMP_NUM_THREADS=1,
+        as in a pool of sweep workers)."""
+        if self.threads > 0:
+            return self.threads
+        if os.environ.get("OMP_NUM_THREADS", "").strip() == "1":
+            return 1
+        return max(1, min(4, os.cpu_count() or 1))
 
     def check(self) -> None:
         if self.engine not in ("fast", "reference"):
@@ -64,6 +76,8 @@ class SimOptions:
             raise UsageError(f"substeps {self.substeps} must be from 1 to 64")
         if self.nodes < 1 or self.nodes > 15:
             raise UsageError(f"nodes {self.nodes} must be from 1 to 15")
+        if self.threads < 0 or self.threads > 256:
+            raise UsageError(f"threads {self.threads} must be from 0 (automatic) to 256")
         if self.quadrature not in ("tensor", "additive", "auto"):
             raise UsageError(f"unknown quadrature '{self.quadrature}'",
                              hint="use tensor, additive or auto")
@@ -117,18 +131,8 @@ def compile_run(run: P.Run, device: Device, *, spectator_correction: bool = True
 
 
 def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0):
-    S = rho = None
-    tr = {}
-    for i, p in enumerate(pts):
-        ev = engine.evolve(model, p, process=process, rho0=rho0,
-                           trace_points=traces if i == 0 else 0)
-        if process:
-            S = p.weight * ev.superop if S is None else S + p.weight * ev.superop
-        if rho0 is not None:
-            rho = p.weight * ev.rho if rho is None else rho + p.weight * ev.rho
-        if i == 0:
-            tr = ev.traces
-    return S, rho, tr
+    ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
+    return ev.superop, ev.rho, ev.traces
 
 
 @dataclass
@@ -228,19 +232,44 @@ def _label(step) -> str:
 
 
 def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Whole,
-                 progress=None):
+                 progress=None, compiled: dict | None = None):
     """Contribution of each source: total infidelity minus the infidelity with
-    that source switched off (recompiled where the source shapes the pulses)."""
-    lines = []
+    that source switched off (recompiled where the source shapes the pulses).
+    ``compiled`` may hold compilations already made, keyed by their sorted
+    option items (``()`` for the default).  The evaluations are independent
+    and run on ``opts.worker_threads()`` threads."""
+    compiled = dict(compiled or {})      # one compilation per distinct set of options
+
+    def compiled_with(**comp):
+        key = tuple(sorted(comp.items()))
+        if key not in compiled:
+            compiled[key] = compile_run(run, device, **comp)
+        return compiled[key]
+
+    jobs = []
     for name, switch, comp, note in BUDGET_SOURCES:
-        if progress:
-            progress(f"error budget: without {name}")
-        dev, tl, wf = compile_run(run, device, **comp)
-        w = evaluate_whole(tl, wf, dev, Switches().off(switch), opts, engine)
-        lines.append(BudgetLine(name, total.infidelity - w.infidelity, note))
+        jobs.append((compiled_with(**comp), Switches().off(switch)))
+    floor_sw = ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True})
+    jobs.append((compiled_with(spectator_correction=False, ideal_bandwidth=True), floor_sw))
+    if progress:
+        progress(f"error budget: {len(jobs)} evaluations")
+
+    def work(job):
+        (dev, tl, wf), sw = job
+        return evaluate_whole(tl, wf, dev, sw, opts, engine).infidelity
+
+    threads = opts.worker_threads()
+    if threads > 1:
+        from concurrent.futures import ThreadPoolExecutor
+        with ThreadPoolExecutor(threads) as pool:
+            infid = list(pool.map(work, jobs))
+    else:
+        infid = [work(j) for j in jobs]
+    lines = [BudgetLine(name, total.infidelity - f, note)
+             for (name, _, _, note), f in zip(BUDGET_SOURCES, infid)]
     # the Zeeman difference shapes the exchange gates themselves: switching it off
     # would change the schedule, so its share comes from the gates' own model
-    tl = schedule(run, device)
+    tl = compiled_with()[1]
     d = 2 ** len(device.dots)
     zeeman = 0.0
     for s in tl.slots:
@@ -249,9 +278,7 @@ def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Wh
             f_pro = (5 * f - 1) / 4                       # pair average -> process fidelity
             zeeman += (1 - f_pro) * d / (d + 1)
     lines.append(BudgetLine(ZEEMAN_LINE[0], zeeman, ZEEMAN_LINE[1]))
-    dev, tl, wf = compile_run(run, device, spectator_correction=False, ideal_bandwidth=True)
-    floor_sw = ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True})
-    floor = evaluate_whole(tl, wf, dev, floor_sw, opts, engine).infidelity - zeeman
+    floor = infid[-1] - zeeman
     lines.sort(key=lambda b: -b.infidelity)
     remainder = total.infidelity - floor - sum(b.infidelity for b in lines)
     return tuple(lines), floor, remainder
@@ -261,6 +288,12 @@ def simulate(checked, opts: SimOptions = SimOptions(), progress=None) -> Simulat
     """Simulate every run of a checked file (see module notes).  ``progress``,
     if given, is called with a short text before each long piece of work."""
     opts.check()
+    from .cluster import single_threaded
+    with single_threaded():
+        return _simulate(checked, opts, progress)
+
+
+def _simulate(checked, opts: SimOptions, progress) -> SimulationResult:
     t_start = time.perf_counter()
     device = checked.device
     engine = _engine(opts.engine)
@@ -284,7 +317,8 @@ def simulate(checked, opts: SimOptions = SimOptions(), progress=None) -> Simulat
                 progress(f"per-step fidelities of run {i}")
             steps = step_fidelities(run, device, opts, engine)
         if is_detail and opts.budget:
-            budget, floor, remainder = error_budget(run, device, opts, engine, whole, progress)
+            budget, floor, remainder = error_budget(run, device, opts, engine, whole, progress,
+                                                    compiled={(): (dev, tl, wf)})
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
@@ -292,10 +326,7 @@ def simulate(checked, opts: SimOptions = SimOptions(), progress=None) -> Simulat
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
     warnings = tuple(sorted({w.render() for tl in checked.timelines for w in tl.warnings}))
-    stats = {"wall_s": time.perf_counter() - t_start, "engine": engine.name,
-             "solver_calls": engine.calls}
-    if isinstance(engine, FastEngine):
-        stats.update(exponentials=engine.exponentials, cache_hits=engine.cache_hits)
+    stats = {"wall_s": time.perf_counter() - t_start, "engine": engine.name, **engine.stats()}
     settings = {"substeps_per_sample": opts.substeps, "quadrature_nodes": opts.nodes,
                 "quadrature": opts.quadrature, "rwa": opts.rwa, "detail_run": detail,
                 "sweep_quadrature": f"additive, {min(opts.nodes, opts.sweep_nodes)} nodes "
