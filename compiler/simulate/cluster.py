@@ -136,6 +136,7 @@ class FastEngine:
         self.applications = 0
         self.fusions = 0
         self.neglected_exchange_rad = 0.0
+        self.largest_cluster = 0
         self._pieces: dict = {}
         self._cache: dict = {}
 
@@ -144,7 +145,7 @@ class FastEngine:
     def stats(self) -> dict:
         return {"solver_calls": self.calls, "exponentials": self.exponentials,
                 "cache_hits": self.cache_hits, "channel_applications": self.applications,
-                "channel_fusions": self.fusions,
+                "channel_fusions": self.fusions, "largest_cluster": self.largest_cluster,
                 "neglected_exchange_rad": self.neglected_exchange_rad}
 
     def evolve(self, model: Model, point: NoisePoint, *, rho0=None, process=False, trace_points=0):
@@ -164,6 +165,7 @@ class FastEngine:
         chunk = max(1, int(self.max_batch_bytes // max(per_point, 1)))
         R_sum = r_sum = None
         traces: dict = {}
+        self._largest_now = 0
         with single_threaded():
             prep = self._prepare(model, points)
             for lo in range(0, len(points), chunk):
@@ -188,6 +190,8 @@ class FastEngine:
         self.calls += 1
         now = self.stats()
         st = {k: now[k] - stats0[k] for k in now}
+        st["largest_cluster"] = self._largest_now
+        st["neglected_exchange_rad"] = self._neglected_now
         st["wall_s"] = time.perf_counter() - t0
         ev = Evolution(S, rho, traces, st)
         ev.ptm = R_sum
@@ -244,6 +248,7 @@ class FastEngine:
             total += ph
             on[i][a:b] = False
         self.neglected_exchange_rad = max(self.neglected_exchange_rad, total)
+        self._neglected_now = total
         return on
 
     def _cluster_pieces(self, model: Model, dots: tuple[int, ...], pairs: tuple[int, ...]) -> _Pieces:
@@ -507,6 +512,8 @@ class FastEngine:
             for dots, pairs in _clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
                                          active):
                 pc = self._cluster_pieces(model, dots, pairs)
+                self._largest_now = max(self._largest_now, len(dots))
+                self.largest_cluster = max(self.largest_cluster, len(dots))
                 chans, which = self._segment_channels(model, prep, pc, s, e, pts, idx)
                 M = chans if len(chans) == 1 else chans[which]
                 push(dots, M)

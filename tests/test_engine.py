@@ -1,0 +1,180 @@
+"""The fast cluster engine against qutip's mesolve (the reference, tolerances
+tightened), and its own building blocks: the Pauli basis, the batched
+exponential, cluster splitting, lazy idle channels and the content cache."""
+
+import math
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.linalg import expm
+
+from compiler import load
+from compiler.simulate import fidelity as F
+from compiler.simulate import pauli as PL
+from compiler.simulate.engines import FastEngine, ReferenceEngine
+from compiler.simulate.model import NoisePoint, build_model, noise_points
+from compiler.simulate.run import _end_sample, compile_run
+from conftest import SEQUENCES
+
+sys.path.insert(0, str(Path(__file__).parent / "benchmarks"))
+from workloads import write_case  # noqa: E402
+
+TIGHT = dict(rtol=1e-11, atol=1e-13)     # mesolve tolerances for the comparisons
+
+
+def _rand_rho(rng, d):
+    a = rng.standard_normal((d, d)) + 1j * rng.standard_normal((d, d))
+    r = a @ a.conj().T
+    return r / np.trace(r)
+
+
+# ------------------------------------------------------------------ Pauli basis
+
+@pytest.mark.parametrize("n", [1, 2, 3])
+def test_pauli_round_trip_and_transfer_matrices(n):
+    # definitions of the Pauli transfer matrix: common practice, no source
+    rng = np.random.default_rng(n)
+    d = 2 ** n
+    rho = _rand_rho(rng, d)
+    r = PL.rho_to_pauli(rho)
+    assert r[0] == pytest.approx(1.0)                      # Tr ρ
+    assert np.allclose(PL.pauli_to_rho(r, n), rho, atol=1e-14)
+    h = rng.standard_normal((d, d)) + 1j * rng.standard_normal((d, d))
+    u = expm(-1j * (h + h.conj().T))
+    R = PL.unitary_ptm(u)
+    assert np.allclose(R @ r, PL.rho_to_pauli(u @ rho @ u.conj().T), atol=1e-13)
+    assert np.allclose(R.T @ R, np.eye(4 ** n), atol=1e-12)   # unitary channels are orthogonal
+    S = F.super_unitary(u)
+    assert np.allclose(PL.super_to_ptm(S), R, atol=1e-13)
+    assert np.allclose(PL.ptm_to_super(R), S, atol=1e-13)
+
+
+def test_batched_exponential_matches_scipy():
+    # scaling and squaring with a Taylor series (Moler & Van Loan, SIAM Review 45, 3 (2003));
+    # scipy's Padé expm is the reference
+    rng = np.random.default_rng(3)
+    for k in (4, 16):
+        A = rng.standard_normal((200, k, k)) * rng.choice([1e-4, 0.05, 0.5, 4.0], size=(200, 1, 1)) / k
+        E = PL.expm_batch(A)
+        ref = np.stack([expm(a) for a in A])
+        # both methods round at this level (squaring amplifies it for the larger norms)
+        assert np.max(np.abs(E - ref) / np.maximum(1, np.abs(ref).max(axis=(1, 2), keepdims=True))) < 1e-12
+
+
+# ------------------------------------------------------------------ against mesolve
+
+def _model(seq_path, run=0, stop=None):
+    c = load(seq_path)
+    dev, tl, wf = compile_run(c.expanded.runs[run], c.device)
+    return c, build_model(wf, dev, m=2, stop=stop or _end_sample(tl))
+
+
+def _compare(model, pts, *, process):
+    n = model.n
+    rng = np.random.default_rng(7)
+    rho0 = _rand_rho(rng, 2 ** n)
+    a = FastEngine().average(model, pts, process=process, rho0=rho0)
+    b = ReferenceEngine(**TIGHT).average(model, pts, process=process, rho0=rho0)
+    assert np.max(np.abs(a.rho - b.rho)) < 1e-7
+    if process:
+        assert np.max(np.abs(a.superop - b.superop)) < 1e-7
+    return a, b
+
+
+@pytest.mark.parametrize("name", ["gaas_rabi.dotseq"])
+def test_examples_agree_with_mesolve(name):
+    # whole run, three quadrature points: process and state to 1e-7 (mesolve rtol
+    # 1e-11, atol 1e-13); cnot_pair and ramsey_pair: tests/test_simulate.py; the
+    # ribbon: below (a window) and tests/benchmarks/bench_simulate.py (whole run)
+    c, model = _model(SEQUENCES / name, run=len(load(SEQUENCES / name).expanded.runs) - 1)
+    pts = noise_points(model, 3, "additive")
+    a, b = _compare(model, pts[:3], process=True)
+    U = np.eye(4)
+    fa, fb = F.process_fidelity(a.superop, U), F.process_fidelity(b.superop, U)
+    assert abs(fa - fb) < 1e-7
+
+
+def test_ribbon_example_window_agrees_with_mesolve():
+    # the four-dot ribbon: a window holding the long-range A-C exchange (with B
+    # detuned), neighbouring bursts and idle dots, state of four dots to 1e-7;
+    # the whole run is compared in tests/benchmarks/bench_simulate.py
+    c = load(SEQUENCES / "ribbon_long_range.dotseq")
+    dev, tl, wf = compile_run(c.expanded.runs[0], c.device)
+    ac = next(s for s in tl.slots if s.kind == "sqrtswap")
+    a = max(0, ac.start_sample - 300)
+    model = build_model(wf, dev, m=2, start=a, stop=min(tl.n_samples, ac.end_sample + 600))
+    assert model.n == 4
+    _compare(model, noise_points(model, 1), process=False)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_random_small_cases_agree_with_mesolve(seed, tmp_path):
+    # random mixes of rotations, together groups, exchange and waits on three
+    # dots with a long-range coupling, at a random quadrature point
+    rng = np.random.default_rng(seed)
+    seq = write_case(tmp_path, 3, 6, charge_noise="20 uV")
+    lines = seq.read_text().splitlines()
+    body = [ln for ln in lines[2:-1]]
+    rng.shuffle(body)
+    seq.write_text("\n".join(lines[:2] + body + lines[-1:]) + "\n")
+    c, model = _model(seq)
+    pts = noise_points(model, 3, "tensor")
+    pt = pts[int(rng.integers(len(pts)))]
+    _compare(model, [NoisePoint(pt.detuning, pt.dv, 1.0)], process=False)
+
+
+def test_two_dot_process_with_quadrature_agrees_with_mesolve(tmp_path):
+    seq = write_case(tmp_path, 2, 5, charge_noise="20 uV")
+    c, model = _model(seq)
+    pts = noise_points(model, 3, "tensor")              # 27 points, weights sum to one
+    assert sum(p.weight for p in pts) == pytest.approx(1.0)
+    _compare(model, pts[::13], process=True)          # centre and two corners
+
+
+# ------------------------------------------------------------------ structure
+
+def test_closed_barriers_split_the_register_exactly(tmp_path):
+    # dropping the closed pairs (budget) against keeping every pair on (budget 0)
+    seq = write_case(tmp_path, 3, 12)
+    c, model = _model(seq)
+    rho0 = _rand_rho(np.random.default_rng(1), 8)
+    pts = noise_points(model, 1)
+    split = FastEngine()
+    a = split.average(model, pts, rho0=rho0)
+    b = FastEngine(exchange_budget=0.0).average(model, pts, rho0=rho0)
+    assert 0 < split.neglected_exchange_rad < 5e-8
+    assert np.max(np.abs(a.rho - b.rho)) < 1e-9
+    assert a.stats["largest_cluster"] == 2 and b.stats["largest_cluster"] == 3
+
+
+def test_idle_dots_touch_the_state_once(tmp_path):
+    # twenty rotations on D0 of a four-dot register with closed barriers: every
+    # channel fuses into one pending channel per dot, applied once at the end
+    seq = write_case(tmp_path, 4, 2)
+    body = "\n".join(["rot D0 x 90 deg", "rot D0 y 45 deg"] * 10)
+    seq.write_text(f'device "device.yaml"\nprepare D0 D1 D2 D3 down\n{body}\nread D0\n')
+    c, model = _model(seq)
+    eng = FastEngine()
+    eng.average(model, noise_points(model, 1), rho0=np.diag([1.0] + [0.0] * 15).astype(complex))
+    assert eng.applications == 4
+
+
+def test_repeated_gates_hit_the_cache(tmp_path):
+    seq = write_case(tmp_path, 2, 2)
+    seq.write_text('device "device.yaml"\nprepare D0 D1 down\nrepeat 30 { sqrtswap D0 D1 ; '
+                   'wait 200 ns }\nread D0\n')
+    c, model = _model(seq)
+    eng = FastEngine()
+    eng.average(model, noise_points(model, 1), process=True)
+    assert eng.cache_hits >= 25
+
+
+def test_result_records_engine_statistics():
+    from compiler.simulate import SimOptions, simulate
+    c = load(SEQUENCES / "cnot_pair.dotseq")
+    r = simulate(c, SimOptions(nodes=1, budget=False, steps=False))
+    for key in ("wall_s", "exponentials", "cache_hits", "channel_applications", "engine"):
+        assert key in r.stats
+    assert r.stats["engine"] == "fast" and r.stats["exponentials"] > 0
