@@ -178,3 +178,19 @@ def test_result_records_engine_statistics():
     for key in ("wall_s", "exponentials", "cache_hits", "channel_applications", "engine"):
         assert key in r.stats
     assert r.stats["engine"] == "fast" and r.stats["exponentials"] > 0
+
+
+def test_budget_keeps_one_quadrature_rule(tmp_path):
+    # switching charge noise off drops a quadrature variable; the budget must not
+    # also move from the additive rule to the product grid (that difference was
+    # once booked as 'charge noise'): a 10 µV offset on a 20 mV-per-e-fold
+    # exchange changes J by 0.05 %, a phase error of order 1e-3 rad per gate, so
+    # its line is of order 1e-6 (estimate, common practice, no source)
+    from compiler.simulate import SimOptions, simulate
+    from compiler.simulate.run import quadrature_rule
+    seq = write_case(tmp_path, 2, 6, charge_noise="10 uV")
+    c = load(seq)
+    assert quadrature_rule(c.device, SimOptions(nodes=5)) == "additive"
+    r = simulate(c, SimOptions(nodes=5, steps=False))
+    line = next(b for b in r.runs[0].budget if b.source.startswith("charge"))
+    assert abs(line.infidelity) < 1e-5

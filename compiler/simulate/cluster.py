@@ -152,10 +152,15 @@ class FastEngine:
         return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0)], rho0=rho0,
                             process=process, trace_points=trace_points)
 
-    def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0):
+    def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0,
+                pauli0=None):
         """Weighted sum over quadrature points of the evolved state and/or
         process (the weights sum to one), with populations against time for
-        the first point."""
+        the first point.  ``pauli0`` (Pauli coefficients, shape (4**n,)) may
+        replace ``rho0`` for registers too large for a dense density matrix;
+        the result then holds only ``pauli``."""
+        if pauli0 is not None:
+            rho0 = np.asarray(pauli0, dtype=float)
         from .engines import Evolution
         t0 = time.perf_counter()
         stats0 = self.stats()
@@ -186,7 +191,7 @@ class FastEngine:
                     r = acc[:, -1]
                     r_sum = r if r_sum is None else r_sum + r
         S = PL.ptm_to_super(R_sum) if process else None
-        rho = PL.pauli_to_rho(r_sum, n) if rho0 is not None else None
+        rho = PL.pauli_to_rho(r_sum, n) if rho0 is not None and pauli0 is None else None
         self.calls += 1
         now = self.stats()
         st = {k: now[k] - stats0[k] for k in now}
@@ -447,7 +452,7 @@ class FastEngine:
         if process:
             cols.append(np.eye(4 ** n))
         if rho0 is not None:
-            cols.append(PL.rho_to_pauli(rho0)[:, None])
+            cols.append((rho0 if rho0.ndim == 1 else PL.rho_to_pauli(rho0))[:, None])
         block = np.concatenate(cols, axis=1)
         return np.broadcast_to(block, (P,) + block.shape).copy()
 

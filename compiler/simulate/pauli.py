@@ -48,6 +48,15 @@ def _to_pauli(rho: np.ndarray) -> np.ndarray:
     return t.reshape(-1)
 
 
+def product_state(states) -> np.ndarray:
+    """Pauli coefficients of a product of one-dot state vectors (no dense
+    density matrix is formed)."""
+    out = np.ones(1)
+    for psi in states:
+        out = np.kron(out, rho_to_pauli(np.outer(psi, np.conj(psi))))
+    return out
+
+
 def pauli_to_rho(r: np.ndarray, n: int) -> np.ndarray:
     """Density matrix from Pauli coefficients (inverse of :func:`rho_to_pauli`)."""
     t = np.asarray(r, dtype=complex).reshape((4,) * n)

@@ -231,6 +231,16 @@ def _label(step) -> str:
     return step.kind
 
 
+def quadrature_rule(device: Device, opts: SimOptions) -> str:
+    """The rule ``auto`` resolves to with every noise on: the product grid up
+    to 27 points, else one variable at a time (as :func:`noise_points`)."""
+    if opts.quadrature != "auto":
+        return opts.quadrature
+    n_vars = sum(1 for q in device.dots.values() if q.t2_star > 0) + \
+        sum(1 for c in device.couplings if c.charge_noise > 0)
+    return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
+
+
 def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Whole,
                  progress=None, compiled: dict | None = None):
     """Contribution of each source: total infidelity minus the infidelity with
@@ -239,6 +249,9 @@ def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Wh
     option items (``()`` for the default).  The evaluations are independent
     and run on ``opts.worker_threads()`` threads."""
     compiled = dict(compiled or {})      # one compilation per distinct set of options
+    # every evaluation uses the quadrature rule of the total: switching a noise
+    # off must not also switch between the product grid and the additive rule
+    opts = dataclasses.replace(opts, quadrature=quadrature_rule(device, opts))
 
     def compiled_with(**comp):
         key = tuple(sorted(comp.items()))

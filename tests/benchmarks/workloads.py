@@ -12,7 +12,7 @@ CHANNEL = ("{{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], ris
 
 
 def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
-                preset: str = "graphene") -> str:
+                preset: str = "bilayer_graphene") -> str:
     """n dots D0..D(n-1) in a line on one microwave line (Larmor frequencies
     28 MHz apart at 1 T), nearest-neighbour exchange through barrier
     gates (closed to well under a millihertz at idle), and, with
@@ -36,7 +36,7 @@ def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
     return f"""name: "benchmark line of {n} dots (invented)"
 field: 1 T
 temperature: 30 mK
-rotation: {{mode: duration, shape: gauss, duration: 200 ns, sigmas: 4}}
+rotation: {{mode: duration, shape: gauss, duration: 100 ns, sigmas: 4}}
 readout: {{marker: M1, duration: 1 us}}
 dots:
 {dots}

@@ -1,0 +1,228 @@
+"""Benchmark: the fast cluster engine against the qutip mesolve route, on the
+same work in the same process; then scaling to 12 dots.
+
+    python tests/benchmarks/bench_simulate.py [--quick]
+
+W2  two graphene-preset dots, 40 steps (Gaussian bursts, two-tone 'together'
+    groups, square roots of SWAP with finite rise time), T1 at temperature,
+    T2, charge noise on exchange, T2* by Gauss–Hermite quadrature with 5
+    nodes per dot (the tool's automatic quadrature: one variable at a time,
+    13 points).  Work: whole-run process fidelity.  The mesolve route is the
+    reference engine (one mesolve of the superoperator per quadrature point,
+    rtol 1e-10, atol 1e-12).  Also: the full report (per-step fidelities and
+    error budget) of W2 with the default options.
+W4  four dots in a line with a long-range D0-D2 coupling, 60 steps, no
+    quadrature.  Work: final state fidelity.
+Scaling  the W4 pattern on a line of N = 4 … 12 dots, 100 steps, state
+    evolution only, each N in a fresh process: seconds of the evolution and
+    the process's peak resident memory.  At N = 12 one channel application
+    (a two-dot exchange channel in the middle of the line) is timed against
+    a plain numpy copy of the same state array.
+
+The mesolve route runs once (it takes minutes); the fast route is the median
+of several runs.  The last line printed is one JSON object.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+sys.path.insert(0, str(HERE.parents[1]))
+
+from workloads import write_case  # noqa: E402
+
+
+def median_time(fn, repeats: int) -> tuple[float, object]:
+    times, out = [], None
+    for _ in range(repeats):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return statistics.median(times), out
+
+
+def prepared(seq: Path, nodes: int):
+    from compiler import load
+    from compiler.simulate import fidelity as F
+    from compiler.simulate.model import build_model, noise_points
+    from compiler.simulate.run import _end_sample, _program_steps, compile_run
+    c = load(seq)
+    run = c.expanded.runs[0]
+    dev, tl, wf = compile_run(run, c.device)
+    model = build_model(wf, dev, m=2, stop=_end_sample(tl))
+    pts = noise_points(model, nodes, "auto")
+    dots = tuple(dev.dots)
+    U = F.ideal_unitary(_program_steps(tl), dots)
+    psi0 = F.initial_state(run, dots, model.ground_up)
+    frames = [tl.frames[q] for q in dots]
+    return c, model, pts, U, psi0, frames
+
+
+def process_fidelity(S, U, frames):
+    from compiler.simulate import fidelity as F
+    return F.process_fidelity(F.to_qubit_frames(S, [0.0] * len(frames), frames), U)
+
+
+def state_fidelity(rho, U, psi0, frames):
+    from compiler.simulate import fidelity as F
+    psi = U @ psi0
+    return float(np.real(psi.conj() @ F.rho_to_qubit_frames(rho, frames) @ psi))
+
+
+def bench_w2(folder: Path, quick: bool) -> dict:
+    from compiler.simulate import SimOptions, simulate
+    from compiler.simulate.engines import FastEngine, ReferenceEngine
+    seq = write_case(folder / "w2", 2, 40, charge_noise="10 uV")
+    c, model, pts, U, psi0, frames = prepared(seq, 5)
+    ref_pts = pts[:3] if quick else pts
+    t_fast, ev = median_time(lambda: FastEngine().average(model, ref_pts, process=True), 5)
+    t0 = time.perf_counter()
+    ev_ref = ReferenceEngine().average(model, ref_pts, process=True)
+    t_ref = time.perf_counter() - t0
+    f_fast = process_fidelity(ev.superop, U, frames)
+    f_ref = process_fidelity(ev_ref.superop, U, frames)
+    t_report, r = median_time(lambda: simulate(c, SimOptions()), 3)
+    out = {"w2_points": len(ref_pts), "w2_sub_steps": model.k, "w2_fast_s": t_fast,
+           "w2_reference_s": t_ref, "w2_ratio": t_ref / t_fast,
+           "w2_process_fidelity": f_fast, "w2_max_abs_diff": abs(f_fast - f_ref),
+           "w2_superop_max_abs_diff": float(np.max(np.abs(ev.superop - ev_ref.superop))),
+           "w2_full_report_s": t_report,
+           "w2_report_average_fidelity": r.runs[0].average_fidelity}
+    print(f"W2: {len(ref_pts)} quadrature points, {model.k} sub-steps: fast {t_fast:.3f} s, "
+          f"mesolve {t_ref:.1f} s, ratio {t_ref / t_fast:.0f}x; process fidelity "
+          f"{f_fast:.9f} vs {f_ref:.9f} (|diff| {abs(f_fast - f_ref):.1e}); full report "
+          f"{t_report:.2f} s", flush=True)
+    return out
+
+
+def bench_w4(folder: Path, quick: bool) -> dict:
+    from compiler.simulate.engines import FastEngine, ReferenceEngine
+    seq = write_case(folder / "w4", 4, 60)
+    c, model, pts, U, psi0, frames = prepared(seq, 1)
+    rho0 = np.outer(psi0, psi0.conj())
+    t_fast, ev = median_time(lambda: FastEngine().average(model, pts, rho0=rho0), 5)
+    t0 = time.perf_counter()
+    ev_ref = ReferenceEngine().average(model, pts, rho0=rho0)
+    t_ref = time.perf_counter() - t0
+    fa, fb = state_fidelity(ev.rho, U, psi0, frames), state_fidelity(ev_ref.rho, U, psi0, frames)
+    print(f"W4: {model.k} sub-steps: fast {t_fast:.3f} s, mesolve {t_ref:.1f} s, ratio "
+          f"{t_ref / t_fast:.0f}x; state fidelity {fa:.9f} vs {fb:.9f}", flush=True)
+    return {"w4_fast_s": t_fast, "w4_reference_s": t_ref, "w4_ratio": t_ref / t_fast,
+            "w4_state_fidelity": fa, "w4_max_abs_diff": abs(fa - fb)}
+
+
+def one_size(n: int, steps: int, folder: str) -> dict:
+    """Run in a fresh process: compile, then time the state evolution alone."""
+    from compiler.simulate import fidelity as F
+    from compiler.simulate import pauli as PL
+    from compiler.simulate.cluster import _apply, single_threaded
+    from compiler.simulate.engines import FastEngine
+    seq = write_case(Path(folder) / f"n{n}", n, steps)
+    c, model, pts, U, psi0, frames = prepared_large(seq)
+    rss_before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    eng = FastEngine()
+    t0 = time.perf_counter()
+    ev = eng.average(model, pts, pauli0=psi0)
+    seconds = time.perf_counter() - t0
+    out = {"n": n, "seconds": seconds,
+           "peak_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+           "peak_mib_before_evolution": rss_before, "sub_steps": model.k,
+           "channel_applications": eng.applications, "exponentials": eng.exponentials,
+           "trace": float(ev.pauli[0])}
+    if n == 12:
+        src = np.zeros((1, 4 ** n, 1))
+        src[0, :, 0] = ev.pauli
+        dst = np.empty_like(src)
+        rng = np.random.default_rng(0)
+        M2 = rng.standard_normal((1, 16, 16))
+        M1 = rng.standard_normal((1, 4, 4))
+        with single_threaded():
+            np.copyto(dst, src)
+            t_copy = statistics.median(_timed(lambda: np.copyto(dst, src)) for _ in range(7))
+            t_two = statistics.median(_timed(lambda: _apply(src, dst, (5, 6), M2, n)) for _ in range(7))
+            t_one = statistics.median(_timed(lambda: _apply(src, dst, (5,), M1, n)) for _ in range(7))
+            t_end = statistics.median(_timed(lambda: _apply(src, dst, (10, 11), M2, n)) for _ in range(7))
+        gb = 2 * src.nbytes / 1e9                      # read and write
+        out.update(copy_gb_per_s=gb / t_copy, two_dot_gb_per_s=gb / t_two,
+                   bandwidth_fraction=t_copy / t_two, bandwidth_fraction_one_dot=t_copy / t_one,
+                   bandwidth_fraction_two_dot_at_end=t_copy / t_end)
+    return out
+
+
+def _timed(fn) -> float:
+    t = time.perf_counter()
+    fn()
+    return time.perf_counter() - t
+
+
+def prepared_large(seq: Path):
+    """Like :func:`prepared` without dense 2^n × 2^n objects."""
+    from compiler import load
+    from compiler.simulate import fidelity as F
+    from compiler.simulate import pauli as PL
+    from compiler.simulate.model import build_model, noise_points
+    from compiler.simulate.run import _end_sample, compile_run
+    c = load(seq)
+    run = c.expanded.runs[0]
+    dev, tl, wf = compile_run(run, c.device)
+    model = build_model(wf, dev, m=2, stop=_end_sample(tl))
+    declared = {q: s for q, s, _ in run.prepare}
+    psi0 = PL.product_state([F._single(declared.get(q), g) for q, g in zip(dev.dots, model.ground_up)])
+    return c, model, noise_points(model, 1), None, psi0, None
+
+
+def bench_scaling(folder: Path, sizes, steps: int) -> list[dict]:
+    rows = []
+    for n in sizes:
+        cmd = [sys.executable, __file__, "--one-size", str(n), str(steps), str(folder)]
+        res = subprocess.run(cmd, capture_output=True, text=True, env={**os.environ})
+        if res.returncode != 0:
+            print(res.stderr, file=sys.stderr)
+            raise SystemExit(f"size {n} failed")
+        row = json.loads(res.stdout.strip().splitlines()[-1])
+        rows.append(row)
+        growth = f", x{row['seconds'] / rows[-2]['seconds']:.1f} per dot" if len(rows) > 1 else ""
+        print(f"N = {n:2d}: {row['seconds']:.3f} s evolution{growth}, peak {row['peak_mib']:.0f} MiB "
+              f"({row['channel_applications']} channel applications)", flush=True)
+    return rows
+
+
+def main() -> None:
+    if len(sys.argv) > 1 and sys.argv[1] == "--one-size":
+        print(json.dumps(one_size(int(sys.argv[2]), int(sys.argv[3]), sys.argv[4])))
+        return
+    quick = "--quick" in sys.argv
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        out = {}
+        out.update(bench_w2(folder, quick))
+        out.update(bench_w4(folder, quick))
+        sizes = (4, 6, 8) if quick else (4, 6, 8, 10, 12)
+        rows = bench_scaling(folder, sizes, 100)
+    big = rows[-1]
+    out["scaling"] = [{"n": r["n"], "seconds": round(r["seconds"], 4),
+                       "peak_mib": round(r["peak_mib"], 1)} for r in rows]
+    out["scaling_growth_per_dot"] = [round((b["seconds"] / a["seconds"]) ** (1 / (b["n"] - a["n"])), 2)
+                                     for a, b in zip(rows, rows[1:])]
+    out["bandwidth_fraction"] = big.get("bandwidth_fraction")
+    for k in ("bandwidth_fraction_one_dot", "bandwidth_fraction_two_dot_at_end", "copy_gb_per_s",
+              "two_dot_gb_per_s"):
+        if k in big:
+            out[k] = big[k]
+    print(json.dumps({k: (float(f"{v:.6g}") if isinstance(v, float) else v) for k, v in out.items()}))
+
+
+if __name__ == "__main__":
+    main()
