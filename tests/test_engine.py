@@ -2,7 +2,6 @@
 tightened), and its own building blocks: the Pauli basis, the batched
 exponential, cluster splitting, lazy idle channels and the content cache."""
 
-import math
 import sys
 from pathlib import Path
 

@@ -178,7 +178,7 @@ class FastEngine:
                 state = self._initial(n, len(idx), process, rho0)
                 marks = (np.unique(np.linspace(0, model.k, max(trace_points, 2)).round().astype(int))
                          if trace_points and rho0 is not None and lo == 0 else np.zeros(0, int))
-                state, tr = self._run(model, prep, idx, state, marks, process, rho0 is not None)
+                state, tr = self._run(model, prep, idx, state, marks)
                 if lo == 0:
                     traces = tr
                 w = np.array([points[i].weight for i in idx])
@@ -198,10 +198,7 @@ class FastEngine:
         st["largest_cluster"] = self._largest_now
         st["neglected_exchange_rad"] = self._neglected_now
         st["wall_s"] = time.perf_counter() - t0
-        ev = Evolution(S, rho, traces, st)
-        ev.ptm = R_sum
-        ev.pauli = r_sum
-        return ev
+        return Evolution(S, rho, traces, st, R_sum, r_sum)
 
     # -------------------------------------------------------------- preparation
 
@@ -456,7 +453,7 @@ class FastEngine:
         block = np.concatenate(cols, axis=1)
         return np.broadcast_to(block, (P,) + block.shape).copy()
 
-    def _run(self, model, prep, idx, state, marks, process, has_rho):
+    def _run(self, model, prep, idx, state, marks):
         n = model.n
         pending: dict = {}          # frozenset(dots) -> (dots tuple, (V, k, k) or (P, k, k))
         owner: dict = {}

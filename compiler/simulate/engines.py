@@ -23,6 +23,8 @@ class Evolution:
     rho: np.ndarray | None          # final density matrix, rotating frames
     traces: dict                    # {"t": times (s, from the run start), dot: P(up)(t)}
     stats: dict
+    ptm: np.ndarray | None = None   # the channel as a Pauli transfer matrix (fast engine)
+    pauli: np.ndarray | None = None  # the state's Pauli coefficients (fast engine)
 
 
 class ReferenceEngine:
@@ -126,4 +128,4 @@ class ReferenceEngine:
         return {"solver_calls": self.calls}
 
 
-from .cluster import FastEngine  # noqa: E402  (the default engine)
+from .cluster import FastEngine  # noqa: E402,F401  (the default engine, re-exported)

@@ -125,8 +125,6 @@ def bench_w4(folder: Path, quick: bool) -> dict:
 
 def one_size(n: int, steps: int, folder: str) -> dict:
     """Run in a fresh process: compile, then time the state evolution alone."""
-    from compiler.simulate import fidelity as F
-    from compiler.simulate import pauli as PL
     from compiler.simulate.cluster import _apply, single_threaded
     from compiler.simulate.engines import FastEngine
     seq = write_case(Path(folder) / f"n{n}", n, steps)
