@@ -58,8 +58,8 @@ def load(path: str | Path, device: str | Path | None = None) -> Checked:
     :class:`~compiler.errors.SpincError` subclass for any bad input.
     """
     with _bulk():
-        tree = parse_path(path)
-        expanded = expand(tree)
+        # the tree is dropped once expanded: its memory is reused by the schedule
+        expanded = expand(parse_path(path))
         dev_path = device or expanded.device_path or BUNDLED_DEFAULT
         dev = load_device(dev_path)
         check(expanded, dev)

@@ -18,7 +18,7 @@ from typing import Iterable, Sequence
 MAX_SHOWN = 10  # problems printed in full before "and N more"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Span:
     """A stretch of source text: 1-based line and column, end exclusive."""
 
@@ -173,13 +173,15 @@ _SOURCES: "OrderedDict[str, list[str]]" = OrderedDict()
 _SOURCES_KEPT = 64
 
 
-def remember_source(file: str, text: str) -> None:
+def remember_source(file: str, text: str) -> list[str]:
     """Keep the text of a parsed file so later stages can show its lines in
-    error messages (the last few files only)."""
-    _SOURCES[str(file)] = text.split("\n")
+    error messages (the last few files only); returns its lines."""
+    lines = text.split("\n")
+    _SOURCES[str(file)] = lines
     _SOURCES.move_to_end(str(file))
     while len(_SOURCES) > _SOURCES_KEPT:
         _SOURCES.popitem(last=False)
+    return lines
 
 
 def read_source_line(file: str | Path, line: int) -> str:

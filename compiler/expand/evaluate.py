@@ -20,13 +20,13 @@ from ..units import ANGLE, NONE, Dim, UNITS, literal_to_si
 MAX_EXPONENT = 1000
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Quantity:
     value: float
     dim: Dim
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class QubitRef:
     """A block argument that names a qubit."""
     name: str
