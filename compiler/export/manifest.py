@@ -12,8 +12,9 @@ import json
 import math
 import os
 import re
+import secrets
 from dataclasses import dataclass
-from typing import Any, Mapping, Sequence
+from typing import Any, Iterator, Mapping, Sequence
 
 import numpy as np
 
@@ -238,8 +239,54 @@ def plain(x: Any, where: str = "value") -> Any:
 
 def dumps(manifest: dict) -> str:
     """The manifest as JSON text: sorted keys, indent 2, trailing newline."""
-    return json.dumps(manifest, sort_keys=True, indent=2, ensure_ascii=False,
-                      allow_nan=False) + "\n"
+    return _ENCODER.encode(manifest) + "\n"
+
+
+_ENCODER = json.JSONEncoder(sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False)
+_CHUNK_CHARS = 1 << 20     # text handed out at a time by chunks()
+_BATCH = 512               # timeline entries encoded at a time
+
+
+def chunks(plan: "Plan", source: Mapping, checksums: Mapping[str, str],
+           sizes: Mapping[str, int], csv: bool) -> Iterator[str]:
+    """The text of ``dumps(build(...))`` in pieces, without ever holding the
+    timeline entries of all steps (a run of a million steps would otherwise
+    take gigabytes as dicts and text): every run's ``steps`` list is encoded
+    one entry at a time.  ``"".join(chunks(...)) == dumps(build(...))``.
+    """
+    mark = f"\x00steps-{secrets.token_hex(8)}-"
+    skeleton = dumps(build(plan, source, checksums, sizes, csv, steps_mark=mark))
+    quoted = json.dumps(mark)[:-1]            # '"\u0000steps-...-' (opening quote kept)
+    pos = 0
+    for row, w in enumerate(plan.runs):
+        at_ = skeleton.index(f'{quoted}{row}"', pos)
+        indent = at_ - skeleton.rindex("\n", 0, at_) - 1 - len('"steps": ')
+        yield skeleton[pos:at_]
+        yield from _steps_text(w, plan.sample_rate, indent)
+        pos = at_ + len(f'{quoted}{row}"')
+    yield skeleton[pos:]
+
+
+def _steps_text(w: Waveforms, fs: float, indent: int) -> Iterator[str]:
+    """The JSON list of one run's timeline entries, as nested at ``indent``
+    spaces, encoded a batch of entries at a time."""
+    if not w.steps:
+        yield "[]"
+        return
+    nl = "\n" + " " * indent
+    out = ["["]
+    size = 0
+    for lo in range(0, len(w.steps), _BATCH):
+        batch = [step_entry(s, fs) for s in w.steps[lo:lo + _BATCH]]
+        # '[\n  {...},\n  {...}\n]' -> '\n  {...},\n  {...}', then shifted right
+        text = _ENCODER.encode(batch)[1:-2].replace("\n", nl)
+        out.append(text if lo == 0 else "," + text)
+        size += len(text)
+        if size > _CHUNK_CHARS:
+            yield "".join(out)
+            out, size = [], 0
+    out.append(nl + "]")
+    yield "".join(out)
 
 
 # ---------------------------------------------------------------- building
@@ -312,7 +359,7 @@ def pad_values(o: Output) -> tuple[float, int | None]:
 
 
 def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
-          sizes: Mapping[str, int], csv: bool) -> dict:
+          sizes: Mapping[str, int], csv: bool, *, steps_mark: str | None = None) -> dict:
     """The manifest of a bundle (plain data, ready for :func:`dumps`).
 
     Parameters
@@ -326,6 +373,9 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         to the bundle folder with ``/`` separators.
     csv : bool
         Whether each run has a ``samples.csv``.
+    steps_mark : str, optional
+        Put ``steps_mark + str(position)`` in place of each run's list of
+        timeline entries (used by :func:`chunks`, which streams them).
     """
     fs = plan.sample_rate
     runs_out = []
@@ -358,7 +408,8 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
             "output_order": list(w.outputs),
             "outputs": outputs,
             "csv": ({"file": csv_path, "sha256": checksums[csv_path]} if csv else None),
-            "steps": [step_entry(s, fs) for s in w.steps],
+            "steps": ([step_entry(s, fs) for s in w.steps] if steps_mark is None
+                      else f"{steps_mark}{row}"),
             "frames_rad": plain(dict(w.frames), "frames"),
             "larmor_Hz": plain(dict(w.larmor), "larmor"),
             "warnings": [str(x) for x in w.warnings],
