@@ -604,7 +604,6 @@ def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
     same as encoding the whole manifest at once, chunk boundaries included."""
     from compiler.export import manifest as mf
     monkeypatch.setattr(mf, "_CHUNK_CHARS", 300)          # force many chunks
-    monkeypatch.setattr(mf, "_BATCH", 7)                  # and many batches
     empty = make_run(1, 200)
     empty = Waveforms(**{**{f: getattr(empty, f) for f in empty.__dataclass_fields__},
                          "steps": ()})
@@ -619,3 +618,24 @@ def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
     assert len(pieces) > 10 and "".join(pieces) == whole
     assert json.loads(whole)["runs"][1]["steps"] == []
     assert len(json.loads(whole)["runs"][2]["steps"]) == 120
+
+
+JSON_PLAIN = st.recursive(
+    st.none() | st.booleans() | st.integers(-2**70, 2**70)
+    | st.floats(allow_nan=False, allow_infinity=False) | st.text(max_size=8),
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=6), inner,
+                                                                max_size=4),
+    max_leaves=20)
+
+
+@settings(max_examples=200, deadline=None)
+@given(JSON_PLAIN, st.integers(0, 12))
+def test_manifest_formatter_matches_the_json_encoder(value, indent):
+    from compiler.export.manifest import format_json
+    expected = json.dumps({"k": value}, sort_keys=True, indent=2, ensure_ascii=False,
+                          allow_nan=False)
+    if indent == 0:
+        assert format_json(value) == json.dumps(value, sort_keys=True, indent=2,
+                                                ensure_ascii=False, allow_nan=False)
+    # nested one level down: the same text as the encoder writes inside a dict
+    assert '{\n  "k": ' + format_json(value, 2) + "\n}" == expected
