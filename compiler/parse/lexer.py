@@ -15,8 +15,9 @@ import re
 from typing import Iterator
 
 from ..errors import Problem, Span
+from ..limits import MAX_SOURCE_CHARS
 
-MAX_FILE_CHARS = 50_000_000  # larger files are refused before lexing
+MAX_FILE_CHARS = MAX_SOURCE_CHARS  # larger texts are refused before lexing
 
 
 class Token:

@@ -13,6 +13,7 @@ from pathlib import Path
 
 from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, SpincError,
                       did_you_mean, remember_source, suggest)
+from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
 from .lexer import MAX_FILE_CHARS, Token, iter_tokens
@@ -30,6 +31,7 @@ INSIDE_TOGETHER = ("rot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
 MAX_INCLUDE_DEPTH = 32
 MAX_NESTING = 64
+MAX_OPERATORS = 256   # per expression: keeps the tree shallow enough to evaluate
 
 SEQUENCE_SUFFIX = ".dotseq"
 
@@ -40,8 +42,9 @@ class _Bail(Exception):
 
 class Parser:
     def __init__(self, text: str, file: str, chain: tuple[str, ...] = (),
-                 lines: list[str] | None = None):
+                 lines: list[str] | None = None, chars: "_Chars | None" = None):
         self.file = file
+        self.chars = chars if chars is not None else _Chars(None)
         self.lines = text.split("\n") if lines is None else lines
         # tokens are streamed: the current one, the one before (for spans)
         # and at most one looked ahead
@@ -53,6 +56,8 @@ class Parser:
         self.problems: list[Problem] = []
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
         self.depth = 0
+        self.expr_level = 0     # nesting of expr() calls within one expression
+        self.expr_ops = 0       # operators read in the current expression
 
     # ------------------------------------------------------------ helpers
     def peek(self) -> Token:
@@ -219,13 +224,15 @@ class Parser:
         if len(self.chain) > MAX_INCLUDE_DEPTH:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
         try:
-            sub = parse_path(target, chain=self.chain)
+            sub = parse_path(target, chain=self.chain, _chars=self.chars)
         except SpincError as e:
             self.problems.extend(e.problems)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
                              f"tried {target}; paths are relative to the including file") from None
+        except _TooLarge as e:
+            raise self.error(f"cannot include '{rel}': {e.message}", s.span, e.hint) from None
         return T.Include(rel, str(target), sub.body, span)
 
     def st_let(self, start: Token) -> T.Stmt:
@@ -445,32 +452,45 @@ class Parser:
         return T.Do(n.text, tuple(args), self.span_from(start))
 
     # ------------------------------------------------------------ expressions
+    def operator(self) -> Token:
+        """Read an operator token, counting it against MAX_OPERATORS (a chain
+        like 1+1+...+1 builds a tree as deep as it is long)."""
+        self.expr_ops += 1
+        if self.expr_ops > MAX_OPERATORS:
+            raise self.error(f"this expression has more than {MAX_OPERATORS} operators",
+                             self.tok.span, "split it into several 'let' lines")
+        return self.advance()
+
     def expr(self) -> T.Expr:
+        if self.expr_level == 0:
+            self.expr_ops = 0
+        self.expr_level += 1
         self.depth += 1
-        if self.depth > MAX_NESTING:
-            raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
-                             "simplify it or split it with let")
         try:
+            if self.depth > MAX_NESTING:
+                raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
+                                 "simplify it or split it with let")
             left = self.term()
             while self.tok.kind == "OP" and self.tok.text in ("+", "-"):
-                op = self.advance().text
+                op = self.operator().text
                 right = self.term()
                 left = T.Binary(op, left, right, Span.join(left.span, right.span))
             return left
         finally:
             self.depth -= 1
+            self.expr_level -= 1
 
     def term(self) -> T.Expr:
         left = self.unary()
         while self.tok.kind == "OP" and self.tok.text in ("*", "/"):
-            op = self.advance().text
+            op = self.operator().text
             right = self.unary()
             left = T.Binary(op, left, right, Span.join(left.span, right.span))
         return left
 
     def unary(self) -> T.Expr:
         if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
-            t = self.advance()
+            t = self.operator()
             self.depth += 1
             if self.depth > MAX_NESTING:
                 raise self.error("expression nested too deeply", t.span)
@@ -485,7 +505,7 @@ class Parser:
     def power(self) -> T.Expr:
         base = self.primary()
         if self.at_op("^"):
-            self.advance()
+            self.operator()
             exp = self.unary()
             return T.Binary("^", base, exp, Span.join(base.span, exp.span))
         return base
@@ -541,48 +561,89 @@ class Parser:
 
 
 class _MissingInclude(Exception):
-    def __init__(self, reason: str):
-        self.reason = reason
+    def __init__(self, reason: str, hint: str = ""):
+        self.reason, self.hint = reason, hint
 
 
-def _read(path: Path) -> str:
+class _TooLarge(Exception):
+    def __init__(self, message: str, hint: str):
+        self.message, self.hint = message, hint
+
+
+class _Chars:
+    """Characters read for one parse: the file and everything it includes
+    (a file included a thousand times counts a thousand times)."""
+
+    def __init__(self, budget: Budget | None):
+        self.budget = budget
+        self.limit = min(MAX_FILE_CHARS, budget.chars) if budget is not None else MAX_FILE_CHARS
+        self.used = 0
+
+    def take(self, n: int) -> None:
+        """Count ``n`` more characters; raises _TooLarge above the limit."""
+        self.check(n)
+        self.used += n
+
+    def check(self, n: int) -> None:
+        """Raise _TooLarge if ``n`` more characters would pass the limit."""
+        if self.used + n > self.limit:
+            if self.budget is not None:
+                raise _TooLarge(*self.budget.chars_problem(self.used + n))
+            raise _TooLarge(f"the sequence and its includes hold more than {self.limit:,} "
+                            "characters", "split the experiment into several files")
+
+
+def _read(path: Path, chars: _Chars) -> str:
     try:
-        size = path.stat().st_size
         if path.is_dir():
-            raise _MissingInclude("it is a directory")
-        if size > MAX_FILE_CHARS:
-            raise _MissingInclude(f"it is {size} bytes; the limit is {MAX_FILE_CHARS}")
+            raise _MissingInclude("it is a directory, not a file",
+                                  f"give a sequence file (ending in {SEQUENCE_SUFFIX})")
+        chars.check(path.stat().st_size)    # bytes >= characters: refuse before reading
         return path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise _MissingInclude("no such file") from None
+        raise _MissingInclude("no such file", "check the path") from None
     except UnicodeDecodeError as e:
-        raise _MissingInclude(f"not UTF-8 text (byte {e.start})") from None
+        raise _MissingInclude(f"it is not UTF-8 text (byte 0x{e.object[e.start]:02x} at offset "
+                              f"{e.start})", "save it as UTF-8 text; spinc reads only text "
+                              "files") from None
     except OSError as e:
-        raise _MissingInclude(e.strerror or str(e)) from None
+        raise _MissingInclude(e.strerror or str(e), "check the path and its permissions") from None
 
 
-def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = ()) -> T.SourceFile:
-    """Parse sequence text; raises SequenceSyntaxError listing every problem."""
-    if len(text) > MAX_FILE_CHARS:
-        raise SequenceSyntaxError(f"sequence text is {len(text)} characters; the limit is "
-                                  f"{MAX_FILE_CHARS}", Span(file, 1, 1, 1, 1))
-    p = Parser(text, file, chain, lines=remember_source(file, text))
+def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
+               budget: Budget | None = None, _chars: _Chars | None = None) -> T.SourceFile:
+    """Parse sequence text; raises SequenceSyntaxError listing every problem.
+
+    ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
+    read, includes and all, by the memory the tree would take."""
+    chars = _chars if _chars is not None else _Chars(budget)
+    try:
+        chars.take(len(text))
+    except _TooLarge as e:
+        raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
+    p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
     result = p.parse_file()
     if p.lex_problems or p.problems:
         raise SequenceSyntaxError(p.lex_problems + p.problems)
     return result
 
 
-def parse_path(path: str | Path, chain: tuple[str, ...] = ()) -> T.SourceFile:
-    """Read and parse one sequence file (and the files it includes)."""
+def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget | None = None,
+               _chars: _Chars | None = None) -> T.SourceFile:
+    """Read and parse one sequence file (and the files it includes).
+
+    ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
+    read, includes and all, by the memory the tree would take."""
     path = Path(path)
+    chars = _chars if _chars is not None else _Chars(budget)
     if not chain:
         try:
-            text = _read(path)
+            text = _read(path, chars)
         except _MissingInclude as e:
             raise SequenceError(f"cannot read sequence file '{path}': {e.reason}",
-                                Span(str(path), 0, 0, 0, 0),
-                                f"sequence files end in {SEQUENCE_SUFFIX}; check the path") from None
+                                Span(str(path), 0, 0, 0, 0), e.hint) from None
+        except _TooLarge as e:
+            raise SequenceError(e.message, Span(str(path), 0, 0, 0, 0), e.hint) from None
     else:
-        text = _read(path)
-    return parse_text(text, str(path), chain)
+        text = _read(path, chars)
+    return parse_text(text, str(path), chain, _chars=chars)
