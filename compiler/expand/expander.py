@@ -105,7 +105,7 @@ class Expander:
         try:
             q = evaluate(e, _lookup(env))
         except EvalError as err:
-            raise self.fail(err.message, err.span, err.hint, via) from None
+            raise self.fail(f"{err.message} in {what}", err.span, err.hint, via) from None
         except _PendingUse as p:
             raise self.fail(f"{what} cannot depend on the swept parameter '{p.sweep_name}'",
                             p.span, "sweep bounds and counts must be fixed values", via) from None
@@ -150,7 +150,8 @@ class Expander:
                     except _PendingUse as p:
                         env[s.name] = Pending(p.sweep_name)
                     except EvalError as err:
-                        raise self.fail(err.message, err.span, err.hint) from None
+                        raise self.fail(f"{err.message} in '{s.name}'", err.span,
+                                        err.hint) from None
                 elif isinstance(s, (T.SweepRange, T.SweepList)):
                     self.define(s.name, s.span, defined)
                     env[s.name] = _Broken()
@@ -271,7 +272,7 @@ class Expander:
                 phase = self.value(s.axis.phase, env, ANGLE, "the axis phase", via)
             else:
                 phase = _AXIS_PHASE[s.axis.kind] + (math.pi if s.axis.negative else 0.0)
-            shape, dur, amp = self.step_options(s.options, env, via)
+            shape, dur, amp = self.step_options(s.options, env, via, burst=True)
             out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,)))
         elif isinstance(s, T.Exchange):
             a, sa = self.qubit(s.a, env, via)
@@ -279,7 +280,7 @@ class Expander:
             if a == b:
                 raise self.fail(f"{s.kind} needs two different qubits, got {a} twice", sb,
                                 "", via)
-            _, dur, amp = self.step_options(s.options, env, via)
+            _, dur, amp = self.step_options(s.options, env, via, burst=False)
             out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb)))
         elif isinstance(s, T.Wait):
             d = self.value(s.duration, env, TIME, "the wait", via)
@@ -350,7 +351,9 @@ class Expander:
             spans.append(sp)
         return tuple(names), tuple(spans)
 
-    def step_options(self, options, env, via):
+    def step_options(self, options, env, via, burst: bool):
+        """shape, duration (s) and amplitude (V) options of a step; a burst's
+        amplitude is its peak (positive), an exchange's the barrier level."""
         shape = dur = amp = None
         for o in options:
             if o.key == "shape":
@@ -358,11 +361,18 @@ class Expander:
             elif o.key == "duration":
                 dur = self.value(o.value, env, TIME, "the duration option", via)
                 if dur <= 0:
-                    raise self.fail("the duration must be positive", o.value.span, "", via)
+                    raise self.fail(f"the duration option must be longer than zero, got "
+                                    f"{format_quantity(dur, TIME)}", o.value.span,
+                                    "e.g. duration=40 ns", via)
             elif o.key == "amplitude":
                 amp = self.value(o.value, env, VOLTAGE, "the amplitude option", via)
-                if amp == 0:
-                    raise self.fail("the amplitude must not be zero", o.value.span, "", via)
+                if burst and amp <= 0:
+                    # the sign would otherwise be dropped: the angle and axis set the direction
+                    raise self.fail(f"the amplitude of a burst must be above zero, got "
+                                    f"{format_quantity(amp, VOLTAGE)}", o.value.span,
+                                    "give the peak as a positive voltage, e.g. amplitude=100 mV; "
+                                    "turn the other way with a negative angle or the -x axis",
+                                    via)
         if dur is not None and amp is not None:
             raise self.fail("give duration or amplitude, not both: the other follows from the "
                             "angle and the calibration", options[-1].span, "remove one", via)

@@ -646,4 +646,11 @@ def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget 
             raise SequenceError(e.message, Span(str(path), 0, 0, 0, 0), e.hint) from None
     else:
         text = _read(path, chars)
-    return parse_text(text, str(path), chain, _chars=chars)
+    tree = parse_text(text, str(path), chain, _chars=chars)
+    if not chain and not tree.body:
+        # an empty file is almost always a wrong path or a copy that failed
+        raise SequenceError(f"the sequence file '{path}' holds no statements"
+                            + (" (it is empty)" if not text.strip() else " (only comments)"),
+                            Span(str(path), 1, 1, 1, 1),
+                            "write the experiment in it, e.g. 'rot A x 90 deg' (docs/language.md)")
+    return tree
