@@ -72,9 +72,10 @@ def load(path: str | Path, device: str | Path | None = None, *,
     return Checked(expanded, dev, timelines)
 
 
-def check_file(path: str | Path, device: str | Path | None = None) -> Summary:
+def check_file(path: str | Path, device: str | Path | None = None, *,
+               memory_limit: int | None = None) -> Summary:
     """What `spinc check` prints: a :class:`Summary` of the checked file."""
-    c = load(path, device)
+    c = load(path, device, memory_limit=memory_limit)
     return summarize(c.expanded, c.device, list(c.timelines))
 
 

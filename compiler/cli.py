@@ -281,7 +281,7 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    summary = check_file(args.file, args.device)
+    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
     print(render_text(summary))
     print()
     compiled, need = _synthesised(args)
