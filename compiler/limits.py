@@ -11,8 +11,11 @@ Three estimates, each checked before the memory is taken:
   sample of every output.
 
 The per-character and per-step figures were measured on sequences of 10^5
-and 10^6 lines (peak resident memory over the stage, divided by the count;
-see docs/reliability.md) and rounded up.  The limit is half the memory
+and 10^6 lines (resident memory added by each stage, divided by the count:
+about 42 bytes a character for the tree, 190 + 310 + 390 bytes a step for
+expansion, schedule and synthesis records; docs/reliability.md) and rounded
+up; steps are counted with the members of 'together' groups, each of which
+is scheduled and recorded on its own.  The limit is half the memory
 available when spinc starts unless ``--memory-limit`` says otherwise.
 """
 
@@ -24,8 +27,8 @@ from dataclasses import dataclass
 from .errors import Span, SynthesisError, UsageError
 
 BYTES_PER_OUTPUT_SAMPLE = 40   # ideal f64 + volts f64 + codes i32 + complex work array
-BYTES_PER_SOURCE_CHAR = 60     # parsed tree per character of sequence text (measured ~40)
-BYTES_PER_STEP = 2000          # expanded step, schedule slot, step record (measured ~1500)
+BYTES_PER_SOURCE_CHAR = 50     # parsed tree per character of sequence text (measured 42)
+BYTES_PER_STEP = 1500          # expanded step, schedule slot, step record (measured 890)
 MAX_SOURCE_CHARS = 50_000_000  # a sequence and its includes, whatever the memory
 MAX_TOTAL_STEPS = 10_000_000   # steps of all runs together, whatever the memory
 FLAG_HINT = "raise the limit with --memory-limit SIZE (default: half the memory available)"

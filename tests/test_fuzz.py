@@ -13,6 +13,7 @@ from collections import Counter
 from contextlib import contextmanager
 from pathlib import Path
 
+import pytest
 import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
@@ -239,3 +240,17 @@ def test_tiny_exchange_from_a_unit_typo_is_fast():
     mutated = "".join(chars)
     assert "u: 1  eV" in mutated
     assert run_device(mutated) == "device ok, then ok"
+
+
+@pytest.mark.slow
+def test_long_fuzz_run():
+    """The long run (at least 20 000 cases in all), as the script runs it."""
+    import json
+    import subprocess
+    import sys
+    script = Path(__file__).resolve().parent / "benchmarks" / "fuzz_long.py"
+    r = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                       timeout=6 * 3600)
+    summary = json.loads(r.stdout.strip().splitlines()[-1])
+    assert r.returncode == 0 and summary["failures"] == 0, r.stdout[-5000:] + r.stderr[-5000:]
+    assert summary["cases"] >= 20_000

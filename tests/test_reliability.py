@@ -363,7 +363,7 @@ def test_million_lines_refused_below_a_small_memory_limit(tmp_path):
 @pytest.mark.parametrize("command, out", [("compile", "b"), ("preview", "p.png"),
                                           ("simulate", "r"), ("run", "all")])
 def test_every_command_honours_the_memory_limit(command, out, tmp_path, capsys):
-    path = write_long_sequence(tmp_path / "l.dotseq", 2000)      # 29 kB: about 1.7 MB to parse
+    path = write_long_sequence(tmp_path / "l.dotseq", 2000)      # 29 kB: about 1.5 MB to parse
     code, _, err = cli(capsys, command, path, "-o", tmp_path / out, "--memory-limit", "1MB")
     assert code == 2 and "would need about" in err and "--memory-limit" in err, err
     assert not (tmp_path / out).exists()
@@ -374,7 +374,7 @@ def test_step_budget_stops_expansion_early(tmp_path):
     """Text that fits but steps that do not: expansion stops at the budget,
     once, at the line that passes it."""
     path = write_long_sequence(tmp_path / "l.dotseq", 20_000)
-    memory = 30 * 2**20
+    memory = 25 * 2**20
     budget = limits.budget(memory)
     assert path.stat().st_size * limits.BYTES_PER_SOURCE_CHAR < memory < 20_000 * limits.BYTES_PER_STEP
     with pytest.raises(SequenceError) as info:
@@ -383,7 +383,7 @@ def test_step_budget_stops_expansion_early(tmp_path):
     p = info.value.first
     assert f"more than {budget.steps:,} steps" in p.message
     assert p.span.line == budget.steps + 2                  # header line, then one step a line
-    assert "--memory-limit" in p.hint and "30 MiB" in p.hint
+    assert "--memory-limit" in p.hint and "25 MiB" in p.hint
 
 
 def test_sweep_times_repeat_is_refused_before_scheduling(tmp_path, capsys):

@@ -438,7 +438,8 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
         runs.append(ex.run(i, point, blocks))
         if ex.problems:
             raise SequenceError(ex.problems)
-        total += len(runs[-1].steps)
+        # members of 'together' groups are scheduled and recorded one by one
+        total += sum(len(s.steps) if isinstance(s, P.Parallel) else 1 for s in runs[-1].steps)
         if total > ex.max_total:
             if budget is not None:
                 message, hint = budget.steps_problem(ex.max_total)
