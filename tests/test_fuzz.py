@@ -196,6 +196,34 @@ def test_arbitrary_unicode(text):
     run_pipeline(text)
 
 
+EXPR_ATOMS = ["1", "2.5", "1 ns", "3 us", "90 deg", "pi", "(1 ns)", "sin(1 rad)", "a", "1e308"]
+EXPR_OPS = ["+", "-", "*", "/", "^", "**"]
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(["chain", "nest", "unary", "calls", "mixed"]), st.integers(1, 3000),
+       st.lists(st.sampled_from(EXPR_ATOMS), min_size=1, max_size=4),
+       st.lists(st.sampled_from(EXPR_OPS), min_size=1, max_size=4))
+def test_long_and_deep_expressions(shape, n, atoms, ops):
+    """Expressions thousands of operators long or deep: chains, nested
+    parentheses, unary signs, nested calls (the limits that keep evaluation
+    off the interpreter's stack)."""
+    if shape == "chain":
+        expr = atoms[0] + "".join(f" {ops[k % len(ops)]} {atoms[k % len(atoms)]}"
+                                  for k in range(n))
+    elif shape == "nest":
+        expr = "(" * n + atoms[0] + ")" * n
+    elif shape == "unary":
+        expr = "-" * n + atoms[0]
+    elif shape == "calls":
+        expr = "abs(" * n + atoms[0] + ")" * n
+    else:
+        expr = "".join(f"({atoms[k % len(atoms)]} {ops[k % len(ops)]} " for k in range(n)) \
+            + atoms[0] + ")" * n
+    run_pipeline(f"let a = 1 ns\nlet x = {expr}\nwait x on A\n")
+
+
 # ---------------------------------------------------------------- device YAML
 
 @settings(max_examples=N, deadline=None, suppress_health_check=[HealthCheck.too_slow])
