@@ -16,6 +16,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
+from . import limits
 from .check import check
 from .check.summary import Summary, summarize
 from .device import BUNDLED_DEFAULT, load_device
@@ -51,15 +52,19 @@ def _bulk():
             gc.enable()
 
 
-def load(path: str | Path, device: str | Path | None = None) -> Checked:
+def load(path: str | Path, device: str | Path | None = None, *,
+         memory_limit: int | None = None) -> Checked:
     """Parse, expand, load the device, check and schedule every run.
 
-    ``device`` overrides the file's device statement.  Raises a
-    :class:`~compiler.errors.SpincError` subclass for any bad input.
+    ``device`` overrides the file's device statement.  ``memory_limit``
+    (bytes, default half the memory available) bounds the text read and the
+    steps expanded, estimated before they are allocated (:mod:`compiler.limits`).
+    Raises a :class:`~compiler.errors.SpincError` subclass for any bad input.
     """
+    budget = limits.budget(memory_limit)
     with _bulk():
-        tree = parse_path(path)
-        expanded = expand(tree)
+        # the tree is dropped once expanded: its memory is reused by the schedule
+        expanded = expand(parse_path(path, budget=budget), budget=budget)
         dev_path = device or expanded.device_path or BUNDLED_DEFAULT
         dev = load_device(dev_path)
         check(expanded, dev)
@@ -67,9 +72,10 @@ def load(path: str | Path, device: str | Path | None = None) -> Checked:
     return Checked(expanded, dev, timelines)
 
 
-def check_file(path: str | Path, device: str | Path | None = None) -> Summary:
+def check_file(path: str | Path, device: str | Path | None = None, *,
+               memory_limit: int | None = None) -> Summary:
     """What `spinc check` prints: a :class:`Summary` of the checked file."""
-    c = load(path, device)
+    c = load(path, device, memory_limit=memory_limit)
     return summarize(c.expanded, c.device, list(c.timelines))
 
 

@@ -138,13 +138,18 @@ def cmd_check(args) -> int:
     return EXIT_OK
 
 
+def _memory_limit(args) -> int:
+    """--memory-limit in bytes, or the default (half the memory available)."""
+    return parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
+
+
 def _synthesised(args, runs: list[int] | None = None):
-    checked = load(args.file, args.device)
-    limit = parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
+    limit = _memory_limit(args)
+    checked = load(args.file, args.device, memory_limit=limit)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     total = sum(checked.timelines[i].n_samples for i in chosen)
-    need = check_synthesis_size(total, n_outputs, limit)
+    need = check_synthesis_size(total, n_outputs, limit, file=args.file)
     return compile_checked(checked, predistort=args.predistort, runs=runs), need
 
 
@@ -208,15 +213,15 @@ def _time_arg(text: str | None, flag: str) -> float | None:
 
 def cmd_preview(args) -> int:
     from .preview import preview
-    checked = load(args.file, args.device)
+    limit = _memory_limit(args)
+    checked = load(args.file, args.device, memory_limit=limit)
     n = len(checked.timelines)
     if not 0 <= args.run < n:
         raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
                          f"(0..{n - 1})")
     args_runs = [args.run]
-    limit = parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(checked.timelines[args.run].n_samples, n_outputs, limit)
+    check_synthesis_size(checked.timelines[args.run].n_samples, n_outputs, limit, file=args.file)
     wf = compile_checked(checked, predistort=args.predistort, runs=args_runs).waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
     sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
@@ -250,7 +255,12 @@ def _simulated(args, checked):
 
 def cmd_simulate(args) -> int:
     from .report import summary_text, write_report
-    checked = load(args.file, args.device)
+    limit = _memory_limit(args)
+    checked = load(args.file, args.device, memory_limit=limit)
+    # each run is synthesised (as played) before it is simulated: the longest must fit
+    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
+    check_synthesis_size(max((t.n_samples for t in checked.timelines), default=0), n_outputs,
+                         limit, file=args.file)
     result = _simulated(args, checked)
     path = write_report(result, args.out)
     if args.json:
@@ -271,7 +281,7 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    summary = check_file(args.file, args.device)
+    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
     print(render_text(summary))
     print()
     compiled, need = _synthesised(args)
@@ -316,6 +326,15 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INTERRUPTED
     except BrokenPipeError:
         return EXIT_OK
+    except MemoryError:
+        msg = ("spinc: out of memory (the operating system refused an allocation although "
+               "spinc's own estimate was below its limit); nothing was written. Shorten the "
+               "sequence or compile fewer runs; this is worth reporting with the input files.")
+        if want_json:
+            print(json.dumps({"ok": False, "stage": "memory", "errors": [{"message": msg}]}))
+        else:
+            print(msg, file=sys.stderr)
+        return EXIT_INTERNAL
     except Exception as e:  # an internal bug, not bad input: say so plainly
         if debug:
             traceback.print_exc()

@@ -16,9 +16,11 @@ from pathlib import Path
 from typing import Iterable, Sequence
 
 MAX_SHOWN = 10  # problems printed in full before "and N more"
+MAX_LINE_SHOWN = 120  # characters of a source line printed around the caret
+MAX_TEXT_SHOWN = 200  # characters of the offending text in JSON
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Span:
     """A stretch of source text: 1-based line and column, end exclusive."""
 
@@ -64,7 +66,10 @@ class Problem:
             return ""
         start = self.span.col - 1
         end = self.span.end_col - 1 if self.span.end_line == self.span.line else len(self.source_line)
-        return self.source_line[start:max(end, start + 1)]
+        end = max(end, start + 1)
+        if end - start > MAX_TEXT_SHOWN:
+            return self.source_line[start:start + MAX_TEXT_SHOWN] + "..."
+        return self.source_line[start:end]
 
     def render(self, level: str = "error") -> str:
         where = f"{self.span}: " if self.span is not None and self.span.line > 0 else (
@@ -77,6 +82,14 @@ class Problem:
                 width = max(self.span.end_col - self.span.col, 1)
             else:
                 width = max(len(text) - start, 1)
+            if len(text) > MAX_LINE_SHOWN:
+                # a long line: show a window around the caret, marked with '...'
+                lo = max(0, min(start - MAX_LINE_SHOWN // 3, len(text) - MAX_LINE_SHOWN))
+                hi = lo + MAX_LINE_SHOWN
+                head = "..." if lo else ""
+                text = head + text[lo:hi] + ("..." if hi < len(text) else "")
+                width = max(1, min(width, hi - start))
+                start = start - lo + len(head)
             out.append(f"    {text}")
             out.append("    " + " " * start + "^" * width)
         for c in self.context:
@@ -173,13 +186,15 @@ _SOURCES: "OrderedDict[str, list[str]]" = OrderedDict()
 _SOURCES_KEPT = 64
 
 
-def remember_source(file: str, text: str) -> None:
+def remember_source(file: str, text: str) -> list[str]:
     """Keep the text of a parsed file so later stages can show its lines in
-    error messages (the last few files only)."""
-    _SOURCES[str(file)] = text.split("\n")
+    error messages (the last few files only); returns its lines."""
+    lines = text.split("\n")
+    _SOURCES[str(file)] = lines
     _SOURCES.move_to_end(str(file))
     while len(_SOURCES) > _SOURCES_KEPT:
         _SOURCES.popitem(last=False)
+    return lines
 
 
 def read_source_line(file: str | Path, line: int) -> str:

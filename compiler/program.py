@@ -16,7 +16,7 @@ from .errors import Span
 from .units import Dim
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Rotation:
     """A rotation by ``angle`` (rad, signed) about the xy-plane axis at azimuth
     ``phase`` (rad; 0 = x, π/2 = y), played as a microwave burst."""
@@ -32,7 +32,7 @@ class Rotation:
     kind = "rot"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class FrameRotation:
     """A z rotation by ``angle`` (rad): a frame update, no waveform, no time."""
     qubit: str
@@ -43,7 +43,7 @@ class FrameRotation:
     kind = "zrot"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class ExchangeGate:
     """√SWAP, its inverse, or SWAP between two coupled dots."""
     gate: str                  # "sqrtswap", "isqrtswap", "swap"
@@ -60,7 +60,7 @@ class ExchangeGate:
         return self.gate
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Idle:
     """Wait ``duration`` seconds on ``qubits`` (empty: on every dot)."""
     duration: float
@@ -71,7 +71,7 @@ class Idle:
     kind = "wait"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Readout:
     qubits: tuple[str, ...]
     span: Span
@@ -80,7 +80,7 @@ class Readout:
     kind = "read"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Trigger:
     label: str
     span: Span
@@ -88,7 +88,7 @@ class Trigger:
     kind = "trigger"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Parallel:
     """Steps on different qubits that start together."""
     steps: tuple["Step", ...]
@@ -100,7 +100,7 @@ class Parallel:
 Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Parallel]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class SweepAxis:
     name: str
     values: tuple[float, ...]  # SI
@@ -108,7 +108,7 @@ class SweepAxis:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Run:
     """One concrete experiment: a point of the sweep grid."""
     index: int
@@ -117,7 +117,7 @@ class Run:
     steps: tuple[Step, ...]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Expanded:
     """The whole file after expansion; ``runs`` is one Run per sweep point,
     in row-major order (first declared sweep outermost)."""

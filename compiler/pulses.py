@@ -124,26 +124,75 @@ class ExchangeDesign:
         return v
 
 
-def _j_integral_samples(model, x: np.ndarray, dt: float, tau: float, y0: float) -> np.ndarray:
-    """∫J(V(t))dt over each sample for held input x through the RC, exactly
-    up to quadrature (Gauss–Legendre, GL_NODES per sample)."""
-    u = (_GL_X + 1.0) * 0.5 * dt                       # nodes in [0, dt]
-    if tau > 0:
-        yb = analog.rc_boundaries(x, dt, tau, y0)[:-1]
-        y = x[:, None] + (yb - x)[:, None] * np.exp(-u / tau)[None, :]
-        # an RC output is a convex combination of its inputs: remove rounding overshoot
-        y = np.clip(y, min(x.min(), y0), max(x.max(), y0))
-    else:
-        y = np.repeat(x[:, None], GL_NODES, axis=1)
-    j = X.j_of_v(model, y)
-    return (j * _GL_W[None, :]).sum(axis=1) * 0.5 * dt
+HELD_CHUNK = 4096       # samples handled at a time (memory stays bounded for long pulses)
+
+
+def _held_samples(runs, dt: float, tau: float, y0: float):
+    """The distinct samples of a held input through an RC response.
+
+    ``runs`` is the input as ``[(value V, count), ...]`` starting from the
+    RC output ``y0``.  Yields chunks ``(x, yb, w)`` of arrays: the held value
+    of a sample, the RC output at its start, and how many identical
+    consecutive samples it stands for.  Within a run, once the RC output
+    reaches its floating-point fixed point (y_{k+1} == y_k), every later
+    sample of the run is exactly the same as the last one computed, so it is
+    counted rather than computed: a pulse of 10^7 samples costs as much as
+    its edges.  Without RC (``tau`` 0) every sample of a run is the same.
+    """
+    y = float(y0)
+    for value, count in runs:
+        left = int(count)
+        if left <= 0:
+            continue
+        if tau <= 0:
+            yield np.array([value], float), np.array([value], float), np.array([left], float)
+            y = value
+            continue
+        while left > 0:
+            k = min(left, HELD_CHUNK)
+            yb = analog.rc_boundaries(np.full(k, float(value)), dt, tau, y)
+            same = np.flatnonzero(yb[1:] == yb[:-1])
+            w = np.ones(k)
+            if same.size:
+                j = int(same[0])          # samples j+1 ... of this run repeat sample j
+                yield np.full(j + 1, float(value)), yb[:j + 1], np.concatenate(
+                    [w[:j], [float(left - j)]])
+                y = float(yb[j])
+                left = 0
+            else:
+                yield np.full(k, float(value)), yb[:-1], w
+                y = float(yb[-1])
+                left -= k
+
+
+def _held_nodes(x, yb, offsets, dt: float, tau: float, lo: float, hi: float) -> np.ndarray:
+    """Held input through the RC at ``offsets`` (s, within each sample):
+    shape (len(x),) + offsets.shape."""
+    shape = (len(x),) + (1,) * np.ndim(offsets)
+    xs = x.reshape(shape)
+    if tau <= 0:
+        return np.broadcast_to(xs, (len(x),) + np.shape(offsets))
+    y = xs + (yb.reshape(shape) - xs) * np.exp(-np.asarray(offsets) / tau)
+    # an RC output is a convex combination of its inputs: remove rounding overshoot
+    return np.clip(y, lo, hi)
+
+
+def _slot_runs(level: float, idle: float, pre: int, n: int, post: int):
+    return [(idle, pre), (level, n), (idle, post)]
 
 
 def j_integral(model, level: float, idle: float, pre: int, n: int, post: int, dt: float,
                tau: float) -> float:
-    x = np.full(pre + n + post, idle)
-    x[pre:pre + n] = level
-    return float(math.fsum(_j_integral_samples(model, x, dt, tau, idle)))
+    """∫J(V(t))dt/h over an exchange slot (idle for ``pre`` samples, ``level``
+    for ``n``, idle for ``post``) through the RC, exactly up to quadrature
+    (Gauss–Legendre, GL_NODES per sample)."""
+    u = (_GL_X + 1.0) * 0.5 * dt                       # nodes in [0, dt]
+    lo, hi = min(level, idle), max(level, idle)
+    parts = []
+    for x, yb, w in _held_samples(_slot_runs(level, idle, pre, n, post), dt, tau, idle):
+        j = X.j_of_v(model, _held_nodes(x, yb, u, dt, tau, lo, hi))
+        parts.append((j * _GL_W[None, :]).sum(axis=1) * 0.5 * dt * w)
+    return float(math.fsum(np.concatenate(parts))) if parts else 0.0
 
 
 def design_exchange(gate: str, coupling: Coupling, device: Device, dt: float,
@@ -232,41 +281,61 @@ TARGETS = {"sqrtswap": SQRT_SWAP, "isqrtswap": SQRT_SWAP.conj().T, "swap": SWAP}
 SUBSTEPS = 16   # piecewise-constant sub-steps per sample for the pair propagator
 
 
+def _ordered_product(m: np.ndarray) -> np.ndarray:
+    """``m[-1] @ ... @ m[1] @ m[0]`` for a stack of 2×2 matrices (m[0]
+    acts first), multiplied pairwise so the work is vectorised."""
+    eye = np.eye(2, dtype=complex)[None]
+    while len(m) > 1:
+        if len(m) % 2:
+            m = np.concatenate([m, eye])
+        m = m[1::2] @ m[0::2]
+    return m[0] if len(m) else eye[0]
+
+
 def pair_propagator(design: ExchangeDesign, model, delta: float) -> np.ndarray:
     """4×4 propagator of the exchange slot in the mean-Zeeman frame.
 
     J is averaged exactly over each of SUBSTEPS sub-steps per sample (so for
     δ = 0, where H commutes with itself, the result is exact); each sub-step
-    is exponentiated in closed form."""
+    is exponentiated in closed form.  Samples that repeat exactly (the
+    settled plateau and idle parts, see :func:`_held_samples`) are raised to
+    their count by repeated squaring, so long pulses cost no more than their
+    edges."""
     dt = design.dt
-    x = design.samples()
     m = SUBSTEPS
-    u = (_GL_X + 1.0) * 0.5 * (dt / m)
-    if design.tau > 0:
-        yb = analog.rc_boundaries(x, dt, design.tau, design.idle)[:-1]
-        starts = (np.arange(m) * dt / m)[None, :, None] + u[None, None, :]
-        y = x[:, None, None] + (yb - x)[:, None, None] * np.exp(-starts / design.tau)
-        y = np.clip(y, x.min(), x.max())
-    else:
-        y = np.broadcast_to(x[:, None, None], (len(x), m, GL_NODES))
-    jbar = (X.j_of_v(model, y) * _GL_W).sum(axis=-1).ravel() * 0.5   # mean J per sub-step, Hz
     h = dt / m
-    a = 2 * math.pi * jbar * h            # J·h in rad
+    offsets = (np.arange(m) * h)[:, None] + ((_GL_X + 1.0) * 0.5 * h)[None, :]
+    lo, hi = min(design.level, design.idle), max(design.level, design.idle)
     d = 2 * math.pi * delta / 2 * h       # (δ/2)·h in rad
-    # middle block H·h = −a/4·1 + [[d, a/2], [a/2, −d]]
-    w = np.sqrt(d * d + (a / 2) ** 2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sw = np.where(w > 0, np.sin(w) / np.where(w > 0, w, 1), 1.0)
-    cw = np.cos(w)
-    ph = np.exp(1j * a / 4)
-    blocks = np.empty((len(a), 2, 2), dtype=complex)
-    blocks[:, 0, 0] = ph * (cw - 1j * sw * d)
-    blocks[:, 1, 1] = ph * (cw + 1j * sw * d)
-    blocks[:, 0, 1] = blocks[:, 1, 0] = ph * (-1j * sw * a / 2)
+    a_parts = []
     mid = np.eye(2, dtype=complex)
-    for b in blocks:        # time order: later sub-steps multiply from the left
-        mid = b @ mid
-    outer = np.exp(-1j * math.fsum(a) / 4)
+    runs = _slot_runs(design.level, design.idle, design.pre, design.n, design.post)
+    for x, yb, w in _held_samples(runs, dt, design.tau, design.idle):
+        y = _held_nodes(x, yb, offsets, dt, design.tau, lo, hi)
+        jbar = (X.j_of_v(model, y) * _GL_W).sum(axis=-1) * 0.5   # mean J per sub-step, Hz
+        a = 2 * math.pi * jbar * h        # J·h in rad, shape (samples, m)
+        a_parts.append((a * w[:, None]).ravel())
+        # middle block H·h = −a/4·1 + [[d, a/2], [a/2, −d]]
+        wq = np.sqrt(d * d + (a / 2) ** 2)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sw = np.where(wq > 0, np.sin(wq) / np.where(wq > 0, wq, 1), 1.0)
+        cw = np.cos(wq)
+        ph = np.exp(1j * a / 4)
+        blocks = np.empty(a.shape + (2, 2), dtype=complex)
+        blocks[..., 0, 0] = ph * (cw - 1j * sw * d)
+        blocks[..., 1, 1] = ph * (cw + 1j * sw * d)
+        blocks[..., 0, 1] = blocks[..., 1, 0] = ph * (-1j * sw * a / 2)
+        # time order within a sample: later sub-steps multiply from the left
+        while blocks.shape[1] > 1:
+            if blocks.shape[1] % 2:
+                blocks = np.concatenate([blocks, np.broadcast_to(
+                    np.eye(2, dtype=complex), (len(blocks), 1, 2, 2))], axis=1)
+            blocks = blocks[:, 1::2] @ blocks[:, 0::2]
+        per_sample = blocks[:, 0]
+        for i in np.flatnonzero(w > 1):
+            per_sample[i] = np.linalg.matrix_power(per_sample[i], int(w[i]))
+        mid = _ordered_product(per_sample) @ mid
+    outer = np.exp(-1j * math.fsum(np.concatenate(a_parts)) / 4) if a_parts else 1.0
     U = np.zeros((4, 4), dtype=complex)
     U[0, 0] = U[3, 3] = outer
     U[1:3, 1:3] = mid

@@ -371,6 +371,26 @@ BAD = [
     pytest.param(BASE + "rotation: {amplitude: 2 V}\n",
                  "above the range of drive line 'mw'", 29, 23, id="rotation_amplitude_too_big"),
     pytest.param("- just\n- a list\n", "must be a mapping", 1, 1, id="top_level_list"),
+    # non-finite, zero, negative and unit-less values: each names its key
+    pytest.param(edited(l2="field: 1e999 mT"), "field must be a finite number", 2, 8, id="overflow"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: -1 GS/s, bits: 16, range: [-1 V, 1 V]}"),
+                 "channels.P_A.sample_rate must be greater than zero, got '-1 GS/s'", 25, 34,
+                 id="negative_sample_rate"),
+    pytest.param(edited(l3="temperature: 0 mK"), "temperature must be greater than zero", 3, 14,
+                 id="zero_temperature"),
+    pytest.param(BASE + "rotation: {mode: duration, duration: -40 ns}\n",
+                 "rotation.duration must be greater than zero", 29, 38, id="negative_duration"),
+    pytest.param(edited(l27="  B_AB: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "bias_tee: .nan}"), "channels.B_AB.bias_tee must be a finite number", 27, 83,
+                 id="nan_bias_tee"),
+    pytest.param(edited(l27="  B_AB: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "rise_time: -.inf}"), "channels.B_AB.rise_time must be a finite number",
+                 27, 84, id="minus_inf_rise_time"),
+    pytest.param(edited(l6="    g: .nan"), "dots.A.g must be a finite number", 6, 8, id="nan_g"),
+    pytest.param(edited(l10="    drive: {line: mw, rabi_per_volt: 10}"),
+                 "dots.A.drive.rabi_per_volt needs a unit", 10, 38, id="unitless_rabi"),
+    pytest.param(edited(l1='name: !!python/object:os.system "echo"'),
+                 "could not determine a constructor for the tag", 1, 7, id="python_tag"),
 ]
 
 

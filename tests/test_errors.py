@@ -50,6 +50,26 @@ CASES = [
     pytest.param("let a = 1 ns\nwait a\nwait b", SequenceError, 3, 6, "unknown name 'b'", "let NAME", id="undefined-name"),
     pytest.param("block b(q) { rot q x 90 deg }\nlet t = 1 ns\ndo b(t)", SequenceError, 1, 18,
                  "'q' is a parameter, not a qubit", "qubit", id="number-as-qubit"),
+    # non-finite, negative, zero and unit-less values, each naming what it is about
+    pytest.param("wait nan", SequenceError, 1, 6, "'nan' is not a number spinc accepts", "100 ns", id="nan"),
+    pytest.param("wait inf * 1 ns", SequenceError, 1, 6, "'inf' is not a number", "", id="inf"),
+    pytest.param("let x = 1e308 * 10", SequenceError, 1, 9, "not a finite number in 'x'", "too large", id="overflow"),
+    pytest.param("rot A x 90 deg duration=-5 ns", SequenceError, 1, 25,
+                 "the duration option must be longer than zero, got -5 ns", "duration=40 ns", id="negative-duration"),
+    pytest.param("sqrtswap A B duration=0 ns", SequenceError, 1, 23, "longer than zero, got 0 s", "", id="zero-duration"),
+    pytest.param("rot A x 90 deg amplitude=-100 mV", SequenceError, 1, 26,
+                 "the amplitude of a burst must be above zero", "negative angle", id="negative-burst-amplitude"),
+    pytest.param("let a = sin(30)", SequenceError, 1, 13, "sin() needs an angle with its unit", "sin(30 deg)",
+                 id="sin-of-plain-number"),
+    pytest.param("rot A phase(30) 90 deg", SequenceError, 1, 13, "the axis phase needs an angle unit", "90 deg",
+                 id="phase-without-unit"),
+    pytest.param("let a = 90\nrot A x a", SequenceError, 2, 9, "the rotation angle needs an angle unit", "deg",
+                 id="angle-parameter-without-unit"),
+    # the evaluator: no attribute access, bounded expressions
+    pytest.param("let x = pi.real", SequenceSyntaxError, 1, 11, "unexpected character '.'", "operators",
+                 id="attribute-access"),
+    pytest.param("let x = " + "+".join(["1"] * 300), SequenceSyntaxError, 1, 522,
+                 "more than 256 operators", "let", id="operator-chain"),
 ]
 
 
@@ -126,3 +146,27 @@ def test_missing_include_names_the_path_tried(write):
     p = info.value.first
     assert "cannot read included file 'lib/none.dotseq'" in p.message
     assert str(a.parent / "lib" / "none.dotseq") in p.hint
+
+
+def test_file_including_itself(write):
+    a = write("a.dotseq", 'wait 1 ns\ninclude "a.dotseq"\n')
+    from compiler.parse import parse_path
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(a)
+    p = info.value.first
+    assert "include cycle: a.dotseq -> a.dotseq" in p.message
+    assert (p.span.line, p.span.col) == (2, 9)
+
+
+def test_included_text_counts_against_the_size_limit(write):
+    """A small file including a big one many times is as big as the sum."""
+    from compiler import limits
+    from compiler.parse import parse_path
+    write("big.dotseq", "wait 1 ns\n" * 1000)              # 10 000 characters
+    a = write("a.dotseq", 'include "big.dotseq"\n' * 50)
+    budget = limits.budget(200_000 * limits.BYTES_PER_SOURCE_CHAR)   # 200 000 characters
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(a, budget=budget)
+    p = info.value.first
+    assert "cannot include 'big.dotseq'" in p.message and "would need about" in p.message
+    assert p.span.line == 20 and "--memory-limit" in p.hint

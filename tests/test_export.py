@@ -593,3 +593,49 @@ def test_estimate_npy_part_is_exact():
     big = estimate_bundle_bytes([RunSize(10_000_000, n_analog=1)])
     empty = estimate_bundle_bytes([RunSize(0, n_analog=1)])
     assert big - empty == 120_000_000
+
+
+# ---------------------------------------------------------------- streamed manifest
+
+@pytest.mark.parametrize("stacked", [False, True], ids=["per-run", "stacked"])
+def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
+    """The manifest is written one timeline entry at a time (a run of a
+    million steps must not be held as dicts and text); the bytes are the
+    same as encoding the whole manifest at once, chunk boundaries included."""
+    from compiler.export import manifest as mf
+    monkeypatch.setattr(mf, "_CHUNK_CHARS", 300)          # force many chunks
+    empty = make_run(1, 200)
+    empty = Waveforms(**{**{f: getattr(empty, f) for f in empty.__dataclass_fields__},
+                         "steps": ()})
+    many = make_run(2, 200)
+    many = Waveforms(**{**{f: getattr(many, f) for f in many.__dataclass_fields__},
+                        "steps": many.steps * 40})
+    plan = mf.check_runs([make_run(0, 200), empty, many], stacked=stacked)
+    sizes = bundle_mod._file_sizes(plan, True)
+    sums = {rel: f"{i:064x}" for i, rel in enumerate(sizes)}
+    whole = mf.dumps(mf.build(plan, SOURCE, sums, sizes, True))
+    pieces = list(mf.chunks(plan, SOURCE, sums, sizes, True))
+    assert len(pieces) > 10 and "".join(pieces) == whole
+    assert json.loads(whole)["runs"][1]["steps"] == []
+    assert len(json.loads(whole)["runs"][2]["steps"]) == 120
+
+
+JSON_PLAIN = st.recursive(
+    st.none() | st.booleans() | st.integers(-2**70, 2**70)
+    | st.floats(allow_nan=False, allow_infinity=False) | st.text(max_size=8),
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=6), inner,
+                                                                max_size=4),
+    max_leaves=20)
+
+
+@settings(max_examples=200, deadline=None)
+@given(JSON_PLAIN, st.integers(0, 12))
+def test_manifest_formatter_matches_the_json_encoder(value, indent):
+    from compiler.export.manifest import format_json
+    expected = json.dumps({"k": value}, sort_keys=True, indent=2, ensure_ascii=False,
+                          allow_nan=False)
+    if indent == 0:
+        assert format_json(value) == json.dumps(value, sort_keys=True, indent=2,
+                                                ensure_ascii=False, allow_nan=False)
+    # nested one level down: the same text as the encoder writes inside a dict
+    assert '{\n  "k": ' + format_json(value, 2) + "\n}" == expected

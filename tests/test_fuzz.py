@@ -1,16 +1,25 @@
-"""Property tests: random, mutated and truncated sequence text never escapes
-as anything but the tool's own error type, and always with a position."""
+"""Property tests: random, mutated and truncated sequence text and device
+YAML never escape as anything but the tool's own error type, always with a
+position, and no case takes longer than a few seconds.
+
+The default run tries a few hundred examples per property; the long run
+(``python tests/benchmarks/fuzz_long.py``, at least 20 000 examples in all)
+sets ``SPINC_FUZZ_EXAMPLES`` before importing this module.
+"""
 
 import os
 import signal
+from collections import Counter
 from contextlib import contextmanager
+from pathlib import Path
 
 import pytest
+import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from compiler.device import BUNDLED_DEFAULT, load_device
 from compiler.check import check
-from compiler.errors import SpincError
+from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
+from compiler.errors import DeviceError, SpincError
 from compiler.expand import expand
 from compiler.parse import parse_text
 from compiler.schedule import schedule
@@ -23,10 +32,30 @@ SEEDS = [p.read_text() for p in sorted(SEQUENCES.glob("*.dotseq"))] + [
 ]
 ALPHABET = st.sampled_from(list("abAB xyz019.-+*/^(){}[],;=#\"\n\t") +
                            ["rot ", "wait ", "ns", "deg", "let ", "sweep ", "repeat ", "do ", "block ",
-                            "together", "sqrtswap A B", "MHz", "mV", " on ", "phase(", "1e308", "nan"])
+                            "together", "sqrtswap A B", "MHz", "mV", " on ", "phase(", "1e308", "nan",
+                            "inf", "-0", " duration=", " amplitude=", " shape=gauss", "read A B",
+                            "prepare A B singlet", "trigger ", "swap A B", "rot A x 90 deg\n"])
+DEVICE_FILES = [BUNDLED_DEFAULT] + sorted((SEQUENCES / "devices").glob("*.yaml"))
+DEVICE_SEEDS = [Path(p).read_text(encoding="utf-8") for p in DEVICE_FILES]
+YAML_ALPHABET = st.sampled_from(
+    list(" :-[]{},#&*!|>'\"%@`0123456789.eE\n\t") +
+    ["  ", "    ", "name: x\n", "field: ", "temperature: ", "dots:\n", "channels:\n", "couplings:\n",
+     "  A:\n", "    g: ", "t1: ", "t2: ", "sample_rate: ", "bits: ", "range: ", "kind: iq",
+     "kind: gate", "kind: marker", "lo: ", "if_band: ", "drive: {line: mw, rabi_per_volt: 1 MHz/V}",
+     "plunger: P_A", "model: table", "points: [[0 mV, 1 kHz], [1 mV, 2 kHz]]", "- ", "? ",
+     ".nan", ".inf", "-.inf", "1e999", "0 GS/s", "-1 ns", "1 GS/s", "500 mT", "40 mK", "mV", "MHz",
+     "&a ", "*a", "<<: *a", "!!python/object:os.system", "!!binary", "~", "null", "yes", "0x1F",
+     "1_000", "--- ", "...\n", "preset: gaas", "preset: bilayer_graphene"])
 DEVICE = load_device(BUNDLED_DEFAULT)
 # examples per property; a long run sets SPINC_FUZZ_EXAMPLES (see tests/benchmarks/fuzz_long.py)
 N = int(os.environ.get("SPINC_FUZZ_EXAMPLES", "300"))
+CASE_SECONDS = 5.0          # no single case may take longer (no hangs)
+# repeats of a piece in the "explode" mutation: enough to pass every nesting and
+# operator limit in the default run, longer texts in the long run
+EXPLODE = (20, 400) if N <= 1000 else (50, 2000)
+MAX_SAMPLES = 200_000       # synthesise only runs up to this length (speed of the fuzz run)
+# how many cases each property tried, and how each ended (read by the long-run script)
+COUNTS: Counter = Counter()
 
 
 @contextmanager
@@ -43,22 +72,111 @@ def time_limit(seconds: float):
         signal.signal(signal.SIGALRM, old)
 
 
-def run_pipeline(text: str) -> None:
-    with time_limit(5.0):
-        try:
-            ex = expand(parse_text(text, "fuzz.dotseq"), max_runs=200, max_steps=20_000)
-            check(ex, DEVICE)
-            for r in ex.runs[:3]:
-                tl = schedule(r, DEVICE)
-                if tl.n_samples <= 200_000:
-                    synthesize(tl, DEVICE)
-        except SpincError as e:
-            assert e.problems, "an error without problems"
-            for p in e.problems:
-                assert p.message
-            text = e.render()
-            assert "error:" in text
+def assert_own_error(e: SpincError, *files: str) -> None:
+    """spinc's own error: problems with a message, each at a position (file,
+    line >= 1, column >= 1) in one of ``files``, and a rendering."""
+    assert e.problems, "an error without problems"
+    for p in e.problems:
+        assert p.message
+        assert p.span is not None, f"no position: {p.message}"
+        assert p.span.file in files, (p.span, p.message)
+        assert p.span.line >= 1 and p.span.col >= 1, (p.span, p.message)
+    assert "error:" in e.render()
 
+
+def compile_against(text: str, device, seq_file: str, *device_files: str) -> str:
+    """Parse, expand, check, schedule and (for short runs) synthesise; the
+    outcome: "ok" or the stage of spinc's own error."""
+    try:
+        ex = expand(parse_text(text, seq_file), max_runs=200, max_steps=20_000)
+        check(ex, device)
+        for r in ex.runs[:3]:
+            tl = schedule(r, device)
+            if tl.n_samples <= MAX_SAMPLES:
+                synthesize(tl, device)
+    except SpincError as e:
+        assert_own_error(e, seq_file, *device_files)
+        return e.stage
+    return "ok"
+
+
+def run_pipeline(text: str) -> str:
+    with time_limit(CASE_SECONDS):
+        outcome = "sequence " + compile_against(text, DEVICE, "fuzz.dotseq")
+    COUNTS[outcome] += 1
+    return outcome
+
+
+def steps_for(device) -> str:
+    """A short sequence using every dot and coupling of ``device``."""
+    dots = list(device.dots)
+    lines = [f"rot {d} x 90 deg" for d in dots]
+    lines += [f"sqrtswap {c.dots[0]} {c.dots[1]}" for c in device.couplings]
+    lines += ["wait 20 ns", "read " + " ".join(dots)]
+    return "\n".join(lines) + "\n"
+
+
+def run_device(text: str) -> str:
+    """Load device text; when it loads, compile a short sequence against it."""
+    with time_limit(CASE_SECONDS):
+        try:
+            dev = load_device_text(text, "fuzz.yaml")
+        except DeviceError as e:
+            assert_own_error(e, "fuzz.yaml")
+            outcome = "device error"
+        else:
+            outcome = "device ok, then " + compile_against(steps_for(dev), dev, "steps.dotseq",
+                                                           "fuzz.yaml")
+    COUNTS[outcome] += 1
+    return outcome
+
+
+def mutate(text: str, data, alphabet, explode: tuple[int, int] = EXPLODE) -> str:
+    """Up to four random edits: cut (truncate), delete, insert, swap, dup,
+    explode (a piece repeated hundreds of times) and whole-line edits (drop,
+    repeat, swap, indent)."""
+    for _ in range(data.draw(st.integers(1, 4))):
+        op = data.draw(st.sampled_from(["cut", "delete", "insert", "swap", "dup", "line",
+                                        "explode"]))
+        i = data.draw(st.integers(0, max(len(text) - 1, 0)))
+        if op == "cut":
+            text = text[:i]
+        elif op == "delete":
+            j = data.draw(st.integers(i, min(i + 10, len(text))))
+            text = text[:i] + text[j:]
+        elif op == "insert":
+            text = text[:i] + data.draw(alphabet) + text[i:]
+        elif op == "swap" and len(text) > 2:
+            j = data.draw(st.integers(0, len(text) - 1))
+            chars = list(text)
+            chars[i], chars[j] = chars[j], chars[i]
+            text = "".join(chars)
+        elif op == "dup":
+            text = text[:i] + text[i:i + 20] + text[i:]
+        elif op == "explode":
+            # a short piece repeated hundreds of times: long chains, deep nesting, long lines
+            j = data.draw(st.integers(i, min(i + 8, len(text))))
+            text = text[:i] + text[i:j] * data.draw(st.integers(*explode)) + text[j:]
+        elif op == "line":
+            lines = text.split("\n")
+            k = data.draw(st.integers(0, len(lines) - 1))
+            how = data.draw(st.sampled_from(["drop", "repeat", "swap", "indent", "dedent"]))
+            if how == "drop":
+                del lines[k]
+            elif how == "repeat":
+                lines.insert(k, lines[k])
+            elif how == "swap":
+                j = data.draw(st.integers(0, len(lines) - 1))
+                lines[k], lines[j] = lines[j], lines[k]
+            elif how == "indent":
+                lines[k] = "  " + lines[k]
+            else:
+                lines[k] = lines[k][2:] if lines[k].startswith("  ") else lines[k].lstrip()
+            text = "\n".join(lines)
+    return text
+
+
+# ---------------------------------------------------------------- sequence text
 
 @settings(max_examples=N, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(ALPHABET, max_size=60).map("".join))
@@ -69,28 +187,98 @@ def test_random_text(text):
 @settings(max_examples=N, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.sampled_from(SEEDS), st.data())
 def test_mutated_and_truncated_examples(seed, data):
-    text = seed
-    for _ in range(data.draw(st.integers(1, 4))):
-        op = data.draw(st.sampled_from(["cut", "delete", "insert", "swap", "dup"]))
-        i = data.draw(st.integers(0, max(len(text) - 1, 0)))
-        if op == "cut":
-            text = text[:i]
-        elif op == "delete":
-            j = data.draw(st.integers(i, min(i + 10, len(text))))
-            text = text[:i] + text[j:]
-        elif op == "insert":
-            text = text[:i] + data.draw(ALPHABET) + text[i:]
-        elif op == "swap" and len(text) > 2:
-            j = data.draw(st.integers(0, len(text) - 1))
-            chars = list(text)
-            chars[i], chars[j] = chars[j], chars[i]
-            text = "".join(chars)
-        elif op == "dup":
-            text = text[:i] + text[i:i + 20] + text[i:]
-    run_pipeline(text)
+    run_pipeline(mutate(seed, data, ALPHABET))
 
 
 @settings(max_examples=max(N // 3, 100), deadline=None)
 @given(st.text(max_size=200))
 def test_arbitrary_unicode(text):
     run_pipeline(text)
+
+
+EXPR_ATOMS = ["1", "2.5", "1 ns", "3 us", "90 deg", "pi", "(1 ns)", "sin(1 rad)", "a", "1e308"]
+EXPR_OPS = ["+", "-", "*", "/", "^", "**"]
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(["chain", "nest", "unary", "calls", "mixed"]), st.integers(1, 3000),
+       st.lists(st.sampled_from(EXPR_ATOMS), min_size=1, max_size=4),
+       st.lists(st.sampled_from(EXPR_OPS), min_size=1, max_size=4))
+def test_long_and_deep_expressions(shape, n, atoms, ops):
+    """Expressions thousands of operators long or deep: chains, nested
+    parentheses, unary signs, nested calls (the limits that keep evaluation
+    off the interpreter's stack)."""
+    if shape == "chain":
+        expr = atoms[0] + "".join(f" {ops[k % len(ops)]} {atoms[k % len(atoms)]}"
+                                  for k in range(n))
+    elif shape == "nest":
+        expr = "(" * n + atoms[0] + ")" * n
+    elif shape == "unary":
+        expr = "-" * n + atoms[0]
+    elif shape == "calls":
+        expr = "abs(" * n + atoms[0] + ")" * n
+    else:
+        expr = "".join(f"({atoms[k % len(atoms)]} {ops[k % len(ops)]} " for k in range(n)) \
+            + atoms[0] + ")" * n
+    run_pipeline(f"let a = 1 ns\nlet x = {expr}\nwait x on A\n")
+
+
+# ---------------------------------------------------------------- device YAML
+
+@settings(max_examples=N, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(YAML_ALPHABET, max_size=60).map("".join))
+def test_random_device_yaml(text):
+    run_device(text)
+
+
+@settings(max_examples=max(N // 2, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(DEVICE_SEEDS), st.data())
+def test_mutated_and_truncated_device_files(seed, data):
+    # half the count: a third of these devices load and are compiled against
+    run_device(mutate(seed, data, YAML_ALPHABET, explode=(10, EXPLODE[1] // 5)))
+
+
+def test_every_device_seed_loads_and_compiles():
+    """The seeds themselves are valid, so mutations start from working files."""
+    assert len(DEVICE_SEEDS) >= 4
+    for text in DEVICE_SEEDS:
+        assert run_device(text) == "device ok, then ok"
+
+
+# ---------------------------------------------------------------- failures found, kept
+
+def test_long_operator_chain_is_an_error_not_a_crash():
+    """1+1+...+1 made a tree deep enough to overflow the evaluator's stack
+    (found while hardening; now refused by the parser with a position)."""
+    assert run_pipeline("let x = " + "+".join(["1 ns"] * 5000) + "\nwait x\n") == "sequence syntax"
+    assert run_pipeline("let x = " + "^".join(["1"] * 5000) + "\n") == "sequence syntax"
+    assert run_pipeline("let x = " + "(" * 500 + "1" + ")" * 500 + "\n") == "sequence syntax"
+
+
+def test_tiny_exchange_from_a_unit_typo_is_fast():
+    """The long fuzz run swapped two characters of the GaAs demo device,
+    turning 'u: 1 meV' into 'u: 1  eV': a 260 000-sample exchange pulse
+    whose propagator took 20 s (a Python loop over every sub-step).  It
+    must compile within the per-case time limit."""
+    text = DEVICE_SEEDS[DEVICE_FILES.index(SEQUENCES / "devices" / "demo_gaas_pair.yaml")]
+    chars = list(text)
+    chars[1], chars[1959] = chars[1959], chars[1]
+    mutated = "".join(chars)
+    assert "u: 1  eV" in mutated
+    assert run_device(mutated) == "device ok, then ok"
+
+
+@pytest.mark.slow
+def test_long_fuzz_run():
+    """The long run (at least 20 000 cases in all), as the script runs it."""
+    import json
+    import subprocess
+    import sys
+    script = Path(__file__).resolve().parent / "benchmarks" / "fuzz_long.py"
+    r = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                       timeout=6 * 3600)
+    summary = json.loads(r.stdout.strip().splitlines()[-1])
+    assert r.returncode == 0 and summary["failures"] == 0, r.stdout[-5000:] + r.stderr[-5000:]
+    assert summary["cases"] >= 20_000

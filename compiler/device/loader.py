@@ -84,6 +84,10 @@ KEY_EXAMPLES = {
 
 _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 
+# A device description is a few kilobytes; far larger input is refused before
+# the (pure-Python, slow) YAML composer sees it.
+MAX_DEVICE_CHARS = 1_000_000
+
 # Thresholds of the (non-fatal) warnings.
 IDLE_EXCHANGE_RATIO = 1e-2     # J(idle)/J(pulse) above this is worth a warning
 THERMAL_RATIO = 3.0            # h·f_L/(k_B·T) below this: weak spin polarisation
@@ -201,7 +205,11 @@ class _Reader:
                       f"write it like '{example}'" if example else "")
         try:
             value = self._ctor.construct_object(node, deep=True)
-        except (ConstructorError, ValueError, TypeError, OverflowError) as exc:
+        except ConstructorError as exc:
+            # e.g. a !!python/... tag: the safe constructor knows no such type
+            self.fail(node, f"{path}: cannot read '{node.value}' ({exc.problem})",
+                      "write a plain value; YAML tags (!!...) are not allowed in a device file")
+        except (ValueError, TypeError, OverflowError) as exc:
             self.fail(node, f"{path}: cannot read '{node.value}' ({exc})")
         if value is None:
             self.fail(node, f"{path} has no value",
@@ -986,6 +994,10 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
                           Span(path, 0, 0, 0, 0))
     if text.startswith("\ufeff"):
         text = text[1:]
+    if len(text) > MAX_DEVICE_CHARS:
+        raise DeviceError(f"the device file holds {len(text):,} characters; a device "
+                          f"description is at most {MAX_DEVICE_CHARS:,}", Span(path, 1, 1, 1, 2),
+                          "check the path: this does not look like a device file")
     try:
         root = yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.YAMLError as exc:
@@ -1028,6 +1040,11 @@ def load_device(path: str | Path) -> Device:
     p = Path(path)
     where = Span(str(path), 0, 0, 0, 0)
     try:
+        size = p.stat().st_size
+        if size > 4 * MAX_DEVICE_CHARS and not p.is_dir():     # UTF-8: <= 4 bytes a character
+            raise DeviceError(f"cannot read device file '{path}': it is {size:,} bytes; a device "
+                              f"description is at most {MAX_DEVICE_CHARS:,} characters", where,
+                              "check the path: this does not look like a device file")
         data = p.read_bytes()
     except IsADirectoryError:
         raise DeviceError(f"cannot read device file '{path}': it is a directory", where) from None

@@ -20,13 +20,13 @@ from ..units import ANGLE, NONE, Dim, UNITS, literal_to_si
 MAX_EXPONENT = 1000
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Quantity:
     value: float
     dim: Dim
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class QubitRef:
     """A block argument that names a qubit."""
     name: str
@@ -142,7 +142,13 @@ def evaluate(e: T.Expr, lookup: Lookup) -> Quantity:
 def _call(e: T.Call, args: list[Quantity]) -> Quantity:
     f, x = e.func, args[0]
     if f in ("sin", "cos", "tan"):
-        if x.dim not in (ANGLE, NONE):
+        if x.dim == NONE:
+            # a bare number would silently be radians: sin(30) is almost surely 30 deg
+            raise EvalError(f"{f}() needs an angle with its unit, got a plain number",
+                            e.args[0].span,
+                            f"write e.g. {f}(30 deg), or {f}((2*pi*f*t) rad) for a phase "
+                            "worked out in radians")
+        if x.dim != ANGLE:
             raise EvalError(f"{f}() needs an angle, got {x.dim.name()}", e.span)
         v = getattr(math, f)(x.value)
         return Quantity(_finite(v, e.span, f"{f}()"), NONE)

@@ -8,12 +8,13 @@ from pathlib import Path
 
 from .. import program as P
 from ..errors import Problem, SequenceError, Span, did_you_mean, read_source_line, suggest
+from ..limits import BYTES_PER_STEP, FLAG_HINT, MAX_TOTAL_STEPS, Budget, human
 from ..parse import tree as T
 from ..units import ANGLE, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
 from .evaluate import EvalError, Pending, Quantity, QubitRef, _PendingUse, evaluate
 
 MAX_RUNS = 100_000          # sweep points in one file
-MAX_STEPS = 10_000_000      # steps in one run after unrolling
+MAX_STEPS = 10_000_000      # steps in one run after unrolling (all runs: limits.MAX_TOTAL_STEPS)
 MAX_SWEEP_POINTS = 100_000  # points on one sweep axis
 MAX_CALL_DEPTH = 64
 
@@ -22,6 +23,11 @@ _AXIS_PHASE = {"x": 0.0, "y": math.pi / 2}
 
 class _Stop(Exception):
     """The current statement is abandoned; its problem is recorded."""
+
+
+class _TooManySteps(Exception):
+    """The run passed its step limit (recorded); the run stops expanding.
+    Not a _Stop, so no handler of a single statement swallows it."""
 
 
 class _Broken:
@@ -46,6 +52,9 @@ def _lookup(env: dict):
             if isinstance(v, _Broken):
                 raise _Stop()
             return v
+        if n.id.lower() in ("nan", "inf", "infinity"):
+            raise EvalError(f"'{n.id}' is not a number spinc accepts: every value must be "
+                            "finite", n.span, "write the value itself, e.g. 100 ns")
         raise EvalError(f"unknown name '{n.id}'", n.span,
                         did_you_mean(n.id, [k for k in env if not isinstance(env[k], QubitRef)]).strip()
                         or "define it first with: let NAME = VALUE")
@@ -53,11 +62,20 @@ def _lookup(env: dict):
 
 
 class Expander:
-    def __init__(self, src: T.SourceFile, max_runs: int, max_steps: int):
+    def __init__(self, src: T.SourceFile, max_runs: int, max_steps: int,
+                 budget: Budget | None = None):
         self.src = src
         self.stmts = _flatten(src.body, [])
         self.problems: list[Problem] = []
-        self.max_runs, self.max_steps = max_runs, max_steps
+        self.budget = budget
+        # steps of all runs together; a single run may not pass it either
+        self.max_total = budget.steps if budget is not None else MAX_TOTAL_STEPS
+        self.max_runs, self.max_steps = max_runs, min(max_steps, self.max_total)
+        self.step_hint = ""
+        if budget is not None and self.max_steps == budget.steps < max_steps:
+            self.step_hint = (f"; the memory limit of {human(budget.memory)} allows about "
+                              f"{budget.steps:,} steps ({human(BYTES_PER_STEP)} each): "
+                              + FLAG_HINT)
         self.run_label = ""
 
     # ------------------------------------------------------------ problems
@@ -68,6 +86,12 @@ class Expander:
         ctx = via + ((self.run_label,) if self.run_label else ())
         self.problems.append(Problem(message, span, hint, self.source_line(span), ctx))
         return _Stop()
+
+    def too_many(self, message: str, span: Span | None, hint: str,
+                 via: tuple[str, ...] = ()) -> _TooManySteps:
+        """Record that the run passed its step limit; the caller raises the result."""
+        self.fail(message, span, hint + self.step_hint, via)
+        return _TooManySteps()
 
     # ------------------------------------------------------------ values
     def value(self, e: T.Expr, env: dict, want: Dim | None, what: str,
@@ -81,7 +105,7 @@ class Expander:
         try:
             q = evaluate(e, _lookup(env))
         except EvalError as err:
-            raise self.fail(err.message, err.span, err.hint, via) from None
+            raise self.fail(f"{err.message} in {what}", err.span, err.hint, via) from None
         except _PendingUse as p:
             raise self.fail(f"{what} cannot depend on the swept parameter '{p.sweep_name}'",
                             p.span, "sweep bounds and counts must be fixed values", via) from None
@@ -94,7 +118,8 @@ class Expander:
                             f"e.g. {ex}" if ex else "", via)
         return q
 
-    def count(self, e: T.Expr, env: dict, what: str, lo: int, hi: int, via=()) -> int:
+    def count(self, e: T.Expr, env: dict, what: str, lo: int, hi: int, via=(),
+              hint: str = "split the work into several files or runs") -> int:
         v = self.value(e, env, NONE, what, via)
         if v != int(v):
             raise self.fail(f"{what} must be a whole number, got {v:g}", e.span, "", via)
@@ -102,8 +127,7 @@ class Expander:
         if n < lo:
             raise self.fail(f"{what} must be at least {lo}, got {n}", e.span, "", via)
         if n > hi:
-            raise self.fail(f"{what} is {n}, above the limit of {hi}", e.span,
-                            "split the work into several files or runs", via)
+            raise self.fail(f"{what} is {n:,}, above the limit of {hi:,}", e.span, hint, via)
         return n
 
     # ------------------------------------------------------------ pass 1
@@ -126,7 +150,8 @@ class Expander:
                     except _PendingUse as p:
                         env[s.name] = Pending(p.sweep_name)
                     except EvalError as err:
-                        raise self.fail(err.message, err.span, err.hint) from None
+                        raise self.fail(f"{err.message} in '{s.name}'", err.span,
+                                        err.hint) from None
                 elif isinstance(s, (T.SweepRange, T.SweepList)):
                     self.define(s.name, s.span, defined)
                     env[s.name] = _Broken()
@@ -213,12 +238,14 @@ class Expander:
                 else:
                     self.emit(s, env, blocks, steps, (), ())
                     if len(steps) > self.max_steps:
-                        raise self.fail(f"the run has more than {self.max_steps} steps after "
-                                        "unrolling repeats and blocks", s.span,
-                                        "reduce repeat counts")
+                        raise self.too_many(f"the run has more than {self.max_steps:,} steps "
+                                            "after unrolling repeats and blocks", s.span,
+                                            "reduce repeat counts")
             except _Stop:
                 if isinstance(s, T.Let):
                     env[s.name] = _Broken()
+            except _TooManySteps:
+                break       # recorded once; expanding further would only take memory
         return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps))
 
     def qubit(self, ident: T.Ident, env: dict, via) -> tuple[str, Span]:
@@ -245,7 +272,7 @@ class Expander:
                 phase = self.value(s.axis.phase, env, ANGLE, "the axis phase", via)
             else:
                 phase = _AXIS_PHASE[s.axis.kind] + (math.pi if s.axis.negative else 0.0)
-            shape, dur, amp = self.step_options(s.options, env, via)
+            shape, dur, amp = self.step_options(s.options, env, via, burst=True)
             out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,)))
         elif isinstance(s, T.Exchange):
             a, sa = self.qubit(s.a, env, via)
@@ -253,7 +280,7 @@ class Expander:
             if a == b:
                 raise self.fail(f"{s.kind} needs two different qubits, got {a} twice", sb,
                                 "", via)
-            _, dur, amp = self.step_options(s.options, env, via)
+            _, dur, amp = self.step_options(s.options, env, via, burst=False)
             out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb)))
         elif isinstance(s, T.Wait):
             d = self.value(s.duration, env, TIME, "the wait", via)
@@ -293,7 +320,8 @@ class Expander:
                     leaves.append(leaf)
             out.append(P.Parallel(tuple(leaves), s.span, via))
         elif isinstance(s, T.Repeat):
-            n = self.count(s.count, env, "the repeat count", 0, self.max_steps, via)
+            n = self.count(s.count, env, "the repeat count", 0, self.max_steps, via,
+                           hint="reduce the repeat count" + self.step_hint)
             body: list = []
             for x in s.body:
                 try:
@@ -303,8 +331,9 @@ class Expander:
                 if len(body) > self.max_steps:
                     break
             if n and len(body) * n + len(out) > self.max_steps:
-                raise self.fail(f"repeat {n} makes {len(body) * n} steps, above the limit of "
-                                f"{self.max_steps}", s.span, "reduce the repeat count", via)
+                raise self.too_many(f"repeat {n} makes {len(body) * n:,} steps, above the limit "
+                                    f"of {self.max_steps:,}", s.span, "reduce the repeat count",
+                                    via)
             out.extend(body * n)
         elif isinstance(s, T.Do):
             self.call(s, env, blocks, out, via, stack)
@@ -322,7 +351,9 @@ class Expander:
             spans.append(sp)
         return tuple(names), tuple(spans)
 
-    def step_options(self, options, env, via):
+    def step_options(self, options, env, via, burst: bool):
+        """shape, duration (s) and amplitude (V) options of a step; a burst's
+        amplitude is its peak (positive), an exchange's the barrier level."""
         shape = dur = amp = None
         for o in options:
             if o.key == "shape":
@@ -330,11 +361,18 @@ class Expander:
             elif o.key == "duration":
                 dur = self.value(o.value, env, TIME, "the duration option", via)
                 if dur <= 0:
-                    raise self.fail("the duration must be positive", o.value.span, "", via)
+                    raise self.fail(f"the duration option must be longer than zero, got "
+                                    f"{format_quantity(dur, TIME)}", o.value.span,
+                                    "e.g. duration=40 ns", via)
             elif o.key == "amplitude":
                 amp = self.value(o.value, env, VOLTAGE, "the amplitude option", via)
-                if amp == 0:
-                    raise self.fail("the amplitude must not be zero", o.value.span, "", via)
+                if burst and amp <= 0:
+                    # the sign would otherwise be dropped: the angle and axis set the direction
+                    raise self.fail(f"the amplitude of a burst must be above zero, got "
+                                    f"{format_quantity(amp, VOLTAGE)}", o.value.span,
+                                    "give the peak as a positive voltage, e.g. amplitude=100 mV; "
+                                    "turn the other way with a negative angle or the -x axis",
+                                    via)
         if dur is not None and amp is not None:
             raise self.fail("give duration or amplitude, not both: the other follows from the "
                             "angle and the calibration", options[-1].span, "remove one", via)
@@ -370,14 +408,19 @@ class Expander:
             except _Stop:
                 pass
             if len(out) > self.max_steps:
-                raise self.fail(f"the run has more than {self.max_steps} steps after unrolling",
-                                s.span, "reduce repeat counts", via)
+                raise self.too_many(f"the run has more than {self.max_steps:,} steps after "
+                                    "unrolling", s.span, "reduce repeat counts", via)
 
 
 def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_STEPS,
-           ) -> P.Expanded:
-    """Expand a parsed file into its runs; raises SequenceError."""
-    ex = Expander(src, max_runs, max_steps)
+           budget: Budget | None = None) -> P.Expanded:
+    """Expand a parsed file into its runs; raises SequenceError.
+
+    The steps of all runs together are limited to ``MAX_TOTAL_STEPS``, or to
+    what ``budget`` (from :func:`compiler.limits.budget`) allows in memory;
+    expansion stops as soon as the limit is passed, before the steps are
+    scheduled."""
+    ex = Expander(src, max_runs, max_steps, budget)
     axes, device, blocks, _ = ex.declarations()
     if ex.problems:
         raise SequenceError(ex.problems)
@@ -387,6 +430,7 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
         device_path = str(base / device.path)
     grid = list(itertools.product(*[[(a.name, v, a.dim) for v in a.values] for a in axes]))
     runs: list[P.Run] = []
+    total = 0
     for i, point in enumerate(grid):
         if axes:
             ex.run_label = "for the sweep point " + ", ".join(
@@ -394,5 +438,16 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
         runs.append(ex.run(i, point, blocks))
         if ex.problems:
             raise SequenceError(ex.problems)
+        # members of 'together' groups are scheduled and recorded one by one
+        total += sum(len(s.steps) if isinstance(s, P.Parallel) else 1 for s in runs[-1].steps)
+        if total > ex.max_total:
+            if budget is not None:
+                message, hint = budget.steps_problem(ex.max_total)
+            else:
+                message = f"the runs expand to more than {MAX_TOTAL_STEPS:,} steps in all"
+                hint = "use fewer sweep points or repeats, or split the experiment"
+            span = axes[0].span if axes else (runs[-1].steps[0].span if runs[-1].steps else None)
+            raise SequenceError(f"{message} ({i + 1} of {len(grid)} runs reach {total:,})",
+                                span, hint, read_source_line(span.file, span.line) if span else "")
     return P.Expanded(src.file, device_path, device.span if device else None, tuple(axes),
                       tuple(runs))

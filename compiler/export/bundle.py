@@ -21,8 +21,8 @@ from .errors import BundleError, at, fail
 from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, csv_bytes_bound, fsync_dir,
                     npy_bytes, sha256_file, write_csv, write_npy, write_npy_rows)
 from .manifest import (ARRAYS_FOLDER, CSV_NAME, FORMAT_NAME, FORMAT_VERSION, MANIFEST_NAME, Plan,
-                       build, check_runs, codes_file, dumps, output_file, pad_values,
-                       run_folder)
+                       build, check_runs, chunks, codes_file, output_file, pad_values,
+                       plain, run_folder)
 
 
 # ---------------------------------------------------------------- writing
@@ -76,7 +76,7 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
         raise BundleError(at("<source>", f"source is a {type(source).__name__}, expected a dict",
                              "pass source={'sequence': ..., 'device': ..., ...}"))
     plan = check_runs(runs, stacked=stacked)
-    _dry_manifest(plan, source, csv=False)  # refuse unusable values before touching the disk
+    _check_manifest_values(plan, source)  # refuse unusable values before touching the disk
     target = atomic.resolve_target(out_dir)
     try:
         atomic.recover(target)
@@ -88,10 +88,10 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
         written = _write_data(plan, tmp, csv)
         checksums = {rel: w.sha256 for rel, w in written.items()}
         sizes = {rel: w.size for rel, w in written.items()}
-        text = dumps(build(plan, source, checksums, sizes, csv))
         f = _HashingFile(tmp / MANIFEST_NAME)
         try:
-            f.write(text.encode("utf-8"))
+            for piece in chunks(plan, source, checksums, sizes, csv):
+                f.write(piece.encode("utf-8"))
         except BaseException:
             f.abort()
             raise
@@ -297,20 +297,32 @@ def _file_sizes(plan: Plan, csv: bool) -> dict[str, int]:
     return sizes
 
 
-def _dry_manifest(plan: Plan, source: Mapping, csv: bool) -> tuple[dict[str, int], str]:
-    """The file sizes and the manifest text with placeholder checksums:
-    builds everything the real manifest will hold, so a value the manifest
-    cannot hold is refused before anything is written."""
+def _dry_manifest(plan: Plan, source: Mapping, csv: bool) -> tuple[dict[str, int], int]:
+    """The file sizes and the size of the manifest (bytes) with placeholder
+    checksums: encodes everything the real manifest will hold (one piece at
+    a time), so a value the manifest cannot hold is refused before anything
+    is written."""
     sizes = _file_sizes(plan, csv)
     fake = {rel: "0" * 64 for rel in sizes}
-    return sizes, dumps(build(plan, source, fake, sizes, csv))
+    return sizes, sum(len(p.encode("utf-8")) for p in chunks(plan, source, fake, sizes, csv))
+
+
+def _check_manifest_values(plan: Plan, source: Mapping) -> None:
+    """Turn every value the manifest will hold into plain JSON data (which
+    raises BundleError for a value it cannot hold), without encoding it."""
+    sizes = _file_sizes(plan, False)
+    fake = {rel: "0" * 64 for rel in sizes}
+    build(plan, source, fake, sizes, False, steps_mark="")
+    for w in plan.runs:
+        for s in w.steps:
+            plain(dict(s.params), f"step {s.index} params")
 
 
 def _estimate_waveforms(runs: list[Waveforms], csv: bool, stacked: bool,
                         source: Mapping) -> int:
     plan = check_runs(runs, stacked=stacked)
-    sizes, text = _dry_manifest(plan, source, csv)
-    return int(sum(sizes.values()) + len(text.encode("utf-8")) + 64)
+    sizes, manifest_bytes = _dry_manifest(plan, source, csv)
+    return int(sum(sizes.values()) + manifest_bytes + 64)
 
 
 def _has_extreme(v) -> bool:

@@ -13,9 +13,10 @@ from pathlib import Path
 
 from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, SpincError,
                       did_you_mean, remember_source, suggest)
+from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
-from .lexer import MAX_FILE_CHARS, Token, tokenize
+from .lexer import MAX_FILE_CHARS, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
             "isqrtswap", "swap", "wait", "read", "trigger", "together", "repeat",
@@ -30,6 +31,7 @@ INSIDE_TOGETHER = ("rot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
 MAX_INCLUDE_DEPTH = 32
 MAX_NESTING = 64
+MAX_OPERATORS = 256   # per expression: keeps the tree shallow enough to evaluate
 
 SEQUENCE_SUFFIX = ".dotseq"
 
@@ -39,27 +41,41 @@ class _Bail(Exception):
 
 
 class Parser:
-    def __init__(self, text: str, file: str, chain: tuple[str, ...] = ()):
+    def __init__(self, text: str, file: str, chain: tuple[str, ...] = (),
+                 lines: list[str] | None = None, chars: "_Chars | None" = None):
         self.file = file
-        self.lines = text.split("\n")
-        self.tokens, lex_problems = tokenize(text, file)
-        self.problems: list[Problem] = list(lex_problems)
-        self.i = 0
+        self.chars = chars if chars is not None else _Chars(None)
+        self.lines = text.split("\n") if lines is None else lines
+        # tokens are streamed: the current one, the one before (for spans)
+        # and at most one looked ahead
+        self.lex_problems: list[Problem] = []
+        self._tokens = iter_tokens(text, file, self.lex_problems, self.lines)
+        self._ahead: Token | None = None
+        self.tok: Token = next(self._tokens)
+        self.prev: Token = self.tok
+        self.problems: list[Problem] = []
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
         self.depth = 0
+        self.expr_level = 0     # nesting of expr() calls within one expression
+        self.expr_ops = 0       # operators read in the current expression
 
     # ------------------------------------------------------------ helpers
-    @property
-    def tok(self) -> Token:
-        return self.tokens[self.i]
-
-    def peek(self, k: int = 1) -> Token:
-        return self.tokens[min(self.i + k, len(self.tokens) - 1)]
+    def peek(self) -> Token:
+        """The token after the current one."""
+        if self.tok.kind == "EOF":
+            return self.tok
+        if self._ahead is None:
+            self._ahead = next(self._tokens)
+        return self._ahead
 
     def advance(self) -> Token:
-        t = self.tokens[self.i]
+        t = self.tok
         if t.kind != "EOF":
-            self.i += 1
+            self.prev = t
+            if self._ahead is not None:
+                self.tok, self._ahead = self._ahead, None
+            else:
+                self.tok = next(self._tokens)
         return t
 
     def line_text(self, span: Span) -> str:
@@ -100,9 +116,15 @@ class Parser:
         t = self.tok
         return t.kind in ("NEWLINE", "EOF") or (t.kind == "OP" and t.text in (";", "}"))
 
-    def span_from(self, start: Span) -> Span:
-        prev = self.tokens[max(self.i - 1, 0)]
-        return Span(start.file, start.line, start.col, prev.span.end_line, prev.span.end_col)
+    def span_from(self, start: Span | Token) -> Span:
+        """From ``start`` (a span or a token) to the end of the last token read."""
+        prev = self.prev
+        return Span(start.file, start.line, start.col, prev.line, prev.end_col)
+
+    @staticmethod
+    def token_span(a: Token, b: Token) -> Span:
+        """From the start of token ``a`` to the end of token ``b``."""
+        return Span(a.file, a.line, a.col, b.line, b.end_col)
 
     def sync(self) -> None:
         """Skip to the end of the current statement (respecting braces)."""
@@ -174,9 +196,9 @@ class Parser:
                              "not inside a block, repeat or together", t.span,
                              "move it before the steps")
         self.advance()
-        return getattr(self, f"st_{word}")(t.span)
+        return getattr(self, f"st_{word}")(t)
 
-    def st_device(self, start: Span) -> T.Stmt:
+    def st_device(self, start: Token) -> T.Stmt:
         s = self.tok
         if s.kind != "STRING":
             raise self.error("expected the device file path in double quotes", s.span,
@@ -184,7 +206,7 @@ class Parser:
         self.advance()
         return T.DeviceStmt(s.text[1:-1], self.span_from(start))
 
-    def st_include(self, start: Span) -> T.Stmt:
+    def st_include(self, start: Token) -> T.Stmt:
         s = self.tok
         if s.kind != "STRING":
             raise self.error("expected the file to include, in double quotes", s.span,
@@ -202,16 +224,18 @@ class Parser:
         if len(self.chain) > MAX_INCLUDE_DEPTH:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
         try:
-            sub = parse_path(target, chain=self.chain)
+            sub = parse_path(target, chain=self.chain, _chars=self.chars)
         except SpincError as e:
             self.problems.extend(e.problems)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
                              f"tried {target}; paths are relative to the including file") from None
+        except _TooLarge as e:
+            raise self.error(f"cannot include '{rel}': {e.message}", s.span, e.hint) from None
         return T.Include(rel, str(target), sub.body, span)
 
-    def st_let(self, start: Span) -> T.Stmt:
+    def st_let(self, start: Token) -> T.Stmt:
         n = self.expect_name("a parameter name after 'let'", "e.g. let tau = 100 ns")
         self.check_new_name(n)
         self.expect_op("=", f"e.g. let {n.text} = 100 ns")
@@ -225,7 +249,7 @@ class Parser:
             raise self.error(f"'{n.text}' is {kind} and cannot be used as a parameter name",
                              n.span, "choose another name")
 
-    def st_sweep(self, start: Span) -> T.Stmt:
+    def st_sweep(self, start: Token) -> T.Stmt:
         n = self.expect_name("the swept parameter's name", "e.g. sweep tau from 0 ns to 400 ns in 21")
         self.check_new_name(n)
         how = self.expect_name("'from' or 'over'", "sweep tau from 0 ns to 400 ns in 21  |  "
@@ -255,7 +279,7 @@ class Parser:
                              "did you forget a line break or ';'?")
         return T.Ident(t.text, t.span)
 
-    def st_prepare(self, start: Span) -> T.Stmt:
+    def st_prepare(self, start: Token) -> T.Stmt:
         names: list[Token] = []
         while self.tok.kind == "NAME":
             names.append(self.advance())
@@ -276,7 +300,7 @@ class Parser:
         return T.Prepare(qubits, state, self.span_from(start))
 
     def axis(self) -> T.Axis:
-        start = self.tok.span
+        start = self.tok
         neg = False
         if self.at_op("-"):
             self.advance()
@@ -313,10 +337,10 @@ class Parser:
                 value: T.Expr | T.Ident = T.Ident(v.text, v.span)
             else:
                 value = self.expr()
-            opts.append(T.Option(k.text, value, self.span_from(k.span)))
+            opts.append(T.Option(k.text, value, self.span_from(k)))
         return tuple(opts)
 
-    def st_rot(self, start: Span) -> T.Stmt:
+    def st_rot(self, start: Token) -> T.Stmt:
         q = self.qubit("the qubit to rotate")
         ax = self.axis()
         angle = self.expr()
@@ -326,22 +350,22 @@ class Parser:
                              opts[0].span, "remove the options")
         return T.Rot(q, ax, angle, opts, self.span_from(start))
 
-    def _exchange(self, kind: str, start: Span) -> T.Stmt:
+    def _exchange(self, kind: str, start: Token) -> T.Stmt:
         a = self.qubit(f"the first qubit of {kind}")
         b = self.qubit(f"the second qubit of {kind}")
         opts = self.options(EXCHANGE_OPTIONS, kind)
         return T.Exchange(kind, a, b, opts, self.span_from(start))
 
-    def st_sqrtswap(self, start: Span) -> T.Stmt:
+    def st_sqrtswap(self, start: Token) -> T.Stmt:
         return self._exchange("sqrtswap", start)
 
-    def st_isqrtswap(self, start: Span) -> T.Stmt:
+    def st_isqrtswap(self, start: Token) -> T.Stmt:
         return self._exchange("isqrtswap", start)
 
-    def st_swap(self, start: Span) -> T.Stmt:
+    def st_swap(self, start: Token) -> T.Stmt:
         return self._exchange("swap", start)
 
-    def st_wait(self, start: Span) -> T.Stmt:
+    def st_wait(self, start: Token) -> T.Stmt:
         d = self.expr()
         qubits: list[T.Ident] = []
         if self.tok.kind == "NAME" and self.tok.text == "on":
@@ -351,13 +375,13 @@ class Parser:
                 qubits.append(self.qubit())
         return T.Wait(d, tuple(qubits), self.span_from(start))
 
-    def st_read(self, start: Span) -> T.Stmt:
+    def st_read(self, start: Token) -> T.Stmt:
         qubits = [self.qubit("a qubit to read")]
         while self.tok.kind == "NAME" and self.tok.text not in KEYWORDS:
             qubits.append(self.qubit())
         return T.Read(tuple(qubits), self.span_from(start))
 
-    def st_trigger(self, start: Span) -> T.Stmt:
+    def st_trigger(self, start: Token) -> T.Stmt:
         label = ""
         if self.tok.kind == "STRING":
             label = self.advance().text[1:-1]
@@ -376,7 +400,7 @@ class Parser:
         self.advance()
         return tuple(body)
 
-    def st_together(self, start: Span) -> T.Stmt:
+    def st_together(self, start: Token) -> T.Stmt:
         body = self.braced("together")
         for s in body:
             if not isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Do)):
@@ -386,12 +410,12 @@ class Parser:
                                  + ", ".join(INSIDE_TOGETHER))
         return T.Together(body, self.span_from(start))
 
-    def st_repeat(self, start: Span) -> T.Stmt:
+    def st_repeat(self, start: Token) -> T.Stmt:
         n = self.expr()
         body = self.braced("repeat")
         return T.Repeat(n, body, self.span_from(start))
 
-    def st_block(self, start: Span) -> T.Stmt:
+    def st_block(self, start: Token) -> T.Stmt:
         n = self.expect_name("the block's name", "e.g. block echo(q, tau) { ... }")
         self.check_new_name(n)
         self.expect_op("(", "list the parameters in parentheses, e.g. block echo(q, tau) { ... }")
@@ -420,7 +444,7 @@ class Parser:
                 items.append(self.expr())
         return items
 
-    def st_do(self, start: Span) -> T.Stmt:
+    def st_do(self, start: Token) -> T.Stmt:
         n = self.expect_name("the block to run", "e.g. do echo(A, 100 ns)")
         self.expect_op("(", "give the arguments in parentheses, e.g. do echo(A, 100 ns)")
         args = self.expr_list(")")
@@ -428,32 +452,45 @@ class Parser:
         return T.Do(n.text, tuple(args), self.span_from(start))
 
     # ------------------------------------------------------------ expressions
+    def operator(self) -> Token:
+        """Read an operator token, counting it against MAX_OPERATORS (a chain
+        like 1+1+...+1 builds a tree as deep as it is long)."""
+        self.expr_ops += 1
+        if self.expr_ops > MAX_OPERATORS:
+            raise self.error(f"this expression has more than {MAX_OPERATORS} operators",
+                             self.tok.span, "split it into several 'let' lines")
+        return self.advance()
+
     def expr(self) -> T.Expr:
+        if self.expr_level == 0:
+            self.expr_ops = 0
+        self.expr_level += 1
         self.depth += 1
-        if self.depth > MAX_NESTING:
-            raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
-                             "simplify it or split it with let")
         try:
+            if self.depth > MAX_NESTING:
+                raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
+                                 "simplify it or split it with let")
             left = self.term()
             while self.tok.kind == "OP" and self.tok.text in ("+", "-"):
-                op = self.advance().text
+                op = self.operator().text
                 right = self.term()
                 left = T.Binary(op, left, right, Span.join(left.span, right.span))
             return left
         finally:
             self.depth -= 1
+            self.expr_level -= 1
 
     def term(self) -> T.Expr:
         left = self.unary()
         while self.tok.kind == "OP" and self.tok.text in ("*", "/"):
-            op = self.advance().text
+            op = self.operator().text
             right = self.unary()
             left = T.Binary(op, left, right, Span.join(left.span, right.span))
         return left
 
     def unary(self) -> T.Expr:
         if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
-            t = self.advance()
+            t = self.operator()
             self.depth += 1
             if self.depth > MAX_NESTING:
                 raise self.error("expression nested too deeply", t.span)
@@ -461,13 +498,14 @@ class Parser:
                 operand = self.unary()
             finally:
                 self.depth -= 1
-            return T.Unary(t.text, operand, Span.join(t.span, operand.span))
+            return T.Unary(t.text, operand, Span(t.file, t.line, t.col, operand.span.end_line,
+                                                 operand.span.end_col))
         return self.power()
 
     def power(self) -> T.Expr:
         base = self.primary()
         if self.at_op("^"):
-            self.advance()
+            self.operator()
             exp = self.unary()
             return T.Binary("^", base, exp, Span.join(base.span, exp.span))
         return base
@@ -489,8 +527,7 @@ class Parser:
         if t.kind == "NUMBER":
             self.advance()
             u = self.unit_after()
-            span = Span.join(t.span, u.span) if u else t.span
-            return T.Num(t.text, u.text if u else None, span)
+            return T.Num(t.text, u.text if u else None, self.token_span(t, u or t))
         if t.kind == "NAME":
             if t.text in KEYWORDS:
                 raise self.error(f"expected a value, found the keyword '{t.text}'", t.span,
@@ -503,7 +540,7 @@ class Parser:
                 self.advance()
                 args = self.expr_list(")")
                 close = self.expect_op(")", "close the function call with ')'")
-                span = Span.join(t.span, close.span)
+                span = self.token_span(t, close)
                 if len(args) != FUNCTIONS[t.text]:
                     raise self.error(f"{t.text}() takes {FUNCTIONS[t.text]} argument"
                                      f"{'s' if FUNCTIONS[t.text] > 1 else ''}, got {len(args)}", span)
@@ -515,7 +552,7 @@ class Parser:
             close = self.expect_op(")", "close the parenthesis")
             u = self.unit_after()
             if u is not None:
-                return T.WithUnit(inner, u.text, Span.join(t.span, u.span))
+                return T.WithUnit(inner, u.text, self.token_span(t, u))
             return inner
         hint = ""
         if t.kind in ("NEWLINE", "EOF"):
@@ -524,49 +561,96 @@ class Parser:
 
 
 class _MissingInclude(Exception):
-    def __init__(self, reason: str):
-        self.reason = reason
+    def __init__(self, reason: str, hint: str = ""):
+        self.reason, self.hint = reason, hint
 
 
-def _read(path: Path) -> str:
+class _TooLarge(Exception):
+    def __init__(self, message: str, hint: str):
+        self.message, self.hint = message, hint
+
+
+class _Chars:
+    """Characters read for one parse: the file and everything it includes
+    (a file included a thousand times counts a thousand times)."""
+
+    def __init__(self, budget: Budget | None):
+        self.budget = budget
+        self.limit = min(MAX_FILE_CHARS, budget.chars) if budget is not None else MAX_FILE_CHARS
+        self.used = 0
+
+    def take(self, n: int) -> None:
+        """Count ``n`` more characters; raises _TooLarge above the limit."""
+        self.check(n)
+        self.used += n
+
+    def check(self, n: int) -> None:
+        """Raise _TooLarge if ``n`` more characters would pass the limit."""
+        if self.used + n > self.limit:
+            if self.budget is not None:
+                raise _TooLarge(*self.budget.chars_problem(self.used + n))
+            raise _TooLarge(f"the sequence and its includes hold more than {self.limit:,} "
+                            "characters", "split the experiment into several files")
+
+
+def _read(path: Path, chars: _Chars) -> str:
     try:
-        size = path.stat().st_size
         if path.is_dir():
-            raise _MissingInclude("it is a directory")
-        if size > MAX_FILE_CHARS:
-            raise _MissingInclude(f"it is {size} bytes; the limit is {MAX_FILE_CHARS}")
+            raise _MissingInclude("it is a directory, not a file",
+                                  f"give a sequence file (ending in {SEQUENCE_SUFFIX})")
+        chars.check(path.stat().st_size)    # bytes >= characters: refuse before reading
         return path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise _MissingInclude("no such file") from None
+        raise _MissingInclude("no such file", "check the path") from None
     except UnicodeDecodeError as e:
-        raise _MissingInclude(f"not UTF-8 text (byte {e.start})") from None
+        raise _MissingInclude(f"it is not UTF-8 text (byte 0x{e.object[e.start]:02x} at offset "
+                              f"{e.start})", "save it as UTF-8 text; spinc reads only text "
+                              "files") from None
     except OSError as e:
-        raise _MissingInclude(e.strerror or str(e)) from None
+        raise _MissingInclude(e.strerror or str(e), "check the path and its permissions") from None
 
 
-def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = ()) -> T.SourceFile:
-    """Parse sequence text; raises SequenceSyntaxError listing every problem."""
-    if len(text) > MAX_FILE_CHARS:
-        raise SequenceSyntaxError(f"sequence text is {len(text)} characters; the limit is "
-                                  f"{MAX_FILE_CHARS}", Span(file, 1, 1, 1, 1))
-    remember_source(file, text)
-    p = Parser(text, file, chain)
+def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
+               budget: Budget | None = None, _chars: _Chars | None = None) -> T.SourceFile:
+    """Parse sequence text; raises SequenceSyntaxError listing every problem.
+
+    ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
+    read, includes and all, by the memory the tree would take."""
+    chars = _chars if _chars is not None else _Chars(budget)
+    try:
+        chars.take(len(text))
+    except _TooLarge as e:
+        raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
+    p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
     result = p.parse_file()
-    if p.problems:
-        raise SequenceSyntaxError(p.problems)
+    if p.lex_problems or p.problems:
+        raise SequenceSyntaxError(p.lex_problems + p.problems)
     return result
 
 
-def parse_path(path: str | Path, chain: tuple[str, ...] = ()) -> T.SourceFile:
-    """Read and parse one sequence file (and the files it includes)."""
+def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget | None = None,
+               _chars: _Chars | None = None) -> T.SourceFile:
+    """Read and parse one sequence file (and the files it includes).
+
+    ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
+    read, includes and all, by the memory the tree would take."""
     path = Path(path)
+    chars = _chars if _chars is not None else _Chars(budget)
     if not chain:
         try:
-            text = _read(path)
+            text = _read(path, chars)
         except _MissingInclude as e:
             raise SequenceError(f"cannot read sequence file '{path}': {e.reason}",
-                                Span(str(path), 0, 0, 0, 0),
-                                f"sequence files end in {SEQUENCE_SUFFIX}; check the path") from None
+                                Span(str(path), 0, 0, 0, 0), e.hint) from None
+        except _TooLarge as e:
+            raise SequenceError(e.message, Span(str(path), 0, 0, 0, 0), e.hint) from None
     else:
-        text = _read(path)
-    return parse_text(text, str(path), chain)
+        text = _read(path, chars)
+    tree = parse_text(text, str(path), chain, _chars=chars)
+    if not chain and not tree.body:
+        # an empty file is almost always a wrong path or a copy that failed
+        raise SequenceError(f"the sequence file '{path}' holds no statements"
+                            + (" (it is empty)" if not text.strip() else " (only comments)"),
+                            Span(str(path), 1, 1, 1, 1),
+                            "write the experiment in it, e.g. 'rot A x 90 deg' (docs/language.md)")
+    return tree

@@ -18,27 +18,27 @@ from ..errors import Span
 # ---------------------------------------------------------------- expressions
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Num:
     text: str                 # the number as written, e.g. "90", "1.5e-3"
     unit: str | None          # unit symbol as written, e.g. "deg", "ns"
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Name:
     id: str
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Unary:
     op: str                   # "-" or "+"
     operand: "Expr"
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Binary:
     op: str                   # "+", "-", "*", "/", "^"
     left: "Expr"
@@ -46,14 +46,14 @@ class Binary:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Call:
     func: str
     args: tuple["Expr", ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class WithUnit:
     """A parenthesised expression followed by a unit: ``(pi/2) rad``."""
     expr: "Expr"
@@ -66,14 +66,14 @@ Expr = Union[Num, Name, Unary, Binary, Call, WithUnit]
 # ---------------------------------------------------------------- statements
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Ident:
     """A qubit (dot) name, or a block parameter standing for one."""
     name: str
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Axis:
     """Rotation axis: 'x', 'y', 'z' (with sign) or 'phase' with an angle."""
     kind: str                 # "x", "y", "z", "phase"
@@ -82,20 +82,20 @@ class Axis:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Option:
     key: str
     value: Union[Expr, Ident]   # Ident for word values such as shape=gauss
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class DeviceStmt:
     path: str
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Include:
     path: str                 # as written
     file: str                 # resolved path that was read
@@ -103,14 +103,14 @@ class Include:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Let:
     name: str
     expr: Expr
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class SweepRange:
     name: str
     start: Expr
@@ -119,21 +119,21 @@ class SweepRange:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class SweepList:
     name: str
     values: tuple[Expr, ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Prepare:
     qubits: tuple[Ident, ...]
     state: str                # up, down, xplus, xminus, yplus, yminus, singlet
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Rot:
     qubit: Ident
     axis: Axis
@@ -142,7 +142,7 @@ class Rot:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Exchange:
     kind: str                 # "sqrtswap", "isqrtswap", "swap"
     a: Ident
@@ -151,39 +151,39 @@ class Exchange:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Wait:
     duration: Expr
     qubits: tuple[Ident, ...]  # empty: every qubit
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Read:
     qubits: tuple[Ident, ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Trigger:
     label: str
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Together:
     body: tuple["Stmt", ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Repeat:
     count: Expr
     body: tuple["Stmt", ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class BlockDef:
     name: str
     params: tuple[str, ...]
@@ -191,7 +191,7 @@ class BlockDef:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Do:
     name: str
     args: tuple[Expr, ...]
@@ -202,7 +202,7 @@ Stmt = Union[DeviceStmt, Include, Let, SweepRange, SweepList, Prepare, Rot, Exch
              Wait, Read, Trigger, Together, Repeat, BlockDef, Do]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class SourceFile:
     """One parsed sequence file."""
     file: str

@@ -43,7 +43,7 @@ TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class Slot:
     """One step placed on the sample grid."""
     step: P.Step | None        # the program step; None for inserted align/zcorrect entries
