@@ -17,6 +17,7 @@ from .limits import check_synthesis_size, default_limit, human, parse_size
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
+EXIT_PARTIAL = 4   # spinc sweep: workers lost; the partial table is written, --resume continues
 
 CAUTION = ("Caution: check every compiled voltage and microwave amplitude against the sample's "
            "and the lab's own limits before loading it onto an instrument; spinc does not "
@@ -89,7 +90,62 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report")
     _common(r)
     _sim_flags(r)
+    _sweep_parser(sub)
     return p
+
+
+SWEEP_EPILOG = (
+    "Names: field, temperature, rotation.amplitude or rotation.duration, DOT.g, DOT.t1, DOT.t2, "
+    "DOT.t2_star, DOT.rabi_per_volt, PAIR.j_scale, PAIR.j0 (exponential J(V)), "
+    "PAIR.pulse_voltage, PAIR.idle_voltage, PAIR.charge_noise (PAIR as A-B), and the file's own "
+    "let and sweep names (docs/sweep.md). Exit codes: 0 complete, 2 bad input, 3 internal "
+    "error, 4 workers lost (partial table written), 130 interrupted (partial table written); "
+    "continue a partial sweep with the same arguments and --resume. Caution: sweeping drive "
+    "amplitudes or gate levels is a simulation only; check the compiled waveforms of the "
+    "chosen point against the sample's and the lab's limits before loading anything.")
+
+
+def _sweep_parser(sub) -> None:
+    w = sub.add_parser("sweep", help="simulate a sweep of one or two device or sequence "
+                       "parameters in parallel: a table (CSV, JSON) and a plot",
+                       description="Whole-run fidelity (and with --budget the largest error "
+                       "sources) at every point of a sweep of one or two parameters of the device "
+                       "(field, a dot's g or T2, a coupling's J, the drive) or of the sequence (its "
+                       "let and sweep names), on the local cores or a Dask cluster. Every point "
+                       "is checked before anything is simulated; finished points are kept when "
+                       "the sweep is interrupted (docs/sweep.md).", epilog=SWEEP_EPILOG)
+    w.add_argument("file", help="sequence file (.dotseq)")
+    w.add_argument("-o", "--out", required=True, help="folder for sweep.csv, sweep.json, sweep.png "
+                   "and the state file points.jsonl")
+    w.add_argument("--vary", action="append", default=[], metavar="NAME=START:STOP:POINTS",
+                   help="sweep a parameter: START:STOP:POINTS (even), START:STOP:POINTS:log, or "
+                   "V1,V2,...; values with units, e.g. --vary field=0.5T:1.5T:11 (at most two; "
+                   "the first is the outer axis and across in the heat map)")
+    w.add_argument("--set", dest="fixed", action="append", default=[], metavar="NAME=VALUE",
+                   help="hold a parameter at one value, e.g. --set A.t2=40us or --set tau=200ns "
+                   "(pins a sweep of the file)")
+    w.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
+                   "point (about ten more simulations per point)")
+    w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
+                   "the number of cores; 1 computes in this process)")
+    w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
+                   "(default: the SPINC_CLUSTER environment variable; 'local' ignores it); needs "
+                   "pip install 'spinc[dask]'")
+    w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
+                   "folder (same file, device and arguments): compute only the missing points")
+    w.add_argument("--engine", choices=("fast", "reference"), default="fast",
+                   help="fast (default) or reference (qutip mesolve, slow)")
+    w.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
+                   "variable (default 5)")
+    w.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
+                   help="full product grid, one noise at a time, or auto (default)")
+    w.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
+                   "(default 2)")
+    w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
+                   "--substeps of 64 or more; slow)")
+    w.add_argument("--quiet", action="store_true", help="no progress bar")
+    w.add_argument("--json", action="store_true", help="print sweep.json on stdout for scripts")
 
 
 def _sim_flags(p) -> None:
@@ -293,6 +349,162 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
+class _SweepProgress:
+    """Progress of a sweep on stderr: a tqdm bar (points done, rate, time left)
+    on a terminal; without one a plain line about every tenth of the points."""
+
+    def __init__(self, enabled: bool, stream=None):
+        self.enabled = enabled
+        self.stream = stream or sys.stderr
+        self.bar = None
+        self.done = self.total = self.next_line = 0
+
+    def start(self, total: int, done: int) -> None:
+        self.total, self.done = total, done
+        if not self.enabled or done >= total:
+            return
+        if getattr(self.stream, "isatty", lambda: False)():
+            from tqdm import tqdm
+            self.bar = tqdm(total=total, initial=done, unit="pt", desc="sweep", file=self.stream,
+                            dynamic_ncols=True, smoothing=0.1)
+        else:
+            self.next_line = done + max(1, total // 10)
+
+    def advance(self, point) -> None:
+        self.done += 1
+        if self.bar is not None:
+            self.bar.update(1)
+        elif self.enabled and self.done >= self.next_line:
+            print(f"sweep: {self.done}/{self.total} points", file=self.stream, flush=True)
+            self.next_line = self.done + max(1, self.total // 10)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _range_text(a) -> str:
+    from .units import format_quantity
+    if a.points == 1:
+        return format_quantity(a.values[0], a.dim)
+    kind = {"log": ", log spaced", "list": ""}.get(a.spacing, "")
+    return (f"{format_quantity(a.values[0], a.dim)} .. {format_quantity(a.values[-1], a.dim)}, "
+            f"{a.points} points{kind}")
+
+
+def cmd_sweep(args) -> int:
+    import os
+    import shlex
+    import signal
+    from .report.fmt import fmt_fidelity, fmt_ratio, fmt_sci
+    from .simulate import SimOptions
+    from .sweep import plan_sweep, run_sweep
+    from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
+    from .sweep.table import best_point, json_text, values_text
+    from .units import format_quantity
+
+    cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
+    cluster = cluster.strip() or None
+    if cluster == "local":
+        cluster = None
+    if cluster and args.workers is not None:
+        raise UsageError("--workers sets the local worker processes, but the sweep goes to the Dask "
+                         f"cluster {cluster}" + ("" if args.cluster else
+                                                 f" (from {CLUSTER_VARIABLE})"),
+                         hint="drop --workers, or give --cluster local to compute here")
+    if cluster:
+        _dask()                      # fail now, with the install hint, not after planning
+    workers = args.workers if args.workers is not None else local_cores()
+    if workers < 1:
+        raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
+                      rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
+    plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
+                      budget=args.budget)
+    argv = [a for a in getattr(args, "argv", []) if a != "--resume"]
+    command = "spinc " + shlex.join(argv + ["--resume"])
+    say = (lambda *a: None) if args.json else print
+    say(f"sweep     {args.file} on {plan.device_name} ({plan.device_path})")
+    for a in plan.axes:
+        say(f"axis      {a.name}: {_range_text(a)}" + ("  (the file's sweep)" if a.source == "file"
+                                                        else ""))
+    for a in plan.fixed:
+        say(f"fixed     {a.name} = {format_quantity(a.values[0], a.dim)}")
+    say(f"points    {plan.n_points}" + (f" ({' x '.join(map(str, plan.shape))})"
+                                        if len(plan.shape) > 1 else ""))
+    say(f"settings  {args.engine} engine, {args.nodes} quadrature nodes ({args.quadrature}), "
+        f"{args.substeps} sub-step{'s' * (args.substeps != 1)} per sample"
+        + ("" if not args.no_rwa else ", no RWA") + "; "
+        + ("whole-run fidelity and error budget" if args.budget else
+           "whole-run fidelity (--budget adds the error budget)"))
+    say(f"workers   " + (f"Dask cluster {cluster}" if cluster else
+                         f"{workers} local process{'es' * (workers != 1)}" if workers > 1 else
+                         "this process"))
+    for w in plan.warnings:
+        say(f"warning: {w}")
+    progress = _SweepProgress(enabled=not args.quiet)
+
+    def on_term(signum, frame):
+        raise KeyboardInterrupt
+    old_term = signal.signal(signal.SIGTERM, on_term)
+    try:
+        outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
+                            progress=progress, command=command)
+    finally:
+        signal.signal(signal.SIGTERM, old_term)
+    table = outcome.table
+    code = {"complete": EXIT_OK, "interrupted": EXIT_INTERRUPTED, "workers lost": EXIT_PARTIAL,
+            "failed": EXIT_INTERNAL}[outcome.status]
+    if args.json:
+        print(json_text(table, figure="sweep.png" if "png" in outcome.files else None), end="")
+    else:
+        stats = outcome.stats
+        per = stats.get("point_wall_mean_s")
+        say(f"done      {len(table.points)} of {table.n_points} points"
+            + (f" ({outcome.resumed} from the earlier run)" if outcome.resumed else "")
+            + f" in {stats.get('wall_s', 0):.1f} s"
+            + (f"; {per:.3g} s per point of compute" if per else ""))
+        invalid = [p for p in table.points if p.status == "invalid"]
+        if invalid:
+            say(f"invalid   {len(invalid)} point(s), e.g. at {values_text(table, invalid[0].coords)}: "
+                f"{invalid[0].message}")
+        best = best_point(table)
+        ok = [p for p in table.points if p.status == "ok"]
+        if best is not None:
+            worst = min(ok, key=lambda p: p.fidelity)
+            say(f"best      F = {fmt_fidelity(best.fidelity)} (1 - F = {fmt_sci(best.infidelity)}) "
+                f"at {values_text(table, best.coords)}")
+            say(f"worst     F = {fmt_fidelity(worst.fidelity)} at {values_text(table, worst.coords)}")
+            say(f"          F = {table.metric} of the whole run against the ideal circuit")
+            margins = [p.margin for p in ok if p.margin is not None]
+            if margins:
+                lo, hi = min(margins), max(margins)
+                say(f"margin    T2 / longest gate {fmt_ratio(lo)}"
+                    + (f" .. {fmt_ratio(hi)}" if hi != lo else "")
+                    + ("  BELOW the rule of thumb of 1e4 at some points" if lo < 1e4 else ""))
+            if best.budget:
+                top = sorted(best.budget, key=lambda b: -b[1])[:3]
+                say("sources   at the best point: " + ", ".join(f"{s} {fmt_sci(v)}" for s, v in top))
+        for k, path in sorted(outcome.files.items()):
+            say(f"{k:<9} {path}")
+        if outcome.errors:
+            e = outcome.errors[0]
+            print(f"spinc: internal error at {len(outcome.errors)} point(s), e.g. at "
+                  f"{values_text(table, e.coords)}: {e.message}. This is a bug in spinc; those "
+                  "points are not in the table (--resume retries them).", file=sys.stderr)
+        for idx, why in outcome.lost[:3]:
+            print(f"spinc: lost {'point ' + str(idx) if idx >= 0 else 'workers'}: {why}",
+                  file=sys.stderr)
+    if outcome.status != "complete":
+        what = {"interrupted": "interrupted", "workers lost": "stopped: workers lost",
+                "failed": "incomplete"}[outcome.status]
+        print(f"spinc: sweep {what}; {len(table.points)} of {table.n_points} points done, "
+              f"{len(table.missing)} missing; the partial table is written (marked partial) in "
+              f"{outcome.folder}\ncontinue with:\n  {command}", file=sys.stderr)
+    return code
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
@@ -303,8 +515,9 @@ def main(argv: list[str] | None = None) -> int:
             raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
         if getattr(args, "out", None):
             _make_parent(args.out)
+        args.argv = argv
         return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
-                "simulate": cmd_simulate, "run": cmd_run}[args.command](args)
+                "simulate": cmd_simulate, "run": cmd_run, "sweep": cmd_sweep}[args.command](args)
     except SpincError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))
