@@ -131,11 +131,33 @@ def _dask():
     return distributed
 
 
+def _probe(address: str, timeout: float = 5.0) -> None:
+    """Fail at once when nothing listens at a tcp:// address (the Dask client
+    would retry until its timeout)."""
+    import socket
+    rest = address[len("tcp://"):] if address.startswith("tcp://") else address
+    if "://" in rest:
+        return                                   # another protocol: let Dask try
+    host, sep, port = rest.rpartition(":")
+    if not sep or not port.isdigit() or not host:
+        raise UsageError(f"--cluster '{address}': give the scheduler as tcp://HOST:PORT",
+                         hint="e.g. --cluster tcp://10.0.0.5:8786")
+    try:
+        with socket.create_connection((host.strip("[]"), int(port)), timeout=timeout):
+            pass
+    except OSError as e:
+        raise fail(None, f"cannot reach the Dask scheduler at {address}: {e.strerror or e}",
+                   "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
+                   f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used") \
+            from None
+
+
 def connect(address: str, timeout: float = 15.0):
-    """A Dask client on the scheduler at ``address`` (tcp://HOST:PORT); its
-    workers must run the same spinc version."""
+    """``(client, worker info, address)``: a Dask client on the scheduler at
+    ``address`` (tcp://HOST:PORT), whose workers must run this spinc version."""
     from .. import __version__
     distributed = _dask()
+    _probe(address)
     try:
         client = distributed.Client(address, timeout=timeout, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as e:
@@ -155,13 +177,14 @@ def connect(address: str, timeout: float = 15.0):
         raise fail(None, f"the Dask workers at {address} run spinc {', '.join(map(str, bad))}, "
                          f"this is spinc {__version__}",
                    "install the same spinc version on every worker")
-    return client, info
+    return client, info, address
 
 
-def run_dask(tasks, on_result, on_failure, address: str, point_fn=evaluate_point) -> dict:
-    """The points on the Dask cluster at ``address``."""
+def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) -> dict:
+    """The points on a Dask cluster; ``connection`` is what :func:`connect`
+    returned (the client is closed at the end)."""
     distributed = _dask()
-    client, info = connect(address)
+    client, info, address = connection
     token = secrets.token_hex(4)
     futures = []
     try:
@@ -173,7 +196,7 @@ def run_dask(tasks, on_result, on_failure, address: str, point_fn=evaluate_point
         futures = client.map(point_fn, tasks, key=[f"spinc-point-{token}-{t.index}"
                                                    for t in tasks], pure=False)
         index = {f.key: t.index for f, t in zip(futures, tasks)}
-        for f in distributed.as_completed(futures):
+        for f in distributed.as_completed(futures, loop=client.loop):
             try:
                 r = f.result()
             except KeyboardInterrupt:

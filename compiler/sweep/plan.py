@@ -1,6 +1,6 @@
 """From a sequence file and ``--vary``/``--set`` arguments to a checked
-:class:`SweepPlan`: every point is expanded, checked against its device and
-scheduled before anything is simulated, so a value that breaks a physical
+:class:`SweepPlan`: every point is expanded, checked against its device,
+scheduled and synthesised before anything is simulated, so a value that breaks a physical
 constraint or a channel limit refuses the whole sweep up front, naming the
 value (nothing is half computed)."""
 
@@ -8,7 +8,11 @@ from __future__ import annotations
 
 import hashlib
 import itertools
+import math
+from functools import lru_cache
 from pathlib import Path
+
+import numpy as np
 
 from .. import __version__
 from ..check import check
@@ -18,8 +22,8 @@ from ..errors import MAX_SHOWN, Problem, SpincError, UsageError
 from ..expand import expand
 from ..parse import parse_path
 from ..parse import tree as T
-from ..schedule import schedule
-from ..simulate.run import SimOptions
+from ..simulate.model import gauss_hermite
+from ..simulate.run import SimOptions, _end_sample, compile_run
 from ..units import format_quantity
 from . import params as PR
 from .spec import MAX_POINTS, si_symbol, split_arg, to_spec
@@ -160,8 +164,12 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     caution_hits: dict[str, list[str]] = {}
     stage_errors: list[tuple[SpincError, str]] = []
     tasks: list[PointTask] = []
+    longest: dict[str, tuple[float, str]] = {}     # dot -> (largest run span / T2*, point)
     for index, coords in enumerate(itertools.product(*[a.values for a in axes])):
         label = point_label(axes, coords)
+        dev_label = point_label(*zip(*[(a, v) for a, v in zip(axes, coords)
+                                       if a.kind == "device"])) if any(
+            a.kind == "device" for a in axes) else "the --set values"
         seq_vals = dict(seq_fixed)
         dev_vals = dict(dev_fixed)
         for a, v in zip(axes, coords):
@@ -177,10 +185,10 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                    if cid not in base_problems]
             device_cache[dkey] = (dev, bool(bad))
             for cid, msg, hint in bad:
-                constraint_fails.setdefault(cid, []).append((label, msg, hint))
+                constraint_fails.setdefault(cid, []).append((dev_label, msg, hint))
             for cid, msg in PR.cautions(dev):
                 if cid not in base_cautions:
-                    caution_hits.setdefault(cid, []).append(f"{msg} at {label}")
+                    caution_hits.setdefault(cid, []).append(f"{msg} at {dev_label}")
         dev, refused = device_cache[dkey]
         if refused:
             continue
@@ -199,8 +207,12 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         if ck not in scheduled:
             try:
                 check(ex, dev)
-                schedule(ex.runs[0], dev)
+                _, tl, _ = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
                 scheduled[ck] = None
+                for q, d in dev.dots.items():
+                    r = _end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
+                    if r > longest.get(q, (0.0, ""))[0]:
+                        longest[q] = (r, label)
             except SpincError as e:
                 scheduled[ck] = e
         if scheduled[ck] is not None:
@@ -209,7 +221,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         tasks.append(PointTask(index, tuple(coords), ex.runs[0], dev, options, budget))
 
     if constraint_fails:
-        raise _constraint_error(constraint_fails, total)
+        raise _constraint_error(constraint_fails, len(device_cache))
     if stage_errors:
         raise _stage_error(stage_errors, total)
 
@@ -218,9 +230,48 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
            "device_sha256": _sha256([dev_path]), "device_name": dev0.name,
            "axes": [_spec_record(a) for a in axes], "fixed": [_spec_record(s) for s in sets],
            "options": sim_settings(options), "budget": bool(budget)}
-    warnings = tuple(_caution_lines(caution_hits))
+    warnings = tuple(_caution_lines(caution_hits)) + _quadrature_caution(longest, options.nodes)
     return SweepPlan(str(path), dev0.name, dev_path, tuple(axes), tuple(sets), tuple(tasks),
                      options, bool(budget), key, warnings)
+
+
+@lru_cache(maxsize=None)
+def accurate_span(nodes: int, tol: float = 1e-3) -> float:
+    """Longest free precession, in units of T2*, for which ``nodes``
+    Gauss-Hermite nodes average the quasi-static Ramsey signal
+    exp(-(t/T2*)^2) to ``tol`` (the model's detuning rms is sqrt(2)/T2*;
+    Merkulov, Efros & Rosen, PRB 65, 205309 (2002))."""
+    x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
+    r = 0.0
+    while r < 50:
+        a = math.sqrt(2) * (r + 0.01)
+        if abs(float(np.dot(w, np.cos(a * x))) - math.exp(-a * a / 2)) > tol:
+            return r
+        r += 0.01
+    return r
+
+
+def _quadrature_caution(longest: dict[str, tuple[float, str]], nodes: int) -> tuple[str, ...]:
+    limit = accurate_span(nodes)
+    out = []
+    for q, (r, label) in longest.items():
+        if r > limit:
+            need = _nodes_for(r)
+            fix = (f"give --nodes {need}" if need else
+                   "even 15 nodes (the most) reach only "
+                   f"{accurate_span(15):.2g}·T2*, so trust only the points with shorter free "
+                   "precession")
+            out.append(f"runs last up to {r:.3g}·T2* of dot {q} (at {label}); {nodes} quadrature "
+                       f"nodes average free precession correctly (to 1e-3) only up to "
+                       f"{limit:.2g}·T2*: {fix}, unless the sequence refocuses (echoes)")
+    return tuple(out)
+
+
+def _nodes_for(r: float) -> int | None:
+    for n in range(3, 16):
+        if accurate_span(n) >= r:
+            return n
+    return None
 
 
 def _caution_lines(hits: dict[str, list[str]]) -> list[str]:
@@ -236,8 +287,8 @@ def _constraint_error(fails: dict[str, list[tuple[str, str, str]]], total: int) 
     for cid, items in fails.items():
         label, msg, hint = items[0]
         n = len(items)
-        where = (f"at {n} of {total} points, the first at {label}" if n > 1 else
-                 f"at the point {label}")
+        where = (f"at {n} of {total} device settings, the first at {label}" if n > 1 else
+                 f"at {label}")
         problems.append(Problem(f"sweep refused before starting: {msg} {where}", None, hint))
     return UsageError(problems)
 

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from . import figure as FIG
 from . import store
-from .execute import WorkersLost, run_dask, run_pool, run_serial
+from .execute import WorkersLost, connect, run_dask, run_pool, run_serial
 from .point import evaluate_point
 from .table import csv_text, json_text, make_table
 from .types import ERROR, PointResult, SweepPlan, SweepTable
@@ -85,7 +85,13 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
         ``cluster`` without Dask installed.
     """
     progress = progress or _Quiet()
-    folder = store.Folder(out, plan, resume, command)
+    connection = connect(cluster) if cluster else None     # before anything is written
+    try:
+        folder = store.Folder(out, plan, resume, command)
+    except BaseException:
+        if connection is not None:
+            connection[0].close()
+        raise
     t0 = time.perf_counter()
     done: dict[int, PointResult] = dict(folder.resumed)
     resumed = len(done)
@@ -114,8 +120,9 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
         try:
             if not pending:
                 stats = {"backend": "none (nothing left to compute)", "workers": 0}
-            elif cluster:
-                stats = run_dask(pending, on_result, on_failure, cluster, point_fn)
+            elif connection is not None:
+                stats = run_dask(pending, on_result, on_failure, connection, point_fn)
+                connection = None
             elif workers <= 1 or len(pending) == 1:
                 stats = run_serial(pending, on_result, point_fn)
             else:
@@ -141,6 +148,8 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
         files = write_tables(folder, table)
     finally:
         folder.close()
+        if connection is not None:
+            connection[0].close()
     return SweepOutcome(table, folder.path, files, status, computed, resumed, tuple(errors),
                         tuple(lost), stats)
 

@@ -122,7 +122,9 @@ def _quantity(raw: RawArg, item: str, dim: Dim, what: str) -> float:
         ex = EXAMPLE_UNIT.get(dim, "")
         unit_hint = f"{raw.name} is {dim.name()}" + (f", e.g. {ex.replace(' ', '')}" if ex else
                                                       " (a plain number)")
-        raise UsageError(f"{raw.flag} '{raw.text}': {e}", hint=unit_hint) from None
+        syntax = VARY_SYNTAX if raw.flag == "--vary" else SET_SYNTAX
+        raise UsageError(f"{raw.flag} '{raw.text}': {e}",
+                         hint=f"{unit_hint}; write {syntax}") from None
 
 
 def grid_values(start: float, stop: float, n: int, spacing: str) -> tuple[float, ...]:

@@ -231,7 +231,7 @@ class Folder:
             return
         if state is not None and state.header is not None:
             n = int(state.header.get("n_points", 0))
-            if len(state.points) < n:
+            if 0 < len(state.points) < n:
                 raise fail(p, f"the output folder holds an unfinished sweep ({len(state.points)} of "
                               f"{n} points); starting over would lose them",
                            f"continue it with the same arguments and --resume, or delete the "
