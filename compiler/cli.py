@@ -364,9 +364,16 @@ class _SweepProgress:
         if not self.enabled or done >= total:
             return
         if getattr(self.stream, "isatty", lambda: False)():
+            import os
             from tqdm import tqdm
+            try:
+                cols = os.get_terminal_size(self.stream.fileno()).columns
+            except (OSError, ValueError, AttributeError):
+                cols = 0
+            # a terminal of unknown size (0 x 0) would hide the bar: give it one
+            size = {"dynamic_ncols": True} if cols > 0 else {"ncols": 100, "nrows": 24}
             self.bar = tqdm(total=total, initial=done, unit="pt", desc="sweep", file=self.stream,
-                            dynamic_ncols=True, smoothing=0.1)
+                            smoothing=0.1, **size)
         else:
             self.next_line = done + max(1, total // 10)
 
@@ -433,7 +440,8 @@ def cmd_sweep(args) -> int:
         say(f"fixed     {a.name} = {format_quantity(a.values[0], a.dim)}")
     say(f"points    {plan.n_points}" + (f" ({' x '.join(map(str, plan.shape))})"
                                         if len(plan.shape) > 1 else ""))
-    say(f"settings  {args.engine} engine, {args.nodes} quadrature nodes ({args.quadrature}), "
+    say(f"settings  {args.engine} engine, {args.nodes} quadrature node{'s' * (args.nodes != 1)} "
+        f"({args.quadrature}), "
         f"{args.substeps} sub-step{'s' * (args.substeps != 1)} per sample"
         + ("" if not args.no_rwa else ", no RWA") + "; "
         + ("whole-run fidelity and error budget" if args.budget else

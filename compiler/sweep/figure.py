@@ -48,7 +48,8 @@ FOOTER = ("A simulation of the compiled sequence on the device model, not a meas
 
 def _settings_text(table: SweepTable) -> str:
     o = table.options
-    return (f"{o.get('engine', '?')} engine, {o.get('nodes', '?')} quadrature nodes "
+    return (f"{o.get('engine', '?')} engine, {o.get('nodes', '?')} quadrature node"
+            f"{'s' * (o.get('nodes') != 1)} "
             f"({o.get('quadrature', '?')}), {o.get('substeps', '?')} sub-step"
             f"{'s' * (o.get('substeps') != 1)} per sample"
             + ("" if o.get("rwa", True) else ", no RWA"))
@@ -239,8 +240,8 @@ def _map(table: SweepTable):
     yc = (np.sqrt(e1[1:] * e1[:-1]) if log1 else (e1[1:] + e1[:-1]) / 2) / s1
     fig = new_figure()
     left, bottom = 1.15, 0.9
-    w = WIDTH - left - 2.9
-    h = HEIGHT - bottom - 1.45
+    w = WIDTH - left - 1.9
+    h = HEIGHT - bottom - 1.55
     ax = _axes(fig, left, bottom, w, h)
     ax.grid(False)
     finite = inf[np.isfinite(inf)]
@@ -317,8 +318,8 @@ def _map(table: SweepTable):
     if np.isnan(inf).any() and not table.complete:
         handles.append(Patch(facecolor="white", edgecolor="#9aa0a8", label="not computed"))
     if handles:
-        ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0 + 1.35 / w, 1.0),
-                  frameon=False, fontsize=FONT - 1.5)
+        ax.legend(handles=handles, loc="lower right", bbox_to_anchor=(1.0, 1.01),
+                  ncol=len(handles), frameon=False, fontsize=FONT - 1.5, borderaxespad=0.0)
     sub = f"{table.sequence} on {table.device_name}; {_settings_text(table)}"
     best_note = _best_note(table)
     _titles(fig, _title(table, f"over {a0.name} and {a1.name}"),
