@@ -394,6 +394,20 @@ def test_foreign_files_are_never_touched(ramsey, tmp_path):
         run_sweep(plan, tmp_path / "empty", resume=True)
 
 
+def test_a_second_sweep_into_a_busy_folder_is_refused(ramsey, tmp_path):
+    fcntl = pytest.importorskip("fcntl")
+    plan = plan_sweep(ramsey(), ["tau=0ns:100ns:2"], options=FAST)
+    out = tmp_path / "s"
+    run_sweep(plan, out, point_fn=Counting(stop=1))          # interrupted: 0 points
+    with open(out / "points.jsonl", "a+b") as held:          # as a running sweep holds it
+        fcntl.flock(held.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        before = (out / "points.jsonl").read_bytes()
+        with pytest.raises(SweepError, match="another spinc sweep is writing"):
+            run_sweep(plan, out)
+        assert (out / "points.jsonl").read_bytes() == before
+    assert run_sweep(plan, out).status == "complete"       # free again: 0 points, started over
+
+
 def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
     plan = plan_sweep(ramsey(), ["A.t2_star=0.5us:2us:3"], ["tau=400ns"], options=FAST)
     r = run_sweep(plan, tmp_path / "s")

@@ -208,6 +208,16 @@ class Folder:
             raise fail(p, f"the output folder holds files that are not a spinc sweep's ({shown}); "
                           "nothing was written and nothing was deleted",
                        "choose another -o folder (a new or empty one)")
+        if STATE_NAME in names:
+            self._lock()          # before reading or deleting anything: one writer at a time
+        try:
+            self._prepare(names, resume, command)
+        except BaseException:
+            self.close()
+            raise
+
+    def _prepare(self, names: list[str], resume: bool, command: str) -> None:
+        p = self.path
         state = read_state(self.state_path) if STATE_NAME in names else None
         if resume:
             if state is None or state.header is None:
@@ -227,7 +237,7 @@ class Folder:
                                "start this sweep in another -o folder")
             self.resumed = dict(state.points)
             self.dropped = state.dropped
-            self._open(truncate_to=state.good_bytes)
+            self._truncate(state.good_bytes)
             return
         if state is not None and state.header is not None:
             n = int(state.header.get("n_points", 0))
@@ -237,15 +247,19 @@ class Folder:
                            f"continue it with the same arguments and --resume, or delete the "
                            "folder (or choose another -o) to start over")
         for n in names:
-            os.unlink(p / n)
+            if n != STATE_NAME:
+                os.unlink(p / n)
         p.mkdir(exist_ok=True)
-        self._open(truncate_to=0)
+        if self._file is None:
+            self._lock()
+        self._truncate(0)
         header = {"format": STATE_FORMAT, "format_version": STATE_VERSION,
                   "n_points": self.plan.n_points, "key": self.plan.key,
                   "sequence": self.plan.sequence, "command": command}
         self._append(dumps(header))
 
-    def _open(self, truncate_to: int) -> None:
+    def _lock(self) -> None:
+        """Open the state file (created if missing) and hold an exclusive lock on it."""
         f = open(self.state_path, "a+b")
         try:
             import fcntl
@@ -257,9 +271,11 @@ class Folder:
                            "wait for it to finish, or choose another -o folder") from None
         except ImportError:  # pragma: no cover - no fcntl (Windows): no lock
             pass
-        f.truncate(truncate_to)
-        f.seek(0, os.SEEK_END)
         self._file = f
+
+    def _truncate(self, size: int) -> None:
+        self._file.truncate(size)
+        self._file.seek(0, os.SEEK_END)
 
     def _append(self, line: str) -> None:
         self._file.write(line.encode("utf-8") + b"\n")
