@@ -422,6 +422,9 @@ def cmd_sweep(args) -> int:
                          hint="drop --workers, or give --cluster local to compute here")
     if cluster:
         _dask()                      # fail now, with the install hint, not after planning
+        if not getattr(args, "debug", False):   # spinc reports lost points itself
+            import logging
+            logging.getLogger("distributed").setLevel(logging.CRITICAL)
     workers = args.workers if args.workers is not None else local_cores()
     if workers < 1:
         raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
@@ -502,8 +505,11 @@ def cmd_sweep(args) -> int:
                   f"{values_text(table, e.coords)}: {e.message}. This is a bug in spinc; those "
                   "points are not in the table (--resume retries them).", file=sys.stderr)
         for idx, why in outcome.lost[:3]:
+            why = " ".join(why.split())
             print(f"spinc: lost {'point ' + str(idx) if idx >= 0 else 'workers'}: {why}",
                   file=sys.stderr)
+        if len(outcome.lost) > 3:
+            print(f"spinc: ... and {len(outcome.lost) - 3} more lost", file=sys.stderr)
     if outcome.status != "complete":
         what = {"interrupted": "interrupted", "workers lost": "stopped: workers lost",
                 "failed": "incomplete"}[outcome.status]

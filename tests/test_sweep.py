@@ -5,7 +5,6 @@ local worker processes and on a Dask cluster, interruption and resume, lost
 workers, the output folder, and the command line."""
 
 import csv
-import dataclasses
 import io
 import json
 import math
@@ -17,7 +16,7 @@ import pytest
 
 from compiler.device import exchange as xch
 from compiler.device import load_device_text
-from compiler.errors import CheckError, ScheduleError, UsageError
+from compiler.errors import ScheduleError, UsageError
 from compiler.physics import larmor_frequency
 from compiler.simulate.run import SimOptions
 from compiler.sweep import SweepError, plan_sweep, run_sweep
@@ -286,6 +285,9 @@ def test_serial_local_pool_and_dask_give_the_same_numbers(ramsey, tmp_path):
     assert pool.stats["backend"] == "local processes" and pool.stats["workers"] == 2
     assert dask.stats["backend"].startswith("dask cluster tcp://127.0.0.1")
     assert serial.table.points[0].budget           # budget computed per point
+    head = (tmp_path / "serial" / "sweep.csv").read_text().splitlines()[1].split(",")
+    assert "budget quasi-static Zeeman noise (T2*)" in head and "budget floor" in head
+    assert json.loads((tmp_path / "dask" / "sweep.json").read_text())["budget"] is True
     for name in ("sweep.csv", "sweep.json", "sweep.png"):
         a = (tmp_path / "serial" / name).read_bytes()
         assert a and (tmp_path / "dask" / name).exists()

@@ -9,7 +9,7 @@ The stage, in its parts (plain frozen data between them, :mod:`.types`)::
         --table/figure--> OUT/sweep.csv, sweep.json, sweep.png  (+ points.jsonl)
 
 >>> from compiler.sweep import plan_sweep, run_sweep            # doctest: +SKIP
->>> plan = plan_sweep("sequences/ramsey_single.dotseq", ["A.t2_star=1us:4us:4"])
+>>> plan = plan_sweep("sequences/ramsey_single.dotseq", ["A.t2_star=2us:5us:4"])
 >>> outcome = run_sweep(plan, "out/t2star", workers=2)
 >>> outcome.table.complete, outcome.files["csv"]
 

@@ -16,7 +16,6 @@ A pure function of the :class:`SweepTable`; :func:`png_bytes` renders it.
 from __future__ import annotations
 
 import io
-import math
 
 import numpy as np
 from matplotlib.colors import LogNorm, Normalize
