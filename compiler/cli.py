@@ -349,67 +349,15 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
-class _SweepProgress:
-    """Progress of a sweep on stderr: a tqdm bar (points done, rate, time left)
-    on a terminal; without one a plain line about every tenth of the points."""
-
-    def __init__(self, enabled: bool, stream=None):
-        self.enabled = enabled
-        self.stream = stream or sys.stderr
-        self.bar = None
-        self.done = self.total = self.next_line = 0
-
-    def start(self, total: int, done: int) -> None:
-        self.total, self.done = total, done
-        if not self.enabled or done >= total:
-            return
-        if getattr(self.stream, "isatty", lambda: False)():
-            import os
-            from tqdm import tqdm
-            try:
-                cols = os.get_terminal_size(self.stream.fileno()).columns
-            except (OSError, ValueError, AttributeError):
-                cols = 0
-            # a terminal of unknown size (0 x 0) would hide the bar: give it one
-            size = {"dynamic_ncols": True} if cols > 0 else {"ncols": 100, "nrows": 24}
-            self.bar = tqdm(total=total, initial=done, unit="pt", desc="sweep", file=self.stream,
-                            smoothing=0.1, **size)
-        else:
-            self.next_line = done + max(1, total // 10)
-
-    def advance(self, point) -> None:
-        self.done += 1
-        if self.bar is not None:
-            self.bar.update(1)
-        elif self.enabled and self.done >= self.next_line:
-            print(f"sweep: {self.done}/{self.total} points", file=self.stream, flush=True)
-            self.next_line = self.done + max(1, self.total // 10)
-
-    def close(self) -> None:
-        if self.bar is not None:
-            self.bar.close()
-            self.bar = None
-
-
-def _range_text(a) -> str:
-    from .units import format_quantity
-    if a.points == 1:
-        return format_quantity(a.values[0], a.dim)
-    kind = {"log": ", log spaced", "list": ""}.get(a.spacing, "")
-    return (f"{format_quantity(a.values[0], a.dim)} .. {format_quantity(a.values[-1], a.dim)}, "
-            f"{a.points} points{kind}")
-
-
 def cmd_sweep(args) -> int:
     import os
     import shlex
     import signal
-    from .report.fmt import fmt_fidelity, fmt_ratio, fmt_sci
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
     from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
-    from .sweep.table import best_point, json_text, values_text
-    from .units import format_quantity
+    from .sweep.table import json_text
+    from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
     cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
     cluster = cluster.strip() or None
@@ -422,7 +370,7 @@ def cmd_sweep(args) -> int:
                          hint="drop --workers, or give --cluster local to compute here")
     if cluster:
         _dask()                      # fail now, with the install hint, not after planning
-        if not getattr(args, "debug", False):   # spinc reports lost points itself
+        if not args.debug:           # spinc reports lost points itself
             import logging
             logging.getLogger("distributed").setLevel(logging.CRITICAL)
     workers = args.workers if args.workers is not None else local_cores()
@@ -432,91 +380,29 @@ def cmd_sweep(args) -> int:
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget)
-    argv = [a for a in getattr(args, "argv", []) if a != "--resume"]
-    command = "spinc " + shlex.join(argv + ["--resume"])
-    say = (lambda *a: None) if args.json else print
-    say(f"sweep     {args.file} on {plan.device_name} ({plan.device_path})")
-    for a in plan.axes:
-        say(f"axis      {a.name}: {_range_text(a)}" + ("  (the file's sweep)" if a.source == "file"
-                                                        else ""))
-    for a in plan.fixed:
-        say(f"fixed     {a.name} = {format_quantity(a.values[0], a.dim)}")
-    say(f"points    {plan.n_points}" + (f" ({' x '.join(map(str, plan.shape))})"
-                                        if len(plan.shape) > 1 else ""))
-    say(f"settings  {args.engine} engine, {args.nodes} quadrature node{'s' * (args.nodes != 1)} "
-        f"({args.quadrature}), "
-        f"{args.substeps} sub-step{'s' * (args.substeps != 1)} per sample"
-        + ("" if not args.no_rwa else ", no RWA") + "; "
-        + ("whole-run fidelity and error budget" if args.budget else
-           "whole-run fidelity (--budget adds the error budget)"))
-    say(f"workers   " + (f"Dask cluster {cluster}" if cluster else
-                         f"{workers} local process{'es' * (workers != 1)}" if workers > 1 else
-                         "this process"))
-    for w in plan.warnings:
-        say(f"warning: {w}")
-    progress = _SweepProgress(enabled=not args.quiet)
+    command = "spinc " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
+    where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
+             f"{workers} local processes")
+    if not args.json:
+        print("\n".join(plan_lines(plan, args.file, where)), flush=True)
 
-    def on_term(signum, frame):
+    def on_term(signum, frame):      # a batch system's stop: like Ctrl-C, keep the points
         raise KeyboardInterrupt
     old_term = signal.signal(signal.SIGTERM, on_term)
     try:
         outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
-                            progress=progress, command=command)
+                            progress=Progress(enabled=not args.quiet), command=command)
     finally:
         signal.signal(signal.SIGTERM, old_term)
-    table = outcome.table
-    code = {"complete": EXIT_OK, "interrupted": EXIT_INTERRUPTED, "workers lost": EXIT_PARTIAL,
-            "failed": EXIT_INTERNAL}[outcome.status]
     if args.json:
-        print(json_text(table, figure="sweep.png" if "png" in outcome.files else None), end="")
+        print(json_text(outcome.table, figure="sweep.png" if "png" in outcome.files else None),
+              end="")
     else:
-        stats = outcome.stats
-        per = stats.get("point_wall_mean_s")
-        say(f"done      {len(table.points)} of {table.n_points} points"
-            + (f" ({outcome.resumed} from the earlier run)" if outcome.resumed else "")
-            + f" in {stats.get('wall_s', 0):.1f} s"
-            + (f"; {per:.3g} s per point of compute" if per else ""))
-        invalid = [p for p in table.points if p.status == "invalid"]
-        if invalid:
-            say(f"invalid   {len(invalid)} point(s), e.g. at {values_text(table, invalid[0].coords)}: "
-                f"{invalid[0].message}")
-        best = best_point(table)
-        ok = [p for p in table.points if p.status == "ok"]
-        if best is not None:
-            worst = min(ok, key=lambda p: p.fidelity)
-            say(f"best      F = {fmt_fidelity(best.fidelity)} (1 - F = {fmt_sci(best.infidelity)}) "
-                f"at {values_text(table, best.coords)}")
-            say(f"worst     F = {fmt_fidelity(worst.fidelity)} at {values_text(table, worst.coords)}")
-            say(f"          F = {table.metric} of the whole run against the ideal circuit")
-            margins = [p.margin for p in ok if p.margin is not None]
-            if margins:
-                lo, hi = min(margins), max(margins)
-                say(f"margin    T2 / longest gate {fmt_ratio(lo)}"
-                    + (f" .. {fmt_ratio(hi)}" if hi != lo else "")
-                    + ("  BELOW the rule of thumb of 1e4 at some points" if lo < 1e4 else ""))
-            if best.budget:
-                top = sorted(best.budget, key=lambda b: -b[1])[:3]
-                say("sources   at the best point: " + ", ".join(f"{s} {fmt_sci(v)}" for s, v in top))
-        for k, path in sorted(outcome.files.items()):
-            say(f"{k:<9} {path}")
-        if outcome.errors:
-            e = outcome.errors[0]
-            print(f"spinc: internal error at {len(outcome.errors)} point(s), e.g. at "
-                  f"{values_text(table, e.coords)}: {e.message}. This is a bug in spinc; those "
-                  "points are not in the table (--resume retries them).", file=sys.stderr)
-        for idx, why in outcome.lost[:3]:
-            why = " ".join(why.split())
-            print(f"spinc: lost {'point ' + str(idx) if idx >= 0 else 'workers'}: {why}",
-                  file=sys.stderr)
-        if len(outcome.lost) > 3:
-            print(f"spinc: ... and {len(outcome.lost) - 3} more lost", file=sys.stderr)
-    if outcome.status != "complete":
-        what = {"interrupted": "interrupted", "workers lost": "stopped: workers lost",
-                "failed": "incomplete"}[outcome.status]
-        print(f"spinc: sweep {what}; {len(table.points)} of {table.n_points} points done, "
-              f"{len(table.missing)} missing; the partial table is written (marked partial) in "
-              f"{outcome.folder}\ncontinue with:\n  {command}", file=sys.stderr)
-    return code
+        print("\n".join(outcome_lines(outcome)))
+    for line in problem_lines(outcome, command):
+        print(line, file=sys.stderr)
+    return {"complete": EXIT_OK, "interrupted": EXIT_INTERRUPTED, "workers lost": EXIT_PARTIAL,
+            "failed": EXIT_INTERNAL}[outcome.status]
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -97,7 +97,8 @@ def _head_line(table: SweepTable) -> str:
     state = "complete" if table.complete else "PARTIAL"
     return (f"spinc sweep of {table.sequence} on {table.device_name}: {state}, {done} of "
             f"{table.n_points} points; fidelity = {table.metric} of the whole run"
-            + ("; budget = infidelity contribution of each source" if table.budget else ""))
+            + ("; budget = infidelity contribution of each source" if table.budget else
+               "; no error budget (--budget adds it)"))
 
 
 def csv_text(table: SweepTable) -> str:
