@@ -89,6 +89,12 @@ def probe_worker():
     return worker_info()
 
 
+def warm_worker(task):
+    """One point after a pause, so every worker of a pool computes one first."""
+    time.sleep(0.5)
+    return evaluate_point(task)
+
+
 def numbers(points):
     return sorted((p.index, p.status, p.fidelity, p.process_fidelity, p.state_fidelity,
                    p.populations, p.coherence) for p in points)
@@ -186,7 +192,7 @@ def main() -> int:
         tp, td = [], []
         with child_threads():
             ex = ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started)
-            [f.result() for f in [ex.submit(probe_worker) for _ in range(4)]]
+            [f.result() for f in [ex.submit(warm_worker, tasks[0]) for _ in range(4)]]
             with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                               host="127.0.0.1", dashboard_address=None) as cluster:
                 warm = connect(cluster.scheduler_address)
