@@ -21,6 +21,9 @@ alternate, so slow phases of a busy machine hit both):
   started with a connected client; ``dask_overhead_ms_per_point =
   (t_dask - t_pool) / 64`` in ms: what a point costs more on Dask
   (scheduling, shipping the task and its result);
+* the same two warm paths with points that compute nothing: the cost of
+  shipping tasks and results alone (``dask_overhead_noop_ms_per_point``),
+  hardly touched by other work on the machine;
 * the thread settings each worker reports (BLAS/OpenMP variables, threads
   of the process) and the time of one point in this process with the
   default BLAS thread pools against one thread (``threadpoolctl``).
@@ -48,6 +51,7 @@ from compiler.simulate.run import SimOptions
 from compiler.sweep import plan_sweep
 from compiler.sweep.execute import child_threads, connect, run_dask, run_pool
 from compiler.sweep.point import evaluate_point, simulate_point, worker_info, worker_started
+from compiler.sweep.types import OK, PointResult
 
 DEVICE = """
 name: bench pair (invented)
@@ -95,6 +99,12 @@ def warm_worker(task):
     return evaluate_point(task)
 
 
+def noop_point(task):
+    """A point that computes nothing: what remains is the cost of shipping
+    the task and its result."""
+    return PointResult(task.index, task.coords, OK)
+
+
 def numbers(points):
     return sorted((p.index, p.status, p.fidelity, p.process_fidelity, p.state_fidelity,
                    p.populations, p.coherence) for p in points)
@@ -118,14 +128,14 @@ def cold_pool(tasks, workers):
     return got
 
 
-def warm_pool(ex, tasks):
-    futures = [ex.submit(evaluate_point, t) for t in tasks]
+def warm_pool(ex, tasks, fn=evaluate_point):
+    futures = [ex.submit(fn, t) for t in tasks]
     return [f.result() for f in as_completed(futures)]
 
 
-def warm_dask(connection, tasks):
+def warm_dask(connection, tasks, fn=evaluate_point):
     got = []
-    run_dask(tasks, got.append, lambda i, why: got.append(why), connection)
+    run_dask(tasks, got.append, lambda i, why: got.append(why), connection, fn)
     return got
 
 
@@ -183,7 +193,7 @@ def main() -> int:
           "with 2 (below 2: other processes hold the cores)")
 
     # warm pool of 2 against a warm Dask cluster of 2 single-threaded workers
-    overhead = None
+    overhead = noop = None
     try:
         from distributed import LocalCluster
     except ImportError:
@@ -209,7 +219,17 @@ def main() -> int:
                             td.append(t)
                         assert numbers(got) == reference, f"{which} results differ"
                         print(f"  warm {which}: {t:.2f} s")
+                # the same without computing: shipping tasks and results only
+                noop_p, noop_d = [], []
+                for r in range(5):
+                    noop_p.append(timed(lambda: warm_pool(ex, tasks, noop_point))[0])
+                    conn = connect(cluster.scheduler_address)
+                    noop_d.append(timed(lambda: warm_dask(conn, tasks, noop_point))[0])
             ex.shutdown()
+        noop = (statistics.median(noop_d) - statistics.median(noop_p)) / n * 1e3
+        print(f"without compute (shipping only): pool {statistics.median(noop_p) * 1e3:.0f} ms, "
+              f"Dask {statistics.median(noop_d) * 1e3:.0f} ms for {n} points: {noop:+.1f} ms per "
+              "point (insensitive to other work on the machine)")
         t_pool, t_dask = statistics.median(tp), statistics.median(td)
         overhead = (t_dask - t_pool) / n * 1e3
         print(f"warm pool of 2: {t_pool:.2f} s; warm Dask LocalCluster of 2: {t_dask:.2f} s: "
@@ -220,6 +240,7 @@ def main() -> int:
                       "dask_overhead_ms_per_point": None if overhead is None else round(overhead, 2),
                       "points": n, "t_1_worker_s": round(t1, 2), "t_2_workers_s": round(t2, 2),
                       "cores_obtained_2_workers": round(statistics.median(cores[2]), 2),
+                      "dask_overhead_noop_ms_per_point": None if overhead is None else round(noop, 2),
                       "point_default_blas_s": round(t_default, 3),
                       "point_one_thread_s": round(t_one, 3)}))
     return 0
