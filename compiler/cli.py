@@ -17,6 +17,7 @@ from .limits import check_synthesis_size, default_limit, human, parse_size
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
+EXIT_PARTIAL = 4   # spinc sweep: workers lost; the partial table is written, --resume continues
 
 CAUTION = ("Caution: check every compiled voltage and microwave amplitude against the sample's "
            "and the lab's own limits before loading it onto an instrument; spinc does not "
@@ -89,7 +90,62 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report")
     _common(r)
     _sim_flags(r)
+    _sweep_parser(sub)
     return p
+
+
+SWEEP_EPILOG = (
+    "Names: field, temperature, rotation.amplitude or rotation.duration, DOT.g, DOT.t1, DOT.t2, "
+    "DOT.t2_star, DOT.rabi_per_volt, PAIR.j_scale, PAIR.j0 (exponential J(V)), "
+    "PAIR.pulse_voltage, PAIR.idle_voltage, PAIR.charge_noise (PAIR as A-B), and the file's own "
+    "let and sweep names (docs/sweep.md). Exit codes: 0 complete, 2 bad input, 3 internal "
+    "error, 4 workers lost (partial table written), 130 interrupted (partial table written); "
+    "continue a partial sweep with the same arguments and --resume. Caution: sweeping drive "
+    "amplitudes or gate levels is a simulation only; check the compiled waveforms of the "
+    "chosen point against the sample's and the lab's limits before loading anything.")
+
+
+def _sweep_parser(sub) -> None:
+    w = sub.add_parser("sweep", help="simulate a sweep of one or two device or sequence "
+                       "parameters in parallel: a table (CSV, JSON) and a plot",
+                       description="Whole-run fidelity (and with --budget the largest error "
+                       "sources) at every point of a sweep of one or two parameters of the device "
+                       "(field, a dot's g or T2, a coupling's J, the drive) or of the sequence (its "
+                       "let and sweep names), on the local cores or a Dask cluster. Every point "
+                       "is checked before anything is simulated; finished points are kept when "
+                       "the sweep is interrupted (docs/sweep.md).", epilog=SWEEP_EPILOG)
+    w.add_argument("file", help="sequence file (.dotseq)")
+    w.add_argument("-o", "--out", required=True, help="folder for sweep.csv, sweep.json, sweep.png "
+                   "and the state file points.jsonl")
+    w.add_argument("--vary", action="append", default=[], metavar="NAME=START:STOP:POINTS",
+                   help="sweep a parameter: START:STOP:POINTS (even), START:STOP:POINTS:log, or "
+                   "V1,V2,...; values with units, e.g. --vary field=0.5T:1.5T:11 (at most two; "
+                   "the first is the outer axis and across in the heat map)")
+    w.add_argument("--set", dest="fixed", action="append", default=[], metavar="NAME=VALUE",
+                   help="hold a parameter at one value, e.g. --set A.t2=40us or --set tau=200ns "
+                   "(pins a sweep of the file)")
+    w.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
+                   "point (about ten more simulations per point)")
+    w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
+                   "the number of cores; 1 computes in this process)")
+    w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
+                   "(default: the SPINC_CLUSTER environment variable; 'local' ignores it); needs "
+                   "pip install 'spinc[dask]'")
+    w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
+                   "folder (same file, device and arguments): compute only the missing points")
+    w.add_argument("--engine", choices=("fast", "reference"), default="fast",
+                   help="fast (default) or reference (qutip mesolve, slow)")
+    w.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
+                   "variable (default 5)")
+    w.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
+                   help="full product grid, one noise at a time, or auto (default)")
+    w.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
+                   "(default 2)")
+    w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
+                   "--substeps of 64 or more; slow)")
+    w.add_argument("--quiet", action="store_true", help="no progress bar")
+    w.add_argument("--json", action="store_true", help="print sweep.json on stdout for scripts")
 
 
 def _sim_flags(p) -> None:
@@ -303,6 +359,62 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
+def cmd_sweep(args) -> int:
+    import os
+    import shlex
+    import signal
+    from .simulate import SimOptions
+    from .sweep import plan_sweep, run_sweep
+    from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
+    from .sweep.table import json_text
+    from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
+
+    cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
+    cluster = cluster.strip() or None
+    if cluster == "local":
+        cluster = None
+    if cluster and args.workers is not None:
+        raise UsageError("--workers sets the local worker processes, but the sweep goes to the Dask "
+                         f"cluster {cluster}" + ("" if args.cluster else
+                                                 f" (from {CLUSTER_VARIABLE})"),
+                         hint="drop --workers, or give --cluster local to compute here")
+    if cluster:
+        _dask()                      # fail now, with the install hint, not after planning
+        if not args.debug:           # spinc reports lost points itself
+            import logging
+            logging.getLogger("distributed").setLevel(logging.CRITICAL)
+    workers = args.workers if args.workers is not None else local_cores()
+    if workers < 1:
+        raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
+                      rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
+    plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
+                      budget=args.budget)
+    command = "spinc " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
+    where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
+             f"{workers} local processes")
+    if not args.json:
+        print("\n".join(plan_lines(plan, args.file, where)), flush=True)
+
+    def on_term(signum, frame):      # a batch system's stop: like Ctrl-C, keep the points
+        raise KeyboardInterrupt
+    old_term = signal.signal(signal.SIGTERM, on_term)
+    try:
+        outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
+                            progress=Progress(enabled=not args.quiet), command=command)
+    finally:
+        signal.signal(signal.SIGTERM, old_term)
+    if args.json:
+        print(json_text(outcome.table, figure="sweep.png" if "png" in outcome.files else None),
+              end="")
+    else:
+        print("\n".join(outcome_lines(outcome)))
+    for line in problem_lines(outcome, command):
+        print(line, file=sys.stderr)
+    return {"complete": EXIT_OK, "interrupted": EXIT_INTERRUPTED, "workers lost": EXIT_PARTIAL,
+            "failed": EXIT_INTERNAL}[outcome.status]
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
@@ -313,8 +425,9 @@ def main(argv: list[str] | None = None) -> int:
             raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
         if getattr(args, "out", None):
             _make_parent(args.out)
+        args.argv = argv
         return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
-                "simulate": cmd_simulate, "run": cmd_run}[args.command](args)
+                "simulate": cmd_simulate, "run": cmd_run, "sweep": cmd_sweep}[args.command](args)
     except SpincError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))

@@ -1,0 +1,216 @@
+"""Where the points are computed: in this process, in a pool of local worker
+processes, or on an existing Dask distributed cluster.  The three give the
+same numbers (every point is a pure function of its task, computed with one
+BLAS thread; tests/test_sweep.py compares them exactly).
+
+Each backend calls ``on_result(PointResult)`` in this process as points
+finish (in any order).  Ctrl-C raises ``KeyboardInterrupt`` here after the
+workers are stopped and every point that had finished was handed over; a
+lost local worker raises :class:`WorkersLost` the same way.  On a Dask
+cluster a lost worker's tasks are rerun by Dask itself; a point that still
+fails (or a lost scheduler) is handed to ``on_failure(index, reason)`` and
+left missing.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import secrets
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from contextlib import contextmanager
+
+from ..errors import UsageError
+from .errors import fail
+from .point import THREAD_VARIABLES, evaluate_point, one_thread, worker_info, worker_started
+
+CLUSTER_VARIABLE = "SPINC_CLUSTER"
+DASK_HINT = "install the optional extra: pip install 'spinc[dask]'"
+
+
+class WorkersLost(Exception):
+    """A local worker process died (killed, out of memory); the finished
+    points were handed over before this is raised."""
+
+
+def local_cores() -> int:
+    """Cores this process may run on."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+@contextmanager
+def child_threads():
+    """Make worker processes started inside this block use one BLAS/OpenMP
+    thread from their first import of numpy (they inherit the environment)."""
+    old = {k: os.environ.get(k) for k in THREAD_VARIABLES}
+    os.environ.update({k: "1" for k in THREAD_VARIABLES})
+    try:
+        yield
+    finally:
+        for k, v in old.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+def run_serial(tasks, on_result, point_fn=evaluate_point) -> dict:
+    """Every point in this process, in order."""
+    with one_thread():
+        for t in tasks:
+            on_result(point_fn(t))
+    return {"backend": "serial", "workers": 1}
+
+
+def _stop_pool(ex: ProcessPoolExecutor) -> None:
+    """Stop the workers now (a running point is abandoned, not waited for)."""
+    procs = list((getattr(ex, "_processes", None) or {}).values())
+    for p in procs:
+        try:
+            p.terminate()
+        except Exception:  # noqa: BLE001 - already gone
+            pass
+    ex.shutdown(wait=False, cancel_futures=True)
+    for p in procs:
+        try:
+            p.join(timeout=5)
+        except Exception:  # noqa: BLE001
+            pass
+
+
+def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
+    """The points on ``workers`` local processes (spawned, one BLAS thread each)."""
+    ctx = multiprocessing.get_context("spawn")
+    handed: set = set()
+    with child_threads():
+        ex = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_started)
+        futures = {}
+
+        def harvest() -> None:
+            for f in list(futures):
+                if f in handed or not f.done() or f.cancelled() or f.exception() is not None:
+                    continue
+                handed.add(f)
+                on_result(f.result())
+
+        try:
+            for t in tasks:
+                futures[ex.submit(point_fn, t)] = t.index
+            pending = set(futures)
+            while pending:
+                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for f in sorted(done, key=lambda f: futures[f]):
+                    r = f.result()         # BrokenProcessPool when a worker died
+                    handed.add(f)
+                    on_result(r)
+        except KeyboardInterrupt:
+            harvest()
+            _stop_pool(ex)
+            raise
+        except BrokenProcessPool as e:
+            harvest()
+            _stop_pool(ex)
+            raise WorkersLost(f"a local worker process stopped unexpectedly ({e})") from None
+        except BaseException:
+            _stop_pool(ex)
+            raise
+        ex.shutdown(wait=True)
+    return {"backend": "local processes", "workers": workers}
+
+
+def _dask():
+    try:
+        import distributed
+    except ImportError:
+        raise UsageError("--cluster needs Dask's distributed scheduler, which is not installed",
+                         hint=DASK_HINT) from None
+    return distributed
+
+
+def _probe(address: str, timeout: float = 5.0) -> None:
+    """Fail at once when nothing listens at a tcp:// address (the Dask client
+    would retry until its timeout)."""
+    import socket
+    rest = address[len("tcp://"):] if address.startswith("tcp://") else address
+    if "://" in rest:
+        return                                   # another protocol: let Dask try
+    host, sep, port = rest.rpartition(":")
+    if not sep or not port.isdigit() or not host:
+        raise UsageError(f"--cluster '{address}': give the scheduler as tcp://HOST:PORT",
+                         hint="e.g. --cluster tcp://10.0.0.5:8786")
+    try:
+        with socket.create_connection((host.strip("[]"), int(port)), timeout=timeout):
+            pass
+    except OSError as e:
+        raise fail(None, f"cannot reach the Dask scheduler at {address}: {e.strerror or e}",
+                   "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
+                   f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used") \
+            from None
+
+
+def connect(address: str, timeout: float = 15.0):
+    """``(client, worker info, address)``: a Dask client on the scheduler at
+    ``address`` (tcp://HOST:PORT), whose workers must run this spinc version."""
+    from .. import __version__
+    distributed = _dask()
+    _probe(address)
+    try:
+        client = distributed.Client(address, timeout=timeout, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as e:
+        raise fail(None, f"cannot reach the Dask scheduler at {address}: {e}",
+                   "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
+                   f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used") \
+            from None
+    try:
+        info = client.run(worker_info)
+    except Exception as e:  # noqa: BLE001
+        client.close()
+        raise fail(None, f"the Dask workers at {address} did not answer: {e}",
+                   "check that the workers run and can import spinc") from None
+    bad = sorted({v.get("spinc_version") for v in info.values()} - {__version__}, key=str)
+    if bad:
+        client.close()
+        raise fail(None, f"the Dask workers at {address} run spinc {', '.join(map(str, bad))}, "
+                         f"this is spinc {__version__}",
+                   "install the same spinc version on every worker")
+    return client, info, address
+
+
+def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) -> dict:
+    """The points on a Dask cluster; ``connection`` is what :func:`connect`
+    returned (the client is closed at the end)."""
+    distributed = _dask()
+    client, info, address = connection
+    token = secrets.token_hex(4)
+    futures = []
+    try:
+        threads = sum(client.nthreads().values())
+    except Exception:  # noqa: BLE001
+        threads = None
+    try:
+        tasks = list(tasks)
+        futures = client.map(point_fn, tasks, key=[f"spinc-point-{token}-{t.index}"
+                                                   for t in tasks], pure=False)
+        index = {f.key: t.index for f, t in zip(futures, tasks)}
+        for f in distributed.as_completed(futures, loop=client.loop):
+            try:
+                r = f.result()
+            except KeyboardInterrupt:
+                raise
+            except BaseException as e:  # noqa: BLE001 - lost worker/scheduler: the point is missing
+                on_failure(index[f.key], f"{type(e).__name__}: {e}")
+                continue
+            on_result(r)
+    except KeyboardInterrupt:
+        try:
+            client.cancel(futures)
+        except Exception:  # noqa: BLE001
+            pass
+        raise
+    finally:
+        client.close()
+    return {"backend": f"dask cluster {address}", "workers": len(info), "threads": threads}

@@ -1,0 +1,309 @@
+"""From a sequence file and ``--vary``/``--set`` arguments to a checked
+:class:`SweepPlan`: every point is expanded, checked against its device,
+scheduled and synthesised before anything is simulated, so a value that breaks a physical
+constraint or a channel limit refuses the whole sweep up front, naming the
+value (nothing is half computed)."""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import math
+from functools import lru_cache
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..check import check
+from ..device import BUNDLED_DEFAULT, load_device
+from ..device.model import Device
+from ..errors import MAX_SHOWN, Problem, SpincError, UsageError
+from ..expand import expand
+from ..parse import parse_path
+from ..parse import tree as T
+from ..simulate.model import gauss_hermite
+from ..simulate.run import SimOptions, _end_sample, compile_run
+from ..units import format_quantity
+from . import params as PR
+from .spec import MAX_POINTS, si_symbol, split_arg, to_spec
+from .types import PointTask, SweepPlan, VarySpec
+
+MAX_AXES = 2
+
+
+def point_label(axes, coords) -> str:
+    """``field = 1.2 T, tau = 200 ns``."""
+    return ", ".join(f"{a.name} = {format_quantity(v, a.dim)}" for a, v in zip(axes, coords))
+
+
+def _includes(body, out: list) -> list:
+    for s in body:
+        if isinstance(s, T.Include):
+            out.append(s.file)
+            _includes(s.body, out)
+    return out
+
+
+def _sha256(paths) -> str:
+    h = hashlib.sha256()
+    for p in paths:
+        try:
+            data = Path(p).read_bytes()
+        except OSError:
+            data = b""
+        h.update(hashlib.sha256(data).digest())
+    return h.hexdigest()
+
+
+def sim_settings(opts: SimOptions) -> dict:
+    return {"engine": opts.engine, "nodes": opts.nodes, "quadrature": opts.quadrature,
+            "substeps": opts.substeps, "rwa": opts.rwa}
+
+
+def _spec_record(s: VarySpec) -> dict:
+    return {"name": s.name, "kind": s.kind, "unit": s.unit, "values": list(s.values),
+            "spacing": s.spacing, "source": s.source}
+
+
+def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
+               fixed: list[str] | tuple[str, ...] = (), *, device: str | Path | None = None,
+               options: SimOptions = SimOptions(), budget: bool = False) -> SweepPlan:
+    """Read, check and lay out a sweep.
+
+    Parameters
+    ----------
+    path : str or Path
+        The sequence file.
+    vary : list of str
+        ``--vary`` arguments, e.g. ``"field=0.5T:1.5T:11"`` (docs/sweep.md).
+    fixed : list of str
+        ``--set`` arguments, e.g. ``"A.t2=40us"``.
+    device : str or Path, optional
+        Device file instead of the sequence's own.
+    options : SimOptions
+        Simulation settings used at every point (``budget`` and ``steps``
+        inside it are ignored).
+    budget : bool
+        Compute the error budget of every point (about ten evaluations each).
+
+    Returns
+    -------
+    SweepPlan
+        Axes: every ``--vary`` in the order given, then the file's own
+        sweeps that no ``--vary``/``--set`` names; points row-major, the first
+        axis outermost.
+
+    Raises
+    ------
+    UsageError
+        Bad argument text, unknown or repeated names, wrong units, more than
+        two axes or none, a point that breaks a physical constraint.
+    SpincError
+        The sequence or device is wrong, or a point cannot be checked or
+        scheduled (the error names the point's values).
+    """
+    options.check()
+    options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
+                         nodes=options.nodes, quadrature=options.quadrature, budget=False,
+                         steps=False)
+    raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
+    tree = parse_path(path)
+    expanded = expand(tree)
+    dev_path = str(device or expanded.device_path or BUNDLED_DEFAULT)
+    dev0 = load_device(dev_path)
+    device_ps = PR.device_params(dev0)
+    seq_ps = PR.sequence_params(tree, expanded)
+
+    specs: list[VarySpec] = []
+    seen: dict[str, str] = {}
+    for raw in raws:
+        p = PR.resolve(raw.name, raw.text, raw.flag, dev0, device_ps, seq_ps)
+        if p.name in seen:
+            raise UsageError(f"{raw.flag} '{raw.text}': {p.name} is already given ({seen[p.name]})",
+                             hint="give each parameter once")
+        seen[p.name] = f"{raw.flag} {raw.text}"
+        if p.dim is None:
+            raise UsageError(f"{raw.flag} '{raw.text}': cannot tell the unit of {p.what} "
+                             f"({p.where})", hint="give it a plain value in the file")
+        specs.append(to_spec(raw, p.name, p.kind, p.dim))
+    n_vary = len(vary)
+    axes = [s for s in specs[:n_vary]]
+    sets = [s for s in specs[n_vary:]]
+    for ax in expanded.axes:
+        if ax.name not in seen:
+            axes.append(VarySpec(ax.name, "sequence", tuple(ax.values), ax.dim, si_symbol(ax.dim),
+                                 f"sweep in {Path(str(path)).name}", "list", "file"))
+    if not axes:
+        raise UsageError(f"nothing to sweep: {path} has no sweep and no --vary is given",
+                         hint="add e.g. --vary field=0.5T:1.5T:11 (see: spinc sweep --help)")
+    if len(axes) > MAX_AXES:
+        names = ", ".join(f"{a.name} ({'file' if a.source == 'file' else '--vary'}, "
+                          f"{a.points} points)" for a in axes)
+        file_axes = [a.name for a in axes if a.source == "file"]
+        hint = (f"pin the file's sweep with --set {file_axes[0]}=VALUE, or vary fewer "
+                "parameters" if file_axes else "vary at most two parameters per sweep")
+        raise UsageError(f"a sweep has one or two axes, this one would have {len(axes)}: {names}",
+                         hint=hint)
+    total = 1
+    for a in axes:
+        total *= a.points
+    if total > MAX_POINTS:
+        raise UsageError(f"the sweep has {total} points, above the limit of {MAX_POINTS}",
+                         hint="use fewer points per parameter")
+
+    seq_fixed = {s.name: (s.values[0], s.dim) for s in sets if s.kind == "sequence"}
+    dev_fixed = {s.name: s.values[0] for s in sets if s.kind == "device"}
+    base_problems = {cid for cid, _, _ in PR.constraints(dev0)}
+    base_cautions = {cid for cid, _ in PR.cautions(dev0)}
+
+    expanded_cache: dict[tuple, object] = {}
+    device_cache: dict[tuple, tuple[Device, bool]] = {}
+    scheduled: dict[tuple, Exception | None] = {}
+    constraint_fails: dict[str, list[tuple[str, str, str]]] = {}
+    caution_hits: dict[str, list[str]] = {}
+    stage_errors: list[tuple[SpincError, str]] = []
+    tasks: list[PointTask] = []
+    longest: dict[str, tuple[float, str]] = {}     # dot -> (largest run span / T2*, point)
+    for index, coords in enumerate(itertools.product(*[a.values for a in axes])):
+        label = point_label(axes, coords)
+        dev_label = point_label(*zip(*[(a, v) for a, v in zip(axes, coords)
+                                       if a.kind == "device"])) if any(
+            a.kind == "device" for a in axes) else "the --set values"
+        seq_vals = dict(seq_fixed)
+        dev_vals = dict(dev_fixed)
+        for a, v in zip(axes, coords):
+            if a.kind == "sequence":
+                seq_vals[a.name] = (v, a.dim)
+            else:
+                dev_vals[a.name] = v
+        skey = tuple(sorted((k, v[0]) for k, v in seq_vals.items()))
+        dkey = tuple(sorted(dev_vals.items()))
+        if dkey not in device_cache:
+            dev = PR.apply_device(dev0, dev_vals)
+            bad = [(cid, msg, hint) for cid, msg, hint in PR.constraints(dev)
+                   if cid not in base_problems]
+            device_cache[dkey] = (dev, bool(bad))
+            for cid, msg, hint in bad:
+                constraint_fails.setdefault(cid, []).append((dev_label, msg, hint))
+            for cid, msg in PR.cautions(dev):
+                if cid not in base_cautions:
+                    caution_hits.setdefault(cid, []).append(f"{msg} at {dev_label}")
+        dev, refused = device_cache[dkey]
+        if refused:
+            continue
+        if skey not in expanded_cache:
+            try:
+                expanded_cache[skey] = expand(PR.override(tree, seq_vals))
+            except SpincError as e:
+                expanded_cache[skey] = e
+        ex = expanded_cache[skey]
+        if isinstance(ex, SpincError):
+            stage_errors.append((ex, label))
+            continue
+        if len(ex.runs) != 1:  # every file sweep is an axis or pinned: cannot happen
+            raise RuntimeError(f"expected one run per sweep point, got {len(ex.runs)}")
+        ck = (skey, dkey)
+        if ck not in scheduled:
+            try:
+                check(ex, dev)
+                _, tl, _ = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
+                scheduled[ck] = None
+                for q, d in dev.dots.items():
+                    r = _end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
+                    if r > longest.get(q, (0.0, ""))[0]:
+                        longest[q] = (r, label)
+            except SpincError as e:
+                scheduled[ck] = e
+        if scheduled[ck] is not None:
+            stage_errors.append((scheduled[ck], label))
+            continue
+        tasks.append(PointTask(index, tuple(coords), ex.runs[0], dev, options, budget))
+
+    if constraint_fails:
+        raise _constraint_error(constraint_fails, len(device_cache))
+    if stage_errors:
+        raise _stage_error(stage_errors, total)
+
+    key = {"format": "spinc-sweep-key", "spinc_version": __version__,
+           "sequence_sha256": _sha256([tree.file] + _includes(tree.body, [])),
+           "device_sha256": _sha256([dev_path]), "device_name": dev0.name,
+           "axes": [_spec_record(a) for a in axes], "fixed": [_spec_record(s) for s in sets],
+           "options": sim_settings(options), "budget": bool(budget)}
+    warnings = tuple(_caution_lines(caution_hits)) + _quadrature_caution(longest, options.nodes)
+    return SweepPlan(str(path), dev0.name, dev_path, tuple(axes), tuple(sets), tuple(tasks),
+                     options, bool(budget), key, warnings)
+
+
+@lru_cache(maxsize=None)
+def accurate_span(nodes: int, tol: float = 1e-3) -> float:
+    """Longest free precession, in units of T2*, for which ``nodes``
+    Gauss-Hermite nodes average the quasi-static Ramsey signal
+    exp(-(t/T2*)^2) to ``tol`` (the model's detuning rms is sqrt(2)/T2*;
+    Merkulov, Efros & Rosen, PRB 65, 205309 (2002))."""
+    x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
+    r = 0.0
+    while r < 50:
+        a = math.sqrt(2) * (r + 0.01)
+        if abs(float(np.dot(w, np.cos(a * x))) - math.exp(-a * a / 2)) > tol:
+            return r
+        r += 0.01
+    return r
+
+
+def _quadrature_caution(longest: dict[str, tuple[float, str]], nodes: int) -> tuple[str, ...]:
+    limit = accurate_span(nodes)
+    out = []
+    for q, (r, label) in longest.items():
+        if r > limit:
+            need = _nodes_for(r)
+            fix = (f"give --nodes {need}" if need else
+                   "even 15 nodes (the most) reach only "
+                   f"{accurate_span(15):.2g}·T2*, so trust only the points with shorter free "
+                   "precession")
+            out.append(f"runs last up to {r:.3g}·T2* of dot {q} (at {label}); {nodes} quadrature "
+                       f"nodes average free precession correctly (to 1e-3) only up to "
+                       f"{limit:.2g}·T2*: {fix}, unless the sequence refocuses (echoes)")
+    return tuple(out)
+
+
+def _nodes_for(r: float) -> int | None:
+    for n in range(3, 16):
+        if accurate_span(n) >= r:
+            return n
+    return None
+
+
+def _caution_lines(hits: dict[str, list[str]]) -> list[str]:
+    out = []
+    for cid, lines in hits.items():
+        more = len(lines) - 1
+        out.append(lines[0] + (f" (and {more} more point{'s' * (more != 1)})" if more else ""))
+    return out
+
+
+def _constraint_error(fails: dict[str, list[tuple[str, str, str]]], total: int) -> UsageError:
+    problems = []
+    for cid, items in fails.items():
+        label, msg, hint = items[0]
+        n = len(items)
+        where = (f"at {n} of {total} device settings, the first at {label}" if n > 1 else
+                 f"at {label}")
+        problems.append(Problem(f"sweep refused before starting: {msg} {where}", None, hint))
+    return UsageError(problems)
+
+
+def _stage_error(errors: list[tuple[SpincError, str]], total: int) -> SpincError:
+    first, _ = errors[0]
+    seen: dict[tuple, list] = {}
+    for err, label in errors:
+        for p in err.problems:
+            seen.setdefault((p.message, p.span), [p, []])[1].append(label)
+    problems = []
+    for (_, _), (p, labels) in seen.items():
+        shown = "; ".join(labels[:3]) + (f"; and {len(labels) - 3} more" if len(labels) > 3 else "")
+        ctx = p.context + (f"at {len(labels)} of {total} sweep points: {shown}",)
+        problems.append(Problem(p.message, p.span, p.hint, p.source_line, ctx))
+        if len(problems) >= MAX_SHOWN:
+            break
+    return type(first)(problems)

@@ -1,0 +1,145 @@
+"""One sweep point, as a worker computes it: a pure function of its
+:class:`PointTask` (no file is read, no global state is kept between points:
+a fresh engine per point), so a point gives the same numbers in this
+process, in a local worker process or on a Dask worker.
+
+Every point runs with one BLAS/OpenMP thread (``threadpoolctl``): the
+matrices are small, so more threads only add contention, and on a busy
+machine the thread pools of several processes fighting over the same cores
+make a point many times slower; one thread per worker also keeps the
+floating-point operation order the same everywhere.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+import traceback
+
+from ..check.summary import GATE_KINDS
+from ..errors import SpincError
+from ..simulate.model import Switches
+from ..simulate.run import _engine, compile_run, error_budget, evaluate_whole
+from .types import ERROR, INVALID, OK, PointResult, PointTask
+
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                    "BLIS_NUM_THREADS", "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
+
+_controller = None
+_allocator_checked = False
+M_TRIM_THRESHOLD, M_MMAP_THRESHOLD = -1, -3       # glibc mallopt parameters (malloc.h)
+
+
+def _allocator_for_arrays() -> None:
+    """Undo a fixed small trim threshold once per process.
+
+    Dask's nanny starts its workers with ``MALLOC_TRIM_THRESHOLD_=65536``;
+    setting it also freezes glibc's mmap threshold at 128 KiB, so every
+    array above that is mapped and unmapped again, and each use pays its page
+    faults anew: a point ran 30 to 50 % slower on this machine.  When the
+    variable is set, the thresholds are raised with ``mallopt`` (arrays up to
+    32 MiB are then reused from the heap).  Elsewhere glibc's own adaptive
+    thresholds are left alone; other C libraries are not touched."""
+    global _allocator_checked
+    if _allocator_checked:
+        return
+    _allocator_checked = True
+    if "MALLOC_TRIM_THRESHOLD_" not in os.environ or not sys.platform.startswith("linux"):
+        return
+    try:
+        import ctypes
+        libc = ctypes.CDLL(None)
+        libc.mallopt(M_MMAP_THRESHOLD, 32 << 20)
+        libc.mallopt(M_TRIM_THRESHOLD, 64 << 20)
+    except (OSError, AttributeError):   # not glibc
+        pass
+
+
+def one_thread():
+    """A context in which BLAS and OpenMP use one thread (threadpoolctl);
+    the library scan is done once per process."""
+    global _controller
+    from threadpoolctl import ThreadpoolController
+    if _controller is None:
+        _controller = ThreadpoolController()
+    return _controller.limit(limits=1)
+
+
+def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
+    """T2 over the longest gate on each dot of one timeline (the margin
+    ``spinc check`` prints)."""
+    longest: dict[str, float] = {}
+    for s in tl.slots:
+        if s.kind in GATE_KINDS:
+            for q in s.qubits:
+                longest[q] = max(longest.get(q, 0.0), s.duration)
+    return tuple((q, device.dots[q].t2, d, device.dots[q].t2 / d)
+                 for q, d in longest.items() if d > 0)
+
+
+def _first_line(err: SpincError) -> str:
+    p = err.first
+    where = f"{p.span}: " if p.span is not None and p.span.line > 0 else ""
+    return f"{err.stage}: {where}{p.message}" + (f" (hint: {p.hint})" if p.hint else "")
+
+
+def simulate_point(task: PointTask) -> PointResult:
+    """The whole-run fidelities (and, with ``task.budget``, the error budget)
+    of one point; raises what the stages raise."""
+    t0 = time.perf_counter()
+    opts = task.options
+    dev, tl, wf = compile_run(task.run, task.device)
+    engine = _engine(opts.engine)
+    whole = evaluate_whole(tl, wf, dev, Switches(), opts, engine)
+    fid = whole.f_avg if whole.f_avg is not None else whole.f_state
+    budget = ()
+    floor = remainder = None
+    if task.budget:
+        lines, floor, remainder = error_budget(task.run, task.device, opts, engine, whole)
+        budget = tuple((b.source, float(b.infidelity)) for b in lines)
+        floor, remainder = float(floor), float(remainder)
+    return PointResult(
+        task.index, task.coords, OK, "", float(fid), float(whole.infidelity),
+        None if whole.f_pro is None else float(whole.f_pro),
+        None if whole.f_avg is None else float(whole.f_avg), float(whole.f_state),
+        tuple((q, float(p)) for q, p in whole.pops.items()), float(whole.duration),
+        coherence(tl, task.device), budget, floor, remainder, time.perf_counter() - t0)
+
+
+def evaluate_point(task: PointTask) -> PointResult:
+    """:func:`simulate_point` with one BLAS thread, never raising for a
+    point's own trouble: inputs a stage refuses give an ``invalid`` result
+    with the reason, anything else (a bug) an ``error`` result with the
+    exception, which the sweep reports and does not keep."""
+    t0 = time.perf_counter()
+    _allocator_for_arrays()
+    try:
+        with one_thread():
+            return simulate_point(task)
+    except SpincError as e:
+        return PointResult(task.index, task.coords, INVALID, _first_line(e),
+                           wall_s=time.perf_counter() - t0)
+    except Exception as e:  # noqa: BLE001 - reported with the point, never lost silently
+        tb = traceback.extract_tb(e.__traceback__)
+        at = f" at {os.path.basename(tb[-1].filename)}:{tb[-1].lineno}" if tb else ""
+        return PointResult(task.index, task.coords, ERROR, f"{type(e).__name__}: {e}{at}",
+                           wall_s=time.perf_counter() - t0)
+
+
+def worker_started() -> None:
+    """Initializer of a local worker process: Ctrl-C is the parent's to
+    handle (it stops the workers itself), so the worker ignores SIGINT."""
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def worker_info() -> dict:
+    """What a worker reports about itself (version check, thread count)."""
+    from .. import __version__
+    try:
+        threads = len(os.listdir("/proc/self/task"))
+    except OSError:
+        threads = -1
+    return {"spinc_version": __version__, "pid": os.getpid(), "threads": threads,
+            "env": {k: os.environ.get(k, "") for k in THREAD_VARIABLES}}

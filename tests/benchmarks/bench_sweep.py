@@ -1,0 +1,250 @@
+"""Sweep speed: 2 local workers against 1, and the per-point overhead of a
+Dask cluster against the local pool.
+
+Run as ``python tests/benchmarks/bench_sweep.py [--repeats N]``.  The sweep
+is 64 points (8 free-evolution times x 8 values of T2*) of a small but
+realistic two-dot sequence (Ramsey on A, then a square root of SWAP and a
+rotation of B; 40 ns square bursts on separate drive lines; 3 quadrature
+nodes, 1 sub-step per sample), about half a second per point here.
+
+Measured in this run, medians over the repeats (the two pool sizes
+alternate, so slow phases of a busy machine hit both):
+
+* ``t1``, ``t2``: the sweep through the local pool path of ``spinc sweep``
+  (``run_pool``) with 1 and 2 worker processes, each started fresh
+  (spawning and importing included, as a user meets it);
+  ``speedup_2_workers = t1 / t2``; with each, the cores the workers
+  actually got (their CPU time over the wall time): on a machine shared with
+  other work the 2 workers get fewer than 2 cores, and the speed-up shows it;
+* warm pool and warm cluster: a pool of 2 already started, and a Dask
+  LocalCluster (2 worker processes, 1 thread each, loopback TCP) already
+  started with a connected client; ``dask_overhead_ms_per_point =
+  (t_dask - t_pool) / 64`` in ms: what a point costs more on Dask
+  (scheduling, shipping the task and its result);
+* the same two warm paths with points that compute nothing: the cost of
+  shipping tasks and results alone (``dask_overhead_noop_ms_per_point``),
+  hardly touched by other work on the machine;
+* the thread settings each worker reports (BLAS/OpenMP variables, threads
+  of the process) and the time of one point in this process with the
+  default BLAS thread pools against one thread (``threadpoolctl``).
+
+Every backend must give the same numbers (checked).  The last line printed
+is one JSON object with the keys ``speedup_2_workers`` and
+``dask_overhead_ms_per_point``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import multiprocessing
+import os
+import resource
+import statistics
+import sys
+import tempfile
+import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from pathlib import Path
+
+from compiler.simulate.run import SimOptions
+from compiler.sweep import plan_sweep
+from compiler.sweep.execute import child_threads, connect, run_dask, run_pool
+from compiler.sweep.point import evaluate_point, simulate_point, worker_info, worker_started
+from compiler.sweep.types import OK, PointResult
+
+DEVICE = """
+name: bench pair (invented)
+field: 400 mT
+temperature: 40 mK
+rotation: {mode: duration, shape: square, duration: 40 ns}
+readout: {marker: M1, duration: 1 us}
+dots:
+  A: {g: 2.0, t1: 200 us, t2: 40 us, t2_star: 4 us, drive: {line: mw, rabi_per_volt: 60 MHz/V}, plunger: P_A}
+  B: {g: 2.0012, t1: 200 us, t2: 30 us, t2_star: 3 us, drive: {line: mw2, rabi_per_volt: 60 MHz/V}, plunger: P_B}
+couplings:
+  - {dots: [A, B], barrier: B_AB, exchange: {model: exponential, j0: 20 kHz, v0: 30 mV}, idle_voltage: 0 mV, pulse_voltage: 250 mV, charge_noise: 10 uV}
+channels:
+  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], rise_time: 1 ns, lo: 11.28 GHz, if_band: [-250 MHz, 250 MHz]}
+  mw2: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], rise_time: 1 ns, lo: 11.28 GHz, if_band: [-250 MHz, 250 MHz]}
+  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: 2 ns}
+  P_B: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], rise_time: 2 ns}
+  B_AB: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-500 mV, 500 mV], rise_time: 1 ns}
+  M1: {kind: marker, sample_rate: 1 GS/s}
+"""
+
+SEQUENCE = """device "dev.yaml"
+let tau = 100 ns
+prepare A B down
+rot A x 90 deg
+wait tau on A
+rot A x 90 deg
+sqrtswap A B
+rot B y 90 deg
+read A B
+"""
+
+VARY = ["tau=0ns:200ns:8", "A.t2_star=2us:9us:8"]
+
+
+def probe_worker():
+    """A worker's own report, after a pause so every worker of the pool gets one."""
+    time.sleep(0.5)
+    return worker_info()
+
+
+def warm_worker(task):
+    """One point after a pause, so every worker of a pool computes one first."""
+    time.sleep(0.5)
+    return evaluate_point(task)
+
+
+def noop_point(task):
+    """A point that computes nothing: what remains is the cost of shipping
+    the task and its result."""
+    return PointResult(task.index, task.coords, OK)
+
+
+def numbers(points):
+    return sorted((p.index, p.status, p.fidelity, p.process_fidelity, p.state_fidelity,
+                   p.populations, p.coherence) for p in points)
+
+
+def timed(fn):
+    t = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t, out
+
+
+def children_cpu() -> float:
+    """CPU seconds (user + system) used so far by ended child processes."""
+    r = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return r.ru_utime + r.ru_stime
+
+
+def cold_pool(tasks, workers):
+    got = []
+    run_pool(tasks, got.append, workers)
+    return got
+
+
+def warm_pool(ex, tasks, fn=evaluate_point):
+    futures = [ex.submit(fn, t) for t in tasks]
+    return [f.result() for f in as_completed(futures)]
+
+
+def warm_dask(connection, tasks, fn=evaluate_point):
+    got = []
+    run_dask(tasks, got.append, lambda i, why: got.append(why), connection, fn)
+    return got
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--repeats", type=int, default=3)
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        Path(tmp, "dev.yaml").write_text(DEVICE, encoding="utf-8")
+        Path(tmp, "seq.dotseq").write_text(SEQUENCE, encoding="utf-8")
+        plan = plan_sweep(Path(tmp, "seq.dotseq"), VARY, options=SimOptions(nodes=3, substeps=1))
+    tasks = list(plan.tasks)
+    n = len(tasks)
+    print(f"sweep: {n} points ({' x '.join(map(str, plan.shape))}) of a two-dot sequence; "
+          f"{args.repeats} repeats; medians; {os.cpu_count()} cores, load average "
+          f"{os.getloadavg()[0]:.2f} at the start")
+    print(f"this process: {worker_info()['threads']} threads (default BLAS thread pools)")
+
+    # one point in this process: default BLAS thread pools against one thread
+    mid = tasks[n // 2]
+    t_default = statistics.median(timed(lambda: simulate_point(mid))[0] for _ in range(3))
+    t_one = statistics.median(timed(lambda: evaluate_point(mid))[0] for _ in range(3))
+    print(f"one point in this process: {t_default:.3f} s with the default BLAS threads, "
+          f"{t_one:.3f} s with one thread (x{t_default / t_one:.1f})")
+
+    # worker thread settings
+    ctx = multiprocessing.get_context("spawn")
+    with child_threads():
+        with ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started) as ex:
+            infos = [f.result() for f in [ex.submit(probe_worker) for _ in range(4)]]
+    for info in {i["pid"]: i for i in infos}.values():
+        print(f"worker pid {info['pid']}: {info['threads']} threads; "
+              + ", ".join(f"{k}={v}" for k, v in info["env"].items() if k.startswith(("OMP", "OPENBLAS", "MKL"))))
+
+    # cold pools of 1 and 2 workers (the path of `spinc sweep --workers N`)
+    t1s, t2s = [], []
+    cores = {1: [], 2: []}
+    reference = None
+    for r in range(args.repeats):
+        for w, store in ((1, t1s), (2, t2s)) if r % 2 == 0 else ((2, t2s), (1, t1s)):
+            cpu0 = children_cpu()
+            t, got = timed(lambda: cold_pool(tasks, w))
+            got_cores = (children_cpu() - cpu0) / t
+            store.append(t)
+            cores[w].append(got_cores)
+            reference = reference or numbers(got)
+            assert numbers(got) == reference, "pool results differ"
+            print(f"  pool of {w}: {t:.2f} s ({t / n * 1e3:.0f} ms per point); the workers got "
+                  f"{got_cores:.2f} cores on average (CPU time / wall time)")
+    t1, t2 = statistics.median(t1s), statistics.median(t2s)
+    speedup = t1 / t2
+    print(f"local pool, started fresh: 1 worker {t1:.2f} s, 2 workers {t2:.2f} s: "
+          f"speed-up {speedup:.2f}x (aim >= 1.7x); cores obtained: "
+          f"{statistics.median(cores[1]):.2f} with 1 worker, {statistics.median(cores[2]):.2f} "
+          "with 2 (below 2: other processes hold the cores)")
+
+    # warm pool of 2 against a warm Dask cluster of 2 single-threaded workers
+    overhead = noop = None
+    try:
+        from distributed import LocalCluster
+    except ImportError:
+        print("dask: not installed (pip install 'spinc[dask]'); overhead not measured")
+    else:
+        tp, td = [], []
+        with child_threads():
+            ex = ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started)
+            [f.result() for f in [ex.submit(warm_worker, tasks[0]) for _ in range(4)]]
+            with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                              host="127.0.0.1", dashboard_address=None) as cluster:
+                warm = connect(cluster.scheduler_address)
+                warm[0].run(lambda: evaluate_point(tasks[0]))     # import and warm up
+                for r in range(args.repeats):
+                    # run_dask closes its client: connect anew, outside the timing
+                    conn = warm if r == 0 else connect(cluster.scheduler_address)
+                    for which in (("pool", "dask") if r % 2 == 0 else ("dask", "pool")):
+                        if which == "pool":
+                            t, got = timed(lambda: warm_pool(ex, tasks))
+                            tp.append(t)
+                        else:
+                            t, got = timed(lambda: warm_dask(conn, tasks))
+                            td.append(t)
+                        assert numbers(got) == reference, f"{which} results differ"
+                        print(f"  warm {which}: {t:.2f} s")
+                # the same without computing: shipping tasks and results only
+                noop_p, noop_d = [], []
+                for r in range(5):
+                    noop_p.append(timed(lambda: warm_pool(ex, tasks, noop_point))[0])
+                    conn = connect(cluster.scheduler_address)
+                    noop_d.append(timed(lambda: warm_dask(conn, tasks, noop_point))[0])
+            ex.shutdown()
+        noop = (statistics.median(noop_d) - statistics.median(noop_p)) / n * 1e3
+        print(f"without compute (shipping only): pool {statistics.median(noop_p) * 1e3:.0f} ms, "
+              f"Dask {statistics.median(noop_d) * 1e3:.0f} ms for {n} points: {noop:+.1f} ms per "
+              "point (insensitive to other work on the machine)")
+        t_pool, t_dask = statistics.median(tp), statistics.median(td)
+        overhead = (t_dask - t_pool) / n * 1e3
+        print(f"warm pool of 2: {t_pool:.2f} s; warm Dask LocalCluster of 2: {t_dask:.2f} s: "
+              f"{overhead:+.1f} ms per point (aim < 20 ms)")
+    print("all backends gave the same numbers; load average "
+          f"{os.getloadavg()[0]:.2f} at the end (other work on the machine slows the 2-worker runs)")
+    print(json.dumps({"speedup_2_workers": round(speedup, 3),
+                      "dask_overhead_ms_per_point": None if overhead is None else round(overhead, 2),
+                      "points": n, "t_1_worker_s": round(t1, 2), "t_2_workers_s": round(t2, 2),
+                      "cores_obtained_2_workers": round(statistics.median(cores[2]), 2),
+                      "dask_overhead_noop_ms_per_point": None if overhead is None else round(noop, 2),
+                      "point_default_blas_s": round(t_default, 3),
+                      "point_one_thread_s": round(t_one, 3)}))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,17 @@
+"""Point functions for tests/test_sweep.py that worker processes can import
+(a spawned worker imports the function by module and name)."""
+
+import os
+
+from compiler.sweep.point import evaluate_point
+
+STOP_AT = 3
+
+
+def die_on_point(task):
+    """Like evaluate_point, but the worker process computing point STOP_AT
+    dies on the spot (as if killed or out of memory)."""
+    if task.index == STOP_AT:
+        os._exit(17)
+    return evaluate_point(task)
+
