@@ -60,6 +60,9 @@ class BurstDesign:
         return np.asarray(self.envelope)
 
 
+MAX_BURST_SAMPLES = 1_000_000     # one burst: 1 ms at 1 GS/s, far beyond any coherence time
+
+
 @lru_cache(maxsize=4096)
 def _envelope(shape: str, n: int, dt: float, sigmas: float, edge: float) -> tuple[float, ...]:
     t = (np.arange(n) + 0.5) * dt
@@ -89,6 +92,11 @@ def design_burst(angle: float, phase: float, rabi_per_volt: float, dt: float,
     else:
         t = duration if duration is not None else rot.duration
         n = max(1, int(round(t / dt)))
+    if n > MAX_BURST_SAMPLES:
+        raise DesignError(f"this burst would last {n:,} samples ({n * dt * 1e3:.4g} ms), more than "
+                          f"the {MAX_BURST_SAMPLES:,} samples one burst may hold",
+                          "check the duration= or amplitude= of the rotation (and its unit); "
+                          "a longer rotation can be written as several rotations")
     env = _envelope(shape, n, dt, rot.sigmas, rot.edge)
     area = math.fsum(env) * dt
     if area <= 0:

@@ -1,6 +1,8 @@
 """Bad sequence text: the tool's own error, at the right line and column,
 with the offending text and a hint.  (Device-file errors: test_device.py.)"""
 
+from pathlib import Path
+
 import pytest
 
 from compiler.errors import SequenceError, SequenceSyntaxError, SpincError
@@ -170,3 +172,15 @@ def test_included_text_counts_against_the_size_limit(write):
     p = info.value.first
     assert "cannot include 'big.dotseq'" in p.message and "would need about" in p.message
     assert p.span.line == 20 and "--memory-limit" in p.hint
+
+
+def test_a_burst_too_long_to_hold_is_refused(write):
+    # found by the fuzz run: 'duration=400 ns' mutated into '400 s' allocated 30 GiB
+    from compiler import load
+    from compiler.errors import SpincError
+    dev = (Path(__file__).parent.parent / "sequences" / "devices" / "demo_gaas_pair.yaml").resolve()
+    p = write("s.dotseq", f'device "{dev}"\nrot A x 90 deg duration=400 s\n')
+    with pytest.raises(SpincError) as e:
+        load(p)
+    text = e.value.render()
+    assert "1,000,000 samples" in text and "s.dotseq:2:" in text
