@@ -563,7 +563,14 @@ def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, 
         ny = np.where(w > 0, 2 * math.pi * h * hy / np.where(w > 0, w, 1), 0.0)
     c, s = np.cos(w), np.sin(w)
     # exp(−i w (nx σx + ny σy)) = [[c, −i s (nx − i ny)], [−i s (nx + i ny), c]]
-    U = np.eye(2, dtype=complex)
-    for ck, sk, xk, yk in zip(c, s, nx, ny):
-        U = np.array([[ck, -1j * sk * (xk - 1j * yk)], [-1j * sk * (xk + 1j * yk), ck]]) @ U
-    return float(-2 * np.angle(U[0, 0]))
+    M = np.empty((len(c), 2, 2), dtype=complex)
+    M[:, 0, 0] = c
+    M[:, 1, 1] = c
+    M[:, 0, 1] = -1j * s * (nx - 1j * ny)
+    M[:, 1, 0] = -1j * s * (nx + 1j * ny)
+    while len(M) > 1:                  # ordered product, later sub-steps on the left
+        if len(M) % 2:
+            M = np.concatenate([np.matmul(M[1:-1:2], M[0:-1:2]), M[-1:]])
+        else:
+            M = np.matmul(M[1::2], M[0::2])
+    return float(-2 * np.angle(M[0][0, 0]))
