@@ -289,15 +289,20 @@ TARGETS = {"sqrtswap": SQRT_SWAP, "isqrtswap": SQRT_SWAP.conj().T, "swap": SWAP}
 SUBSTEPS = 16   # piecewise-constant sub-steps per sample for the pair propagator
 
 
-def _ordered_product(m: np.ndarray) -> np.ndarray:
-    """``m[-1] @ ... @ m[1] @ m[0]`` for a stack of 2×2 matrices (m[0]
-    acts first), multiplied pairwise so the work is vectorised."""
-    eye = np.eye(2, dtype=complex)[None]
-    while len(m) > 1:
-        if len(m) % 2:
-            m = np.concatenate([m, eye])
-        m = m[1::2] @ m[0::2]
-    return m[0] if len(m) else eye[0]
+def ordered_product(m: np.ndarray) -> np.ndarray:
+    """``m[-1] @ … @ m[1] @ m[0]`` over the stack axis (the third from the
+    end; m[0] acts first) of a stack of square matrices, with any leading
+    batch axes, multiplied pairwise so the work is vectorised."""
+    m = np.asarray(m)
+    k = m.shape[-1]
+    if m.shape[-3] == 0:
+        return np.broadcast_to(np.eye(k, dtype=m.dtype), m.shape[:-3] + (k, k)).copy()
+    while m.shape[-3] > 1:
+        if m.shape[-3] % 2:
+            pad = np.broadcast_to(np.eye(k, dtype=m.dtype), m.shape[:-3] + (1, k, k))
+            m = np.concatenate([m, pad], axis=-3)
+        m = m[..., 1::2, :, :] @ m[..., 0::2, :, :]
+    return m[..., 0, :, :]
 
 
 def pair_propagator(design: ExchangeDesign, model, delta: float) -> np.ndarray:
@@ -334,15 +339,10 @@ def pair_propagator(design: ExchangeDesign, model, delta: float) -> np.ndarray:
         blocks[..., 1, 1] = ph * (cw + 1j * sw * d)
         blocks[..., 0, 1] = blocks[..., 1, 0] = ph * (-1j * sw * a / 2)
         # time order within a sample: later sub-steps multiply from the left
-        while blocks.shape[1] > 1:
-            if blocks.shape[1] % 2:
-                blocks = np.concatenate([blocks, np.broadcast_to(
-                    np.eye(2, dtype=complex), (len(blocks), 1, 2, 2))], axis=1)
-            blocks = blocks[:, 1::2] @ blocks[:, 0::2]
-        per_sample = blocks[:, 0]
+        per_sample = ordered_product(blocks)
         for i in np.flatnonzero(w > 1):
             per_sample[i] = np.linalg.matrix_power(per_sample[i], int(w[i]))
-        mid = _ordered_product(per_sample) @ mid
+        mid = ordered_product(per_sample) @ mid
     outer = np.exp(-1j * math.fsum(np.concatenate(a_parts)) / 4) if a_parts else 1.0
     U = np.zeros((4, 4), dtype=complex)
     U[0, 0] = U[3, 3] = outer
@@ -568,9 +568,4 @@ def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, 
     M[:, 1, 1] = c
     M[:, 0, 1] = -1j * s * (nx - 1j * ny)
     M[:, 1, 0] = -1j * s * (nx + 1j * ny)
-    while len(M) > 1:                  # ordered product, later sub-steps on the left
-        if len(M) % 2:
-            M = np.concatenate([np.matmul(M[1:-1:2], M[0:-1:2]), M[-1:]])
-        else:
-            M = np.matmul(M[1::2], M[0::2])
-    return float(-2 * np.angle(M[0][0, 0]))
+    return float(-2 * np.angle(ordered_product(M)[0, 0]))

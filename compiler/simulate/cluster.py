@@ -49,6 +49,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..pulses import ordered_product
 from . import pauli as PL
 from .model import Model, NoisePoint
 
@@ -428,13 +429,7 @@ class FastEngine:
             for i in np.flatnonzero(lengths > 1):
                 mats[:, i] = np.linalg.matrix_power(mats[:, i], int(lengths[i]))
         self.exponentials += V * R
-        while mats.shape[1] > 1:                   # later factors on the left
-            if mats.shape[1] % 2:
-                mats = np.concatenate([np.matmul(mats[:, 1:-1:2], mats[:, 0:-1:2]), mats[:, -1:]],
-                                      axis=1)
-            else:
-                mats = np.matmul(mats[:, 1::2], mats[:, 0::2])
-        got = mats[:, 0]
+        got = ordered_product(mats)                # later sub-steps on the left
         if theta is not None:
             last = {q: float(v[-1]) + step[q] for q, v in theta.items()}
             first = {q: -float(v[0]) for q, v in theta.items()}

@@ -50,16 +50,13 @@ def rotation(phase: float, angle: float) -> np.ndarray:
 
 
 @lru_cache(maxsize=256)
-def _exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
+def exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
+    """exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate (1/4 for √SWAP);
+    cached, returned read-only."""
     s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
     u = expm(-2j * math.pi * EXCHANGE_TARGET[gate] * s1s2)
     u.flags.writeable = False
     return u
-
-
-def exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
-    """exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate (1/4 for √SWAP)."""
-    return _exchange_unitary(gate, a, b, n)
 
 
 def step_unitary(step, dots: tuple[str, ...]) -> np.ndarray:
