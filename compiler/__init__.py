@@ -1,4 +1,4 @@
-"""spinc: a pulse-sequence compiler for electron-spin qubits in quantum dots.
+"""dotseq: a pulse-sequence compiler for electron-spin qubits in quantum dots.
 
 The pipeline, one subpackage per stage::
 
@@ -21,7 +21,7 @@ from .check import check
 from .check.summary import Summary, summarize
 from .device import BUNDLED_DEFAULT, load_device
 from .device.model import Device
-from .errors import SpincError
+from .errors import DotseqError
 from .expand import expand
 from .parse import parse_path, parse_text
 from .program import Expanded
@@ -59,7 +59,7 @@ def load(path: str | Path, device: str | Path | None = None, *,
     ``device`` overrides the file's device statement.  ``memory_limit``
     (bytes, default half the memory available) bounds the text read and the
     steps expanded, estimated before they are allocated (:mod:`compiler.limits`).
-    Raises a :class:`~compiler.errors.SpincError` subclass for any bad input.
+    Raises a :class:`~compiler.errors.DotseqError` subclass for any bad input.
     """
     budget = limits.budget(memory_limit)
     with _bulk():
@@ -74,7 +74,7 @@ def load(path: str | Path, device: str | Path | None = None, *,
 
 def check_file(path: str | Path, device: str | Path | None = None, *,
                memory_limit: int | None = None) -> Summary:
-    """What `spinc check` prints: a :class:`Summary` of the checked file."""
+    """What `dotseq check` prints: a :class:`Summary` of the checked file."""
     c = load(path, device, memory_limit=memory_limit)
     return summarize(c.expanded, c.device, list(c.timelines))
 
@@ -104,4 +104,4 @@ def compile_file(path: str | Path, device: str | Path | None = None, *,
 
 
 __all__ = ["compile_file", "compile_checked", "Compiled", "Waveforms", "synthesize","load", "check_file", "parse_path", "parse_text", "expand", "check", "schedule",
-           "load_device", "summarize", "SpincError", "Checked", "__version__"]
+           "load_device", "summarize", "DotseqError", "Checked", "__version__"]

@@ -1,4 +1,4 @@
-"""The `spinc` command.  Thin: it parses arguments and calls the functions of
+"""The `dotseq` command.  Thin: it parses arguments and calls the functions of
 :mod:`compiler`; every input error is printed with its position and a hint
 and gives exit code 2, never a traceback."""
 
@@ -12,15 +12,15 @@ from pathlib import Path
 
 from . import __version__, check_file, compile_checked, load
 from .check.summary import render_text, to_dict
-from .errors import SpincError, UsageError
+from .errors import DotseqError, UsageError
 from .limits import check_synthesis_size, default_limit, human, parse_size
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
-EXIT_PARTIAL = 4   # spinc sweep: workers lost; the partial table is written, --resume continues
+EXIT_PARTIAL = 4   # dotseq sweep: workers lost; the partial table is written, --resume continues
 
 CAUTION = ("Caution: check every compiled voltage and microwave amplitude against the sample's "
-           "and the lab's own limits before loading it onto an instrument; spinc does not "
+           "and the lab's own limits before loading it onto an instrument; dotseq does not "
            "replace instrument-side limits.")
 
 
@@ -30,9 +30,9 @@ class _Parser(argparse.ArgumentParser):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = _Parser(prog="spinc", description="Pulse-sequence compiler for electron-spin qubits "
+    p = _Parser(prog="dotseq", description="Pulse-sequence compiler for electron-spin qubits "
                 "in gate-defined quantum dots.", epilog=CAUTION)
-    p.add_argument("--version", action="version", version=f"spinc {__version__}")
+    p.add_argument("--version", action="version", version=f"dotseq {__version__}")
     p.add_argument("--debug", action="store_true", help="show Python tracebacks of internal errors")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     c = sub.add_parser("check", help="parse and validate a sequence and its device; print a summary",
@@ -130,8 +130,8 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
                    "the number of cores; 1 computes in this process)")
     w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
-                   "(default: the SPINC_CLUSTER environment variable; 'local' ignores it); needs "
-                   "pip install 'spinc[dask]'")
+                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
+                   "pip install 'dotseq[dask]'")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
     w.add_argument("--engine", choices=("fast", "reference"), default="fast",
@@ -220,7 +220,7 @@ def _source(args, compiled) -> dict:
         except OSError:
             files[label] = ""
     return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
-            "spinc_version": __version__, "sha256": files,
+            "dotseq_version": __version__, "sha256": files,
             "predistort_bias_tee": bool(args.predistort)}
 
 
@@ -380,7 +380,7 @@ def cmd_sweep(args) -> int:
                          hint="drop --workers, or give --cluster local to compute here")
     if cluster:
         _dask()                      # fail now, with the install hint, not after planning
-        if not args.debug:           # spinc reports lost points itself
+        if not args.debug:           # dotseq reports lost points itself
             import logging
             logging.getLogger("distributed").setLevel(logging.CRITICAL)
     workers = args.workers if args.workers is not None else local_cores()
@@ -390,7 +390,7 @@ def cmd_sweep(args) -> int:
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget)
-    command = "spinc " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
+    command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
     where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
              f"{workers} local processes")
     if not args.json:
@@ -422,26 +422,26 @@ def main(argv: list[str] | None = None) -> int:
     try:
         args = build_parser().parse_args(argv)
         if args.command is None:
-            raise UsageError("no command given; try: spinc check FILE (see: spinc --help)")
+            raise UsageError("no command given; try: dotseq check FILE (see: dotseq --help)")
         if getattr(args, "out", None):
             _make_parent(args.out)
         args.argv = argv
         return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
                 "simulate": cmd_simulate, "run": cmd_run, "sweep": cmd_sweep}[args.command](args)
-    except SpincError as e:
+    except DotseqError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))
         else:
             print(e.render(), file=sys.stderr)
         return EXIT_INPUT
     except KeyboardInterrupt:
-        print("spinc: interrupted; nothing was written", file=sys.stderr)
+        print("dotseq: interrupted; nothing was written", file=sys.stderr)
         return EXIT_INTERRUPTED
     except BrokenPipeError:
         return EXIT_OK
     except MemoryError:
-        msg = ("spinc: out of memory (the operating system refused an allocation although "
-               "spinc's own estimate was below its limit); nothing was written. Shorten the "
+        msg = ("dotseq: out of memory (the operating system refused an allocation although "
+               "dotseq's own estimate was below its limit); nothing was written. Shorten the "
                "sequence or compile fewer runs; this is worth reporting with the input files.")
         if want_json:
             print(json.dumps({"ok": False, "stage": "memory", "errors": [{"message": msg}]}))
@@ -451,7 +451,7 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as e:  # an internal bug, not bad input: say so plainly
         if debug:
             traceback.print_exc()
-        msg = f"spinc: internal error ({type(e).__name__}: {e}). This is a bug in spinc, not in " \
+        msg = f"dotseq: internal error ({type(e).__name__}: {e}). This is a bug in dotseq, not in " \
               "your input; please report it with the input files (rerun with --debug for details)."
         if want_json:
             print(json.dumps({"ok": False, "stage": "internal", "errors": [{"message": msg}]}))
@@ -461,7 +461,7 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def entry() -> None:
-    # every matrix spinc multiplies is small or thin: a second BLAS thread only
+    # every matrix dotseq multiplies is small or thin: a second BLAS thread only
     # adds synchronisation (30x slower on a batch of 4x4 exponentials, 2 cores)
     from .simulate.cluster import single_threaded
     with single_threaded():

@@ -1,6 +1,6 @@
-"""Every error spinc raises on bad input.
+"""Every error dotseq raises on bad input.
 
-One root class, :class:`SpincError`, and one subclass per pipeline stage.
+One root class, :class:`DotseqError`, and one subclass per pipeline stage.
 Each error carries a list of :class:`Problem` records; a problem knows the
 file, line and column it points at, the offending text, and a hint.  The
 command line prints them with the source line and a caret under the text,
@@ -99,8 +99,8 @@ class Problem:
         return "\n".join(out)
 
 
-class SpincError(Exception):
-    """Root of every input error spinc reports; holds one or more problems."""
+class DotseqError(Exception):
+    """Root of every input error dotseq reports; holds one or more problems."""
 
     stage = "input"
 
@@ -129,38 +129,38 @@ class SpincError(Exception):
                 "errors": [p.to_dict() for p in self.problems]}
 
 
-class SequenceSyntaxError(SpincError):
+class SequenceSyntaxError(DotseqError):
     """The sequence text does not follow the grammar."""
     stage = "syntax"
 
 
-class SequenceError(SpincError):
+class SequenceError(DotseqError):
     """The sequence is well formed but means something impossible
     (unknown name, wrong unit, bad sweep, include cycle, ...)."""
     stage = "sequence"
 
 
-class DeviceError(SpincError):
+class DeviceError(DotseqError):
     """The device description is malformed or physically inconsistent."""
     stage = "device"
 
 
-class CheckError(SpincError):
+class CheckError(DotseqError):
     """The program asks for something the device cannot do."""
     stage = "check"
 
 
-class ScheduleError(SpincError):
+class ScheduleError(DotseqError):
     """A step cannot be placed in time or played within the channel limits."""
     stage = "schedule"
 
 
-class SynthesisError(SpincError):
+class SynthesisError(DotseqError):
     """A waveform sample falls outside what a channel can play."""
     stage = "synthesis"
 
 
-class UsageError(SpincError):
+class UsageError(DotseqError):
     """Bad command-line arguments."""
     stage = "usage"
 
@@ -218,7 +218,7 @@ class ProblemList:
             source_line: str = "", context: tuple[str, ...] = ()) -> None:
         self.problems.append(Problem(message, span, hint, source_line, context))
 
-    def raise_if_any(self, cls: type[SpincError]) -> None:
+    def raise_if_any(self, cls: type[DotseqError]) -> None:
         if self.problems:
             raise cls(self.problems)
 

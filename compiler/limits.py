@@ -16,7 +16,7 @@ about 42 bytes a character for the tree, 190 + 310 + 390 bytes a step for
 expansion, schedule and synthesis records; docs/reliability.md) and rounded
 up; steps are counted with the members of 'together' groups, each of which
 is scheduled and recorded on its own.  The limit is half the memory
-available when spinc starts unless ``--memory-limit`` says otherwise.
+available when dotseq starts unless ``--memory-limit`` says otherwise.
 """
 
 from __future__ import annotations

@@ -60,4 +60,4 @@ def exchange_phase(j_integral: float) -> float:
 
 
 # ∫(J/h) dt needed for each exchange gate; a phase of π/2 is √SWAP.
-EXCHANGE_TARGET = {"sqrtswap": 0.25, "isqrtswap": 0.75, "swap": 0.5}
+EXCHANGE_TARGET = {"sqrtswap": 0.25, "sqrtswap_inv": 0.75, "swap": 0.5}

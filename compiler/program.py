@@ -46,7 +46,7 @@ class FrameRotation:
 @dataclass(frozen=True, slots=True)
 class ExchangeGate:
     """√SWAP, its inverse, or SWAP between two coupled dots."""
-    gate: str                  # "sqrtswap", "isqrtswap", "swap"
+    gate: str                  # "sqrtswap", "sqrtswap_inv", "swap"
     a: str
     b: str
     duration: float | None     # s

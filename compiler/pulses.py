@@ -285,7 +285,7 @@ SQRT_SWAP = np.array([[1, 0, 0, 0],
                       [0, (1 - 1j) / 2, (1 + 1j) / 2, 0],
                       [0, 0, 0, 1]], dtype=complex)
 SWAP = np.array([[1, 0, 0, 0], [0, 0, 1, 0], [0, 1, 0, 0], [0, 0, 0, 1]], dtype=complex)
-TARGETS = {"sqrtswap": SQRT_SWAP, "isqrtswap": SQRT_SWAP.conj().T, "swap": SWAP}
+TARGETS = {"sqrtswap": SQRT_SWAP, "sqrtswap_inv": SQRT_SWAP.conj().T, "swap": SWAP}
 SUBSTEPS = 16   # piecewise-constant sub-steps per sample for the pair propagator
 
 

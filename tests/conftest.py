@@ -4,7 +4,7 @@ import pytest
 from threadpoolctl import threadpool_limits
 
 # The tests multiply small matrices (reference propagators, pulse design): BLAS
-# on one thread, as the spinc command runs (compiler/cli.py); a second thread
+# on one thread, as the dotseq command runs (compiler/cli.py); a second thread
 # made a 4x4-heavy test eight times slower on a 2-core machine.
 threadpool_limits(limits=1, user_api="blas")
 

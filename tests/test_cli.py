@@ -1,4 +1,4 @@
-"""The `spinc` command as a user meets it: output, exit codes, no tracebacks."""
+"""The `dotseq` command as a user meets it: output, exit codes, no tracebacks."""
 
 import json
 import subprocess
@@ -10,14 +10,14 @@ from compiler.cli import main
 from conftest import ROOT, SEQUENCES
 
 
-def spinc(*args, cwd=ROOT):
+def dotseq(*args, cwd=ROOT):
     r = subprocess.run([sys.executable, "-m", "compiler", *map(str, args)], cwd=cwd,
                        capture_output=True, text=True, timeout=120)
     return r.returncode, r.stdout, r.stderr
 
 
 def test_check_demo_prints_the_summary():
-    code, out, err = spinc("check", "sequences/ramsey_pair.dotseq")
+    code, out, err = dotseq("check", "sequences/ramsey_pair.dotseq")
     assert code == 0, err
     for fragment in ("qubits", "Larmor", "GHz", "runs      11", "duration", "steps", "rot 4",
                      "longest", "coherence", "rule of thumb"):
@@ -26,7 +26,7 @@ def test_check_demo_prints_the_summary():
 
 
 def test_check_json():
-    code, out, _ = spinc("check", "sequences/ramsey_pair.dotseq", "--json")
+    code, out, _ = dotseq("check", "sequences/ramsey_pair.dotseq", "--json")
     assert code == 0
     d = json.loads(out)
     assert d["ok"] and d["runs"] == 11
@@ -38,7 +38,7 @@ def test_check_json():
 def test_bad_sequence_exit_2_with_position(tmp_path):
     f = tmp_path / "bad.dotseq"
     f.write_text("prepare A B down\nrot A x 90 dgr\n")
-    code, out, err = spinc("check", f)
+    code, out, err = dotseq("check", f)
     assert code == 2
     assert f"{f}:2:12: error: unknown unit 'dgr'" in err
     assert "did you mean 'deg'" in err
@@ -48,7 +48,7 @@ def test_bad_sequence_exit_2_with_position(tmp_path):
 def test_bad_sequence_json(tmp_path):
     f = tmp_path / "bad.dotseq"
     f.write_text("rot Q x 90 deg\n")
-    code, out, _ = spinc("check", f, "--json")
+    code, out, _ = dotseq("check", f, "--json")
     assert code == 2
     d = json.loads(out)
     assert d["ok"] is False and d["stage"] == "check"
@@ -62,14 +62,14 @@ def test_unknown_qubit_did_you_mean(tmp_path):
     f.write_text('device "dev.yaml"\nrot Alpha x 90 deg\n')
     (tmp_path / "dev.yaml").write_text((SEQUENCES / "devices" / "demo_pair.yaml").read_text()
                                        .replace("  A:\n", "  Alfa:\n").replace("[A, B]", "[Alfa, B]"))
-    code, _, err = spinc("check", f)
+    code, _, err = dotseq("check", f)
     assert code == 2 and "did you mean 'Alfa'" in err, err
 
 
 def test_uncoupled_pair_is_refused(tmp_path):
     f = tmp_path / "u.dotseq"
     f.write_text('device "%s"\nsqrtswap A D\n' % (SEQUENCES / "devices" / "demo_ribbon.yaml"))
-    code, _, err = spinc("check", f)
+    code, _, err = dotseq("check", f)
     assert code == 2 and "not coupled" in err and "A is coupled to:" in err
 
 
@@ -94,7 +94,7 @@ def test_version(capsys):
     with pytest.raises(SystemExit) as info:
         main(["--version"])
     assert info.value.code == 0
-    assert "spinc" in capsys.readouterr().out
+    assert "dotseq" in capsys.readouterr().out
 
 
 # ---------------------------------------------------------------- compile and preview
@@ -102,7 +102,7 @@ def test_version(capsys):
 def test_compile_writes_a_verified_bundle(tmp_path):
     from compiler.export import read_bundle
     out = tmp_path / "bundle"
-    code, stdout, err = spinc("compile", "sequences/cnot_pair.dotseq", "-o", out)
+    code, stdout, err = dotseq("compile", "sequences/cnot_pair.dotseq", "-o", out)
     assert code == 0, err
     assert "Caution" in stdout and "mw.I" in stdout
     b = read_bundle(out)                      # verifies every checksum
@@ -114,7 +114,7 @@ def test_compile_writes_a_verified_bundle(tmp_path):
 
 def test_compile_twice_is_byte_identical(tmp_path):
     for d in ("a", "b"):
-        code, _, err = spinc("compile", "sequences/ramsey_pair.dotseq", "-o", tmp_path / d, "--stack")
+        code, _, err = dotseq("compile", "sequences/ramsey_pair.dotseq", "-o", tmp_path / d, "--stack")
         assert code == 0, err
     files_a = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
     files_b = sorted(p.relative_to(tmp_path / "b") for p in (tmp_path / "b").rglob("*") if p.is_file())
@@ -125,7 +125,7 @@ def test_compile_twice_is_byte_identical(tmp_path):
 
 def test_preview_draws_a_png(tmp_path):
     out = tmp_path / "p.png"
-    code, stdout, err = spinc("preview", "sequences/ramsey_pair.dotseq", "-o", out, "--run", "3",
+    code, stdout, err = dotseq("preview", "sequences/ramsey_pair.dotseq", "-o", out, "--run", "3",
                               "--from", "100 ns", "--to", "1.2 us")
     assert code == 0, err
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
@@ -152,7 +152,7 @@ def test_compile_and_preview_usage_errors(args, fragment, capsys, tmp_path, monk
 
 def test_simulate_writes_a_report(tmp_path):
     out = tmp_path / "deep" / "report"
-    code, stdout, err = spinc("simulate", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
+    code, stdout, err = dotseq("simulate", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
                               "--no-budget")
     assert code == 0, err
     assert "average gate fidelity" in stdout and "steps" in stdout
@@ -161,7 +161,7 @@ def test_simulate_writes_a_report(tmp_path):
 
 def test_run_does_the_whole_job(tmp_path):
     out = tmp_path / "all"
-    code, stdout, err = spinc("run", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
+    code, stdout, err = dotseq("run", "sequences/cnot_pair.dotseq", "-o", out, "--nodes", "1",
                               "--no-budget", "--no-steps")
     assert code == 0, err
     assert (out / "bundle" / "manifest.json").exists()
@@ -183,3 +183,26 @@ def test_simulate_usage_errors(args, fragment, capsys, tmp_path, monkeypatch):
     err = capsys.readouterr().err
     assert code == 2, err
     assert fragment in err and "Traceback" not in err
+
+
+def test_own_names_in_compiled_demos(tmp_path):
+    """The inserted phase wait is written as `phasewait`, never under another
+    sequencer language's word for synchronisation (common practice, no source)."""
+    seen = set()
+    for name in ("ramsey_pair", "cnot_pair"):
+        code, _, err = dotseq("compile", SEQUENCES / f"{name}.dotseq", "-o", tmp_path / name)
+        assert code == 0, err
+        m = json.loads((tmp_path / name / "manifest.json").read_text())
+        kinds = {s["kind"] for r in m["runs"] for s in r["steps"]}
+        assert "align" not in kinds
+        seen |= kinds
+        assert m["format"] == "dotseq-bundle"
+    assert "phasewait" in seen or "zcorrect" in seen
+
+
+def test_help_names_the_command(capsys):
+    with pytest.raises(SystemExit) as e:
+        main(["--help"])
+    assert e.value.code == 0
+    out = capsys.readouterr().out
+    assert out.startswith("usage: dotseq")

@@ -5,13 +5,14 @@ from pathlib import Path
 
 import pytest
 
-from compiler.errors import SequenceError, SequenceSyntaxError, SpincError
+from compiler.errors import SequenceError, SequenceSyntaxError, DotseqError
 from compiler.expand import expand
 from compiler.parse import parse_text
 
 # (source, error class, line, column, message fragment, hint fragment)
 CASES = [
     pytest.param("rot A x 90", SequenceError, 1, 9, "needs an angle unit", "90 deg", id="angle-without-unit"),
+    pytest.param("isqrtswap A B", SequenceSyntaxError, 1, 1, "written 'sqrtswap_inv'", "write 'sqrtswap_inv'", id="old-inverse-keyword"),
     pytest.param("rot A x 90 dg", SequenceSyntaxError, 1, 12, "unknown unit 'dg'", "did you mean 'deg'", id="misspelt-unit"),
     pytest.param("rot A x 90dg", SequenceSyntaxError, 1, 11, "unknown unit 'dg'", "deg", id="glued-unit"),
     pytest.param("rott A x 90 deg", SequenceSyntaxError, 1, 1, "unknown statement 'rott'", "did you mean 'rot'", id="misspelt-keyword"),
@@ -53,7 +54,7 @@ CASES = [
     pytest.param("block b(q) { rot q x 90 deg }\nlet t = 1 ns\ndo b(t)", SequenceError, 1, 18,
                  "'q' is a parameter, not a qubit", "qubit", id="number-as-qubit"),
     # non-finite, negative, zero and unit-less values, each naming what it is about
-    pytest.param("wait nan", SequenceError, 1, 6, "'nan' is not a number spinc accepts", "100 ns", id="nan"),
+    pytest.param("wait nan", SequenceError, 1, 6, "'nan' is not a number dotseq accepts", "100 ns", id="nan"),
     pytest.param("wait inf * 1 ns", SequenceError, 1, 6, "'inf' is not a number", "", id="inf"),
     pytest.param("let x = 1e308 * 10", SequenceError, 1, 9, "not a finite number in 'x'", "too large", id="overflow"),
     pytest.param("rot A x 90 deg duration=-5 ns", SequenceError, 1, 25,
@@ -77,7 +78,7 @@ CASES = [
 
 @pytest.mark.parametrize("src, cls, line, col, message, hint", CASES)
 def test_bad_sequence(src, cls, line, col, message, hint):
-    with pytest.raises(SpincError) as info:
+    with pytest.raises(DotseqError) as info:
         expand(parse_text(src + "\n", "bad.dotseq"))
     err = info.value
     assert isinstance(err, cls), err.render()
@@ -104,7 +105,7 @@ def test_all_problems_are_collected_and_capped():
 
 
 def test_caret_is_under_the_offending_text():
-    with pytest.raises(SpincError) as info:
+    with pytest.raises(DotseqError) as info:
         expand(parse_text("wait   10 MHz\n", "c.dotseq"))
     lines = info.value.render().splitlines()
     src_line = next(i for i, l in enumerate(lines) if "wait   10 MHz" in l)
@@ -177,10 +178,10 @@ def test_included_text_counts_against_the_size_limit(write):
 def test_a_burst_too_long_to_hold_is_refused(write):
     # found by the fuzz run: 'duration=400 ns' mutated into '400 s' allocated 30 GiB
     from compiler import load
-    from compiler.errors import SpincError
+    from compiler.errors import DotseqError
     dev = (Path(__file__).parent.parent / "sequences" / "devices" / "demo_gaas_pair.yaml").resolve()
     p = write("s.dotseq", f'device "{dev}"\nrot A x 90 deg duration=400 s\n')
-    with pytest.raises(SpincError) as e:
+    with pytest.raises(DotseqError) as e:
         load(p)
     text = e.value.render()
     assert "1,000,000 samples" in text and "s.dotseq:2:" in text

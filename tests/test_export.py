@@ -21,15 +21,15 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from compiler.errors import SpincError
-from compiler.export import (FORMAT_NAME, BundleError, RunSize, estimate_bundle_bytes,
+from compiler.errors import DotseqError
+from compiler.export import (FORMAT_NAME, FORMAT_VERSION, BundleError, RunSize, estimate_bundle_bytes,
                              read_bundle, recover, write_bundle)
 from compiler.export import bundle as bundle_mod
 from compiler.export.files import npy_header, write_npy
 from compiler.synth.types import Output, StepRecord, Waveforms
 
 SOURCE = {"sequence": "seq/ramsey.dotseq", "device": "devices/pair.yaml",
-          "device_name": "test pair", "spinc_version": "0.1.0",
+          "device_name": "test pair", "dotseq_version": "0.1.0",
           "sha256": {"seq/ramsey.dotseq": "ab" * 32, "devices/pair.yaml": "cd" * 32}}
 LSB_IQ = 1.0 / 2**14     # 14-bit DAC over a 1 V span (invented numbers)
 LSB_GATE = 2.0 / 2**16   # 16-bit DAC over a 2 V span (invented numbers)
@@ -129,7 +129,7 @@ def test_manifest_contents(tmp_path):
     m = json.loads(text)
     # deterministic JSON: sorted keys, indent 2, trailing newline
     assert text == json.dumps(m, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
-    assert m["format"] == FORMAT_NAME == "spinc-bundle" and m["format_version"] == 1
+    assert m["format"] == FORMAT_NAME == "dotseq-bundle" and m["format_version"] == FORMAT_VERSION == 2
     assert m["layout"] == "per-run"
     assert m["source"] == SOURCE
     assert m["sample_rate_Hz"] == 1e9
@@ -221,7 +221,7 @@ def test_corrupted_file_is_named(tmp_path):
     with pytest.raises(BundleError) as ei:
         read_bundle(out)
     err = ei.value
-    assert isinstance(err, SpincError) and err.stage == "export"
+    assert isinstance(err, DotseqError) and err.stage == "export"
     assert len(err.problems) == 1
     assert err.first.span.file == str(p)
     assert "SHA-256" in err.first.message and "export it again" in err.first.hint
@@ -264,7 +264,7 @@ def test_read_rejects_bad_manifests(tmp_path):
         assert words in ei.value.first.message, ei.value.first.message
 
     expect("{not json", "not valid JSON")
-    expect(json.dumps({**good, "format": "other"}), "spinc-bundle")
+    expect(json.dumps({**good, "format": "other"}), "dotseq-bundle")
     expect(json.dumps({**good, "format_version": 99}), "newer")
     expect(json.dumps({**good, "files": {"../escape.npy": {"sha256": "0", "bytes": 1}}}),
            "inside the bundle")
@@ -274,7 +274,7 @@ def test_read_rejects_bad_manifests(tmp_path):
     with pytest.raises(BundleError, match="does not exist"):
         read_bundle(tmp_path / "nowhere")
     (tmp_path / "plain").mkdir()
-    with pytest.raises(BundleError, match="not a spinc bundle"):
+    with pytest.raises(BundleError, match="not a dotseq bundle"):
         read_bundle(tmp_path / "plain")
 
 
@@ -356,7 +356,7 @@ def test_refuses_a_folder_that_is_not_a_bundle(tmp_path):
         write_bundle(runs3(), user, source=SOURCE)
     p = ei.value.first
     assert p.span.file == str(user)
-    assert "not a spinc bundle" in p.message and "-o" in p.hint
+    assert "not a dotseq bundle" in p.message and "-o" in p.hint
     assert (user / "chapter1.tex").read_text(encoding="utf-8") == "precious"
     assert sorted(x.name for x in user.iterdir()) == ["chapter1.tex"]
     assert leftovers(tmp_path) == []
@@ -367,7 +367,7 @@ def test_refuses_a_folder_that_is_not_a_bundle(tmp_path):
     other = tmp_path / "other"
     other.mkdir()
     (other / "manifest.json").write_text('{"format": "something else"}', encoding="utf-8")
-    with pytest.raises(BundleError, match="not a spinc bundle"):
+    with pytest.raises(BundleError, match="not a dotseq bundle"):
         write_bundle(runs3(), other, source=SOURCE)
     assert (other / "manifest.json").exists()
 

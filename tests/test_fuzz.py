@@ -4,7 +4,7 @@ position, and no case takes longer than a few seconds.
 
 The default run tries a few hundred examples per property; the long run
 (``python tests/benchmarks/fuzz_long.py``, at least 20 000 examples in all)
-sets ``SPINC_FUZZ_EXAMPLES`` before importing this module.
+sets ``DOTSEQ_FUZZ_EXAMPLES`` before importing this module.
 """
 
 import os
@@ -19,7 +19,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 
 from compiler.check import check
 from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
-from compiler.errors import DeviceError, SpincError
+from compiler.errors import DeviceError, DotseqError
 from compiler.expand import expand
 from compiler.parse import parse_text
 from compiler.schedule import schedule
@@ -47,8 +47,8 @@ YAML_ALPHABET = st.sampled_from(
      "&a ", "*a", "<<: *a", "!!python/object:os.system", "!!binary", "~", "null", "yes", "0x1F",
      "1_000", "--- ", "...\n", "preset: gaas", "preset: bilayer_graphene"])
 DEVICE = load_device(BUNDLED_DEFAULT)
-# examples per property; a long run sets SPINC_FUZZ_EXAMPLES (see tests/benchmarks/fuzz_long.py)
-N = int(os.environ.get("SPINC_FUZZ_EXAMPLES", "300"))
+# examples per property; a long run sets DOTSEQ_FUZZ_EXAMPLES (see tests/benchmarks/fuzz_long.py)
+N = int(os.environ.get("DOTSEQ_FUZZ_EXAMPLES", "300"))
 CASE_SECONDS = 5.0          # no single case may take longer (no hangs)
 # repeats of a piece in the "explode" mutation: enough to pass every nesting and
 # operator limit in the default run, longer texts in the long run
@@ -72,8 +72,8 @@ def time_limit(seconds: float):
         signal.signal(signal.SIGALRM, old)
 
 
-def assert_own_error(e: SpincError, *files: str) -> None:
-    """spinc's own error: problems with a message, each at a position (file,
+def assert_own_error(e: DotseqError, *files: str) -> None:
+    """dotseq's own error: problems with a message, each at a position (file,
     line >= 1, column >= 1) in one of ``files``, and a rendering."""
     assert e.problems, "an error without problems"
     for p in e.problems:
@@ -86,7 +86,7 @@ def assert_own_error(e: SpincError, *files: str) -> None:
 
 def compile_against(text: str, device, seq_file: str, *device_files: str) -> str:
     """Parse, expand, check, schedule and (for short runs) synthesise; the
-    outcome: "ok" or the stage of spinc's own error."""
+    outcome: "ok" or the stage of dotseq's own error."""
     try:
         ex = expand(parse_text(text, seq_file), max_runs=200, max_steps=20_000)
         check(ex, device)
@@ -94,7 +94,7 @@ def compile_against(text: str, device, seq_file: str, *device_files: str) -> str
             tl = schedule(r, device)
             if tl.n_samples <= MAX_SAMPLES:
                 synthesize(tl, device)
-    except SpincError as e:
+    except DotseqError as e:
         assert_own_error(e, seq_file, *device_files)
         return e.stage
     return "ok"

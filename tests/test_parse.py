@@ -58,7 +58,7 @@ sweep b over [1 ns, 2 ns]
 prepare A B singlet
 rot A phase(30 deg) (pi / 4) rad
 rot A -z 45 deg
-isqrtswap A B duration=20 ns
+sqrtswap_inv A B duration=20 ns
 swap A B amplitude=100 mV
 wait t on A B
 read A

@@ -1,4 +1,4 @@
-"""spinc preview: the figure of what the generators will play."""
+"""dotseq preview: the figure of what the generators will play."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from compiler.errors import SpincError
+from compiler.errors import DotseqError
 from compiler.preview import PreviewError, preview, resolve_window
 from compiler.preview import figure as figure_mod
 from compiler.preview.signal import iq_spectrum, minmax_envelope, time_unit, volt_unit
@@ -58,14 +58,14 @@ def make_waveforms(repeats: int = 1) -> Waveforms:
         ("rot", ("B",), 128, 384, ("mw",), {"angle_rad": math.pi, "axis_phase_rad": math.pi / 2}),
         ("wait", ("A",), 128, 384, (), {}),
         ("sqrtswap", ("A", "B"), 384, 484, ("B_AB",), {"level_V": 0.25, "j_Hz": 2.5e6}),
-        ("align", ("A", "B"), 484, 500, (), {}),
+        ("phasewait", ("A", "B"), 484, 500, (), {}),
         ("read", ("A", "B"), 500, 1500, ("M1",), {}),
         ("pad", (), 1500, 1600, (), {}),
     ]
     for r in range(repeats):
         for kind, qubits, a, b, ch, params in pattern:
             k = len(steps)
-            pad = kind in ("pad", "align")
+            pad = kind in ("pad", "phasewait")
             steps.append(StepRecord(k, kind, qubits, a + r * PERIOD, b + r * PERIOD, ch,
                                     "" if pad else f"test.dotseq:{k + 1}:1",
                                     "" if pad else f"{kind} {' '.join(qubits)}", params))
@@ -202,7 +202,7 @@ def test_bad_window(wf, tmp_path, kwargs, words):
     with pytest.raises(PreviewError) as info:
         preview(wf, tmp_path / "bad.png", **kwargs)
     err = info.value
-    assert isinstance(err, SpincError) and err.stage == "preview"
+    assert isinstance(err, DotseqError) and err.stage == "preview"
     text = err.render()
     for word in words:
         assert word in text, text
@@ -303,7 +303,7 @@ def test_step_labels():
     assert step_labels("rot", ("A",), {"angle_rad": -math.pi / 2, "phase_rad": math.pi})[0] \
         == "−x -90°"
     assert step_labels("sqrtswap", ("A", "B"), {})[:2] == ["√SWAP A–B", "√SWAP"]
-    assert step_labels("isqrtswap", ("A", "B"), {})[1] == "√SWAP⁻¹"
+    assert step_labels("sqrtswap_inv", ("A", "B"), {})[1] == "√SWAP⁻¹"
     assert "pad" in step_labels("pad", (), {})
     assert step_labels("wait", ("A",), {})[0] == "wait"
     assert step_labels("read", ("A",), {})[0] == "read"
@@ -373,11 +373,11 @@ def test_kind_shares_add_up():
     window = resolve_window(run)
     kinds, shares = kind_shares(lane_a, window, 100)
     assert shares.shape == (100, len(kinds))
-    # every sample of lane A is covered: x90 (128) zrot(0) wait(256) √SWAP(100) align(16)
+    # every sample of lane A is covered: x90 (128) zrot(0) wait(256) √SWAP(100) phasewait(16)
     # read(1000) pad(100) = 1600 per period
     assert np.allclose(shares.sum(axis=1), 1.0)
     whole = kind_shares(lane_a, window, 1)[1][0]
-    expect = {"rot": 128, "wait": 256, "sqrtswap": 100, "align": 16, "read": 1000, "pad": 100}
+    expect = {"rot": 128, "wait": 256, "sqrtswap": 100, "phasewait": 16, "read": 1000, "pad": 100}
     for kind, share in zip(kinds, whole):
         assert share == pytest.approx(expect[kind] / PERIOD)
 

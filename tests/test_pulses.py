@@ -22,7 +22,7 @@ def _uq(U, xi, s, e):
     return post @ U @ pre
 
 
-@pytest.mark.parametrize("gate", ["sqrtswap", "isqrtswap", "swap"])
+@pytest.mark.parametrize("gate", ["sqrtswap", "sqrtswap_inv", "swap"])
 def test_interpolated_post_phases_match_the_direct_search(gate):
     d = PU.design_exchange(gate, C, DEV, 1e-9)
     g = PU.pair_gate(d, C.exchange, DELTA)

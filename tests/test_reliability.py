@@ -25,7 +25,7 @@ import pytest
 
 from compiler import limits, load
 from compiler.cli import main
-from compiler.errors import SequenceError, SpincError
+from compiler.errors import SequenceError, DotseqError
 from compiler.export import read_bundle
 from conftest import ROOT, SEQUENCES
 
@@ -47,7 +47,7 @@ def write_long_sequence(path: Path, n_lines: int) -> Path:
     return path
 
 
-_PEAK_TAG = "spinc-test-peak-rss-kB"
+_PEAK_TAG = "dotseq-test-peak-rss-kB"
 _CHILD_MAIN = f"""
 import sys
 from compiler.cli import main
@@ -63,7 +63,7 @@ sys.exit(code)
 
 
 def run_cli(args, cwd=ROOT, timeout: float = 900) -> tuple[int, str, str, int, float]:
-    """Run ``spinc ARGS`` in a child process: exit code, stdout, stderr, the
+    """Run ``dotseq ARGS`` in a child process: exit code, stdout, stderr, the
     child's own peak resident memory (bytes; VmHWM from /proc, else the
     wait4 figure) and wall time (s)."""
     with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
@@ -90,7 +90,7 @@ def run_cli(args, cwd=ROOT, timeout: float = 900) -> tuple[int, str, str, int, f
 
 @functools.lru_cache(maxsize=1)
 def baseline_rss() -> int:
-    """Peak resident memory of spinc checking a one-line file: the
+    """Peak resident memory of dotseq checking a one-line file: the
     interpreter with numpy and scipy loaded, before any real work."""
     with tempfile.TemporaryDirectory() as d:
         f = Path(d) / "one.dotseq"
@@ -455,7 +455,7 @@ def test_expressions_cannot_escape_or_hang(src):
     from compiler.expand import expand
     from compiler.parse import parse_text
     t0 = time.perf_counter()
-    with pytest.raises(SpincError) as info:
+    with pytest.raises(DotseqError) as info:
         expand(parse_text(src + "\nwait 1 ns\n", "e.dotseq"))
     assert info.value.first.span.line == 1
     assert time.perf_counter() - t0 < 5
@@ -504,7 +504,7 @@ SIM_ARGS = ["--json", "--no-budget", "--no-steps", "--nodes", "3", "--substeps",
 
 
 def simulate_in_a_child(seq: Path, out: Path, hash_seed: str) -> dict:
-    """``spinc simulate --json`` in a fresh interpreter with its own string
+    """``dotseq simulate --json`` in a fresh interpreter with its own string
     hash seed (set and dict order of names could differ between processes)."""
     env = dict(os.environ, PYTHONHASHSEED=hash_seed)
     r = subprocess.run([sys.executable, "-m", "compiler", "simulate", str(seq), "-o", str(out),

@@ -1,4 +1,4 @@
-"""spinc report: the terminal summary, report.md, results.json and the figures
+"""dotseq report: the terminal summary, report.md, results.json and the figures
 of a simulation, built from hand-made results (no simulator run)."""
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from compiler.errors import SpincError
+from compiler.errors import DotseqError
 from compiler.report import ReportError, load_results, summary_text, write_report
 from compiler.report import figures as figures_mod
 from compiler.report.fmt import (axis_scale, budget_rows, fmt_fidelity, fmt_infidelity,
@@ -243,7 +243,7 @@ def test_results_json_round_trip_and_deterministic(reports, tmp_path):
     write_report(result, b)                          # overwrite: same bytes again
     assert (b / "results.json").read_bytes() == raw
     doc = json.loads(raw)
-    assert doc["format"] == "spinc-report" and doc["detail_run"] == 0
+    assert doc["format"] == "dotseq-report" and doc["detail_run"] == 0
     assert list(doc) == sorted(doc)
     back = load_results(a)
     r0, b0 = result.runs[0], back.runs[0]
@@ -320,8 +320,8 @@ def test_refuses_non_report_folder(tmp_path, no_figures):
     with pytest.raises(ReportError) as e:
         write_report(make_result("single"), user)
     err = e.value
-    assert isinstance(err, SpincError) and err.stage == "report"
-    assert "not a spinc report" in err.first.message and "nothing was deleted" in err.first.message
+    assert isinstance(err, DotseqError) and err.stage == "report"
+    assert "not a dotseq report" in err.first.message and "nothing was deleted" in err.first.message
     assert "another -o folder" in err.first.hint
     assert (user / "chapter1.tex").read_text(encoding="utf-8") == "precious"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["thesis"]
@@ -346,7 +346,7 @@ def test_overwrite_flag_and_empty_folder(tmp_path, no_figures):
     empty = tmp_path / "empty"
     empty.mkdir()
     assert (write_report(make_result("single"), empty) / "report.md").exists()
-    with pytest.raises(ReportError, match="already holds a spinc report"):
+    with pytest.raises(ReportError, match="already holds a dotseq report"):
         write_report(make_result("single"), empty, overwrite=False)
     write_report(make_result("sweep1"), empty)           # overwrite=True replaces it
     assert load_results(empty).axes[0][0] == "tau"

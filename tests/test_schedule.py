@@ -109,7 +109,7 @@ def _played_integral(slot) -> float:
 def test_sqrtswap_accumulates_a_quarter_turn_of_exchange():
     # √SWAP when ∫J dt/ħ = π/2, i.e. ∫(J/h) dt = 1/4 (Loss & DiVincenzo, PRA 57, 120 (1998)),
     # with the barrier's finite rise time included
-    tl = timeline("sqrtswap A B\nswap A B\nisqrtswap A B duration=50 ns\n")
+    tl = timeline("sqrtswap A B\nswap A B\nsqrtswap_inv A B duration=50 ns\n")
     ex = [s for s in tl.slots if s.exchange is not None]
     for slot, target in zip(ex, (0.25, 0.5, 0.75)):
         assert _played_integral(slot) == pytest.approx(target, rel=1e-9)

@@ -1,4 +1,4 @@
-"""Parameter sweeps (compiler/sweep, `spinc sweep`): argument syntax and
+"""Parameter sweeps (compiler/sweep, `dotseq sweep`): argument syntax and
 names, up-front refusal of bad points, device and sequence overrides, the
 Ramsey decay against a published formula, the same numbers serially, on
 local worker processes and on a Dask cluster, interruption and resume, lost
@@ -389,7 +389,7 @@ def test_foreign_files_are_never_touched(ramsey, tmp_path):
     out = tmp_path / "mine"
     out.mkdir()
     (out / "notes.txt").write_text("keep me")
-    with pytest.raises(SweepError, match="not a spinc sweep"):
+    with pytest.raises(SweepError, match="not a dotseq sweep"):
         run_sweep(plan, out)
     assert (out / "notes.txt").read_text() == "keep me" and len(os.listdir(out)) == 1
     with pytest.raises(SweepError, match="nothing to resume|no sweep to resume"):
@@ -404,7 +404,7 @@ def test_a_second_sweep_into_a_busy_folder_is_refused(ramsey, tmp_path):
     with open(out / "points.jsonl", "a+b") as held:          # as a running sweep holds it
         fcntl.flock(held.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
         before = (out / "points.jsonl").read_bytes()
-        with pytest.raises(SweepError, match="another spinc sweep is writing"):
+        with pytest.raises(SweepError, match="another dotseq sweep is writing"):
             run_sweep(plan, out)
         assert (out / "points.jsonl").read_bytes() == before
     assert run_sweep(plan, out).status == "complete"       # free again: 0 points, started over
@@ -414,7 +414,7 @@ def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
     plan = plan_sweep(ramsey(), ["A.t2_star=0.5us:2us:3"], ["tau=400ns"], options=FAST)
     r = run_sweep(plan, tmp_path / "s")
     doc = json.loads((tmp_path / "s" / "sweep.json").read_text())
-    assert doc["format"] == "spinc-sweep" and doc["complete"] and doc["budget"] is False
+    assert doc["format"] == "dotseq-sweep" and doc["complete"] and doc["budget"] is False
     assert doc["axes"][0]["name"] == "A.t2_star" and doc["axes"][0]["unit"] == "s"
     assert doc["axes"][0]["text"] == ["500 ns", "1.25 us", "2 us"]
     assert doc["fixed"][0]["name"] == "tau" and doc["fixed"][0]["values"] == [4e-7]
@@ -424,7 +424,7 @@ def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
     assert doc["settings"] == {"engine": "fast", "nodes": 3, "quadrature": "auto",
                                "substeps": 1, "rwa": True}
     head = (tmp_path / "s" / "sweep.csv").read_text().splitlines()
-    assert head[0].startswith("# spinc sweep of") and "complete, 3 of 3 points" in head[0]
+    assert head[0].startswith("# dotseq sweep of") and "complete, 3 of 3 points" in head[0]
     assert head[1].startswith("index,A.t2_star [s],status,fidelity,infidelity")
     fids = [p.fidelity for p in r.table.points]
     assert fids == sorted(fids)
@@ -432,7 +432,7 @@ def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
 
 # ------------------------------------------------------------------ command line
 
-def spinc(*args, cwd=ROOT, env=None):
+def dotseq(*args, cwd=ROOT, env=None):
     r = subprocess.run([sys.executable, "-m", "compiler", *map(str, args)], cwd=cwd,
                        capture_output=True, text=True, timeout=300, env=env)
     return r.returncode, r.stdout, r.stderr
@@ -441,7 +441,7 @@ def spinc(*args, cwd=ROOT, env=None):
 def test_readme_example_runs(tmp_path):
     # the command of README.md and docs/sweep.md (with the quick settings of the tests)
     out = tmp_path / "ramsey-t2star"
-    code, stdout, err = spinc("sweep", "sequences/ramsey_single.dotseq", "--vary",
+    code, stdout, err = dotseq("sweep", "sequences/ramsey_single.dotseq", "--vary",
                               "A.t2_star=2us:5us:4", "-o", out, "--nodes", "3", "--substeps", "1",
                               "--workers", "1")
     assert code == 0, err
@@ -483,11 +483,11 @@ def test_cluster_without_dask_says_how_to_install(tmp_path, ramsey, capsys, monk
     code = main(["sweep", str(path), "--vary", "tau=0ns:100ns:2", "-o", str(tmp_path / "c"),
                  "--cluster", "tcp://127.0.0.1:1"])
     err = capsys.readouterr().err
-    assert code == 2 and "pip install 'spinc[dask]'" in err and "Traceback" not in err
+    assert code == 2 and "pip install 'dotseq[dask]'" in err and "Traceback" not in err
     # the environment variable is read the same way; --workers with a cluster is refused
-    monkeypatch.setenv("SPINC_CLUSTER", "tcp://127.0.0.1:1")
+    monkeypatch.setenv("DOTSEQ_CLUSTER", "tcp://127.0.0.1:1")
     code = main(["sweep", str(path), "--vary", "tau=0ns:100ns:2", "-o", str(tmp_path / "c")])
-    assert code == 2 and "pip install 'spinc[dask]'" in capsys.readouterr().err
+    assert code == 2 and "pip install 'dotseq[dask]'" in capsys.readouterr().err
     code = main(["sweep", str(path), "--vary", "tau=0ns:100ns:2", "-o", str(tmp_path / "c"),
                  "--workers", "2"])
     assert code == 2 and "give --cluster local" in capsys.readouterr().err

@@ -1,4 +1,4 @@
-"""What `spinc check` tells a physicist about a sequence on a device."""
+"""What `dotseq check` tells a physicist about a sequence on a device."""
 
 from __future__ import annotations
 
@@ -12,9 +12,9 @@ from ..physics import COHERENCE_RULE
 from ..schedule import Timeline
 from ..units import FIELD, FREQUENCY, NONE, TEMPERATURE, TIME, Dim, format_quantity as fq
 
-GATE_KINDS = ("rot", "sqrtswap", "isqrtswap", "swap", "zcorrect")
-KIND_ORDER = ("rot", "zrot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "trigger",
-              "align", "zcorrect")
+GATE_KINDS = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "zcorrect")
+KIND_ORDER = ("rot", "zrot", "sqrtswap", "sqrtswap_inv", "swap", "wait", "read", "trigger",
+              "phasewait", "zcorrect")
 
 
 @dataclass(frozen=True)

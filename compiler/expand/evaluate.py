@@ -116,7 +116,7 @@ def evaluate(e: T.Expr, lookup: Lookup) -> Quantity:
                 raise EvalError("an exponent must be a plain number", e.right.span)
             if abs(b.value) > MAX_EXPONENT:
                 raise EvalError(f"exponent {b.value:g} is beyond the limit of {MAX_EXPONENT}",
-                                e.right.span, "spinc bounds powers so evaluation stays fast")
+                                e.right.span, "dotseq bounds powers so evaluation stays fast")
             if not a.dim.is_dimensionless:
                 if b.value != int(b.value):
                     raise EvalError(f"{a.dim.name()} can only be raised to a whole power",
@@ -156,7 +156,7 @@ def _call(e: T.Call, args: list[Quantity]) -> Quantity:
         if x.value < 0:
             raise EvalError("sqrt() of a negative value", e.span)
         if any(p % 2 for p in x.dim.exps):
-            raise EvalError(f"sqrt() of {x.dim.name()} has no unit spinc knows", e.span)
+            raise EvalError(f"sqrt() of {x.dim.name()} has no unit dotseq knows", e.span)
         return Quantity(math.sqrt(x.value), Dim(tuple(p // 2 for p in x.dim.exps)))
     if f in ("exp", "log"):
         if not x.dim.is_dimensionless:

@@ -53,7 +53,7 @@ def _lookup(env: dict):
                 raise _Stop()
             return v
         if n.id.lower() in ("nan", "inf", "infinity"):
-            raise EvalError(f"'{n.id}' is not a number spinc accepts: every value must be "
+            raise EvalError(f"'{n.id}' is not a number dotseq accepts: every value must be "
                             "finite", n.span, "write the value itself, e.g. 100 ns")
         raise EvalError(f"unknown name '{n.id}'", n.span,
                         did_you_mean(n.id, [k for k in env if not isinstance(env[k], QubitRef)]).strip()

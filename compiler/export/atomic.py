@@ -6,7 +6,7 @@ move is a rename on one file system), named ``.NAME.partial-PID-TOKEN``.
 Then:
 
 * target absent: ``rename(temp, target)``;
-* target present (a spinc bundle, or an empty folder) and overwriting
+* target present (a dotseq bundle, or an empty folder) and overwriting
   allowed: ``rename(target, .NAME.old-PID-TOKEN)``, ``rename(temp, target)``,
   then delete the old folder.
 
@@ -83,7 +83,7 @@ def read_format(folder: Path) -> str | None:
 
 
 def is_bundle(folder: Path) -> bool:
-    """Whether ``folder`` is a real folder holding a spinc manifest."""
+    """Whether ``folder`` is a real folder holding a dotseq manifest."""
     return (folder.is_dir() and not folder.is_symlink()
             and read_format(folder) == FORMAT_NAME)
 
@@ -95,16 +95,16 @@ def target_state(target: Path, overwrite: bool) -> str:
     Raises
     ------
     BundleError
-        The target is a file, a symbolic link, a folder that is not a spinc
+        The target is a file, a symbolic link, a folder that is not a dotseq
         bundle, or a bundle while ``overwrite`` is False.  Nothing is touched.
     """
     if not os.path.lexists(target):
         return ABSENT
     if target.is_symlink():
-        raise fail(target, "the output path is a symbolic link; spinc does not replace links",
+        raise fail(target, "the output path is a symbolic link; dotseq does not replace links",
                    "give the real folder, or choose another -o folder")
     if not target.is_dir():
-        raise fail(target, "the output path exists and is a file, not a spinc bundle; "
+        raise fail(target, "the output path exists and is a file, not a dotseq bundle; "
                            "nothing was written",
                    "choose another -o folder")
     try:
@@ -115,12 +115,12 @@ def target_state(target: Path, overwrite: bool) -> str:
     if empty:
         return EMPTY
     if read_format(target) != FORMAT_NAME:
-        raise fail(target, f"the output folder exists and is not a spinc bundle (no "
+        raise fail(target, f"the output folder exists and is not a dotseq bundle (no "
                            f"{MANIFEST_NAME} with format '{FORMAT_NAME}'); nothing was "
                            "written and nothing was deleted",
                    "choose another -o folder (a new or empty one)")
     if not overwrite:
-        raise fail(target, "the output folder already holds a spinc bundle",
+        raise fail(target, "the output folder already holds a dotseq bundle",
                    "allow overwriting, or choose another -o folder")
     return BUNDLE
 

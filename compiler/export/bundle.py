@@ -37,10 +37,10 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
         The runs, all at one sample rate (Hz).  Volts in V, markers 0/1.
     out_dir : str or Path
         The bundle folder.  Its parent must exist.  It may be absent, an
-        empty folder, or a spinc bundle (replaced when ``overwrite``).
+        empty folder, or a dotseq bundle (replaced when ``overwrite``).
     source : mapping
         What the bundle was made from (sequence path, device path, device
-        name, spinc version, SHA-256 of the input texts); copied into the
+        name, dotseq version, SHA-256 of the input texts); copied into the
         manifest as given (JSON-able values only).
     csv : bool, optional
         Also write ``run_NNNN/samples.csv`` per run (time in ns, volts in V).
@@ -59,7 +59,7 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
     Raises
     ------
     BundleError
-        Malformed waveforms, an output folder that is not a spinc bundle
+        Malformed waveforms, an output folder that is not a dotseq bundle
         (never deleted), a missing parent folder, or an IO error (disk full,
         no permission).  Nothing is left at ``out_dir`` but the previous
         content, and the temporary folder is removed, also on
@@ -376,8 +376,8 @@ def read_bundle(out_dir: str | Path) -> dict:
         raise fail(target, f"bundle folder {what}", hint)
     mpath = target / MANIFEST_NAME
     if not mpath.is_file():
-        raise fail(mpath, f"no {MANIFEST_NAME}: {target} is not a spinc bundle",
-                   "give the folder that spinc compile -o wrote")
+        raise fail(mpath, f"no {MANIFEST_NAME}: {target} is not a dotseq bundle",
+                   "give the folder that dotseq compile -o wrote")
     try:
         m = json.loads(mpath.read_text(encoding="utf-8"))
     except UnicodeDecodeError:
@@ -389,13 +389,13 @@ def read_bundle(out_dir: str | Path) -> dict:
         raise fail(mpath, f"cannot read the manifest: {e.strerror or e}") from None
     if not isinstance(m, dict) or m.get("format") != FORMAT_NAME:
         raise fail(mpath, f"the manifest does not name the format '{FORMAT_NAME}'",
-                   "give the folder that spinc compile -o wrote")
+                   "give the folder that dotseq compile -o wrote")
     version = m.get("format_version")
     if not isinstance(version, int) or isinstance(version, bool) or version < 1:
         raise fail(mpath, f"format_version {version!r} is not a whole number >= 1", _DAMAGED)
     if version > FORMAT_VERSION:
-        raise fail(mpath, f"bundle format version {version} is newer than this spinc reads "
-                          f"({FORMAT_VERSION})", "update spinc to read it")
+        raise fail(mpath, f"bundle format version {version} is newer than this dotseq reads "
+                          f"({FORMAT_VERSION})", "update dotseq to read it")
     try:
         files = _verify_files(target, m)
         return _load(target, m, files)

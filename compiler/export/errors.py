@@ -8,10 +8,10 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import Problem, Span, SpincError
+from ..errors import Problem, Span, DotseqError
 
 
-class BundleError(SpincError):
+class BundleError(DotseqError):
     """A bundle cannot be written or read: bad waveforms handed to the writer,
     an unusable output folder, an IO failure, or a missing or corrupted file
     in a bundle being read."""

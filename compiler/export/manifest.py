@@ -21,8 +21,8 @@ import numpy as np
 from ..synth.types import Output, Waveforms
 from .errors import BundleError, at
 
-FORMAT_NAME = "spinc-bundle"
-FORMAT_VERSION = 1
+FORMAT_NAME = "dotseq-bundle"
+FORMAT_VERSION = 2
 MANIFEST_NAME = "manifest.json"
 ARRAYS_FOLDER = "arrays"
 CSV_NAME = "samples.csv"

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, SpincError,
+from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, DotseqError,
                       did_you_mean, remember_source, suggest)
 from ..limits import Budget
 from ..units import UNIT_WORDS
@@ -19,7 +19,7 @@ from . import tree as T
 from .lexer import MAX_FILE_CHARS, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
-            "isqrtswap", "swap", "wait", "read", "trigger", "together", "repeat",
+            "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
             "block", "do")
 FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
              "min": 2, "max": 2, "round": 1}
@@ -27,7 +27,10 @@ CONSTANTS = ("pi",)
 ROT_OPTIONS = ("shape", "duration", "amplitude")
 EXCHANGE_OPTIONS = ("duration", "amplitude")
 SHAPES = ("square", "gauss", "flattop")
-INSIDE_TOGETHER = ("rot", "sqrtswap", "isqrtswap", "swap", "wait", "read", "do")
+# Spellings that are no keyword of the language, with the keyword they mean:
+# refused with a hint rather than read as a name.
+RENAMED_KEYWORDS = {"isqrtswap": "sqrtswap_inv"}
+INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "wait", "read", "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
 MAX_INCLUDE_DEPTH = 32
 MAX_NESTING = 64
@@ -186,6 +189,11 @@ class Parser:
             raise self.error(f"expected a statement, found {self.describe(t)}", t.span,
                              "statements start with a keyword: " + ", ".join(KEYWORDS))
         word = t.text
+        if word in RENAMED_KEYWORDS:
+            new = RENAMED_KEYWORDS[word]
+            raise self.error(f"unknown statement '{word}': the inverse square root of SWAP is "
+                             f"written '{new}'", t.span,
+                             f"write '{new}' (it is not the square root of iSWAP)")
         if word not in KEYWORDS:
             hint = suggest(word, KEYWORDS)
             if not hint.startswith("did"):
@@ -225,7 +233,7 @@ class Parser:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
         try:
             sub = parse_path(target, chain=self.chain, _chars=self.chars)
-        except SpincError as e:
+        except DotseqError as e:
             self.problems.extend(e.problems)
             raise _Bail() from None
         except _MissingInclude as e:
@@ -359,8 +367,8 @@ class Parser:
     def st_sqrtswap(self, start: Token) -> T.Stmt:
         return self._exchange("sqrtswap", start)
 
-    def st_isqrtswap(self, start: Token) -> T.Stmt:
-        return self._exchange("isqrtswap", start)
+    def st_sqrtswap_inv(self, start: Token) -> T.Stmt:
+        return self._exchange("sqrtswap_inv", start)
 
     def st_swap(self, start: Token) -> T.Stmt:
         return self._exchange("swap", start)
@@ -604,7 +612,7 @@ def _read(path: Path, chars: _Chars) -> str:
         raise _MissingInclude("no such file", "check the path") from None
     except UnicodeDecodeError as e:
         raise _MissingInclude(f"it is not UTF-8 text (byte 0x{e.object[e.start]:02x} at offset "
-                              f"{e.start})", "save it as UTF-8 text; spinc reads only text "
+                              f"{e.start})", "save it as UTF-8 text; dotseq reads only text "
                               "files") from None
     except OSError as e:
         raise _MissingInclude(e.strerror or str(e), "check the path and its permissions") from None

@@ -144,7 +144,7 @@ class Rot:
 
 @dataclass(frozen=True, slots=True)
 class Exchange:
-    kind: str                 # "sqrtswap", "isqrtswap", "swap"
+    kind: str                 # "sqrtswap", "sqrtswap_inv", "swap"
     a: Ident
     b: Ident
     options: tuple[Option, ...]

@@ -4,7 +4,7 @@ Layout, top to bottom, all trace axes sharing one time axis:
 
 * a step strip: one lane per qubit, one box per timeline step, labelled with
   its kind and angle (``x 90°``, ``√SWAP A–B``, ``wait``, ``read``); time the
-  compiler inserted (``pad``, ``align``) is hatched;
+  compiler inserted (``pad``, ``phasewait``, ``zcorrect``) is hatched;
 * one axis per output (the I and Q halves of an I/Q line share one: I solid,
   Q dashed), samples drawn as a zero-order hold; markers as 0/1 steps;
 * the spectrum of each I/Q line's complex baseband ``I + iQ`` over the shown
@@ -466,7 +466,7 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
     window : Window
         From :func:`compiler.preview.window.resolve_window`.
     title : str
-        Figure title; empty gives ``"spinc preview: run N"``.
+        Figure title; empty gives ``"dotseq preview: run N"``.
     lo : dict of str to float, Hz, optional
         LO frequency per I/Q line, for the absolute frequency axis of its
         spectrum and the Larmor marks.
@@ -516,7 +516,7 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
     dense = _draw_steps(strip, wf, window, lanes, tscale, px_per_unit)
     strip.tick_params(axis="x", labelbottom=False, length=0)
     strip.set_title("timeline steps, each pixel column showing the share of each kind"
-                    if dense else "timeline steps (hatched: padding inserted by the compiler)",
+                    if dense else "timeline steps (hatched: inserted by the compiler: padding, phase waits, z corrections)",
                     loc="left", fontsize=FONT, color=S.TEXT, pad=4)
     y += wanted[0] + STACK_GAP
 
@@ -604,7 +604,7 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
             _draw_spectrum(ax, wf, panel, window, lo.get(panel.label), cols_each, wide=k == 1)
 
     # title, subtitle, footer
-    heading = title.strip() or f"spinc preview: run {wf.run_index}"
+    heading = title.strip() or f"dotseq preview: run {wf.run_index}"
     fig.text(LEFT / width, 1 - 0.22 / height, heading, ha="left", va="top",
              fontsize=FONT + 5, color=S.TEXT, weight="bold")
     facts = [f"run {wf.run_index}"]
@@ -632,8 +632,8 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
 
 def _metadata(fmt: str) -> dict:
     # no creation dates: the same waveforms give the same file
-    return {"png": {"Software": "spinc preview"}, "svg": {"Date": None},
-            "pdf": {"CreationDate": None, "Producer": "spinc preview"}}[fmt]
+    return {"png": {"Software": "dotseq preview"}, "svg": {"Date": None},
+            "pdf": {"CreationDate": None, "Producer": "dotseq preview"}}[fmt]
 
 
 def save_atomic(fig: Figure, path: Path, fmt: str) -> Path:
@@ -693,7 +693,7 @@ def preview(wf: Waveforms, out_path: str | Path, *, start: float | None = None,
         Timeline index (``StepRecord.index``) of one step to zoom on, with a
         small margin; not together with ``start``/``stop``.
     title : str
-        Figure title; default ``"spinc preview: run N"``.
+        Figure title; default ``"dotseq preview: run N"``.
     lo : dict of str to float, Hz, optional
         LO frequency of each I/Q line by line name; its spectrum is then drawn
         over absolute frequency ``f = f_LO + f_IF`` with each dot's Larmor

@@ -1,7 +1,7 @@
 """Colours, line styles and step labels of the preview figure.
 
-A calm palette of spinc's own: muted blue-greens and clays on white, grey
-for idle time, hatching for time the compiler inserted (padding, alignment).
+A calm palette of dotseq's own: muted blue-greens and clays on white, grey
+for idle time, hatching for time the compiler inserted (padding, phase waits, z corrections).
 """
 
 from __future__ import annotations
@@ -13,12 +13,13 @@ STEP_STYLE: dict[str, tuple[str, str]] = {
     "rot": ("#7fb3a6", ""),          # sage teal
     "zrot": ("#9d8fc4", ""),         # soft lavender (zero-length mark)
     "sqrtswap": ("#d9a47a", ""),     # clay
-    "isqrtswap": ("#c99068", ""),
+    "sqrtswap_inv": ("#c99068", ""),
     "swap": ("#b97c55", ""),
     "wait": ("#e4e6ea", ""),         # pale grey
     "read": ("#8fa9d6", ""),         # periwinkle
     "trigger": ("#c8bf7a", ""),      # straw
-    "align": ("#ffffff", "///"),     # inserted by the compiler: hatched
+    "phasewait": ("#ffffff", "///"),  # inserted by the compiler: hatched
+    "zcorrect": ("#e9d8c8", "\\\\"),  # inserted 2π-burst phase correction: pale clay, back-hatched
     "pad": ("#ffffff", "xx"),
 }
 OTHER_STEP = ("#cfcfcf", "")
@@ -45,7 +46,7 @@ LARMOR_COLOURS = ("#a23b3b", "#3b6ea2", "#3b8a5a", "#8a6a1f", "#6a3b8a", "#1f7a7
 CAUTION_TEXT = ("Check voltages and microwave power against your sample's and "
                 "lab's limits before loading.")
 
-EXCHANGE_NAMES = {"sqrtswap": "√SWAP", "isqrtswap": "√SWAP⁻¹", "swap": "SWAP"}
+EXCHANGE_NAMES = {"sqrtswap": "√SWAP", "sqrtswap_inv": "√SWAP⁻¹", "swap": "SWAP"}
 
 
 def step_style(kind: str) -> tuple[str, str]:
@@ -107,8 +108,10 @@ def step_labels(kind: str, qubits: tuple[str, ...], params: dict) -> list[str]:
         return [name, "ex"]
     if kind == "pad":
         return ["padding (end)", "pad", "p"]
-    if kind == "align":
-        return ["align (padding)", "align", "a"]
+    if kind == "phasewait":
+        return ["phase wait (inserted)", "phasewait", "pw"]
+    if kind == "zcorrect":
+        return ["z-correct (inserted)", "zcorrect", "zc"]
     if kind == "trigger":
         label = str(p.get("label", "")).strip()
         return ([f"trigger {label}"] if label else []) + ["trigger", "trig", "t"]
@@ -121,12 +124,13 @@ def step_labels(kind: str, qubits: tuple[str, ...], params: dict) -> list[str]:
 
 def kind_name(kind: str) -> str:
     """Short name of a step kind, for merged boxes of a dense timeline."""
-    return EXCHANGE_NAMES.get(kind, {"zrot": "z", "align": "align", "pad": "pad"}.get(kind, kind))
+    return EXCHANGE_NAMES.get(kind, {"zrot": "z", "phasewait": "phase wait", "zcorrect": "z-corr",
+                                    "pad": "pad"}.get(kind, kind))
 
 
 # Dense timelines (steps narrower than a few pixels) are drawn as shares per
 # pixel column, without hatching: padding then gets a grey of its own.
-_DENSE = {"align": "#b6bac3", "pad": "#d3d6dc"}
+_DENSE = {"phasewait": "#b6bac3", "zcorrect": "#d9bfa6", "pad": "#d3d6dc"}
 
 
 def dense_colour(kind: str) -> str:

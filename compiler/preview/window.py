@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import SpincError, suggest
+from ..errors import DotseqError, suggest
 from ..synth.types import StepRecord, Waveforms
 from ..units import FREQUENCY, TIME, format_quantity
 
@@ -28,7 +28,7 @@ STEP_MARGIN_FRACTION = 0.15
 STEP_MARGIN_MIN = 16
 
 
-class PreviewError(SpincError):
+class PreviewError(DotseqError):
     """The preview request cannot be drawn (bad window, suffix, output path or
     waveform data)."""
     stage = "preview"
@@ -97,7 +97,7 @@ def output_format(out_path: str | Path) -> tuple[Path, str]:
         allowed = ", ".join(FORMATS)
         got = f"'{path.suffix}'" if path.suffix else "no suffix"
         raise PreviewError(f"cannot write a preview to '{path}': {got} is not an image format "
-                           f"spinc writes", hint=f"use one of {allowed}")
+                           f"dotseq writes", hint=f"use one of {allowed}")
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise PreviewError(f"cannot write '{path}': the folder '{folder}' does not exist",

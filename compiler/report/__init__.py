@@ -1,4 +1,4 @@
-"""The simulation report: what ``spinc simulate FILE -o DIR`` prints and
+"""The simulation report: what ``dotseq simulate FILE -o DIR`` prints and
 writes.
 
 ``summary_text(result)`` is the table printed on the terminal;

@@ -22,8 +22,8 @@ import numpy as np
 from ..simulate.types import BudgetLine, RunResult, SimulationResult, StepFidelity
 from .errors import fail
 
-FORMAT_NAME = "spinc-report"
-FORMAT_VERSION = 1
+FORMAT_NAME = "dotseq-report"
+FORMAT_VERSION = 2
 RESULTS_NAME = "results.json"
 
 
@@ -123,7 +123,7 @@ def read_format(folder: Path) -> str | None:
 
 
 def is_report(folder: Path) -> bool:
-    """Whether ``folder`` is a real folder holding a spinc report."""
+    """Whether ``folder`` is a real folder holding a dotseq report."""
     folder = Path(folder)
     return folder.is_dir() and not folder.is_symlink() and read_format(folder) == FORMAT_NAME
 
@@ -206,7 +206,7 @@ def load_results(path: str | Path) -> SimulationResult:
     Raises
     ------
     ReportError
-        Missing or unreadable file, not a spinc report, or a newer format.
+        Missing or unreadable file, not a dotseq report, or a newer format.
     """
     p = Path(path)
     if p.is_dir():
@@ -215,18 +215,18 @@ def load_results(path: str | Path) -> SimulationResult:
         with open(p, encoding="utf-8") as f:
             doc = json.load(f)
     except FileNotFoundError:
-        raise fail(p, "no results.json here", "give a folder written by spinc simulate -o") from None
+        raise fail(p, "no results.json here", "give a folder written by dotseq simulate -o") from None
     except OSError as e:
         raise fail(p, f"cannot read the file: {e.strerror or e}") from None
     except ValueError as e:
         raise fail(p, f"not valid JSON: {e}", "the file is damaged; simulate again") from None
     if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
-        raise fail(p, f"not a spinc report (no format '{FORMAT_NAME}')",
-                   "give a folder written by spinc simulate -o")
+        raise fail(p, f"not a dotseq report (no format '{FORMAT_NAME}')",
+                   "give a folder written by dotseq simulate -o")
     version = doc.get("format_version")
     if not isinstance(version, int) or version > FORMAT_VERSION:
-        raise fail(p, f"report format version {version!r} is not one this spinc reads "
-                      f"(up to {FORMAT_VERSION})", "update spinc")
+        raise fail(p, f"report format version {version!r} is not one this dotseq reads "
+                      f"(up to {FORMAT_VERSION})", "update dotseq")
     try:
         return result_from_document(doc)
     except (KeyError, TypeError, ValueError) as e:

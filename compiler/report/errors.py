@@ -8,12 +8,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import Problem, Span, SpincError
+from ..errors import Problem, Span, DotseqError
 
 
-class ReportError(SpincError):
+class ReportError(DotseqError):
     """A simulation report cannot be written or read: an unusable output
-    folder, an IO failure, or a ``results.json`` that is not a spinc report."""
+    folder, an IO failure, or a ``results.json`` that is not a dotseq report."""
 
     stage = "report"
 

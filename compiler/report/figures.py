@@ -54,7 +54,7 @@ METRIC_NAMES = {"process": "process fidelity", "average": "average gate fidelity
 BEST_COLOUR = S.CAUTION             # dark amber star and outline
 DOT_COLOURS = S.LARMOR_COLOURS      # one colour per dot, in register order
 FIDELITY_MAP = LinearSegmentedColormap.from_list(
-    "spinc_fidelity", ["#f4f0e8", "#cfe1d9", "#7fb3a6", "#3f7d8a", "#2e4e6e"])
+    "dotseq_fidelity", ["#f4f0e8", "#cfe1d9", "#7fb3a6", "#3f7d8a", "#2e4e6e"])
 
 FILES = ("budget.png", "steps.png", "populations.png", "sweep.png")
 CAPTIONS = {"budget.png": "Error budget", "steps.png": "Infidelity of each step",
@@ -74,7 +74,7 @@ def new_figure(width: float = WIDTH, height: float = HEIGHT) -> Figure:
 def save_png(fig: Figure, path: str | Path) -> None:
     """Write ``fig`` as PNG at :data:`DPI` (no creation date in the file)."""
     fig.canvas.print_figure(str(path), format="png", dpi=DPI,
-                            metadata={"Software": "spinc report"})
+                            metadata={"Software": "dotseq report"})
 
 
 def _axes(fig: Figure, left: float, bottom: float, width: float, height: float):

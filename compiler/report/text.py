@@ -400,7 +400,7 @@ def render_text(parts: Sequence[Section]) -> str:
 
 
 def summary_text(result: SimulationResult, *, top: int = 5, max_rows: int | None = 100) -> str:
-    """What ``spinc simulate`` prints: the run's (or sweep's) fidelities, the
+    """What ``dotseq simulate`` prints: the run's (or sweep's) fidelities, the
     per-step table, the top error sources, the coherence margins, warnings
     and run statistics.
 

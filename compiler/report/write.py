@@ -7,13 +7,13 @@ figures, then moves it into place with the helpers of
 :mod:`compiler.export.atomic`:
 
 * target absent: one rename;
-* target an empty folder or an earlier spinc report (and ``overwrite``):
+* target an empty folder or an earlier dotseq report (and ``overwrite``):
   the old folder is renamed aside, the new one renamed in, the old one
   deleted.
 
 A failure while writing removes the temporary folder and leaves the target
 as it was.  Anything else at the target (a file, a link, a folder that is
-not a spinc report, a report holding files the report does not write) is
+not a dotseq report, a report holding files the report does not write) is
 refused before anything is written: nothing of the user's is ever deleted.
 """
 
@@ -53,19 +53,19 @@ def resolve_target(out_dir) -> Path:
 
 def target_state(target: Path, overwrite: bool) -> str:
     """What is at the target now: ``"absent"``, ``"empty"`` (an empty
-    folder) or ``"report"`` (a spinc report holding only report files).
+    folder) or ``"report"`` (a dotseq report holding only report files).
 
     Raises
     ------
     ReportError
-        The target is a file, a symbolic link, a folder that is not a spinc
+        The target is a file, a symbolic link, a folder that is not a dotseq
         report, a report with other files in it, or a report while
         ``overwrite`` is False.  Nothing is touched.
     """
     if not os.path.lexists(target):
         return ABSENT
     if target.is_symlink():
-        raise fail(target, "the output path is a symbolic link; spinc does not replace links",
+        raise fail(target, "the output path is a symbolic link; dotseq does not replace links",
                    "give the real folder, or choose another -o folder")
     if not target.is_dir():
         raise fail(target, "the output path exists and is a file, not a report folder; "
@@ -78,7 +78,7 @@ def target_state(target: Path, overwrite: bool) -> str:
     if not names:
         return EMPTY
     if not is_report(target):
-        raise fail(target, f"the output folder exists and is not a spinc report (no "
+        raise fail(target, f"the output folder exists and is not a dotseq report (no "
                            f"{RESULTS_NAME} with format '{FORMAT_NAME}'); nothing was written "
                            "and nothing was deleted",
                    "choose another -o folder (a new or empty one)")
@@ -86,11 +86,11 @@ def target_state(target: Path, overwrite: bool) -> str:
     if foreign:
         shown = ", ".join(foreign[:3]) + (f" and {len(foreign) - 3} more" if len(foreign) > 3
                                           else "")
-        raise fail(target, f"the output folder holds a spinc report and other files ({shown}); "
+        raise fail(target, f"the output folder holds a dotseq report and other files ({shown}); "
                            "replacing it would delete them, so nothing was written",
                    "move those files out, or choose another -o folder")
     if not overwrite:
-        raise fail(target, "the output folder already holds a spinc report",
+        raise fail(target, "the output folder already holds a dotseq report",
                    "allow overwriting, or choose another -o folder")
     return REPORT
 
@@ -161,7 +161,7 @@ def write_report(result: SimulationResult, out_dir: str | Path, *,
         What the simulator returned.
     out_dir : str or Path
         The report folder.  Its parent must exist; the folder itself must be
-        absent, empty, or an earlier spinc report (replaced when
+        absent, empty, or an earlier dotseq report (replaced when
         ``overwrite``).
     overwrite : bool
         Replace an earlier report at ``out_dir``.

@@ -11,7 +11,7 @@ are played with their axis phase minus F_q.  Exchange gates act on the
 *difference* of two dots' frames, so before each exchange the differential
 phase is brought to the value the gate needs (see :mod:`compiler.pulses`):
 either by delaying the exchange (free precession at the Zeeman difference,
-an explicit ``align`` entry) or, when that would take longer or the dots have
+an explicit ``phasewait`` entry) or, when that would take longer or the dots have
 the same Larmor frequency, by a physical z rotation made of two π bursts on
 the first dot (``zcorrect`` entries) together with the opposite frame update.
 After the exchange, frame updates compensate the single-qubit phases it
@@ -46,7 +46,7 @@ PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~
 @dataclass(frozen=True, slots=True)
 class Slot:
     """One step placed on the sample grid."""
-    step: P.Step | None        # the program step; None for inserted align/zcorrect entries
+    step: P.Step | None        # the program step; None for inserted phasewait/zcorrect entries
     kind: str
     qubits: tuple[str, ...]
     start_sample: int
@@ -260,7 +260,7 @@ class _Scheduler:
         if k is not None and k <= cost_b:
             if k > 0:
                 res = (f"dot:{a}", f"dot:{b}")
-                self.slots.append(Slot(None, "align", (a, b), t0, k, res, self.dt, span=step.span,
+                self.slots.append(Slot(None, "phasewait", (a, b), t0, k, res, self.dt, span=step.span,
                                        via=step.via, info={"reason": "phase alignment before "
                                                             f"{step.gate} {a} {b}"}))
             return t0 + k

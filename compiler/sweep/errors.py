@@ -5,10 +5,10 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import Problem, Span, SpincError
+from ..errors import Problem, Span, DotseqError
 
 
-class SweepError(SpincError):
+class SweepError(DotseqError):
     """A sweep cannot start, resume or write its results."""
 
     stage = "sweep"

@@ -25,8 +25,8 @@ from ..errors import UsageError
 from .errors import fail
 from .point import THREAD_VARIABLES, evaluate_point, one_thread, worker_info, worker_started
 
-CLUSTER_VARIABLE = "SPINC_CLUSTER"
-DASK_HINT = "install the optional extra: pip install 'spinc[dask]'"
+CLUSTER_VARIABLE = "DOTSEQ_CLUSTER"
+DASK_HINT = "install the optional extra: pip install 'dotseq[dask]'"
 
 
 class WorkersLost(Exception):
@@ -154,7 +154,7 @@ def _probe(address: str, timeout: float = 5.0) -> None:
 
 def connect(address: str, timeout: float = 15.0):
     """``(client, worker info, address)``: a Dask client on the scheduler at
-    ``address`` (tcp://HOST:PORT), whose workers must run this spinc version."""
+    ``address`` (tcp://HOST:PORT), whose workers must run this dotseq version."""
     from .. import __version__
     distributed = _dask()
     _probe(address)
@@ -170,13 +170,13 @@ def connect(address: str, timeout: float = 15.0):
     except Exception as e:  # noqa: BLE001
         client.close()
         raise fail(None, f"the Dask workers at {address} did not answer: {e}",
-                   "check that the workers run and can import spinc") from None
-    bad = sorted({v.get("spinc_version") for v in info.values()} - {__version__}, key=str)
+                   "check that the workers run and can import dotseq") from None
+    bad = sorted({v.get("dotseq_version") for v in info.values()} - {__version__}, key=str)
     if bad:
         client.close()
-        raise fail(None, f"the Dask workers at {address} run spinc {', '.join(map(str, bad))}, "
-                         f"this is spinc {__version__}",
-                   "install the same spinc version on every worker")
+        raise fail(None, f"the Dask workers at {address} run dotseq {', '.join(map(str, bad))}, "
+                         f"this is dotseq {__version__}",
+                   "install the same dotseq version on every worker")
     return client, info, address
 
 
@@ -193,7 +193,7 @@ def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) 
         threads = None
     try:
         tasks = list(tasks)
-        futures = client.map(point_fn, tasks, key=[f"spinc-point-{token}-{t.index}"
+        futures = client.map(point_fn, tasks, key=[f"dotseq-point-{token}-{t.index}"
                                                    for t in tasks], pure=False)
         index = {f.key: t.index for f, t in zip(futures, tasks)}
         for f in distributed.as_completed(futures, loop=client.loop):

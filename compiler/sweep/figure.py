@@ -94,7 +94,7 @@ def png_bytes(table: SweepTable) -> bytes | None:
     if fig is None:
         return None
     buf = io.BytesIO()
-    fig.canvas.print_figure(buf, format="png", dpi=DPI, metadata={"Software": "spinc sweep"})
+    fig.canvas.print_figure(buf, format="png", dpi=DPI, metadata={"Software": "dotseq sweep"})
     return buf.getvalue()
 
 

@@ -18,7 +18,7 @@ from .. import __version__
 from ..check import check
 from ..device import BUNDLED_DEFAULT, load_device
 from ..device.model import Device
-from ..errors import MAX_SHOWN, Problem, SpincError, UsageError
+from ..errors import MAX_SHOWN, Problem, DotseqError, UsageError
 from ..expand import expand
 from ..parse import parse_path
 from ..parse import tree as T
@@ -99,7 +99,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     UsageError
         Bad argument text, unknown or repeated names, wrong units, more than
         two axes or none, a point that breaks a physical constraint.
-    SpincError
+    DotseqError
         The sequence or device is wrong, or a point cannot be checked or
         scheduled (the error names the point's values).
     """
@@ -136,7 +136,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                                  f"sweep in {Path(str(path)).name}", "list", "file"))
     if not axes:
         raise UsageError(f"nothing to sweep: {path} has no sweep and no --vary is given",
-                         hint="add e.g. --vary field=0.5T:1.5T:11 (see: spinc sweep --help)")
+                         hint="add e.g. --vary field=0.5T:1.5T:11 (see: dotseq sweep --help)")
     if len(axes) > MAX_AXES:
         names = ", ".join(f"{a.name} ({'file' if a.source == 'file' else '--vary'}, "
                           f"{a.points} points)" for a in axes)
@@ -162,7 +162,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     scheduled: dict[tuple, Exception | None] = {}
     constraint_fails: dict[str, list[tuple[str, str, str]]] = {}
     caution_hits: dict[str, list[str]] = {}
-    stage_errors: list[tuple[SpincError, str]] = []
+    stage_errors: list[tuple[DotseqError, str]] = []
     tasks: list[PointTask] = []
     longest: dict[str, tuple[float, str]] = {}     # dot -> (largest run span / T2*, point)
     for index, coords in enumerate(itertools.product(*[a.values for a in axes])):
@@ -195,10 +195,10 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         if skey not in expanded_cache:
             try:
                 expanded_cache[skey] = expand(PR.override(tree, seq_vals))
-            except SpincError as e:
+            except DotseqError as e:
                 expanded_cache[skey] = e
         ex = expanded_cache[skey]
-        if isinstance(ex, SpincError):
+        if isinstance(ex, DotseqError):
             stage_errors.append((ex, label))
             continue
         if len(ex.runs) != 1:  # every file sweep is an axis or pinned: cannot happen
@@ -213,7 +213,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                     r = _end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
                     if r > longest.get(q, (0.0, ""))[0]:
                         longest[q] = (r, label)
-            except SpincError as e:
+            except DotseqError as e:
                 scheduled[ck] = e
         if scheduled[ck] is not None:
             stage_errors.append((scheduled[ck], label))
@@ -225,7 +225,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     if stage_errors:
         raise _stage_error(stage_errors, total)
 
-    key = {"format": "spinc-sweep-key", "spinc_version": __version__,
+    key = {"format": "dotseq-sweep-key", "dotseq_version": __version__,
            "sequence_sha256": _sha256([tree.file] + _includes(tree.body, [])),
            "device_sha256": _sha256([dev_path]), "device_name": dev0.name,
            "axes": [_spec_record(a) for a in axes], "fixed": [_spec_record(s) for s in sets],
@@ -293,7 +293,7 @@ def _constraint_error(fails: dict[str, list[tuple[str, str, str]]], total: int) 
     return UsageError(problems)
 
 
-def _stage_error(errors: list[tuple[SpincError, str]], total: int) -> SpincError:
+def _stage_error(errors: list[tuple[DotseqError, str]], total: int) -> DotseqError:
     first, _ = errors[0]
     seen: dict[tuple, list] = {}
     for err, label in errors:

@@ -18,7 +18,7 @@ import time
 import traceback
 
 from ..check.summary import GATE_KINDS
-from ..errors import SpincError
+from ..errors import DotseqError
 from ..simulate.model import Switches
 from ..simulate.run import _engine, compile_run, error_budget, evaluate_whole
 from .types import ERROR, INVALID, OK, PointResult, PointTask
@@ -68,7 +68,7 @@ def one_thread():
 
 def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
     """T2 over the longest gate on each dot of one timeline (the margin
-    ``spinc check`` prints)."""
+    ``dotseq check`` prints)."""
     longest: dict[str, float] = {}
     for s in tl.slots:
         if s.kind in GATE_KINDS:
@@ -78,7 +78,7 @@ def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
                  for q, d in longest.items() if d > 0)
 
 
-def _first_line(err: SpincError) -> str:
+def _first_line(err: DotseqError) -> str:
     p = err.first
     where = f"{p.span}: " if p.span is not None and p.span.line > 0 else ""
     return f"{err.stage}: {where}{p.message}" + (f" (hint: {p.hint})" if p.hint else "")
@@ -117,7 +117,7 @@ def evaluate_point(task: PointTask) -> PointResult:
     try:
         with one_thread():
             return simulate_point(task)
-    except SpincError as e:
+    except DotseqError as e:
         return PointResult(task.index, task.coords, INVALID, _first_line(e),
                            wall_s=time.perf_counter() - t0)
     except Exception as e:  # noqa: BLE001 - reported with the point, never lost silently
@@ -141,5 +141,5 @@ def worker_info() -> dict:
         threads = len(os.listdir("/proc/self/task"))
     except OSError:
         threads = -1
-    return {"spinc_version": __version__, "pid": os.getpid(), "threads": threads,
+    return {"dotseq_version": __version__, "pid": os.getpid(), "threads": threads,
             "env": {k: os.environ.get(k, "") for k in THREAD_VARIABLES}}

@@ -46,7 +46,7 @@ class SweepOutcome:
 
 def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = None,
               resume: bool = False, progress=None, point_fn=evaluate_point,
-              command: str = "spinc sweep") -> SweepOutcome:
+              command: str = "dotseq sweep") -> SweepOutcome:
     """Compute the points of ``plan`` that are not yet in the folder ``out``
     and write ``sweep.csv``, ``sweep.json`` and ``sweep.png`` there.
 

@@ -29,8 +29,8 @@ from .types import INVALID, OK, PointResult, SweepPlan
 STATE_NAME = "points.jsonl"
 CSV_NAME, JSON_NAME, PNG_NAME = "sweep.csv", "sweep.json", "sweep.png"
 KNOWN = frozenset((STATE_NAME, CSV_NAME, JSON_NAME, PNG_NAME))
-STATE_FORMAT = "spinc-sweep-state"
-STATE_VERSION = 1
+STATE_FORMAT = "dotseq-sweep-state"
+STATE_VERSION = 2
 
 
 def dumps(obj) -> str:
@@ -129,7 +129,7 @@ def read_state(path: Path) -> StateRead:
                 raise ValueError("no newline")
             if header is None:
                 if obj.get("format") != STATE_FORMAT:
-                    raise fail(path, "this is not a spinc sweep state file",
+                    raise fail(path, "this is not a dotseq sweep state file",
                                "choose another -o folder")
                 header = obj
             else:
@@ -151,8 +151,8 @@ def _describe_key_change(old: dict, new: dict) -> list[str]:
     labels = {"sequence_sha256": "the sequence file (or a file it includes) changed",
               "device_sha256": "the device file changed",
               "device_name": "another device",
-              "spinc_version": f"another spinc version ({old.get('spinc_version')} then, "
-                               f"{new.get('spinc_version')} now)",
+              "dotseq_version": f"another dotseq version ({old.get('dotseq_version')} then, "
+                               f"{new.get('dotseq_version')} now)",
               "axes": "other --vary parameters, ranges or points",
               "fixed": "other --set values",
               "options": "other simulation settings "
@@ -168,7 +168,7 @@ class Folder:
     """The output folder of one sweep run: checks, the state file (locked
     while open), atomic table files."""
 
-    def __init__(self, out, plan: SweepPlan, resume: bool, command: str = "spinc sweep"):
+    def __init__(self, out, plan: SweepPlan, resume: bool, command: str = "dotseq sweep"):
         self.plan = plan
         raw = os.fspath(out)
         if not str(raw).strip():
@@ -184,7 +184,7 @@ class Folder:
     def _check(self, resume: bool, command: str) -> None:
         p = self.path
         if p.is_symlink():
-            raise fail(p, "the output path is a symbolic link; spinc does not write through links",
+            raise fail(p, "the output path is a symbolic link; dotseq does not write through links",
                        "give the real folder, or choose another -o folder")
         if os.path.lexists(p) and not p.is_dir():
             raise fail(p, "the output path exists and is a file, not a folder; nothing was written",
@@ -205,7 +205,7 @@ class Folder:
         if foreign:
             shown = ", ".join(foreign[:3]) + (f" and {len(foreign) - 3} more" if len(foreign) > 3
                                               else "")
-            raise fail(p, f"the output folder holds files that are not a spinc sweep's ({shown}); "
+            raise fail(p, f"the output folder holds files that are not a dotseq sweep's ({shown}); "
                           "nothing was written and nothing was deleted",
                        "choose another -o folder (a new or empty one)")
         if STATE_NAME in names:
@@ -267,7 +267,7 @@ class Folder:
                 fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
             except OSError:
                 f.close()
-                raise fail(self.path, "another spinc sweep is writing into this folder",
+                raise fail(self.path, "another dotseq sweep is writing into this folder",
                            "wait for it to finish, or choose another -o folder") from None
         except ImportError:  # pragma: no cover - no fcntl (Windows): no lock
             pass

@@ -22,8 +22,8 @@ from ..report.data import jsonable
 from ..units import format_quantity
 from .types import MISSING, OK, PointResult, SweepPlan, SweepTable
 
-FORMAT_NAME = "spinc-sweep"
-FORMAT_VERSION = 1
+FORMAT_NAME = "dotseq-sweep"
+FORMAT_VERSION = 2
 METRIC_TEXT = {
     "average gate fidelity": "average gate fidelity of the whole run (up to the start of its "
                              "final readout) against the ideal circuit",
@@ -95,7 +95,7 @@ def _grid(table: SweepTable):
 def _head_line(table: SweepTable) -> str:
     done = len(table.points)
     state = "complete" if table.complete else "PARTIAL"
-    return (f"spinc sweep of {table.sequence} on {table.device_name}: {state}, {done} of "
+    return (f"dotseq sweep of {table.sequence} on {table.device_name}: {state}, {done} of "
             f"{table.n_points} points; fidelity = {table.metric} of the whole run"
             + ("; budget = infidelity contribution of each source" if table.budget else
                "; no error budget (--budget adds it)"))

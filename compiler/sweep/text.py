@@ -1,4 +1,4 @@
-"""What ``spinc sweep`` prints: the plan before it runs, the outcome after,
+"""What ``dotseq sweep`` prints: the plan before it runs, the outcome after,
 and the progress on stderr while it runs (plain text; no computation)."""
 
 from __future__ import annotations
@@ -128,18 +128,18 @@ def problem_lines(outcome, command: str) -> list[str]:
     out = []
     if outcome.errors:
         e = outcome.errors[0]
-        out.append(f"spinc: internal error at {len(outcome.errors)} point(s), e.g. at "
-                   f"{values_text(table, e.coords)}: {e.message}. This is a bug in spinc; those "
+        out.append(f"dotseq: internal error at {len(outcome.errors)} point(s), e.g. at "
+                   f"{values_text(table, e.coords)}: {e.message}. This is a bug in dotseq; those "
                    "points are not in the table (--resume retries them).")
     for idx, why in outcome.lost[:3]:
-        out.append(f"spinc: lost {'point ' + str(idx) if idx >= 0 else 'workers'}: "
+        out.append(f"dotseq: lost {'point ' + str(idx) if idx >= 0 else 'workers'}: "
                    + " ".join(why.split()))
     if len(outcome.lost) > 3:
-        out.append(f"spinc: ... and {len(outcome.lost) - 3} more lost")
+        out.append(f"dotseq: ... and {len(outcome.lost) - 3} more lost")
     if outcome.status != "complete":
         what = {"interrupted": "interrupted", "workers lost": "stopped: workers lost",
                 "failed": "incomplete"}[outcome.status]
-        out.append(f"spinc: sweep {what}; {len(table.points)} of {table.n_points} points done, "
+        out.append(f"dotseq: sweep {what}; {len(table.points)} of {table.n_points} points done, "
                    f"{len(table.missing)} missing; the partial table is written (marked partial) "
                    f"in {outcome.folder}\ncontinue with:\n  {command}")
     return out

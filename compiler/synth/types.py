@@ -54,11 +54,11 @@ class Output:
 
 @dataclass(frozen=True)
 class StepRecord:
-    """One entry of the timeline: a step, padding or alignment, on the sample grid."""
+    """One entry of the timeline: a step, padding or an inserted phase wait, on the sample grid."""
 
     index: int                # position in the timeline
-    kind: str                 # rot, zrot, sqrtswap, isqrtswap, swap, wait, read, trigger,
-                              # align (wait inserted to phase-align an exchange), pad (end padding)
+    kind: str                 # rot, zrot, sqrtswap, sqrtswap_inv, swap, wait, read, trigger,
+                              # phasewait (wait inserted to phase-align an exchange), pad (end padding)
     qubits: tuple[str, ...]
     start: int                # first sample
     stop: int                 # one past the last sample

@@ -10,7 +10,7 @@ nodes, 1 sub-step per sample), about half a second per point here.
 Measured in this run, medians over the repeats (the two pool sizes
 alternate, so slow phases of a busy machine hit both):
 
-* ``t1``, ``t2``: the sweep through the local pool path of ``spinc sweep``
+* ``t1``, ``t2``: the sweep through the local pool path of ``dotseq sweep``
   (``run_pool``) with 1 and 2 worker processes, each started fresh
   (spawning and importing included, as a user meets it);
   ``speedup_2_workers = t1 / t2``; with each, the cores the workers
@@ -170,7 +170,7 @@ def main() -> int:
         print(f"worker pid {info['pid']}: {info['threads']} threads; "
               + ", ".join(f"{k}={v}" for k, v in info["env"].items() if k.startswith(("OMP", "OPENBLAS", "MKL"))))
 
-    # cold pools of 1 and 2 workers (the path of `spinc sweep --workers N`)
+    # cold pools of 1 and 2 workers (the path of `dotseq sweep --workers N`)
     t1s, t2s = [], []
     cores = {1: [], 2: []}
     reference = None
@@ -197,7 +197,7 @@ def main() -> int:
     try:
         from distributed import LocalCluster
     except ImportError:
-        print("dask: not installed (pip install 'spinc[dask]'); overhead not measured")
+        print("dask: not installed (pip install 'dotseq[dask]'); overhead not measured")
     else:
         tp, td = [], []
         with child_threads():

@@ -7,7 +7,7 @@ arbitrary-unicode and long-expression properties take a third of it and the
 mutated device files half), which makes about 25 000 cases in all across
 the six properties.  Each case is bounded in time
 (``CASE_SECONDS`` in test_fuzz.py) and every outcome must be success or
-spinc's own error with a position.  A property that fails is reported with
+dotseq's own error with a position.  A property that fails is reported with
 hypothesis' falsifying example and the run goes on with the next property.
 
 Prints, per property, the cases tried, how they ended (success or the stage
@@ -44,7 +44,7 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
 
     # the example count is read when test_fuzz is imported
-    os.environ["SPINC_FUZZ_EXAMPLES"] = str(args.examples)
+    os.environ["DOTSEQ_FUZZ_EXAMPLES"] = str(args.examples)
     sys.path.insert(0, str(ROOT))
     sys.path.insert(0, str(ROOT / "tests"))
     from hypothesis import Phase, settings  # noqa: E402

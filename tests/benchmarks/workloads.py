@@ -75,7 +75,7 @@ def line_steps(n: int, steps: int, *, long_range: bool = True) -> list[str]:
             if long_range and n >= 3 and (i // 6) % 3 == 2:
                 out.append("sqrtswap D0 D2")
             else:
-                out.append(f"isqrtswap D{a} D{b}")
+                out.append(f"sqrtswap_inv D{a} D{b}")
         else:
             out.append(f"wait 40 ns on D{a}")
             k += 1
