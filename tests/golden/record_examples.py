@@ -1,0 +1,80 @@
+"""Record the simulated figures of every example in ``sequences/`` into
+``tests/golden/examples_results.json``, the reference that
+``tests/test_golden_results.py`` compares against (to 1e-10).
+
+Run it only when a change is *meant* to move these numbers, and say why in
+the commit message:
+
+    .venv/bin/python tests/golden/record_examples.py
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent.parent
+sys.path.insert(0, str(ROOT))
+
+from compiler import load  # noqa: E402
+from compiler.report.data import results_document  # noqa: E402
+from compiler.simulate.run import SimOptions, simulate  # noqa: E402
+
+GOLDEN = HERE / "examples_results.json"
+# Options per example: quadrature and budget kept small enough for the default
+# suite; every physics path (bursts, exchange, long-range detuning, budget,
+# per-step fidelities, sweeps) is exercised by at least one of them.
+CASES = {
+    "ramsey_pair": dict(nodes=3),
+    "cnot_pair": dict(nodes=3),
+    "gaas_rabi": dict(nodes=3, budget=False),
+    "ramsey_single": dict(nodes=3),
+    "ribbon_long_range": dict(nodes=3, budget=False, steps=False),
+}
+# Run-level figures of results.json that must not move (wall times and
+# engine statistics are left out: they are not physics).
+RUN_KEYS = ("duration", "process_fidelity", "average_fidelity", "state_fidelity",
+            "budget_total", "budget_floor", "budget_remainder")
+
+
+def figures(name: str) -> dict[str, float]:
+    """Flat ``path -> value`` of the physics figures of one example."""
+    checked = load(ROOT / "sequences" / f"{name}.dotseq")
+    doc = results_document(simulate(checked, SimOptions(**CASES[name])))["result"]
+    out: dict[str, float] = {}
+    for r in doc["runs"]:
+        base = f"run{r['run_index']}"
+        for k in RUN_KEYS:
+            out[f"{base}.{k}"] = r[k]
+        for q, pops in r["populations"].items():
+            for j, v in enumerate(pops if isinstance(pops, list) else [pops]):
+                out[f"{base}.populations.{q}.{j}"] = v
+        for s in r["steps"]:
+            out[f"{base}.step{s['index']}.fidelity"] = s["fidelity"]
+        for b in r["budget"]:
+            out[f"{base}.budget.{b['source']}"] = b["infidelity"]
+        for key, series in (r.get("traces") or {}).items():
+            if key == "t":
+                continue
+            if isinstance(series, dict):
+                for q, vals in series.items():
+                    for j in range(0, len(vals), 25):
+                        out[f"{base}.traces.{key}.{q}.{j}"] = vals[j]
+            elif isinstance(series, list):
+                for j in range(0, len(series), 25):
+                    v = series[j]
+                    if isinstance(v, (int, float)):
+                        out[f"{base}.traces.{key}.{j}"] = v
+    return {k: float(v) for k, v in out.items() if isinstance(v, (int, float))}
+
+
+def main() -> None:
+    data = {name: figures(name) for name in CASES}
+    GOLDEN.write_text(json.dumps(data, indent=1, sort_keys=True) + "\n")
+    print(f"wrote {GOLDEN} ({sum(len(v) for v in data.values())} figures)")
+
+
+if __name__ == "__main__":
+    main()
