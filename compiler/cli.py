@@ -10,8 +10,8 @@ import sys
 import traceback
 from pathlib import Path
 
-from . import __version__, check_file, compile_checked, load
-from .check.summary import render_text, to_dict
+from . import CompileOptions, __version__, check_file, compile, load
+from .check.summary import render_text, summarize, to_dict
 from .errors import DotseqError, UsageError
 from .limits import check_synthesis_size, default_limit, human, parse_size
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
@@ -199,14 +199,21 @@ def _memory_limit(args) -> int:
     return parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
 
 
-def _synthesised(args, runs: list[int] | None = None):
+def _options(args) -> CompileOptions:
+    return CompileOptions(predistort=bool(args.predistort))
+
+
+def _synthesised(args, checked=None, runs: list[int] | None = None):
+    """Compile the chosen runs (all by default) of the loaded file (loaded
+    here unless given), after the memory estimate."""
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    if checked is None:
+        checked = load(args.file, args.device, memory_limit=limit)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     total = sum(checked.timelines[i].n_samples for i in chosen)
     need = check_synthesis_size(total, n_outputs, limit, file=args.file)
-    return compile_checked(checked, predistort=args.predistort, runs=runs), need
+    return compile(checked, _options(args), runs=runs), need
 
 
 def _source(args, compiled) -> dict:
@@ -275,10 +282,7 @@ def cmd_preview(args) -> int:
     if not 0 <= args.run < n:
         raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
                          f"(0..{n - 1})")
-    args_runs = [args.run]
-    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(checked.timelines[args.run].n_samples, n_outputs, limit, file=args.file)
-    wf = compile_checked(checked, predistort=args.predistort, runs=args_runs).waveforms[0]
+    wf = _synthesised(args, checked, runs=[args.run])[0].waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
     sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
     title = f"{args.file} (run {args.run}{': ' + sweep if sweep else ''}) on {checked.device.name}"
@@ -298,26 +302,22 @@ def _sim_options(args):
                       steps=not args.no_steps, detail_run=args.detail_run)
 
 
-def _simulated(args, checked):
+def _simulated(args, compiled):
+    """Simulate the compiled runs (what export and preview took)."""
     from .simulate import simulate
-    n = len(checked.timelines)
+    n = len(compiled.runs)
     if not 0 <= args.detail_run < n:
         raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
                          f"{'s' * (n != 1)} (0..{n - 1})")
     def progress(text: str) -> None:
         print(f"simulating: {text}", file=sys.stderr, flush=True)
-    return simulate(checked, _sim_options(args), progress=progress)
+    return simulate(compiled, _sim_options(args), progress=progress)
 
 
 def cmd_simulate(args) -> int:
     from .report import summary_text, write_report
-    limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
-    # each run is synthesised (as played) before it is simulated: the longest must fit
-    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(max((t.n_samples for t in checked.timelines), default=0), n_outputs,
-                         limit, file=args.file)
-    result = _simulated(args, checked)
+    compiled, _ = _synthesised(args)
+    result = _simulated(args, compiled)
     path = write_report(result, args.out)
     if args.json:
         from .report.data import results_json
@@ -337,21 +337,22 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
-    print(render_text(summary))
+    # loaded (parsed, checked, scheduled) once and compiled once: export,
+    # preview and simulation take the same compiled runs
+    checked = load(args.file, args.device, memory_limit=_memory_limit(args))
+    print(render_text(summarize(checked.expanded, checked.device, list(checked.timelines))))
     print()
-    compiled, need = _synthesised(args)
+    compiled, need = _synthesised(args, checked)
     out.mkdir(exist_ok=True)
     bundle = write_bundle(compiled.waveforms, out / "bundle", source=_source(args, compiled))
     print(f"bundle    {bundle}  ({len(compiled.waveforms)} run{'s' * (len(compiled.waveforms) != 1)})")
-    checked = compiled.checked
     k = args.detail_run if 0 <= args.detail_run < len(compiled.waveforms) else 0
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
     img = preview(compiled.waveforms[k], out / "preview.png",
                   title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
     print(f"preview   {img}")
     print()
-    result = _simulated(args, checked)
+    result = _simulated(args, compiled)
     report = write_report(result, out / "report")
     print(summary_text(result), end="")
     print(f"report    {report}")
@@ -365,7 +366,7 @@ def cmd_sweep(args) -> int:
     import signal
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
-    from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
+    from .sweep.execute import CLUSTER_VARIABLE, dask_distributed, local_cores
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -379,7 +380,7 @@ def cmd_sweep(args) -> int:
                                                  f" (from {CLUSTER_VARIABLE})"),
                          hint="drop --workers, or give --cluster local to compute here")
     if cluster:
-        _dask()                      # fail now, with the install hint, not after planning
+        dask_distributed()                      # fail now, with the install hint, not after planning
         if not args.debug:           # dotseq reports lost points itself
             import logging
             logging.getLogger("distributed").setLevel(logging.CRITICAL)
@@ -463,8 +464,8 @@ def main(argv: list[str] | None = None) -> int:
 def entry() -> None:
     # every matrix dotseq multiplies is small or thin: a second BLAS thread only
     # adds synchronisation (30x slower on a batch of 4x4 exponentials, 2 cores)
-    from .simulate.cluster import single_threaded
-    with single_threaded():
+    from .threads import one_thread
+    with one_thread():
         code = main()
     sys.exit(code)
 

@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from compiler import limits, load
+from compiler import compile, limits, load
 from compiler.cli import main
 from compiler.errors import SequenceError, DotseqError
 from compiler.export import read_bundle
@@ -486,7 +486,7 @@ def test_simulation_is_the_same_run_to_run(tmp_path):
     results = []
     for _ in range(2):
         _clear_caches()
-        results.append(simulate(load(seq), opts))
+        results.append(simulate(compile(load(seq)), opts))
     a, b = results
     assert len(a.runs) == len(b.runs) == 1
     ra, rb = a.runs[0], b.runs[0]

@@ -23,7 +23,8 @@ from contextlib import contextmanager
 
 from ..errors import UsageError
 from .errors import fail
-from .point import THREAD_VARIABLES, evaluate_point, one_thread, worker_info, worker_started
+from ..threads import one_thread
+from .point import THREAD_VARIABLES, evaluate_point, worker_info, worker_started
 
 CLUSTER_VARIABLE = "DOTSEQ_CLUSTER"
 DASK_HINT = "install the optional extra: pip install 'dotseq[dask]'"
@@ -122,7 +123,8 @@ def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
     return {"backend": "local processes", "workers": workers}
 
 
-def _dask():
+def dask_distributed():
+    """Dask's ``distributed`` module, or a usage error with the install hint."""
     try:
         import distributed
     except ImportError:
@@ -156,7 +158,7 @@ def connect(address: str, timeout: float = 15.0):
     """``(client, worker info, address)``: a Dask client on the scheduler at
     ``address`` (tcp://HOST:PORT), whose workers must run this dotseq version."""
     from .. import __version__
-    distributed = _dask()
+    distributed = dask_distributed()
     _probe(address)
     try:
         client = distributed.Client(address, timeout=timeout, set_as_default=False)
@@ -183,7 +185,7 @@ def connect(address: str, timeout: float = 15.0):
 def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) -> dict:
     """The points on a Dask cluster; ``connection`` is what :func:`connect`
     returned (the client is closed at the end)."""
-    distributed = _dask()
+    distributed = dask_distributed()
     client, info, address = connection
     token = secrets.token_hex(4)
     futures = []
