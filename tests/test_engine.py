@@ -11,7 +11,7 @@ from scipy.linalg import expm
 
 from compiler import load
 from compiler.simulate import fidelity as F
-from compiler.simulate import pauli as PL
+from compiler.simulate.engines import pauli as PL
 from compiler.simulate.engines import FastEngine, ReferenceEngine
 from compiler import compile, compile_run
 from compiler.simulate.build import build_model

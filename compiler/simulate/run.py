@@ -30,7 +30,7 @@ from . import fidelity as F
 from .build import build_model
 from .engines import ENGINES, make_engine
 from .model import dot_operator, embed, noise_points
-from .sources import ALL_ON, FLOOR, SOURCES, Switches, compile_changes
+from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
@@ -124,6 +124,11 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
                    traces: int = 0) -> Whole:
     """The whole run (to the start of its final readout) with the given
     sources switched on, averaged over the quadrature points."""
+    need = compile_changes(switches)
+    wrong = {k: v for k, v in need.items() if getattr(crun.options, k) != v}
+    if wrong:
+        raise ValueError(f"run {crun.index} was compiled without {wrong}, which these switches "
+                         "need (the sources' compile_off options)")
     tl, wf, device = crun.timeline, crun.waveforms, crun.device
     dots = tuple(device.dots)
     n = len(dots)
@@ -239,7 +244,7 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
         return compiled[key]
 
     switched = [src for src in SOURCES.values() if src.budget == "switch"]
-    jobs = [ALL_ON.off(src.key) for src in switched] + [FLOOR]
+    jobs = [ALL_ON.off(src.key) for src in switched] + [floor()]
     jobs = [(compiled_for(sw), sw) for sw in jobs]
     if progress:
         progress(f"error budget: {len(jobs)} evaluations")
@@ -269,10 +274,10 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
             f_pro = (5 * f - 1) / 4                       # pair average -> process fidelity
             zeeman += (1 - f_pro) * d / (d + 1)
     lines.append(BudgetLine(zeeman_src.name, zeeman, zeeman_src.note))
-    floor = infid[-1] - zeeman
+    floor_infidelity = infid[-1] - zeeman
     lines.sort(key=lambda b: -b.infidelity)
-    remainder = total.infidelity - floor - sum(b.infidelity for b in lines)
-    return tuple(lines), floor, remainder
+    remainder = total.infidelity - floor_infidelity - sum(b.infidelity for b in lines)
+    return tuple(lines), floor_infidelity, remainder
 
 
 def simulate(compiled, opts: SimOptions = SimOptions(), progress=None, *,

@@ -18,7 +18,7 @@ how it is switched off for the budget:
 
 :class:`Switches` are keyed by the registry's keys: a switch that is not in
 the registry is refused, and "everything off" is derived from the registry,
-so a new source can never stay on silently.  The budget (:mod:`.run`) walks
+(:func:`all_off`, :func:`floor`), so a new source can never stay on silently.  The budget (:mod:`.run`) walks
 the registry: every entry with ``budget="switch"`` is one line (total
 infidelity minus the infidelity with it off).
 """
@@ -133,9 +133,17 @@ class Switches:
 
 
 ALL_ON = Switches()
-ALL_OFF = Switches(frozenset(SOURCES))
-# the budget's floor: every source off except those whose share is not found by switching
-FLOOR = Switches(frozenset(k for k, s in SOURCES.items() if s.in_floor))
+
+
+def all_off() -> Switches:
+    """Every source of the registry off (read from the registry on each call)."""
+    return Switches(frozenset(SOURCES))
+
+
+def floor() -> Switches:
+    """The budget's floor: every source off except those whose share is not
+    found by switching (``in_floor=False``)."""
+    return Switches(frozenset(k for k, s in SOURCES.items() if s.in_floor))
 
 
 def compile_changes(switches: Switches) -> dict:

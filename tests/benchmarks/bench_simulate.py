@@ -169,7 +169,7 @@ def prepared_large(seq: Path):
     """Like :func:`prepared` without dense 2^n × 2^n objects."""
     from compiler import load
     from compiler.simulate import fidelity as F
-    from compiler.simulate import pauli as PL
+    from compiler.simulate.engines import pauli as PL
     from compiler.simulate.model import build_model, noise_points
     from compiler.simulate.run import _end_sample, compile_run
     c = load(seq)
