@@ -34,6 +34,8 @@ from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
+
+
 @dataclass(frozen=True)
 class SimOptions:
     engine: str = "fast"          # "fast" or "reference"
