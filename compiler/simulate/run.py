@@ -116,6 +116,7 @@ class Whole:
     pops: dict
     traces: dict
     duration: float
+    dim: int = 0                 # dimension of the simulated register
 
     @property
     def infidelity(self) -> float:
@@ -161,7 +162,7 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt)
+    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim)
 
 
 def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
@@ -268,7 +269,7 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
     # would change the schedule, so its share comes from the gates' own model
     zeeman_src = SOURCES["exchange_zeeman"]
     tl = base.timeline
-    d = 2 ** len(device.dots)
+    d = total.dim
     zeeman = 0.0
     for s in tl.slots:
         f = s.info.get("frame_fidelity")
