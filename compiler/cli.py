@@ -149,7 +149,8 @@ def _sweep_parser(sub) -> None:
 
 
 def _sim_flags(p) -> None:
-    p.add_argument("--engine", choices=("fast", "reference"), default="fast",
+    from .simulate.engines import ENGINES
+    p.add_argument("--engine", choices=tuple(ENGINES), default="fast",
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
     p.add_argument("--run", type=int, default=0, dest="detail_run",
