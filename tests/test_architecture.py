@@ -145,3 +145,18 @@ def test_no_private_definitions_of_another_package(kind):
                                                  for p in mod.split(".")):
                 bad.append(f"{path.relative_to(ROOT)}:{line} imports {mod}")
     assert not bad, "\n".join(bad)
+
+
+def test_engines_read_only_the_model():
+    # the engines know nothing of devices, waveforms or noise sources: they
+    # import the model and result types, their own modules and shared maths only
+    allowed = {"compiler.simulate.model", "compiler.simulate.types", "compiler.pulses",
+               "compiler.threads"}
+    bad = []
+    for name, path in MODULES.items():
+        if not name.startswith("compiler.simulate.engines"):
+            continue
+        for mod, _, line in _imports(name, path):
+            if not (mod.startswith("compiler.simulate.engines") or mod in allowed):
+                bad.append(f"{path.relative_to(ROOT)}:{line} imports {mod}")
+    assert not bad, "\n".join(bad)
