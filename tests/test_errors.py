@@ -100,8 +100,47 @@ def test_all_problems_are_collected_and_capped():
     src = "\n".join(f"rott A x {i} deg" for i in range(15)) + "\n"
     with pytest.raises(SequenceSyntaxError) as info:
         parse_text(src, "many.dotseq")
-    assert len(info.value.problems) == 15
+    assert len(info.value.problems) == 10 and info.value.more == 5    # kept, then counted
     assert "... and 5 more syntax errors" in info.value.render()
+    assert json_more(info.value) == 5
+
+
+def json_more(err) -> int:
+    return err.to_dict().get("more_errors", 0)
+
+
+@pytest.mark.parametrize("junk", ["@ ", "} ", "x ", "x;", "rot ", '"" ', "1.5 ns ", ";"])
+def test_a_line_of_junk_keeps_ten_problems_and_counts_the_rest(junk):
+    """A long line of junk tokens (issue 12, item 4: 48 MB took 95 s and
+    9 GB, one problem and token object per junk token) keeps the problems
+    shown and counts the rest; the first ones stay exact."""
+    line = junk * (200_000 // len(junk))
+    src = "wait 1 ns\n" + line + "\n" + "rott A\n" * 3
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_text(src, "junk.dotseq")
+    err = info.value
+    assert len(err.problems) <= 10
+    if junk == ";":                                  # separators only: the next line is wrong
+        assert (err.first.span.line, err.first.span.col, err.more) == (3, 1, 0)
+        return
+    assert err.first.span.line == 2 and err.first.span.col == (5 if junk == "rot " else 1)
+    text = err.render()
+    assert len(text) < 10_000                        # windows, not the 200 kB line
+    if junk in ("@ ", "} ", "x;"):                   # one problem a token: capped, counted
+        assert len(err.problems) == 10 and err.more >= 1
+        assert "only the first error of each line is counted" in text
+        assert err.more == 1 + 3                     # the rest of line 2, then lines 3-5
+
+
+def test_problems_from_an_include_are_counted(tmp_path):
+    (tmp_path / "bad.dotseq").write_text("rott A\n" * 25, encoding="utf-8")
+    main = tmp_path / "main.dotseq"
+    main.write_text('include "bad.dotseq"\nrott B\n', encoding="utf-8")
+    from compiler.parse import parse_path
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(main)
+    assert len(info.value.problems) == 10 and info.value.more == 16
+    assert "... and 16 more syntax errors" in info.value.render()
 
 
 def test_caret_is_under_the_offending_text():

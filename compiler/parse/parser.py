@@ -11,12 +11,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, DotseqError,
-                      did_you_mean, remember_source, suggest)
+from ..errors import (Problem, ProblemCap, SequenceError, SequenceSyntaxError, Span,
+                      DotseqError, did_you_mean, remember_source, suggest)
 from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
-from .lexer import MAX_FILE_CHARS, Token, iter_tokens
+from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
             "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
@@ -51,12 +51,14 @@ class Parser:
         self.lines = text.split("\n") if lines is None else lines
         # tokens are streamed: the current one, the one before (for spans)
         # and at most one looked ahead
-        self.lex_problems: list[Problem] = []
-        self._tokens = iter_tokens(text, file, self.lex_problems, self.lines)
+        # problems of the lexer (reported first) and the parser: the first few
+        # are kept, the rest counted
+        self.problems = ProblemCap()
+        self._skip = Skip(text)
+        self._tokens = iter_tokens(text, file, self.problems, self.lines, self._skip)
         self._ahead: Token | None = None
         self.tok: Token = next(self._tokens)
         self.prev: Token = self.tok
-        self.problems: list[Problem] = []
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
         self.depth = 0
         self.expr_level = 0     # nesting of expr() calls within one expression
@@ -87,7 +89,7 @@ class Parser:
         return ""
 
     def error(self, message: str, span: Span, hint: str = "") -> _Bail:
-        self.problems.append(Problem(message, span, hint, self.line_text(span)))
+        self.problems.add(Problem(message, span, hint, self.line_text(span)), order=1)
         return _Bail()
 
     def describe(self, t: Token) -> str:
@@ -129,8 +131,22 @@ class Parser:
         """From the start of token ``a`` to the end of token ``b``."""
         return Span(a.file, a.line, a.col, b.line, b.end_col)
 
+    def skip_line(self) -> None:
+        """Skip the rest of the current line without reading its tokens."""
+        while self._ahead is not None and self.tok.kind not in ("NEWLINE", "EOF"):
+            self.advance()
+        if self.tok.kind not in ("NEWLINE", "EOF"):
+            self._skip.goto = self._skip.line_end()
+            self.advance()
+
     def sync(self) -> None:
-        """Skip to the end of the current statement (respecting braces)."""
+        """Skip to the end of the current statement (respecting braces).
+        Names, numbers and operators between are passed over as text, not
+        tokens; once the problems are only counted, the rest of the line
+        is skipped (for a problem counted, not kept)."""
+        if self.problems.dropped:
+            self.skip_line()
+            return
         depth = 0
         while self.tok.kind != "EOF":
             t = self.tok
@@ -142,6 +158,8 @@ class Parser:
                 depth -= 1
             elif depth == 0 and (t.kind == "NEWLINE" or (t.kind == "OP" and t.text == ";")):
                 return
+            if self._ahead is None and t.kind != "NEWLINE":
+                self._skip.goto = self._skip.skippable_end()
             self.advance()
 
     # ------------------------------------------------------------ statements
@@ -159,7 +177,10 @@ class Parser:
             if self.at_op("}"):
                 if top:
                     self.error("'}' without a matching '{'", self.tok.span, "remove it")
-                    self.advance()
+                    if self.problems.dropped:
+                        self.skip_line()
+                    else:
+                        self.advance()
                     continue
                 break
             try:
@@ -234,7 +255,7 @@ class Parser:
         try:
             sub = parse_path(target, chain=self.chain, _chars=self.chars)
         except DotseqError as e:
-            self.problems.extend(e.problems)
+            self.problems.extend_from(e, order=1)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
@@ -631,8 +652,7 @@ def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
         raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
     p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
     result = p.parse_file()
-    if p.lex_problems or p.problems:
-        raise SequenceSyntaxError(p.lex_problems + p.problems)
+    p.problems.raise_if_any(SequenceSyntaxError)
     return result
 
 
