@@ -224,3 +224,52 @@ def test_a_burst_too_long_to_hold_is_refused(write):
         load(p)
     text = e.value.render()
     assert "1,000,000 samples" in text and "s.dotseq:2:" in text
+
+
+def fan_out(n_blocks: int, call: str = "do b{last}(A)") -> str:
+    """Block k calls block k-1 twice: 2^(n-1) rotations from one call."""
+    lines = ["block b0(q) { rot q x 90 deg }"]
+    lines += [f"block b{k}(q) {{ do b{k - 1}(q) ; do b{k - 1}(q) }}" for k in range(1, n_blocks)]
+    return "\n".join(lines + [call.format(last=n_blocks - 1)]) + "\n"
+
+
+def test_block_fan_out_is_refused_before_unrolling():
+    """Issue 12, item 8: 60 blocks each calling the previous twice were
+    refused only after 44 s and 3 GB of unrolled steps; the estimate
+    (2^59 rotations) refuses at the call, naming the limit."""
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(fan_out(60), "fan.dotseq"))
+    p = info.value.first
+    assert (p.span.line, p.span.col) == (61, 1)
+    assert f"at least {2 ** 59:,} steps" in p.message
+    assert "above the limit of 10,000,000 steps" in p.message
+    assert "block calls" in p.hint
+
+
+def test_estimate_multiplies_nested_repeats_and_block_arguments():
+    """Repeat counts multiply through nesting, also through a block whose
+    parameter is the count; a total just under the limit still expands."""
+    src = ("block b(q, n) { repeat n { rot q x 90 deg ; wait 1 ns on q } }\n"
+           "repeat 100 { repeat 100 { do b(A, 50) } }\n")        # 2 * 50 * 100 * 100 = 10^6
+    run = expand(parse_text(src, "n.dotseq"), max_steps=1_000_000).runs[0]
+    assert len(run.steps) == 1_000_000
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src.replace("100 { do", "101 { do"), "n.dotseq"), max_steps=1_000_000)
+    p = info.value.first
+    assert p.span.line == 2 and f"at least {1_010_000:,} steps" in p.message
+
+
+def test_estimate_saturates_and_counts_sweeps():
+    deep = "".join(f"repeat 1000000 {{ " for _ in range(40)) + "wait 1 ns" + " }" * 40
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(deep + "\n", "deep.dotseq"))
+    assert "more than 2^63 steps" in info.value.first.message
+    # every sweep point as long as the first: refused after one run, at the sweep
+    src = "sweep t from 1 ns to 2 ns in 1000\nrepeat 20000 { wait t on A }\n"
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src, "s.dotseq"))
+    p = info.value.first
+    assert p.span.line == 1 and "1,000 runs of 20,000 steps make 20,000,000" in p.message
+    # a count that depends on the sweep: runs differ, each is expanded and counted
+    ok = "sweep n over [1, 2, 3]\nrepeat n { wait 1 ns on A }\n"
+    assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq")).runs] == [1, 2, 3]
