@@ -10,6 +10,7 @@ and exits with code 2.
 from __future__ import annotations
 
 import difflib
+import re
 from collections import OrderedDict
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -41,15 +42,34 @@ class Span:
 NO_SPAN = Span("<none>", 0, 0, 0, 0)
 
 
+MAX_DIGITS_SHOWN = 30  # longer runs of digits echoed in a message are shortened
+_LONG_DIGITS = re.compile(r"\d{%d,}" % (MAX_DIGITS_SHOWN + 1))
+
+
+def shorten_numbers(text: str) -> str:
+    """Runs of more than MAX_DIGITS_SHOWN digits (a 300-digit number echoed
+    from the input) as their first and last digits and the count:
+    '123456789012...456789 (300 digits)'."""
+    if len(text) <= MAX_DIGITS_SHOWN:
+        return text
+    return _LONG_DIGITS.sub(lambda m: f"{m[0][:12]}...{m[0][-6:]} ({len(m[0])} digits)", text)
+
+
 @dataclass(frozen=True)
 class Problem:
-    """One thing wrong with the input."""
+    """One thing wrong with the input.  Long numbers echoed in the message
+    or hint are shortened (:func:`shorten_numbers`); the source line is
+    shown as a window around the caret."""
 
     message: str
     span: Span | None = None
     hint: str = ""
     source_line: str = ""  # the text of span.line, for the caret display
     context: tuple[str, ...] = ()  # e.g. "in block 'echo' called at f:3:1"
+
+    def __post_init__(self):
+        object.__setattr__(self, "message", shorten_numbers(self.message))
+        object.__setattr__(self, "hint", shorten_numbers(self.hint))
 
     def to_dict(self) -> dict:
         d = {"message": self.message, "hint": self.hint}

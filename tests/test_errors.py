@@ -73,6 +73,18 @@ CASES = [
                  id="attribute-access"),
     pytest.param("let x = " + "+".join(["1"] * 300), SequenceSyntaxError, 1, 522,
                  "more than 256 operators", "let", id="operator-chain"),
+    # issue 12, item 11: nesting of statements is not an expression's; long numbers shortened
+    pytest.param("repeat 2 { " * 65 + "wait 1 ns" + " }" * 65, SequenceSyntaxError, 1, 714,
+                 "repeat, together and block bodies nested deeper than 64 levels",
+                 "multiply repeat counts", id="nested-repeats"),
+    pytest.param("repeat 1 {\n" * 64 + "wait " + "(" * 62 + "-1" + ")" * 62 + " ns\n" + "}\n" * 64,
+                 SequenceError, 65, 6, "the wait is negative", "zero or longer",
+                 id="deep-repeats-and-expression"),
+    pytest.param("wait 1 ns " + "7" * 300, SequenceSyntaxError, 1, 11,
+                 "unexpected '777777777777...777777 (300 digits)' after", "one statement per line",
+                 id="long-number-shortened"),
+    pytest.param("rot A x 1" + "0" * 400 + " deg", SequenceError, 1, 9,
+                 "number '100000000000...000000 (401 digits)' is too large", "", id="long-overflow-shortened"),
 ]
 
 

@@ -60,7 +60,8 @@ class Parser:
         self.tok: Token = next(self._tokens)
         self.prev: Token = self.tok
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
-        self.depth = 0
+        self.depth = 0          # statement bodies: repeat, together, block
+        self.expr_depth = 0     # parentheses and signs within an expression
         self.expr_level = 0     # nesting of expr() calls within one expression
         self.expr_ops = 0       # operators read in the current expression
 
@@ -417,12 +418,18 @@ class Parser:
         return T.Trigger(label, self.span_from(start))
 
     def braced(self, what: str) -> tuple[T.Stmt, ...]:
+        if self.depth >= MAX_NESTING and self.at_op("{"):
+            # before the '{' is read, so the statement is skipped with its body
+            raise self.error(f"repeat, together and block bodies nested deeper than "
+                             f"{MAX_NESTING} levels", self.tok.span,
+                             "flatten the nesting: multiply repeat counts, or define the "
+                             "inner part as a block and call it")
         opening = self.expect_op("{", f"{what} needs a body in braces {{ ... }}")
         self.depth += 1
-        if self.depth > MAX_NESTING:
-            raise self.error(f"blocks nested deeper than {MAX_NESTING}", self.tok.span)
-        body = self.parse_body(top=False)
-        self.depth -= 1
+        try:
+            body = self.parse_body(top=False)
+        finally:
+            self.depth -= 1
         if not self.at_op("}"):
             raise self.error(f"the '{{' that opens the body of {what} is never closed",
                              opening.span, "add '}' at the end of the body")
@@ -494,9 +501,9 @@ class Parser:
         if self.expr_level == 0:
             self.expr_ops = 0
         self.expr_level += 1
-        self.depth += 1
+        self.expr_depth += 1
         try:
-            if self.depth > MAX_NESTING:
+            if self.expr_depth > MAX_NESTING:
                 raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
                                  "simplify it or split it with let")
             left = self.term()
@@ -506,7 +513,7 @@ class Parser:
                 left = T.Binary(op, left, right, Span.join(left.span, right.span))
             return left
         finally:
-            self.depth -= 1
+            self.expr_depth -= 1
             self.expr_level -= 1
 
     def term(self) -> T.Expr:
@@ -520,13 +527,14 @@ class Parser:
     def unary(self) -> T.Expr:
         if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
             t = self.operator()
-            self.depth += 1
-            if self.depth > MAX_NESTING:
-                raise self.error("expression nested too deeply", t.span)
+            self.expr_depth += 1
             try:
+                if self.expr_depth > MAX_NESTING:
+                    raise self.error(f"expression nested deeper than {MAX_NESTING}", t.span,
+                                     "simplify it or split it with let")
                 operand = self.unary()
             finally:
-                self.depth -= 1
+                self.expr_depth -= 1
             return T.Unary(t.text, operand, Span(t.file, t.line, t.col, operand.span.end_line,
                                                  operand.span.end_col))
         return self.power()
