@@ -285,3 +285,23 @@ def test_estimate_saturates_and_counts_sweeps():
     # a count that depends on the sweep: runs differ, each is expanded and counted
     ok = "sweep n over [1, 2, 3]\nrepeat n { wait 1 ns on A }\n"
     assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq")).runs] == [1, 2, 3]
+
+
+@pytest.mark.parametrize("junk", ["x ", "rot ", "1.5 ns ", '"" ', "x;", "@ ", "} ", "a=(b)*[c] ", "{ ", "{x}", "{{;}"])
+def test_a_broken_statement_is_skipped_without_a_token_per_word(junk, monkeypatch):
+    """Issue 12, item 4: after a syntax error the rest of the statement is
+    passed over as text, not as tokens (a 48 MB line took 95 s)."""
+    import compiler.parse.lexer as lexer
+    made = [0]
+
+    class Counted(lexer.Token):
+        __slots__ = ()
+
+        def __init__(self, *args):
+            made[0] += 1
+            super().__init__(*args)
+
+    monkeypatch.setattr(lexer, "Token", Counted)
+    with pytest.raises(SequenceSyntaxError):
+        parse_text("?" + junk * (100_000 // len(junk)) + "\nwait 1 ns\n", "junk.dotseq")
+    assert made[0] < 100, made[0]

@@ -77,6 +77,10 @@ _SKIPPABLE_RE = re.compile(r"""(?:[ \t\r\f\v\-+*/^(),=\[\]]++|[A-Za-z_µμ][A-Za
                                |\d++(?:\.\d*+)?(?:[eE][+-]?\d++)?|"[^"\n]*+")*+""", re.VERBOSE)
 
 
+_BRACED_RE = re.compile(r"""(?:[{};\ \t\r\f\v\-+*/^(),=\[\]]++|[A-Za-z_µμ][A-Za-z0-9_µμ]*+
+                             |\d++(?:\.\d*+)?(?:[eE][+-]?\d++)?)*+""", re.VERBOSE)
+
+
 class Skip:
     """Lets the parser move the lexer: after a token is handed out, ``end``
     is the offset just past it; setting ``goto`` (an offset on the same
@@ -92,6 +96,24 @@ class Skip:
     def skippable_end(self) -> int:
         """Offset where the skippable text after the last token ends."""
         return _SKIPPABLE_RE.match(self.text, self.end).end()
+
+    def past_braces(self, depth: int) -> tuple[int, int]:
+        """Skip skippable text, braces and ';' after the last token, keeping
+        count of the depth: (offset to go on from, depth there).  Stops
+        before a '}' or ';' at depth 0, and where skippable text ends."""
+        stop = _BRACED_RE.match(self.text, self.end).end()
+        seg = self.text[self.end:stop]
+        if "}" not in seg:
+            return stop, depth + seg.count("{")
+        for i, ch in enumerate(seg):
+            if ch == "{":
+                depth += 1
+            elif ch == "}" or ch == ";":
+                if depth == 0:
+                    return self.end + i, 0
+                if ch == "}":
+                    depth -= 1
+        return stop, depth
 
     def line_end(self) -> int:
         """Offset of the newline ending the line of the last token (or the end)."""

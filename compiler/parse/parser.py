@@ -160,7 +160,10 @@ class Parser:
             elif depth == 0 and (t.kind == "NEWLINE" or (t.kind == "OP" and t.text == ";")):
                 return
             if self._ahead is None and t.kind != "NEWLINE":
-                self._skip.goto = self._skip.skippable_end()
+                if depth == 0:
+                    self._skip.goto = self._skip.skippable_end()
+                else:       # inside braces: ';' does not end the statement
+                    self._skip.goto, depth = self._skip.past_braces(depth)
             self.advance()
 
     # ------------------------------------------------------------ statements
