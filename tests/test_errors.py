@@ -285,6 +285,12 @@ def test_estimate_saturates_and_counts_sweeps():
     # a count that depends on the sweep: runs differ, each is expanded and counted
     ok = "sweep n over [1, 2, 3]\nrepeat n { wait 1 ns on A }\n"
     assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq")).runs] == [1, 2, 3]
+    # ... also through a let computed from the swept value: not refused from the first run
+    ok = ("sweep n over [7, 1, 1]\nlet m = 2 * n\nblock b(q, k) { repeat k { wait 1 ns on q } }\n"
+          "do b(A, m)\n")
+    from compiler.limits import BYTES_PER_STEP, Budget
+    budget = Budget(30 * BYTES_PER_STEP)               # 30 steps in all: 14 + 2 + 2 fit, 3 x 14 not
+    assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq"), budget=budget).runs] == [14, 2, 2]
 
 
 @pytest.mark.parametrize("junk", ["x ", "rot ", "1.5 ns ", '"" ', "x;", "@ ", "} ", "a=(b)*[c] ", "{ ", "{x}", "{{;}"])

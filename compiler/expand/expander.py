@@ -80,6 +80,7 @@ class Expander:
         self.run_label = ""
         # set when a step estimate read a swept value (run sizes may then differ)
         self.estimate_reads_sweeps = False
+        self.swept_names: frozenset[str] = frozenset()
 
     # ------------------------------------------------------------ problems
     def source_line(self, span: Span | None) -> str:
@@ -189,6 +190,8 @@ class Expander:
                 self.fail(f"the sweeps make {n} or more runs, above the limit of {self.max_runs}",
                           ax.span, "use fewer sweep points")
                 break
+        # swept parameters and the lets computed from them (still pending here)
+        self.swept_names = frozenset(k for k, v in env.items() if isinstance(v, Pending))
         return axes, device, blocks, prepares
 
     def define(self, name: str, span: Span, defined: dict) -> None:
@@ -307,12 +310,13 @@ class Expander:
                 else:
                     # refuse before unrolling what cannot fit (a fan-out of blocks
                     # calling blocks twice reaches 2^60 steps in 60 lines)
-                    est = self.estimate((s,), env, blocks, sweep_vals, memo=memo)
-                    if len(steps) + est > self.max_steps:
+                    est = self.estimate((s,), env, blocks, self.swept_names, memo=memo)
+                    if est > 1 and len(steps) + est > self.max_steps:
+                        before = f" after the {len(steps):,} before it" if steps else ""
                         raise self.too_many(
-                            f"this statement unrolls to {_count_text(est)} steps (repeat counts "
-                            f"multiplied, block calls counted), above the limit of "
-                            f"{self.max_steps:,} steps of a run", s.span,
+                            f"this statement unrolls to {_count_text(est)} steps{before} "
+                            f"(repeat counts multiplied, block calls counted), above the limit "
+                            f"of {self.max_steps:,} steps of a run", s.span,
                             "reduce repeat counts or block calls")
                     self.emit(s, env, blocks, steps, (), ())
                     if len(steps) > self.max_steps:
