@@ -69,10 +69,11 @@ BAD_CHARACTER_HINT = ("sequence files use letters, digits, operators + - * / ^ (
                       "double-quoted strings and # comments")
 
 
-# Text that lexes only into names, numbers, blanks and operators other than
-# ; { }, and closed strings -- what the parser may skip inside a broken statement without
-# looking at tokens (it stops at ; { } newline, strings, comments, '.' and
-# bad characters, which the lexer then reads as usual).
+# Text that lexes only into names, numbers, blanks, closed strings and
+# operators other than ; { } -- what the parser may skip inside a broken
+# statement without making tokens (it stops at ; { } newline, open strings,
+# comments, '.' and bad characters, which the lexer then reads as usual).
+# _BRACED_RE also takes ; { } (strings excluded: they may hold braces).
 _SKIPPABLE_RE = re.compile(r"""(?:[ \t\r\f\v\-+*/^(),=\[\]]++|[A-Za-z_µμ][A-Za-z0-9_µμ]*+
                                |\d++(?:\.\d*+)?(?:[eE][+-]?\d++)?|"[^"\n]*+")*+""", re.VERBOSE)
 
