@@ -26,7 +26,8 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
 from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
-                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_quantity,
+                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
+                     format_quantity,
                      parse_quantity)
 from . import exchange as xch
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
@@ -377,9 +378,9 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     if fs is not None and band is not None:
         edge = max(abs(band.value[0].value), abs(band.value[1].value))
         if not edge < fs.value / 2:
-            r.error(band.node, f"{path}.if_band reaches {format_quantity(edge, FREQUENCY)}, "
-                               f"not below the Nyquist frequency "
-                               f"{format_quantity(fs.value / 2, FREQUENCY)} "
+            shown = format_distinct(edge, fs.value / 2, FREQUENCY)
+            r.error(band.node, f"{path}.if_band reaches {shown[0]}, "
+                               f"not below the Nyquist frequency {shown[1]} "
                                f"(half of sample_rate {m['sample_rate'][1].value})",
                     "narrow the IF band or raise the sample rate: |IF| < sample_rate/2")
     if len(r.problems.problems) > n_before:
@@ -439,12 +440,13 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
     # coherence: T2* <= T2 <= 2 T1 (Bloch relaxation; common practice, no source)
     t1, t2, t2s = values.get("t1"), values.get("t2"), values.get("t2_star")
     if t1 is not None and t2 is not None and t2.value > 2 * t1.value * (1 + 1e-12):
-        r.error(t2.node, f"{path}.t2 = {format_quantity(t2.value, TIME)} is longer than "
-                         f"2·T1 = {format_quantity(2 * t1.value, TIME)}",
+        shown = format_distinct(t2.value, 2 * t1.value, TIME)
+        r.error(t2.node, f"{path}.t2 = {shown[0]} is longer than 2·T1 = {shown[1]}",
                 "T2 cannot exceed 2·T1: check the units of t1 and t2")
     if t2 is not None and t2s is not None and t2s.value > t2.value * (1 + 1e-12):
-        r.error(t2s.node, f"{path}.t2_star = {format_quantity(t2s.value, TIME)} is longer "
-                          f"than the Hahn-echo T2 = {format_quantity(t2.value, TIME)}",
+        shown = format_distinct(t2s.value, t2.value, TIME)
+        r.error(t2s.node, f"{path}.t2_star = {shown[0]} is longer "
+                          f"than the Hahn-echo T2 = {shown[1]}",
                 "an echo only removes dephasing, so T2* ≤ T2")
     drive = None
     if "drive" in m:
@@ -524,9 +526,9 @@ def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
         eps = r.get(m, "detuning", _energy_or_freq, r, f"{path}.detuning")
         eps_v = eps.value if eps else 0.0
         if u is not None and eps is not None and not abs(eps_v) < u.value:
-            r.error(eps.node, f"{path}.detuning |ε| = {format_quantity(abs(eps_v), FREQUENCY)}"
-                              f" (as ε/h) is not below the charging energy U/h = "
-                              f"{format_quantity(u.value, FREQUENCY)}",
+            shown = format_distinct(abs(eps_v), u.value, FREQUENCY)
+            r.error(eps.node, f"{path}.detuning |ε| = {shown[0]}"
+                              f" (as ε/h) is not below the charging energy U/h = {shown[1]}",
                     "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
                     "charge moves to one dot)")
             return None
@@ -776,9 +778,9 @@ def _build(r: _Reader, root: Node) -> Device:
         for nm, (ch, nodes) in raw_channels.items():
             if ch["sample_rate"] and first.sample_rate and ch["sample_rate"] != first.sample_rate:
                 node = nodes["sample_rate"][1] if "sample_rate" in nodes else nodes.get("kind", (root,))[0]
-                r.error(node, f"channels.{nm}.sample_rate is {format_quantity(ch['sample_rate'], FREQUENCY)} "
-                              f"but channel '{first.name}' runs at "
-                              f"{format_quantity(first.sample_rate, FREQUENCY)}",
+                shown = format_distinct(ch["sample_rate"], first.sample_rate, FREQUENCY)
+                r.error(node, f"channels.{nm}.sample_rate is {shown[0]} "
+                              f"but channel '{first.name}' runs at {shown[1]}",
                         "all channels of a device must share one sample rate (mixed rates are not "
                         "supported)")
 
@@ -847,8 +849,9 @@ def _build(r: _Reader, root: Node) -> Device:
             if full > RWA_RATIO * f_l:
                 r.warn(d["drive"]["rabi"].node,
                        f"{path}.drive: Rabi frequency at full scale "
-                       f"{format_quantity(full, FREQUENCY)} exceeds "
-                       f"{RWA_RATIO:g}·f_L = {format_quantity(RWA_RATIO * f_l, FREQUENCY)}",
+                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[0]} exceeds "
+                       f"{RWA_RATIO:g}·f_L = "
+                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[1]}",
                        "the rotating-wave approximation becomes doubtful at strong drive")
             if temp is not None and physics.H * f_l < THERMAL_RATIO * physics.K_B * temp.value:
                 r.warn(d["node"], f"{path}: Zeeman energy h·f_L = h·{format_quantity(f_l, FREQUENCY)}"

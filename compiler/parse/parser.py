@@ -11,12 +11,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, DotseqError,
-                      did_you_mean, remember_source, suggest)
+from ..errors import (Problem, ProblemCap, SequenceError, SequenceSyntaxError, Span,
+                      DotseqError, did_you_mean, remember_source, suggest)
 from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
-from .lexer import MAX_FILE_CHARS, Token, iter_tokens
+from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
             "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
@@ -51,14 +51,17 @@ class Parser:
         self.lines = text.split("\n") if lines is None else lines
         # tokens are streamed: the current one, the one before (for spans)
         # and at most one looked ahead
-        self.lex_problems: list[Problem] = []
-        self._tokens = iter_tokens(text, file, self.lex_problems, self.lines)
+        # problems of the lexer (reported first) and the parser: the first few
+        # are kept, the rest counted
+        self.problems = ProblemCap()
+        self._skip = Skip(text)
+        self._tokens = iter_tokens(text, file, self.problems, self.lines, self._skip)
         self._ahead: Token | None = None
         self.tok: Token = next(self._tokens)
         self.prev: Token = self.tok
-        self.problems: list[Problem] = []
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
-        self.depth = 0
+        self.depth = 0          # statement bodies: repeat, together, block
+        self.expr_depth = 0     # parentheses and signs within an expression
         self.expr_level = 0     # nesting of expr() calls within one expression
         self.expr_ops = 0       # operators read in the current expression
 
@@ -87,7 +90,7 @@ class Parser:
         return ""
 
     def error(self, message: str, span: Span, hint: str = "") -> _Bail:
-        self.problems.append(Problem(message, span, hint, self.line_text(span)))
+        self.problems.add(Problem(message, span, hint, self.line_text(span)), order=1)
         return _Bail()
 
     def describe(self, t: Token) -> str:
@@ -129,8 +132,22 @@ class Parser:
         """From the start of token ``a`` to the end of token ``b``."""
         return Span(a.file, a.line, a.col, b.line, b.end_col)
 
+    def skip_line(self) -> None:
+        """Skip the rest of the current line without reading its tokens."""
+        while self._ahead is not None and self.tok.kind not in ("NEWLINE", "EOF"):
+            self.advance()
+        if self.tok.kind not in ("NEWLINE", "EOF"):
+            self._skip.goto = self._skip.line_end()
+            self.advance()
+
     def sync(self) -> None:
-        """Skip to the end of the current statement (respecting braces)."""
+        """Skip to the end of the current statement (respecting braces).
+        Names, numbers and operators between are passed over as text, not
+        tokens; once the problems are only counted, the rest of the line
+        is skipped (for a problem counted, not kept)."""
+        if self.problems.dropped:
+            self.skip_line()
+            return
         depth = 0
         while self.tok.kind != "EOF":
             t = self.tok
@@ -142,6 +159,11 @@ class Parser:
                 depth -= 1
             elif depth == 0 and (t.kind == "NEWLINE" or (t.kind == "OP" and t.text == ";")):
                 return
+            if self._ahead is None and t.kind != "NEWLINE":
+                if depth == 0:
+                    self._skip.goto = self._skip.skippable_end()
+                else:       # inside braces: ';' does not end the statement
+                    self._skip.goto, depth = self._skip.past_braces(depth)
             self.advance()
 
     # ------------------------------------------------------------ statements
@@ -159,7 +181,10 @@ class Parser:
             if self.at_op("}"):
                 if top:
                     self.error("'}' without a matching '{'", self.tok.span, "remove it")
-                    self.advance()
+                    if self.problems.dropped:
+                        self.skip_line()
+                    else:
+                        self.advance()
                     continue
                 break
             try:
@@ -234,7 +259,7 @@ class Parser:
         try:
             sub = parse_path(target, chain=self.chain, _chars=self.chars)
         except DotseqError as e:
-            self.problems.extend(e.problems)
+            self.problems.extend_from(e, order=1)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
@@ -396,12 +421,18 @@ class Parser:
         return T.Trigger(label, self.span_from(start))
 
     def braced(self, what: str) -> tuple[T.Stmt, ...]:
+        if self.depth >= MAX_NESTING and self.at_op("{"):
+            # before the '{' is read, so the statement is skipped with its body
+            raise self.error(f"repeat, together and block bodies nested deeper than "
+                             f"{MAX_NESTING} levels", self.tok.span,
+                             "flatten the nesting: multiply repeat counts, or define the "
+                             "inner part as a block and call it")
         opening = self.expect_op("{", f"{what} needs a body in braces {{ ... }}")
         self.depth += 1
-        if self.depth > MAX_NESTING:
-            raise self.error(f"blocks nested deeper than {MAX_NESTING}", self.tok.span)
-        body = self.parse_body(top=False)
-        self.depth -= 1
+        try:
+            body = self.parse_body(top=False)
+        finally:
+            self.depth -= 1
         if not self.at_op("}"):
             raise self.error(f"the '{{' that opens the body of {what} is never closed",
                              opening.span, "add '}' at the end of the body")
@@ -473,9 +504,9 @@ class Parser:
         if self.expr_level == 0:
             self.expr_ops = 0
         self.expr_level += 1
-        self.depth += 1
+        self.expr_depth += 1
         try:
-            if self.depth > MAX_NESTING:
+            if self.expr_depth > MAX_NESTING:
                 raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
                                  "simplify it or split it with let")
             left = self.term()
@@ -485,7 +516,7 @@ class Parser:
                 left = T.Binary(op, left, right, Span.join(left.span, right.span))
             return left
         finally:
-            self.depth -= 1
+            self.expr_depth -= 1
             self.expr_level -= 1
 
     def term(self) -> T.Expr:
@@ -499,13 +530,14 @@ class Parser:
     def unary(self) -> T.Expr:
         if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
             t = self.operator()
-            self.depth += 1
-            if self.depth > MAX_NESTING:
-                raise self.error("expression nested too deeply", t.span)
+            self.expr_depth += 1
             try:
+                if self.expr_depth > MAX_NESTING:
+                    raise self.error(f"expression nested deeper than {MAX_NESTING}", t.span,
+                                     "simplify it or split it with let")
                 operand = self.unary()
             finally:
-                self.depth -= 1
+                self.expr_depth -= 1
             return T.Unary(t.text, operand, Span(t.file, t.line, t.col, operand.span.end_line,
                                                  operand.span.end_col))
         return self.power()
@@ -631,8 +663,7 @@ def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
         raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
     p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
     result = p.parse_file()
-    if p.lex_problems or p.problems:
-        raise SequenceSyntaxError(p.lex_problems + p.problems)
+    p.problems.raise_if_any(SequenceSyntaxError)
     return result
 
 
