@@ -40,8 +40,9 @@ def device_of(expanded, override: str | Path | None = None, *, confine: bool = F
     path, the user's own choice) if given, else the file named by its
     ``device "..."`` statement, else :data:`BUNDLED_DEFAULT`.
 
-    Errors reading the statement's file point at the statement.  Its lines
-    are shown in messages only if its name ends in .yaml or .yml.  With
+    Errors reading the statement's file point at the statement.  Its
+    problems are shown only if its name ends in .yaml or .yml (else one
+    problem at the statement says how many it has, not what they are).  With
     ``confine`` the statement's file must lie in the folder tree of the
     sequence file (links resolved)."""
     if override is not None:
@@ -56,7 +57,21 @@ def device_of(expanded, override: str | Path | None = None, *, confine: bool = F
                               span, "--confine reads only files in the sequence's folder tree: "
                               "move the device file there, or leave out --confine",
                               read_source_line(span.file, span.line) if span else "")
-    return load_device(path, statement=span, echo=path.lower().endswith(DEVICE_SUFFIXES))
+    if path.lower().endswith(DEVICE_SUFFIXES):
+        return load_device(path, statement=span)
+    try:
+        return load_device(path, statement=span)
+    except DeviceError as e:
+        inner = [q for q in e.problems if q.span is not None and q.span.file == path]
+        if not inner:       # not read at all: the error points at the statement
+            raise
+        # it may be any file (a system file): say nothing of its text
+        raise DeviceError(
+            f"device file '{path}' does not read as a device description ({len(inner)} "
+            f"problem{'s' * (len(inner) != 1)}, the first on line {inner[0].span.line}); its "
+            "text is not shown as its name does not end in .yaml or .yml", span,
+            "check the path, or name the file *.yaml to see the problems",
+            read_source_line(span.file, span.line) if span else "") from None
 
 __all__ = [
     "load_device", "load_device_text", "device_of", "BUNDLED_DEFAULT", "PRESETS", "Preset",

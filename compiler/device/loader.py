@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -1049,8 +1049,7 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
     raise DeviceError(problems)
 
 
-def load_device(path: str | Path, *, statement: Span | None = None,
-                echo: bool = True) -> Device:
+def load_device(path: str | Path, *, statement: Span | None = None) -> Device:
     """Read a device description file.
 
     Parameters
@@ -1062,9 +1061,6 @@ def load_device(path: str | Path, *, statement: Span | None = None,
     statement : Span, optional
         The ``device "..."`` statement that named the file: errors reading it
         point there.
-    echo : bool
-        Whether messages may show the file's lines (false for a file named by
-        a statement that does not end in .yaml or .yml: it may be anything).
 
     Returns
     -------
@@ -1100,10 +1096,4 @@ def load_device(path: str | Path, *, statement: Span | None = None,
         raise DeviceError(f"device file '{path}' is not UTF-8 text (byte 0x{data[exc.start]:02x} "
                           f"at offset {exc.start})", Span(str(path), line, 1, line, 2),
                           "save the file as UTF-8") from None
-    if echo:
-        return load_device_text(text, str(path))
-    try:
-        return load_device_text(text, str(path))
-    except DeviceError as exc:
-        raise DeviceError([replace(q, source_line="") if q.span and q.span.file == str(path)
-                           else q for q in exc.problems]) from None
+    return load_device_text(text, str(path))

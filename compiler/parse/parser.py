@@ -242,10 +242,19 @@ class Parser:
                              "remove one of these include statements")
         if len(self.chain) > MAX_INCLUDE_DEPTH:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
+        echo = rel.endswith(SEQUENCE_SUFFIX)
         try:
-            sub = parse_path(target, chain=self.chain, _chars=self.chars,
-                             _echo=rel.endswith(SEQUENCE_SUFFIX))
+            sub = parse_path(target, chain=self.chain, _chars=self.chars, _echo=echo)
         except DotseqError as e:
+            if not echo:    # it may be any file (a system file): say nothing of its text
+                first = e.problems[0].span
+                raise self.error(
+                    f"included file '{rel}' does not read as a sequence file ({len(e.problems)} "
+                    f"problem{'s' * (len(e.problems) != 1)}"
+                    + (f", the first on line {first.line}" if first and first.line else "")
+                    + f"); its text is not shown as its name does not end in {SEQUENCE_SUFFIX}",
+                    s.span, f"check the path, or name the file *{SEQUENCE_SUFFIX} to see "
+                    "the problems") from None
             self.problems.extend(e.problems)
             raise _Bail() from None
         except _MissingInclude as e:
