@@ -380,6 +380,22 @@ def test_wait_beyond_the_sample_grid_is_refused_at_its_line(value, tmp_path, cap
     assert code == 2 and f"{seq}:2:1" in err, err
 
 
+@pytest.mark.parametrize("line, what", [
+    ("rot A x 90 deg duration=1e300 s", "burst"),
+    ("rot A x 90 deg amplitude=1e-320 V", "burst"),
+    ("sqrtswap A B duration=1e300 s", "exchange pulse"),
+    ("together { wait 1e300 s on A ; rot B x 90 deg }", "wait"),
+])
+def test_pulse_lengths_beyond_the_sample_grid_are_refused_at_the_step(line, what, tmp_path):
+    """The same overflow in the burst and exchange designs (exit 3 before)."""
+    seq = tmp_path / "p.dotseq"
+    seq.write_text(f'device "{DEVICE}"\nrot A x 90 deg\n{line}\n', encoding="utf-8")
+    with pytest.raises(ScheduleError) as info:
+        load(seq)
+    p = info.value.first
+    assert p.span.line == 3 and what in p.message and "2^53" in p.hint, info.value.render()
+
+
 def test_long_but_placeable_wait_still_checks(tmp_path):
     seq = tmp_path / "w.dotseq"
     seq.write_text("rot A x 90 deg\nwait 1 s\n", encoding="utf-8")
