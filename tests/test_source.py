@@ -355,6 +355,18 @@ def test_confine_keeps_includes_and_devices_in_the_sequence_folder(text, ok, tmp
         no_traceback(err)
 
 
+@pytest.mark.parametrize("command", ["compile", "preview", "simulate", "run", "sweep"])
+def test_every_command_takes_confine(command, tmp_path, capsys):
+    exp = _confine_tree(tmp_path)
+    seq = exp / "s.dotseq"
+    seq.write_text('device "../dev_out.yaml"\nrot A x 90 deg\n', encoding="utf-8")
+    out = tmp_path / ("out.png" if command == "preview" else "out")
+    extra = ["--vary", "field=0.5T:0.6T:2"] if command == "sweep" else []
+    code, _, err = cli(capsys, command, seq, "-o", out, "--confine", *extra)
+    assert code == 2 and "outside the sequence's folder" in err and f"{seq}:1:1" in err, err
+    assert not out.exists()
+
+
 def test_confine_does_not_confine_the_command_line_device(tmp_path, capsys):
     exp = _confine_tree(tmp_path)
     seq = exp / "s.dotseq"
