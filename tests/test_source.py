@@ -445,3 +445,28 @@ def test_include_link_loop_names_the_statement(tmp_path, capsys):
     assert code == 2 and f"{seq}:2:9" in err and "loop of symbolic links" in err, err
     assert "loop_a.dotseq" in err
     no_traceback(err)
+
+
+@pytest.mark.parametrize("kind", ["fifo", "link-to-dev-null", "link-loop"])
+def test_sweep_state_file_that_is_not_a_regular_file_is_refused(kind, tmp_path, capsys):
+    """points.jsonl in the -o folder as a FIFO blocked the sweep forever (it
+    is opened read-write, then read); as a link to /dev/null the state went
+    there.  Refused with exit 2 naming it, with or without --resume."""
+    out = tmp_path / "out"
+    out.mkdir()
+    state = out / "points.jsonl"
+    if kind == "fifo":
+        os.mkfifo(state)
+    elif kind == "link-to-dev-null":
+        state.symlink_to("/dev/null")
+    else:
+        state.symlink_to(out / "points.jsonl")
+    seq = tmp_path / "s.dotseq"
+    seq.write_text(f'device "{DEVICE}"\nlet tau = 10 ns\nrot A x 90 deg\nwait tau\n',
+                   encoding="utf-8")
+    for resume in ([], ["--resume"]):
+        code, _, err = cli(capsys, "sweep", seq, "-o", out, "--vary", "tau=10ns:20ns:2",
+                           "--workers", "1", "--quiet", *resume)
+        assert code == 2 and str(state) in err and "cannot use the sweep state file" in err, err
+        no_traceback(err)
+
