@@ -13,7 +13,8 @@ from pathlib import Path
 from . import __version__, check_file, compile_checked, load
 from .check.summary import render_text, to_dict
 from .errors import DotseqError, UsageError
-from .limits import check_synthesis_size, default_limit, human, parse_size
+from .limits import MAX_SOURCE_CHARS, check_synthesis_size, default_limit, human, parse_size
+from .source import Oversize, Unreadable, read_capped
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
@@ -22,6 +23,10 @@ EXIT_PARTIAL = 4   # dotseq sweep: workers lost; the partial table is written, -
 CAUTION = ("Caution: check every compiled voltage and microwave amplitude against the sample's "
            "and the lab's own limits before loading it onto an instrument; dotseq does not "
            "replace instrument-side limits.")
+
+
+CONFINE_HELP = ("read includes and the file's device statement only from the sequence "
+                "file's folder tree (links resolved); for sequence files written by others")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -42,6 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("file", help="sequence file (.dotseq)")
     c.add_argument("--device", help="device description (YAML) to use instead of the file's own")
     c.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    c.add_argument("--confine", action="store_true", help=CONFINE_HELP)
 
     k = sub.add_parser("compile", help="compile a sequence into the sample arrays each channel "
                        "plays, written as a bundle folder",
@@ -125,6 +131,7 @@ def _sweep_parser(sub) -> None:
                    help="hold a parameter at one value, e.g. --set A.t2=40us or --set tau=200ns "
                    "(pins a sweep of the file)")
     w.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    w.add_argument("--confine", action="store_true", help=CONFINE_HELP)
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
     w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
@@ -172,6 +179,7 @@ def _common(p) -> None:
                    "bias tee's droop")
     p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
                    "(default: half the memory available)")
+    p.add_argument("--confine", action="store_true", help=CONFINE_HELP)
 
 
 def _make_parent(out: str) -> None:
@@ -186,7 +194,7 @@ def _make_parent(out: str) -> None:
 
 
 def cmd_check(args) -> int:
-    summary = check_file(args.file, args.device)
+    summary = check_file(args.file, args.device, confine=args.confine)
     if args.json:
         print(json.dumps(to_dict(summary), indent=2))
     else:
@@ -201,7 +209,7 @@ def _memory_limit(args) -> int:
 
 def _synthesised(args, runs: list[int] | None = None):
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     # padded to the generators' min_length and granularity, as synthesis will
@@ -212,13 +220,12 @@ def _synthesised(args, runs: list[int] | None = None):
 
 def _source(args, compiled) -> dict:
     import hashlib
-    from pathlib import Path
     dev = compiled.checked.device
     files = {}
     for label, path in (("sequence", args.file), ("device", dev.path)):
-        try:
-            files[label] = hashlib.sha256(Path(path).read_bytes()).hexdigest()
-        except OSError:
+        try:    # read once already: a regular file within the cap
+            files[label] = hashlib.sha256(read_capped(path, 4 * MAX_SOURCE_CHARS)).hexdigest()
+        except (Unreadable, Oversize):
             files[label] = ""
     return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
             "dotseq_version": __version__, "sha256": files,
@@ -271,7 +278,7 @@ def _time_arg(text: str | None, flag: str) -> float | None:
 def cmd_preview(args) -> int:
     from .preview import preview
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     n = len(checked.timelines)
     if not 0 <= args.run < n:
         raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
@@ -314,7 +321,7 @@ def _simulated(args, checked):
 def cmd_simulate(args) -> int:
     from .report import summary_text, write_report
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     # each run is synthesised (as played) before it is simulated: the longest must fit
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     check_synthesis_size(max((checked.device.padded_samples(t.n_samples)
@@ -340,7 +347,8 @@ def cmd_run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
+    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args),
+                         confine=args.confine)
     print(render_text(summary))
     print()
     compiled, need = _synthesised(args)
@@ -392,7 +400,7 @@ def cmd_sweep(args) -> int:
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
-                      budget=args.budget)
+                      budget=args.budget, confine=args.confine)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
     where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
              f"{workers} local processes")

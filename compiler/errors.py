@@ -19,6 +19,7 @@ from typing import Iterable, Sequence
 MAX_SHOWN = 10  # problems printed in full before "and N more"
 MAX_LINE_SHOWN = 120  # characters of a source line printed around the caret
 MAX_TEXT_SHOWN = 200  # characters of the offending text in JSON
+MAX_REREAD_BYTES = 50_000_000  # a file read again only to show one of its lines
 
 
 @dataclass(frozen=True, slots=True)
@@ -211,10 +212,11 @@ _SOURCES: "OrderedDict[str, list[str]]" = OrderedDict()
 _SOURCES_KEPT = 64
 
 
-def remember_source(file: str, text: str) -> list[str]:
+def remember_source(file: str, text: str, echo: bool = True) -> list[str]:
     """Keep the text of a parsed file so later stages can show its lines in
-    error messages (the last few files only); returns its lines."""
-    lines = text.split("\n")
+    error messages (the last few files only); returns its lines.  With
+    ``echo`` false every line is kept as '' (a file that must not be shown)."""
+    lines = text.split("\n") if echo else [""] * (text.count("\n") + 1)
     _SOURCES[str(file)] = lines
     _SOURCES.move_to_end(str(file))
     while len(_SOURCES) > _SOURCES_KEPT:
@@ -226,9 +228,14 @@ def read_source_line(file: str | Path, line: int) -> str:
     """The text of one line of a parsed (or readable) file, '' when unavailable."""
     lines = _SOURCES.get(str(file))
     if lines is None:
+        # no longer kept: read it again only if it is a regular sequence file of
+        # reasonable size (never a pipe, a device or a system file)
+        from .source import Oversize, Unreadable, read_capped
+        if not str(file).endswith(".dotseq"):
+            return ""
         try:
-            lines = Path(file).read_text(encoding="utf-8", errors="replace").split("\n")
-        except (OSError, ValueError):
+            lines = read_capped(file, MAX_REREAD_BYTES).decode("utf-8").split("\n")
+        except (Unreadable, Oversize, UnicodeDecodeError):
             return ""
     return lines[line - 1] if 0 < line <= len(lines) else ""
 

@@ -7,6 +7,7 @@ The default run tries a few hundred examples per property; the long run
 sets ``DOTSEQ_FUZZ_EXAMPLES`` before importing this module.
 """
 
+import functools
 import os
 import signal
 from collections import Counter
@@ -18,7 +19,7 @@ import pytest
 import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from compiler import limits
+from compiler import limits, load
 from compiler.check import check
 from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
 from compiler.device.model import MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH
@@ -406,6 +407,106 @@ def test_limits_device_compiles_as_written():
     assert limits_outcome(limits_device(pads={"M1": ("100000", "48")}), _padding_ok) == "ok"
     assert limits_outcome(limits_device(pads={"P_A": ("16777216", None)}), _padding_ok) \
         == "refused by the memory estimate"
+# ---------------------------------------------------------------- special files
+
+SPECIAL_KINDS = ("/dev/zero", "/dev/null", "fifo", "folder", "link-loop", "/proc/self/environ",
+                 "link-to-zero", "sparse-huge", "socket")
+SPECIAL_ROLES = ("sequence", "include", "nested-include", "device", "--device")
+SPECIAL_MEMORY = 1 << 30     # address space a case may add: an unbounded read fails, not the machine
+
+
+@functools.lru_cache(maxsize=1)
+def special_dir() -> Path:
+    """A folder holding one of each special file (made once, removed at exit)."""
+    import atexit
+    import shutil
+    import socket
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-special-"))
+    atexit.register(shutil.rmtree, d, True)
+    os.mkfifo(d / "fifo")
+    (d / "folder").mkdir()
+    (d / "link-loop").symlink_to(d / "link-loop-2")
+    (d / "link-loop-2").symlink_to(d / "link-loop")
+    (d / "link-to-zero").symlink_to("/dev/zero")
+    with open(d / "sparse-huge", "wb") as f:     # 100 GB on paper, nothing on disk
+        f.truncate(100 << 30)
+    s = socket.socket(socket.AF_UNIX)
+    s.bind(str(d / "socket"))
+    s.close()
+    return d
+
+
+@contextmanager
+def address_space_cap(extra: int):
+    """Limit this process's address space to what it has now plus ``extra``
+    bytes while the block runs (a runaway read raises MemoryError)."""
+    import resource
+    with open("/proc/self/status") as f:
+        size = next(int(line.split()[1]) * 1024 for line in f if line.startswith("VmSize:"))
+    old = resource.getrlimit(resource.RLIMIT_AS)
+    cap = size + extra if old[1] == resource.RLIM_INFINITY else min(size + extra, old[1])
+    resource.setrlimit(resource.RLIMIT_AS, (cap, old[1]))
+    try:
+        yield
+    finally:
+        resource.setrlimit(resource.RLIMIT_AS, old)
+
+
+@settings(max_examples=max(N // 30, 60), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(SPECIAL_KINDS), st.sampled_from(SPECIAL_ROLES), st.booleans())
+def test_special_files(kind, role, relative):
+    """Sequence, include, device statement and --device pointing at the zero
+    device, the null device, a FIFO, a folder, a link loop, a process's
+    environment, a 100 GB sparse file or a socket: always dotseq's own error
+    naming the path as written, within the case time limit and 1 GiB more
+    address space, never a byte of the file shown."""
+    d = special_dir()
+    target = str(d / kind) if not kind.startswith("/") else kind
+    written = kind if relative and not kind.startswith("/") else target
+    with tempfile_dir() as work:
+        if relative and kind == "link-loop":     # a loop of its own beside the sequence
+            (work / "link-loop").symlink_to(work / "link-loop-2")
+            (work / "link-loop-2").symlink_to(work / "link-loop")
+        elif relative and not kind.startswith("/"):
+            (work / kind).symlink_to(d / kind)
+        seq = work / "s.dotseq"
+        device = None
+        if role == "sequence":
+            seq = Path(written) if not relative or kind.startswith("/") else work / written
+        elif role == "include":
+            seq.write_text(f'rot A x 90 deg\ninclude "{written}"\n', encoding="utf-8")
+        elif role == "nested-include":
+            (work / "mid.dotseq").write_text(f'include "{written}"\n', encoding="utf-8")
+            seq.write_text('rot A x 90 deg\ninclude "mid.dotseq"\n', encoding="utf-8")
+        elif role == "device":
+            seq.write_text(f'device "{written}"\nrot A x 90 deg\n', encoding="utf-8")
+        else:
+            seq.write_text("rot A x 90 deg\n", encoding="utf-8")
+            device = written if not relative or kind.startswith("/") else str(work / written)
+        with time_limit(CASE_SECONDS), address_space_cap(SPECIAL_MEMORY):
+            try:
+                load(seq, device)
+            except DotseqError as e:
+                text = e.render()
+                outcome = f"special {e.stage}"
+            else:
+                raise AssertionError(f"{kind} as {role} was read as input")
+    assert written in text, text
+    assert "SHELL=" not in text and "PATH=" not in text and "\x00" not in text, text
+    COUNTS[outcome] += 1
+
+
+@contextmanager
+def tempfile_dir():
+    import shutil
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-case-"))
+    try:
+        yield d
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
 
 
 # ---------------------------------------------------------------- failures found, kept

@@ -228,17 +228,14 @@ def test_read_permission_error_is_reported(tmp_path, capsys, monkeypatch):
     seq.write_text("wait 1 ns\n", encoding="utf-8")
     dev = tmp_path / "locked.yaml"
     dev.write_text("name: x\n", encoding="utf-8")
-    real_text, real_bytes = Path.read_text, Path.read_bytes
+    real_open = os.open
 
-    def refuse(real):
-        def read(self, *a, **k):
-            if self.name.startswith("locked"):
-                raise PermissionError(13, "Permission denied", str(self))
-            return real(self, *a, **k)
-        return read
+    def refuse(path, *a, **k):      # every user file is opened by compiler.source
+        if Path(path).name.startswith("locked"):
+            raise PermissionError(13, "Permission denied", str(path))
+        return real_open(path, *a, **k)
 
-    monkeypatch.setattr(Path, "read_text", refuse(real_text))
-    monkeypatch.setattr(Path, "read_bytes", refuse(real_bytes))
+    monkeypatch.setattr(os, "open", refuse)
     for args, path in ((["check", seq], seq),
                        (["check", SEQUENCES / "cnot_pair.dotseq", "--device", dev], dev)):
         code, _, err = cli(capsys, *args)

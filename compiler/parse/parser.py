@@ -16,6 +16,7 @@ from ..errors import (Problem, ProblemCap, SequenceError, SequenceSyntaxError, S
 from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
+from ..source import Oversize, Unreadable, inside, read_capped
 from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
@@ -249,21 +250,42 @@ class Parser:
         rel = s.text[1:-1]
         base = Path(self.file).parent if not self.file.startswith("<") else Path.cwd()
         target = (base / rel)
-        resolved = str(target.resolve())
+        try:
+            resolved = str(target.resolve())
+        except (RuntimeError, OSError):     # Python 3.11: RuntimeError on a link loop
+            raise self.error(f"cannot read included file '{rel}': it is a loop of symbolic "
+                             "links", s.span, f"tried {target}; point the link at a real "
+                             "file") from None
+        root = self.chars.root
+        if root is not None and not inside(resolved, root):
+            raise self.error(f"included file '{rel}' lies outside the sequence's folder {root}",
+                             s.span, "--confine reads only files in the sequence's folder tree: "
+                             "move the file there, or leave out --confine") from None
         if resolved in self.chain:
             chain = [Path(c).name for c in self.chain] + [Path(resolved).name]
             raise self.error("include cycle: " + " -> ".join(chain), s.span,
                              "remove one of these include statements")
         if len(self.chain) > MAX_INCLUDE_DEPTH:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
+        echo = rel.endswith(SEQUENCE_SUFFIX)
         try:
-            sub = parse_path(target, chain=self.chain, _chars=self.chars)
+            sub = parse_path(target, chain=self.chain, _chars=self.chars, _echo=echo)
         except DotseqError as e:
+            if not echo:    # it may be any file (a system file): say nothing of its text
+                first = e.problems[0].span
+                raise self.error(
+                    f"included file '{rel}' does not read as a sequence file ({len(e.problems)} "
+                    f"problem{'s' * (len(e.problems) != 1)}"
+                    + (f", the first on line {first.line}" if first and first.line else "")
+                    + f"); its text is not shown as its name does not end in {SEQUENCE_SUFFIX}",
+                    s.span, f"check the path, or name the file *{SEQUENCE_SUFFIX} to see "
+                    "the problems") from None
             self.problems.extend_from(e, order=1)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
-                             f"tried {target}; paths are relative to the including file") from None
+                             f"tried {target}; paths are relative to the including file"
+                             if e.reason == "no such file" else e.hint) from None
         except _TooLarge as e:
             raise self.error(f"cannot include '{rel}': {e.message}", s.span, e.hint) from None
         return T.Include(rel, str(target), sub.body, span)
@@ -614,8 +636,9 @@ class _Chars:
     """Characters read for one parse: the file and everything it includes
     (a file included a thousand times counts a thousand times)."""
 
-    def __init__(self, budget: Budget | None):
+    def __init__(self, budget: Budget | None, root: str | None = None):
         self.budget = budget
+        self.root = root    # with --confine: the folder includes must lie in
         self.limit = min(MAX_FILE_CHARS, budget.chars) if budget is not None else MAX_FILE_CHARS
         self.used = 0
 
@@ -634,24 +657,29 @@ class _Chars:
 
 
 def _read(path: Path, chars: _Chars) -> str:
+    """The text of a regular file, read no further than the characters left
+    (bytes >= characters, so the byte cap never refuses a file that fits)."""
     try:
-        if path.is_dir():
-            raise _MissingInclude("it is a directory, not a file",
-                                  f"give a sequence file (ending in {SEQUENCE_SUFFIX})")
-        chars.check(path.stat().st_size)    # bytes >= characters: refuse before reading
-        return path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise _MissingInclude("no such file", "check the path") from None
+        data = read_capped(path, max(chars.limit - chars.used, 0))
+    except Unreadable as e:
+        hint = e.hint
+        if e.reason.startswith("it is a directory"):
+            hint = f"give a sequence file (ending in {SEQUENCE_SUFFIX})"
+        raise _MissingInclude(e.reason, hint) from None
+    except Oversize as e:
+        chars.check(e.size)
+        raise   # pragma: no cover - check() raises above the limit
+    try:
+        return data.decode("utf-8")
     except UnicodeDecodeError as e:
         raise _MissingInclude(f"it is not UTF-8 text (byte 0x{e.object[e.start]:02x} at offset "
                               f"{e.start})", "save it as UTF-8 text; dotseq reads only text "
                               "files") from None
-    except OSError as e:
-        raise _MissingInclude(e.strerror or str(e), "check the path and its permissions") from None
 
 
 def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
-               budget: Budget | None = None, _chars: _Chars | None = None) -> T.SourceFile:
+               budget: Budget | None = None, _chars: _Chars | None = None,
+               _echo: bool = True) -> T.SourceFile:
     """Parse sequence text; raises SequenceSyntaxError listing every problem.
 
     ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
@@ -661,20 +689,25 @@ def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
         chars.take(len(text))
     except _TooLarge as e:
         raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
-    p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
+    # a file included under another name than *.dotseq may be anything (a system file):
+    # its lines are never shown in messages
+    p = Parser(text, file, chain, lines=remember_source(file, text, echo=_echo), chars=chars)
     result = p.parse_file()
     p.problems.raise_if_any(SequenceSyntaxError)
     return result
 
 
 def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget | None = None,
-               _chars: _Chars | None = None) -> T.SourceFile:
+               confine: bool = False, _chars: _Chars | None = None,
+               _echo: bool = True) -> T.SourceFile:
     """Read and parse one sequence file (and the files it includes).
 
     ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
-    read, includes and all, by the memory the tree would take."""
+    read, includes and all, by the memory the tree would take.  ``confine``
+    refuses includes outside the folder tree of ``path``."""
     path = Path(path)
-    chars = _chars if _chars is not None else _Chars(budget)
+    chars = _chars if _chars is not None else _Chars(
+        budget, str(Path(path).absolute().parent) if confine else None)
     if not chain:
         try:
             text = _read(path, chars)
@@ -685,7 +718,7 @@ def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget 
             raise SequenceError(e.message, Span(str(path), 0, 0, 0, 0), e.hint) from None
     else:
         text = _read(path, chars)
-    tree = parse_text(text, str(path), chain, _chars=chars)
+    tree = parse_text(text, str(path), chain, _chars=chars, _echo=_echo)
     if not chain and not tree.body:
         # an empty file is almost always a wrong path or a copy that failed
         raise SequenceError(f"the sequence file '{path}' holds no statements"

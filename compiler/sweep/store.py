@@ -23,6 +23,7 @@ from pathlib import Path
 
 from ..export.atomic import pid_alive
 from ..export.files import fsync_dir
+from ..source import Unreadable, check_regular
 from .errors import fail
 from .types import INVALID, OK, PointResult, SweepPlan
 
@@ -260,6 +261,12 @@ class Folder:
 
     def _lock(self) -> None:
         """Open the state file (created if missing) and hold an exclusive lock on it."""
+        if os.path.lexists(self.state_path):    # a FIFO would block, /dev/zero never end
+            try:
+                check_regular(self.state_path)
+            except Unreadable as e:
+                raise fail(self.state_path, f"cannot use the sweep state file: {e.reason}",
+                           "delete it, or choose another -o folder") from None
         f = open(self.state_path, "a+b")
         try:
             import fcntl
