@@ -87,7 +87,10 @@ def build_parser() -> argparse.ArgumentParser:
                        "(DIR/bundle), a preview of the detail run (DIR/preview.png) and the "
                        "simulation report (DIR/report).", epilog=CAUTION)
     r.add_argument("file", help="sequence file (.dotseq)")
-    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report")
+    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report "
+                   "(written as one unit; an earlier run's folder is replaced)")
+    r.add_argument("--discard-other-files", action="store_true", help="replace the -o folder even "
+                   "when it holds files dotseq did not write (they are deleted)")
     _common(r)
     _sim_flags(r)
     _sweep_parser(sub)
@@ -329,32 +332,42 @@ def cmd_simulate(args) -> int:
 
 
 def cmd_run(args) -> int:
-    """check + compile + export + preview + simulate into one folder."""
-    from pathlib import Path
+    """check + compile + export + preview + simulate into one folder, written as one unit
+    (compiler/export/runfolder.py): every argument is checked before anything is written."""
+    import hashlib
     from .export import write_bundle
+    from .export.runfolder import check_run_folder, write_run_folder
     from .preview import preview
     from .report import summary_text, write_report
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
+    out = check_run_folder(args.out, args.discard_other_files)
+    _sim_options(args).check()
     summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
+    n = summary.runs
+    if not 0 <= args.detail_run < n:
+        raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
+                         f"{'s' * (n != 1)} (0..{n - 1}); nothing was written")
     print(render_text(summary))
     print()
     compiled, need = _synthesised(args)
-    out.mkdir(exist_ok=True)
-    bundle = write_bundle(compiled.waveforms, out / "bundle", source=_source(args, compiled))
-    print(f"bundle    {bundle}  ({len(compiled.waveforms)} run{'s' * (len(compiled.waveforms) != 1)})")
-    checked = compiled.checked
-    k = args.detail_run if 0 <= args.detail_run < len(compiled.waveforms) else 0
-    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
-    img = preview(compiled.waveforms[k], out / "preview.png",
-                  title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
-    print(f"preview   {img}")
-    print()
+    checked, k = compiled.checked, args.detail_run
     result = _simulated(args, checked)
-    report = write_report(result, out / "report")
+    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
+
+    def fill(tmp):
+        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled))
+        preview(compiled.waveforms[k], tmp / "preview.png",
+                title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
+        write_report(result, tmp / "report")
+        digest = {part: hashlib.sha256((tmp / part).read_bytes()).hexdigest()
+                  for part in ("bundle/manifest.json", "report/results.json")}
+        return {"sequence": str(args.file), "runs": n, "detail_run": k, "sha256": digest}
+    write_run_folder(out, fill, allow_unknown=args.discard_other_files)
+    nr = len(compiled.waveforms)
+    print(f"bundle    {out / 'bundle'}  ({nr} run{'s' * (nr != 1)})")
+    print(f"preview   {out / 'preview.png'}")
+    print()
     print(summary_text(result), end="")
-    print(f"report    {report}")
+    print(f"report    {out / 'report'}")
     print(CAUTION)
     return EXIT_OK
 
