@@ -87,7 +87,8 @@ def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
     ctx = multiprocessing.get_context("spawn")
     handed: set = set()
     with child_threads():
-        ex = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_started)
+        ex = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_started,
+                                 initargs=(os.getpid(),))
         futures = {}
 
         def harvest() -> None:
