@@ -135,6 +135,9 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
                    "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
                    "pip install 'dotseq[dask]'")
+    w.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
+                   help="give up on a --cluster address that does not answer as a Dask scheduler "
+                   "within this time (default 10)")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
     w.add_argument("--engine", choices=("fast", "reference"), default="fast",
@@ -378,7 +381,8 @@ def cmd_sweep(args) -> int:
     import signal
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
-    from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
+    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, _dask, check_address,
+                                local_cores)
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -391,7 +395,12 @@ def cmd_sweep(args) -> int:
                          f"cluster {cluster}" + ("" if args.cluster else
                                                  f" (from {CLUSTER_VARIABLE})"),
                          hint="drop --workers, or give --cluster local to compute here")
+    timeout = DEFAULT_CLUSTER_TIMEOUT if args.cluster_timeout is None else args.cluster_timeout
+    if not 0 < timeout <= 3600:
+        raise UsageError(f"--cluster-timeout {timeout:g}: give from 0 to 3600 seconds",
+                         hint="e.g. --cluster-timeout 30")
     if cluster:
+        cluster = check_address(cluster)
         _dask()                      # fail now, with the install hint, not after planning
         if not args.debug:           # dotseq reports lost points itself
             import logging
@@ -414,7 +423,8 @@ def cmd_sweep(args) -> int:
     old_term = signal.signal(signal.SIGTERM, on_term)
     try:
         outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
-                            progress=Progress(enabled=not args.quiet), command=command)
+                            progress=Progress(enabled=not args.quiet), command=command,
+                            cluster_timeout=timeout)
     finally:
         signal.signal(signal.SIGTERM, old_term)
     if args.json:

@@ -95,3 +95,110 @@ def test_killing_the_sweep_leaves_no_worker_behind(tmp_path):
                 os.kill(k, signal.SIGKILL)
             except OSError:
                 pass
+
+
+# ---------------------------------------------------------------- item 7: cluster addresses
+
+class LoopbackServer:
+    """A TCP server on 127.0.0.1 that accepts and then sends ``reply``
+    repeatedly (b"": says nothing); not a Dask scheduler."""
+
+    def __init__(self, reply: bytes):
+        self.reply = reply
+        self.sock = socket.socket()
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(8)
+        self.address = f"tcp://127.0.0.1:{self.sock.getsockname()[1]}"
+        self.conns: list[socket.socket] = []
+        threading.Thread(target=self._serve, daemon=True).start()
+
+    def _serve(self) -> None:
+        while True:
+            try:
+                c, _ = self.sock.accept()
+            except OSError:
+                return
+            self.conns.append(c)
+            threading.Thread(target=self._talk, args=(c,), daemon=True).start()
+
+    def _talk(self, c: socket.socket) -> None:
+        try:
+            while self.reply:
+                c.sendall(self.reply)
+                time.sleep(0.2)
+        except OSError:
+            pass
+
+    def close(self) -> None:
+        self.sock.close()
+        for c in self.conns:
+            c.close()
+
+
+SWEEP_ARGS = ["sweep", str(RAMSEY), "--vary", "A.t2_star=2us:5us:2", "--quiet"]
+
+
+@pytest.mark.parametrize("reply", [b"", b"HTTP/1.0 200 OK\r\n\r\nnot a scheduler\n" * 4])
+def test_a_cluster_address_where_no_scheduler_answers_times_out(reply, tmp_path):
+    pytest.importorskip("distributed")
+    server = LoopbackServer(reply)
+    try:
+        t0 = time.monotonic()
+        r = dotseq(*SWEEP_ARGS, "--cluster", server.address, "--cluster-timeout", "2",
+                   "-o", str(tmp_path / "sw"), timeout=90)
+        took = time.monotonic() - t0
+    finally:
+        server.close()
+    assert r.returncode == 2, r.stderr
+    assert "Traceback" not in r.stderr and "Exception ignored" not in r.stderr
+    assert f"cannot reach the Dask scheduler at {server.address}" in r.stderr
+    if not reply:
+        assert "no answer within 2 s" in r.stderr
+    assert not (tmp_path / "sw").exists()               # nothing was written
+    print(f"refused after {took:.1f} s (process start and planning included)")
+    assert took < 60
+
+
+def test_an_http_cluster_address_is_refused_without_a_late_traceback(tmp_path):
+    """The whole process, to its exit: no traceback from Dask's shutdown."""
+    pytest.importorskip("distributed")
+    r = dotseq(*SWEEP_ARGS, "--cluster", "http://x", "-o", str(tmp_path / "sw"), timeout=60)
+    assert r.returncode == 2, r.stderr
+    assert "'http://' is not an address of a Dask scheduler" in r.stderr
+    assert "Traceback" not in r.stderr and "Exception ignored" not in r.stderr
+    assert not (tmp_path / "sw").exists()
+
+
+@pytest.mark.parametrize("address, fragment", [
+    ("https://sched.example:8787/status", "'https://' is not an address"),
+    ("ws://127.0.0.1:8786", "'ws://' is not an address"),
+    ("tcp://nohost", "give the scheduler as tcp://HOST:PORT"),
+    ("tcp://127.0.0.1:99999", "give the scheduler as tcp://HOST:PORT"),
+])
+def test_a_malformed_cluster_address_is_refused_at_once(address, fragment, tmp_path, capsys):
+    pytest.importorskip("distributed")
+    from compiler.cli import main
+    assert main([*SWEEP_ARGS, "--cluster", address, "-o", str(tmp_path / "sw")]) == 2
+    assert fragment in capsys.readouterr().err
+    assert not (tmp_path / "sw").exists()
+
+
+def test_nothing_listening_is_refused_at_once(tmp_path, capsys):
+    pytest.importorskip("distributed")
+    from compiler.cli import main
+    with socket.socket() as s:                      # a free port, closed again
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    t0 = time.monotonic()
+    assert main([*SWEEP_ARGS, "--cluster", f"tcp://127.0.0.1:{port}",
+                 "-o", str(tmp_path / "sw")]) == 2
+    assert time.monotonic() - t0 < 30
+    assert "Connection refused" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("value", ["0", "-1", "1e9", "nan"])
+def test_cluster_timeout_is_checked(value, tmp_path, capsys):
+    from compiler.cli import main
+    assert main([*SWEEP_ARGS, "--cluster", "tcp://127.0.0.1:1", "--cluster-timeout", value,
+                 "-o", str(tmp_path / "sw")]) == 2
+    assert "--cluster-timeout" in capsys.readouterr().err
