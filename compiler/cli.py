@@ -132,6 +132,9 @@ def _sweep_parser(sub) -> None:
                    "point (about ten more simulations per point)")
     w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
                    "the number of cores; 1 computes in this process)")
+    w.add_argument("--more-workers-than-cores", action="store_true", help="start as many local "
+                   "worker processes as --workers asks even when that is more than the cores "
+                   "(otherwise capped at the core count)")
     w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
                    "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
                    "pip install 'dotseq[dask]'")
@@ -408,13 +411,21 @@ def cmd_sweep(args) -> int:
     workers = args.workers if args.workers is not None else local_cores()
     if workers < 1:
         raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    capped = ""
+    if workers > local_cores() and not args.more_workers_than_cores:
+        capped = (f" (--workers {workers} capped at the {local_cores()} cores; "
+                  "--more-workers-than-cores starts them all)")
+        workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
-    where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
-             f"{workers} local processes")
+    if not cluster and 1 < plan.n_points < workers:
+        capped = f" (--workers {workers} capped at the {plan.n_points} points)"
+        workers = plan.n_points
+    where = (f"Dask cluster {cluster}" if cluster else "this process" + capped if workers == 1
+             else f"{workers} local processes" + capped)
     if not args.json:
         print("\n".join(plan_lines(plan, args.file, where)), flush=True)
 

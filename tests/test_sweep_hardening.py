@@ -202,3 +202,87 @@ def test_cluster_timeout_is_checked(value, tmp_path, capsys):
     assert main([*SWEEP_ARGS, "--cluster", "tcp://127.0.0.1:1", "--cluster-timeout", value,
                  "-o", str(tmp_path / "sw")]) == 2
     assert "--cluster-timeout" in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------- items 9 and 11: the state file
+
+def sweep_main(out: Path, *extra: str) -> int:
+    from compiler.cli import main
+    return main([*SWEEP_ARGS, "--workers", "1", "-o", str(out), *extra])
+
+
+def state_points(out: Path) -> int:
+    lines = (out / "points.jsonl").read_bytes().split(b"\n")
+    return sum(1 for ln in lines[1:] if ln.endswith(b"}"))
+
+
+@pytest.mark.parametrize("fail_at", [3, 12])     # a point line; the first table (after 1 + 10 lines)
+def test_a_full_disk_during_a_sweep_is_exit_2_and_keeps_the_points(fail_at, tmp_path, capsys,
+                                                                    monkeypatch):
+    """ENOSPC from the fsync of the ``fail_at``-th write (the state file's
+    header and points, then the tables): exit 2 naming the file, every point
+    finished before it kept, and --resume completes the sweep."""
+    import errno
+    import compiler.sweep.store as store
+    real, calls = store.os.fsync, []
+
+    def fsync(fd):
+        calls.append(fd)
+        if len(calls) == fail_at:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real(fd)
+    monkeypatch.setattr(store.os, "fsync", fsync)
+    out = tmp_path / "sw"
+    assert sweep_main(out) == 2
+    err = capsys.readouterr().err
+    assert "No space left on device" in err and "--resume" in err and "Traceback" not in err
+    named = "points.jsonl" if fail_at <= 11 else "sweep."
+    assert f"{out}" in err and named in err
+    kept = state_points(out)
+    assert kept >= min(fail_at - 2, 10)
+    monkeypatch.setattr(store.os, "fsync", real)
+    assert sweep_main(out, "--resume") == 0
+    assert state_points(out) == 10 and (out / "sweep.csv").exists()
+
+
+def test_a_deeply_nested_state_line_is_exit_2_naming_the_line(tmp_path, capsys):
+    out = tmp_path / "sw"
+    assert sweep_main(out) == 0
+    state = out / "points.jsonl"
+    lines = state.read_bytes().split(b"\n")
+    lines.insert(3, b"[" * 100_000 + b"]" * 100_000)
+    state.write_bytes(b"\n".join(lines))
+    before = state.read_bytes()
+    assert sweep_main(out, "--resume") == 2
+    err = capsys.readouterr().err
+    assert f"{state}:4:1" in err and "nested too deeply" in err and "Traceback" not in err
+    assert state.read_bytes() == before                 # the finished points are kept
+
+
+@pytest.mark.parametrize("content", [b"", b"\n\n  \n"])
+def test_an_empty_state_file_is_reported_as_empty(content, tmp_path, capsys):
+    out = tmp_path / "sw"
+    out.mkdir()
+    (out / "points.jsonl").write_bytes(content)
+    assert sweep_main(out, "--resume") == 2
+    err = capsys.readouterr().err
+    assert "the state file is empty" in err and "without --resume" in err
+    assert "no points.jsonl" not in err
+
+
+def test_workers_are_capped_at_the_cores_unless_asked(tmp_path, capsys, monkeypatch):
+    import compiler.sweep.execute as execute
+    import compiler.sweep.run as run
+    started = []
+    monkeypatch.setattr(execute, "local_cores", lambda: 2)
+    monkeypatch.setattr(run, "run_pool", lambda tasks, on_result, workers, fn:
+                        (started.append(workers), execute.run_serial(tasks, on_result, fn))[1])
+    from compiler.cli import main
+    assert main([*SWEEP_ARGS, "-o", str(tmp_path / "a"), "--workers", "1000"]) == 0
+    assert started == [2]
+    assert "--workers 1000 capped at the 2 cores" in capsys.readouterr().out
+    # asked explicitly: as many as asked, but never more than the points (10)
+    assert main([*SWEEP_ARGS, "-o", str(tmp_path / "b"), "--workers", "1000",
+                 "--more-workers-than-cores"]) == 0
+    assert started == [2, 10]
+    assert "capped at the 10 points" in capsys.readouterr().out
