@@ -201,9 +201,12 @@ def kill_run_at(seq: Path, out: Path, delay: float | None,
     status = None
     try:
         with os.fdopen(r, "rb") as err:
+            t = time.perf_counter()
             for line in err:
                 if line.startswith(b"simulating"):
                     break
+            else:                                   # it ended before simulating (refused)
+                return os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1]), time.perf_counter() - t
             t = time.perf_counter()
             end = t + (120 if delay is None else delay)
             while time.perf_counter() < end:
