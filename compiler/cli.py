@@ -422,7 +422,8 @@ def cmd_sweep(args) -> int:
                       budget=args.budget)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
     if not cluster and 1 < plan.n_points < workers:
-        capped = f" (--workers {workers} capped at the {plan.n_points} points)"
+        capped = (f" (--workers {workers} capped at the {plan.n_points} points)"
+                  if args.workers is not None else " (one per point)")
         workers = plan.n_points
     where = (f"Dask cluster {cluster}" if cluster else "this process" + capped if workers == 1
              else f"{workers} local processes" + capped)

@@ -20,7 +20,7 @@ import pytest
 
 from compiler.cli import main
 from compiler.export.runfolder import RUN_MARKER, UNKNOWN_OPTION, recover_run_folder
-from conftest import ROOT, SEQUENCES
+from conftest import SEQUENCES
 
 SEQ_A = SEQUENCES / "ramsey_single.dotseq"     # 5 runs
 SEQ_B = SEQUENCES / "cnot_pair.dotseq"
