@@ -544,3 +544,109 @@ def test_long_fuzz_run():
     summary = json.loads(r.stdout.strip().splitlines()[-1])
     assert r.returncode == 0 and summary["failures"] == 0, r.stdout[-5000:] + r.stderr[-5000:]
     assert summary["cases"] >= 20_000
+
+
+# ---------------------------------------------------------------- run-folder atomicity
+
+RUN_CONTENTS = ("absent", "empty", "own", "own+file", "own+changed-preview", "own-no-marker",
+                "user-only")
+RUN_FAULTS = ("none", "--run 99", "--nodes 0", "--memory-limit 1kB", "enospc-bundle",
+              "enospc-report", "interrupt-preview", "kill")
+
+
+@functools.lru_cache(maxsize=1)
+def _old_run_folder() -> tuple[Path, float]:
+    """One complete run folder of test_run_atomic.SEQ_A (made once per
+    process) and the seconds a forked run of SEQ_B takes from its first
+    simulation report to its end (the span the kills are spread over)."""
+    import contextlib
+    import io
+    import tempfile
+    from test_run_atomic import SEQ_A, SEQ_B, dotseq_run, kill_run_at
+    base = Path(tempfile.mkdtemp(prefix="dotseq-fuzz-run-"))
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+        assert dotseq_run(SEQ_A, base / "old") == 0
+    (base / "calibrate").mkdir()
+    code, tail = kill_run_at(SEQ_B, base / "calibrate" / "out", None)
+    assert code == 0
+    return base / "old", tail
+
+
+@settings(max_examples=max(N // 100, 3), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.one_of(st.sampled_from(RUN_CONTENTS[:3]), st.sampled_from(RUN_CONTENTS)),
+       st.one_of(st.just("kill"), st.sampled_from(RUN_FAULTS)),     # kills in about half the cases
+       st.floats(0.0, 1.2))
+def test_run_folder_atomicity(contents, fault, kill_at):
+    """`dotseq run` into a folder holding anything, with a bad argument, a
+    disk error, an interrupt or a SIGKILL at a random moment: afterwards
+    (and after the tidying the next run does) the folder holds the old
+    content byte for byte, or one complete new run; a refusal is exit 2."""
+    import contextlib
+    import errno
+    import io
+    import shutil
+    import tempfile
+    from unittest import mock
+    from compiler.cli import main
+    from test_run_atomic import (FAST, SEQ_B, check_after_kill, kill_run_at,
+                                 run_folder_sequence, snapshot)
+    old_run, tail = _old_run_folder()
+    with tempfile.TemporaryDirectory(prefix="dotseq-fuzz-case-") as d:
+        out = Path(d) / "out"
+        if contents.startswith("own"):
+            shutil.copytree(old_run, out)
+        elif contents != "absent":
+            out.mkdir()
+        if contents == "own+file":
+            (out / "notes.txt").write_text("a user's notes")
+        elif contents == "own+changed-preview":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        elif contents == "own-no-marker":
+            (out / "dotseq-run.json").unlink()
+        elif contents == "user-only":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        before = snapshot(out) if out.exists() else None
+        foreign = contents not in ("absent", "empty", "own")
+        if fault == "kill":
+            code, _ = kill_run_at(SEQ_B, out, kill_at * tail)
+            if foreign:
+                assert code == 2 and (snapshot(out) == before)
+                outcome = "refused"
+            else:
+                outcome = check_after_kill(out, before, SEQ_B)
+                if contents == "empty" and outcome == "old":
+                    outcome = "old (empty)"
+            COUNTS[f"run: kill, {outcome}"] += 1
+            return
+        argv = ["run", str(SEQ_B), "-o", str(out), *FAST]
+        patches = []
+        if fault.startswith("--"):
+            argv += fault.split()
+        elif fault.startswith("enospc"):
+            where = fault.split("-")[1]
+            mod = "compiler.export.write_bundle" if where == "bundle" else \
+                "compiler.report.write_report"
+            patches.append(mock.patch(mod, side_effect=OSError(errno.ENOSPC,
+                                                               "No space left on device")))
+        elif fault == "interrupt-preview":
+            patches.append(mock.patch("compiler.preview.preview", side_effect=KeyboardInterrupt))
+        err = io.StringIO()
+        with contextlib.ExitStack() as stack:
+            for p in patches:
+                stack.enter_context(p)
+            stack.enter_context(contextlib.redirect_stdout(io.StringIO()))
+            stack.enter_context(contextlib.redirect_stderr(err))
+            code = main(argv)
+        assert "Traceback" not in err.getvalue()
+        if foreign or fault != "none":
+            assert code == (130 if fault == "interrupt-preview" and not foreign else 2), \
+                err.getvalue()
+            assert (snapshot(out) if out.exists() else None) == before
+            assert sorted(p.name for p in out.parent.iterdir()) == (["out"] if before is not None
+                                                                    else [])
+            COUNTS["run: refused or failed, old kept"] += 1
+        else:
+            assert code == 0, err.getvalue()
+            assert run_folder_sequence(out) == str(SEQ_B)
+            COUNTS["run: new"] += 1
