@@ -7,19 +7,24 @@ The default run tries a few hundred examples per property; the long run
 sets ``DOTSEQ_FUZZ_EXAMPLES`` before importing this module.
 """
 
+import functools
 import os
 import signal
 from collections import Counter
 from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
 import pytest
 import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
+from compiler import limits, load
 from compiler.check import check
 from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
-from compiler.errors import DeviceError, DotseqError
+from compiler.device.model import MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH
+from compiler.errors import DeviceError, DotseqError, SynthesisError
+from compiler.export.files import CODES_DTYPE, checked_cast
 from compiler.expand import expand
 from compiler.parse import parse_text
 from compiler.schedule import schedule
@@ -247,6 +252,263 @@ def test_every_device_seed_loads_and_compiles():
         assert run_device(text) == "device ok, then ok"
 
 
+# ---------------------------------------------------------------- generator limits
+
+# A two-dot device whose channel keys the two properties below fill in:
+# {mw}, {P_A}, {P_B}, {B_AB}, {M1} are extra keys of each channel (padding),
+# {bits_*} and {range_*} the DAC widths and ranges.  The barrier pulses to
+# 250 mV during a sqrtswap, the plungers idle at 0 V, the I/Q line plays bursts.
+LIMITS_DEVICE = """name: limits
+field: 250 mT
+temperature: 40 mK
+rotation: {{mode: duration, shape: gauss, duration: 24 ns}}
+readout: {{marker: M1, duration: 100 ns}}
+dots:
+  A: {{preset: gaas, g: -0.44, drive: {{line: mw, rabi_per_volt: 40 MHz/V}}, plunger: P_A}}
+  B: {{preset: gaas, g: -0.40, drive: {{line: mw, rabi_per_volt: 40 MHz/V}}, plunger: P_B}}
+couplings:
+  - {{dots: [A, B], barrier: B_AB, exchange: {{model: exponential, j0: 200 kHz, v0: 40 mV}},
+     idle_voltage: 0 mV, pulse_voltage: 250 mV}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: {bits_mw}, range: {range_mw}, lo: 1.5 GHz,
+       if_band: [-300 MHz, 300 MHz]{mw}}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_P_A}, range: {range_P_A}{P_A}}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_P_B}, range: {range_P_B}{P_B}}}
+  B_AB: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_B_AB}, range: {range_B_AB}{B_AB}}}
+  M1: {{kind: marker, sample_rate: 1 GS/s{M1}}}
+"""
+LIMITS_ANALOG = ("mw", "P_A", "P_B", "B_AB")
+LIMITS_CHANNELS = LIMITS_ANALOG + ("M1",)
+LIMITS_STEPS = "rot A x 90 deg\nsqrtswap A B\nrot B y 45 deg\nwait 30 ns\nread A B\n"
+# what the padding property lets synthesis take: below it, the estimate made
+# before synthesis (padding included) must refuse
+LIMITS_MEMORY = 64 * 2 ** 20
+# integers as YAML may spell them, from plausible to absurd
+PAD_TEXT = st.one_of(
+    st.integers(1, 5000).map(str), st.integers(1, 2 ** 20).map(str),
+    st.integers(-3, 2 ** 70).map(str),
+    st.integers(0, 40).map(lambda k: str(2 ** k)),
+    st.integers(0, 40).map(lambda k: str(2 ** k + 1)),
+    st.sampled_from(["0", "1", "16", "64", "100000000", "1000000000", "1.0e+9", "1.0e+300",
+                     "16777216", "16777217", "65536", "65537", "65521", "65519", "2.5", "-1",
+                     ".inf", ".nan", "1_000_000", "0x1000000", "true", "~", "[1]", "9" * 40]))
+BITS_TEXT = st.one_of(st.integers(1, MAX_BITS).map(str), st.integers(1, MAX_BITS).map(str),
+                      st.integers(-2, 70).map(str),
+                      st.sampled_from(["8", "12", "14", "16", "17", "20", "24", "25", "31", "32",
+                                       "33", "64", "16.0", "1.0e+1", "0x10", "24.5", ".nan", "~"]))
+RANGE_TEXT = st.tuples(st.sampled_from(["-1 V", "-500 mV", "-300 mV", "-2 mV", "-1 uV", "0 V"]),
+                       st.sampled_from(["1 V", "500 mV", "300 mV", "251 mV", "3 mV", "1 uV"])
+                       ).map(lambda p: f"[{p[0]}, {p[1]}]")
+
+
+def limits_device(pads: dict | None = None, bits: dict | None = None,
+                  ranges: dict | None = None) -> str:
+    keys = {name: "" for name in LIMITS_CHANNELS}
+    for name, (minlen, gran) in (pads or {}).items():
+        keys[name] = ((f", min_length: {minlen}" if minlen is not None else "")
+                      + (f", granularity: {gran}" if gran is not None else ""))
+    for name in LIMITS_ANALOG:
+        keys[f"bits_{name}"] = (bits or {}).get(name, "14" if name == "mw" else "16")
+        keys[f"range_{name}"] = (ranges or {}).get(name, "[-1 V, 1 V]")
+    return LIMITS_DEVICE.format(**keys)
+
+
+def limits_outcome(text: str, check_waveforms) -> str:
+    """Load the device, refuse or compile LIMITS_STEPS against it with the
+    memory estimate (padding included) checked first, then
+    ``check_waveforms(device, timeline, waveforms)``; the outcome."""
+    with time_limit(CASE_SECONDS):
+        try:
+            dev = load_device_text(text, "limits.yaml")
+        except DeviceError as e:
+            assert_own_error(e, "limits.yaml")
+            return "device error"
+        try:
+            ex = expand(parse_text(LIMITS_STEPS, "steps.dotseq"))
+            check(ex, dev)
+            tl = schedule(ex.runs[0], dev)
+            n = dev.padded_samples(tl.n_samples)
+            n_outputs = sum(2 if c.kind == "iq" else 1 for c in dev.channels.values())
+            try:
+                limits.check_synthesis_size(n, n_outputs, LIMITS_MEMORY, file="steps.dotseq")
+            except SynthesisError as e:
+                assert "would need about" in e.first.message and f"{n} samples" in e.first.message
+                return "refused by the memory estimate"
+            wf = synthesize(tl, dev)
+        except DotseqError as e:
+            assert_own_error(e, "steps.dotseq", "limits.yaml")
+            return e.stage
+        assert wf.n_samples == n, (wf.n_samples, n)    # the estimate is what synthesis makes
+        check_waveforms(dev, tl, wf)
+        return "ok"
+
+
+def _padding_ok(dev, tl, wf) -> None:
+    assert dev.min_length <= MAX_MIN_LENGTH and dev.granularity <= MAX_GRANULARITY
+    assert wf.n_samples >= max(tl.n_samples, dev.min_length)
+    assert wf.n_samples % dev.granularity == 0
+    assert wf.n_samples < max(tl.n_samples, dev.min_length) + dev.granularity
+
+
+def _codes_ok(dev, tl, wf) -> None:
+    """Every code is within the channel's width, held by its type and by the
+    bundle's int32, and decodes to within half an LSB of the intended level."""
+    for name, out in wf.outputs.items():
+        if out.codes is None:
+            continue
+        ch = dev.channels[out.channel]
+        codes = np.asarray(out.codes)
+        assert codes.dtype.kind == "u" and np.iinfo(codes.dtype).max >= 2 ** ch.bits - 1, name
+        wide = codes.astype(np.int64)
+        assert wide.min() >= 0 and wide.max() <= 2 ** ch.bits - 1, name
+        assert np.array_equal(checked_cast(codes, CODES_DTYPE).astype(np.int64), wide), name
+        q = (ch.v_max - ch.v_min) / 2 ** ch.bits
+        decoded = ch.v_min + wide * q
+        scale = max(abs(ch.v_min), abs(ch.v_max))
+        err = np.abs(decoded - np.asarray(out.ideal))
+        assert err.max() <= q / 2 * (1 + 1e-9) + 1e-15 * scale, (name, ch.bits, err.max(), q)
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(LIMITS_CHANNELS),
+                       st.tuples(st.none() | PAD_TEXT, st.none() | PAD_TEXT), max_size=5))
+def test_padding_keys(pads):
+    """Random min_length and granularity values, up to absurd ones: refused
+    at the key with a position, refused by the memory estimate (which counts
+    the padding) before synthesis, or compiled to exactly the estimated
+    length; never gigabytes, never a crash."""
+    outcome = "padding: " + limits_outcome(limits_device(pads=pads), _padding_ok)
+    COUNTS[outcome] += 1
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(LIMITS_ANALOG), BITS_TEXT, max_size=4),
+       st.dictionaries(st.sampled_from(LIMITS_ANALOG), RANGE_TEXT, max_size=4))
+def test_code_widths(bits, ranges):
+    """Random DAC widths and ranges on the I/Q line and the gates: refused at
+    the bits key with a position, or compiled with every code inside the
+    width (never wrapped) and decoding to within half an LSB of the level
+    intended."""
+    outcome = "code widths: " + limits_outcome(limits_device(bits=bits, ranges=ranges),
+                                               _codes_ok)
+    COUNTS[outcome] += 1
+
+
+def test_limits_device_compiles_as_written():
+    """The template of the two properties above is valid at every width
+    dotseq accepts, so their random cases start from a working file."""
+    assert limits_outcome(limits_device(), _codes_ok) == "ok"
+    for b in (1, 8, 16, 17, MAX_BITS):
+        widths = {name: str(b) for name in LIMITS_ANALOG}
+        assert limits_outcome(limits_device(bits=widths), _codes_ok) in ("ok", "synthesis")
+    assert limits_outcome(limits_device(bits={"P_A": str(MAX_BITS)}), _codes_ok) == "ok"
+    assert limits_outcome(limits_device(pads={"M1": ("100000", "48")}), _padding_ok) == "ok"
+    assert limits_outcome(limits_device(pads={"P_A": ("16777216", None)}), _padding_ok) \
+        == "refused by the memory estimate"
+# ---------------------------------------------------------------- special files
+
+SPECIAL_KINDS = ("/dev/zero", "/dev/null", "fifo", "folder", "link-loop", "/proc/self/environ",
+                 "link-to-zero", "sparse-huge", "socket")
+SPECIAL_ROLES = ("sequence", "include", "nested-include", "device", "--device")
+SPECIAL_MEMORY = 1 << 30     # address space a case may add: an unbounded read fails, not the machine
+
+
+@functools.lru_cache(maxsize=1)
+def special_dir() -> Path:
+    """A folder holding one of each special file (made once, removed at exit)."""
+    import atexit
+    import shutil
+    import socket
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-special-"))
+    atexit.register(shutil.rmtree, d, True)
+    os.mkfifo(d / "fifo")
+    (d / "folder").mkdir()
+    (d / "link-loop").symlink_to(d / "link-loop-2")
+    (d / "link-loop-2").symlink_to(d / "link-loop")
+    (d / "link-to-zero").symlink_to("/dev/zero")
+    with open(d / "sparse-huge", "wb") as f:     # 100 GB on paper, nothing on disk
+        f.truncate(100 << 30)
+    s = socket.socket(socket.AF_UNIX)
+    s.bind(str(d / "socket"))
+    s.close()
+    return d
+
+
+@contextmanager
+def address_space_cap(extra: int):
+    """Limit this process's address space to what it has now plus ``extra``
+    bytes while the block runs (a runaway read raises MemoryError)."""
+    import resource
+    with open("/proc/self/status") as f:
+        size = next(int(line.split()[1]) * 1024 for line in f if line.startswith("VmSize:"))
+    old = resource.getrlimit(resource.RLIMIT_AS)
+    cap = size + extra if old[1] == resource.RLIM_INFINITY else min(size + extra, old[1])
+    resource.setrlimit(resource.RLIMIT_AS, (cap, old[1]))
+    try:
+        yield
+    finally:
+        resource.setrlimit(resource.RLIMIT_AS, old)
+
+
+@settings(max_examples=max(N // 30, 60), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(SPECIAL_KINDS), st.sampled_from(SPECIAL_ROLES), st.booleans())
+def test_special_files(kind, role, relative):
+    """Sequence, include, device statement and --device pointing at the zero
+    device, the null device, a FIFO, a folder, a link loop, a process's
+    environment, a 100 GB sparse file or a socket: always dotseq's own error
+    naming the path as written, within the case time limit and 1 GiB more
+    address space, never a byte of the file shown."""
+    d = special_dir()
+    target = str(d / kind) if not kind.startswith("/") else kind
+    written = kind if relative and not kind.startswith("/") else target
+    with tempfile_dir() as work:
+        if relative and kind == "link-loop":     # a loop of its own beside the sequence
+            (work / "link-loop").symlink_to(work / "link-loop-2")
+            (work / "link-loop-2").symlink_to(work / "link-loop")
+        elif relative and not kind.startswith("/"):
+            (work / kind).symlink_to(d / kind)
+        seq = work / "s.dotseq"
+        device = None
+        if role == "sequence":
+            seq = Path(written) if not relative or kind.startswith("/") else work / written
+        elif role == "include":
+            seq.write_text(f'rot A x 90 deg\ninclude "{written}"\n', encoding="utf-8")
+        elif role == "nested-include":
+            (work / "mid.dotseq").write_text(f'include "{written}"\n', encoding="utf-8")
+            seq.write_text('rot A x 90 deg\ninclude "mid.dotseq"\n', encoding="utf-8")
+        elif role == "device":
+            seq.write_text(f'device "{written}"\nrot A x 90 deg\n', encoding="utf-8")
+        else:
+            seq.write_text("rot A x 90 deg\n", encoding="utf-8")
+            device = written if not relative or kind.startswith("/") else str(work / written)
+        with time_limit(CASE_SECONDS), address_space_cap(SPECIAL_MEMORY):
+            try:
+                load(seq, device)
+            except DotseqError as e:
+                text = e.render()
+                outcome = f"special {e.stage}"
+            else:
+                raise AssertionError(f"{kind} as {role} was read as input")
+    assert written in text, text
+    assert "SHELL=" not in text and "PATH=" not in text and "\x00" not in text, text
+    COUNTS[outcome] += 1
+
+
+@contextmanager
+def tempfile_dir():
+    import shutil
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-case-"))
+    try:
+        yield d
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
+
+
 # ---------------------------------------------------------------- failures found, kept
 
 def test_long_operator_chain_is_an_error_not_a_crash():
@@ -282,3 +544,109 @@ def test_long_fuzz_run():
     summary = json.loads(r.stdout.strip().splitlines()[-1])
     assert r.returncode == 0 and summary["failures"] == 0, r.stdout[-5000:] + r.stderr[-5000:]
     assert summary["cases"] >= 20_000
+
+
+# ---------------------------------------------------------------- run-folder atomicity
+
+RUN_CONTENTS = ("absent", "empty", "own", "own+file", "own+changed-preview", "own-no-marker",
+                "user-only")
+RUN_FAULTS = ("none", "--run 99", "--nodes 0", "--memory-limit 1kB", "enospc-bundle",
+              "enospc-report", "interrupt-preview", "kill")
+
+
+@functools.lru_cache(maxsize=1)
+def _old_run_folder() -> tuple[Path, float]:
+    """One complete run folder of test_run_atomic.SEQ_A (made once per
+    process) and the seconds a forked run of SEQ_B takes from its first
+    simulation report to its end (the span the kills are spread over)."""
+    import contextlib
+    import io
+    import tempfile
+    from test_run_atomic import SEQ_A, SEQ_B, dotseq_run, kill_run_at
+    base = Path(tempfile.mkdtemp(prefix="dotseq-fuzz-run-"))
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+        assert dotseq_run(SEQ_A, base / "old") == 0
+    (base / "calibrate").mkdir()
+    code, tail = kill_run_at(SEQ_B, base / "calibrate" / "out", None)
+    assert code == 0
+    return base / "old", tail
+
+
+@settings(max_examples=max(N // 100, 3), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.one_of(st.sampled_from(RUN_CONTENTS[:3]), st.sampled_from(RUN_CONTENTS)),
+       st.one_of(st.just("kill"), st.sampled_from(RUN_FAULTS)),     # kills in about half the cases
+       st.floats(0.0, 1.2))
+def test_run_folder_atomicity(contents, fault, kill_at):
+    """`dotseq run` into a folder holding anything, with a bad argument, a
+    disk error, an interrupt or a SIGKILL at a random moment: afterwards
+    (and after the tidying the next run does) the folder holds the old
+    content byte for byte, or one complete new run; a refusal is exit 2."""
+    import contextlib
+    import errno
+    import io
+    import shutil
+    import tempfile
+    from unittest import mock
+    from compiler.cli import main
+    from test_run_atomic import (FAST, SEQ_B, check_after_kill, kill_run_at,
+                                 run_folder_sequence, snapshot)
+    old_run, tail = _old_run_folder()
+    with tempfile.TemporaryDirectory(prefix="dotseq-fuzz-case-") as d:
+        out = Path(d) / "out"
+        if contents.startswith("own"):
+            shutil.copytree(old_run, out)
+        elif contents != "absent":
+            out.mkdir()
+        if contents == "own+file":
+            (out / "notes.txt").write_text("a user's notes")
+        elif contents == "own+changed-preview":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        elif contents == "own-no-marker":
+            (out / "dotseq-run.json").unlink()
+        elif contents == "user-only":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        before = snapshot(out) if out.exists() else None
+        foreign = contents not in ("absent", "empty", "own")
+        if fault == "kill":
+            code, _ = kill_run_at(SEQ_B, out, kill_at * tail)
+            if foreign:
+                assert code == 2 and (snapshot(out) == before)
+                outcome = "refused"
+            else:
+                outcome = check_after_kill(out, before, SEQ_B)
+                if contents == "empty" and outcome == "old":
+                    outcome = "old (empty)"
+            COUNTS[f"run: kill, {outcome}"] += 1
+            return
+        argv = ["run", str(SEQ_B), "-o", str(out), *FAST]
+        patches = []
+        if fault.startswith("--"):
+            argv += fault.split()
+        elif fault.startswith("enospc"):
+            where = fault.split("-")[1]
+            mod = "compiler.export.write_bundle" if where == "bundle" else \
+                "compiler.report.write_report"
+            patches.append(mock.patch(mod, side_effect=OSError(errno.ENOSPC,
+                                                               "No space left on device")))
+        elif fault == "interrupt-preview":
+            patches.append(mock.patch("compiler.preview.preview", side_effect=KeyboardInterrupt))
+        err = io.StringIO()
+        with contextlib.ExitStack() as stack:
+            for p in patches:
+                stack.enter_context(p)
+            stack.enter_context(contextlib.redirect_stdout(io.StringIO()))
+            stack.enter_context(contextlib.redirect_stderr(err))
+            code = main(argv)
+        assert "Traceback" not in err.getvalue()
+        if foreign or fault != "none":
+            assert code == (130 if fault == "interrupt-preview" and not foreign else 2), \
+                err.getvalue()
+            assert (snapshot(out) if out.exists() else None) == before
+            assert sorted(p.name for p in out.parent.iterdir()) == (["out"] if before is not None
+                                                                    else [])
+            COUNTS["run: refused or failed, old kept"] += 1
+        else:
+            assert code == 0, err.getvalue()
+            assert run_folder_sequence(out) == str(SEQ_B)
+            COUNTS["run: new"] += 1

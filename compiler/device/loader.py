@@ -26,11 +26,12 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
 from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
-                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_quantity,
+                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
+                     format_quantity,
                      parse_quantity)
 from . import exchange as xch
-from .model import (Channel, Coupling, Device, Dot, Drive, ExchangeModel, Readout,
-                    RotationDefaults)
+from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
+                    Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
 from .presets import PRESETS
 
 # --------------------------------------------------------------------- schema
@@ -87,6 +88,13 @@ _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 # A device description is a few kilobytes; far larger input is refused before
 # the (pure-Python, slow) YAML composer sees it.
 MAX_DEVICE_CHARS = 1_000_000
+
+# Why the channel's integers are bounded (model.MAX_BITS etc.; docs/device.md).
+BITS_HINT = (f"give the DAC's real width: generators have 8 to 16 bits, precision DC sources up "
+             f"to 20; dotseq stores codes of at most {MAX_BITS} bits")
+MIN_LENGTH_HINT = ("a generator's minimum waveform length is tens to thousands of samples; to "
+                   "make runs longer, end the sequence with a 'wait'")
+GRANULARITY_HINT = "a generator's length granularity is a few samples (1 to 64 is typical)"
 
 # Thresholds of the (non-fatal) warnings.
 IDLE_EXCHANGE_RATIO = 1e-2     # J(idle)/J(pulse) above this is worth a warning
@@ -270,15 +278,16 @@ class _Reader:
             self.fail(node, f"{path} must not be zero")
         return x
 
-    def integer(self, node: Node, path: str, lo: int, hi: int | None = None) -> int:
+    def integer(self, node: Node, path: str, lo: int, hi: int | None = None,
+                hint: str = "") -> int:
         value = self.scalar(node, path, str(lo))
         if isinstance(value, bool) or not isinstance(value, (int, float)) or (
                 isinstance(value, float) and not (math.isfinite(value) and value.is_integer())):
             self.fail(node, f"{path} must be a whole number, got '{node.value}'")
         n = int(value)
         if n < lo or (hi is not None and n > hi):
-            rng = f"from {lo} to {hi}" if hi is not None else f"at least {lo}"
-            self.fail(node, f"{path} must be {rng}, got {n}")
+            rng = f"from {lo} to {hi:,}" if hi is not None else f"at least {lo}"
+            self.fail(node, f"{path} must be {rng}, got {n:,}", hint)
         return n
 
     def pair(self, node: Node, path: str, dim: Dim, bare_zero: bool = False
@@ -350,7 +359,7 @@ def _read_channels(r: _Reader, node: Node, anchor: Node) -> dict[str, tuple[Chan
 def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     n_before = len(r.problems.problems)
     fs = r.get(m, "sample_rate", r.quantity, f"{path}.sample_rate", FREQUENCY, positive=True)
-    bits = r.get(m, "bits", r.integer, f"{path}.bits", 1, 32)
+    bits = r.get(m, "bits", r.integer, f"{path}.bits", 1, MAX_BITS, BITS_HINT)
     rng = r.get(m, "range", r.pair, f"{path}.range", VOLTAGE, True)
     rise = r.get(m, "rise_time", r.quantity, f"{path}.rise_time", TIME, nonnegative=True,
                  bare_zero=True)
@@ -358,8 +367,10 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     if "rise_time" in m and "bandwidth" in m:
         r.error(m["bandwidth"][0], f"{path} gives both rise_time and bandwidth",
                 "give one: the other follows from t_rise = 0.35/bandwidth")
-    minlen = r.get(m, "min_length", r.integer, f"{path}.min_length", 1)
-    gran = r.get(m, "granularity", r.integer, f"{path}.granularity", 1)
+    minlen = r.get(m, "min_length", r.integer, f"{path}.min_length", 1, MAX_MIN_LENGTH,
+                   MIN_LENGTH_HINT)
+    gran = r.get(m, "granularity", r.integer, f"{path}.granularity", 1, MAX_GRANULARITY,
+                 GRANULARITY_HINT)
     tee = r.get(m, "bias_tee", r.quantity, f"{path}.bias_tee", TIME, nonnegative=True,
                 bare_zero=True)
     lo = r.get(m, "lo", r.quantity, f"{path}.lo", FREQUENCY, positive=True)
@@ -367,9 +378,9 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     if fs is not None and band is not None:
         edge = max(abs(band.value[0].value), abs(band.value[1].value))
         if not edge < fs.value / 2:
-            r.error(band.node, f"{path}.if_band reaches {format_quantity(edge, FREQUENCY)}, "
-                               f"not below the Nyquist frequency "
-                               f"{format_quantity(fs.value / 2, FREQUENCY)} "
+            shown = format_distinct(edge, fs.value / 2, FREQUENCY)
+            r.error(band.node, f"{path}.if_band reaches {shown[0]}, "
+                               f"not below the Nyquist frequency {shown[1]} "
                                f"(half of sample_rate {m['sample_rate'][1].value})",
                     "narrow the IF band or raise the sample rate: |IF| < sample_rate/2")
     if len(r.problems.problems) > n_before:
@@ -429,12 +440,13 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
     # coherence: T2* <= T2 <= 2 T1 (Bloch relaxation; common practice, no source)
     t1, t2, t2s = values.get("t1"), values.get("t2"), values.get("t2_star")
     if t1 is not None and t2 is not None and t2.value > 2 * t1.value * (1 + 1e-12):
-        r.error(t2.node, f"{path}.t2 = {format_quantity(t2.value, TIME)} is longer than "
-                         f"2·T1 = {format_quantity(2 * t1.value, TIME)}",
+        shown = format_distinct(t2.value, 2 * t1.value, TIME)
+        r.error(t2.node, f"{path}.t2 = {shown[0]} is longer than 2·T1 = {shown[1]}",
                 "T2 cannot exceed 2·T1: check the units of t1 and t2")
     if t2 is not None and t2s is not None and t2s.value > t2.value * (1 + 1e-12):
-        r.error(t2s.node, f"{path}.t2_star = {format_quantity(t2s.value, TIME)} is longer "
-                          f"than the Hahn-echo T2 = {format_quantity(t2.value, TIME)}",
+        shown = format_distinct(t2s.value, t2.value, TIME)
+        r.error(t2s.node, f"{path}.t2_star = {shown[0]} is longer "
+                          f"than the Hahn-echo T2 = {shown[1]}",
                 "an echo only removes dephasing, so T2* ≤ T2")
     drive = None
     if "drive" in m:
@@ -514,9 +526,9 @@ def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
         eps = r.get(m, "detuning", _energy_or_freq, r, f"{path}.detuning")
         eps_v = eps.value if eps else 0.0
         if u is not None and eps is not None and not abs(eps_v) < u.value:
-            r.error(eps.node, f"{path}.detuning |ε| = {format_quantity(abs(eps_v), FREQUENCY)}"
-                              f" (as ε/h) is not below the charging energy U/h = "
-                              f"{format_quantity(u.value, FREQUENCY)}",
+            shown = format_distinct(abs(eps_v), u.value, FREQUENCY)
+            r.error(eps.node, f"{path}.detuning |ε| = {shown[0]}"
+                              f" (as ε/h) is not below the charging energy U/h = {shown[1]}",
                     "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
                     "charge moves to one dot)")
             return None
@@ -735,8 +747,13 @@ def _need_channel(r: _Reader, channels: dict, ref: _Val, path: str, kind: str) -
 
 def _build(r: _Reader, root: Node) -> Device:
     if not isinstance(root, MappingNode):
-        r.fail(root, f"a device file must be a mapping of 'key: value' lines at the top, "
-                     f"got {_kind_of(root)}", "start with 'name: ...', 'field: ...'")
+        # not a device file at all (perhaps some other file): neither its text
+        # nor its first line is shown
+        got = "plain text" if isinstance(root, ScalarNode) and root.value else _kind_of(root)
+        r.problems.add(f"this is not a device file: a device file must be a mapping of "
+                       f"'key: value' lines at the top, got {got}", r.span(root),
+                       "check the path; a device file starts with 'name: ...', 'field: ...'")
+        raise _Skip
     top = r.mapping(root, "the device file", TOP_REQUIRED + TOP_OPTIONAL, TOP_REQUIRED)
     name = r.get(top, "name", r.text, "name")
     notes = r.get(top, "notes", r.text, "notes")
@@ -747,15 +764,28 @@ def _build(r: _Reader, root: Node) -> Device:
     raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
         if "channels" in top else {}
     channels = {nm: Channel(**ch) for nm, (ch, _) in raw_channels.items()}
+    # the run length is a multiple of every channel's granularity: their
+    # common multiple must stay as bounded as each one
+    upto = 1
+    for nm, (ch, nodes) in raw_channels.items():
+        upto = granularity_of((upto, channels[nm].granularity))
+        if "granularity" in nodes:
+            if upto > MAX_GRANULARITY:
+                r.error(nodes["granularity"][1],
+                        f"channels.{nm}.granularity {ch['granularity']:,} with the granularities of "
+                        f"the channels before it asks for runs in multiples of {upto:,} samples, "
+                        f"above {MAX_GRANULARITY:,}", "give the channels granularities that divide "
+                        "one another (e.g. 16 and 32)")
+                break
     # one sample grid for the whole device: the compiler places every step on it
     if channels:
         first = next(iter(channels.values()))
         for nm, (ch, nodes) in raw_channels.items():
             if ch["sample_rate"] and first.sample_rate and ch["sample_rate"] != first.sample_rate:
                 node = nodes["sample_rate"][1] if "sample_rate" in nodes else nodes.get("kind", (root,))[0]
-                r.error(node, f"channels.{nm}.sample_rate is {format_quantity(ch['sample_rate'], FREQUENCY)} "
-                              f"but channel '{first.name}' runs at "
-                              f"{format_quantity(first.sample_rate, FREQUENCY)}",
+                shown = format_distinct(ch["sample_rate"], first.sample_rate, FREQUENCY)
+                r.error(node, f"channels.{nm}.sample_rate is {shown[0]} "
+                              f"but channel '{first.name}' runs at {shown[1]}",
                         "all channels of a device must share one sample rate (mixed rates are not "
                         "supported)")
 
@@ -824,8 +854,9 @@ def _build(r: _Reader, root: Node) -> Device:
             if full > RWA_RATIO * f_l:
                 r.warn(d["drive"]["rabi"].node,
                        f"{path}.drive: Rabi frequency at full scale "
-                       f"{format_quantity(full, FREQUENCY)} exceeds "
-                       f"{RWA_RATIO:g}·f_L = {format_quantity(RWA_RATIO * f_l, FREQUENCY)}",
+                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[0]} exceeds "
+                       f"{RWA_RATIO:g}·f_L = "
+                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[1]}",
                        "the rotating-wave approximation becomes doubtful at strong drive")
             if temp is not None and physics.H * f_l < THERMAL_RATIO * physics.K_B * temp.value:
                 r.warn(d["node"], f"{path}: Zeeman energy h·f_L = h·{format_quantity(f_l, FREQUENCY)}"
@@ -969,6 +1000,30 @@ def _yaml_problem(exc: yaml.YAMLError, text: str, file: str) -> Problem:
     return Problem(msg, Span(file, line, col, line, col + 1), hint, src)
 
 
+def _refuse_surrogates(r: _Reader, root: Node) -> None:
+    """A YAML escape such as "\\udc80" makes a lone surrogate: no character,
+    it cannot be printed or written as UTF-8.  Refused at its position."""
+    todo, bad = [root], False
+    while todo:             # no recursion: the tree may be deep
+        node = todo.pop()
+        if isinstance(node, ScalarNode):
+            if isinstance(node.value, str) and _SURROGATE.search(node.value):
+                r.error(node, "this string holds a lone surrogate escape (\\ud800 to \\udfff): "
+                        "not a character, it cannot be printed or saved",
+                        "write the character itself, or a \\U escape of a real character")
+                bad = True
+        elif isinstance(node, SequenceNode):
+            todo.extend(reversed(node.value))
+        elif isinstance(node, MappingNode):
+            for k, v in reversed(node.value):
+                todo.extend((v, k))
+    if bad:
+        raise _Skip
+
+
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
 def load_device_text(text: str, path: str = "<string>") -> Device:
     """Read a device description from YAML text.
 
@@ -1011,6 +1066,7 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
                           "'dots:', 'channels:'")
     r = _Reader(text, path)
     try:
+        _refuse_surrogates(r, root)
         return _build(r, root)
     except _Skip:
         pass
@@ -1019,13 +1075,18 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
     raise DeviceError(problems)
 
 
-def load_device(path: str | Path) -> Device:
+def load_device(path: str | Path, *, statement: Span | None = None) -> Device:
     """Read a device description file.
 
     Parameters
     ----------
     path : str or pathlib.Path
-        YAML file, UTF-8.
+        YAML file, UTF-8; a regular file (not a folder, pipe, device or a
+        system file under /proc, /sys, /dev) of at most 4 bytes per character
+        of ``MAX_DEVICE_CHARS``, read no further than that.
+    statement : Span, optional
+        The ``device "..."`` statement that named the file: errors reading it
+        point there.
 
     Returns
     -------
@@ -1034,26 +1095,26 @@ def load_device(path: str | Path) -> Device:
     Raises
     ------
     DeviceError
-        The file cannot be read (missing, a directory, not UTF-8) or its
-        content is wrong; every problem is positioned in the file.
+        The file cannot be read (missing, not a regular file, too large, not
+        UTF-8) or its content is wrong; every problem is positioned.
     """
-    p = Path(path)
-    where = Span(str(path), 0, 0, 0, 0)
+    from ..errors import read_source_line
+    from ..source import Oversize, Unreadable, read_capped
+    where = statement or Span(str(path), 0, 0, 0, 0)
+    shown = read_source_line(where.file, where.line) if statement else ""
     try:
-        size = p.stat().st_size
-        if size > 4 * MAX_DEVICE_CHARS and not p.is_dir():     # UTF-8: <= 4 bytes a character
-            raise DeviceError(f"cannot read device file '{path}': it is {size:,} bytes; a device "
-                              f"description is at most {MAX_DEVICE_CHARS:,} characters", where,
-                              "check the path: this does not look like a device file")
-        data = p.read_bytes()
-    except IsADirectoryError:
-        raise DeviceError(f"cannot read device file '{path}': it is a directory", where) from None
-    except FileNotFoundError:
-        raise DeviceError(f"cannot read device file '{path}': no such file", where,
-                          "check the path; bundled devices live in sequences/devices/") from None
-    except OSError as exc:
-        raise DeviceError(f"cannot read device file '{path}': {exc.strerror or exc}",
-                          where) from None
+        data = read_capped(path, 4 * MAX_DEVICE_CHARS)   # UTF-8: <= 4 bytes a character
+    except Unreadable as exc:
+        hint = exc.hint
+        if exc.reason == "no such file":
+            hint = "check the path; bundled devices live in sequences/devices/"
+        raise DeviceError(f"cannot read device file '{path}': {exc.reason}", where, hint,
+                          shown) from None
+    except Oversize as exc:
+        raise DeviceError(f"cannot read device file '{path}': it holds more than "
+                          f"{exc.limit:,} bytes; a device description is at most "
+                          f"{MAX_DEVICE_CHARS:,} characters", where,
+                          "check the path: this does not look like a device file", shown) from None
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:

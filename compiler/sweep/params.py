@@ -33,7 +33,7 @@ from ..parse import tree as T
 from ..physics import H as PLANCK, K_B, larmor_frequency
 from ..program import Expanded
 from ..units import (BASES, FIELD, FREQ_PER_VOLT, FREQUENCY, NONE, TEMPERATURE, TIME, VOLTAGE,
-                     Dim, format_quantity)
+                     Dim, format_distinct, format_quantity)
 
 DOT_ATTRS = {"g": (NONE, "g-factor"), "t1": (TIME, "relaxation time T1"),
              "t2": (TIME, "Hahn-echo T2"), "t2_star": (TIME, "Ramsey T2*"),
@@ -193,6 +193,11 @@ def _q(x: float, dim: Dim) -> str:
     return format_quantity(x, dim, 6)
 
 
+def _q2(a: float, b: float, dim: Dim) -> tuple[str, str]:
+    """Two values compared in a message, with the digits that tell them apart."""
+    return format_distinct(a, b, dim, 6)
+
+
 def constraints(device: Device) -> list[tuple[str, str, str]]:
     """The physical constraints the device loader enforces, checked again:
     ``(id, message, hint)`` for each one violated (empty when all hold).
@@ -220,12 +225,13 @@ def constraints(device: Device) -> list[tuple[str, str, str]]:
                 out.append((f"{q}.{attr}", f"{q}.{attr} = {_q(v, TIME)} is not above zero",
                             "coherence times are positive"))
         if d.t1 > 0 and d.t2 > 2 * d.t1 * (1 + 1e-12):
-            out.append((f"{q}.t2>2t1", f"{q}.t2 = {_q(d.t2, TIME)} is longer than 2·T1 = "
-                                       f"{_q(2 * d.t1, TIME)}",
+            shown = _q2(d.t2, 2 * d.t1, TIME)
+            out.append((f"{q}.t2>2t1", f"{q}.t2 = {shown[0]} is longer than 2·T1 = {shown[1]}",
                         f"T2 cannot exceed 2·T1: keep {q}.t2 at most 2·{q}.t1"))
         if d.t2 > 0 and d.t2_star > d.t2 * (1 + 1e-12):
-            out.append((f"{q}.t2*>t2", f"{q}.t2_star = {_q(d.t2_star, TIME)} is longer than the "
-                                       f"Hahn-echo T2 = {_q(d.t2, TIME)}",
+            shown = _q2(d.t2_star, d.t2, TIME)
+            out.append((f"{q}.t2*>t2", f"{q}.t2_star = {shown[0]} is longer than the "
+                                       f"Hahn-echo T2 = {shown[1]}",
                         f"an echo only removes dephasing, so T2* ≤ T2: keep {q}.t2_star at most "
                         f"{q}.t2"))
         if not d.drive.rabi_per_volt > 0:
@@ -298,9 +304,9 @@ def constraints(device: Device) -> list[tuple[str, str, str]]:
                                                  f"{_q(hi, VOLTAGE)}]",
                             "the table is never extrapolated: stay inside it"))
         if c.pulse_voltage is not None and not c.pulse_voltage > c.idle_voltage:
-            out.append((f"{pn}.pulse<=idle", f"{pn}.pulse_voltage = "
-                                             f"{_q(c.pulse_voltage, VOLTAGE)} is not above "
-                                             f"idle_voltage = {_q(c.idle_voltage, VOLTAGE)}",
+            shown = _q2(c.pulse_voltage, c.idle_voltage, VOLTAGE)
+            out.append((f"{pn}.pulse<=idle", f"{pn}.pulse_voltage = {shown[0]} is not above "
+                                             f"idle_voltage = {shown[1]}",
                         "J rises with barrier voltage: the exchange pulse must go above idle"))
     return out
 
