@@ -13,29 +13,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 from ..errors import Problem, Span
-
-
-@dataclass(frozen=True)
-class ExchangeModel:
-    """J(V) of a barrier gate: J/h in Hz as a function of barrier voltage V.
-
-    kind:
-      * ``"exponential"``: J = j0·exp(V/v0)  (common practice, no single source)
-      * ``"hubbard"``: J = 4·t(V)²·U/(U² − ε²), t(V) = t0·exp(V/vt)
-        (Burkard, Loss & DiVincenzo, PRB 59, 2070 (1999); t0, U, ε as J/h in Hz)
-      * ``"table"``: calibration points (V_i, J_i), J interpolated
-        monotonically (PCHIP in log J) and never extrapolated.
-    """
-
-    kind: str
-    j0: float = 0.0          # Hz        (exponential)
-    v0: float = 0.0          # V         (exponential)
-    t0: float = 0.0          # Hz        (hubbard: tunnel coupling at V = 0, t/h)
-    vt: float = 0.0          # V         (hubbard: voltage scale of t)
-    u: float = 0.0           # Hz        (hubbard: charging energy U/h)
-    detuning: float = 0.0    # Hz        (hubbard: ε/h)
-    volts: tuple[float, ...] = ()   # V  (table)
-    joules: tuple[float, ...] = ()  # Hz (table: J/h values; name kept short)
+from .exchange import ExchangeModel
 
 
 @dataclass(frozen=True)
