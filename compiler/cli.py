@@ -365,7 +365,7 @@ def cmd_sweep(args) -> int:
     import signal
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
-    from .sweep.execute import CLUSTER_VARIABLE, _dask, local_cores
+    from .sweep.execute import CLUSTER_VARIABLE, local_cores, require_dask
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -379,7 +379,7 @@ def cmd_sweep(args) -> int:
                                                  f" (from {CLUSTER_VARIABLE})"),
                          hint="drop --workers, or give --cluster local to compute here")
     if cluster:
-        _dask()                      # fail now, with the install hint, not after planning
+        require_dask()               # fail now, with the install hint, not after planning
         if not args.debug:           # dotseq reports lost points itself
             import logging
             logging.getLogger("distributed").setLevel(logging.CRITICAL)

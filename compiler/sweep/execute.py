@@ -122,7 +122,8 @@ def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
     return {"backend": "local processes", "workers": workers}
 
 
-def _dask():
+def require_dask():
+    """Dask's distributed module, or a UsageError with the install hint."""
     try:
         import distributed
     except ImportError:
@@ -156,7 +157,7 @@ def connect(address: str, timeout: float = 15.0):
     """``(client, worker info, address)``: a Dask client on the scheduler at
     ``address`` (tcp://HOST:PORT), whose workers must run this dotseq version."""
     from .. import __version__
-    distributed = _dask()
+    distributed = require_dask()
     _probe(address)
     try:
         client = distributed.Client(address, timeout=timeout, set_as_default=False)
@@ -183,7 +184,7 @@ def connect(address: str, timeout: float = 15.0):
 def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) -> dict:
     """The points on a Dask cluster; ``connection`` is what :func:`connect`
     returned (the client is closed at the end)."""
-    distributed = _dask()
+    distributed = require_dask()
     client, info, address = connection
     token = secrets.token_hex(4)
     futures = []

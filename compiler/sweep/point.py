@@ -17,7 +17,7 @@ import sys
 import time
 import traceback
 
-from ..check.summary import GATE_KINDS
+from ..margin import coherence_margins
 from ..errors import DotseqError
 from ..simulate.model import Switches
 from ..simulate.run import _engine, compile_run, error_budget, evaluate_whole
@@ -69,13 +69,7 @@ def one_thread():
 def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
     """T2 over the longest gate on each dot of one timeline (the margin
     ``dotseq check`` prints)."""
-    longest: dict[str, float] = {}
-    for s in tl.slots:
-        if s.kind in GATE_KINDS:
-            for q in s.qubits:
-                longest[q] = max(longest.get(q, 0.0), s.duration)
-    return tuple((q, device.dots[q].t2, d, device.dots[q].t2 / d)
-                 for q, d in longest.items() if d > 0)
+    return tuple(m.as_tuple()[:4] for m in coherence_margins([tl], device))
 
 
 def _first_line(err: DotseqError) -> str:
