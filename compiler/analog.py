@@ -36,10 +36,42 @@ def lsb(v_min: float, v_max: float, bits: int) -> float:
     return (v_max - v_min) / float(2 ** bits)
 
 
+def code_dtype(bits: int) -> np.dtype:
+    """The unsigned integer type that holds every code 0 … 2^bits − 1 of a
+    ``bits``-wide DAC: uint16 up to 16 bits, uint32 up to 32.  Raises
+    ValueError for other widths (the device loader allows 1 to
+    ``device.model.MAX_BITS``)."""
+    if not isinstance(bits, (int, np.integer)) or not 1 <= bits <= 32:
+        raise ValueError(f"no code type for a {bits!r}-bit DAC")
+    dt = np.dtype(np.uint16 if bits <= 16 else np.uint32)
+    assert np.iinfo(dt).max >= 2 ** bits - 1
+    return dt
+
+
+def to_codes(x: np.ndarray, bits: int, out: np.ndarray | None = None) -> np.ndarray:
+    """Cast rounded code values (floats) to :func:`code_dtype` of ``bits``,
+    into ``out`` when given.  The cast itself is checked: every value must lie
+    in [0, 2^bits − 1] and the target type must hold that range, otherwise
+    ValueError; a code never wraps around."""
+    dt = code_dtype(bits)
+    if out is not None and (out.dtype.kind != "u" or np.iinfo(out.dtype).max < 2 ** bits - 1):
+        raise ValueError(f"{out.dtype} cannot hold the codes of a {bits}-bit DAC")
+    x = np.asarray(x)
+    if x.size:
+        lo, hi = x.min(), x.max()
+        if not (0 <= lo and hi <= 2 ** bits - 1):      # also refuses NaN
+            raise ValueError(f"codes {lo!r} .. {hi!r} outside 0 .. {2 ** bits - 1} "
+                             f"of a {bits}-bit DAC")
+    if out is None:
+        return x.astype(dt)
+    out[...] = x
+    return out
+
+
 def quantise(volts: np.ndarray, v_min: float, v_max: float, bits: int) -> tuple[np.ndarray, np.ndarray]:
-    """Nearest DAC codes and their voltages.  The caller has checked the
-    range: values up to half an LSB beyond it round to the end codes, anything
-    further raises (nothing is clipped silently)."""
+    """Nearest DAC codes (of :func:`code_dtype`) and their voltages.  The
+    caller has checked the range: values up to half an LSB beyond it round to
+    the end codes, anything further raises (nothing is clipped silently)."""
     q = lsb(v_min, v_max, bits)
     top = 2 ** bits - 1
     x = np.subtract(volts, v_min, dtype=float)       # one work array, reused in place
@@ -47,7 +79,7 @@ def quantise(volts: np.ndarray, v_min: float, v_max: float, bits: int) -> tuple[
     np.rint(x, out=x)
     if x.size and (x.min() < 0 or x.max() > top):
         raise ValueError("value outside the DAC range reached quantisation")
-    codes = x.astype(np.int32)
+    codes = to_codes(x, bits)
     np.multiply(codes, q, out=x)
     x += v_min
     return codes, x

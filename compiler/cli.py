@@ -204,7 +204,8 @@ def _synthesised(args, runs: list[int] | None = None):
     checked = load(args.file, args.device, memory_limit=limit)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    total = sum(checked.timelines[i].n_samples for i in chosen)
+    # padded to the generators' min_length and granularity, as synthesis will
+    total = sum(checked.device.padded_samples(checked.timelines[i].n_samples) for i in chosen)
     need = check_synthesis_size(total, n_outputs, limit, file=args.file)
     return compile_checked(checked, predistort=args.predistort, runs=runs), need
 
@@ -277,7 +278,8 @@ def cmd_preview(args) -> int:
                          f"(0..{n - 1})")
     args_runs = [args.run]
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(checked.timelines[args.run].n_samples, n_outputs, limit, file=args.file)
+    check_synthesis_size(checked.device.padded_samples(checked.timelines[args.run].n_samples),
+                         n_outputs, limit, file=args.file)
     wf = compile_checked(checked, predistort=args.predistort, runs=args_runs).waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
     sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
@@ -315,7 +317,8 @@ def cmd_simulate(args) -> int:
     checked = load(args.file, args.device, memory_limit=limit)
     # each run is synthesised (as played) before it is simulated: the longest must fit
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(max((t.n_samples for t in checked.timelines), default=0), n_outputs,
+    check_synthesis_size(max((checked.device.padded_samples(t.n_samples)
+                              for t in checked.timelines), default=0), n_outputs,
                          limit, file=args.file)
     result = _simulated(args, checked)
     path = write_report(result, args.out)

@@ -8,7 +8,8 @@ Three estimates, each checked before the memory is taken:
   per step for the step itself, its place in the schedule, its record in
   the waveforms and its manifest entry;
 * the sampled outputs, before synthesis: ``BYTES_PER_OUTPUT_SAMPLE`` per
-  sample of every output.
+  sample of every output, counting the padding to the generators'
+  ``min_length`` and ``granularity`` (``Device.padded_samples``).
 
 The per-character and per-step figures were measured on sequences of 10^5
 and 10^6 lines (resident memory added by each stage, divided by the count:

@@ -13,13 +13,17 @@ from collections import Counter
 from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
 import pytest
 import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
+from compiler import limits
 from compiler.check import check
 from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
-from compiler.errors import DeviceError, DotseqError
+from compiler.device.model import MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH
+from compiler.errors import DeviceError, DotseqError, SynthesisError
+from compiler.export.files import CODES_DTYPE, checked_cast
 from compiler.expand import expand
 from compiler.parse import parse_text
 from compiler.schedule import schedule
@@ -245,6 +249,163 @@ def test_every_device_seed_loads_and_compiles():
     assert len(DEVICE_SEEDS) >= 4
     for text in DEVICE_SEEDS:
         assert run_device(text) == "device ok, then ok"
+
+
+# ---------------------------------------------------------------- generator limits
+
+# A two-dot device whose channel keys the two properties below fill in:
+# {mw}, {P_A}, {P_B}, {B_AB}, {M1} are extra keys of each channel (padding),
+# {bits_*} and {range_*} the DAC widths and ranges.  The barrier pulses to
+# 250 mV during a sqrtswap, the plungers idle at 0 V, the I/Q line plays bursts.
+LIMITS_DEVICE = """name: limits
+field: 250 mT
+temperature: 40 mK
+rotation: {{mode: duration, shape: gauss, duration: 24 ns}}
+readout: {{marker: M1, duration: 100 ns}}
+dots:
+  A: {{preset: gaas, g: -0.44, drive: {{line: mw, rabi_per_volt: 40 MHz/V}}, plunger: P_A}}
+  B: {{preset: gaas, g: -0.40, drive: {{line: mw, rabi_per_volt: 40 MHz/V}}, plunger: P_B}}
+couplings:
+  - {{dots: [A, B], barrier: B_AB, exchange: {{model: exponential, j0: 200 kHz, v0: 40 mV}},
+     idle_voltage: 0 mV, pulse_voltage: 250 mV}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: {bits_mw}, range: {range_mw}, lo: 1.5 GHz,
+       if_band: [-300 MHz, 300 MHz]{mw}}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_P_A}, range: {range_P_A}{P_A}}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_P_B}, range: {range_P_B}{P_B}}}
+  B_AB: {{kind: gate, sample_rate: 1 GS/s, bits: {bits_B_AB}, range: {range_B_AB}{B_AB}}}
+  M1: {{kind: marker, sample_rate: 1 GS/s{M1}}}
+"""
+LIMITS_ANALOG = ("mw", "P_A", "P_B", "B_AB")
+LIMITS_CHANNELS = LIMITS_ANALOG + ("M1",)
+LIMITS_STEPS = "rot A x 90 deg\nsqrtswap A B\nrot B y 45 deg\nwait 30 ns\nread A B\n"
+# what the padding property lets synthesis take: below it, the estimate made
+# before synthesis (padding included) must refuse
+LIMITS_MEMORY = 64 * 2 ** 20
+# integers as YAML may spell them, from plausible to absurd
+PAD_TEXT = st.one_of(
+    st.integers(1, 5000).map(str), st.integers(1, 2 ** 20).map(str),
+    st.integers(-3, 2 ** 70).map(str),
+    st.integers(0, 40).map(lambda k: str(2 ** k)),
+    st.integers(0, 40).map(lambda k: str(2 ** k + 1)),
+    st.sampled_from(["0", "1", "16", "64", "100000000", "1000000000", "1.0e+9", "1.0e+300",
+                     "16777216", "16777217", "65536", "65537", "65521", "65519", "2.5", "-1",
+                     ".inf", ".nan", "1_000_000", "0x1000000", "true", "~", "[1]", "9" * 40]))
+BITS_TEXT = st.one_of(st.integers(1, MAX_BITS).map(str), st.integers(1, MAX_BITS).map(str),
+                      st.integers(-2, 70).map(str),
+                      st.sampled_from(["8", "12", "14", "16", "17", "20", "24", "25", "31", "32",
+                                       "33", "64", "16.0", "1.0e+1", "0x10", "24.5", ".nan", "~"]))
+RANGE_TEXT = st.tuples(st.sampled_from(["-1 V", "-500 mV", "-300 mV", "-2 mV", "-1 uV", "0 V"]),
+                       st.sampled_from(["1 V", "500 mV", "300 mV", "251 mV", "3 mV", "1 uV"])
+                       ).map(lambda p: f"[{p[0]}, {p[1]}]")
+
+
+def limits_device(pads: dict | None = None, bits: dict | None = None,
+                  ranges: dict | None = None) -> str:
+    keys = {name: "" for name in LIMITS_CHANNELS}
+    for name, (minlen, gran) in (pads or {}).items():
+        keys[name] = ((f", min_length: {minlen}" if minlen is not None else "")
+                      + (f", granularity: {gran}" if gran is not None else ""))
+    for name in LIMITS_ANALOG:
+        keys[f"bits_{name}"] = (bits or {}).get(name, "14" if name == "mw" else "16")
+        keys[f"range_{name}"] = (ranges or {}).get(name, "[-1 V, 1 V]")
+    return LIMITS_DEVICE.format(**keys)
+
+
+def limits_outcome(text: str, check_waveforms) -> str:
+    """Load the device, refuse or compile LIMITS_STEPS against it with the
+    memory estimate (padding included) checked first, then
+    ``check_waveforms(device, timeline, waveforms)``; the outcome."""
+    with time_limit(CASE_SECONDS):
+        try:
+            dev = load_device_text(text, "limits.yaml")
+        except DeviceError as e:
+            assert_own_error(e, "limits.yaml")
+            return "device error"
+        try:
+            ex = expand(parse_text(LIMITS_STEPS, "steps.dotseq"))
+            check(ex, dev)
+            tl = schedule(ex.runs[0], dev)
+            n = dev.padded_samples(tl.n_samples)
+            n_outputs = sum(2 if c.kind == "iq" else 1 for c in dev.channels.values())
+            try:
+                limits.check_synthesis_size(n, n_outputs, LIMITS_MEMORY, file="steps.dotseq")
+            except SynthesisError as e:
+                assert "would need about" in e.first.message and f"{n} samples" in e.first.message
+                return "refused by the memory estimate"
+            wf = synthesize(tl, dev)
+        except DotseqError as e:
+            assert_own_error(e, "steps.dotseq", "limits.yaml")
+            return e.stage
+        assert wf.n_samples == n, (wf.n_samples, n)    # the estimate is what synthesis makes
+        check_waveforms(dev, tl, wf)
+        return "ok"
+
+
+def _padding_ok(dev, tl, wf) -> None:
+    assert dev.min_length <= MAX_MIN_LENGTH and dev.granularity <= MAX_GRANULARITY
+    assert wf.n_samples >= max(tl.n_samples, dev.min_length)
+    assert wf.n_samples % dev.granularity == 0
+    assert wf.n_samples < max(tl.n_samples, dev.min_length) + dev.granularity
+
+
+def _codes_ok(dev, tl, wf) -> None:
+    """Every code is within the channel's width, held by its type and by the
+    bundle's int32, and decodes to within half an LSB of the intended level."""
+    for name, out in wf.outputs.items():
+        if out.codes is None:
+            continue
+        ch = dev.channels[out.channel]
+        codes = np.asarray(out.codes)
+        assert codes.dtype.kind == "u" and np.iinfo(codes.dtype).max >= 2 ** ch.bits - 1, name
+        wide = codes.astype(np.int64)
+        assert wide.min() >= 0 and wide.max() <= 2 ** ch.bits - 1, name
+        assert np.array_equal(checked_cast(codes, CODES_DTYPE).astype(np.int64), wide), name
+        q = (ch.v_max - ch.v_min) / 2 ** ch.bits
+        decoded = ch.v_min + wide * q
+        scale = max(abs(ch.v_min), abs(ch.v_max))
+        err = np.abs(decoded - np.asarray(out.ideal))
+        assert err.max() <= q / 2 * (1 + 1e-9) + 1e-15 * scale, (name, ch.bits, err.max(), q)
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(LIMITS_CHANNELS),
+                       st.tuples(st.none() | PAD_TEXT, st.none() | PAD_TEXT), max_size=5))
+def test_padding_keys(pads):
+    """Random min_length and granularity values, up to absurd ones: refused
+    at the key with a position, refused by the memory estimate (which counts
+    the padding) before synthesis, or compiled to exactly the estimated
+    length; never gigabytes, never a crash."""
+    outcome = "padding: " + limits_outcome(limits_device(pads=pads), _padding_ok)
+    COUNTS[outcome] += 1
+
+
+@settings(max_examples=max(N // 3, 100), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(LIMITS_ANALOG), BITS_TEXT, max_size=4),
+       st.dictionaries(st.sampled_from(LIMITS_ANALOG), RANGE_TEXT, max_size=4))
+def test_code_widths(bits, ranges):
+    """Random DAC widths and ranges on the I/Q line and the gates: refused at
+    the bits key with a position, or compiled with every code inside the
+    width (never wrapped) and decoding to within half an LSB of the level
+    intended."""
+    outcome = "code widths: " + limits_outcome(limits_device(bits=bits, ranges=ranges),
+                                               _codes_ok)
+    COUNTS[outcome] += 1
+
+
+def test_limits_device_compiles_as_written():
+    """The template of the two properties above is valid at every width
+    dotseq accepts, so their random cases start from a working file."""
+    assert limits_outcome(limits_device(), _codes_ok) == "ok"
+    for b in (1, 8, 16, 17, MAX_BITS):
+        widths = {name: str(b) for name in LIMITS_ANALOG}
+        assert limits_outcome(limits_device(bits=widths), _codes_ok) in ("ok", "synthesis")
+    assert limits_outcome(limits_device(bits={"P_A": str(MAX_BITS)}), _codes_ok) == "ok"
+    assert limits_outcome(limits_device(pads={"M1": ("100000", "48")}), _padding_ok) == "ok"
+    assert limits_outcome(limits_device(pads={"P_A": ("16777216", None)}), _padding_ok) \
+        == "refused by the memory estimate"
 
 
 # ---------------------------------------------------------------- failures found, kept

@@ -428,3 +428,15 @@ def test_occupied_span():
     assert lo < -100e6 and hi > 60e6                                   # Larmor mark kept
     lo, hi, zoomed = occupied_span(f, level, [-450e6, 450e6], (-500e6, 500e6))
     assert not zoomed and (lo, hi) == (-500e6, 500e6)
+
+
+def test_inserted_kinds_have_styles_and_labels_of_their_own():
+    """The compiler's inserted entries are told apart in the strip: a phase
+    wait and a z correction each have a hatched style and a label of their own
+    (common practice, no source)."""
+    from compiler.preview import style as S
+    assert S.step_style("phasewait") != S.OTHER_STEP and S.step_style("zcorrect") != S.OTHER_STEP
+    assert S.step_style("phasewait") != S.step_style("zcorrect")
+    assert all(S.step_style(k)[1] for k in ("phasewait", "zcorrect", "pad"))   # hatched
+    assert S.step_labels("phasewait", ("A", "B"), {})[0].startswith("phase wait")
+    assert S.step_labels("zcorrect", ("A",), {})[0].startswith("z-correct")

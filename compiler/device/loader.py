@@ -32,8 +32,8 @@ from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_quantity,
                      parse_quantity)
 from . import exchange as xch
-from .model import (Channel, Coupling, Device, Dot, Drive, ExchangeModel, Readout,
-                    RotationDefaults)
+from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
+                    Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
 from .presets import PRESETS
 from .rules import ERROR, validate
 
@@ -89,6 +89,13 @@ _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 # A device description is a few kilobytes; far larger input is refused before
 # the (pure-Python, slow) YAML composer sees it.
 MAX_DEVICE_CHARS = 1_000_000
+
+# Why the channel's integers are bounded (model.MAX_BITS etc.; docs/device.md).
+BITS_HINT = (f"give the DAC's real width: generators have 8 to 16 bits, precision DC sources up "
+             f"to 20; dotseq stores codes of at most {MAX_BITS} bits")
+MIN_LENGTH_HINT = ("a generator's minimum waveform length is tens to thousands of samples; to "
+                   "make runs longer, end the sequence with a 'wait'")
+GRANULARITY_HINT = "a generator's length granularity is a few samples (1 to 64 is typical)"
 
 BANDWIDTH_RISE = 0.35          # t_rise = 0.35/f_3dB (common practice, no source)
 
@@ -270,15 +277,16 @@ class _Reader:
             self.fail(node, f"{path} must not be zero")
         return x
 
-    def integer(self, node: Node, path: str, lo: int, hi: int | None = None) -> int:
+    def integer(self, node: Node, path: str, lo: int, hi: int | None = None,
+                hint: str = "") -> int:
         value = self.scalar(node, path, str(lo))
         if isinstance(value, bool) or not isinstance(value, (int, float)) or (
                 isinstance(value, float) and not (math.isfinite(value) and value.is_integer())):
             self.fail(node, f"{path} must be a whole number, got '{node.value}'")
         n = int(value)
         if n < lo or (hi is not None and n > hi):
-            rng = f"from {lo} to {hi}" if hi is not None else f"at least {lo}"
-            self.fail(node, f"{path} must be {rng}, got {n}")
+            rng = f"from {lo} to {hi:,}" if hi is not None else f"at least {lo}"
+            self.fail(node, f"{path} must be {rng}, got {n:,}", hint)
         return n
 
     def pair(self, node: Node, path: str, dim: Dim, bare_zero: bool = False
@@ -353,7 +361,7 @@ def _read_channels(r: _Reader, node: Node, anchor: Node) -> dict[str, tuple[Chan
 def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     n_before = len(r.problems.problems)
     fs = r.get(m, "sample_rate", r.quantity, f"{path}.sample_rate", FREQUENCY, positive=True)
-    bits = r.get(m, "bits", r.integer, f"{path}.bits", 1, 32)
+    bits = r.get(m, "bits", r.integer, f"{path}.bits", 1, MAX_BITS, BITS_HINT)
     rng = r.get(m, "range", r.pair, f"{path}.range", VOLTAGE, True)
     rise = r.get(m, "rise_time", r.quantity, f"{path}.rise_time", TIME, nonnegative=True,
                  bare_zero=True)
@@ -361,8 +369,10 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     if "rise_time" in m and "bandwidth" in m:
         r.error(m["bandwidth"][0], f"{path} gives both rise_time and bandwidth",
                 "give one: the other follows from t_rise = 0.35/bandwidth")
-    minlen = r.get(m, "min_length", r.integer, f"{path}.min_length", 1)
-    gran = r.get(m, "granularity", r.integer, f"{path}.granularity", 1)
+    minlen = r.get(m, "min_length", r.integer, f"{path}.min_length", 1, MAX_MIN_LENGTH,
+                   MIN_LENGTH_HINT)
+    gran = r.get(m, "granularity", r.integer, f"{path}.granularity", 1, MAX_GRANULARITY,
+                 GRANULARITY_HINT)
     tee = r.get(m, "bias_tee", r.quantity, f"{path}.bias_tee", TIME, nonnegative=True,
                 bare_zero=True)
     lo = r.get(m, "lo", r.quantity, f"{path}.lo", FREQUENCY, positive=True)
@@ -745,6 +755,19 @@ def _build(r: _Reader, root: Node) -> Device:
     raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
         if "channels" in top else {}
     channels = {nm: Channel(**ch) for nm, (ch, _) in raw_channels.items()}
+    # the run length is a multiple of every channel's granularity: their
+    # common multiple must stay as bounded as each one
+    upto = 1
+    for nm, (ch, nodes) in raw_channels.items():
+        upto = granularity_of((upto, channels[nm].granularity))
+        if "granularity" in nodes:
+            if upto > MAX_GRANULARITY:
+                r.error(nodes["granularity"][1],
+                        f"channels.{nm}.granularity {ch['granularity']:,} with the granularities of "
+                        f"the channels before it asks for runs in multiples of {upto:,} samples, "
+                        f"above {MAX_GRANULARITY:,}", "give the channels granularities that divide "
+                        "one another (e.g. 16 and 32)")
+                break
     # one sample grid for the whole device: the compiler places every step on it
     if channels:
         first = next(iter(channels.values()))

@@ -9,11 +9,25 @@ converted with E/h.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from functools import cached_property
 
 from ..errors import Problem, Span
 from .exchange import ExchangeModel
+
+# What a generator channel can be (checked when loading; docs/device.md).
+# DAC widths: arbitrary waveform generators have 8 to 16 bits, precision DC
+# sources for gates up to 20 (common practice, no source); 24 bits leave
+# margin and every code 0 … 2^24 − 1 is held exactly by the bundle's int32
+# codes and by the float64 arithmetic that computes them.
+MAX_BITS = 24
+# Padding: generators' minimum waveform lengths are tens to a few thousand
+# samples and their length granularities 1 to 64 samples (common practice, no
+# source).  The bounds are far above both and keep padding alone below
+# 2^24 + 2^16 samples a run (about 17 ms at 1 GS/s).
+MAX_MIN_LENGTH = 2 ** 24       # samples
+MAX_GRANULARITY = 2 ** 16      # samples, also for the common multiple of all channels
 
 
 @dataclass(frozen=True)
@@ -131,6 +145,25 @@ class Device:
         """The sample rate all channels share (Hz); checked when loading."""
         return next(iter(self.channels.values())).sample_rate
 
+    @property
+    def min_length(self) -> int:
+        """Samples every run must have at least: the longest channel minimum."""
+        return max([c.min_length for c in self.channels.values()] + [1])
+
+    @property
+    def granularity(self) -> int:
+        """Samples a run's length must be a multiple of: the least common
+        multiple of the channels' granularities (at most MAX_GRANULARITY,
+        checked when loading)."""
+        return granularity_of(c.granularity for c in self.channels.values())
+
+    def padded_samples(self, n: int) -> int:
+        """Samples the generators play for a timeline of ``n`` samples: at
+        least ``min_length``, rounded up to a multiple of ``granularity``.
+        Every memory estimate before synthesis uses this length."""
+        g = self.granularity
+        return -(-max(int(n), self.min_length) // g) * g
+
     def larmor(self, dot: str) -> float:
         """Larmor frequency of a dot (Hz)."""
         return self.larmor_table[dot]
@@ -139,3 +172,12 @@ class Device:
     def larmor_table(self) -> dict[str, float]:
         from ..physics import larmor_frequency
         return {name: larmor_frequency(d.g, self.field) for name, d in self.dots.items()}
+
+
+def granularity_of(values) -> int:
+    """Least common multiple of channel granularities (each at least 1)."""
+    g = 1
+    for v in values:
+        v = max(1, int(v))
+        g = g * v // math.gcd(g, v)
+    return g

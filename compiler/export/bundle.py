@@ -18,8 +18,9 @@ import numpy as np
 from ..synth.types import Waveforms
 from . import atomic
 from .errors import BundleError, at, fail
-from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, csv_bytes_bound,
-                    npy_bytes, sha256_file, write_csv, write_npy, write_npy_rows)
+from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, checked_cast,
+                    csv_bytes_bound, npy_bytes, sha256_file, write_csv, write_npy,
+                    write_npy_rows)
 from .manifest import (ARRAYS_FOLDER, CSV_NAME, FORMAT_NAME, FORMAT_VERSION, MANIFEST_NAME, Plan,
                        build, check_runs, chunks, codes_file, output_file, pad_values,
                        plain, run_folder)
@@ -145,7 +146,7 @@ def _padded(runs: Sequence[Waveforms], name: str, width: int, *, codes: bool):
     ``width`` with the output's idle value (its last sample)."""
     for w in runs:
         o = w.outputs[name]
-        a = np.asarray(o.codes if codes else o.volts)
+        a = checked_cast(o.codes if codes else o.volts, CODES_DTYPE if codes else VOLTS_DTYPE)
         value, code = pad_values(o)
         fill = code if codes else value
         if a.shape[0] == width:

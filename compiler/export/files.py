@@ -108,6 +108,21 @@ def _write_array_bytes(f: _HashingFile, a: np.ndarray) -> None:
         f.write(flat[i:i + step])
 
 
+def checked_cast(a, dtype: np.dtype) -> np.ndarray:
+    """``a`` as ``dtype``; a conversion to an integer type that could change
+    a value (a uint32 or int64 code beyond int32, a float) is checked first:
+    every value must lie in the type's range, otherwise ValueError.  Codes
+    are never wrapped on their way into a file."""
+    a = np.asarray(a)
+    dtype = np.dtype(dtype)
+    if dtype.kind in "iu" and a.size and not np.can_cast(a.dtype, dtype, "safe"):
+        info = np.iinfo(dtype)
+        lo, hi = a.min(), a.max()
+        if not (info.min <= lo and hi <= info.max):     # also refuses NaN
+            raise ValueError(f"values {lo!r} .. {hi!r} do not fit in {dtype}")
+    return np.asarray(a, dtype=dtype)
+
+
 def write_npy(path: Path, a: np.ndarray, dtype: np.dtype) -> Written:
     """Write one array as ``.npy`` (converted to ``dtype``, C order).
 
@@ -125,7 +140,7 @@ def write_npy(path: Path, a: np.ndarray, dtype: np.dtype) -> Written:
     Written
         Path, SHA-256 and size of the file.
     """
-    a = np.asarray(a, dtype=dtype)
+    a = checked_cast(a, dtype)
     f = _HashingFile(path)
     try:
         f.write(npy_header(a.shape, dtype))
@@ -148,7 +163,7 @@ def write_npy_rows(path: Path, rows: Iterable[np.ndarray], n_rows: int, n_cols: 
         f.write(npy_header((n_rows, n_cols), dtype))
         count = 0
         for row in rows:
-            row = np.asarray(row, dtype=dtype)
+            row = checked_cast(row, dtype)
             if row.shape != (n_cols,):  # a bug in the caller, not user input
                 raise ValueError(f"row {count} of {path.name} has shape {row.shape}, "
                                  f"expected ({n_cols},)")

@@ -61,10 +61,6 @@ def _burst_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.n
     return x
 
 
-def _lcm(a: int, b: int) -> int:
-    return a * b // math.gcd(a, b)
-
-
 def _slot_text(slot: Slot) -> tuple[str, str]:
     if slot.span is None:
         return "", ""
@@ -94,8 +90,8 @@ def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_p
     q = analog.lsb(ch.v_min, ch.v_max, ch.bits)
     lo_ok, hi_ok = ch.v_min - q / 2, top + q / 2
     ideal = np.empty(n) if keep_ideal else None
-    # codes of DACs up to 16 bits fit in two bytes (half the memory of int32)
-    codes = np.empty(n, dtype=np.uint16 if ch.bits <= 16 else np.int64)
+    # codes of DACs up to 16 bits fit in two bytes, up to 32 in four
+    codes = np.empty(n, dtype=analog.code_dtype(ch.bits))
     nxt, active, carry = 0, [], 0.0
     for c0 in range(0, n, STREAM_CHUNK):
         c1 = min(c0 + STREAM_CHUNK, n)
@@ -142,7 +138,7 @@ def _stream(n: int, evs: list, take, baseline: float, dc_level: float, ch, tau_p
         np.rint(buf, out=buf)
         # values within half an LSB beyond the ends (allowed above) round to the end codes
         np.clip(buf, 0, 2 ** ch.bits - 1, out=buf)
-        codes[c0:c1] = buf
+        analog.to_codes(buf, ch.bits, out=codes[c0:c1])     # checked: never wraps
     return ideal, codes
 
 
@@ -166,13 +162,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
     fs = device.sample_rate
     chans = device.channels
     # length: the timeline, then the generators' minimum length and granularity
-    used = [c for c in chans.values()]
-    n_min = max([c.min_length for c in used] + [1])
-    gran = 1
-    for c in used:
-        gran = _lcm(gran, max(1, c.granularity))
-    n = max(tl.n_samples, n_min)
-    n = int(math.ceil(n / gran) * gran)
+    n_min, gran = device.min_length, device.granularity
+    n = device.padded_samples(tl.n_samples)
 
     # What each channel plays is collected as events (start, stop, values,
     # "add"/"set"), in time order, then streamed out in cache-sized chunks

@@ -30,7 +30,7 @@ class Output:
     channel: str                     # device channel it belongs to: "mw", "P_A", ...
     kind: str                        # "iq", "gate" or "marker"
     stored_volts: np.ndarray | None  # V, or None: derived from the codes
-    codes: np.ndarray | None         # DAC codes (uint16 up to 16 bits, else int64), None for markers
+    codes: np.ndarray | None         # DAC codes (uint16 up to 16 bits, else uint32), None for markers
     stored_ideal: np.ndarray | None  # V before quantisation, or None: not kept
     dc_level: float = 0.0            # V supplied through the bias tee's DC port, not by the generator
     lsb: float = 0.0                 # V per DAC code (0 for markers)

@@ -3,9 +3,9 @@
 Run:  python tests/benchmarks/fuzz_long.py [--examples N] [--seed S]
 
 ``--examples`` is the number of examples per property (default 6000; the
-arbitrary-unicode and long-expression properties take a third of it and the
-mutated device files half), which makes about 25 000 cases in all across
-the six properties.  Each case is bounded in time
+arbitrary-unicode, long-expression, padding-key and code-width properties
+take a third of it and the mutated device files half), which makes about
+29 000 cases in all across the eight properties.  Each case is bounded in time
 (``CASE_SECONDS`` in test_fuzz.py) and every outcome must be success or
 dotseq's own error with a position.  A property that fails is reported with
 hypothesis' falsifying example and the run goes on with the next property.
@@ -29,7 +29,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 PROPERTIES = ("test_random_text", "test_mutated_and_truncated_examples", "test_arbitrary_unicode",
               "test_long_and_deep_expressions", "test_random_device_yaml",
-              "test_mutated_and_truncated_device_files")
+              "test_mutated_and_truncated_device_files",
+              "test_padding_keys", "test_code_widths")
 
 
 def main(argv: list[str] | None = None) -> int:
