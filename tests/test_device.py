@@ -502,3 +502,15 @@ def test_every_exchange_model_has_the_whole_interface(kind):
     # scaled(s) multiplies J by s at every voltage (what a sweep's j_scale does)
     np.testing.assert_allclose(model.scaled(1.7).j(v), 1.7 * j, rtol=1e-12)
     assert model.positive() and not model.scaled(0.0).positive()
+
+
+def test_rule_on_a_default_value_says_the_default_applies():
+    # A drive line of ±50 mV and no rotation section: the default burst
+    # amplitude (100 mV) cannot be played; the loader says so (the same rule
+    # as a rotation.amplitude written in the file), naming the default.
+    text = edited(l24="  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-50 mV, 50 mV], "
+                      "lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz]}")
+    with pytest.raises(DeviceError) as info:
+        load_device_text(text, "bad.yaml")
+    p = problem_with(info.value, "above the range of drive line 'mw'")
+    assert "rotation.amplitude is not in the file: its default applies" in p.message

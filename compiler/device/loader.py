@@ -866,7 +866,10 @@ def _build(r: _Reader, root: Node) -> Device:
                     notes=notes.value if notes else "")
     for f in validate(device):
         node = _locate(r, root, f.key, f.near)
-        (r.error if f.severity == ERROR else r.warn)(node, f.message, f.hint)
+        message = f.message
+        if f.key not in r.nodes and f.key.startswith("rotation."):
+            message += f" ({f.key} is not in the file: its default applies)"
+        (r.error if f.severity == ERROR else r.warn)(node, message, f.hint)
     if r.problems:
         raise _Skip
     return dataclasses.replace(device, warnings=tuple(r.warnings.problems))
