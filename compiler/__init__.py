@@ -19,7 +19,7 @@ from pathlib import Path
 from . import limits
 from .check import check
 from .check.summary import Summary, summarize
-from .device import BUNDLED_DEFAULT, load_device
+from .device import device_of, load_device
 from .device.model import Device
 from .errors import DotseqError
 from .expand import expand
@@ -53,29 +53,30 @@ def _bulk():
 
 
 def load(path: str | Path, device: str | Path | None = None, *,
-         memory_limit: int | None = None) -> Checked:
+         memory_limit: int | None = None, confine: bool = False) -> Checked:
     """Parse, expand, load the device, check and schedule every run.
 
     ``device`` overrides the file's device statement.  ``memory_limit``
     (bytes, default half the memory available) bounds the text read and the
     steps expanded, estimated before they are allocated (:mod:`compiler.limits`).
+    ``confine`` refuses includes and a device statement outside the folder
+    tree of ``path`` (``--device`` is the user's own choice and not confined).
     Raises a :class:`~compiler.errors.DotseqError` subclass for any bad input.
     """
     budget = limits.budget(memory_limit)
     with _bulk():
         # the tree is dropped once expanded: its memory is reused by the schedule
-        expanded = expand(parse_path(path, budget=budget), budget=budget)
-        dev_path = device or expanded.device_path or BUNDLED_DEFAULT
-        dev = load_device(dev_path)
+        expanded = expand(parse_path(path, budget=budget, confine=confine), budget=budget)
+        dev = device_of(expanded, device, confine=confine)
         check(expanded, dev)
         timelines = tuple(schedule(r, dev) for r in expanded.runs)
     return Checked(expanded, dev, timelines)
 
 
 def check_file(path: str | Path, device: str | Path | None = None, *,
-               memory_limit: int | None = None) -> Summary:
+               memory_limit: int | None = None, confine: bool = False) -> Summary:
     """What `dotseq check` prints: a :class:`Summary` of the checked file."""
-    c = load(path, device, memory_limit=memory_limit)
+    c = load(path, device, memory_limit=memory_limit, confine=confine)
     return summarize(c.expanded, c.device, list(c.timelines))
 
 

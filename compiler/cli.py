@@ -13,7 +13,8 @@ from pathlib import Path
 from . import __version__, check_file, compile_checked, load
 from .check.summary import render_text, to_dict
 from .errors import DotseqError, UsageError
-from .limits import check_synthesis_size, default_limit, human, parse_size
+from .limits import MAX_SOURCE_CHARS, check_synthesis_size, default_limit, human, parse_size
+from .source import Oversize, Unreadable, read_capped
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
 
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 130
@@ -22,6 +23,10 @@ EXIT_PARTIAL = 4   # dotseq sweep: workers lost; the partial table is written, -
 CAUTION = ("Caution: check every compiled voltage and microwave amplitude against the sample's "
            "and the lab's own limits before loading it onto an instrument; dotseq does not "
            "replace instrument-side limits.")
+
+
+CONFINE_HELP = ("read includes and the file's device statement only from the sequence "
+                "file's folder tree (links resolved); for sequence files written by others")
 
 
 class _Parser(argparse.ArgumentParser):
@@ -42,6 +47,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("file", help="sequence file (.dotseq)")
     c.add_argument("--device", help="device description (YAML) to use instead of the file's own")
     c.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    c.add_argument("--confine", action="store_true", help=CONFINE_HELP)
 
     k = sub.add_parser("compile", help="compile a sequence into the sample arrays each channel "
                        "plays, written as a bundle folder",
@@ -87,7 +93,10 @@ def build_parser() -> argparse.ArgumentParser:
                        "(DIR/bundle), a preview of the detail run (DIR/preview.png) and the "
                        "simulation report (DIR/report).", epilog=CAUTION)
     r.add_argument("file", help="sequence file (.dotseq)")
-    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report")
+    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report "
+                   "(written as one unit; an earlier run's folder is replaced)")
+    r.add_argument("--discard-other-files", action="store_true", help="replace the -o folder even "
+                   "when it holds files dotseq did not write (they are deleted)")
     _common(r)
     _sim_flags(r)
     _sweep_parser(sub)
@@ -125,13 +134,20 @@ def _sweep_parser(sub) -> None:
                    help="hold a parameter at one value, e.g. --set A.t2=40us or --set tau=200ns "
                    "(pins a sweep of the file)")
     w.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    w.add_argument("--confine", action="store_true", help=CONFINE_HELP)
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
     w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
                    "the number of cores; 1 computes in this process)")
+    w.add_argument("--more-workers-than-cores", action="store_true", help="start as many local "
+                   "worker processes as --workers asks even when that is more than the cores "
+                   "(otherwise capped at the core count)")
     w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
                    "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
                    "pip install 'dotseq[dask]'")
+    w.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
+                   help="give up on a --cluster address that does not answer as a Dask scheduler "
+                   "within this time (default 10)")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
     w.add_argument("--engine", choices=("fast", "reference"), default="fast",
@@ -172,6 +188,7 @@ def _common(p) -> None:
                    "bias tee's droop")
     p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
                    "(default: half the memory available)")
+    p.add_argument("--confine", action="store_true", help=CONFINE_HELP)
 
 
 def _make_parent(out: str) -> None:
@@ -186,7 +203,7 @@ def _make_parent(out: str) -> None:
 
 
 def cmd_check(args) -> int:
-    summary = check_file(args.file, args.device)
+    summary = check_file(args.file, args.device, confine=args.confine)
     if args.json:
         print(json.dumps(to_dict(summary), indent=2))
     else:
@@ -201,7 +218,7 @@ def _memory_limit(args) -> int:
 
 def _synthesised(args, runs: list[int] | None = None):
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     # padded to the generators' min_length and granularity, as synthesis will
@@ -212,13 +229,12 @@ def _synthesised(args, runs: list[int] | None = None):
 
 def _source(args, compiled) -> dict:
     import hashlib
-    from pathlib import Path
     dev = compiled.checked.device
     files = {}
     for label, path in (("sequence", args.file), ("device", dev.path)):
-        try:
-            files[label] = hashlib.sha256(Path(path).read_bytes()).hexdigest()
-        except OSError:
+        try:    # read once already: a regular file within the cap
+            files[label] = hashlib.sha256(read_capped(path, 4 * MAX_SOURCE_CHARS)).hexdigest()
+        except (Unreadable, Oversize):
             files[label] = ""
     return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
             "dotseq_version": __version__, "sha256": files,
@@ -271,7 +287,7 @@ def _time_arg(text: str | None, flag: str) -> float | None:
 def cmd_preview(args) -> int:
     from .preview import preview
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     n = len(checked.timelines)
     if not 0 <= args.run < n:
         raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
@@ -314,7 +330,7 @@ def _simulated(args, checked):
 def cmd_simulate(args) -> int:
     from .report import summary_text, write_report
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit)
+    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     # each run is synthesised (as played) before it is simulated: the longest must fit
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     check_synthesis_size(max((checked.device.padded_samples(t.n_samples)
@@ -332,32 +348,43 @@ def cmd_simulate(args) -> int:
 
 
 def cmd_run(args) -> int:
-    """check + compile + export + preview + simulate into one folder."""
-    from pathlib import Path
+    """check + compile + export + preview + simulate into one folder, written as one unit
+    (compiler/export/runfolder.py): every argument is checked before anything is written."""
+    import hashlib
     from .export import write_bundle
+    from .export.runfolder import check_run_folder, write_run_folder
     from .preview import preview
     from .report import summary_text, write_report
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"'{out}' exists and is not a folder", hint="choose another -o folder")
-    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args))
+    out = check_run_folder(args.out, args.discard_other_files)
+    _sim_options(args).check()
+    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args),
+                         confine=args.confine)
+    n = summary.runs
+    if not 0 <= args.detail_run < n:
+        raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
+                         f"{'s' * (n != 1)} (0..{n - 1}); nothing was written")
     print(render_text(summary))
     print()
     compiled, need = _synthesised(args)
-    out.mkdir(exist_ok=True)
-    bundle = write_bundle(compiled.waveforms, out / "bundle", source=_source(args, compiled))
-    print(f"bundle    {bundle}  ({len(compiled.waveforms)} run{'s' * (len(compiled.waveforms) != 1)})")
-    checked = compiled.checked
-    k = args.detail_run if 0 <= args.detail_run < len(compiled.waveforms) else 0
-    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
-    img = preview(compiled.waveforms[k], out / "preview.png",
-                  title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
-    print(f"preview   {img}")
-    print()
+    checked, k = compiled.checked, args.detail_run
     result = _simulated(args, checked)
-    report = write_report(result, out / "report")
+    lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
+
+    def fill(tmp):
+        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled))
+        preview(compiled.waveforms[k], tmp / "preview.png",
+                title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
+        write_report(result, tmp / "report")
+        digest = {part: hashlib.sha256((tmp / part).read_bytes()).hexdigest()
+                  for part in ("bundle/manifest.json", "report/results.json")}
+        return {"sequence": str(args.file), "runs": n, "detail_run": k, "sha256": digest}
+    write_run_folder(out, fill, allow_unknown=args.discard_other_files)
+    nr = len(compiled.waveforms)
+    print(f"bundle    {out / 'bundle'}  ({nr} run{'s' * (nr != 1)})")
+    print(f"preview   {out / 'preview.png'}")
+    print()
     print(summary_text(result), end="")
-    print(f"report    {report}")
+    print(f"report    {out / 'report'}")
     print(CAUTION)
     return EXIT_OK
 
@@ -368,7 +395,8 @@ def cmd_sweep(args) -> int:
     import signal
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
-    from .sweep.execute import CLUSTER_VARIABLE, local_cores, require_dask
+    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address,
+                                local_cores, require_dask)
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -381,7 +409,12 @@ def cmd_sweep(args) -> int:
                          f"cluster {cluster}" + ("" if args.cluster else
                                                  f" (from {CLUSTER_VARIABLE})"),
                          hint="drop --workers, or give --cluster local to compute here")
+    timeout = DEFAULT_CLUSTER_TIMEOUT if args.cluster_timeout is None else args.cluster_timeout
+    if not 0 < timeout <= 3600:
+        raise UsageError(f"--cluster-timeout {timeout:g}: give from 0 to 3600 seconds",
+                         hint="e.g. --cluster-timeout 30")
     if cluster:
+        cluster = check_address(cluster)
         require_dask()               # fail now, with the install hint, not after planning
         if not args.debug:           # dotseq reports lost points itself
             import logging
@@ -389,13 +422,22 @@ def cmd_sweep(args) -> int:
     workers = args.workers if args.workers is not None else local_cores()
     if workers < 1:
         raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    capped = ""
+    if workers > local_cores() and not args.more_workers_than_cores:
+        capped = (f" (--workers {workers} capped at the {local_cores()} cores; "
+                  "--more-workers-than-cores starts them all)")
+        workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
-                      budget=args.budget)
+                      budget=args.budget, confine=args.confine)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
-    where = (f"Dask cluster {cluster}" if cluster else "this process" if workers == 1 else
-             f"{workers} local processes")
+    if not cluster and 1 < plan.n_points < workers:
+        capped = (f" (--workers {workers} capped at the {plan.n_points} points)"
+                  if args.workers is not None else " (one per point)")
+        workers = plan.n_points
+    where = (f"Dask cluster {cluster}" if cluster else "this process" + capped if workers == 1
+             else f"{workers} local processes" + capped)
     if not args.json:
         print("\n".join(plan_lines(plan, args.file, where)), flush=True)
 
@@ -404,7 +446,8 @@ def cmd_sweep(args) -> int:
     old_term = signal.signal(signal.SIGTERM, on_term)
     try:
         outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
-                            progress=Progress(enabled=not args.quiet), command=command)
+                            progress=Progress(enabled=not args.quiet), command=command,
+                            cluster_timeout=timeout)
     finally:
         signal.signal(signal.SIGTERM, old_term)
     if args.json:

@@ -10,6 +10,7 @@ and exits with code 2.
 from __future__ import annotations
 
 import difflib
+import re
 from collections import OrderedDict
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,6 +19,7 @@ from typing import Iterable, Sequence
 MAX_SHOWN = 10  # problems printed in full before "and N more"
 MAX_LINE_SHOWN = 120  # characters of a source line printed around the caret
 MAX_TEXT_SHOWN = 200  # characters of the offending text in JSON
+MAX_REREAD_BYTES = 50_000_000  # a file read again only to show one of its lines
 
 
 @dataclass(frozen=True, slots=True)
@@ -41,15 +43,34 @@ class Span:
 NO_SPAN = Span("<none>", 0, 0, 0, 0)
 
 
+MAX_DIGITS_SHOWN = 30  # longer runs of digits echoed in a message are shortened
+_LONG_DIGITS = re.compile(r"\d{%d,}" % (MAX_DIGITS_SHOWN + 1))
+
+
+def shorten_numbers(text: str) -> str:
+    """Runs of more than MAX_DIGITS_SHOWN digits (a 300-digit number echoed
+    from the input) as their first and last digits and the count:
+    '123456789012...456789 (300 digits)'."""
+    if len(text) <= MAX_DIGITS_SHOWN:
+        return text
+    return _LONG_DIGITS.sub(lambda m: f"{m[0][:12]}...{m[0][-6:]} ({len(m[0])} digits)", text)
+
+
 @dataclass(frozen=True)
 class Problem:
-    """One thing wrong with the input."""
+    """One thing wrong with the input.  Long numbers echoed in the message
+    or hint are shortened (:func:`shorten_numbers`); the source line is
+    shown as a window around the caret."""
 
     message: str
     span: Span | None = None
     hint: str = ""
     source_line: str = ""  # the text of span.line, for the caret display
     context: tuple[str, ...] = ()  # e.g. "in block 'echo' called at f:3:1"
+
+    def __post_init__(self):
+        object.__setattr__(self, "message", shorten_numbers(self.message))
+        object.__setattr__(self, "hint", shorten_numbers(self.hint))
 
     def to_dict(self) -> dict:
         d = {"message": self.message, "hint": self.hint}
@@ -105,12 +126,14 @@ class DotseqError(Exception):
     stage = "input"
 
     def __init__(self, problems: Problem | Sequence[Problem] | str, span: Span | None = None,
-                 hint: str = "", source_line: str = ""):
+                 hint: str = "", source_line: str = "", *, more: int = 0, more_note: str = ""):
         if isinstance(problems, str):
             problems = [Problem(problems, span, hint, source_line)]
         elif isinstance(problems, Problem):
             problems = [problems]
         self.problems: list[Problem] = list(problems)
+        # problems found but not kept (see ProblemCap), and how they were counted
+        self.more, self.more_note = more, more_note
         super().__init__(self.render())
 
     @property
@@ -119,14 +142,17 @@ class DotseqError(Exception):
 
     def render(self) -> str:
         shown = [p.render() for p in self.problems[:MAX_SHOWN]]
-        rest = len(self.problems) - MAX_SHOWN
+        rest = max(len(self.problems) - MAX_SHOWN, 0) + self.more
         if rest > 0:
-            shown.append(f"... and {rest} more {self.stage} error{'s' if rest > 1 else ''}")
+            shown.append(f"... and {rest:,} more {self.stage} error{'s' if rest > 1 else ''}"
+                         + (f" ({self.more_note})" if self.more and self.more_note else ""))
         return "\n".join(shown)
 
     def to_dict(self) -> dict:
-        return {"ok": False, "stage": self.stage,
-                "errors": [p.to_dict() for p in self.problems]}
+        d = {"ok": False, "stage": self.stage, "errors": [p.to_dict() for p in self.problems]}
+        if self.more:
+            d["more_errors"] = self.more
+        return d
 
 
 class SequenceSyntaxError(DotseqError):
@@ -186,10 +212,11 @@ _SOURCES: "OrderedDict[str, list[str]]" = OrderedDict()
 _SOURCES_KEPT = 64
 
 
-def remember_source(file: str, text: str) -> list[str]:
+def remember_source(file: str, text: str, echo: bool = True) -> list[str]:
     """Keep the text of a parsed file so later stages can show its lines in
-    error messages (the last few files only); returns its lines."""
-    lines = text.split("\n")
+    error messages (the last few files only); returns its lines.  With
+    ``echo`` false every line is kept as '' (a file that must not be shown)."""
+    lines = text.split("\n") if echo else [""] * (text.count("\n") + 1)
     _SOURCES[str(file)] = lines
     _SOURCES.move_to_end(str(file))
     while len(_SOURCES) > _SOURCES_KEPT:
@@ -201,11 +228,66 @@ def read_source_line(file: str | Path, line: int) -> str:
     """The text of one line of a parsed (or readable) file, '' when unavailable."""
     lines = _SOURCES.get(str(file))
     if lines is None:
+        # no longer kept: read it again only if it is a regular sequence file of
+        # reasonable size (never a pipe, a device or a system file)
+        from .source import Oversize, Unreadable, read_capped
+        if not str(file).endswith(".dotseq"):
+            return ""
         try:
-            lines = Path(file).read_text(encoding="utf-8", errors="replace").split("\n")
-        except (OSError, ValueError):
+            lines = read_capped(file, MAX_REREAD_BYTES).decode("utf-8").split("\n")
+        except (Unreadable, Oversize, UnicodeDecodeError):
             return ""
     return lines[line - 1] if 0 < line <= len(lines) else ""
+
+
+MAX_KEPT = MAX_SHOWN  # problems a collector keeps; later ones are only counted
+
+
+class ProblemCap:
+    """Collects problems up to ``keep`` and counts the rest without storing
+    them, so a file of junk costs memory for ``keep`` problems, not one per
+    junk token.  Once full, only the first problem of each line is counted
+    (:attr:`NOTE`): the lexer and parser skip the rest of such a line."""
+
+    NOTE = f"after the first {MAX_KEPT}, only the first error of each line is counted"
+
+    def __init__(self, keep: int = MAX_KEPT):
+        self.keep = keep
+        self.kept: list[tuple[int, Problem]] = []
+        self.more = 0
+        self._last: tuple[str, int] | None = None   # the line last counted once full
+        self.dropped = False     # the last problem added was counted, not kept
+
+    @property
+    def full(self) -> bool:
+        return len(self.kept) >= self.keep
+
+    def add(self, problem: Problem, order: int = 0) -> None:
+        """Keep ``problem`` (reported in ``order``, then as found) or count it."""
+        self.dropped = self.full
+        if not self.dropped:
+            self.kept.append((order, problem))
+            return
+        where = (problem.span.file, problem.span.line) if problem.span is not None else None
+        if where is None or where != self._last:
+            self.more += 1
+            self._last = where
+
+    def extend_from(self, err: "DotseqError", order: int = 0) -> None:
+        for p in err.problems:
+            self.add(p, order)
+        self.more += err.more
+
+    @property
+    def problems(self) -> list[Problem]:
+        return [p for _, p in sorted(self.kept, key=lambda k: k[0])]
+
+    def __bool__(self) -> bool:
+        return bool(self.kept) or self.more > 0
+
+    def raise_if_any(self, cls: type["DotseqError"]) -> None:
+        if self:
+            raise cls(self.problems, more=self.more, more_note=self.NOTE if self.more else "")
 
 
 @dataclass

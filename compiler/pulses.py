@@ -45,6 +45,21 @@ class DesignError(ValueError):
         self.message, self.hint = message, hint
 
 
+MAX_PULSE_SAMPLES = 2 ** 53     # sample counts stay exact integers in float64
+
+
+def _samples(t: float, dt: float, what: str, ceil: bool = False) -> int:
+    """``t / dt`` samples (rounded, or rounded up), at least 1; a length past
+    2^53 samples (or infinite) is a DesignError, not an OverflowError."""
+    n = t / dt - (1e-9 if ceil else 0.0)
+    if not n <= MAX_PULSE_SAMPLES:
+        last = f"{t:.4g} s" if math.isfinite(t) else "longer than any finite time"
+        raise DesignError(f"this {what} would last {last}, beyond 2^53 samples at this "
+                          "sample rate", "a run is placed on an integer sample grid exact up "
+                          "to 2^53 samples; give a shorter duration (or a larger amplitude)")
+    return max(1, math.ceil(n) if ceil else int(round(n)))
+
+
 # ------------------------------------------------------------------ bursts
 
 @dataclass(frozen=True)
@@ -88,10 +103,10 @@ def design_burst(angle: float, phase: float, rabi_per_volt: float, dt: float,
     if amplitude is not None or (duration is None and rot.mode == "amplitude"):
         amp = abs(amplitude) if amplitude is not None else rot.amplitude
         t_cont = shapes.duration_for_area(shape, need / amp, **kw)
-        n = max(1, math.ceil(t_cont / dt - 1e-9))
+        n = _samples(t_cont, dt, "burst", ceil=True)
     else:
         t = duration if duration is not None else rot.duration
-        n = max(1, int(round(t / dt)))
+        n = _samples(t, dt, "burst")
     if n > MAX_BURST_SAMPLES:
         raise DesignError(f"this burst would last {n:,} samples ({n * dt * 1e3:.4g} ms), more than "
                           f"the {MAX_BURST_SAMPLES:,} samples one burst may hold",
@@ -235,7 +250,7 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
         return j_integral(model, level, idle, pre, n, post, dt, tau)
 
     if duration is not None:
-        n = max(1, int(round(duration / dt)))
+        n = _samples(duration, dt, "exchange pulse")
         if integral(hi, n) < target:
             raise DesignError(
                 f"even at the top of the barrier range ({hi * 1e3:.4g} mV) exchange over "

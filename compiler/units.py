@@ -217,6 +217,29 @@ def format_quantity(value: float, dim: Dim, digits: int = 4) -> str:
     return f"{_g(value / scale, digits)} {p}{unit}"
 
 
+def format_distinct(a: float, b: float, dim: Dim, digits: int = 4) -> tuple[str, str]:
+    """Two values compared in a message, each with its unit, in one prefix,
+    with digits added (up to 17) until their texts differ when the values
+    do: 600.0000001 ns against 600 ns is not '600 ns' against '600 ns'."""
+    if dim == ANGLE:
+        a, b, unit, scale = math.degrees(a), math.degrees(b), "deg", 1.0
+    elif dim.is_dimensionless:
+        unit, scale = "", 1.0
+    else:
+        unit = _DISPLAY.get(dim, dim.symbol())
+        mag = max(abs(a), abs(b))
+        scale, p = next(((sc, p) for sc, p in _PREFIX_STEPS if mag >= sc * 0.9995),
+                        _PREFIX_STEPS[-1])
+        if mag == 0 or not math.isfinite(mag):
+            scale, p = 1.0, ""
+        unit = p + unit
+    for d in range(digits, 18):
+        ta, tb = _g(a / scale, d), _g(b / scale, d)
+        if ta != tb or a == b:
+            break
+    return (f"{ta} {unit}", f"{tb} {unit}") if unit else (ta, tb)
+
+
 def _g(x: float, digits: int) -> str:
     s = f"{x:.{digits}g}"
     if "e" in s:

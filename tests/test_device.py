@@ -301,6 +301,15 @@ BAD = [
                  id="t2_above_2t1"),
     pytest.param(edited(l9="    t2_star: 30 us"), "longer than the Hahn-echo T2", 9, 14,
                  id="t2star_above_t2"),
+    # issue 12, item 11: the two values compared get the digits that tell them apart
+    pytest.param(edited(l7="    t1: 9.9999999 us"),
+                 "dots.A.t2 = 20 us is longer than 2·T1 = 19.9999998 us", 8, 9,
+                 id="t2_just_above_2t1"),
+    pytest.param(edited(l9="    t2_star: 20.000001 us"),
+                 "t2_star = 20.000001 us is longer than the Hahn-echo T2 = 20 us", 9, 14,
+                 id="t2star_just_above_t2"),
+    pytest.param(edited(l3="temperature: -" + "9" * 300 + " mK"),
+                 "got '-999999999999...999999 (300 digits) mK'", 3, 14, id="long_number_shortened"),
     pytest.param(edited(l14="    g: 2.2"), "not reachable on line 'mw'", 15, 19,
                  id="larmor_unreachable"),
     pytest.param(edited(l24="  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], "
@@ -401,8 +410,12 @@ def test_bad_device(text, fragment, line, col):
     p = problem_with(info.value, fragment)
     assert (p.span.line, p.span.col) == (line, col), info.value.render()
     assert p.span.file == "bad.yaml"
-    assert p.source_line == text.splitlines()[line - 1]
-    assert "^" in p.render()
+    if "this is not a device file" in p.message:
+        assert p.source_line == ""      # not a device file at all: its text is not shown
+        assert text.splitlines()[0] not in p.render()
+    else:
+        assert p.source_line == text.splitlines()[line - 1]
+        assert "^" in p.render()
 
 
 def test_many_problems_reported_at_once():

@@ -73,6 +73,18 @@ CASES = [
                  id="attribute-access"),
     pytest.param("let x = " + "+".join(["1"] * 300), SequenceSyntaxError, 1, 522,
                  "more than 256 operators", "let", id="operator-chain"),
+    # issue 12, item 11: nesting of statements is not an expression's; long numbers shortened
+    pytest.param("repeat 2 { " * 65 + "wait 1 ns" + " }" * 65, SequenceSyntaxError, 1, 714,
+                 "repeat, together and block bodies nested deeper than 64 levels",
+                 "multiply repeat counts", id="nested-repeats"),
+    pytest.param("repeat 1 {\n" * 64 + "wait " + "(" * 62 + "-1" + ")" * 62 + " ns\n" + "}\n" * 64,
+                 SequenceError, 65, 6, "the wait is negative", "zero or longer",
+                 id="deep-repeats-and-expression"),
+    pytest.param("wait 1 ns " + "7" * 300, SequenceSyntaxError, 1, 11,
+                 "unexpected '777777777777...777777 (300 digits)' after", "one statement per line",
+                 id="long-number-shortened"),
+    pytest.param("rot A x 1" + "0" * 400 + " deg", SequenceError, 1, 9,
+                 "number '100000000000...000000 (401 digits)' is too large", "", id="long-overflow-shortened"),
 ]
 
 
@@ -100,8 +112,47 @@ def test_all_problems_are_collected_and_capped():
     src = "\n".join(f"rott A x {i} deg" for i in range(15)) + "\n"
     with pytest.raises(SequenceSyntaxError) as info:
         parse_text(src, "many.dotseq")
-    assert len(info.value.problems) == 15
+    assert len(info.value.problems) == 10 and info.value.more == 5    # kept, then counted
     assert "... and 5 more syntax errors" in info.value.render()
+    assert json_more(info.value) == 5
+
+
+def json_more(err) -> int:
+    return err.to_dict().get("more_errors", 0)
+
+
+@pytest.mark.parametrize("junk", ["@ ", "} ", "x ", "x;", "rot ", '"" ', "1.5 ns ", ";"])
+def test_a_line_of_junk_keeps_ten_problems_and_counts_the_rest(junk):
+    """A long line of junk tokens (issue 12, item 4: 48 MB took 95 s and
+    9 GB, one problem and token object per junk token) keeps the problems
+    shown and counts the rest; the first ones stay exact."""
+    line = junk * (200_000 // len(junk))
+    src = "wait 1 ns\n" + line + "\n" + "rott A\n" * 3
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_text(src, "junk.dotseq")
+    err = info.value
+    assert len(err.problems) <= 10
+    if junk == ";":                                  # separators only: the next line is wrong
+        assert (err.first.span.line, err.first.span.col, err.more) == (3, 1, 0)
+        return
+    assert err.first.span.line == 2 and err.first.span.col == (5 if junk == "rot " else 1)
+    text = err.render()
+    assert len(text) < 10_000                        # windows, not the 200 kB line
+    if junk in ("@ ", "} ", "x;"):                   # one problem a token: capped, counted
+        assert len(err.problems) == 10 and err.more >= 1
+        assert "only the first error of each line is counted" in text
+        assert err.more == 1 + 3                     # the rest of line 2, then lines 3-5
+
+
+def test_problems_from_an_include_are_counted(tmp_path):
+    (tmp_path / "bad.dotseq").write_text("rott A\n" * 25, encoding="utf-8")
+    main = tmp_path / "main.dotseq"
+    main.write_text('include "bad.dotseq"\nrott B\n', encoding="utf-8")
+    from compiler.parse import parse_path
+    with pytest.raises(SequenceSyntaxError) as info:
+        parse_path(main)
+    assert len(info.value.problems) == 10 and info.value.more == 16
+    assert "... and 16 more syntax errors" in info.value.render()
 
 
 def test_caret_is_under_the_offending_text():
@@ -185,3 +236,78 @@ def test_a_burst_too_long_to_hold_is_refused(write):
         load(p)
     text = e.value.render()
     assert "1,000,000 samples" in text and "s.dotseq:2:" in text
+
+
+def fan_out(n_blocks: int, call: str = "do b{last}(A)") -> str:
+    """Block k calls block k-1 twice: 2^(n-1) rotations from one call."""
+    lines = ["block b0(q) { rot q x 90 deg }"]
+    lines += [f"block b{k}(q) {{ do b{k - 1}(q) ; do b{k - 1}(q) }}" for k in range(1, n_blocks)]
+    return "\n".join(lines + [call.format(last=n_blocks - 1)]) + "\n"
+
+
+def test_block_fan_out_is_refused_before_unrolling():
+    """Issue 12, item 8: 60 blocks each calling the previous twice were
+    refused only after 44 s and 3 GB of unrolled steps; the estimate
+    (2^59 rotations) refuses at the call, naming the limit."""
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(fan_out(60), "fan.dotseq"))
+    p = info.value.first
+    assert (p.span.line, p.span.col) == (61, 1)
+    assert f"at least {2 ** 59:,} steps" in p.message
+    assert "above the limit of 10,000,000 steps" in p.message
+    assert "block calls" in p.hint
+
+
+def test_estimate_multiplies_nested_repeats_and_block_arguments():
+    """Repeat counts multiply through nesting, also through a block whose
+    parameter is the count; a total just under the limit still expands."""
+    src = ("block b(q, n) { repeat n { rot q x 90 deg ; wait 1 ns on q } }\n"
+           "repeat 100 { repeat 100 { do b(A, 50) } }\n")        # 2 * 50 * 100 * 100 = 10^6
+    run = expand(parse_text(src, "n.dotseq"), max_steps=1_000_000).runs[0]
+    assert len(run.steps) == 1_000_000
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src.replace("100 { do", "101 { do"), "n.dotseq"), max_steps=1_000_000)
+    p = info.value.first
+    assert p.span.line == 2 and f"at least {1_010_000:,} steps" in p.message
+
+
+def test_estimate_saturates_and_counts_sweeps():
+    deep = "".join(f"repeat 1000000 {{ " for _ in range(40)) + "wait 1 ns" + " }" * 40
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(deep + "\n", "deep.dotseq"))
+    assert "more than 2^63 steps" in info.value.first.message
+    # every sweep point as long as the first: refused after one run, at the sweep
+    src = "sweep t from 1 ns to 2 ns in 1000\nrepeat 20000 { wait t on A }\n"
+    with pytest.raises(SequenceError) as info:
+        expand(parse_text(src, "s.dotseq"))
+    p = info.value.first
+    assert p.span.line == 1 and "1,000 runs of 20,000 steps make 20,000,000" in p.message
+    # a count that depends on the sweep: runs differ, each is expanded and counted
+    ok = "sweep n over [1, 2, 3]\nrepeat n { wait 1 ns on A }\n"
+    assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq")).runs] == [1, 2, 3]
+    # ... also through a let computed from the swept value: not refused from the first run
+    ok = ("sweep n over [7, 1, 1]\nlet m = 2 * n\nblock b(q, k) { repeat k { wait 1 ns on q } }\n"
+          "do b(A, m)\n")
+    from compiler.limits import BYTES_PER_STEP, Budget
+    budget = Budget(30 * BYTES_PER_STEP)               # 30 steps in all: 14 + 2 + 2 fit, 3 x 14 not
+    assert [len(r.steps) for r in expand(parse_text(ok, "ok.dotseq"), budget=budget).runs] == [14, 2, 2]
+
+
+@pytest.mark.parametrize("junk", ["x ", "rot ", "1.5 ns ", '"" ', "x;", "@ ", "} ", "a=(b)*[c] ", "{ ", "{x}", "{{;}"])
+def test_a_broken_statement_is_skipped_without_a_token_per_word(junk, monkeypatch):
+    """Issue 12, item 4: after a syntax error the rest of the statement is
+    passed over as text, not as tokens (a 48 MB line took 95 s)."""
+    import compiler.parse.lexer as lexer
+    made = [0]
+
+    class Counted(lexer.Token):
+        __slots__ = ()
+
+        def __init__(self, *args):
+            made[0] += 1
+            super().__init__(*args)
+
+    monkeypatch.setattr(lexer, "Token", Counted)
+    with pytest.raises(SequenceSyntaxError):
+        parse_text("?" + junk * (100_000 // len(junk)) + "\nwait 1 ns\n", "junk.dotseq")
+    assert made[0] < 100, made[0]

@@ -7,6 +7,7 @@ The default run tries a few hundred examples per property; the long run
 sets ``DOTSEQ_FUZZ_EXAMPLES`` before importing this module.
 """
 
+import functools
 import os
 import signal
 from collections import Counter
@@ -18,7 +19,7 @@ import pytest
 import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from compiler import limits
+from compiler import limits, load
 from compiler.check import check
 from compiler.device import BUNDLED_DEFAULT, load_device, load_device_text
 from compiler.device.model import MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH
@@ -406,6 +407,106 @@ def test_limits_device_compiles_as_written():
     assert limits_outcome(limits_device(pads={"M1": ("100000", "48")}), _padding_ok) == "ok"
     assert limits_outcome(limits_device(pads={"P_A": ("16777216", None)}), _padding_ok) \
         == "refused by the memory estimate"
+# ---------------------------------------------------------------- special files
+
+SPECIAL_KINDS = ("/dev/zero", "/dev/null", "fifo", "folder", "link-loop", "/proc/self/environ",
+                 "link-to-zero", "sparse-huge", "socket")
+SPECIAL_ROLES = ("sequence", "include", "nested-include", "device", "--device")
+SPECIAL_MEMORY = 1 << 30     # address space a case may add: an unbounded read fails, not the machine
+
+
+@functools.lru_cache(maxsize=1)
+def special_dir() -> Path:
+    """A folder holding one of each special file (made once, removed at exit)."""
+    import atexit
+    import shutil
+    import socket
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-special-"))
+    atexit.register(shutil.rmtree, d, True)
+    os.mkfifo(d / "fifo")
+    (d / "folder").mkdir()
+    (d / "link-loop").symlink_to(d / "link-loop-2")
+    (d / "link-loop-2").symlink_to(d / "link-loop")
+    (d / "link-to-zero").symlink_to("/dev/zero")
+    with open(d / "sparse-huge", "wb") as f:     # 100 GB on paper, nothing on disk
+        f.truncate(100 << 30)
+    s = socket.socket(socket.AF_UNIX)
+    s.bind(str(d / "socket"))
+    s.close()
+    return d
+
+
+@contextmanager
+def address_space_cap(extra: int):
+    """Limit this process's address space to what it has now plus ``extra``
+    bytes while the block runs (a runaway read raises MemoryError)."""
+    import resource
+    with open("/proc/self/status") as f:
+        size = next(int(line.split()[1]) * 1024 for line in f if line.startswith("VmSize:"))
+    old = resource.getrlimit(resource.RLIMIT_AS)
+    cap = size + extra if old[1] == resource.RLIM_INFINITY else min(size + extra, old[1])
+    resource.setrlimit(resource.RLIMIT_AS, (cap, old[1]))
+    try:
+        yield
+    finally:
+        resource.setrlimit(resource.RLIMIT_AS, old)
+
+
+@settings(max_examples=max(N // 30, 60), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.sampled_from(SPECIAL_KINDS), st.sampled_from(SPECIAL_ROLES), st.booleans())
+def test_special_files(kind, role, relative):
+    """Sequence, include, device statement and --device pointing at the zero
+    device, the null device, a FIFO, a folder, a link loop, a process's
+    environment, a 100 GB sparse file or a socket: always dotseq's own error
+    naming the path as written, within the case time limit and 1 GiB more
+    address space, never a byte of the file shown."""
+    d = special_dir()
+    target = str(d / kind) if not kind.startswith("/") else kind
+    written = kind if relative and not kind.startswith("/") else target
+    with tempfile_dir() as work:
+        if relative and kind == "link-loop":     # a loop of its own beside the sequence
+            (work / "link-loop").symlink_to(work / "link-loop-2")
+            (work / "link-loop-2").symlink_to(work / "link-loop")
+        elif relative and not kind.startswith("/"):
+            (work / kind).symlink_to(d / kind)
+        seq = work / "s.dotseq"
+        device = None
+        if role == "sequence":
+            seq = Path(written) if not relative or kind.startswith("/") else work / written
+        elif role == "include":
+            seq.write_text(f'rot A x 90 deg\ninclude "{written}"\n', encoding="utf-8")
+        elif role == "nested-include":
+            (work / "mid.dotseq").write_text(f'include "{written}"\n', encoding="utf-8")
+            seq.write_text('rot A x 90 deg\ninclude "mid.dotseq"\n', encoding="utf-8")
+        elif role == "device":
+            seq.write_text(f'device "{written}"\nrot A x 90 deg\n', encoding="utf-8")
+        else:
+            seq.write_text("rot A x 90 deg\n", encoding="utf-8")
+            device = written if not relative or kind.startswith("/") else str(work / written)
+        with time_limit(CASE_SECONDS), address_space_cap(SPECIAL_MEMORY):
+            try:
+                load(seq, device)
+            except DotseqError as e:
+                text = e.render()
+                outcome = f"special {e.stage}"
+            else:
+                raise AssertionError(f"{kind} as {role} was read as input")
+    assert written in text, text
+    assert "SHELL=" not in text and "PATH=" not in text and "\x00" not in text, text
+    COUNTS[outcome] += 1
+
+
+@contextmanager
+def tempfile_dir():
+    import shutil
+    import tempfile
+    d = Path(tempfile.mkdtemp(prefix="dotseq-case-"))
+    try:
+        yield d
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
 
 
 # ---------------------------------------------------------------- failures found, kept
@@ -443,3 +544,109 @@ def test_long_fuzz_run():
     summary = json.loads(r.stdout.strip().splitlines()[-1])
     assert r.returncode == 0 and summary["failures"] == 0, r.stdout[-5000:] + r.stderr[-5000:]
     assert summary["cases"] >= 20_000
+
+
+# ---------------------------------------------------------------- run-folder atomicity
+
+RUN_CONTENTS = ("absent", "empty", "own", "own+file", "own+changed-preview", "own-no-marker",
+                "user-only")
+RUN_FAULTS = ("none", "--run 99", "--nodes 0", "--memory-limit 1kB", "enospc-bundle",
+              "enospc-report", "interrupt-preview", "kill")
+
+
+@functools.lru_cache(maxsize=1)
+def _old_run_folder() -> tuple[Path, float]:
+    """One complete run folder of test_run_atomic.SEQ_A (made once per
+    process) and the seconds a forked run of SEQ_B takes from its first
+    simulation report to its end (the span the kills are spread over)."""
+    import contextlib
+    import io
+    import tempfile
+    from test_run_atomic import SEQ_A, SEQ_B, dotseq_run, kill_run_at
+    base = Path(tempfile.mkdtemp(prefix="dotseq-fuzz-run-"))
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+        assert dotseq_run(SEQ_A, base / "old") == 0
+    (base / "calibrate").mkdir()
+    code, tail = kill_run_at(SEQ_B, base / "calibrate" / "out", None)
+    assert code == 0
+    return base / "old", tail
+
+
+@settings(max_examples=max(N // 100, 3), deadline=None,
+          suppress_health_check=[HealthCheck.too_slow])
+@given(st.one_of(st.sampled_from(RUN_CONTENTS[:3]), st.sampled_from(RUN_CONTENTS)),
+       st.one_of(st.just("kill"), st.sampled_from(RUN_FAULTS)),     # kills in about half the cases
+       st.floats(0.0, 1.2))
+def test_run_folder_atomicity(contents, fault, kill_at):
+    """`dotseq run` into a folder holding anything, with a bad argument, a
+    disk error, an interrupt or a SIGKILL at a random moment: afterwards
+    (and after the tidying the next run does) the folder holds the old
+    content byte for byte, or one complete new run; a refusal is exit 2."""
+    import contextlib
+    import errno
+    import io
+    import shutil
+    import tempfile
+    from unittest import mock
+    from compiler.cli import main
+    from test_run_atomic import (FAST, SEQ_B, check_after_kill, kill_run_at,
+                                 run_folder_sequence, snapshot)
+    old_run, tail = _old_run_folder()
+    with tempfile.TemporaryDirectory(prefix="dotseq-fuzz-case-") as d:
+        out = Path(d) / "out"
+        if contents.startswith("own"):
+            shutil.copytree(old_run, out)
+        elif contents != "absent":
+            out.mkdir()
+        if contents == "own+file":
+            (out / "notes.txt").write_text("a user's notes")
+        elif contents == "own+changed-preview":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        elif contents == "own-no-marker":
+            (out / "dotseq-run.json").unlink()
+        elif contents == "user-only":
+            (out / "preview.png").write_bytes(b"a user's picture")
+        before = snapshot(out) if out.exists() else None
+        foreign = contents not in ("absent", "empty", "own")
+        if fault == "kill":
+            code, _ = kill_run_at(SEQ_B, out, kill_at * tail)
+            if foreign:
+                assert code == 2 and (snapshot(out) == before)
+                outcome = "refused"
+            else:
+                outcome = check_after_kill(out, before, SEQ_B)
+                if contents == "empty" and outcome == "old":
+                    outcome = "old (empty)"
+            COUNTS[f"run: kill, {outcome}"] += 1
+            return
+        argv = ["run", str(SEQ_B), "-o", str(out), *FAST]
+        patches = []
+        if fault.startswith("--"):
+            argv += fault.split()
+        elif fault.startswith("enospc"):
+            where = fault.split("-")[1]
+            mod = "compiler.export.write_bundle" if where == "bundle" else \
+                "compiler.report.write_report"
+            patches.append(mock.patch(mod, side_effect=OSError(errno.ENOSPC,
+                                                               "No space left on device")))
+        elif fault == "interrupt-preview":
+            patches.append(mock.patch("compiler.preview.preview", side_effect=KeyboardInterrupt))
+        err = io.StringIO()
+        with contextlib.ExitStack() as stack:
+            for p in patches:
+                stack.enter_context(p)
+            stack.enter_context(contextlib.redirect_stdout(io.StringIO()))
+            stack.enter_context(contextlib.redirect_stderr(err))
+            code = main(argv)
+        assert "Traceback" not in err.getvalue()
+        if foreign or fault != "none":
+            assert code == (130 if fault == "interrupt-preview" and not foreign else 2), \
+                err.getvalue()
+            assert (snapshot(out) if out.exists() else None) == before
+            assert sorted(p.name for p in out.parent.iterdir()) == (["out"] if before is not None
+                                                                    else [])
+            COUNTS["run: refused or failed, old kept"] += 1
+        else:
+            assert code == 0, err.getvalue()
+            assert run_folder_sequence(out) == str(SEQ_B)
+            COUNTS["run: new"] += 1

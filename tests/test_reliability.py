@@ -228,17 +228,14 @@ def test_read_permission_error_is_reported(tmp_path, capsys, monkeypatch):
     seq.write_text("wait 1 ns\n", encoding="utf-8")
     dev = tmp_path / "locked.yaml"
     dev.write_text("name: x\n", encoding="utf-8")
-    real_text, real_bytes = Path.read_text, Path.read_bytes
+    real_open = os.open
 
-    def refuse(real):
-        def read(self, *a, **k):
-            if self.name.startswith("locked"):
-                raise PermissionError(13, "Permission denied", str(self))
-            return real(self, *a, **k)
-        return read
+    def refuse(path, *a, **k):      # every user file is opened by compiler.source
+        if Path(path).name.startswith("locked"):
+            raise PermissionError(13, "Permission denied", str(path))
+        return real_open(path, *a, **k)
 
-    monkeypatch.setattr(Path, "read_text", refuse(real_text))
-    monkeypatch.setattr(Path, "read_bytes", refuse(real_bytes))
+    monkeypatch.setattr(os, "open", refuse)
     for args, path in ((["check", seq], seq),
                        (["check", SEQUENCES / "cnot_pair.dotseq", "--device", dev], dev)):
         code, _, err = cli(capsys, *args)
@@ -577,3 +574,54 @@ def test_killed_report_write_leaves_previous_report_intact(tmp_path, monkeypatch
     # the next write (or tidy) removes what the dead writer left
     assert any("unfinished" in a for a in tidy(target))
     assert sorted(p.name for p in tmp_path.iterdir()) == ["report"]
+
+
+# ---------------------------------------------------------------- bounded refusals (issue 12)
+
+JUNK_LINE_BYTES = 8_000_000     # the 48 MB line of the report: tests/benchmarks/refusals.py
+
+
+def refuse_junk_line(path: Path, n_bytes: int, junk: str = "@ ") -> dict:
+    """A single line of ``junk`` repeated to ``n_bytes``, checked by a child
+    process: exit code, the first error, the count of the rest, time and
+    peak memory above the interpreter."""
+    with open(path, "w", encoding="utf-8") as f:
+        chunk = junk * (1_000_000 // len(junk))
+        for _ in range(n_bytes // len(chunk)):
+            f.write(chunk)
+        f.write("\n")
+    code, _, err, rss, seconds = run_cli(["check", path])
+    no_traceback(err)
+    return {"exit": code, "err": err, "seconds": round(seconds, 2),
+            "peak_rss_MiB": round(rss / 2**20, 1),
+            "above_interpreter_MiB": round((rss - baseline_rss()) / 2**20, 1)}
+
+
+@pytest.mark.parametrize("junk", ["@ ", "x "])
+def test_a_long_junk_line_is_refused_in_bounded_memory(junk, tmp_path):
+    """An 8 MB line of junk tokens: the first errors shown, the rest
+    counted; the peak memory is what the text itself takes (the line and
+    its copy in the error display), not a problem or token per junk word."""
+    r = refuse_junk_line(tmp_path / "junk.dotseq", JUNK_LINE_BYTES, junk)
+    assert r["exit"] == 2
+    assert f"{tmp_path / 'junk.dotseq'}:1:1: error:" in r["err"]
+    if junk == "@ ":
+        assert "unexpected character '@'" in r["err"] and "... and 1 more syntax error" in r["err"]
+    assert len(r["err"]) < 20_000
+    assert r["above_interpreter_MiB"] < 8 * JUNK_LINE_BYTES / 2**20, r
+    assert r["seconds"] < 60, r          # generous: a loaded 2-core machine
+
+
+def test_block_fan_out_refused_at_once(tmp_path):
+    """60 blocks each calling the previous twice (2^59 rotations): refused
+    by the estimate before any unrolling."""
+    lines = ["block b0(q) { rot q x 90 deg }"]
+    lines += [f"block b{k}(q) {{ do b{k - 1}(q) ; do b{k - 1}(q) }}" for k in range(1, 60)]
+    path = tmp_path / "fan.dotseq"
+    path.write_text("\n".join(lines + ["do b59(A)"]) + "\n", encoding="utf-8")
+    t0 = time.perf_counter()
+    with pytest.raises(SequenceError) as info:
+        load(path)
+    assert time.perf_counter() - t0 < 5
+    p = info.value.first
+    assert p.span.line == 61 and "unrolls to at least" in p.message and "steps" in p.hint + p.message

@@ -64,3 +64,28 @@ def test_format_then_parse_round_trip(value, dim):
     # printing keeps 12 significant digits, so parsing back agrees to that precision
     text = format_quantity(value, dim, digits=12)
     assert parse_quantity(text, dim) == pytest.approx(value, rel=1e-11)
+
+
+def test_format_distinct_adds_digits_until_the_values_differ():
+    """Issue 12, item 11: 't2 = 600 ns is longer than 2·T1 = 600 ns'."""
+    from compiler.units import TIME, FREQUENCY, NONE, format_distinct
+    assert format_distinct(600.0000002e-9, 600e-9, TIME) == ("600.0000002 ns", "600 ns")
+    assert format_distinct(600e-9, 600e-9, TIME) == ("600 ns", "600 ns")
+    assert format_distinct(1.2e9, 1.3e9, FREQUENCY) == ("1.2 GHz", "1.3 GHz")
+    assert format_distinct(1e-6, 999.9e-9, TIME) == ("1 us", "0.9999 us")     # one prefix
+    a, b = format_distinct(1.0 + 2 ** -52, 1.0, NONE)
+    assert a != b and float(a) == 1.0 + 2 ** -52
+
+
+def test_sweep_constraints_print_the_digits_that_differ():
+    """The sweep's own re-check of T2 ≤ 2·T1 (compiler/sweep/params.py)
+    names two different numbers, not '400 us ... 400 us'."""
+    import dataclasses
+    from compiler.device import BUNDLED_DEFAULT, load_device
+    from compiler.sweep.params import constraints
+    d = load_device(BUNDLED_DEFAULT)
+    q, dot = next(iter(d.dots.items()))
+    bad = dataclasses.replace(d, dots={**d.dots, q: dataclasses.replace(dot, t2=2 * dot.t1 * (1 + 1e-9))})
+    (ident, message, _), = constraints(bad)
+    left, right = message.split(" is longer than 2·T1 = ")
+    assert ident == f"{q}.t2>2t1" and left.split(" = ")[1] != right, message

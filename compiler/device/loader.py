@@ -29,7 +29,7 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
 from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
-                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_quantity,
+                     NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
                      parse_quantity)
 from . import exchange as xch
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
@@ -380,9 +380,9 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
     if fs is not None and band is not None:
         edge = max(abs(band.value[0].value), abs(band.value[1].value))
         if not edge < fs.value / 2:
-            r.error(band.node, f"{path}.if_band reaches {format_quantity(edge, FREQUENCY)}, "
-                               f"not below the Nyquist frequency "
-                               f"{format_quantity(fs.value / 2, FREQUENCY)} "
+            shown = format_distinct(edge, fs.value / 2, FREQUENCY)
+            r.error(band.node, f"{path}.if_band reaches {shown[0]}, "
+                               f"not below the Nyquist frequency {shown[1]} "
                                f"(half of sample_rate {m['sample_rate'][1].value})",
                     "narrow the IF band or raise the sample rate: |IF| < sample_rate/2")
     if len(r.problems.problems) > n_before:
@@ -534,9 +534,9 @@ def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
         # the one rule a model's parameters can break beyond their own signs
         u, eps = params.get("u"), params.get("detuning")
         node = m["detuning"][1] if "detuning" in m else knode
-        r.error(node, f"{path}.detuning |ε| = {format_quantity(abs(eps or 0.0), FREQUENCY)}"
-                      f" (as ε/h) is not below the charging energy U/h = "
-                      f"{format_quantity(u or 0.0, FREQUENCY)}",
+        shown = format_distinct(abs(eps or 0.0), u or 0.0, FREQUENCY)
+        r.error(node, f"{path}.detuning |ε| = {shown[0]}"
+                      f" (as ε/h) is not below the charging energy U/h = {shown[1]}",
                 "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
                 "charge moves to one dot)")
         return None
@@ -743,8 +743,13 @@ def _need_channel(r: _Reader, channels: dict, ref: _Val, path: str, kind: str) -
 
 def _build(r: _Reader, root: Node) -> Device:
     if not isinstance(root, MappingNode):
-        r.fail(root, f"a device file must be a mapping of 'key: value' lines at the top, "
-                     f"got {_kind_of(root)}", "start with 'name: ...', 'field: ...'")
+        # not a device file at all (perhaps some other file): neither its text
+        # nor its first line is shown
+        got = "plain text" if isinstance(root, ScalarNode) and root.value else _kind_of(root)
+        r.problems.add(f"this is not a device file: a device file must be a mapping of "
+                       f"'key: value' lines at the top, got {got}", r.span(root),
+                       "check the path; a device file starts with 'name: ...', 'field: ...'")
+        raise _Skip
     top = r.mapping(root, "the device file", TOP_REQUIRED + TOP_OPTIONAL, TOP_REQUIRED)
     name = r.get(top, "name", r.text, "name")
     notes = r.get(top, "notes", r.text, "notes")
@@ -774,9 +779,9 @@ def _build(r: _Reader, root: Node) -> Device:
         for nm, (ch, nodes) in raw_channels.items():
             if ch["sample_rate"] and first.sample_rate and ch["sample_rate"] != first.sample_rate:
                 node = nodes["sample_rate"][1] if "sample_rate" in nodes else nodes.get("kind", (root,))[0]
-                r.error(node, f"channels.{nm}.sample_rate is {format_quantity(ch['sample_rate'], FREQUENCY)} "
-                              f"but channel '{first.name}' runs at "
-                              f"{format_quantity(first.sample_rate, FREQUENCY)}",
+                shown = format_distinct(ch["sample_rate"], first.sample_rate, FREQUENCY)
+                r.error(node, f"channels.{nm}.sample_rate is {shown[0]} "
+                              f"but channel '{first.name}' runs at {shown[1]}",
                         "all channels of a device must share one sample rate (mixed rates are not "
                         "supported)")
 
@@ -929,6 +934,30 @@ def _yaml_problem(exc: yaml.YAMLError, text: str, file: str) -> Problem:
     return Problem(msg, Span(file, line, col, line, col + 1), hint, src)
 
 
+def _refuse_surrogates(r: _Reader, root: Node) -> None:
+    """A YAML escape such as "\\udc80" makes a lone surrogate: no character,
+    it cannot be printed or written as UTF-8.  Refused at its position."""
+    todo, bad = [root], False
+    while todo:             # no recursion: the tree may be deep
+        node = todo.pop()
+        if isinstance(node, ScalarNode):
+            if isinstance(node.value, str) and _SURROGATE.search(node.value):
+                r.error(node, "this string holds a lone surrogate escape (\\ud800 to \\udfff): "
+                        "not a character, it cannot be printed or saved",
+                        "write the character itself, or a \\U escape of a real character")
+                bad = True
+        elif isinstance(node, SequenceNode):
+            todo.extend(reversed(node.value))
+        elif isinstance(node, MappingNode):
+            for k, v in reversed(node.value):
+                todo.extend((v, k))
+    if bad:
+        raise _Skip
+
+
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
 def load_device_text(text: str, path: str = "<string>") -> Device:
     """Read a device description from YAML text.
 
@@ -971,6 +1000,7 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
                           "'dots:', 'channels:'")
     r = _Reader(text, path)
     try:
+        _refuse_surrogates(r, root)
         return _build(r, root)
     except _Skip:
         pass
@@ -979,13 +1009,18 @@ def load_device_text(text: str, path: str = "<string>") -> Device:
     raise DeviceError(problems)
 
 
-def load_device(path: str | Path) -> Device:
+def load_device(path: str | Path, *, statement: Span | None = None) -> Device:
     """Read a device description file.
 
     Parameters
     ----------
     path : str or pathlib.Path
-        YAML file, UTF-8.
+        YAML file, UTF-8; a regular file (not a folder, pipe, device or a
+        system file under /proc, /sys, /dev) of at most 4 bytes per character
+        of ``MAX_DEVICE_CHARS``, read no further than that.
+    statement : Span, optional
+        The ``device "..."`` statement that named the file: errors reading it
+        point there.
 
     Returns
     -------
@@ -994,26 +1029,26 @@ def load_device(path: str | Path) -> Device:
     Raises
     ------
     DeviceError
-        The file cannot be read (missing, a directory, not UTF-8) or its
-        content is wrong; every problem is positioned in the file.
+        The file cannot be read (missing, not a regular file, too large, not
+        UTF-8) or its content is wrong; every problem is positioned.
     """
-    p = Path(path)
-    where = Span(str(path), 0, 0, 0, 0)
+    from ..errors import read_source_line
+    from ..source import Oversize, Unreadable, read_capped
+    where = statement or Span(str(path), 0, 0, 0, 0)
+    shown = read_source_line(where.file, where.line) if statement else ""
     try:
-        size = p.stat().st_size
-        if size > 4 * MAX_DEVICE_CHARS and not p.is_dir():     # UTF-8: <= 4 bytes a character
-            raise DeviceError(f"cannot read device file '{path}': it is {size:,} bytes; a device "
-                              f"description is at most {MAX_DEVICE_CHARS:,} characters", where,
-                              "check the path: this does not look like a device file")
-        data = p.read_bytes()
-    except IsADirectoryError:
-        raise DeviceError(f"cannot read device file '{path}': it is a directory", where) from None
-    except FileNotFoundError:
-        raise DeviceError(f"cannot read device file '{path}': no such file", where,
-                          "check the path; bundled devices live in sequences/devices/") from None
-    except OSError as exc:
-        raise DeviceError(f"cannot read device file '{path}': {exc.strerror or exc}",
-                          where) from None
+        data = read_capped(path, 4 * MAX_DEVICE_CHARS)   # UTF-8: <= 4 bytes a character
+    except Unreadable as exc:
+        hint = exc.hint
+        if exc.reason == "no such file":
+            hint = "check the path; bundled devices live in sequences/devices/"
+        raise DeviceError(f"cannot read device file '{path}': {exc.reason}", where, hint,
+                          shown) from None
+    except Oversize as exc:
+        raise DeviceError(f"cannot read device file '{path}': it holds more than "
+                          f"{exc.limit:,} bytes; a device description is at most "
+                          f"{MAX_DEVICE_CHARS:,} characters", where,
+                          "check the path: this does not look like a device file", shown) from None
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 from .. import physics
 from ..units import (FIELD, FREQ_PER_VOLT, FREQUENCY, TEMPERATURE, TIME, VOLTAGE,
-                     format_quantity)
+                     format_distinct, format_quantity)
 from .exchange import Hubbard
 from .model import Device
 
@@ -56,6 +56,11 @@ class Finding:
 
 def _q(x: float, dim) -> str:
     return format_quantity(x, dim, 6)
+
+
+def _q2(a: float, b: float, dim) -> tuple[str, str]:
+    """Two values compared in a message, with the digits that tell them apart."""
+    return format_distinct(a, b, dim, 6)
 
 
 def validate(device: Device) -> list[Finding]:
@@ -105,12 +110,14 @@ def _dot_rules(device: Device, q: str, d, add) -> None:
             add(Finding(f"{p}.{attr}", "positive", f"{p}.{attr} = {_q(v, TIME)} is not above "
                         "zero", "coherence times are positive"))
     if d.t1 > 0 and d.t2 > 2 * d.t1 * (1 + REL_TOL):
-        add(Finding(f"{p}.t2", "t2<=2t1", f"{p}.t2 = {_q(d.t2, TIME)} is longer than 2·T1 = "
-                    f"{_q(2 * d.t1, TIME)}",
+        shown = _q2(d.t2, 2 * d.t1, TIME)
+        add(Finding(f"{p}.t2", "t2<=2t1", f"{p}.t2 = {shown[0]} is longer than 2·T1 = "
+                    f"{shown[1]}",
                     f"T2 cannot exceed 2·T1: check the units, or keep {q}.t2 at most 2·{q}.t1"))
     if d.t2 > 0 and d.t2_star > d.t2 * (1 + REL_TOL):
-        add(Finding(f"{p}.t2_star", "t2*<=t2", f"{p}.t2_star = {_q(d.t2_star, TIME)} is longer "
-                    f"than the Hahn-echo T2 = {_q(d.t2, TIME)}",
+        shown = _q2(d.t2_star, d.t2, TIME)
+        add(Finding(f"{p}.t2_star", "t2*<=t2", f"{p}.t2_star = {shown[0]} is longer "
+                    f"than the Hahn-echo T2 = {shown[1]}",
                     f"an echo only removes dephasing, so T2* ≤ T2: keep {q}.t2_star at most "
                     f"{q}.t2"))
     rabi_keys = (f"{p}.drive.b1_per_volt", f"{p}.drive")
@@ -135,9 +142,10 @@ def _dot_rules(device: Device, q: str, d, add) -> None:
                     "if_band, or check g and field"))
     full = d.drive.rabi_per_volt * max(abs(line.v_min), abs(line.v_max))
     if full > RWA_RATIO * f_l:
+        shown = _q2(full, RWA_RATIO * f_l, FREQUENCY)
         add(Finding(f"{p}.drive.rabi_per_volt", "rwa",
-                    f"{p}.drive: Rabi frequency at full scale {_q(full, FREQUENCY)} exceeds "
-                    f"{RWA_RATIO:g}·f_L = {_q(RWA_RATIO * f_l, FREQUENCY)}",
+                    f"{p}.drive: Rabi frequency at full scale {shown[0]} exceeds "
+                    f"{RWA_RATIO:g}·f_L = {shown[1]}",
                     "the rotating-wave approximation becomes doubtful at strong drive",
                     WARNING, near=rabi_keys))
     if device.temperature > 0 and \
@@ -218,9 +226,9 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
                         "calibration point", near=(p,)))
     pulse, idle = c.pulse_voltage, c.idle_voltage
     if pulse is not None and pulse <= idle:
+        shown = _q2(pulse, idle, VOLTAGE)
         add(Finding(f"{p}.pulse_voltage", "pulse>idle",
-                    f"{p}.pulse_voltage = {_q(pulse, VOLTAGE)} is not above idle_voltage = "
-                    f"{_q(idle, VOLTAGE)}",
+                    f"{p}.pulse_voltage = {shown[0]} is not above idle_voltage = {shown[1]}",
                     "J rises with barrier voltage: the exchange pulse must go above idle"))
     elif pulse is not None and valid:
         try:

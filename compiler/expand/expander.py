@@ -17,6 +17,7 @@ MAX_RUNS = 100_000          # sweep points in one file
 MAX_STEPS = 10_000_000      # steps in one run after unrolling (all runs: limits.MAX_TOTAL_STEPS)
 MAX_SWEEP_POINTS = 100_000  # points on one sweep axis
 MAX_CALL_DEPTH = 64
+_SATURATED = 2 ** 63        # step estimates stop growing here (a fan-out can reach 2^60)
 
 _AXIS_PHASE = {"x": 0.0, "y": math.pi / 2}
 
@@ -77,6 +78,9 @@ class Expander:
                               f"{budget.steps:,} steps ({human(BYTES_PER_STEP)} each): "
                               + FLAG_HINT)
         self.run_label = ""
+        # set when a step estimate read a swept value (run sizes may then differ)
+        self.estimate_reads_sweeps = False
+        self.swept_names: frozenset[str] = frozenset()
 
     # ------------------------------------------------------------ problems
     def source_line(self, span: Span | None) -> str:
@@ -186,6 +190,8 @@ class Expander:
                 self.fail(f"the sweeps make {n} or more runs, above the limit of {self.max_runs}",
                           ax.span, "use fewer sweep points")
                 break
+        # swept parameters and the lets computed from them (still pending here)
+        self.swept_names = frozenset(k for k, v in env.items() if isinstance(v, Pending))
         return axes, device, blocks, prepares
 
     def define(self, name: str, span: Span, defined: dict) -> None:
@@ -213,6 +219,71 @@ class Expander:
             values = tuple(vals)
         return P.SweepAxis(s.name, values, dim, s.span)
 
+    # ------------------------------------------------------------ estimates
+    def estimate(self, stmts, env: dict, blocks, sweeps, stack: tuple[str, ...] = (),
+                 memo: dict | None = None) -> int:
+        """A lower bound on the entries ``stmts`` add to a run (a 'together'
+        group counts once), found without unrolling: repeat counts multiply
+        their bodies, a block call costs its body (once per block and
+        arguments, memoised), saturating at 2^63.  A count or argument that
+        cannot be evaluated here counts as 0 (expansion reports it)."""
+        memo = {} if memo is None else memo
+        total = 0
+        for s in stmts:
+            if isinstance(s, T.Repeat):
+                n = self._quiet_count(s.count, env, sweeps)
+                if n:
+                    total += min(n * self.estimate(s.body, env, blocks, sweeps, stack, memo),
+                                 _SATURATED)
+            elif isinstance(s, T.Do):
+                total += self._estimate_call(s, env, blocks, sweeps, stack, memo)
+            elif isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Trigger, T.Together)):
+                total += 1
+            if total >= _SATURATED:
+                return _SATURATED
+        return total
+
+    def _quiet(self, e: T.Expr, env: dict, sweeps) -> Quantity | None:
+        """``e`` evaluated without recording problems; None when it fails."""
+        def lookup(n: T.Name):
+            if n.id in sweeps:
+                self.estimate_reads_sweeps = True
+            return plain(n)
+        plain = _lookup(env)
+        try:
+            q = evaluate(e, lookup)
+        except (EvalError, _PendingUse, _Stop, ArithmeticError, ValueError):
+            return None
+        return q if isinstance(q, Quantity) else None
+
+    def _quiet_count(self, e: T.Expr, env: dict, sweeps) -> int:
+        q = self._quiet(e, env, sweeps)
+        if q is None or q.dim != NONE or not q.value >= 1 or q.value != int(q.value):
+            return 0
+        return min(int(q.value), _SATURATED)
+
+    def _estimate_call(self, s: T.Do, env, blocks, sweeps, stack, memo) -> int:
+        b = blocks.get(s.name)
+        if (b is None or s.name in stack or len(stack) >= MAX_CALL_DEPTH
+                or len(s.args) != len(b.params)):
+            return 0
+        local = dict(env)
+        key: list = [s.name]
+        for p, a in zip(b.params, s.args):
+            if isinstance(a, T.Name) and a.id != "pi" and (
+                    a.id not in env or isinstance(env[a.id], QubitRef)):
+                v = env.get(a.id)
+                local[p] = v if isinstance(v, QubitRef) else QubitRef(a.id, a.span)
+                key.append(("qubit", local[p].name))
+            else:
+                q = self._quiet(a, env, sweeps)
+                local[p] = q if q is not None else _Broken()
+                key.append((q.value, q.dim) if q is not None else None)
+        k = tuple(key)
+        if k not in memo:
+            memo[k] = self.estimate(b.body, local, blocks, sweeps, stack + (s.name,), memo)
+        return memo[k]
+
     # ------------------------------------------------------------ pass 2
     def run(self, index: int, point: tuple[tuple[str, float, Dim], ...], blocks) -> P.Run:
         env: dict = {}
@@ -220,6 +291,7 @@ class Expander:
         steps: list = []
         prepare: list[tuple[str, str, Span]] = []
         seen_prep: dict[str, Span] = {}
+        memo: dict = {}
         for s in self.stmts:
             try:
                 if isinstance(s, T.Let):
@@ -236,6 +308,16 @@ class Expander:
                 elif isinstance(s, (T.DeviceStmt, T.BlockDef)):
                     pass
                 else:
+                    # refuse before unrolling what cannot fit (a fan-out of blocks
+                    # calling blocks twice reaches 2^60 steps in 60 lines)
+                    est = self.estimate((s,), env, blocks, self.swept_names, memo=memo)
+                    if est > 1 and len(steps) + est > self.max_steps:
+                        before = f" after the {len(steps):,} before it" if steps else ""
+                        raise self.too_many(
+                            f"this statement unrolls to {_count_text(est)} steps{before} "
+                            f"(repeat counts multiplied, block calls counted), above the limit "
+                            f"of {self.max_steps:,} steps of a run", s.span,
+                            "reduce repeat counts or block calls")
                     self.emit(s, env, blocks, steps, (), ())
                     if len(steps) > self.max_steps:
                         raise self.too_many(f"the run has more than {self.max_steps:,} steps "
@@ -412,6 +494,10 @@ class Expander:
                                     "unrolling", s.span, "reduce repeat counts", via)
 
 
+def _count_text(n: int) -> str:
+    return "more than 2^63" if n >= _SATURATED else f"at least {n:,}"
+
+
 def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_STEPS,
            budget: Budget | None = None) -> P.Expanded:
     """Expand a parsed file into its runs; raises SequenceError.
@@ -440,6 +526,18 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
             raise SequenceError(ex.problems)
         # members of 'together' groups are scheduled and recorded one by one
         total += sum(len(s.steps) if isinstance(s, P.Parallel) else 1 for s in runs[-1].steps)
+        if i == 0 and len(grid) > 1 and not ex.estimate_reads_sweeps and (
+                total * len(grid) > ex.max_total):
+            # no repeat count depends on the sweep: every run is as long as the first
+            if budget is not None:
+                message, hint = budget.steps_problem(ex.max_total)
+            else:
+                message = f"the runs expand to more than {MAX_TOTAL_STEPS:,} steps in all"
+                hint = "use fewer sweep points or repeats, or split the experiment"
+            span = axes[0].span
+            raise SequenceError(f"{message} ({len(grid):,} runs of {total:,} steps make "
+                                f"{total * len(grid):,})", span, hint,
+                                read_source_line(span.file, span.line))
         if total > ex.max_total:
             if budget is not None:
                 message, hint = budget.steps_problem(ex.max_total)

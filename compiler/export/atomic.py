@@ -368,5 +368,159 @@ def remove(tmp: Path) -> None:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+# ------------------------------------------------------------------ whole folders
+# A folder of several parts (``dotseq run``: a bundle, a preview and a
+# report) is written as one unit by the same two renames: every part goes
+# into one temporary sibling folder together with a marker file listing what
+# was written, and the temporary folder replaces the target.  The marker also
+# tells the tool's own earlier output from a user's files.
+
+SAFE_TOP_FILE_BYTES = 64 << 20     # top-level files larger than this are listed, not hashed
+
+
+def _sha256_file(path: Path) -> str:
+    import hashlib
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def read_marker(folder: Path, marker: str, fmt: str) -> dict | None:
+    """The marker ``folder/marker`` of format ``fmt`` as a dict, or None."""
+    try:
+        with open(folder / marker, encoding="utf-8") as f:
+            m = json.load(f)
+    except (OSError, ValueError, RecursionError):
+        return None
+    if not isinstance(m, dict) or m.get("format") != fmt or not isinstance(m.get("entries"), dict):
+        return None
+    return m
+
+
+def is_marked(folder: Path, marker: str, fmt: str) -> bool:
+    """Whether ``folder`` is a real folder with a readable marker of ``fmt``."""
+    return folder.is_dir() and not folder.is_symlink() and \
+        read_marker(folder, marker, fmt) is not None
+
+
+def unknown_entries(folder: Path, marker: str, fmt: str) -> list[str]:
+    """Entries of ``folder`` the writer did not put there: every entry when
+    there is no marker; else those the marker does not list, and top-level
+    files whose content changed since (checked by SHA-256)."""
+    names = sorted(os.listdir(folder))
+    m = read_marker(folder, marker, fmt)
+    if m is None:
+        return names
+    entries = m["entries"]
+    out = []
+    for n in names:
+        if n == marker:
+            continue
+        rec = entries.get(n)
+        p = folder / n
+        if not isinstance(rec, dict):
+            out.append(n)
+        elif rec.get("kind") == "file":
+            try:
+                same = (p.is_file() and not p.is_symlink()
+                        and p.stat().st_size == rec.get("size")
+                        and (rec.get("sha256") is None or _sha256_file(p) == rec.get("sha256")))
+            except OSError:
+                same = False
+            if not same:
+                out.append(f"{n} (changed since dotseq wrote it)")
+        elif not (p.is_dir() and not p.is_symlink()):
+            out.append(n)
+    return out
+
+
+def folder_state(target: Path, marker: str, fmt: str, allow_unknown: bool, fail_with,
+                 option: str) -> str:
+    """``"absent"``, ``"empty"`` or ``"bundle"`` (an earlier output of this
+    writer, to be replaced) for a whole-folder target.
+
+    Raises (built by ``fail_with(path, message, hint)``) when the target is a
+    link or a file, or holds entries the writer did not write and
+    ``allow_unknown`` is False; the message names them and ``option``.
+    """
+    if not os.path.lexists(target):
+        return ABSENT
+    if target.is_symlink():
+        raise fail_with(target, "the output path is a symbolic link; dotseq does not replace "
+                        "links", "give the real folder, or choose another -o folder")
+    if not target.is_dir():
+        raise fail_with(target, "the output path exists and is a file, not a folder; nothing "
+                        "was written", "choose another -o folder")
+    try:
+        if not any(os.scandir(target)):
+            return EMPTY
+        unknown = unknown_entries(target, marker, fmt)
+    except OSError as e:
+        raise fail_with(target, f"cannot read the output folder: {e.strerror or e}",
+                        "check its permissions or choose another -o folder") from None
+    if unknown and not allow_unknown:
+        shown = ", ".join(unknown[:3]) + (f" and {len(unknown) - 3} more"
+                                          if len(unknown) > 3 else "")
+        first = target / unknown[0].split(" (")[0]
+        raise fail_with(first, f"the output folder {target} holds files dotseq did not write "
+                        f"({shown}); replacing the folder would delete them, so nothing was "
+                        "written and nothing was deleted",
+                        f"move them out, choose another -o folder, or give {option} to replace "
+                        "the whole folder (deleting them)")
+    return BUNDLE
+
+
+def write_folder(out_dir, fill, *, marker: str, fmt: str, what: str, fail_with,
+                 allow_unknown: bool = False, option: str = "", info: dict | None = None) -> Path:
+    """Write a whole output folder as one unit: the old content or all of
+    the new, never a mix.
+
+    ``fill(tmp)`` writes every part into the temporary folder ``tmp`` (a
+    sibling of the target) and may return a dict of extra JSON values for
+    the marker; then the marker ``tmp/marker`` (``{"format": fmt, "entries":
+    {...}, ...}``: each top-level entry, and size and SHA-256 of each top-level
+    file) is written and ``tmp`` replaces the target (:func:`publish`).
+    Leftovers of killed writers are tidied first (:func:`recover`).
+
+    The target must be absent, empty, or an earlier folder of this writer
+    holding nothing else (``allow_unknown`` lifts this; ``option`` is named
+    in the refusal).  Errors are built with ``fail_with(path, message,
+    hint)``; an OSError while writing becomes such an error and leaves the
+    target as it was; the temporary folder is removed on any failure,
+    including KeyboardInterrupt (re-raised).
+    """
+    target = resolve_output_folder(out_dir, what, fail_with)
+    complete = lambda p: is_marked(p, marker, fmt)  # noqa: E731
+    try:
+        recover(target, complete)
+    except OSError:
+        pass
+    folder_state(target, marker, fmt, allow_unknown, fail_with, option)
+
+    def fill_and_mark(tmp: Path) -> None:
+        extra = fill(tmp) or {}
+        entries = {}
+        for e in sorted(os.scandir(tmp), key=lambda e: e.name):
+            if e.is_file(follow_symlinks=False):
+                size = e.stat(follow_symlinks=False).st_size
+                entries[e.name] = {"kind": "file", "size": size,
+                                   "sha256": _sha256_file(Path(e.path))
+                                   if size <= SAFE_TOP_FILE_BYTES else None}
+            else:
+                entries[e.name] = {"kind": "folder"}
+        body = {"format": fmt, "format_version": 1, "entries": entries, **extra}
+        with open(tmp / marker, "x", encoding="utf-8") as f:
+            f.write(json.dumps(body, indent=2, sort_keys=True) + "\n")
+            f.flush()
+            os.fsync(f.fileno())
+
+    return replace_folder(target, fill_and_mark,
+                          lambda: folder_state(target, marker, fmt, allow_unknown, fail_with,
+                                               option), fail_with, what)
+
+
 __all__ = ["resolve_target", "target_state", "recover", "make_temp", "publish", "remove",
-           "leftovers", "is_bundle"]
+           "leftovers", "is_bundle", "write_folder", "folder_state", "unknown_entries",
+           "is_marked", "read_marker"]

@@ -11,12 +11,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import (Problem, SequenceError, SequenceSyntaxError, Span, DotseqError,
-                      did_you_mean, remember_source, suggest)
+from ..errors import (Problem, ProblemCap, SequenceError, SequenceSyntaxError, Span,
+                      DotseqError, did_you_mean, remember_source, suggest)
 from ..limits import Budget
 from ..units import UNIT_WORDS
 from . import tree as T
-from .lexer import MAX_FILE_CHARS, Token, iter_tokens
+from ..source import Oversize, Unreadable, inside, read_capped
+from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
             "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
@@ -51,14 +52,17 @@ class Parser:
         self.lines = text.split("\n") if lines is None else lines
         # tokens are streamed: the current one, the one before (for spans)
         # and at most one looked ahead
-        self.lex_problems: list[Problem] = []
-        self._tokens = iter_tokens(text, file, self.lex_problems, self.lines)
+        # problems of the lexer (reported first) and the parser: the first few
+        # are kept, the rest counted
+        self.problems = ProblemCap()
+        self._skip = Skip(text)
+        self._tokens = iter_tokens(text, file, self.problems, self.lines, self._skip)
         self._ahead: Token | None = None
         self.tok: Token = next(self._tokens)
         self.prev: Token = self.tok
-        self.problems: list[Problem] = []
         self.chain = chain + (str(Path(file).resolve()) if not file.startswith("<") else file,)
-        self.depth = 0
+        self.depth = 0          # statement bodies: repeat, together, block
+        self.expr_depth = 0     # parentheses and signs within an expression
         self.expr_level = 0     # nesting of expr() calls within one expression
         self.expr_ops = 0       # operators read in the current expression
 
@@ -87,7 +91,7 @@ class Parser:
         return ""
 
     def error(self, message: str, span: Span, hint: str = "") -> _Bail:
-        self.problems.append(Problem(message, span, hint, self.line_text(span)))
+        self.problems.add(Problem(message, span, hint, self.line_text(span)), order=1)
         return _Bail()
 
     def describe(self, t: Token) -> str:
@@ -129,8 +133,22 @@ class Parser:
         """From the start of token ``a`` to the end of token ``b``."""
         return Span(a.file, a.line, a.col, b.line, b.end_col)
 
+    def skip_line(self) -> None:
+        """Skip the rest of the current line without reading its tokens."""
+        while self._ahead is not None and self.tok.kind not in ("NEWLINE", "EOF"):
+            self.advance()
+        if self.tok.kind not in ("NEWLINE", "EOF"):
+            self._skip.goto = self._skip.line_end()
+            self.advance()
+
     def sync(self) -> None:
-        """Skip to the end of the current statement (respecting braces)."""
+        """Skip to the end of the current statement (respecting braces).
+        Names, numbers and operators between are passed over as text, not
+        tokens; once the problems are only counted, the rest of the line
+        is skipped (for a problem counted, not kept)."""
+        if self.problems.dropped:
+            self.skip_line()
+            return
         depth = 0
         while self.tok.kind != "EOF":
             t = self.tok
@@ -142,6 +160,11 @@ class Parser:
                 depth -= 1
             elif depth == 0 and (t.kind == "NEWLINE" or (t.kind == "OP" and t.text == ";")):
                 return
+            if self._ahead is None and t.kind != "NEWLINE":
+                if depth == 0:
+                    self._skip.goto = self._skip.skippable_end()
+                else:       # inside braces: ';' does not end the statement
+                    self._skip.goto, depth = self._skip.past_braces(depth)
             self.advance()
 
     # ------------------------------------------------------------ statements
@@ -159,7 +182,10 @@ class Parser:
             if self.at_op("}"):
                 if top:
                     self.error("'}' without a matching '{'", self.tok.span, "remove it")
-                    self.advance()
+                    if self.problems.dropped:
+                        self.skip_line()
+                    else:
+                        self.advance()
                     continue
                 break
             try:
@@ -224,21 +250,42 @@ class Parser:
         rel = s.text[1:-1]
         base = Path(self.file).parent if not self.file.startswith("<") else Path.cwd()
         target = (base / rel)
-        resolved = str(target.resolve())
+        try:
+            resolved = str(target.resolve())
+        except (RuntimeError, OSError):     # Python 3.11: RuntimeError on a link loop
+            raise self.error(f"cannot read included file '{rel}': it is a loop of symbolic "
+                             "links", s.span, f"tried {target}; point the link at a real "
+                             "file") from None
+        root = self.chars.root
+        if root is not None and not inside(resolved, root):
+            raise self.error(f"included file '{rel}' lies outside the sequence's folder {root}",
+                             s.span, "--confine reads only files in the sequence's folder tree: "
+                             "move the file there, or leave out --confine") from None
         if resolved in self.chain:
             chain = [Path(c).name for c in self.chain] + [Path(resolved).name]
             raise self.error("include cycle: " + " -> ".join(chain), s.span,
                              "remove one of these include statements")
         if len(self.chain) > MAX_INCLUDE_DEPTH:
             raise self.error(f"includes nested deeper than {MAX_INCLUDE_DEPTH} files", s.span)
+        echo = rel.endswith(SEQUENCE_SUFFIX)
         try:
-            sub = parse_path(target, chain=self.chain, _chars=self.chars)
+            sub = parse_path(target, chain=self.chain, _chars=self.chars, _echo=echo)
         except DotseqError as e:
-            self.problems.extend(e.problems)
+            if not echo:    # it may be any file (a system file): say nothing of its text
+                first = e.problems[0].span
+                raise self.error(
+                    f"included file '{rel}' does not read as a sequence file ({len(e.problems)} "
+                    f"problem{'s' * (len(e.problems) != 1)}"
+                    + (f", the first on line {first.line}" if first and first.line else "")
+                    + f"); its text is not shown as its name does not end in {SEQUENCE_SUFFIX}",
+                    s.span, f"check the path, or name the file *{SEQUENCE_SUFFIX} to see "
+                    "the problems") from None
+            self.problems.extend_from(e, order=1)
             raise _Bail() from None
         except _MissingInclude as e:
             raise self.error(f"cannot read included file '{rel}': {e.reason}", s.span,
-                             f"tried {target}; paths are relative to the including file") from None
+                             f"tried {target}; paths are relative to the including file"
+                             if e.reason == "no such file" else e.hint) from None
         except _TooLarge as e:
             raise self.error(f"cannot include '{rel}': {e.message}", s.span, e.hint) from None
         return T.Include(rel, str(target), sub.body, span)
@@ -396,12 +443,18 @@ class Parser:
         return T.Trigger(label, self.span_from(start))
 
     def braced(self, what: str) -> tuple[T.Stmt, ...]:
+        if self.depth >= MAX_NESTING and self.at_op("{"):
+            # before the '{' is read, so the statement is skipped with its body
+            raise self.error(f"repeat, together and block bodies nested deeper than "
+                             f"{MAX_NESTING} levels", self.tok.span,
+                             "flatten the nesting: multiply repeat counts, or define the "
+                             "inner part as a block and call it")
         opening = self.expect_op("{", f"{what} needs a body in braces {{ ... }}")
         self.depth += 1
-        if self.depth > MAX_NESTING:
-            raise self.error(f"blocks nested deeper than {MAX_NESTING}", self.tok.span)
-        body = self.parse_body(top=False)
-        self.depth -= 1
+        try:
+            body = self.parse_body(top=False)
+        finally:
+            self.depth -= 1
         if not self.at_op("}"):
             raise self.error(f"the '{{' that opens the body of {what} is never closed",
                              opening.span, "add '}' at the end of the body")
@@ -473,9 +526,9 @@ class Parser:
         if self.expr_level == 0:
             self.expr_ops = 0
         self.expr_level += 1
-        self.depth += 1
+        self.expr_depth += 1
         try:
-            if self.depth > MAX_NESTING:
+            if self.expr_depth > MAX_NESTING:
                 raise self.error(f"expression nested deeper than {MAX_NESTING}", self.tok.span,
                                  "simplify it or split it with let")
             left = self.term()
@@ -485,7 +538,7 @@ class Parser:
                 left = T.Binary(op, left, right, Span.join(left.span, right.span))
             return left
         finally:
-            self.depth -= 1
+            self.expr_depth -= 1
             self.expr_level -= 1
 
     def term(self) -> T.Expr:
@@ -499,13 +552,14 @@ class Parser:
     def unary(self) -> T.Expr:
         if self.tok.kind == "OP" and self.tok.text in ("-", "+"):
             t = self.operator()
-            self.depth += 1
-            if self.depth > MAX_NESTING:
-                raise self.error("expression nested too deeply", t.span)
+            self.expr_depth += 1
             try:
+                if self.expr_depth > MAX_NESTING:
+                    raise self.error(f"expression nested deeper than {MAX_NESTING}", t.span,
+                                     "simplify it or split it with let")
                 operand = self.unary()
             finally:
-                self.depth -= 1
+                self.expr_depth -= 1
             return T.Unary(t.text, operand, Span(t.file, t.line, t.col, operand.span.end_line,
                                                  operand.span.end_col))
         return self.power()
@@ -582,8 +636,9 @@ class _Chars:
     """Characters read for one parse: the file and everything it includes
     (a file included a thousand times counts a thousand times)."""
 
-    def __init__(self, budget: Budget | None):
+    def __init__(self, budget: Budget | None, root: str | None = None):
         self.budget = budget
+        self.root = root    # with --confine: the folder includes must lie in
         self.limit = min(MAX_FILE_CHARS, budget.chars) if budget is not None else MAX_FILE_CHARS
         self.used = 0
 
@@ -602,24 +657,29 @@ class _Chars:
 
 
 def _read(path: Path, chars: _Chars) -> str:
+    """The text of a regular file, read no further than the characters left
+    (bytes >= characters, so the byte cap never refuses a file that fits)."""
     try:
-        if path.is_dir():
-            raise _MissingInclude("it is a directory, not a file",
-                                  f"give a sequence file (ending in {SEQUENCE_SUFFIX})")
-        chars.check(path.stat().st_size)    # bytes >= characters: refuse before reading
-        return path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise _MissingInclude("no such file", "check the path") from None
+        data = read_capped(path, max(chars.limit - chars.used, 0))
+    except Unreadable as e:
+        hint = e.hint
+        if e.reason.startswith("it is a directory"):
+            hint = f"give a sequence file (ending in {SEQUENCE_SUFFIX})"
+        raise _MissingInclude(e.reason, hint) from None
+    except Oversize as e:
+        chars.check(e.size)
+        raise   # pragma: no cover - check() raises above the limit
+    try:
+        return data.decode("utf-8")
     except UnicodeDecodeError as e:
         raise _MissingInclude(f"it is not UTF-8 text (byte 0x{e.object[e.start]:02x} at offset "
                               f"{e.start})", "save it as UTF-8 text; dotseq reads only text "
                               "files") from None
-    except OSError as e:
-        raise _MissingInclude(e.strerror or str(e), "check the path and its permissions") from None
 
 
 def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
-               budget: Budget | None = None, _chars: _Chars | None = None) -> T.SourceFile:
+               budget: Budget | None = None, _chars: _Chars | None = None,
+               _echo: bool = True) -> T.SourceFile:
     """Parse sequence text; raises SequenceSyntaxError listing every problem.
 
     ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
@@ -629,21 +689,25 @@ def parse_text(text: str, file: str = "<text>", chain: tuple[str, ...] = (), *,
         chars.take(len(text))
     except _TooLarge as e:
         raise SequenceSyntaxError(e.message, Span(file, 1, 1, 1, 1), e.hint) from None
-    p = Parser(text, file, chain, lines=remember_source(file, text), chars=chars)
+    # a file included under another name than *.dotseq may be anything (a system file):
+    # its lines are never shown in messages
+    p = Parser(text, file, chain, lines=remember_source(file, text, echo=_echo), chars=chars)
     result = p.parse_file()
-    if p.lex_problems or p.problems:
-        raise SequenceSyntaxError(p.lex_problems + p.problems)
+    p.problems.raise_if_any(SequenceSyntaxError)
     return result
 
 
 def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget | None = None,
-               _chars: _Chars | None = None) -> T.SourceFile:
+               confine: bool = False, _chars: _Chars | None = None,
+               _echo: bool = True) -> T.SourceFile:
     """Read and parse one sequence file (and the files it includes).
 
     ``budget`` (from :func:`compiler.limits.budget`) bounds the characters
-    read, includes and all, by the memory the tree would take."""
+    read, includes and all, by the memory the tree would take.  ``confine``
+    refuses includes outside the folder tree of ``path``."""
     path = Path(path)
-    chars = _chars if _chars is not None else _Chars(budget)
+    chars = _chars if _chars is not None else _Chars(
+        budget, str(Path(path).absolute().parent) if confine else None)
     if not chain:
         try:
             text = _read(path, chars)
@@ -654,7 +718,7 @@ def parse_path(path: str | Path, chain: tuple[str, ...] = (), *, budget: Budget 
             raise SequenceError(e.message, Span(str(path), 0, 0, 0, 0), e.hint) from None
     else:
         text = _read(path, chars)
-    tree = parse_text(text, str(path), chain, _chars=chars)
+    tree = parse_text(text, str(path), chain, _chars=chars, _echo=_echo)
     if not chain and not tree.body:
         # an empty file is almost always a wrong path or a copy that failed
         raise SequenceError(f"the sequence file '{path}' holds no statements"

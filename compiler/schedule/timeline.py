@@ -29,7 +29,7 @@ from ..errors import Problem, ScheduleError, Span, read_source_line
 from ..physics import precession_sign
 from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
                       frame_updates_after, pair_gate, spectator_phase)
-from ..units import FREQUENCY, VOLTAGE, format_quantity as fq
+from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 
 # Below this ratio of J to the Zeeman difference an exchange gate is not a
 # clean √SWAP even with frame compensation (common practice, no source; the
@@ -41,6 +41,7 @@ CLEAN_EXCHANGE_RATIO = 5.0
 EXCHANGE_FIDELITY_WARN = 0.999
 TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
+MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
 
 
 # ------------------------------------------------------------ slot information
@@ -405,7 +406,15 @@ class _Scheduler:
         self.place_exchange(step, d, t0, group)
 
     def place_idle(self, step: P.Idle, t0: int, group: int, t_group) -> None:
-        self.place_simple(step, t0, int(round(step.duration / self.dt)), group)
+        n = step.duration / self.dt
+        if not n <= MAX_RUN_SAMPLES - t0:     # also inf and nan
+            self.fail(f"this wait of {step.duration:.4g} s ends beyond "
+                      f"{MAX_RUN_SAMPLES:,} samples ({fq(MAX_RUN_SAMPLES * self.dt, TIME)} "
+                      "at this sample rate), the longest run dotseq can place", step,
+                      "a run is placed on an integer sample grid exact up to 2^53 samples; "
+                      "shorten the wait")
+            return
+        self.place_simple(step, t0, int(round(n)), group)
 
     def place_readout(self, step: P.Readout, t0: int, group: int, t_group) -> None:
         self.place_simple(step, t0, int(math.ceil(self.device.readout.duration / self.dt - 1e-9)),

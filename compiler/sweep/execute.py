@@ -87,7 +87,8 @@ def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
     ctx = multiprocessing.get_context("spawn")
     handed: set = set()
     with child_threads():
-        ex = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_started)
+        ex = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_started,
+                                 initargs=(os.getpid(),))
         futures = {}
 
         def harvest() -> None:
@@ -132,49 +133,105 @@ def require_dask():
     return distributed
 
 
-def _probe(address: str, timeout: float = 5.0) -> None:
-    """Fail at once when nothing listens at a tcp:// address (the Dask client
-    would retry until its timeout)."""
-    import socket
-    rest = address[len("tcp://"):] if address.startswith("tcp://") else address
-    if "://" in rest:
-        return                                   # another protocol: let Dask try
+DEFAULT_CLUSTER_TIMEOUT = 10.0      # seconds to reach a Dask scheduler and hear it answer
+SCHEMES = ("tcp", "tls")            # Dask's network protocols dotseq accepts in --cluster
+
+
+def check_address(address: str) -> str:
+    """``address`` when it reads as SCHEME://HOST:PORT with a Dask network
+    scheme (tcp, tls); a bare HOST:PORT gets tcp://.  Checked before
+    anything is planned or written.
+
+    Raises
+    ------
+    UsageError
+        Another scheme (http, ...), no host or no port.
+    """
+    text = address.strip()
+    scheme, sep, rest = text.partition("://")
+    if not sep:
+        scheme, rest = "tcp", text
+    if scheme.lower() not in SCHEMES:
+        raise UsageError(f"--cluster '{address}': '{scheme}://' is not an address of a Dask "
+                         f"scheduler (it listens on {' or '.join(s + '://' for s in SCHEMES)})",
+                         hint="give the scheduler's address as tcp://HOST:PORT, e.g. --cluster "
+                              "tcp://10.0.0.5:8786 (not its dashboard's http:// address)")
     host, sep, port = rest.rpartition(":")
-    if not sep or not port.isdigit() or not host:
-        raise UsageError(f"--cluster '{address}': give the scheduler as tcp://HOST:PORT",
+    if not sep or not port.isdigit() or not host or not 0 < int(port) < 65536 or "/" in rest:
+        raise UsageError(f"--cluster '{address}': give the scheduler as {scheme}://HOST:PORT",
                          hint="e.g. --cluster tcp://10.0.0.5:8786")
-    try:
+    return f"{scheme.lower()}://{rest}"
+
+
+def _unreachable(address: str, why: str):
+    return fail(None, f"cannot reach the Dask scheduler at {address}: {why}",
+                "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
+                f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used")
+
+
+def _hello(address: str, timeout: float) -> None:
+    """Connect to ``address`` and ask it who it is, all within ``timeout``
+    seconds; anything but a Dask scheduler's answer (nothing listening, a
+    server that says nothing or sends other data) is refused.  The Dask
+    client itself would wait without a limit on a server that accepts and
+    stays silent."""
+    import asyncio
+    import socket
+    from distributed.comm import connect as comm_connect
+    host, _, port = address.partition("://")[2].rpartition(":")
+    try:                             # nothing listening: say so at once (Dask would retry)
         with socket.create_connection((host.strip("[]"), int(port)), timeout=timeout):
             pass
+    except socket.timeout:
+        raise _unreachable(address, f"no answer within {timeout:g} s") from None
     except OSError as e:
-        raise fail(None, f"cannot reach the Dask scheduler at {address}: {e.strerror or e}",
-                   "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
-                   f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used") \
-            from None
+        raise _unreachable(address, e.strerror or str(e)) from None
+
+    async def ask():
+        comm = await comm_connect(address, timeout=timeout)
+        try:
+            await comm.write({"op": "identity", "reply": True})
+            return await comm.read()
+        finally:
+            comm.abort()
+    try:
+        reply = asyncio.run(asyncio.wait_for(ask(), timeout))
+    except (asyncio.TimeoutError, TimeoutError):
+        raise _unreachable(address, f"no answer within {timeout:g} s (is a Dask scheduler "
+                           "listening there, or another server?)") from None
+    except KeyboardInterrupt:
+        raise
+    except BaseException as e:  # noqa: BLE001 - another server's data can fail in any way
+        what = (f"the connection failed ({e.strerror or str(e)[:200]})" if isinstance(e, OSError)
+                else f"the answer is not a Dask scheduler's ({type(e).__name__})")
+        raise _unreachable(address, what) from None
+    if not (isinstance(reply, dict) and reply.get("type") == "Scheduler"):
+        raise _unreachable(address, "the server there is not a Dask scheduler")
 
 
-def connect(address: str, timeout: float = 15.0):
+def connect(address: str, timeout: float = DEFAULT_CLUSTER_TIMEOUT):
     """``(client, worker info, address)``: a Dask client on the scheduler at
-    ``address`` (tcp://HOST:PORT), whose workers must run this dotseq version."""
+    ``address`` (tcp://HOST:PORT), whose workers must run this dotseq
+    version; every network step is bounded by ``timeout`` seconds."""
     from .. import __version__
     distributed = require_dask()
-    _probe(address)
+    address = check_address(address)
+    _hello(address, timeout)
     try:
         client = distributed.Client(address, timeout=timeout, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as e:
-        raise fail(None, f"cannot reach the Dask scheduler at {address}: {e}",
-                   "check the address (tcp://HOST:PORT) and that the scheduler runs; without "
-                   f"--cluster (and with {CLUSTER_VARIABLE} unset) the local cores are used") \
-            from None
+    except KeyboardInterrupt:
+        raise
+    except Exception as e:  # noqa: BLE001
+        raise _unreachable(address, f"{type(e).__name__}: {e}") from None
     try:
         info = client.run(worker_info)
     except Exception as e:  # noqa: BLE001
-        client.close()
+        client.close(timeout=timeout)
         raise fail(None, f"the Dask workers at {address} did not answer: {e}",
                    "check that the workers run and can import dotseq") from None
     bad = sorted({v.get("dotseq_version") for v in info.values()} - {__version__}, key=str)
     if bad:
-        client.close()
+        client.close(timeout=timeout)
         raise fail(None, f"the Dask workers at {address} run dotseq {', '.join(map(str, bad))}, "
                          f"this is dotseq {__version__}",
                    "install the same dotseq version on every worker")

@@ -16,14 +16,16 @@ import numpy as np
 
 from .. import __version__
 from ..check import check
-from ..device import BUNDLED_DEFAULT, load_device
+from ..device import device_of
 from ..device.model import Device
 from ..errors import MAX_SHOWN, Problem, DotseqError, UsageError
 from ..expand import expand
+from ..limits import MAX_SOURCE_CHARS
 from ..parse import parse_path
 from ..parse import tree as T
 from ..simulate.model import gauss_hermite
 from ..simulate.run import SimOptions, _end_sample, compile_run
+from ..source import Oversize, Unreadable, read_capped
 from ..units import format_quantity
 from . import params as PR
 from .spec import MAX_POINTS, si_symbol, split_arg, to_spec
@@ -48,9 +50,9 @@ def _includes(body, out: list) -> list:
 def _sha256(paths) -> str:
     h = hashlib.sha256()
     for p in paths:
-        try:
-            data = Path(p).read_bytes()
-        except OSError:
+        try:    # files already read once: regular files, within the source cap
+            data = read_capped(p, 4 * MAX_SOURCE_CHARS)
+        except (Unreadable, Oversize):
             data = b""
         h.update(hashlib.sha256(data).digest())
     return h.hexdigest()
@@ -68,7 +70,8 @@ def _spec_record(s: VarySpec) -> dict:
 
 def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                fixed: list[str] | tuple[str, ...] = (), *, device: str | Path | None = None,
-               options: SimOptions = SimOptions(), budget: bool = False) -> SweepPlan:
+               options: SimOptions = SimOptions(), budget: bool = False,
+               confine: bool = False) -> SweepPlan:
     """Read, check and lay out a sweep.
 
     Parameters
@@ -108,10 +111,10 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                          nodes=options.nodes, quadrature=options.quadrature, budget=False,
                          steps=False)
     raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
-    tree = parse_path(path)
+    tree = parse_path(path, confine=confine)
     expanded = expand(tree)
-    dev_path = str(device or expanded.device_path or BUNDLED_DEFAULT)
-    dev0 = load_device(dev_path)
+    dev0 = device_of(expanded, device, confine=confine)
+    dev_path = str(dev0.path)
     device_ps = PR.device_params(dev0)
     seq_ps = PR.sequence_params(tree, expanded)
 

@@ -121,11 +121,31 @@ def evaluate_point(task: PointTask) -> PointResult:
                            wall_s=time.perf_counter() - t0)
 
 
-def worker_started() -> None:
+PARENT_POLL_S = 0.2     # how often a local worker looks whether its parent still runs
+
+
+def worker_started(parent: int | None = None) -> None:
     """Initializer of a local worker process: Ctrl-C is the parent's to
-    handle (it stops the workers itself), so the worker ignores SIGINT."""
+    handle (it stops the workers itself), so the worker ignores SIGINT.
+
+    With ``parent`` (the sweep's process id) a watchdog thread ends this
+    worker at once when that process is gone (killed with SIGKILL, it
+    cannot stop its workers itself): the worker is then re-parented, so
+    ``os.getppid()`` changes.  Once every worker has ended, the
+    multiprocessing resource tracker (which waits for the last holder of its
+    pipe) ends too."""
     import signal
+    import threading
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if parent is None:
+        return
+
+    def watch() -> None:
+        while True:
+            time.sleep(PARENT_POLL_S)
+            if os.getppid() != parent:
+                os._exit(1)
+    threading.Thread(target=watch, name="dotseq-parent-watchdog", daemon=True).start()
 
 
 def worker_info() -> dict:

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from . import figure as FIG
 from . import store
-from .execute import WorkersLost, connect, run_dask, run_pool, run_serial
+from .execute import DEFAULT_CLUSTER_TIMEOUT, WorkersLost, connect, run_dask, run_pool, run_serial
 from .point import evaluate_point
 from .table import csv_text, json_text, make_table
 from .types import ERROR, PointResult, SweepPlan, SweepTable
@@ -46,7 +46,8 @@ class SweepOutcome:
 
 def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = None,
               resume: bool = False, progress=None, point_fn=evaluate_point,
-              command: str = "dotseq sweep") -> SweepOutcome:
+              command: str = "dotseq sweep",
+              cluster_timeout: float = DEFAULT_CLUSTER_TIMEOUT) -> SweepOutcome:
     """Compute the points of ``plan`` that are not yet in the folder ``out``
     and write ``sweep.csv``, ``sweep.json`` and ``sweep.png`` there.
 
@@ -62,6 +63,8 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
         ``cluster``.
     cluster : str, optional
         ``tcp://HOST:PORT`` of a Dask scheduler to compute on.
+    cluster_timeout : float
+        Seconds to reach the scheduler and hear it answer (default 10).
     resume : bool
         Continue the unfinished sweep in ``out`` (refused when its inputs
         differ from ``plan``'s).
@@ -85,7 +88,7 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
         ``cluster`` without Dask installed.
     """
     progress = progress or _Quiet()
-    connection = connect(cluster) if cluster else None     # before anything is written
+    connection = connect(cluster, cluster_timeout) if cluster else None     # before anything is written
     try:
         folder = store.Folder(out, plan, resume, command)
     except BaseException:

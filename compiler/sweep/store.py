@@ -22,7 +22,9 @@ from pathlib import Path
 
 from ..export import atomic
 from ..export.atomic import pid_alive
-from .errors import fail
+from ..errors import Problem, Span
+from ..source import Unreadable, check_regular
+from .errors import SweepError, fail
 from .types import INVALID, OK, PointResult, SweepPlan
 
 STATE_NAME = "points.jsonl"
@@ -98,7 +100,7 @@ def read_state(path: Path) -> StateRead:
     good = 0
     dropped = 0
     pos = 0
-    for raw in data.split(b"\n"):
+    for number, raw in enumerate(data.split(b"\n"), 1):
         end = pos + len(raw) + 1
         complete = end <= len(data)
         pos = end
@@ -121,6 +123,13 @@ def read_state(path: Path) -> StateRead:
                     raise ValueError(f"status {p.status}")
                 points.setdefault(p.index, p)
             good = pos
+        except RecursionError:
+            raise SweepError(Problem(f"line {number} of the sweep state is nested too deeply "
+                       "to read (the file was changed by something other than dotseq); nothing "
+                       "was changed in the folder",
+                Span(str(path), number, 1, number, 1),
+                f"delete line {number} (its point is computed again) and resume, or choose "
+                "another -o folder")) from None
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError):
             if header is None:
                 raise fail(path, "the sweep state file has no readable header",
@@ -203,9 +212,14 @@ class Folder:
         p = self.path
         state = read_state(self.state_path) if STATE_NAME in names else None
         if resume:
-            if state is None or state.header is None:
+            if state is None:
                 raise fail(p, "--resume: there is no sweep to resume in this folder "
                               f"(no {STATE_NAME})", "run the sweep without --resume")
+            if state.header is None:
+                raise fail(self.state_path, "--resume: the state file is empty (the sweep that "
+                                            "made it stopped before its first line was written), "
+                                            "so there are no points to keep",
+                           "run the sweep again without --resume (it starts over in this folder)")
             why = _describe_key_change(state.header.get("key", {}), self.plan.key)
             if why:
                 raise fail(self.state_path, "--resume: this folder holds a different sweep: "
@@ -243,6 +257,12 @@ class Folder:
 
     def _lock(self) -> None:
         """Open the state file (created if missing) and hold an exclusive lock on it."""
+        if os.path.lexists(self.state_path):    # a FIFO would block, /dev/zero never end
+            try:
+                check_regular(self.state_path)
+            except Unreadable as e:
+                raise fail(self.state_path, f"cannot use the sweep state file: {e.reason}",
+                           "delete it, or choose another -o folder") from None
         f = open(self.state_path, "a+b")
         try:
             import fcntl
@@ -261,9 +281,20 @@ class Folder:
         self._file.seek(0, os.SEEK_END)
 
     def _append(self, line: str) -> None:
-        self._file.write(line.encode("utf-8") + b"\n")
-        self._file.flush()
-        os.fsync(self._file.fileno())
+        try:
+            self._file.write(line.encode("utf-8") + b"\n")
+            self._file.flush()
+            os.fsync(self._file.fileno())
+        except OSError as e:
+            raise self._disk_error(self.state_path, e) from None
+
+    def _disk_error(self, path: Path, e: OSError):
+        """The error for a failed write (a full disk, a lost mount): the
+        points already in the state file stay there for --resume."""
+        return fail(path, f"cannot write {path.name}: {e.strerror or e}; every point finished "
+                          f"before it is kept in {self.state_path}",
+                    "free disk space (or fix the folder), then continue with the same arguments "
+                    "and --resume")
 
     # ------------------------------------------------------------ use
     def record(self, point: PointResult) -> None:
@@ -272,10 +303,16 @@ class Folder:
 
     def write(self, name: str, data: bytes) -> Path:
         path = self.path / name
-        write_atomic(path, data)
+        try:
+            write_atomic(path, data)
+        except OSError as e:
+            raise self._disk_error(path, e) from None
         return path
 
     def close(self) -> None:
         if self._file is not None:
-            self._file.close()
-            self._file = None
+            f, self._file = self._file, None
+            try:
+                f.close()
+            except OSError:      # a full disk: the error that matters was raised already
+                pass

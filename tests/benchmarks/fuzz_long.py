@@ -4,8 +4,10 @@ Run:  python tests/benchmarks/fuzz_long.py [--examples N] [--seed S]
 
 ``--examples`` is the number of examples per property (default 6000; the
 arbitrary-unicode, long-expression, padding-key and code-width properties
-take a third of it and the mutated device files half), which makes about
-29 000 cases in all across the eight properties.  Each case is bounded in time
+take a third of it, the mutated device files half, the special files a
+thirtieth, the run-folder property, whose cases are whole `dotseq run`s, a
+hundredth), which makes about 29 000 cases in all across the ten properties.
+Each case is bounded in time
 (``CASE_SECONDS`` in test_fuzz.py) and every outcome must be success or
 dotseq's own error with a position.  A property that fails is reported with
 hypothesis' falsifying example and the run goes on with the next property.
@@ -30,7 +32,8 @@ ROOT = Path(__file__).resolve().parents[2]
 PROPERTIES = ("test_random_text", "test_mutated_and_truncated_examples", "test_arbitrary_unicode",
               "test_long_and_deep_expressions", "test_random_device_yaml",
               "test_mutated_and_truncated_device_files",
-              "test_padding_keys", "test_code_widths")
+              "test_padding_keys", "test_code_widths", "test_special_files",
+              "test_run_folder_atomicity")
 
 
 def main(argv: list[str] | None = None) -> int:
