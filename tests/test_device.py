@@ -494,7 +494,7 @@ def test_validate_returns_findings_the_loader_places():
     bad = dataclasses.replace(dev, dots={**dev.dots, "A": a})
     (f,) = [f for f in validate(bad) if f.severity == ERROR]
     # T2 <= 2 T1 (Bloch relaxation; common practice, no source)
-    assert (f.key, f.rule, f.severity) == ("dots.A.t2", "t2<=2t1", ERROR)
+    assert (f.key, f.rule, f.severity, f.id) == ("dots.A.t2", "t2>2t1", ERROR, "A.t2>2t1")
     assert "longer than 2·T1" in f.message and f.hint
     # the loader puts the same finding at the value in the file
     with pytest.raises(DeviceError) as info:

@@ -516,4 +516,4 @@ def test_swept_device_gets_the_loader_warnings_too():
     dev = load_device_text(pair, "d.yaml")
     assert PR.cautions(dev) == []
     ids = [cid for cid, _ in PR.cautions(PR.apply_device(dev, {"A-B.idle_voltage": 0.2}))]
-    assert ids == ["couplings[0].idle_voltage:idle-exchange"]
+    assert ids == ["A-B.idle-exchange"]

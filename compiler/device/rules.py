@@ -19,7 +19,7 @@ is written so that NaN breaks none (the reader has reported it already).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from .. import physics
 from ..units import (FIELD, FREQ_PER_VOLT, FREQUENCY, TEMPERATURE, TIME, VOLTAGE,
@@ -41,17 +41,19 @@ class Finding:
     """One broken rule."""
 
     key: str                   # device-file path of the value: "dots.A.t2"
-    rule: str                  # which rule: "t2<=2t1"
+    rule: str                  # which rule: "t2>2t1"
     message: str
     hint: str = ""
     severity: str = ERROR      # "error" or "warning"
     near: tuple[str, ...] = ()  # other keys to point at when ``key`` is not in the file
+    subject: str = ""          # the dot ("A") or pair ("A-B") it is about, as a sweep names it
 
     @property
     def id(self) -> str:
-        """Stable identity of the finding (key and rule), e.g. to tell the
-        findings of a swept device from those of the nominal one."""
-        return f"{self.key}:{self.rule}"
+        """Stable identity of the finding in a sweep's names (``A.t2>2t1``,
+        ``A-B.pulse<=idle``, ``field``), e.g. to tell the findings of a swept
+        device from those of the nominal one."""
+        return f"{self.subject}.{self.rule}" if self.subject else self.rule
 
 
 def _q(x: float, dim) -> str:
@@ -86,43 +88,44 @@ def validate(device: Device) -> list[Finding]:
     out: list[Finding] = []
     add = out.append
     if device.field <= 0:
-        add(Finding("field", "positive", f"field = {_q(device.field, FIELD)} is not above zero",
+        add(Finding("field", "field", f"field = {_q(device.field, FIELD)} is not above zero",
                     "the Zeeman splitting needs a field"))
     if device.temperature <= 0:
-        add(Finding("temperature", "positive", f"temperature = "
+        add(Finding("temperature", "temperature", f"temperature = "
                     f"{_q(device.temperature, TEMPERATURE)} is not above zero",
                     "give a temperature above 0 K"))
     for q, d in device.dots.items():
-        _dot_rules(device, q, d, add)
+        _dot_rules(device, q, d, lambda f, q=q: add(replace(f, subject=q)))
     _rotation_rules(device, add)
     for i, c in enumerate(device.couplings):
-        _coupling_rules(device, i, c, add)
+        _coupling_rules(device, i, c,
+                        lambda f, c=c: add(replace(f, subject=f"{c.dots[0]}-{c.dots[1]}")))
     return out
 
 
 def _dot_rules(device: Device, q: str, d, add) -> None:
     p = f"dots.{q}"
     if d.g == 0:
-        add(Finding(f"{p}.g", "nonzero", f"{p}.g is zero", "a dot needs a non-zero g-factor"))
+        add(Finding(f"{p}.g", "g", f"{p}.g is zero", "a dot needs a non-zero g-factor"))
     for attr in ("t1", "t2", "t2_star"):
         v = getattr(d, attr)
         if v <= 0:
-            add(Finding(f"{p}.{attr}", "positive", f"{p}.{attr} = {_q(v, TIME)} is not above "
+            add(Finding(f"{p}.{attr}", attr, f"{p}.{attr} = {_q(v, TIME)} is not above "
                         "zero", "coherence times are positive"))
     if d.t1 > 0 and d.t2 > 2 * d.t1 * (1 + REL_TOL):
         shown = _q2(d.t2, 2 * d.t1, TIME)
-        add(Finding(f"{p}.t2", "t2<=2t1", f"{p}.t2 = {shown[0]} is longer than 2·T1 = "
+        add(Finding(f"{p}.t2", "t2>2t1", f"{p}.t2 = {shown[0]} is longer than 2·T1 = "
                     f"{shown[1]}",
                     f"T2 cannot exceed 2·T1: check the units, or keep {q}.t2 at most 2·{q}.t1"))
     if d.t2 > 0 and d.t2_star > d.t2 * (1 + REL_TOL):
         shown = _q2(d.t2_star, d.t2, TIME)
-        add(Finding(f"{p}.t2_star", "t2*<=t2", f"{p}.t2_star = {shown[0]} is longer "
+        add(Finding(f"{p}.t2_star", "t2*>t2", f"{p}.t2_star = {shown[0]} is longer "
                     f"than the Hahn-echo T2 = {shown[1]}",
                     f"an echo only removes dephasing, so T2* ≤ T2: keep {q}.t2_star at most "
                     f"{q}.t2"))
     rabi_keys = (f"{p}.drive.b1_per_volt", f"{p}.drive")
     if d.drive.rabi_per_volt <= 0:
-        add(Finding(f"{p}.drive.rabi_per_volt", "positive", f"{p}.drive.rabi_per_volt = "
+        add(Finding(f"{p}.drive.rabi_per_volt", "rabi", f"{p}.drive.rabi_per_volt = "
                     f"{_q(d.drive.rabi_per_volt, FREQ_PER_VOLT)} is not above zero",
                     "the drive calibration is positive", near=rabi_keys))
     line = device.channels.get(d.drive.line)
@@ -131,7 +134,7 @@ def _dot_rules(device: Device, q: str, d, add) -> None:
     f_l = physics.larmor_frequency(d.g, device.field)
     need = f_l - line.lo
     if need < line.if_min or need > line.if_max:
-        add(Finding(f"{p}.drive.line", "larmor-in-band",
+        add(Finding(f"{p}.drive.line", "larmor",
                     f"{p}: Larmor frequency {_q(f_l, FREQUENCY)} (|g| = {abs(d.g):g} at "
                     f"{format_quantity(device.field, FIELD)}) is not reachable on line "
                     f"'{line.name}': LO {_q(line.lo, FREQUENCY)} + IF band "
@@ -160,7 +163,7 @@ def _rotation_rules(device: Device, add) -> None:
     rot = device.rotation
     if rot.mode == "amplitude":
         if rot.amplitude <= 0:
-            add(Finding("rotation.amplitude", "positive", f"rotation.amplitude = "
+            add(Finding("rotation.amplitude", "rotation.amplitude", f"rotation.amplitude = "
                         f"{_q(rot.amplitude, VOLTAGE)} is not above zero",
                         "give a positive amplitude", near=("rotation",)))
         for q, d in device.dots.items():
@@ -169,7 +172,7 @@ def _rotation_rules(device: Device, add) -> None:
                 continue
             top = max(abs(line.v_min), abs(line.v_max))
             if rot.amplitude > top:
-                add(Finding("rotation.amplitude", "in-range",
+                add(Finding("rotation.amplitude", "rotation.amplitude>range",
                             f"rotation.amplitude = {_q(rot.amplitude, VOLTAGE)} is above the "
                             f"range of drive line '{line.name}' (dot {q})",
                             f"keep it within ±{_q(top, VOLTAGE)} (and within your lab's limits)",
@@ -177,11 +180,11 @@ def _rotation_rules(device: Device, add) -> None:
                 break
     else:
         if rot.duration <= 0:
-            add(Finding("rotation.duration", "positive", f"rotation.duration = "
+            add(Finding("rotation.duration", "rotation.duration", f"rotation.duration = "
                         f"{_q(rot.duration, TIME)} is not above zero",
                         "give a positive burst length", near=("rotation",)))
         elif rot.shape == "flattop" and 2 * rot.edge > rot.duration:
-            add(Finding("rotation.edge", "edges-fit", f"rotation.duration = "
+            add(Finding("rotation.edge", "rotation.edge", f"rotation.duration = "
                         f"{_q(rot.duration, TIME)} is shorter than the two flat-top edges "
                         f"({_q(2 * rot.edge, TIME)})",
                         "keep rotation.duration at least twice rotation.edge",
@@ -195,13 +198,13 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
     try:
         m.check()
     except ValueError as e:
-        add(Finding(f"{p}.exchange", "valid-model", f"{p} ({pair}): {e}",
+        add(Finding(f"{p}.exchange", "j_scale", f"{p} ({pair}): {e}",
                     "keep j_scale above 0" if not m.positive() else ""))
         valid = False
     else:
         valid = True
     if c.charge_noise < 0:
-        add(Finding(f"{p}.charge_noise", "nonnegative", f"{p}.charge_noise = "
+        add(Finding(f"{p}.charge_noise", "charge_noise", f"{p}.charge_noise = "
                     f"{_q(c.charge_noise, VOLTAGE)} is negative",
                     "an rms value is zero or positive"))
     barrier = device.channels.get(c.barrier)
@@ -212,14 +215,14 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
         if v is None:
             continue
         if barrier is not None and (v < barrier.v_min or v > barrier.v_max):
-            add(Finding(f"{p}.{key}", "in-channel-range",
+            add(Finding(f"{p}.{key}", f"{key}.range",
                         f"{p}.{key} = {_q(v, VOLTAGE)} is outside the range of barrier channel "
                         f"'{barrier.name}' [{_q(barrier.v_min, VOLTAGE)}, "
                         f"{_q(barrier.v_max, VOLTAGE)}]",
                         "keep it within the channel range (and your lab's limits)",
                         near=(p,)))
         elif v < lo or v > hi:
-            add(Finding(f"{p}.{key}", "in-model-range",
+            add(Finding(f"{p}.{key}", f"{key}.table",
                         f"{p}.{key} = {_q(v, VOLTAGE)} is outside the exchange table "
                         f"[{_q(lo, VOLTAGE)}, {_q(hi, VOLTAGE)}]",
                         "the table is never extrapolated: stay inside it or add a "
@@ -227,7 +230,7 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
     pulse, idle = c.pulse_voltage, c.idle_voltage
     if pulse is not None and pulse <= idle:
         shown = _q2(pulse, idle, VOLTAGE)
-        add(Finding(f"{p}.pulse_voltage", "pulse>idle",
+        add(Finding(f"{p}.pulse_voltage", "pulse<=idle",
                     f"{p}.pulse_voltage = {shown[0]} is not above idle_voltage = {shown[1]}",
                     "J rises with barrier voltage: the exchange pulse must go above idle"))
     elif pulse is not None and valid:
@@ -247,7 +250,7 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
             if isinstance(m, Hubbard):
                 t = m.tunnel(pulse)
                 if t > HUBBARD_T_RATIO * (m.u - abs(m.detuning)):
-                    add(Finding(f"{p}.pulse_voltage", "hubbard-small-t",
+                    add(Finding(f"{p}.pulse_voltage", "hubbard",
                                 f"{p}: tunnel coupling t/h = {_q(t, FREQUENCY)} at the pulse "
                                 "level is not small against U − |ε|",
                                 "J = 4t²U/(U²−ε²) holds only for t ≪ U − |ε|", WARNING))
@@ -256,7 +259,7 @@ def _coupling_rules(device: Device, i: int, c, add) -> None:
         dot = device.dots.get(nm)
         pl = device.channels.get(dot.plunger) if dot is not None else None
         if pl is not None and plungers.get(pl.name) == nm and abs(off) > pl.v_max - pl.v_min:
-            add(Finding(f"{p}.detune.{nm}", "in-plunger-range",
+            add(Finding(f"{p}.detune.{nm}", f"detune.{nm}",
                         f"{p}.detune.{nm}: offset {_q(off, VOLTAGE)} is larger than the whole "
                         f"range of plunger '{pl.name}'", near=(f"{p}.detune", p)))
 
