@@ -887,11 +887,13 @@ def _locate(r: _Reader, root: Node, key: str, near: tuple[str, ...]) -> Node:
         if k in r.nodes:
             return r.nodes[k]
     k = key
-    while k:
-        k = re.sub(r"(\.[^.\[]*|\[\d+\])$", "", k)
+    while True:
+        parent = re.sub(r"(\.[^.\[]*|\[\d+\])$", "", k)
+        if parent == k or not parent:
+            return root
+        k = parent
         if k in r.nodes:
             return r.nodes[k]
-    return root
 
 
 def _check_coupling(r: _Reader, c: dict, channels: dict) -> Coupling:
