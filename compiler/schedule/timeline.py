@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 from .. import program as P
 from ..device.model import Device
 from ..errors import Problem, ScheduleError, Span, read_source_line
+from ..analog import burst_quantisation_loss, lsb, rc_tau
 from ..physics import precession_sign
 from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
                       frame_updates_after, pair_gate, spectator_phase)
@@ -42,6 +43,9 @@ EXCHANGE_FIDELITY_WARN = 0.999
 TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
 MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
+# Warn when the DAC codes of a burst lose more than this fraction of its area
+# (common practice, no source); when nothing is left it is an error.
+QUANTISATION_LOSS_WARN = 0.01
 
 
 @dataclass(frozen=True, slots=True)
@@ -194,14 +198,20 @@ class _Scheduler:
 
     def _burst_for(self, step: P.Rotation) -> BurstDesign | None:
         dot = self.device.dots[step.qubit]
+        line = self.device.channels[dot.drive.line]
+        peak = min(-line.v_min, line.v_max)
+        if step.amplitude is not None and abs(step.amplitude) > peak:
+            self.fail(f"the burst amplitude {fq(abs(step.amplitude), VOLTAGE)} is beyond the "
+                      f"±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
+                      f"the nearest the line plays is amplitude={fq(peak, VOLTAGE)}; or give "
+                      "duration= instead")
+            return None
         try:
             b = design_burst(step.angle, step.phase, dot.drive.rabi_per_volt, self.dt,
                              self.device.rotation, step.shape, step.duration, step.amplitude)
         except DesignError as e:
             self.fail(e.message, step, e.hint)
             return None
-        line = self.device.channels[dot.drive.line]
-        peak = min(-line.v_min, line.v_max)
         if b.amplitude > peak:
             self.fail(f"the burst for this rotation needs {fq(b.amplitude, VOLTAGE)} peak, beyond "
                       f"the ±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
@@ -314,6 +324,33 @@ class _Scheduler:
         self.frames[b] += eb
         self.place_simple(step, t0, design.total, group, exchange=design, info=info)
 
+    def check_quantisation(self, step: P.Rotation, b: BurstDesign, start: int,
+                           play_phase: float) -> None:
+        """Warn (or refuse, when nothing is left) a burst whose DAC codes lose
+        more than QUANTISATION_LOSS_WARN of its area."""
+        dot = self.device.dots[step.qubit]
+        line = self.device.channels[dot.drive.line]
+        if line.bits <= 0:
+            return
+        f_if = self.device.larmor(step.qubit) - line.lo
+        phi = play_phase if precession_sign(dot.g) > 0 else math.pi - play_phase
+        loss, nothing = burst_quantisation_loss(
+            b.envelope, b.amplitude, phi, f_if, start, self.dt, rc_tau(line.rise_time),
+            line.v_min, line.v_max, line.bits)
+        lsb_v = lsb(line.v_min, line.v_max, line.bits)
+        if nothing:
+            self.fail(f"this {math.degrees(b.angle):.4g} deg burst needs only "
+                      f"{fq(b.amplitude, VOLTAGE)} peak, below half a DAC step "
+                      f"({fq(lsb_v, VOLTAGE)} per code on line '{line.name}'): every code is "
+                      "zero, nothing would be played", step,
+                      "use a shorter burst with a larger amplitude (amplitude=...), or leave "
+                      "out a rotation this small")
+        elif loss > QUANTISATION_LOSS_WARN:
+            self.warn(f"the DAC codes of this burst lose {loss:.1%} of its area "
+                      f"({fq(b.amplitude, VOLTAGE)} peak against {fq(lsb_v, VOLTAGE)} per code "
+                      f"on line '{line.name}'; more than {QUANTISATION_LOSS_WARN:.0%})", step,
+                      f"quantisation:{step.span}", loss)
+
     def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=()) -> dict:
         """Frame updates that undo the light shift a burst on ``q`` leaves on
         the other dots of its line (dots driven in the same group excepted);
@@ -348,6 +385,7 @@ class _Scheduler:
             self.place_simple(step, t0, b.n, group, burst=b,
                               play_phase=b.phase - self.frames[step.qubit],
                               info={"frame": self.frames[step.qubit]})
+            self.check_quantisation(step, b, t0, b.phase - self.frames[step.qubit])
             if t_group is None:
                 shifts = self.correct_spectators(step.qubit, b, step)
                 if shifts:
