@@ -18,6 +18,7 @@ from pathlib import Path
 
 from . import limits
 from .check import check
+from .check.lines import summed_tone_problems
 from .check.summary import Summary, summarize
 from .device import device_of, load_device
 from .device.model import Device
@@ -70,7 +71,20 @@ def load(path: str | Path, device: str | Path | None = None, *,
         dev = device_of(expanded, device, confine=confine)
         check(expanded, dev)
         timelines = tuple(schedule(r, dev) for r in expanded.runs)
+        check_timelines(timelines, dev)
     return Checked(expanded, dev, timelines)
+
+
+def check_timelines(timelines, device: Device) -> None:
+    """Checks of the scheduled runs against the device: the peak of tones
+    summed on one line (raises CheckError naming the group)."""
+    from .errors import CheckError
+    problems: dict = {}
+    for tl in timelines:
+        for p in summed_tone_problems(tl, device):
+            problems.setdefault((p.message, p.span), p)
+    if problems:
+        raise CheckError(list(problems.values()))
 
 
 def check_file(path: str | Path, device: str | Path | None = None, *,

@@ -673,14 +673,12 @@ def frame_updates_after(design: ExchangeDesign, model, delta: float, xi: float,
 SPECTATOR_SUBSTEPS = 4
 
 
-@lru_cache(maxsize=16384)
-def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
-                    sign: int) -> float:
-    """z angle α (rad) that a burst leaves on a spectator dot whose rotating
-    frame is ``detuning`` (Hz) away from the burst's tone: the spectator's
-    propagator is closest to Rz(α) = exp(−iασz/2).  Frame update: F −= α."""
-    if design.n == 0 or detuning == 0:
-        return 0.0
+def _spectator_propagator(design: BurstDesign, rabi_per_volt: float, detuning: float,
+                          dt: float, sign: int) -> np.ndarray:
+    """2×2 propagator of a spectator dot under a burst designed for another
+    dot, in the spectator's rotating frame, whose frame is ``detuning`` (Hz)
+    away from the burst's tone: exact exponentials of the sampled envelope,
+    SPECTATOR_SUBSTEPS per sample."""
     m = SPECTATOR_SUBSTEPS
     h = dt / m
     t = (np.arange(design.n * m) + 0.5) * h
@@ -700,4 +698,31 @@ def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, 
     M[:, 1, 1] = c
     M[:, 0, 1] = -1j * s * (nx - 1j * ny)
     M[:, 1, 0] = -1j * s * (nx + 1j * ny)
-    return float(-2 * np.angle(ordered_product(M)[0, 0]))
+    return ordered_product(M)
+
+
+@lru_cache(maxsize=16384)
+def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
+                    sign: int) -> float:
+    """z angle α (rad) that a burst leaves on a spectator dot whose rotating
+    frame is ``detuning`` (Hz) away from the burst's tone: the spectator's
+    propagator is closest to Rz(α) = exp(−iασz/2).  Frame update: F −= α."""
+    if design.n == 0 or detuning == 0:
+        return 0.0
+    U = _spectator_propagator(design, rabi_per_volt, detuning, dt, sign)
+    return float(-2 * np.angle(U[0, 0]))
+
+
+@lru_cache(maxsize=16384)
+def spectator_flip(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
+                   sign: int = 1) -> float:
+    """Probability |U_↓↑|² that a burst designed for one dot flips a spectator
+    dot ``detuning`` (Hz) away on the same line, from the exact propagation
+    of the sampled envelope (:func:`_spectator_propagator`).  For a square
+    burst of Rabi frequency Ω/2π and length t this is the off-resonant Rabi
+    formula P = Ω²/(Ω²+Δ²)·sin²(√(Ω²+Δ²)·t/2) (Rabi, Phys. Rev. 51, 652
+    (1937)); tests/test_check.py compares the two."""
+    if design.n == 0:
+        return 0.0
+    U = _spectator_propagator(design, rabi_per_volt, detuning, dt, sign)
+    return float(min(1.0, abs(U[1, 0]) ** 2))
