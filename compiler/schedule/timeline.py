@@ -104,8 +104,10 @@ class Warning_:
     severity: float = 0.0      # larger is worse; the summary keeps the worst per key
 
     def render(self) -> str:
+        """``file:line:col: warning: message``, then the chain of block calls
+        (``in block 'b' called at file:line:col``), innermost first."""
         where = f"{self.span}: " if self.span is not None else ""
-        return f"{where}warning: {self.message}"
+        return "\n".join([f"{where}warning: {self.message}"] + [f"    {c}" for c in self.via])
 
 
 @dataclass(frozen=True)
@@ -124,6 +126,37 @@ class Timeline:
     @property
     def total(self) -> float:
         return self.n_samples * self.dt
+
+
+def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.25) -> str:
+    """What makes an exchange gate clean again: a larger J, at a higher
+    barrier pulse level (and so a shorter pulse), with the level that gives
+    J = CLEAN_EXCHANGE_RATIO × the Zeeman difference when the calibration
+    and the channel reach it; or a smaller Zeeman difference.  (The language
+    has no controlled-phase gate to suggest instead: docs/language.md.)"""
+    from ..analog import top_voltage
+    from ..device import exchange as X
+    want = CLEAN_EXCHANGE_RATIO * delta
+    ch = device.channels[coupling.barrier]
+    top = min(top_voltage(ch.v_min, ch.v_max, ch.bits), X.v_range(coupling.exchange)[1])
+    try:
+        v = float(X.v_of_j(coupling.exchange, want))
+    except ValueError:
+        v = math.inf
+    pair = "-".join(coupling.dots)
+    dt = 1.0 / device.sample_rate
+    if target / want < 2 * dt:
+        level = (f"J ≥ {fq(want, FREQUENCY)} would make the pulse about "
+                 f"{fq(target / want, TIME)}, under two samples at this sample rate")
+    elif v <= top:
+        level = (f"J ≥ {fq(want, FREQUENCY)} needs a barrier pulse level of about "
+                 f"{fq(v, VOLTAGE)}: give amplitude={fq(v, VOLTAGE)} on the step or raise "
+                 f"pulse_voltage of {pair} in the device file (the pulse gets shorter)")
+    else:
+        level = (f"J ≥ {fq(want, FREQUENCY)} is beyond the barrier's calibration and range "
+                 f"(up to {fq(top, VOLTAGE)}): extend the J(V) calibration or the channel range "
+                 f"of {pair}")
+    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field)")
 
 
 def _resources(step, device: Device) -> tuple[str, ...]:
@@ -311,7 +344,8 @@ class _Scheduler:
         if abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
             self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well above the Zeeman difference "
                       f"{fq(abs(delta), FREQUENCY)} of {a} and {b}: the {step.gate} is not clean "
-                      f"(best {fid:.6f} average gate fidelity after frame compensation)", step,
+                      f"(best {fid:.6f} average gate fidelity after frame compensation); "
+                      + weak_exchange_fix(c, self.device, abs(delta), design.target), step,
                       f"zeeman:{step.span}", 1 - fid)
         elif fid < EXCHANGE_FIDELITY_WARN:
             self.warn(f"this {step.gate} reaches only {fid:.6f} average gate fidelity in the "
