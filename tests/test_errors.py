@@ -378,3 +378,37 @@ def test_a_burst_losing_area_to_quantisation_is_a_warning(write):
     # a burst well above the code step is silent
     s = check_file(write("q2.dotseq", f'device "{DEMO_PAIR}"\nrot A x 2 deg\n'))
     assert not any("DAC codes" in w for w in s.warnings)
+
+
+def test_errors_of_expansion_checking_and_scheduling_come_in_one_round(write):
+    # issue 14, item 6: these used to take four rounds of fixing
+    from compiler import load
+    src = (f'device "{DEMO_PAIR}"\nlet a = 3 V + 2 s\nrot Q x 90 deg\n'
+           "sqrtswap A B amplitude=600 mV\nwait -3 ns\nrot A x 90 deg duration=0.2 ns\n")
+    with pytest.raises(DotseqError) as info:
+        load(write("m.dotseq", src))
+    err = info.value
+    got = [(p.span.line, p.span.col) for p in err.problems]
+    assert sorted(got) == [(2, 9), (3, 5), (4, 1), (5, 6), (6, 1)], err.render()
+    assert type(err) is SequenceError       # the first stage that found a problem
+    assert [p.message for p in err.problems].count("cannot add a time to a voltage in 'a'") == 1
+
+
+def test_collected_errors_are_capped_like_the_parser(write):
+    from compiler import load
+    src = "let a = 3 V + 2 s\n" + "".join(f"rot Q{i} x 90 deg\n" for i in range(14))
+    with pytest.raises(DotseqError) as info:
+        load(write("m.dotseq", src))
+    err = info.value
+    assert len(err.problems) == 10 and err.more == 5
+    assert "... and 5 more" in err.render()
+
+
+def test_a_missing_device_file_points_at_the_device_line(write):
+    from compiler import load
+    from compiler.errors import DeviceError
+    with pytest.raises(DeviceError) as info:
+        load(write("d.dotseq", 'wait 1 ns\ndevice "nothere.yaml"\nrot A x 90 deg\n'))
+    p = info.value.first
+    assert (p.span.file.endswith("d.dotseq"), p.span.line, p.span.col) == (True, 2, 1)
+    assert "cannot read device file" in p.message and "nothere.yaml" in p.message
