@@ -330,7 +330,8 @@ class Expander:
                     env[s.name] = _Broken()
             except _TooManySteps:
                 break       # recorded once; expanding further would only take memory
-        return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps))
+        return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps),
+                     tuple(d for _, _, d in point))
 
     def qubit(self, ident: T.Ident, env: dict, via) -> tuple[str, Span]:
         """The qubit an identifier names, and where that name is written
