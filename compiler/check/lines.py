@@ -54,24 +54,47 @@ def _what(slot: Slot) -> str:
     return f"burst on {slot.qubits[0]}"
 
 
+def _driven_alongside(bursts: list[Slot], device: Device) -> list[set]:
+    """For each burst, the dots driven on its line while it plays (a sweep
+    over the bursts of each line in start order: linear in their number
+    plus the overlaps)."""
+    busy = [set() for _ in bursts]
+    by_line: dict[str, list[int]] = {}
+    for i, s in enumerate(bursts):
+        by_line.setdefault(_line_of(s, device), []).append(i)
+    for idx in by_line.values():
+        idx.sort(key=lambda i: bursts[i].start_sample)
+        for k, i in enumerate(idx):
+            end = bursts[i].end_sample
+            for j in idx[k + 1:]:
+                if bursts[j].start_sample >= end:
+                    break
+                busy[i].add(bursts[j].qubits[0])
+                busy[j].add(bursts[i].qubits[0])
+    return busy
+
+
 def crosstalk_warnings(tl: Timeline, device: Device) -> list[Warning_]:
     """One warning per (statement, other dot) whose flip probability exceeds
     CROSSTALK_WARN; severity is the probability."""
     out: dict[tuple, Warning_] = {}
     bursts = _bursts(tl)
-    for s in bursts:
+    # dots driven at the same time on a line are driven on purpose
+    alongside = _driven_alongside(bursts, device)
+    flips: dict[tuple, float] = {}     # repeated bursts share their design object
+    for s, busy in zip(bursts, alongside):
         q = s.qubits[0]
         line = _line_of(s, device)
         f_q = device.larmor(q)
-        # dots driven at the same time on this line are driven on purpose
-        busy = {o.qubits[0] for o in bursts if o is not s and _line_of(o, device) == line
-                and o.start_sample < s.end_sample and s.start_sample < o.end_sample}
         for o, dot in device.dots.items():
             if o == q or o in busy or dot.drive.line != line:
                 continue
             delta = f_q - device.larmor(o)
-            p = spectator_flip(s.burst, dot.drive.rabi_per_volt, delta, s.dt,
-                               precession_sign(dot.g))
+            fk = (id(s.burst), o)
+            p = flips.get(fk)
+            if p is None:
+                p = flips[fk] = spectator_flip(s.burst, dot.drive.rabi_per_volt, delta, s.dt,
+                                               precession_sign(dot.g))
             if p <= CROSSTALK_WARN:
                 continue
             key = (s.span, o)
