@@ -526,3 +526,28 @@ def test_point_warnings_are_in_the_table_and_the_worst_is_named(tmp_path):
     doc = json.loads((tmp_path / "s" / "sweep.json").read_text())
     assert "Zeeman" in doc["points"][0]["warnings"][0]
     assert any(x.startswith("warnings  2 of 2 points") and label in x for x in outcome_lines(out))
+
+
+# ------------------------------------------------------------------ compiled once
+
+def test_a_point_is_compiled_once(ramsey, monkeypatch):
+    # the plan compiles every point to check it and hands that compilation to
+    # the point: simulating it compiles nothing again (the result equals a
+    # point compiled afresh); beyond the memory bound the point compiles itself
+    # (common practice, no source)
+    import dataclasses
+    from compiler.sweep import plan as PLAN, point as POINT
+    plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST, budget=True)
+    assert all(t.compiled is not None and t.compiled.run is t.run for t in plan.tasks)
+    fresh = [POINT.simulate_point(dataclasses.replace(t, compiled=None)) for t in plan.tasks]
+
+    def no_compile(*a, **k):
+        raise AssertionError("compiled again")
+    monkeypatch.setattr(POINT, "compile_run", no_compile)
+    kept = [POINT.simulate_point(t) for t in plan.tasks]
+    assert [dataclasses.replace(p, wall_s=0) for p in kept] == \
+        [dataclasses.replace(p, wall_s=0) for p in fresh]
+    monkeypatch.undo()
+    monkeypatch.setattr(PLAN, "KEEP_COMPILED_BYTES", 0)
+    plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST)
+    assert all(t.compiled is None for t in plan.tasks)

@@ -118,10 +118,11 @@ class Timeline:
     dt: float
     frames: dict               # final frame phase per dot (rad)
     warnings: tuple[Warning_, ...] = ()
-    # with record_frames: one entry per top-level step or group, in program order:
+    # one entry per top-level step or group, in program order, for the first
+    # ``record_frames`` of them (FRAME_LOG_STEPS by default; per-step fidelities):
     # (step, indices of its slots in placement order, frames before, frames after)
     frame_log: tuple = ()
-    placed: tuple = ()         # slots in placement order (with record_frames)
+    placed: tuple = ()         # slots in placement order
 
     @property
     def total(self) -> float:
@@ -180,9 +181,12 @@ def _resources(step, device: Device) -> tuple[str, ...]:
     raise TypeError(step)
 
 
+FRAME_LOG_STEPS = 200         # top-level steps whose frames are logged by default
+
+
 class _Scheduler:
     def __init__(self, run: P.Run, device: Device, *, spectator_correction: bool = True,
-                 exchange_zeeman: bool = True, record_frames: bool = False):
+                 exchange_zeeman: bool = True, record_frames: int = FRAME_LOG_STEPS):
         self.run, self.device = run, device
         self.spectator_correction = spectator_correction
         self.exchange_zeeman = exchange_zeeman
@@ -477,13 +481,14 @@ class _Scheduler:
     def schedule(self) -> Timeline:
         log = []
         for gi, step in enumerate(self.run.steps):
-            if self.record_frames:
+            logged = gi < self.record_frames
+            if logged:
                 before, first = dict(self.frames), len(self.slots)
             if isinstance(step, P.Parallel):
                 self.place_group(step, gi)
             else:
                 self.place(step, -1)
-            if self.record_frames:
+            if logged:
                 log.append((step, tuple(range(first, len(self.slots))), before, dict(self.frames)))
         if self.problems:
             raise ScheduleError(list(self.problems.values()))
@@ -491,19 +496,19 @@ class _Scheduler:
         order = sorted(range(len(self.slots)), key=lambda i: (self.slots[i].start_sample, i))
         slots = tuple(self.slots[i] for i in order)
         return Timeline(self.run, slots, n, self.dt, dict(self.frames),
-                        tuple(self.warnings.values()), tuple(log),
-                        tuple(self.slots) if self.record_frames else ())
+                        tuple(self.warnings.values()), tuple(log), tuple(self.slots))
 
 
 def schedule(run: P.Run, device: Device, *, spectator_correction: bool = True,
-             exchange_zeeman: bool = True, record_frames: bool = False) -> Timeline:
+             exchange_zeeman: bool = True, record_frames: int = FRAME_LOG_STEPS) -> Timeline:
     """Place every step of ``run`` on the sample grid; raises ScheduleError
     for steps that cannot be played (level outside the channel range, J out of
     calibration, ...).
 
     ``spectator_correction`` and ``exchange_zeeman`` switch off the light-shift
     frame corrections and the Zeeman-difference model of exchange (used by the
-    error budget's counterfactual runs); ``record_frames`` keeps the frames
-    before and after every program step (used for per-step fidelities)."""
+    error budget's counterfactual runs); the frames before and after each of
+    the first ``record_frames`` top-level steps are kept (per-step fidelities;
+    a bounded log, so long sequences do not pay for it)."""
     return _Scheduler(run, device, spectator_correction=spectator_correction,
                       exchange_zeeman=exchange_zeeman, record_frames=record_frames).schedule()
