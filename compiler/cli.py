@@ -302,7 +302,7 @@ def cmd_preview(args) -> int:
                          f"(0..{n - 1})")
     wf = _synthesised(args, checked, runs=[args.run])[0].waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
-    sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
+    sweep = checked.timelines[args.run].run.sweep_text()
     title = f"{args.file} (run {args.run}{': ' + sweep if sweep else ''}) on {checked.device.name}"
     out = preview(wf, args.out, start=_time_arg(args.t_from, "--from"),
                   stop=_time_arg(args.t_to, "--to"), step=args.step, title=title, lo=lo)

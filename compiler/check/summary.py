@@ -12,6 +12,7 @@ from ..margin import Margin, coherence_margins
 from ..physics import COHERENCE_RULE
 from ..schedule import Timeline
 from ..steps import GATE_KINDS, KINDS
+from .lines import line_warnings
 from ..units import FIELD, FREQUENCY, NONE, TEMPERATURE, TIME, Dim, format_quantity as fq
 
 # step counts are printed in the order of the table of step kinds
@@ -78,7 +79,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     warnings = [w.render("warning") for w in device.warnings]
     worst: dict[str, object] = {}
     for tl in timelines:
-        for w in tl.warnings:
+        for w in tuple(tl.warnings) + tuple(line_warnings(tl, device)):
             if w.key not in worst or w.severity > worst[w.key].severity:
                 worst[w.key] = w
     warnings += [w.render() for w in worst.values()]

@@ -91,6 +91,7 @@ class Waveforms:
     # with synthesize(per_dot=True): each dot's own bursts as a complex baseband
     # (I + iQ, V, before quantisation), for simulations without drive crosstalk
     per_dot: dict = field(default_factory=dict)
+    sweep_text: str = ""                     # the sweep point with units: "tau = 400 ns"
 
     @property
     def duration(self) -> float:
