@@ -148,3 +148,124 @@ def test_interleaved_refusals():
     for text in ("rot A x 45", "rot C x 90", "rot A w 90", "cz", "rot A x 360", "swap A"):
         with pytest.raises(ValueError):
             interleaved(text, ("A",))
+
+
+# ------------------------------------------------------------------ fit and interleaved RB
+
+from compiler.benchmarking import exact as X                          # noqa: E402
+from compiler.benchmarking.fit import analyse, fit_decay, interleaved_error  # noqa: E402
+from compiler.simulate.fidelity import average_fidelity, process_fidelity    # noqa: E402
+
+LENGTHS = (1, 2, 4, 8, 16, 32, 64, 128)
+
+
+def test_fit_recovers_synthetic_decay():
+    # A·p^m + B with known p plus Gaussian scatter of 0.01 per sequence
+    # (common practice, no source)
+    rng = np.random.default_rng(4)
+    m = np.repeat(LENGTHS, 25)
+    y = 0.48 * 0.985 ** m + 0.51 + rng.normal(0, 0.01, m.size)
+    a = analyse(m, y, 2, 5 / 6, resamples=100, seed=1)
+    assert a.fit.p == pytest.approx(0.985, abs=1e-3)
+    assert a.p_interval[0] <= 0.985 <= a.p_interval[1]
+    assert a.r_interval[0] <= a.fit.r <= a.r_interval[1]
+    assert a.error_per_native == pytest.approx(a.fit.r / (5 / 6))
+
+
+def test_ideal_clifford_sequences_give_no_error():
+    # an ideal device: survival 1 at every length, r below 1e-6 (issue 18)
+    dec = decomposition(1)
+    seqs = make_sequences(dec, LENGTHS[:6], 3, seed=2)
+    y = [X.survival_steps(s.steps, 1) for s in seqs]
+    assert np.allclose(y, 1, atol=1e-12)
+    assert fit_decay([s.length for s in seqs], y, 2).r < 1e-6
+
+
+def _rb(n, noise, lengths=LENGTHS, count=12, seed=3, inter=None, actual=None):
+    dec = decomposition(n)
+    seqs = make_sequences(dec, lengths, count, seed, inter)
+    y = [X.survival_cliffords(dec.group, s.applied, noise, actual) for s in seqs]
+    return analyse([s.length for s in seqs], y, 2 ** n, dec.native_per_clifford,
+                   resamples=100, seed=seed)
+
+
+@pytest.mark.parametrize("n, lam", [(1, 0.98), (2, 0.97)])
+def test_depolarizing_after_every_clifford(n, lam):
+    # every Clifford followed by the same depolarising channel of parameter λ:
+    # p = λ, and 1 − r is the channel's average fidelity λ + (1 − λ)/d
+    # (Magesan, Gambetta, Emerson, PRL 106, 180504 (2011))
+    d = 2 ** n
+    dep = X.depolarizing(lam, d)
+    a = _rb(n, lambda k, c: dep, lengths=(1, 2, 4, 8, 16, 32), count=3)
+    assert a.fit.p == pytest.approx(lam, abs=1e-9)
+    assert 1 - a.fit.r == pytest.approx(lam + (1 - lam) / d, abs=1e-9)
+
+
+def test_same_non_depolarizing_error_after_every_clifford():
+    # gate-independent amplitude damping after every Clifford: the twirl over
+    # the group makes the mean survival decay with p = (d·F_avg − 1)/(d − 1),
+    # F_avg the channel's average fidelity (Magesan, Gambetta, Emerson, PRL
+    # 106, 180504 (2011)); F_avg of amplitude damping γ:
+    # 1/2 + (1 − γ)/6 + √(1 − γ)/3 (the idle-qubit formula with T2 = 2T1,
+    # REFERENCES.md: Abad et al., PRL 129, 150504 (2022)).
+    gamma = 0.02
+    f_known = 0.5 + (1 - gamma) / 6 + math.sqrt(1 - gamma) / 3
+    S = X.amplitude_damping(gamma)
+    assert average_fidelity(process_fidelity(S, np.eye(2)), 2) == pytest.approx(f_known)
+    a = _rb(1, lambda k, c: S, count=40)
+    assert 1 - a.fit.r == pytest.approx(f_known, abs=0.1 * (1 - f_known))
+    lo, hi = a.r_interval
+    assert lo <= 1 - f_known <= hi
+
+
+def test_depolarizing_after_every_native_step():
+    # every physical step followed by depolarising λ, frame updates exact: the
+    # channels commute with the unitaries, so a Clifford of k pulses carries
+    # λ^k and the decay is p = mean over the group of λ^k (derived)
+    lam = 0.99
+    dec = decomposition(1)
+    p_known = float(np.mean(lam ** dec.physical_counts()))
+    dep = X.depolarizing(lam, 2)
+    seqs = make_sequences(dec, LENGTHS, 30, seed=8)
+    y = [X.survival_steps(s.steps, 1, lambda st: dep if st.physical else None) for s in seqs]
+    a = analyse([s.length for s in seqs], y, 2, dec.native_per_clifford, resamples=100)
+    assert a.p_interval[0] <= p_known <= a.p_interval[1]
+    assert a.fit.p == pytest.approx(p_known, abs=2e-3)
+
+
+@pytest.mark.parametrize("n", [1, 2])
+def test_interleaved_recovers_a_worse_step(n):
+    # reference: depolarising 0.995 after every Clifford; the interleaved step
+    # carries depolarising λ_G = 0.97·0.995, whose error (d − 1)(1 − λ_G)/d
+    # r_G = (d−1)(1 − p_G/p)/d recovers exactly for depolarising noise
+    # (Magesan et al., PRL 109, 080505 (2012))
+    d = 2 ** n
+    names = ("A", "B")[:n]
+    inter = interleaved("rot A x 90" if n == 1 else "cz", names)
+    base = X.depolarizing(0.995, d)
+    worse = X.depolarizing(0.97, d) @ base
+    lengths = (1, 2, 4, 8, 16, 32, 64) if n == 1 else (1, 2, 4, 8, 16, 32)
+    ref = _rb(n, lambda k, c: base, lengths=lengths, count=4)
+    # in an interleaved sequence the odd positions (before the inverse) are G
+    itl = _rb(n, lambda k, c: worse if k % 2 == 1 else base, lengths=lengths, count=4,
+              inter=inter)
+    r_g, bound = interleaved_error(ref.fit.p, itl.fit.p, d)
+    assert r_g == pytest.approx((d - 1) * (1 - 0.97 * 0.995) / d, rel=1e-6)
+    assert 0 < bound < 1
+
+
+def test_interleaved_coherent_over_rotation_within_bounds():
+    # the interleaved x90 over-rotated by ε about x: true error
+    # 1 − F_avg = (2/3)·sin²(ε/2) (Nielsen, Phys. Lett. A 303, 249 (2002));
+    # the estimate lies within ±E of it (Magesan et al., PRL 109, 080505 (2012))
+    eps = 0.15
+    inter = interleaved("rot A x 90", ("A",))
+    true = 2 / 3 * math.sin(eps / 2) ** 2
+    base = X.depolarizing(0.995, 2)
+    over = G.rx(math.pi / 2 + eps)
+    ref = _rb(1, lambda k, c: base, count=30)
+    itl = _rb(1, lambda k, c: base, count=30, inter=inter,
+              actual=lambda k, c: over if k % 2 == 1 else None)
+    r_g, bound = interleaved_error(ref.fit.p, itl.fit.p, 2)
+    assert abs(r_g - true) <= bound
+    assert r_g > 0.3 * true           # the worse step is seen, not lost in the scatter

@@ -34,12 +34,14 @@ class Interleaved:
 @dataclass(frozen=True)
 class Sequence:
     """One random sequence: ``cliffords`` (element numbers, the inverse last)
-    and the native ``steps`` in time order."""
+    the native ``steps`` in time order, and ``applied``: every Clifford
+    played, in order, the interleaved ones included."""
     length: int
     number: int
     interleaved: bool
     cliffords: tuple[int, ...]
     steps: tuple[NativeStep, ...]
+    applied: tuple[int, ...] = ()
 
     @property
     def name(self) -> str:
@@ -95,20 +97,25 @@ def make_sequence(dec: Decomposition, length: int, number: int, seed: int,
     rng = _rng(seed, length, number, inter is not None)
     drawn = rng.integers(0, group.size, size=length)
     elements: list[int] = []
+    applied: list[int] = []
     steps: list[NativeStep] = []
     u = np.eye(group.dim, dtype=complex)
     for c in drawn:
         c = int(c)
         elements.append(c)
+        applied.append(c)
         steps.extend(dec.words[c])
         u = group.unitaries[c] @ u
         if inter is not None:
             steps.extend(inter.word)
+            applied.append(inter.element)
             u = group.unitaries[inter.element] @ u
     last = group.find(u.conj().T)
     elements.append(last)
+    applied.append(last)
     steps.extend(dec.words[last])
-    return Sequence(length, number, inter is not None, tuple(elements), tuple(steps))
+    return Sequence(length, number, inter is not None, tuple(elements), tuple(steps),
+                    tuple(applied))
 
 
 def make_sequences(dec: Decomposition, lengths, count: int, seed: int,
