@@ -269,3 +269,80 @@ def test_interleaved_coherent_over_rotation_within_bounds():
     r_g, bound = interleaved_error(ref.fit.p, itl.fit.p, 2)
     assert abs(r_g - true) <= bound
     assert r_g > 0.3 * true           # the worse step is seen, not lost in the scatter
+
+
+# ------------------------------------------------------------------ the command
+
+import json                                                          # noqa: E402
+
+from compiler.cli import main                                        # noqa: E402
+
+RB_KEYS = {"p", "p_interval", "error_per_clifford", "error_per_clifford_interval",
+           "native_per_clifford", "error_per_native", "error_per_native_interval", "lengths",
+           "survival", "mean", "std", "fit", "step_fidelities", "comparison", "timing"}
+
+
+def _rb_args(out, *extra):
+    return ["rb", str(DEMO_PAIR), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
+            "--seed", "4", "--workers", "1", "--quiet", "--resamples", "20", "-o", str(out),
+            *extra]
+
+
+def test_rb_command_writes_results_and_checkable_sequences(tmp_path, capsys):
+    out = tmp_path / "rb"
+    assert main(_rb_args(out, "--interleave", "rot A x 90")) == 0
+    data = json.loads((out / "rb.json").read_text())
+    assert RB_KEYS <= set(data)
+    assert data["lengths"] == [1, 2, 3]
+    assert all(len(v) == 2 for v in data["survival"].values())
+    assert all(0 <= y <= 1 for v in data["survival"].values() for y in v)
+    assert data["native_per_clifford"] == pytest.approx(5 / 6)
+    assert data["interleaved"]["step"] == "rot A x 90"
+    assert len(data["step_fidelities"]) == 6          # ±x90, ±y90, x180, y180
+    assert (out / "rb.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    files = sorted((out / "sequences").glob("*.dotseq"))
+    assert len(files) == 12
+    compiler.check_file(files[-1])                    # what `dotseq check` does
+    compiler.compile_file(files[0])                   # and `dotseq compile`
+    assert "error per Clifford" in capsys.readouterr().out
+    # the state file holds a header and one line per simulation
+    lines = (out / "survival.jsonl").read_text().splitlines()
+    assert len(lines) == 1 + 13
+
+
+def test_rb_resume_simulates_only_the_missing(tmp_path, capsys):
+    out = tmp_path / "rb"
+    assert main(_rb_args(out)) == 0
+    first = json.loads((out / "rb.json").read_text())
+    state = out / "survival.jsonl"
+    lines = state.read_text().splitlines()
+    state.write_text("\n".join(lines[:-2]) + "\n" + lines[-2][: len(lines[-2]) // 2])  # torn
+    capsys.readouterr()
+    # without --resume an unfinished run is not thrown away
+    assert main(_rb_args(out)) == 2
+    assert "--resume" in capsys.readouterr().err
+    assert main(_rb_args(out, "--resume")) == 0
+    assert "2 simulated, 5 kept" in capsys.readouterr().out
+    again = json.loads((out / "rb.json").read_text())
+    assert again["survival"] == first["survival"]
+    # a different run is refused on resume
+    assert main(_rb_args(out, "--resume", "--seed", "5")) == 2
+
+
+@pytest.mark.parametrize("extra, words", [
+    (["--qubits", "C"], "no qubit 'C'"),
+    (["--lengths", "1,2"], "at least three"),
+    (["--lengths", "1,x,3"], "not a whole number"),
+    (["--sequences", "1"], "from 2"),
+    (["--interleave", "rot A x 45"], "not a Clifford"),
+    (["--decomposition", "xy", "--qubits", "A", "B"], "not offered"),
+])
+def test_rb_refusals(tmp_path, capsys, extra, words):
+    args = _rb_args(tmp_path / "rb")
+    if "--qubits" in extra:
+        i = args.index("--qubits")
+        del args[i:i + 2]
+    assert main(args + extra) == 2
+    err = capsys.readouterr().err
+    assert words in err and "Traceback" not in err
+    assert not (tmp_path / "rb").exists()
