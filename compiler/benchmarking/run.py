@@ -313,13 +313,17 @@ def analysis_dict(plan: RBPlan, results: dict[str, dict]) -> dict:
         r_g, bound = interleaved_error(a.fit.p, ib["p"], d)
         out["interleaved"] = {"step": plan.inter.text, **ib, "error": r_g,
                               "error_bounds": [max(0.0, r_g - bound), min(1.0, r_g + bound)]}
-    out["step_fidelities"], out["comparison"] = compare(plan, results.get("steps"), a)
+    longest = max(r["duration"] for k, r in results.items() if k != "steps")
+    out["step_fidelities"], out["comparison"] = compare(plan, results.get("steps"), a, longest)
     return out
 
 
-def compare(plan: RBPlan, steps_result: dict | None, a) -> tuple[list, dict]:
+SLOW_NOISE_SHARE = 0.01    # T2* shorter than 100 longest sequences: slow noise is named
+
+
+def compare(plan: RBPlan, steps_result: dict | None, a, longest: float = 0.0) -> tuple[list, dict]:
     """The simulator's per-step fidelities against RB's error per native step,
-    and why they may differ."""
+    and why they may differ (``longest``: the longest sequence, s)."""
     if not steps_result or steps_result.get("status") != "ok":
         return [], {"note": "per-step fidelities not available"}
     freq = step_frequencies(plan)
@@ -346,8 +350,11 @@ def compare(plan: RBPlan, steps_result: dict | None, a) -> tuple[list, dict]:
     from ..device import load_device
     dev = load_device(Path(plan.device_path)) if plan.device_path else None
     if dev is not None:
-        slow = [q for q in plan.settings.qubits if dev.dots[q].t2_star > 0]
-        if slow or any(c.charge_noise > 0 for c in dev.couplings):
+        slow = [q for q in plan.settings.qubits
+                if 0 < dev.dots[q].t2_star and longest > SLOW_NOISE_SHARE * dev.dots[q].t2_star]
+        charge = len(plan.settings.qubits) == 2 and any(
+            c.charge_noise > 0 and set(c.dots) == set(plan.settings.qubits) for c in dev.couplings)
+        if slow or charge:
             reasons.append("slow noise: quasi-static Zeeman (T2*) or charge noise stays the same "
                            "through a whole sequence, so errors of successive steps add "
                            "coherently within a Clifford and RB is not a product of independent "
