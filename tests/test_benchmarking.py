@@ -299,6 +299,11 @@ def test_rb_command_writes_results_and_checkable_sequences(tmp_path, capsys):
     assert data["native_per_clifford"] == pytest.approx(5 / 6)
     assert data["interleaved"]["step"] == "rot A x 90"
     assert len(data["step_fidelities"]) == 6          # ±x90, ±y90, x180, y180
+    # B is a spectator: the comparison also has the steps with B quiet, which
+    # must be better than with B dephasing during every step
+    c = data["comparison"]
+    assert 0 < c["error_per_native_from_steps_quiet_spectators"] < c["error_per_native_from_steps"]
+    assert any(r.startswith("spectators (B)") for r in c["possible_reasons"])
     assert (out / "rb.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     files = sorted((out / "sequences").glob("*.dotseq"))
     assert len(files) == 12
