@@ -87,7 +87,10 @@ class NativeStep:
 
     def unitary(self, n: int) -> np.ndarray:
         """The ideal operation on ``n`` benchmarked qubits (the simulator's own
-        ideal operations, :mod:`compiler.simulate.fidelity`)."""
+        ideal operations, :mod:`compiler.simulate.fidelity`); read-only, cached."""
+        return _step_unitary(self, n)
+
+    def _build(self, n: int) -> np.ndarray:
         if self.kind == "sqrtswap":
             return np.array(F.exchange_unitary("sqrtswap", self.roles[0], self.roles[1], n))
         th = math.radians(self.angle)
@@ -97,6 +100,13 @@ class NativeStep:
             phase = {"x": 0.0, "y": math.pi / 2, "-x": math.pi, "-y": 3 * math.pi / 2}[self.axis]
             single = F.rotation(phase, th)
         return F.op(single, self.roles[0], n)
+
+
+@lru_cache(maxsize=256)
+def _step_unitary(step: NativeStep, n: int) -> np.ndarray:
+    u = step._build(n)
+    u.flags.writeable = False
+    return u
 
 
 def _pulses(role: int) -> list[NativeStep]:

@@ -18,7 +18,7 @@ import os
 from pathlib import Path
 
 from ..source import Unreadable, check_regular
-from ..sweep.errors import SweepError, fail
+from ..sweep.errors import fail
 from ..sweep.store import dumps, write_atomic
 
 STATE_NAME = "survival.jsonl"
@@ -180,4 +180,4 @@ class RBFolder:
                 pass
 
 
-__all__ = ["RBFolder", "SweepError", "STATE_NAME"]
+__all__ = ["RBFolder", "STATE_NAME"]
