@@ -140,9 +140,8 @@ def _rb_parser(sub) -> None:
                    "folder (same device and arguments)")
     b.add_argument("--engine", choices=("fast", "reference"), default="fast",
                    help="fast (default) or reference (qutip mesolve, slow)")
-    b.add_argument("--nodes", type=int, default=3, help="quadrature nodes per quasi-static noise "
-                   "variable (default 3: the spread over random sequences is far larger than "
-                   "the quadrature error, docs/rb.md)")
+    b.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
+                   "variable (default 5, as dotseq simulate)")
     b.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
                    help="full product grid, one noise at a time, or auto (default)")
     b.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per "

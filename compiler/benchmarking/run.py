@@ -51,11 +51,7 @@ class RBSettings:
     decomposition: str = "virtual-z"
     interleave: str | None = None
     engine: str = "fast"
-    # 3 quadrature nodes per quasi-static noise variable, as the simulator uses for the
-    # runs of a sweep other than the detail run: on the demo pair the survival of a
-    # 16-Clifford sequence moves by 1.3e-5 from 3 to 5 nodes, against a spread of about
-    # 1e-2 over random sequences; about 1.5 times faster (docs/rb.md)
-    nodes: int = 3
+    nodes: int = 5
     quadrature: str = "auto"
     substeps: int = 2
     resamples: int = 200
