@@ -538,7 +538,7 @@ def cmd_rb(args) -> int:
     finally:
         signal.signal(signal.SIGTERM, old_term)
     if args.json and outcome.data is not None:
-        print(json.dumps(outcome.data, indent=1, default=float))
+        print((outcome.folder / "rb.json").read_text(), end="")
     else:
         print("\n".join(summary_lines(outcome)), file=sys.stderr if args.json else sys.stdout)
     return {"complete": EXIT_OK, "invalid": EXIT_INPUT, "failed": EXIT_INTERNAL}[outcome.status]

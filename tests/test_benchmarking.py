@@ -412,3 +412,31 @@ def test_two_qubit_rb_command(tmp_path):
         c = compiler.load(f)
         assert _equal_mod_phase(F.ideal_unitary(c.expanded.runs[0].steps, tuple(c.device.dots)),
                                 np.eye(4))
+
+
+def test_rb_interrupted_keeps_the_finished_and_resumes(tmp_path, capsys, monkeypatch):
+    # Ctrl-C after three simulations: exit 130, the three kept on disk, and
+    # --resume simulates only the rest; --json then prints rb.json
+    import compiler.benchmarking.run as R
+    real = R.simulate_task
+    calls = []
+
+    def flaky(task):
+        calls.append(task.name)
+        if len(calls) == 4:
+            raise KeyboardInterrupt
+        return real(task)
+    monkeypatch.setattr(R, "simulate_task", flaky)
+    dev = _nearly_ideal(tmp_path)
+    args = ["rb", str(dev), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
+            "--workers", "1", "--quiet", "--resamples", "20", "-o", str(tmp_path / "rb")]
+    assert main(args) == 130
+    assert "--resume" in capsys.readouterr().err
+    lines = (tmp_path / "rb" / "survival.jsonl").read_text().splitlines()
+    assert len(lines) == 1 + 3
+    assert not (tmp_path / "rb" / "rb.json").exists()
+    monkeypatch.setattr(R, "simulate_task", real)
+    assert main(args + ["--resume", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert sum(len(v) for v in data["survival"].values()) == 6
+    assert data["timing"]["resumed"] == 3 and data["timing"]["simulated"] == 4
