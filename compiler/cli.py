@@ -136,6 +136,12 @@ def _rb_parser(sub) -> None:
     b.add_argument("--device", help="device description (YAML) to use instead of the file's own")
     b.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
                    "the number of cores; 1 computes in this process)")
+    b.add_argument("--cluster", metavar="tcp://HOST:PORT", help="simulate on this Dask scheduler "
+                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); the "
+                   "sequences travel with the tasks; needs pip install 'dotseq[dask]'")
+    b.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
+                   help="give up on a --cluster address that does not answer as a Dask scheduler "
+                   "within this time (default 10)")
     b.add_argument("--resume", action="store_true", help="continue the unfinished run in the -o "
                    "folder (same device and arguments)")
     b.add_argument("--engine", choices=("fast", "reference"), default="fast",
@@ -512,7 +518,23 @@ def cmd_rb(args) -> int:
     import signal
     from .benchmarking.run import Progress, RBSettings, parse_lengths, plan_rb, run_rb, \
         summary_lines
-    from .sweep.execute import local_cores
+    import os
+    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address, connect,
+                                local_cores)
+    cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
+    cluster = cluster.strip() or None
+    if cluster == "local":
+        cluster = None
+    if cluster and args.workers is not None:
+        raise UsageError("--workers sets the local worker processes, but the simulations go to "
+                         f"the Dask cluster {cluster}", hint="drop --workers, or give --cluster "
+                         "local to compute here")
+    timeout = DEFAULT_CLUSTER_TIMEOUT if args.cluster_timeout is None else args.cluster_timeout
+    if not 0 < timeout <= 3600:
+        raise UsageError(f"--cluster-timeout {timeout:g}: give from 0 to 3600 seconds",
+                         hint="e.g. --cluster-timeout 30")
+    if cluster:
+        cluster = check_address(cluster)
     settings = RBSettings(tuple(args.qubits), parse_lengths(args.lengths), args.sequences,
                           args.seed, args.decomposition, args.interleave, args.engine, args.nodes,
                           args.quadrature, args.substeps, args.resamples)
@@ -524,13 +546,19 @@ def cmd_rb(args) -> int:
     SimOptions(engine=args.engine, nodes=args.nodes, quadrature=args.quadrature,
                substeps=args.substeps).check()
     plan = plan_rb(args.source, settings, device=args.device)
+    connection = None
+    if cluster:
+        if not args.debug:           # dotseq reports lost simulations itself
+            import logging
+            logging.getLogger("distributed").setLevel(logging.CRITICAL)
+        connection = connect(cluster, timeout)
 
     def on_term(signum, frame):
         raise KeyboardInterrupt
     old_term = signal.signal(signal.SIGTERM, on_term)
     try:
         outcome = run_rb(plan, args.out, workers=workers, resume=args.resume,
-                         progress=Progress(enabled=not args.quiet))
+                         progress=Progress(enabled=not args.quiet), cluster=connection)
     except KeyboardInterrupt:
         print(f"dotseq rb: interrupted; every finished simulation is kept in {args.out}/"
               "survival.jsonl: continue with the same arguments and --resume", file=sys.stderr)

@@ -349,6 +349,7 @@ def test_rb_resume_simulates_only_the_missing(tmp_path, capsys):
     (["--sequences", "1"], "from 2"),
     (["--interleave", "rot A x 45"], "not a Clifford"),
     (["--decomposition", "xy", "--qubits", "A", "B"], "not offered"),
+    (["--cluster", "http://127.0.0.1:1"], "Dask"),
 ])
 def test_rb_refusals(tmp_path, capsys, extra, words):
     args = _rb_args(tmp_path / "rb")
@@ -440,3 +441,37 @@ def test_rb_interrupted_keeps_the_finished_and_resumes(tmp_path, capsys, monkeyp
     data = json.loads(capsys.readouterr().out)
     assert sum(len(v) for v in data["survival"].values()) == 6
     assert data["timing"]["resumed"] == 3 and data["timing"]["simulated"] == 4
+
+
+def test_rb_on_a_dask_cluster_gives_the_same_numbers(tmp_path, capsys):
+    # the sequences travel with the tasks (a worker that does not see the
+    # folder writes them into its own temporary folder): same survival as
+    # in this process, exactly (common practice, no source)
+    distributed = pytest.importorskip("distributed")
+    dev = _nearly_ideal(tmp_path)
+    base = ["rb", str(dev), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2", "--quiet",
+            "--resamples", "20"]
+    assert main(base + ["--workers", "1", "-o", str(tmp_path / "here")]) == 0
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  host="127.0.0.1", protocol="tcp://",
+                                  dashboard_address=None) as cluster:
+        assert main(base + ["--cluster", cluster.scheduler_address, "--cluster-timeout", "5",
+                            "-o", str(tmp_path / "dask")]) == 0
+    here = json.loads((tmp_path / "here" / "rb.json").read_text())
+    dask = json.loads((tmp_path / "dask" / "rb.json").read_text())
+    assert here["survival"] == dask["survival"]
+    assert dask["timing"]["backend"].startswith("dask cluster tcp://127.0.0.1")
+
+
+def test_rb_task_loads_from_its_own_text_when_the_path_is_not_there(tmp_path):
+    # what a Dask worker on another machine does
+    from compiler.benchmarking.run import RBTask, simulate_task
+    dev = _nearly_ideal(tmp_path)
+    dec = decomposition(1)
+    seq = make_sequences(dec, (2,), 1, seed=1)[0]
+    text = sequence_text(seq, ("A",), "../device.yaml")
+    task = RBTask(0, seq.name, str(tmp_path / "elsewhere" / "sequences" / "x.dotseq"), ("A",),
+                  {}, False, text, dev.read_bytes())
+    r = simulate_task(task)
+    assert r["status"] == "ok", r
+    assert r["survival"] == pytest.approx(1, abs=1e-5)

@@ -98,13 +98,18 @@ def parse_lengths(text: str) -> tuple[int, ...]:
 
 @dataclass(frozen=True)
 class RBTask:
-    """One simulation for a worker: a sequence file (or the per-step file)."""
+    """One simulation for a worker: a sequence file (or the per-step file).
+    ``text`` and ``device_text`` travel with the task, so a worker that does
+    not see ``path`` (a Dask worker on another machine) writes them into a
+    temporary folder of its own."""
     index: int
     name: str
     path: str
     qubits: tuple[str, ...]
     options: dict
     steps: bool = False            # the per-step fidelity file
+    text: str = ""
+    device_text: bytes = b""
 
 
 def simulate_task(task: RBTask) -> dict:
@@ -126,10 +131,31 @@ def simulate_task(task: RBTask) -> dict:
                 "message": f"{type(e).__name__}: {e}{at}"}
 
 
-def _simulate(task: RBTask, t0: float) -> dict:
+def _load_task(task: RBTask):
+    """The checked file of ``task``: from its path when this worker sees the
+    same file, else from the text it carries (in a temporary folder laid
+    out like the output folder)."""
+    import tempfile
     from .. import load
+    p = Path(task.path)
+    try:
+        same = not task.text or (p.is_file() and p.read_text(encoding="utf-8") == task.text)
+    except OSError:
+        same = False
+    if same:
+        return load(p)
+    with tempfile.TemporaryDirectory(prefix="dotseq-rb-task-") as tmp:
+        Path(tmp, DEVICE_COPY).write_bytes(task.device_text)
+        sub = Path(tmp) if task.steps else Path(tmp, "sequences")
+        sub.mkdir(exist_ok=True)
+        local = sub / p.name
+        local.write_text(task.text, encoding="utf-8")
+        return load(local)
+
+
+def _simulate(task: RBTask, t0: float) -> dict:
     from ..simulate import SimOptions
-    checked = load(task.path)
+    checked = _load_task(task)
     opts = SimOptions(budget=False, steps=task.steps, trace_points=0, threads=1,
                       max_step_entries=10000, **task.options)
     run = _simulated(checked, opts)
@@ -521,6 +547,7 @@ def run_rb(plan: RBPlan, out, *, workers: int = 1, resume: bool = False,
         options = {"engine": s.engine, "nodes": s.nodes, "quadrature": s.quadrature,
                    "substeps": s.substeps}
         tasks = []
+        ship = cluster is not None          # Dask workers may not see this folder
         for i, q in enumerate(plan.sequences):
             rel = f"sequences/{q.name}.dotseq"
             text = sequence_text(q, s.qubits, f"../{DEVICE_COPY}", header=file_header(plan, q))
@@ -528,11 +555,14 @@ def run_rb(plan: RBPlan, out, *, workers: int = 1, resume: bool = False,
             if not path.is_file() or path.read_text() != text:
                 folder.write(rel, text.encode("utf-8"))
             if q.name not in folder.done or folder.done[q.name].get("status") != "ok":
-                tasks.append(RBTask(i, q.name, str(path), s.qubits, options))
-        folder.write(STEPS_FILE, steps_text(plan).encode("utf-8"))
+                tasks.append(RBTask(i, q.name, str(path), s.qubits, options, False,
+                                    text if ship else "", plan.device_text if ship else b""))
+        stext = steps_text(plan)
+        folder.write(STEPS_FILE, stext.encode("utf-8"))
         if "steps" not in folder.done or folder.done["steps"].get("status") != "ok":
             tasks.insert(0, RBTask(len(plan.sequences), "steps", str(folder.path / STEPS_FILE),
-                                   s.qubits, options, steps=True))
+                                   s.qubits, options, True, stext if ship else "",
+                                   plan.device_text if ship else b""))
         results = {k: v for k, v in folder.done.items() if v.get("status") == "ok"}
         resumed = len(results)
         problems: list = []
