@@ -6,11 +6,15 @@ The pipeline, one subpackage per stage::
          --schedule--> timelines --synth--> waveforms --export--> bundle
                                                       --preview--> figure
 
-The functions here chain the stages; the command line calls only these.
+The functions here chain the stages; the command line calls only these:
+:func:`load` (parse, expand, device, check, schedule: once per command) and
+:func:`compile` (synthesis under :class:`CompileOptions`), whose
+:class:`Compiled` result export, preview and simulate all take.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import gc
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -27,6 +31,7 @@ from .parse import parse_path, parse_text
 from .program import Expanded
 from .schedule import Timeline, schedule
 from .synth import Waveforms, synthesize
+from .synth.types import CompiledRun, CompileOptions, Recompiler
 
 __version__ = "0.1.0"
 
@@ -69,7 +74,8 @@ def load(path: str | Path, device: str | Path | None = None, *,
         expanded = expand(parse_path(path, budget=budget, confine=confine), budget=budget)
         dev = device_of(expanded, device, confine=confine)
         check(expanded, dev)
-        timelines = tuple(schedule(r, dev) for r in expanded.runs)
+        log = DEFAULT_OPTIONS.frame_log_steps
+        timelines = tuple(schedule(r, dev, record_frames=log) for r in expanded.runs)
     return Checked(expanded, dev, timelines)
 
 
@@ -80,29 +86,86 @@ def check_file(path: str | Path, device: str | Path | None = None, *,
     return summarize(c.expanded, c.device, list(c.timelines))
 
 
+DEFAULT_OPTIONS = CompileOptions()
+
+
+def _device_for(device: Device, options: CompileOptions) -> Device:
+    if not options.ideal_bandwidth:
+        return device
+    chans = {k: dataclasses.replace(c, rise_time=0.0) for k, c in device.channels.items()}
+    return dataclasses.replace(device, channels=chans)
+
+
+def compile_run(run, device: Device, options: CompileOptions = CompileOptions(), *,
+                index: int = 0, timeline: Timeline | None = None) -> CompiledRun:
+    """Schedule (unless ``timeline`` is given) and synthesise one checked run
+    (``index``: its position among the file's runs)."""
+    dev = _device_for(device, options)
+    if timeline is None:
+        timeline = schedule(run, dev, spectator_correction=options.spectator_correction,
+                            exchange_zeeman=options.exchange_zeeman,
+                            record_frames=options.frame_log_steps)
+    wf = synthesize(timeline, dev, predistort=options.predistort, per_dot=options.per_dot,
+                    keep_ideal=options.keep_ideal)
+    return CompiledRun(index, run, dev, timeline, wf, options)
+
+
+def recompile(base: CompiledRun, options: CompileOptions) -> CompiledRun:
+    """The same run under other options (the error budget's what-if variants);
+    the timeline is reused when the options do not change the schedule."""
+    if base.options.ideal_bandwidth:
+        raise ValueError("recompile from a run compiled with the device's own bandwidth")
+    same = options.schedule_key() == base.options.schedule_key()
+    return compile_run(base.run, base.device, options, index=base.index,
+                       timeline=base.timeline if same else None)
+
+
+def render_part(base: CompiledRun, slots: tuple, frames: dict) -> Waveforms:
+    """What only ``slots`` of a compiled run play, with ``frames`` as the final
+    frames (per-step fidelities simulate each step alone)."""
+    tl = base.timeline
+    sub = Timeline(base.run, tuple(slots), tl.n_samples, tl.dt, frames)
+    return synthesize(sub, base.device, predistort=base.options.predistort, per_dot=True)
+
+
+RECOMPILER = Recompiler(recompile, render_part)
+
+
 @dataclass(frozen=True)
 class Compiled:
-    """A checked file and the sampled waveforms of every run."""
+    """A checked file and the chosen runs compiled under one set of options."""
     checked: Checked
-    waveforms: tuple[Waveforms, ...]
+    options: CompileOptions
+    runs: tuple[CompiledRun, ...]
+    recompiler: Recompiler = RECOMPILER
+
+    @property
+    def waveforms(self) -> tuple[Waveforms, ...]:
+        return tuple(r.waveforms for r in self.runs)
 
 
-def compile_checked(checked: Checked, *, predistort: bool = False,
-                    runs: list[int] | None = None, keep_ideal: bool = False) -> Compiled:
-    """Synthesise the waveforms of the chosen runs (all by default).  Only the
-    DAC codes are kept unless ``keep_ideal`` (volts follow from the codes)."""
+def compile(checked: Checked, options: CompileOptions = DEFAULT_OPTIONS, *,
+            runs: list[int] | None = None) -> Compiled:
+    """Synthesise the chosen runs (all by default) under ``options``; the
+    timelines of :func:`load` are used unless the options change the
+    schedule.  Only the DAC codes are kept unless ``options.keep_ideal``
+    (volts follow from the codes)."""
     idx = range(len(checked.timelines)) if runs is None else runs
+    same = options.schedule_key() == DEFAULT_OPTIONS.schedule_key()
     with _bulk():
-        wfs = tuple(synthesize(checked.timelines[i], checked.device, predistort=predistort,
-                               keep_ideal=keep_ideal) for i in idx)
-    return Compiled(checked, wfs)
+        out = tuple(compile_run(checked.expanded.runs[i], checked.device, options, index=i,
+                                timeline=checked.timelines[i] if same else None) for i in idx)
+    return Compiled(checked, options, out)
 
 
-def compile_file(path: str | Path, device: str | Path | None = None, *,
-                 predistort: bool = False, runs: list[int] | None = None) -> Compiled:
+def compile_file(path: str | Path, device: str | Path | None = None,
+                 options: CompileOptions = DEFAULT_OPTIONS, *,
+                 runs: list[int] | None = None) -> Compiled:
     """Parse, check, schedule and synthesise: the arrays each channel plays."""
-    return compile_checked(load(path, device), predistort=predistort, runs=runs)
+    return compile(load(path, device), options, runs=runs)
 
 
-__all__ = ["compile_file", "compile_checked", "Compiled", "Waveforms", "synthesize","load", "check_file", "parse_path", "parse_text", "expand", "check", "schedule",
-           "load_device", "summarize", "DotseqError", "Checked", "__version__"]
+__all__ = ["compile", "compile_file", "compile_run", "recompile", "render_part", "Compiled", "CompiledRun",
+           "CompileOptions", "RECOMPILER", "Waveforms", "synthesize", "load", "check_file",
+           "parse_path", "parse_text", "expand", "check", "schedule", "load_device", "summarize",
+           "DotseqError", "Checked", "__version__"]

@@ -10,8 +10,8 @@ import sys
 import traceback
 from pathlib import Path
 
-from . import __version__, check_file, compile_checked, load
-from .check.summary import render_text, to_dict
+from . import CompileOptions, __version__, check_file, compile, load
+from .check.summary import render_text, summarize, to_dict
 from .errors import DotseqError, UsageError
 from .limits import MAX_SOURCE_CHARS, check_synthesis_size, default_limit, human, parse_size
 from .source import Oversize, Unreadable, read_capped
@@ -218,7 +218,8 @@ def _sweep_parser(sub) -> None:
 
 
 def _sim_flags(p) -> None:
-    p.add_argument("--engine", choices=("fast", "reference"), default="fast",
+    from .simulate.engines import ENGINES
+    p.add_argument("--engine", choices=tuple(ENGINES), default="fast",
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
     p.add_argument("--run", type=int, default=0, dest="detail_run",
@@ -269,15 +270,22 @@ def _memory_limit(args) -> int:
     return parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
 
 
-def _synthesised(args, runs: list[int] | None = None):
+def _options(args) -> CompileOptions:
+    return CompileOptions(predistort=bool(args.predistort))
+
+
+def _synthesised(args, checked=None, runs: list[int] | None = None):
+    """Compile the chosen runs (all by default) of the loaded file (loaded
+    here unless given), after the memory estimate."""
     limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
+    if checked is None:
+        checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
     chosen = range(len(checked.timelines)) if runs is None else runs
     n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
     # padded to the generators' min_length and granularity, as synthesis will
     total = sum(checked.device.padded_samples(checked.timelines[i].n_samples) for i in chosen)
     need = check_synthesis_size(total, n_outputs, limit, file=args.file)
-    return compile_checked(checked, predistort=args.predistort, runs=runs), need
+    return compile(checked, _options(args), runs=runs), need
 
 
 def _source(args, compiled) -> dict:
@@ -345,11 +353,7 @@ def cmd_preview(args) -> int:
     if not 0 <= args.run < n:
         raise UsageError(f"--run {args.run} does not exist: the file has {n} run{'s' * (n != 1)} "
                          f"(0..{n - 1})")
-    args_runs = [args.run]
-    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(checked.device.padded_samples(checked.timelines[args.run].n_samples),
-                         n_outputs, limit, file=args.file)
-    wf = compile_checked(checked, predistort=args.predistort, runs=args_runs).waveforms[0]
+    wf = _synthesised(args, checked, runs=[args.run])[0].waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
     sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
     title = f"{args.file} (run {args.run}{': ' + sweep if sweep else ''}) on {checked.device.name}"
@@ -369,27 +373,22 @@ def _sim_options(args):
                       steps=not args.no_steps, detail_run=args.detail_run)
 
 
-def _simulated(args, checked):
+def _simulated(args, compiled):
+    """Simulate the compiled runs (what export and preview took)."""
     from .simulate import simulate
-    n = len(checked.timelines)
+    n = len(compiled.runs)
     if not 0 <= args.detail_run < n:
         raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
                          f"{'s' * (n != 1)} (0..{n - 1})")
     def progress(text: str) -> None:
         print(f"simulating: {text}", file=sys.stderr, flush=True)
-    return simulate(checked, _sim_options(args), progress=progress)
+    return simulate(compiled, _sim_options(args), progress=progress)
 
 
 def cmd_simulate(args) -> int:
     from .report import summary_text, write_report
-    limit = _memory_limit(args)
-    checked = load(args.file, args.device, memory_limit=limit, confine=args.confine)
-    # each run is synthesised (as played) before it is simulated: the longest must fit
-    n_outputs = sum(2 if c.kind == "iq" else 1 for c in checked.device.channels.values())
-    check_synthesis_size(max((checked.device.padded_samples(t.n_samples)
-                              for t in checked.timelines), default=0), n_outputs,
-                         limit, file=args.file)
-    result = _simulated(args, checked)
+    compiled, _ = _synthesised(args)
+    result = _simulated(args, compiled)
     path = write_report(result, args.out)
     if args.json:
         from .report.data import results_json
@@ -410,17 +409,19 @@ def cmd_run(args) -> int:
     from .report import summary_text, write_report
     out = check_run_folder(args.out, args.discard_other_files)
     _sim_options(args).check()
-    summary = check_file(args.file, args.device, memory_limit=_memory_limit(args),
-                         confine=args.confine)
+    # loaded (parsed, checked, scheduled) once and compiled once: export,
+    # preview and simulation take the same compiled runs
+    checked = load(args.file, args.device, memory_limit=_memory_limit(args), confine=args.confine)
+    summary = summarize(checked.expanded, checked.device, list(checked.timelines))
     n = summary.runs
     if not 0 <= args.detail_run < n:
         raise UsageError(f"--run {args.detail_run} does not exist: the file has {n} run"
                          f"{'s' * (n != 1)} (0..{n - 1}); nothing was written")
     print(render_text(summary))
     print()
-    compiled, need = _synthesised(args)
-    checked, k = compiled.checked, args.detail_run
-    result = _simulated(args, checked)
+    compiled, need = _synthesised(args, checked)
+    k = args.detail_run
+    result = _simulated(args, compiled)
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
 
     def fill(tmp):
@@ -448,8 +449,8 @@ def cmd_sweep(args) -> int:
     import signal
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
-    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, _dask, check_address,
-                                local_cores)
+    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address,
+                                local_cores, require_dask)
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -468,7 +469,7 @@ def cmd_sweep(args) -> int:
                          hint="e.g. --cluster-timeout 30")
     if cluster:
         cluster = check_address(cluster)
-        _dask()                      # fail now, with the install hint, not after planning
+        require_dask()               # fail now, with the install hint, not after planning
         if not args.debug:           # dotseq reports lost points itself
             import logging
             logging.getLogger("distributed").setLevel(logging.CRITICAL)
@@ -621,8 +622,8 @@ def main(argv: list[str] | None = None) -> int:
 def entry() -> None:
     # every matrix dotseq multiplies is small or thin: a second BLAS thread only
     # adds synchronisation (30x slower on a batch of 4x4 exponentials, 2 cores)
-    from .simulate.cluster import single_threaded
-    with single_threaded():
+    from .threads import one_thread
+    with one_thread():
         code = main()
     sys.exit(code)
 

@@ -1,12 +1,13 @@
 from pathlib import Path
 
 import pytest
-from threadpoolctl import threadpool_limits
+from compiler.threads import one_thread
 
 # The tests multiply small matrices (reference propagators, pulse design): BLAS
-# on one thread, as the dotseq command runs (compiler/cli.py); a second thread
-# made a 4x4-heavy test eight times slower on a 2-core machine.
-threadpool_limits(limits=1, user_api="blas")
+# on one thread, as the dotseq command runs (compiler/threads.py); a second
+# thread made a 4x4-heavy test eight times slower on a 2-core machine.  The
+# limit applies when made and is kept for the session.
+_ONE_THREAD = one_thread()
 
 ROOT = Path(__file__).resolve().parent.parent
 SEQUENCES = ROOT / "sequences"

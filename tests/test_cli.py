@@ -170,6 +170,46 @@ def test_run_does_the_whole_job(tmp_path):
     assert "Caution" in stdout and "Larmor" in stdout
 
 
+def test_run_loads_and_compiles_once(tmp_path, monkeypatch, capsys):
+    # dotseq run parses, checks and schedules the file once and synthesises it
+    # once; export, preview and simulation take the same compiled runs, so what
+    # is simulated is what is exported (common practice, no source)
+    import compiler.cli as CLI
+    import compiler.export
+    import compiler.simulate
+    from compiler.schedule import timeline as TL
+    monkeypatch.chdir(ROOT)
+    n_runs = len(CLI.load("sequences/cnot_pair.dotseq").timelines)
+    calls = {"load": 0, "compile": 0, "schedule": 0}
+    seen = {}
+
+    def counted(name, fn):
+        def wrapper(*a, **k):
+            calls[name] += 1
+            return fn(*a, **k)
+        return wrapper
+    monkeypatch.setattr(CLI, "load", counted("load", CLI.load))
+    monkeypatch.setattr(CLI, "compile", counted("compile", CLI.compile))
+    monkeypatch.setattr(TL._Scheduler, "schedule", counted("schedule", TL._Scheduler.schedule))
+    real_bundle, real_sim = compiler.export.write_bundle, compiler.simulate.simulate
+
+    def bundle(wfs, *a, **k):
+        seen["exported"] = wfs
+        return real_bundle(wfs, *a, **k)
+
+    def sim(compiled, *a, **k):
+        seen["simulated"] = compiled.waveforms
+        return real_sim(compiled, *a, **k)
+    monkeypatch.setattr(compiler.export, "write_bundle", bundle)
+    monkeypatch.setattr(compiler.simulate, "simulate", sim)
+    code = main(["run", "sequences/cnot_pair.dotseq", "-o", str(tmp_path / "all"), "--nodes", "1",
+                 "--no-budget", "--no-steps"])
+    assert code == 0, capsys.readouterr().err
+    assert calls == {"load": 1, "compile": 1, "schedule": n_runs}
+    assert len(seen["simulated"]) == n_runs
+    assert all(a is b for a, b in zip(seen["exported"], seen["simulated"]))
+
+
 @pytest.mark.parametrize("args, fragment", [
     pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--run", "3"], "--run 3 does not exist", id="bad-run"),
     pytest.param(["simulate", "sequences/cnot_pair.dotseq", "-o", "r", "--nodes", "0"], "nodes 0", id="bad-nodes"),

@@ -11,10 +11,12 @@ from scipy.linalg import expm
 
 from compiler import load
 from compiler.simulate import fidelity as F
-from compiler.simulate import pauli as PL
+from compiler.simulate.engines import pauli as PL
 from compiler.simulate.engines import FastEngine, ReferenceEngine
-from compiler.simulate.model import NoisePoint, build_model, noise_points
-from compiler.simulate.run import _end_sample, compile_run
+from compiler import compile, compile_run
+from compiler.simulate.build import build_model
+from compiler.simulate.model import NoisePoint, noise_points
+from compiler.simulate.run import end_sample
 from conftest import SEQUENCES
 
 sys.path.insert(0, str(Path(__file__).parent / "benchmarks"))
@@ -66,8 +68,8 @@ def test_batched_exponential_matches_scipy():
 
 def _model(seq_path, run=0, stop=None):
     c = load(seq_path)
-    dev, tl, wf = compile_run(c.expanded.runs[run], c.device)
-    return c, build_model(wf, dev, m=2, stop=stop or _end_sample(tl))
+    cr = compile_run(c.expanded.runs[run], c.device)
+    return c, build_model(cr.waveforms, cr.device, m=2, stop=stop or end_sample(cr.timeline))
 
 
 def _compare(model, pts, *, process):
@@ -100,7 +102,8 @@ def test_ribbon_example_window_agrees_with_mesolve():
     # detuned), neighbouring bursts and idle dots, state of four dots to 1e-7;
     # the whole run is compared in tests/benchmarks/bench_simulate.py
     c = load(SEQUENCES / "ribbon_long_range.dotseq")
-    dev, tl, wf = compile_run(c.expanded.runs[0], c.device)
+    cr = compile_run(c.expanded.runs[0], c.device)
+    dev, tl, wf = cr.device, cr.timeline, cr.waveforms
     ac = next(s for s in tl.slots if s.kind == "sqrtswap")
     a = max(0, ac.start_sample - 300)
     model = build_model(wf, dev, m=2, start=a, stop=min(tl.n_samples, ac.end_sample + 600))
@@ -173,7 +176,7 @@ def test_repeated_gates_hit_the_cache(tmp_path):
 def test_result_records_engine_statistics():
     from compiler.simulate import SimOptions, simulate
     c = load(SEQUENCES / "cnot_pair.dotseq")
-    r = simulate(c, SimOptions(nodes=1, budget=False, steps=False))
+    r = simulate(compile(c), SimOptions(nodes=1, budget=False, steps=False))
     for key in ("wall_s", "exponentials", "cache_hits", "channel_applications", "engine"):
         assert key in r.stats
     assert r.stats["engine"] == "fast" and r.stats["exponentials"] > 0
@@ -190,6 +193,6 @@ def test_budget_keeps_one_quadrature_rule(tmp_path):
     seq = write_case(tmp_path, 2, 6, charge_noise="10 uV")
     c = load(seq)
     assert quadrature_rule(c.device, SimOptions(nodes=5)) == "additive"
-    r = simulate(c, SimOptions(nodes=5, steps=False))
+    r = simulate(compile(c), SimOptions(nodes=5, steps=False))
     line = next(b for b in r.runs[0].budget if b.source.startswith("charge"))
     assert abs(line.infidelity) < 1e-5

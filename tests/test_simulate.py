@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from compiler import compile_checked, load
+from compiler import CompileOptions, compile, compile_run, load
 from compiler.check import check
 from compiler.device import load_device_text
 from compiler.expand import expand
@@ -15,9 +15,11 @@ from compiler.physics import H as PLANCK, K_B, larmor_frequency
 from compiler.schedule import schedule
 from compiler.simulate import SimOptions, simulate
 from compiler.simulate import fidelity as F
+from compiler.simulate.build import build_model
 from compiler.simulate.engines import FastEngine, ReferenceEngine
-from compiler.simulate.model import ALL_OFF, Switches, build_model, noise_points
-from compiler.simulate.run import compile_run, evaluate_whole
+from compiler.simulate.model import noise_points
+from compiler.simulate.run import evaluate_whole
+from compiler.simulate.sources import Switches, all_off, compile_changes
 from compiler.synth import synthesize
 from conftest import SEQUENCES
 
@@ -48,9 +50,9 @@ def run_of(src: str, dev):
 
 def whole(src, dev, switches=Switches(), nodes=1, quadrature="tensor", **kw):
     run = run_of(src, dev)
-    d, tl, wf = compile_run(run, dev)
-    return evaluate_whole(tl, wf, d, switches, SimOptions(nodes=nodes, quadrature=quadrature, **kw),
-                          FastEngine())
+    compiled = compile_run(run, dev, CompileOptions(**compile_changes(switches)))
+    return evaluate_whole(compiled, switches,
+                          SimOptions(nodes=nodes, quadrature=quadrature, **kw), FastEngine())
 
 
 # ------------------------------------------------------------------ decoherence
@@ -137,7 +139,7 @@ def test_cnot_noise_off_is_exact():
     # Loss & DiVincenzo, PRA 57, 120 (1998): with every imperfection off the
     # simulated process is CNOT to 1e-9
     dev = load_device_text(pair(), "d.yaml")
-    w = whole(CNOT_SRC, dev, ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True}))
+    w = whole(CNOT_SRC, dev, all_off().back_on("exchange_zeeman"))
     assert 1 - w.f_avg < 1e-9
     run = run_of(CNOT_SRC, dev)
     assert np.allclose(abs(np.trace(F.ideal_unitary(run.steps, ("A", "B")).conj().T @ CNOT)), 4)
@@ -154,8 +156,10 @@ def test_sqrtswap_with_zeeman_difference_comparable_to_j():
     g_b = 2.0 + J / larmor_frequency(1.0, 0.5)             # δ = J
     dev = load_device_text(pair(g_b=f"{g_b:.12f}"), "d.yaml")
     run = run_of("prepare A up\nprepare B down\nsqrtswap A B amplitude=300 mV\n", dev)
-    d, tl, wf = compile_run(run, dev)
-    model = build_model(wf, dev, switches=ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True}), m=4)
+    off = all_off().back_on("exchange_zeeman")
+    cr = compile_run(run, dev, CompileOptions(**compile_changes(off)))
+    tl, wf = cr.timeline, cr.waveforms
+    model = build_model(wf, cr.device, switches=off, m=4)
     rho0 = np.zeros((4, 4), complex)
     rho0[1, 1] = 1                                          # |↑↓>
     ev = FastEngine().evolve(model, noise_points(model, 1)[0], rho0=rho0)
@@ -187,15 +191,16 @@ def test_bloch_siegert_shift_without_rwa():
                            .replace("if_band: [-300 MHz, 300 MHz]", "if_band: [-60 MHz, 60 MHz]"),
                            "d.yaml")
     run = run_of("rot A x 1440 deg\n", dev)
-    _, tl, wf = compile_run(run, dev)
+    off = all_off().back_on("exchange_zeeman")
+    cr = compile_run(run, dev, CompileOptions(**compile_changes(off)))
+    tl, wf = cr.timeline, cr.waveforms
     f_r = 20e6 * tl.slots[0].burst.amplitude                 # Rabi frequency, Hz
     f0 = dev.larmor("A")
     period = round(1e9 / (2 * f0))                           # samples per period of 2·f0
     a, b = 500, 500 + 20 * period                            # inside the flat part (2π·f_R·T < π)
-    off = ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True})
 
     def splitting(x, rwa):
-        model = build_model(wf, dev, switches=off, m=10, rwa=rwa, start=a, stop=b)
+        model = build_model(wf, cr.device, switches=off, m=10, rwa=rwa, start=a, stop=b)
         ev = FastEngine().evolve(model, NoisePoint((x,), (), 1.0), process=True)
         return float(np.max(np.abs(np.angle(np.linalg.eigvals(ev.superop)))))
 
@@ -230,7 +235,7 @@ channels:
     for preset, g in (("bilayer_graphene", 2.0), ("gaas", -0.44)):
         dev = load_device_text(dev_text(preset, g), "d.yaml")
         run = run_of(src, dev)
-        _, tl, _ = compile_run(run, dev)
+        tl = compile_run(run, dev).timeline
         res[preset] = (tl.slots[0].duration, whole(src, dev, nodes=5).f_avg)
     (t_gr, f_gr), (t_ga, f_ga) = res["bilayer_graphene"], res["gaas"]
     assert t_ga / t_gr == pytest.approx(2.0 / 0.44, rel=0.02)
@@ -243,7 +248,7 @@ channels:
 def test_fast_engine_agrees_with_mesolve(name):
     # qutip mesolve (tolerances tightened) on the same piecewise-constant model
     c = load(SEQUENCES / name)
-    wf = compile_checked(c, runs=[0]).waveforms[0]
+    wf = compile(c, runs=[0]).waveforms[0]
     stop = next(r.start for r in wf.steps if r.kind == "read")
     model = build_model(wf, c.device, m=2, stop=stop)
     pt = noise_points(model, 3, "tensor")[4]                 # an off-centre quadrature point
@@ -261,7 +266,7 @@ def test_fast_engine_agrees_with_mesolve(name):
 
 def test_simulate_reports_steps_and_budget():
     c = load(SEQUENCES / "cnot_pair.dotseq")
-    r = simulate(c, SimOptions(nodes=3, quadrature="additive"))
+    r = simulate(compile(c), SimOptions(nodes=3, quadrature="additive"))
     run = r.runs[0]
     assert 0.5 < run.average_fidelity < 1 and run.steps and run.budget
     names = {b.source for b in run.budget}
@@ -271,3 +276,66 @@ def test_simulate_reports_steps_and_budget():
     total = run.budget_floor + sum(b.infidelity for b in run.budget) + run.budget_remainder
     assert total == pytest.approx(run.budget_total, abs=1e-12)
     assert run.budget_total == pytest.approx(1 - run.average_fidelity, abs=1e-12)
+
+
+# ------------------------------------------------------------------ the noise-source registry
+
+def test_switches_are_keyed_by_the_registry():
+    # a switch that the registry does not know is refused, never left on
+    # (common practice, no source)
+    from compiler.simulate.sources import SOURCES
+    with pytest.raises(KeyError, match="no noise source"):
+        Switches().off("t3")
+    with pytest.raises(KeyError, match="no noise source"):
+        Switches().on("t3")
+    assert all(not all_off().on(k) for k in SOURCES)
+    assert all(Switches().on(k) for k in SOURCES)
+
+
+def test_budget_lines_follow_the_registry():
+    from compiler.simulate.sources import SOURCES
+    c = load(SEQUENCES / "cnot_pair.dotseq")
+    r = simulate(compile(c), SimOptions(nodes=1, steps=False)).runs[0]
+    assert {b.source for b in r.budget} == {s.name for s in SOURCES.values()}
+
+
+def test_a_lindblad_source_is_one_registry_entry(monkeypatch):
+    # A new Lindblad source needs only a registry entry (and the device field it
+    # reads; here an existing one, T1, read a second time as an extra pure
+    # dephasing at rate 1/(2·T1)).  It reaches the model, both engines, the
+    # switches and the budget without touching them.  The extra dephasing
+    # L = √(γ/2)·σz lowers the coherence of a |+> state idle for t by
+    # exp(−γt) (common practice, no source).
+    from compiler.simulate.sources import SOURCES, Source
+    monkeypatch.setitem(SOURCES, "extra_dephasing", Source(
+        "extra_dephasing", "extra dephasing", "dots.*.t1", "test entry", "lindblad",
+        dissipators=lambda device, q: (("z", 1.0 / (2 * device.dots[q].t1) / 2),)))
+    dev = load_device_text(one_dot(t1="20 us", t2="40 us", t2s="30 us"), "d.yaml")
+    src = "prepare A xplus\nwait 5 us\n"
+    quiet = Switches().off("t1", "t2", "t2_star", "charge")
+    w = whole(src, dev, quiet)
+    off = whole(src, dev, quiet.off("extra_dephasing"))
+    gamma = 1 / (2 * 20e-6)
+    # state fidelity to |+>: (1 + e^{−γt})/2
+    assert w.f_state == pytest.approx((1 + math.exp(-gamma * 5e-6)) / 2, abs=1e-6)
+    assert off.f_state == pytest.approx(1.0, abs=1e-9)
+    run = run_of(src, dev)
+    model = build_model(compile_run(run, dev).waveforms, dev, switches=quiet, m=2)
+    assert [d.source for d in model.dissipators] == ["extra_dephasing"]
+    pt = noise_points(model, 1)[0]
+    a = FastEngine().evolve(model, pt, process=True)
+    b = ReferenceEngine().evolve(model, pt, process=True)
+    assert np.max(np.abs(a.superop - b.superop)) < 1e-7
+    assert not all_off().on("extra_dephasing")
+    lines = simulate(compile(load_checked_text(src, dev)), SimOptions(nodes=1, steps=False)
+                     ).runs[0].budget
+    assert any(b.source == "extra dephasing" and b.infidelity > 0 for b in lines)
+
+
+def load_checked_text(src, dev):
+    """A Checked of a sequence text on a device object (as compiler.load does)."""
+    from compiler import Checked
+    from compiler.schedule import schedule
+    ex = expand(parse_text(src, "t.dotseq"))
+    check(ex, dev)
+    return Checked(ex, dev, tuple(schedule(r, dev) for r in ex.runs))

@@ -501,3 +501,44 @@ def test_unreachable_cluster_is_a_clear_error(tmp_path, ramsey, capsys):
                  "--cluster", "tcp://127.0.0.1:9"])
     err = capsys.readouterr().err
     assert code == 2 and "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in err
+
+
+# ------------------------------------------------------------------ compiled once
+
+def test_a_point_is_compiled_once(ramsey, monkeypatch):
+    # the plan compiles every point to check it and hands that compilation to
+    # the point: simulating it compiles nothing again (the result equals a
+    # point compiled afresh); beyond the memory bound the point compiles itself
+    # (common practice, no source)
+    import dataclasses
+    from compiler.sweep import plan as PLAN, point as POINT
+    plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST, budget=True)
+    assert all(t.compiled is not None and t.compiled.run is t.run for t in plan.tasks)
+    fresh = [POINT.simulate_point(dataclasses.replace(t, compiled=None)) for t in plan.tasks]
+
+    def no_compile(*a, **k):
+        raise AssertionError("compiled again")
+    monkeypatch.setattr(POINT, "compile_run", no_compile)
+    kept = [POINT.simulate_point(t) for t in plan.tasks]
+    assert [dataclasses.replace(p, wall_s=0) for p in kept] == \
+        [dataclasses.replace(p, wall_s=0) for p in fresh]
+    monkeypatch.undo()
+    monkeypatch.setattr(PLAN, "KEEP_COMPILED_BYTES", 0)
+    plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST)
+    assert all(t.compiled is None for t in plan.tasks)
+
+
+def test_swept_device_gets_the_loader_warnings_too():
+    # The loader's rules are written once (compiler.device.rules.validate): a
+    # swept idle level that leaves the dots coupled between gates is warned
+    # about like in the file (J(idle)/J(pulse) > 1e-2; common practice, no
+    # source).  The sweep's own copy of the rules had no such warning.
+    pair = device_text(
+        extra_dot="  B: {g: 2.001, t1: 1 s, t2: 1 s, t2_star: 1 us, drive: {line: mw, "
+                  "rabi_per_volt: 100 MHz/V}, plunger: P_B}",
+        couplings="couplings:\n  - {dots: [A, B], barrier: B_AB, exchange: {model: exponential, "
+                  "j0: 20 kHz, v0: 40 mV}, idle_voltage: 0 mV, pulse_voltage: 300 mV}\n")
+    dev = load_device_text(pair, "d.yaml")
+    assert PR.cautions(dev) == []
+    ids = [cid for cid, _ in PR.cautions(PR.apply_device(dev, {"A-B.idle_voltage": 0.2}))]
+    assert ids == ["A-B.idle-exchange"]

@@ -1,8 +1,8 @@
 """The work of ``dotseq rb``: plan, generate, simulate, fit, compare.
 
 Each generated sequence is an ordinary ``.dotseq`` file; a worker loads it
-with :func:`compiler.load` and simulates it with
-:func:`compiler.simulate.simulate` (the full model: the device's T1 at its
+with :func:`compiler.load`, compiles it with :func:`compiler.compile` and
+simulates it with :func:`compiler.simulate.simulate` (the full model: the device's T1 at its
 temperature, T2, quasi-static Zeeman and charge noise, crosstalk, the
 generators' bandwidth and quantisation).  The survival probability is the
 population of the prepared state |0> = spin up on the benchmarked qubits at
@@ -115,7 +115,7 @@ class RBTask:
 def simulate_task(task: RBTask) -> dict:
     """Load and simulate one generated file (one BLAS thread); never raises
     for the file's own trouble (``status`` invalid or error, with the reason)."""
-    from ..sweep.point import one_thread
+    from ..threads import one_thread
     t0 = time.perf_counter()
     try:
         with one_thread():
@@ -181,9 +181,10 @@ QUIET_TIME = 1000.0     # s: T1, T2, T2* of a spectator made quiet for the compa
 
 
 def _simulated(checked, opts):
-    """The one run of a checked file, simulated (the public path)."""
+    """The one run of a checked file, compiled and simulated (the public path)."""
+    from .. import compile as compile_checked
     from ..simulate import simulate
-    return simulate(checked, opts).runs[0]
+    return simulate(compile_checked(checked), opts).runs[0]
 
 
 def _step_rows(run) -> list[dict]:

@@ -1,5 +1,13 @@
 """Simulate compiled runs: whole-run fidelities, per-step fidelities, the
-error budget, and sweeps."""
+error budget, and sweeps.
+
+Takes the compiler's result (:class:`compiler.Compiled`: per run a timeline
+and its waveforms) and compiles nothing itself: the error budget's what-if
+variants and the per-step renderings come through the
+:class:`~compiler.synth.types.Recompiler` handed in with it, so this package
+imports no compiler stage (only the synthesiser's data types).  The noise
+sources, their switches and the budget's lines come from the registry
+(:mod:`.sources`); the engines from :data:`.engines.ENGINES`."""
 
 from __future__ import annotations
 
@@ -12,36 +20,19 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import program as P
-from ..check.summary import GATE_KINDS
 from ..device.model import Device
 from ..errors import UsageError
-from ..physics import COHERENCE_RULE
-from ..schedule import schedule
-from ..schedule.timeline import Timeline
-from ..synth import synthesize
-from ..synth.types import Waveforms
+from ..margin import coherence_margins
+from ..synth.types import CompiledRun, Recompiler
+from ..threads import one_thread
 from . import fidelity as F
-from .engines import FastEngine, ReferenceEngine
-from .model import ALL_OFF, Switches, build_model, noise_points
+from .build import build_model
+from .engines import ENGINES, make_engine
+from .model import dot_operator, embed, noise_points
+from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
-BUDGET_SOURCES = (
-    # name, switch, counterfactual compile options, note
-    ("T1 relaxation", "t1", {}, "Lindblad relaxation with thermal excitation at the device temperature"),
-    ("pure dephasing (T2)", "t2", {}, "Markovian dephasing 1/T2 − 1/(2T1)"),
-    ("quasi-static Zeeman noise (T2*)", "t2_star", {}, "Gaussian detuning, rms √2/T2*, by quadrature"),
-    ("charge noise on exchange", "charge", {}, "quasi-static barrier offset of the device's rms, through J(V)"),
-    ("drive crosstalk", "crosstalk", {"spectator_correction": False},
-     "each dot driven only by its own bursts (and no light-shift corrections)"),
-    ("finite bandwidth", "filters", {"ideal_bandwidth": True},
-     "recompiled and played for channels without rise time"),
-    ("quantisation", "quantised", {}, "unquantised samples"),
-    ("bias tee", "bias_tee", {}, "no high-pass droop"),
-)
-ZEEMAN_LINE = ("Zeeman difference in exchange",
-               "from the exchange frame model: Σ over exchange gates of the infidelity left "
-               "after frame compensation (noise-free), not by switching off")
 
 
 @dataclass(frozen=True)
@@ -70,8 +61,9 @@ class SimOptions:
         return max(1, min(4, os.cpu_count() or 1))
 
     def check(self) -> None:
-        if self.engine not in ("fast", "reference"):
-            raise UsageError(f"unknown engine '{self.engine}'", hint="use --engine fast or reference")
+        if self.engine not in ENGINES:
+            raise UsageError(f"unknown engine '{self.engine}'",
+                             hint=f"use --engine {' or '.join(ENGINES)}")
         if self.substeps < 1 or self.substeps > 64:
             raise UsageError(f"substeps {self.substeps} must be from 1 to 64")
         if self.nodes < 1 or self.nodes > 15:
@@ -88,11 +80,7 @@ class SimOptions:
                              "qubits at 1 GS/s); it is slow")
 
 
-def _engine(name: str):
-    return FastEngine() if name == "fast" else ReferenceEngine()
-
-
-def _end_sample(tl: Timeline) -> int:
+def end_sample(tl) -> int:
     """The simulated span: up to the start of the trailing readout(s), else the
     end of the last step."""
     steps = list(tl.run.steps)
@@ -107,27 +95,11 @@ def _end_sample(tl: Timeline) -> int:
     return end
 
 
-def _program_steps(tl: Timeline):
+def program_steps(tl):
     steps = list(tl.run.steps)
     while steps and isinstance(steps[-1], (P.Readout, P.Trigger)):
         steps.pop()
     return steps
-
-
-def _variant(device: Device, ideal_bandwidth: bool) -> Device:
-    if not ideal_bandwidth:
-        return device
-    chans = {k: dataclasses.replace(c, rise_time=0.0) for k, c in device.channels.items()}
-    return dataclasses.replace(device, channels=chans)
-
-
-def compile_run(run: P.Run, device: Device, *, spectator_correction: bool = True,
-                exchange_zeeman: bool = True, ideal_bandwidth: bool = False):
-    dev = _variant(device, ideal_bandwidth)
-    tl = schedule(run, dev, spectator_correction=spectator_correction,
-                  exchange_zeeman=exchange_zeeman)
-    wf = synthesize(tl, dev, per_dot=True)
-    return dev, tl, wf
 
 
 def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0):
@@ -143,17 +115,26 @@ class Whole:
     pops: dict
     traces: dict
     duration: float
+    dim: int = 0                 # dimension of the simulated register
 
     @property
     def infidelity(self) -> float:
         return 1 - (self.f_avg if self.f_avg is not None else self.f_state)
 
 
-def evaluate_whole(tl: Timeline, wf: Waveforms, device: Device, switches: Switches,
-                   opts: SimOptions, engine, *, traces: int = 0) -> Whole:
+def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engine, *,
+                   traces: int = 0) -> Whole:
+    """The whole run (to the start of its final readout) with the given
+    sources switched on, averaged over the quadrature points."""
+    need = compile_changes(switches)
+    wrong = {k: v for k, v in need.items() if getattr(crun.options, k) != v}
+    if wrong:
+        raise ValueError(f"run {crun.index} was compiled without {wrong}, which these switches "
+                         "need (the sources' compile_off options)")
+    tl, wf, device = crun.timeline, crun.waveforms, crun.device
     dots = tuple(device.dots)
     n = len(dots)
-    stop = _end_sample(tl)
+    stop = end_sample(tl)
     model = build_model(wf, device, switches=switches, m=opts.substeps, start=0, stop=stop,
                         rwa=opts.rwa)
     pts = noise_points(model, opts.nodes, opts.quadrature)
@@ -161,30 +142,33 @@ def evaluate_whole(tl: Timeline, wf: Waveforms, device: Device, switches: Switch
     rho0 = np.outer(psi0, psi0.conj())
     process = n <= MAX_PROCESS_QUBITS
     S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces)
-    U = F.ideal_unitary(_program_steps(tl), dots)
+    U = F.ideal_unitary(program_steps(tl), dots)
     frames = [tl.frames[q] for q in dots]
     f_pro = f_avg = None
     if process:
         Sq = F.to_qubit_frames(S, [0.0] * n, frames)
         f_pro = F.process_fidelity(Sq, U)
-        f_avg = F.average_fidelity(f_pro, 2 ** n)
+        f_avg = F.average_fidelity(f_pro, model.dim)
     rq = F.rho_to_qubit_frames(rho, frames)
     psi = U @ psi0
     f_state = float(np.real(psi.conj() @ rq @ psi))
     pops = {}
     for k, q in enumerate(dots):
-        up = (np.eye(2 ** n) + F.op(F.SZ, k, n)) / 2
+        up = embed(dot_operator(model.dots[k], "up"), k, model.levels)
         pops[q] = float(np.real(np.trace(up @ rq)))
     named = {}
     if tr:
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt)
+    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim)
 
 
-def step_fidelities(run: P.Run, device: Device, opts: SimOptions, engine) -> tuple[StepFidelity, ...]:
-    tl = schedule(run, device, record_frames=True)
+def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
+                    part) -> tuple[StepFidelity, ...]:
+    """Each logged top-level step (or group) simulated alone on the whole
+    register; ``part`` renders a subset of the run's slots (the recompiler's)."""
+    tl, device = crun.timeline, crun.device
     dots = tuple(device.dots)
     n = len(dots)
     out = []
@@ -201,15 +185,14 @@ def step_fidelities(run: P.Run, device: Device, opts: SimOptions, engine) -> tup
                 ([device.dots[s.qubits[0]].drive.line] if s.burst is not None else [])]
         margin = max([int(math.ceil(12 * t / math.log(9) / dt)) for t in taus if t > 0] + [0])
         b_sim = min(b + margin, tl.n_samples)
-        sub = Timeline(run, tuple(slots), tl.n_samples, dt, after)
-        wf = synthesize(sub, device, per_dot=True)
+        wf = part(crun, tuple(slots), after)
         model = build_model(wf, device, m=opts.substeps, start=a, stop=b_sim, rwa=opts.rwa)
         pts = noise_points(model, opts.nodes, opts.quadrature)
         S, _, _ = _average(engine, model, pts, process=True, rho0=None)
         Sq = F.to_qubit_frames(S, [before[q] for q in dots], [after[q] for q in dots])
         U = F.step_unitary(step, dots)
-        fid = F.average_fidelity(F.process_fidelity(Sq, U), 2 ** n)
-        kind = "together" if isinstance(step, P.Parallel) else step.kind
+        fid = F.average_fidelity(F.process_fidelity(Sq, U), model.dim)
+        kind = step.kind
         qubits = tuple(dict.fromkeys(q for s in slots for q in s.qubits))
         label = _label(step)
         src = f"{step.span.file}:{step.span.line}:{step.span.col}" if step.span else ""
@@ -236,40 +219,41 @@ def quadrature_rule(device: Device, opts: SimOptions) -> str:
     to 27 points, else one variable at a time (as :func:`noise_points`)."""
     if opts.quadrature != "auto":
         return opts.quadrature
-    n_vars = sum(1 for q in device.dots.values() if q.t2_star > 0) + \
-        sum(1 for c in device.couplings if c.charge_noise > 0)
+    n_vars = sum(1 for src in SOURCES.values() if src.noise is not None
+                 for _, _, rms in src.noise(device) if rms > 0)
     return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
 
 
-def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Whole,
-                 progress=None, compiled: dict | None = None):
-    """Contribution of each source: total infidelity minus the infidelity with
-    that source switched off (recompiled where the source shapes the pulses).
-    ``compiled`` may hold compilations already made, keyed by their sorted
-    option items (``()`` for the default).  The evaluations are independent
-    and run on ``opts.worker_threads()`` threads."""
-    compiled = dict(compiled or {})      # one compilation per distinct set of options
+def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
+                 recompile, progress=None):
+    """Contribution of each registry source with ``budget="switch"``: total
+    infidelity minus the infidelity with that source switched off (the run
+    recompiled through ``recompile`` under the source's ``compile_off``
+    options when it shapes what is played); the floor has every source off
+    that is ``in_floor``.  The evaluations are independent and run on
+    ``opts.worker_threads()`` threads."""
+    device = base.device
+    compiled = {(): base}             # one compilation per distinct set of options
     # every evaluation uses the quadrature rule of the total: switching a noise
     # off must not also switch between the product grid and the additive rule
     opts = dataclasses.replace(opts, quadrature=quadrature_rule(device, opts))
 
-    def compiled_with(**comp):
-        key = tuple(sorted(comp.items()))
+    def compiled_for(switches: Switches) -> CompiledRun:
+        changes = compile_changes(switches)
+        key = tuple(sorted(changes.items()))
         if key not in compiled:
-            compiled[key] = compile_run(run, device, **comp)
+            compiled[key] = recompile(base, dataclasses.replace(base.options, **changes))
         return compiled[key]
 
-    jobs = []
-    for name, switch, comp, note in BUDGET_SOURCES:
-        jobs.append((compiled_with(**comp), Switches().off(switch)))
-    floor_sw = ALL_OFF.__class__(**{**vars(ALL_OFF), "exchange_zeeman": True})
-    jobs.append((compiled_with(spectator_correction=False, ideal_bandwidth=True), floor_sw))
+    switched = [src for src in SOURCES.values() if src.budget == "switch"]
+    jobs = [ALL_ON.off(src.key) for src in switched] + [floor()]
+    jobs = [(compiled_for(sw), sw) for sw in jobs]
     if progress:
         progress(f"error budget: {len(jobs)} evaluations")
 
     def work(job):
-        (dev, tl, wf), sw = job
-        return evaluate_whole(tl, wf, dev, sw, opts, engine).infidelity
+        crun, sw = job
+        return evaluate_whole(crun, sw, opts, engine).infidelity
 
     threads = opts.worker_threads()
     if threads > 1:
@@ -278,60 +262,66 @@ def error_budget(run: P.Run, device: Device, opts: SimOptions, engine, total: Wh
             infid = list(pool.map(work, jobs))
     else:
         infid = [work(j) for j in jobs]
-    lines = [BudgetLine(name, total.infidelity - f, note)
-             for (name, _, _, note), f in zip(BUDGET_SOURCES, infid)]
+    lines = [BudgetLine(src.name, total.infidelity - f, src.note)
+             for src, f in zip(switched, infid)]
     # the Zeeman difference shapes the exchange gates themselves: switching it off
     # would change the schedule, so its share comes from the gates' own model
-    tl = compiled_with()[1]
-    d = 2 ** len(device.dots)
+    zeeman_src = SOURCES["exchange_zeeman"]
+    tl = base.timeline
+    d = total.dim
     zeeman = 0.0
     for s in tl.slots:
-        f = s.info.get("frame_fidelity")
+        f = getattr(s.info, "frame_fidelity", None)      # exchange slots
         if f is not None:
             f_pro = (5 * f - 1) / 4                       # pair average -> process fidelity
             zeeman += (1 - f_pro) * d / (d + 1)
-    lines.append(BudgetLine(ZEEMAN_LINE[0], zeeman, ZEEMAN_LINE[1]))
-    floor = infid[-1] - zeeman
+    lines.append(BudgetLine(zeeman_src.name, zeeman, zeeman_src.note))
+    floor_infidelity = infid[-1] - zeeman
     lines.sort(key=lambda b: -b.infidelity)
-    remainder = total.infidelity - floor - sum(b.infidelity for b in lines)
-    return tuple(lines), floor, remainder
+    remainder = total.infidelity - floor_infidelity - sum(b.infidelity for b in lines)
+    return tuple(lines), floor_infidelity, remainder
 
 
-def simulate(checked, opts: SimOptions = SimOptions(), progress=None) -> SimulationResult:
-    """Simulate every run of a checked file (see module notes).  ``progress``,
-    if given, is called with a short text before each long piece of work."""
+def simulate(compiled, opts: SimOptions = SimOptions(), progress=None, *,
+             recompiler: Recompiler | None = None) -> SimulationResult:
+    """Simulate every run of a compiled file (:class:`compiler.Compiled`, all
+    runs; see module notes).  ``recompiler`` defaults to the one handed in
+    with ``compiled``.  ``progress``, if given, is called with a short text
+    before each long piece of work."""
     opts.check()
-    from .cluster import single_threaded
-    with single_threaded():
-        return _simulate(checked, opts, progress)
+    with one_thread():
+        return _simulate(compiled, opts, progress, recompiler or compiled.recompiler)
 
 
-def _simulate(checked, opts: SimOptions, progress) -> SimulationResult:
+def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> SimulationResult:
     t_start = time.perf_counter()
+    checked = compiled.checked
     device = checked.device
-    engine = _engine(opts.engine)
+    engine = make_engine(opts.engine)
     runs = []
     n_runs = len(checked.expanded.runs)
+    if len(compiled.runs) != n_runs:
+        raise ValueError("simulate needs every run compiled")
     detail = opts.detail_run if 0 <= opts.detail_run < n_runs else 0
-    for i, run in enumerate(checked.expanded.runs):
+    for i, crun in enumerate(compiled.runs):
+        run = crun.run
         t0 = time.perf_counter()
         if progress:
             progress(f"run {i + 1}/{n_runs}")
-        dev, tl, wf = compile_run(run, device)
         is_detail = i == detail
         run_opts = opts if is_detail else dataclasses.replace(
             opts, nodes=min(opts.nodes, opts.sweep_nodes), quadrature="additive")
-        whole = evaluate_whole(tl, wf, dev, Switches(), run_opts, engine,
+        whole = evaluate_whole(crun, ALL_ON, run_opts, engine,
                                traces=opts.trace_points if is_detail else 0)
         steps = budget = ()
         floor = remainder = 0.0
         if is_detail and opts.steps:
             if progress:
                 progress(f"per-step fidelities of run {i}")
-            steps = step_fidelities(run, device, opts, engine)
+            steps = step_fidelities(crun, opts, engine, recompiler.part)
         if is_detail and opts.budget:
-            budget, floor, remainder = error_budget(run, device, opts, engine, whole, progress,
-                                                    compiled={(): (dev, tl, wf)})
+            budget, floor, remainder = error_budget(crun, opts, engine, whole, recompiler.run,
+                                                    progress)
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
@@ -351,15 +341,4 @@ def _simulate(checked, opts: SimOptions, progress) -> SimulationResult:
 
 
 def _coherence(checked):
-    longest: dict[str, float] = {}
-    for tl in checked.timelines:
-        for s in tl.slots:
-            if s.kind in GATE_KINDS:
-                for q in s.qubits:
-                    longest[q] = max(longest.get(q, 0.0), s.duration)
-    out = []
-    for q, d in longest.items():
-        if d > 0:
-            t2 = checked.device.dots[q].t2
-            out.append((q, t2, d, t2 / d, t2 / d < COHERENCE_RULE))
-    return tuple(out)
+    return tuple(m.as_tuple() for m in coherence_margins(checked.timelines, checked.device))

@@ -1,10 +1,22 @@
-"""What a simulation produces (plain frozen data, consumed by the report)."""
+"""What a simulation produces: the engines' :class:`Evolution` (consumed by
+:mod:`.run`) and the results the report reads (plain frozen data)."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
 import numpy as np
+
+
+@dataclass
+class Evolution:
+    """What an engine returns for one model (averaged over quadrature points)."""
+    superop: np.ndarray | None      # d²×d² channel (column stacking), rotating frames
+    rho: np.ndarray | None          # final density matrix, rotating frames
+    traces: dict                    # {"t": times (s, from the run start), dot index: P(up)(t)}
+    stats: dict
+    ptm: np.ndarray | None = None   # the channel as a Pauli transfer matrix (fast engine)
+    pauli: np.ndarray | None = None  # the state's Pauli coefficients (fast engine)
 
 
 @dataclass(frozen=True)

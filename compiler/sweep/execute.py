@@ -23,7 +23,8 @@ from contextlib import contextmanager
 
 from ..errors import UsageError
 from .errors import fail
-from .point import THREAD_VARIABLES, evaluate_point, one_thread, worker_info, worker_started
+from ..threads import one_thread
+from .point import THREAD_VARIABLES, evaluate_point, worker_info, worker_started
 
 CLUSTER_VARIABLE = "DOTSEQ_CLUSTER"
 DASK_HINT = "install the optional extra: pip install 'dotseq[dask]'"
@@ -123,7 +124,8 @@ def run_pool(tasks, on_result, workers: int, point_fn=evaluate_point) -> dict:
     return {"backend": "local processes", "workers": workers}
 
 
-def _dask():
+def require_dask():
+    """Dask's ``distributed`` module, or a usage error with the install hint."""
     try:
         import distributed
     except ImportError:
@@ -213,7 +215,7 @@ def connect(address: str, timeout: float = DEFAULT_CLUSTER_TIMEOUT):
     ``address`` (tcp://HOST:PORT), whose workers must run this dotseq
     version; every network step is bounded by ``timeout`` seconds."""
     from .. import __version__
-    distributed = _dask()
+    distributed = require_dask()
     address = check_address(address)
     _hello(address, timeout)
     try:
@@ -240,7 +242,7 @@ def connect(address: str, timeout: float = DEFAULT_CLUSTER_TIMEOUT):
 def run_dask(tasks, on_result, on_failure, connection, point_fn=evaluate_point) -> dict:
     """The points on a Dask cluster; ``connection`` is what :func:`connect`
     returned (the client is closed at the end)."""
-    distributed = _dask()
+    distributed = require_dask()
     client, info, address = connection
     token = secrets.token_hex(4)
     futures = []

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .. import __version__, compile_run
 from ..check import check
 from ..device import device_of
 from ..device.model import Device
@@ -24,7 +24,7 @@ from ..limits import MAX_SOURCE_CHARS
 from ..parse import parse_path
 from ..parse import tree as T
 from ..simulate.model import gauss_hermite
-from ..simulate.run import SimOptions, _end_sample, compile_run
+from ..simulate.run import SimOptions, end_sample
 from ..source import Oversize, Unreadable, read_capped
 from ..units import format_quantity
 from . import params as PR
@@ -32,6 +32,22 @@ from .spec import MAX_POINTS, si_symbol, split_arg, to_spec
 from .types import PointTask, SweepPlan, VarySpec
 
 MAX_AXES = 2
+# the points' compiled runs are kept in their tasks (each point is compiled
+# once, here) while their samples take at most this much memory; beyond it a
+# point is compiled again where it is simulated
+KEEP_COMPILED_BYTES = 256 * 2 ** 20
+
+
+def compiled_bytes(crun) -> int:
+    """Memory of a compiled run's stored samples (constant outputs are views: 0)."""
+    total = 0
+    for out in crun.waveforms.outputs.values():
+        for a in (out.stored_volts, out.codes, out.stored_ideal, out.marks):
+            if a is not None and a.ndim and a.strides[0] != 0:
+                total += a.nbytes
+    for a in crun.waveforms.per_dot.values():
+        total += getattr(a, "nbytes", 0)
+    return total
 
 
 def point_label(axes, coords) -> str:
@@ -162,7 +178,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
 
     expanded_cache: dict[tuple, object] = {}
     device_cache: dict[tuple, tuple[Device, bool]] = {}
-    scheduled: dict[tuple, Exception | None] = {}
+    scheduled: dict[tuple, object] = {}        # compiled run, or the error
+    kept = 0
     constraint_fails: dict[str, list[tuple[str, str, str]]] = {}
     caution_hits: dict[str, list[str]] = {}
     stage_errors: list[tuple[DotseqError, str]] = []
@@ -210,18 +227,26 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         if ck not in scheduled:
             try:
                 check(ex, dev)
-                _, tl, _ = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
-                scheduled[ck] = None
+                crun = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
+                tl = crun.timeline
+                scheduled[ck] = crun
                 for q, d in dev.dots.items():
-                    r = _end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
+                    r = end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
                     if r > longest.get(q, (0.0, ""))[0]:
                         longest[q] = (r, label)
             except DotseqError as e:
                 scheduled[ck] = e
-        if scheduled[ck] is not None:
+        if isinstance(scheduled[ck], DotseqError):
             stage_errors.append((scheduled[ck], label))
             continue
-        tasks.append(PointTask(index, tuple(coords), ex.runs[0], dev, options, budget))
+        crun = scheduled[ck]
+        if crun is not True and kept + compiled_bytes(crun) > KEEP_COMPILED_BYTES:
+            scheduled[ck] = crun = True            # checked; compiled again at the point
+        if crun is True:
+            crun = None
+        else:
+            kept += compiled_bytes(crun)
+        tasks.append(PointTask(index, tuple(coords), ex.runs[0], dev, options, budget, crun))
 
     if constraint_fails:
         raise _constraint_error(constraint_fails, len(device_cache))

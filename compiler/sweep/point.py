@@ -3,11 +3,14 @@
 a fresh engine per point), so a point gives the same numbers in this
 process, in a local worker process or on a Dask worker.
 
-Every point runs with one BLAS/OpenMP thread (``threadpoolctl``): the
-matrices are small, so more threads only add contention, and on a busy
+Every point runs with one BLAS/OpenMP thread (:func:`compiler.threads.one_thread`):
+the matrices are small, so more threads only add contention, and on a busy
 machine the thread pools of several processes fighting over the same cores
 make a point many times slower; one thread per worker also keeps the
 floating-point operation order the same everywhere.
+
+A point is compiled once: the plan keeps the run it compiled to check the
+point in the task (``task.compiled``), within a memory bound.
 """
 
 from __future__ import annotations
@@ -17,16 +20,18 @@ import sys
 import time
 import traceback
 
-from ..check.summary import GATE_KINDS
+from .. import RECOMPILER, compile_run
+from ..margin import coherence_margins
 from ..errors import DotseqError
-from ..simulate.model import Switches
-from ..simulate.run import _engine, compile_run, error_budget, evaluate_whole
+from ..simulate.engines import make_engine
+from ..simulate.run import error_budget, evaluate_whole
+from ..simulate.sources import ALL_ON
+from ..threads import one_thread
 from .types import ERROR, INVALID, OK, PointResult, PointTask
 
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
                     "BLIS_NUM_THREADS", "NUMEXPR_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
 
-_controller = None
 _allocator_checked = False
 M_TRIM_THRESHOLD, M_MMAP_THRESHOLD = -1, -3       # glibc mallopt parameters (malloc.h)
 
@@ -56,26 +61,10 @@ def _allocator_for_arrays() -> None:
         pass
 
 
-def one_thread():
-    """A context in which BLAS and OpenMP use one thread (threadpoolctl);
-    the library scan is done once per process."""
-    global _controller
-    from threadpoolctl import ThreadpoolController
-    if _controller is None:
-        _controller = ThreadpoolController()
-    return _controller.limit(limits=1)
-
-
 def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
     """T2 over the longest gate on each dot of one timeline (the margin
     ``dotseq check`` prints)."""
-    longest: dict[str, float] = {}
-    for s in tl.slots:
-        if s.kind in GATE_KINDS:
-            for q in s.qubits:
-                longest[q] = max(longest.get(q, 0.0), s.duration)
-    return tuple((q, device.dots[q].t2, d, device.dots[q].t2 / d)
-                 for q, d in longest.items() if d > 0)
+    return tuple(m.as_tuple()[:4] for m in coherence_margins([tl], device))
 
 
 def _first_line(err: DotseqError) -> str:
@@ -89,14 +78,15 @@ def simulate_point(task: PointTask) -> PointResult:
     of one point; raises what the stages raise."""
     t0 = time.perf_counter()
     opts = task.options
-    dev, tl, wf = compile_run(task.run, task.device)
-    engine = _engine(opts.engine)
-    whole = evaluate_whole(tl, wf, dev, Switches(), opts, engine)
+    crun = task.compiled or compile_run(task.run, task.device)
+    tl = crun.timeline
+    engine = make_engine(opts.engine)
+    whole = evaluate_whole(crun, ALL_ON, opts, engine)
     fid = whole.f_avg if whole.f_avg is not None else whole.f_state
     budget = ()
     floor = remainder = None
     if task.budget:
-        lines, floor, remainder = error_budget(task.run, task.device, opts, engine, whole)
+        lines, floor, remainder = error_budget(crun, opts, engine, whole, RECOMPILER.run)
         budget = tuple((b.source, float(b.infidelity)) for b in lines)
         floor, remainder = float(floor), float(remainder)
     return PointResult(

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from ..device.model import Device
 from ..program import Run
 from ..simulate.run import SimOptions
+from ..synth.types import CompiledRun
 from ..units import Dim
 
 # point status
@@ -62,6 +63,9 @@ class PointTask:
     device: Device
     options: SimOptions
     budget: bool
+    # the point compiled when the plan checked it (None: compiled where it is
+    # simulated; the plan keeps at most plan.KEEP_COMPILED_BYTES of samples)
+    compiled: CompiledRun | None = None
 
 
 @dataclass(frozen=True)

@@ -11,8 +11,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from functools import cached_property
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
+
+if TYPE_CHECKING:                                  # annotations only
+    from ..device.model import Device
+    from ..program import Run
+    from ..schedule.timeline import Timeline
 
 
 @dataclass(frozen=True)
@@ -93,3 +99,46 @@ class Waveforms:
     def time(self) -> np.ndarray:
         """Start time (s) of each sample."""
         return np.arange(self.n_samples) / self.sample_rate
+
+
+@dataclass(frozen=True)
+class CompileOptions:
+    """How checked runs become samples (one set for export, preview and
+    simulation; the error budget's what-if variants change some of them)."""
+
+    predistort: bool = False           # pre-distort gate outputs for their bias tee
+    spectator_correction: bool = True  # light-shift frame corrections of undriven dots
+    exchange_zeeman: bool = True       # Zeeman-difference model of the exchange gates
+    ideal_bandwidth: bool = False      # play on channels without rise time (what-if)
+    per_dot: bool = False              # also keep each dot's own bursts (what-if: no crosstalk)
+    keep_ideal: bool = False           # also keep the unquantised samples (what-if: no quantisation)
+    frame_log_steps: int = 200         # top-level steps whose frames are logged (per-step fidelities)
+
+    def schedule_key(self) -> tuple:
+        """The options that change the schedule (equal keys: one timeline serves both)."""
+        return (self.spectator_correction, self.exchange_zeeman, self.ideal_bandwidth,
+                self.frame_log_steps)
+
+
+@dataclass(frozen=True)
+class CompiledRun:
+    """One run compiled: its timeline and what every channel plays."""
+
+    index: int                         # position among the file's runs
+    run: "Run"
+    device: "Device"                   # as compiled (no rise times with ideal_bandwidth)
+    timeline: "Timeline"
+    waveforms: Waveforms
+    options: CompileOptions
+
+
+@dataclass(frozen=True)
+class Recompiler:
+    """The compiler's functions a later stage calls back, handed in with the
+    compiled result (so that stage imports no compiler stage): ``run`` compiles
+    the same run under other options (from a run compiled with
+    ``ideal_bandwidth=False``); ``part`` renders only some of a run's slots
+    (placement order), with the given final frames."""
+
+    run: Callable[[CompiledRun, CompileOptions], CompiledRun]
+    part: Callable[[CompiledRun, tuple, dict], Waveforms]

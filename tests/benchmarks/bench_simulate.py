@@ -56,15 +56,18 @@ def median_time(fn, repeats: int) -> tuple[float, object]:
 def prepared(seq: Path, nodes: int):
     from compiler import load
     from compiler.simulate import fidelity as F
-    from compiler.simulate.model import build_model, noise_points
-    from compiler.simulate.run import _end_sample, _program_steps, compile_run
+    from compiler import compile_run
+    from compiler.simulate.build import build_model
+    from compiler.simulate.model import noise_points
+    from compiler.simulate.run import end_sample, program_steps
     c = load(seq)
     run = c.expanded.runs[0]
-    dev, tl, wf = compile_run(run, c.device)
-    model = build_model(wf, dev, m=2, stop=_end_sample(tl))
+    cr = compile_run(run, c.device)
+    dev, tl, wf = cr.device, cr.timeline, cr.waveforms
+    model = build_model(wf, dev, m=2, stop=end_sample(tl))
     pts = noise_points(model, nodes, "auto")
     dots = tuple(dev.dots)
-    U = F.ideal_unitary(_program_steps(tl), dots)
+    U = F.ideal_unitary(program_steps(tl), dots)
     psi0 = F.initial_state(run, dots, model.ground_up)
     frames = [tl.frames[q] for q in dots]
     return c, model, pts, U, psi0, frames
@@ -82,6 +85,7 @@ def state_fidelity(rho, U, psi0, frames):
 
 
 def bench_w2(folder: Path, quick: bool) -> dict:
+    from compiler import compile
     from compiler.simulate import SimOptions, simulate
     from compiler.simulate.engines import FastEngine, ReferenceEngine
     seq = write_case(folder / "w2", 2, 40, charge_noise="10 uV")
@@ -93,7 +97,7 @@ def bench_w2(folder: Path, quick: bool) -> dict:
     t_ref = time.perf_counter() - t0
     f_fast = process_fidelity(ev.superop, U, frames)
     f_ref = process_fidelity(ev_ref.superop, U, frames)
-    t_report, r = median_time(lambda: simulate(c, SimOptions()), 3)
+    t_report, r = median_time(lambda: simulate(compile(c), SimOptions()), 3)
     out = {"w2_points": len(ref_pts), "w2_sub_steps": model.k, "w2_fast_s": t_fast,
            "w2_reference_s": t_ref, "w2_ratio": t_ref / t_fast,
            "w2_process_fidelity": f_fast, "w2_max_abs_diff": abs(f_fast - f_ref),
@@ -125,7 +129,8 @@ def bench_w4(folder: Path, quick: bool) -> dict:
 
 def one_size(n: int, steps: int, folder: str) -> dict:
     """Run in a fresh process: compile, then time the state evolution alone."""
-    from compiler.simulate.cluster import _apply, single_threaded
+    from compiler.simulate.engines.fast import _apply
+    from compiler.threads import one_thread as single_threaded
     from compiler.simulate.engines import FastEngine
     seq = write_case(Path(folder) / f"n{n}", n, steps)
     c, model, pts, U, psi0, frames = prepared_large(seq)
@@ -169,13 +174,16 @@ def prepared_large(seq: Path):
     """Like :func:`prepared` without dense 2^n × 2^n objects."""
     from compiler import load
     from compiler.simulate import fidelity as F
-    from compiler.simulate import pauli as PL
-    from compiler.simulate.model import build_model, noise_points
-    from compiler.simulate.run import _end_sample, compile_run
+    from compiler.simulate.engines import pauli as PL
+    from compiler import compile_run
+    from compiler.simulate.build import build_model
+    from compiler.simulate.model import noise_points
+    from compiler.simulate.run import end_sample
     c = load(seq)
     run = c.expanded.runs[0]
-    dev, tl, wf = compile_run(run, c.device)
-    model = build_model(wf, dev, m=2, stop=_end_sample(tl))
+    cr = compile_run(run, c.device)
+    dev, tl, wf = cr.device, cr.timeline, cr.waveforms
+    model = build_model(wf, dev, m=2, stop=end_sample(tl))
     declared = {q: s for q, s, _ in run.prepare}
     psi0 = PL.product_state([F._single(declared.get(q), g) for q, g in zip(dev.dots, model.ground_up)])
     return c, model, noise_points(model, 1), None, psi0, None

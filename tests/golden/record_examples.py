@@ -18,7 +18,7 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent.parent
 sys.path.insert(0, str(ROOT))
 
-from compiler import load  # noqa: E402
+from compiler import compile, load  # noqa: E402
 from compiler.report.data import results_document  # noqa: E402
 from compiler.simulate.run import SimOptions, simulate  # noqa: E402
 
@@ -41,8 +41,8 @@ RUN_KEYS = ("duration", "process_fidelity", "average_fidelity", "state_fidelity"
 
 def figures(name: str) -> dict[str, float]:
     """Flat ``path -> value`` of the physics figures of one example."""
-    checked = load(ROOT / "sequences" / f"{name}.dotseq")
-    doc = results_document(simulate(checked, SimOptions(**CASES[name])))["result"]
+    compiled = compile(load(ROOT / "sequences" / f"{name}.dotseq"))
+    doc = results_document(simulate(compiled, SimOptions(**CASES[name])))["result"]
     out: dict[str, float] = {}
     for r in doc["runs"]:
         base = f"run{r['run_index']}"

@@ -1,30 +1,22 @@
-"""Integrators for the register model.
+"""The reference engine: qutip's general Lindblad solver ``mesolve``.
 
-``ReferenceEngine`` hands the piecewise-constant model to qutip's general
-Lindblad solver ``mesolve`` (adaptive ODE integration, step coefficients,
-the step bounded by the sub-step so no coefficient change is skipped).  It
-is slow and is the reference the fast engine is checked against.
+The piecewise-constant model is handed to ``mesolve`` (adaptive ODE
+integration, step coefficients, the step bounded by the sub-step so no
+coefficient change is skipped).  It is slow and is the reference the fast
+engine is checked against.  It reads only the :class:`~..model.Model` and
+builds every operator from the dots' own operators, so it works for any
+number of levels per dot.
 """
 
 from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass
 
 import numpy as np
 
-from .model import Model, NoisePoint
-
-
-@dataclass
-class Evolution:
-    superop: np.ndarray | None      # d²×d² channel (column stacking), rotating frames
-    rho: np.ndarray | None          # final density matrix, rotating frames
-    traces: dict                    # {"t": times (s, from the run start), dot: P(up)(t)}
-    stats: dict
-    ptm: np.ndarray | None = None   # the channel as a Pauli transfer matrix (fast engine)
-    pauli: np.ndarray | None = None  # the state's Pauli coefficients (fast engine)
+from ..model import Model, NoisePoint, dot_operator
+from ..types import Evolution
 
 
 class ReferenceEngine:
@@ -37,23 +29,23 @@ class ReferenceEngine:
         self.rtol, self.atol = rtol, atol
         self.calls = 0
 
-    def _operators(self, n: int):
+    @staticmethod
+    def _embedder(model: Model):
+        """at(operator name, dot) -> the operator on the whole register."""
         import qutip as qt
-        I = qt.qeye(2)
-        sp = qt.Qobj(np.array([[0, 1], [0, 0]], dtype=complex))
-        sz = qt.Qobj(np.diag([1.0, -1.0]).astype(complex))
+        eyes = [qt.qeye(lv) for lv in model.levels]
 
-        def at(o, k):
-            return qt.tensor([o if i == k else I for i in range(n)])
-        return ([at(sp, k) for k in range(n)], [at(sp.dag(), k) for k in range(n)],
-                [at(sz, k) for k in range(n)], qt.tensor([I] * n))
+        def at(name: str, k: int):
+            o = qt.Qobj(dot_operator(model.dots[k], name))
+            return qt.tensor([o if i == k else eyes[i] for i in range(model.n)])
+        return at, qt.tensor(eyes)
 
     def evolve(self, model: Model, point: NoisePoint, *, rho0: np.ndarray | None = None,
                process: bool = False, trace_points: int = 0) -> Evolution:
         import qutip as qt
         t0 = time.perf_counter()
         n = model.n
-        splus, sminus, sz, ident = self._operators(n)
+        at, ident = self._embedder(model)
         K, h = model.k, model.h
         edges = np.arange(K + 1) * h
         two_pi = 2 * math.pi
@@ -64,26 +56,18 @@ class ReferenceEngine:
             return qt.coefficient(np.append(arr, arr[-1] if len(arr) else 0), tlist=edges, order=0)
 
         for k, c in model.drive.items():
-            H.append([two_pi * splus[k], coef(c)])
-            H.append([two_pi * sminus[k], coef(np.conj(c))])
+            H.append([two_pi * at("raise", k), coef(c)])
+            H.append([two_pi * at("lower", k), coef(np.conj(c))])
         for k, d in enumerate(point.detuning):
             if d:
-                static = static + two_pi * d / 2 * sz[k]
+                static = static + two_pi * d / 2 * at("z", k)
         for i, p in enumerate(model.pairs):
             J, F = p.coefficients(point.dv[i] if point.dv else 0.0)
-            H.append([two_pi * sz[p.a] * sz[p.b] / 4, coef(J)])
-            H.append([two_pi * splus[p.a] * sminus[p.b] / 2, coef(F)])
-            H.append([two_pi * sminus[p.a] * splus[p.b] / 2, coef(np.conj(F))])
+            H.append([two_pi * at("z", p.a) * at("z", p.b) / 4, coef(J)])
+            H.append([two_pi * at("raise", p.a) * at("lower", p.b) / 2, coef(F)])
+            H.append([two_pi * at("lower", p.a) * at("raise", p.b) / 2, coef(np.conj(F))])
         Hevo = qt.QobjEvo([static] + H) if H else static
-        c_ops = []
-        for k, (down, up, gphi) in enumerate(model.relax):
-            to_ground = splus[k] if model.ground_up[k] else sminus[k]
-            if down > 0:
-                c_ops.append(math.sqrt(down) * to_ground)
-            if up > 0:
-                c_ops.append(math.sqrt(up) * to_ground.dag())
-            if gphi > 0:
-                c_ops.append(math.sqrt(gphi / 2) * sz[k])
+        c_ops = [math.sqrt(d.rate) * at(d.operator, d.dot) for d in model.dissipators]
         opts = {"rtol": self.rtol, "atol": self.atol, "max_step": h, "nsteps": 10 ** 9,
                 "progress_bar": False}
         T = K * h
@@ -96,14 +80,15 @@ class ReferenceEngine:
             self.calls += 1
         if rho0 is not None:
             times = np.linspace(0.0, T, max(trace_points, 2))
-            r0 = qt.Qobj(rho0, dims=[[2] * n, [2] * n])
+            dims = list(model.levels)
+            r0 = qt.Qobj(rho0, dims=[dims, dims])
             res = qt.mesolve(Hevo, r0, times, c_ops, options=opts)
             rho = res.states[-1].full()
             self.calls += 1
             if trace_points:
                 traces["t"] = model.t0 + times
                 for k in range(n):
-                    up = (ident + sz[k]) / 2
+                    up = at("up", k)
                     traces[k] = np.array([qt.expect(up, s) for s in res.states])
         return Evolution(S, rho, traces, {"wall_s": time.perf_counter() - t0})
 
@@ -126,6 +111,3 @@ class ReferenceEngine:
 
     def stats(self) -> dict:
         return {"solver_calls": self.calls}
-
-
-from .cluster import FastEngine  # noqa: E402,F401  (the default engine, re-exported)

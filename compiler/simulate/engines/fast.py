@@ -1,6 +1,10 @@
 """The fast engine: exact propagation of the piecewise-constant model, split
 into clusters of dots that interact.
 
+This is the fast path for two levels per dot (the Pauli representation of
+:mod:`.pauli`); a model with other level counts is refused, and the
+reference engine (:mod:`.reference`) takes any.
+
 Method (docs/simulate.md, "The fast engine"):
 
 1. The model's Hamiltonian is constant on every sub-step, so the Lindblad
@@ -49,9 +53,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..pulses import ordered_product
+from ...pulses import ordered_product
+from ...threads import one_thread
+from ..model import Model, NoisePoint, dot_operator
+from ..types import Evolution
 from . import pauli as PL
-from .model import Model, NoisePoint
 
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
 
@@ -61,18 +67,6 @@ def _expm(A: np.ndarray) -> np.ndarray:
         return PL.expm_batch(A)
     from scipy.linalg import expm
     return expm(A)
-
-
-def single_threaded():
-    """BLAS on one thread while the engine runs: its matrices are small or
-    thin, and a second BLAS thread only adds synchronisation (with two BLAS
-    threads a batch of 4×4 exponentials took 30× longer on a 2-core machine)."""
-    try:
-        from threadpoolctl import threadpool_limits
-        return threadpool_limits(limits=1, user_api="blas")
-    except ImportError:                      # pragma: no cover - a declared dependency
-        import contextlib
-        return contextlib.nullcontext()
 
 
 # ------------------------------------------------------------------ one-dot and two-dot operators
@@ -160,9 +154,11 @@ class FastEngine:
         the first point.  ``pauli0`` (Pauli coefficients, shape (4**n,)) may
         replace ``rho0`` for registers too large for a dense density matrix;
         the result then holds only ``pauli``."""
+        if any(lv != 2 for lv in model.levels):
+            raise NotImplementedError("the fast engine's Pauli representation is for two "
+                                      "levels per dot; use the reference engine")
         if pauli0 is not None:
             rho0 = np.asarray(pauli0, dtype=float)
-        from .engines import Evolution
         t0 = time.perf_counter()
         stats0 = self.stats()
         n = model.n
@@ -172,7 +168,7 @@ class FastEngine:
         R_sum = r_sum = None
         traces: dict = {}
         self._largest_now = 0
-        with single_threaded():
+        with one_thread():
             prep = self._prepare(model, points)
             for lo in range(0, len(points), chunk):
                 idx = list(range(lo, min(len(points), lo + chunk)))
@@ -255,7 +251,8 @@ class FastEngine:
         return on
 
     def _cluster_pieces(self, model: Model, dots: tuple[int, ...], pairs: tuple[int, ...]) -> _Pieces:
-        key = (dots, pairs, model.relax, model.ground_up,
+        key = (dots, pairs, tuple(d for q in dots for d in model.dissipators_of(q)),
+               tuple(model.dots[q] for q in dots),
                tuple((model.pairs[i].a, model.pairs[i].b, model.pairs[i].delta) for i in pairs))
         got = self._pieces.get(key)
         if got is not None:
@@ -277,11 +274,9 @@ class FastEngine:
                      PL.hamiltonian_generator(1j * (spm - smp) / 2))
         base = np.zeros((4 ** c, 4 ** c))
         for q in dots:
-            down, up, gphi = model.relax[q]
-            to_ground = _SP if model.ground_up[q] else _SM
-            for rate, op in ((down, to_ground), (up, to_ground.conj().T), (gphi / 2, _Z)):
-                if rate > 0:
-                    base += rate * PL.dissipator_generator(_at(op, pos[q], c))
+            for d in model.dissipators_of(q):
+                base += d.rate * PL.dissipator_generator(
+                    _at(dot_operator(model.dots[q], d.operator), pos[q], c))
         q0 = dots[0]
         s_drive = _rotation_sign(*drive[q0], zrot[q0])
         s_pair = 1.0

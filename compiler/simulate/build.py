@@ -1,0 +1,163 @@
+"""The register :class:`~.model.Model`, built from what is played.
+
+One physics model, shared with waveform synthesis (:mod:`compiler.analog`,
+:func:`compiler.synth.as_played`): each dot is a spin-1/2 in its own rotating
+frame (rotating-wave approximation), driven by every burst on its microwave
+line (crosstalk comes from the detuning, not from a factor), coupled by
+J(V(t))·S1·S2 through the as-played barrier voltages.  Frequencies in Hz;
+the Schrödinger equation is dψ/dt = −i·2π·H·ψ.
+
+The Hamiltonian is piecewise constant on a fine grid of ``m`` sub-steps per
+sample.  Every coefficient is the exact mean of the continuous as-played
+quantity over its sub-step (the RC response of held samples is known in
+closed form, and J(V(t)) is averaged with Gauss–Legendre nodes), so time
+integrals of the drive and of J are exact; what the fine grid neglects is
+the variation of the drive's phase and of J within a sub-step, an error of
+order (ω·h)² that tests/test_simulate.py shows falling with m.
+
+Drive on dot q (g > 0):  (r/2)·(b*·σ+ + b·σ−),   b = c(t)·e^{−i2π·IF_q·t}
+Drive on dot q (g < 0): −(r/2)·(b·σ+ + b*·σ−)
+Exchange (a, b):  J·σz_a σz_b/4 + ½(J e^{i2πδt}·σ+_a σ−_b + h.c.),
+                  δ = s_a f_a − s_b f_b  (Loss & DiVincenzo, PRA 57, 120 (1998))
+Quasi-static Zeeman noise: δf_q·σz_q/2 (Gaussian; averaged by quadrature).
+Lindblad dissipators and quasi-static noise variables come from the
+registry (:mod:`.sources`): every ``lindblad`` source adds its dissipators
+to every dot, every ``quasi-static`` source its variables, while its switch
+is on.  The ``played`` sources are switched here, by name.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .. import analog
+from ..device import exchange as X
+from ..device.model import Device
+from ..physics import precession_sign
+from ..synth.types import Waveforms
+from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, Model,
+                    NoiseVariable, Pair)
+from .sources import ALL_ON, SOURCES, Switches
+
+
+def _exact_means(x: np.ndarray, dt: float, tau: float, m: int, rot_hz: float, t_first: float,
+                 y0: complex = 0.0) -> np.ndarray:
+    """Mean over each of m sub-steps per sample of y(t)·e^{−i2π·rot·t}, y the
+    RC output of held samples x (exact: y = x_i + (y_i − x_i)e^{−u/τ})."""
+    n = len(x)
+    h = dt / m
+    w = 2 * math.pi * rot_hz
+    j = np.arange(m)
+    lo, hi = j * h, (j + 1) * h
+    if w != 0:
+        A = (np.exp(-1j * w * lo) - np.exp(-1j * w * hi)) / (1j * w * h)
+    else:
+        A = np.ones(m, dtype=complex)
+    if tau > 0:
+        lam = 1.0 / tau + 1j * w
+        B = (np.exp(-lam * lo) - np.exp(-lam * hi)) / (lam * h)
+        yb = analog.rc_boundaries(x, dt, tau, y0)[:-1]
+    else:
+        B = np.zeros(m, dtype=complex)
+        yb = x
+    base = np.exp(-1j * w * (t_first + np.arange(n) * dt))
+    out = base[:, None] * (x[:, None] * A[None, :] + (yb - x)[:, None] * B[None, :])
+    return out.ravel()
+
+
+def _node_values(x: np.ndarray, dt: float, tau: float, m: int, y0: float) -> np.ndarray:
+    """RC output of held samples x at the Gauss–Legendre nodes of every
+    sub-step: shape (n·m, GL_NODES)."""
+    n = len(x)
+    h = dt / m
+    u = (np.arange(m)[:, None] + (GL_X[None, :] + 1) / 2) * h          # (m, nodes) within a sample
+    if tau > 0:
+        yb = analog.rc_boundaries(x, dt, tau, y0)[:-1]
+        v = x[:, None, None] + (yb - x)[:, None, None] * np.exp(-u / tau)[None, :, :]
+        v = np.clip(v, min(x.min(), y0), max(x.max(), y0))
+    else:
+        v = np.broadcast_to(x[:, None, None], (n, m, GL_NODES))
+    return np.ascontiguousarray(v).reshape(n * m, GL_NODES)
+
+
+def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
+                m: int = 4, start: int = 0, stop: int | None = None, rwa: bool = True) -> Model:
+    """The register model over samples [start, stop) of a compiled run.
+
+    ``rwa=False`` keeps the counter-rotating half of the linear drive: for
+    g > 0 the σ+ coefficient gains (r/2)·c·e^{i2π(f_q + LO)t}, for g < 0
+    −(r/2)·c*·e^{−i2π(f_q + LO)t}; the sub-steps must then resolve twice the
+    Larmor frequency (``m`` large), which makes it slow (Bloch & Siegert,
+    Phys. Rev. 57, 522 (1940))."""
+    dots = tuple(device.dots)
+    dt = 1.0 / wf.sample_rate
+    stop = wf.n_samples if stop is None else stop
+    h = dt / m
+    K = (stop - start) * m
+    sw = switches
+    drive: dict[int, np.ndarray] = {}
+    for idx, q in enumerate(dots):
+        dot = device.dots[q]
+        line = device.channels[dot.drive.line]
+        tau = analog.rc_tau(line.rise_time) if sw.on("filters") else 0.0
+        if sw.on("crosstalk"):
+            out_i, out_q = wf.outputs[f"{line.name}.I"], wf.outputs[f"{line.name}.Q"]
+            c = ((out_i.volts if sw.on("quantised") else out_i.ideal)
+                 + 1j * (out_q.volts if sw.on("quantised") else out_q.ideal))
+        else:
+            c = wf.per_dot.get(q)
+            if c is None:
+                continue
+        if_hz = device.larmor(q) - line.lo
+        b = _exact_means(np.asarray(c, dtype=complex), dt, tau, m, if_hz, 0.0)[start * m:stop * m]
+        if not np.any(b):
+            continue
+        r = dot.drive.rabi_per_volt
+        sign = precession_sign(dot.g)
+        coef = (r / 2) * (np.conj(b) if sign > 0 else -b)
+        if not rwa:
+            w = device.larmor(q) + line.lo
+            cr = _exact_means(np.asarray(c, dtype=complex), dt, tau, m, -w, 0.0)[start * m:stop * m]
+            coef = coef + ((r / 2) * cr if sign > 0 else -(r / 2) * np.conj(cr))
+        drive[idx] = coef
+    pairs = []
+    for cpl in device.couplings:
+        ch = device.channels[cpl.barrier]
+        out = wf.outputs[cpl.barrier]
+        x = np.asarray(out.volts if sw.on("quantised") else out.ideal, dtype=float)
+        tau = analog.rc_tau(ch.rise_time) if sw.on("filters") else 0.0
+        y0 = float(x[0]) if len(x) else 0.0
+        v = _node_values(x, dt, tau, m, y0)
+        if sw.on("bias_tee") and ch.bias_tee > 0:
+            # high-pass of the tee (τ_b ≫ h: its low-pass part is taken per sub-step),
+            # capacitor uncharged at the start, as in synth.as_played
+            mean = v.mean(axis=1)
+            v = v - analog.rc_boundaries(mean, h, ch.bias_tee, 0.0)[:-1, None]
+        v = v[start * m:stop * m] + out.dc_level
+        a, b = dots.index(cpl.dots[0]), dots.index(cpl.dots[1])
+        da, db = device.dots[cpl.dots[0]], device.dots[cpl.dots[1]]
+        delta = (precession_sign(da.g) * device.larmor(cpl.dots[0])
+                 - precession_sign(db.g) * device.larmor(cpl.dots[1])) if sw.on("exchange_zeeman") else 0.0
+        tn = start * dt + (np.arange(K)[:, None] + (GL_X[None, :] + 1) / 2) * h
+        phase = np.exp(2j * math.pi * delta * tn)
+        lo_v, hi_v = X.v_range(cpl.exchange)
+        pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
+                          lo_v, hi_v, delta))
+    specs = tuple(DotSpec(q, SPIN_HALF_LEVELS, device.dots[q].g < 0) for q in dots)
+    dissipators, noise = [], []
+    for src in SOURCES.values():
+        if not sw.on(src.key):
+            continue
+        if src.dissipators is not None:
+            for idx, q in enumerate(dots):
+                for op, rate in src.dissipators(device, q):
+                    if rate > 0:
+                        dissipators.append(Dissipator(src.key, idx, op, rate))
+        if src.noise is not None:
+            noise += [NoiseVariable(src.key, moves, target, rms)
+                      for moves, target, rms in src.noise(device)]
+    # the engines take the dissipators dot by dot, in registry order
+    dissipators.sort(key=lambda d: d.dot)
+    return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise))

@@ -1,0 +1,154 @@
+"""The registry of imperfections: one entry per noise source.
+
+Each :class:`Source` says what the error budget prints, what it reads from
+the device, what kind of term it puts into the :class:`~.model.Model`, and
+how it is switched off for the budget:
+
+* ``lindblad``: per dot, dissipators (operator name, rate) computed by
+  ``dissipators(device, dot)``; :func:`~.build.build_model` adds them for
+  every dot while the switch is on.  Adding such a source is one device
+  field plus one entry here (DEVELOPERS.md has a worked example).
+* ``quasi-static``: noise variables (what they move, which dot or pair, rms)
+  from ``noise(device)``, averaged by quadrature (:func:`~.model.noise_points`).
+* ``played``: an imperfection of what the generators play (crosstalk,
+  finite bandwidth, quantisation, bias tee, the Zeeman difference during
+  exchange).  :func:`~.build.build_model` reads these switches by name, and
+  ``compile_off`` lists the compile options (``CompileOptions`` fields) under
+  which the run is recompiled when the source is off.
+
+:class:`Switches` are keyed by the registry's keys: a switch that is not in
+the registry is refused, and "everything off" is derived from the registry,
+(:func:`all_off`, :func:`floor`), so a new source can never stay on silently.  The budget (:mod:`.run`) walks
+the registry: every entry with ``budget="switch"`` is one line (total
+infidelity minus the infidelity with it off).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+from ..device.model import Device
+from ..physics import H as PLANCK, K_B
+
+
+@dataclass(frozen=True)
+class Source:
+    key: str                       # switch name
+    name: str                      # the error budget's line
+    reads: str                     # what it reads from the device
+    note: str                      # the budget's explanation
+    kind: str                      # "lindblad", "quasi-static" or "played"
+    # CompileOptions changes under which the run is recompiled while it is off
+    compile_off: tuple[tuple[str, object], ...] = ()
+    # lindblad: (device, dot name) -> ((operator, rate 1/s), ...); operators by
+    # name from model.dot_operator: "to_ground", "from_ground", "z"
+    dissipators: Callable[[Device, str], tuple[tuple[str, float], ...]] | None = None
+    # quasi-static: device -> ((moves, dot or coupling index, rms), ...);
+    # moves "detuning" (Hz, σz/2 of a dot) or "barrier" (V, a coupling's barrier)
+    noise: Callable[[Device], tuple[tuple[str, int, float], ...]] | None = None
+    budget: str = "switch"         # "switch", or "frame model" (see ZEEMAN in run.py)
+    in_floor: bool = True          # switched off for the budget's floor
+
+
+def _relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
+    """Relaxation to the ground state at Γ↓ and excitation at Γ↑ with
+    Γ↓ + Γ↑ = 1/T1 and Γ↑/Γ↓ = e^{−hf/k_BT} (detailed balance)."""
+    d = device.dots[q]
+    x = PLANCK * device.larmor(q) / (K_B * device.temperature)
+    g1 = 1.0 / d.t1
+    down = g1 / (1 + math.exp(-x))
+    return (("to_ground", down), ("from_ground", g1 - down))
+
+
+def _dephasing(device: Device, q: str) -> tuple[tuple[str, float], ...]:
+    """Pure dephasing √(γφ/2)·σz with γφ = 1/T2 − 1/(2T1)."""
+    d = device.dots[q]
+    return (("z", max(1.0 / d.t2 - 1.0 / (2 * d.t1), 0.0) / 2),)
+
+
+def _zeeman_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
+    """Quasi-static Gaussian detuning with T2* = √2/σ_ω (Merkulov, Efros &
+    Rosen, PRB 65, 205309 (2002))."""
+    return tuple(("detuning", i, math.sqrt(2) / d.t2_star / (2 * math.pi))
+                 for i, d in enumerate(device.dots.values()))
+
+
+def _charge_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
+    return tuple(("barrier", i, c.charge_noise) for i, c in enumerate(device.couplings))
+
+
+SOURCES: dict[str, Source] = {s.key: s for s in (
+    Source("t1", "T1 relaxation", "dots.*.t1, temperature",
+           "Lindblad relaxation with thermal excitation at the device temperature",
+           "lindblad", dissipators=_relaxation),
+    Source("t2", "pure dephasing (T2)", "dots.*.t2, dots.*.t1",
+           "Markovian dephasing 1/T2 − 1/(2T1)", "lindblad", dissipators=_dephasing),
+    Source("t2_star", "quasi-static Zeeman noise (T2*)", "dots.*.t2_star",
+           "Gaussian detuning, rms √2/T2*, by quadrature", "quasi-static", noise=_zeeman_noise),
+    Source("charge", "charge noise on exchange", "couplings.*.charge_noise",
+           "quasi-static barrier offset of the device's rms, through J(V)", "quasi-static",
+           noise=_charge_noise),
+    Source("crosstalk", "drive crosstalk", "the shared microwave lines",
+           "each dot driven only by its own bursts (and no light-shift corrections)", "played",
+           compile_off=(("spectator_correction", False), ("per_dot", True))),
+    Source("filters", "finite bandwidth", "channels.*.rise_time",
+           "recompiled and played for channels without rise time", "played",
+           compile_off=(("ideal_bandwidth", True),)),
+    Source("quantised", "quantisation", "channels.*.bits, v_min, v_max",
+           "unquantised samples", "played", compile_off=(("keep_ideal", True),)),
+    Source("bias_tee", "bias tee", "channels.*.bias_tee", "no high-pass droop", "played"),
+    Source("exchange_zeeman", "Zeeman difference in exchange", "dots.*.g, field",
+           "from the exchange frame model: Σ over exchange gates of the infidelity left "
+           "after frame compensation (noise-free), not by switching off", "played",
+           budget="frame model", in_floor=False),
+)}
+
+
+@dataclass(frozen=True)
+class Switches:
+    """Which sources are off (everything else is on).  Keyed by the
+    registry's keys; an unknown key is an error, never a switch left on."""
+    off_keys: frozenset = frozenset()
+
+    def __post_init__(self):
+        unknown = set(self.off_keys) - set(SOURCES)
+        if unknown:
+            raise KeyError(f"no noise source {sorted(unknown)} in the registry "
+                           f"(known: {', '.join(SOURCES)})")
+
+    def on(self, key: str) -> bool:
+        if key not in SOURCES:
+            raise KeyError(f"no noise source '{key}' in the registry (known: {', '.join(SOURCES)})")
+        return key not in self.off_keys
+
+    def off(self, *keys: str) -> "Switches":
+        return Switches(self.off_keys | frozenset(keys))
+
+    def back_on(self, *keys: str) -> "Switches":
+        for k in keys:
+            self.on(k)
+        return Switches(self.off_keys - frozenset(keys))
+
+
+ALL_ON = Switches()
+
+
+def all_off() -> Switches:
+    """Every source of the registry off (read from the registry on each call)."""
+    return Switches(frozenset(SOURCES))
+
+
+def floor() -> Switches:
+    """The budget's floor: every source off except those whose share is not
+    found by switching (``in_floor=False``)."""
+    return Switches(frozenset(k for k, s in SOURCES.items() if s.in_floor))
+
+
+def compile_changes(switches: Switches) -> dict:
+    """The compile options under which a run is played with these switches."""
+    out: dict = {}
+    for key in sorted(switches.off_keys, key=list(SOURCES).index):
+        out.update(SOURCES[key].compile_off)
+    return out
