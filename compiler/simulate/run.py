@@ -382,8 +382,34 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                                     "(runs other than the detail run)" if n_runs > 1 else "",
                 "fidelity_metric": "budget and totals: 1 - average gate fidelity of the whole "
                                    "run (1 - state fidelity above 5 dots)"}
+    spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
-                            tuple(runs), axes, coherence, settings, warnings, stats)
+                            tuple(runs), axes, coherence, settings, warnings, stats, spectra)
+
+
+WORST_STEPS = 3
+
+
+def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tuple:
+    """Per dot with a Zeeman-noise spectrum, the filter functions to overlay:
+    the detail run's (its π rotations on the dot as the toggling function's
+    flips) and free evolution over each of the dot's WORST_STEPS worst steps."""
+    out = []
+    tl = crun.timeline
+    stop = end_sample(tl) * tl.dt
+    for q, d in device.dots.items():
+        if d.zeeman_noise is None:
+            continue
+        flips = sorted(s.start + s.duration / 2 for s in tl.slots
+                       if isinstance(s.step, P.Rotation) and q in s.qubits
+                       and abs(abs(math.remainder(s.step.angle, 2 * math.pi)) - math.pi) < 1e-6)
+        filters = [(f"run {result.run_index} ({len(flips)} π pulses)", stop,
+                    tuple(t for t in flips if 0 < t < stop))]
+        mine = sorted((s for s in result.steps if q in s.qubits), key=lambda s: s.fidelity)
+        filters += [(f"{s.label} (worst step {k + 1})", s.duration, ())
+                    for k, s in enumerate(mine[:WORST_STEPS]) if s.duration > 0]
+        out.append((q, d.zeeman_noise, tuple(filters)))
+    return tuple(out)
 
 
 def _coherence(checked):
