@@ -84,7 +84,7 @@ class Spectrum:
         a, b = max(fa, self.f_low), min(fb, self.f_high)
         if not b > a:
             return 0.0
-        out = _power_integral(self.s1, self.beta, a, b) if self.beta != 0 else self.s1 * (b - a)
+        out = power_integral(self.s1, self.beta, a, b) if self.beta != 0 else self.s1 * (b - a)
         if white and self.white:
             out += self.white * (b - a)
         return out
@@ -97,7 +97,7 @@ class Spectrum:
         return replace(self, s1=self.s1 * k, white=self.white * k)
 
 
-def _power_integral(s1: float, beta: float, a: float, b: float) -> float:
+def power_integral(s1: float, beta: float, a: float, b: float) -> float:
     """∫_a^b s1·f^−β df."""
     if s1 == 0 or b <= a:
         return 0.0
@@ -207,7 +207,7 @@ def chi(spec: Spectrum, t: float, pulses=(), *, points_per_lobe: int = 16,
     a = max(lo, F)
     if hi > a:
         jw = _tail_weight(pulses) / (4 * math.pi ** 2)        # |Y|² ≈ jw/f²
-        total += jw * (_power_integral(spec.s1, spec.beta + 2, a, hi)
+        total += jw * (power_integral(spec.s1, spec.beta + 2, a, hi)
                        + (spec.white * (1 / a - (1 / hi if math.isfinite(hi) else 0.0))))
     return 2 * math.pi ** 2 * total
 

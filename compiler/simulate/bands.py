@@ -81,17 +81,17 @@ def split(sp: Spectrum, window: float) -> Bands:
     chi_fast = 0.0
     lo = max(f_hi, sp.f_low)
     if sp.f_high > lo and sp.s1 > 0:
-        from ..spectra import _power_integral
-        chi_fast = _power_integral(sp.s1, sp.beta + 2, lo, sp.f_high)
+        from ..spectra import power_integral
+        chi_fast = power_integral(sp.s1, sp.beta + 2, lo, sp.f_high)
     rate = math.pi ** 2 * white / 2 + chi_fast / (2 * window)
     return Bands(f_qs, f_hi, math.sqrt(static), tuple(modes), rate)
 
 
 def _centroid(sp: Spectrum, a: float, b: float) -> float:
     """∫ f·S df / ∫ S df over [a, b] (power-law part)."""
-    from ..spectra import _power_integral
-    num = _power_integral(sp.s1, sp.beta - 1, a, b)
-    den = _power_integral(sp.s1, sp.beta, a, b)
+    from ..spectra import power_integral
+    num = power_integral(sp.s1, sp.beta - 1, a, b)
+    den = power_integral(sp.s1, sp.beta, a, b)
     return num / den if den > 0 else math.sqrt(a * b)
 
 

@@ -137,7 +137,7 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            window=lambda dev, t: _spectral(dev, t, "static")),
     Source("zeeman_gate", "Zeeman noise spectrum, gate band", "dots.*.zeeman_noise",
            "S(f) from 0.1/T to 64/T as random-phase sinusoids on the played waveforms "
-           "(4 per decade, one variable at a time)", "gate band",
+           "(1/(2T) apart up to 10/T, then 4 per decade)", "gate band",
            window=lambda dev, t: _spectral(dev, t, "gate")),
     Source("zeeman_fast", "Zeeman noise spectrum, white and fast band", "dots.*.zeeman_noise",
            "white part and S(f) above 64/T as Lindblad dephasing", "lindblad",
