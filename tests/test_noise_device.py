@@ -106,3 +106,15 @@ def test_check_prints_implied_times(tmp_path, capsys):
     assert a["t2_star_s"] < a["t2_s"] < a["t2_cpmg_s"]["16"]
     b = next((q for q in got["qubits"] if q["name"] == "B"), None)
     assert b is None or b["t2_cpmg_s"] is None
+
+
+def test_sweep_refuses_t2_of_a_spectral_dot(tmp_path, capsys):
+    # varying T2* of a dot whose noise is a spectrum would change nothing simulated
+    dev = tmp_path / "spec.yaml"
+    dev.write_text(spectral())
+    seq = tmp_path / "r.dotseq"
+    seq.write_text(f'device "{dev}"\nprepare A down\nrot A x 90 deg\nwait 1 us on A\n'
+                   "rot A x 90 deg\n")
+    code = main(["sweep", str(seq), "--vary", "A.t2_star=2us:5us:2", "-o", str(tmp_path / "o")])
+    assert code == 2
+    assert "zeeman_noise" in capsys.readouterr().err
