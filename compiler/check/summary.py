@@ -28,6 +28,8 @@ class QubitInfo:
     t2: float
     t2_star: float
     preset: str
+    spectrum: str = ""                           # the Zeeman-noise spectrum, as text
+    cpmg: tuple[tuple[int, float], ...] = ()     # (N, CPMG-N T2 in s) it implies
 
 
 @dataclass(frozen=True)
@@ -64,9 +66,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     used = sorted({q for tl in timelines for s in tl.slots
                    for q in s.qubits} | {q for r in expanded.runs for q, *_ in r.prepare},
                   key=list(device.dots).index)
-    qubits = tuple(QubitInfo(q, device.dots[q].g, device.larmor(q), device.dots[q].t1,
-                             device.dots[q].t2, device.dots[q].t2_star, device.dots[q].preset)
-                   for q in (used or list(device.dots)))
+    qubits = tuple(_qubit(device, q) for q in (used or list(device.dots)))
     per_run = [Counter(s.kind for s in tl.slots) for tl in timelines]
     kinds = [k for k in KIND_ORDER if any(c[k] for c in per_run)]
     counts = tuple((k, min(c[k] for c in per_run), max(c[k] for c in per_run)) for k in kinds)
@@ -90,6 +90,31 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
                    max(totals, default=0.0), longest, margins, tuple(warnings))
 
 
+def _qubit(device: Device, q: str) -> QubitInfo:
+    """A qubit's line; with a Zeeman-noise spectrum, the T2*, Hahn T2 and
+    CPMG-N T2 it implies (1/e times of the filter-function integrals,
+    compiler/spectra.py)."""
+    d = device.dots[q]
+    if d.zeeman_noise is None:
+        return QubitInfo(q, d.g, device.larmor(q), d.t1, d.t2, d.t2_star, d.preset)
+    from .. import spectra
+    times = spectra.implied_times(d.zeeman_noise)
+    return QubitInfo(q, d.g, device.larmor(q), d.t1, times["t2_s"], times["t2_star_s"], d.preset,
+                     spectrum_text(d.zeeman_noise, "Hz^2/Hz"),
+                     tuple(sorted(times["t2_cpmg_s"].items())))
+
+
+def spectrum_text(sp, unit: str) -> str:
+    """S(f) in one line: '4e+08 Hz^2/Hz/f^1 + white on [1.667 mHz, inf Hz]'."""
+    parts = []
+    if sp.s1:
+        parts.append(f"{sp.s1:.4g} {unit}" + (f"/f^{sp.beta:g}" if sp.beta else ""))
+    if sp.white:
+        parts.append(f"{sp.white:.4g} {unit} white")
+    hi = "inf" if sp.f_high == float("inf") else fq(sp.f_high, FREQUENCY)
+    return " + ".join(parts or ["0"]) + f" on [{fq(sp.f_low, FREQUENCY)}, {hi}]"
+
+
 def _range(lo: int, hi: int) -> str:
     return str(lo) if lo == hi else f"{lo}..{hi}"
 
@@ -103,6 +128,11 @@ def render_text(s: Summary) -> str:
     for q in s.qubits:
         out.append(f"  {q.name:<7} {q.g:<10.5g} {fq(q.larmor, FREQUENCY, 7):<12} {fq(q.t1, TIME):<10} "
                    f"{fq(q.t2, TIME):<10} {fq(q.t2_star, TIME):<10} {q.preset or '-'}")
+    for q in s.qubits:
+        if q.spectrum:
+            out.append(f"  {q.name:<7} Zeeman noise {q.spectrum}: implies T2* {fq(q.t2_star, TIME)}, "
+                       f"Hahn T2 {fq(q.t2, TIME)}")
+            out.append(f"  {'':<7} CPMG-N T2: " + ", ".join(f"N={n} {fq(t, TIME)}" for n, t in q.cpmg))
     out.append("")
     if s.axes:
         for name, a, b, n, dim in s.axes:
@@ -137,7 +167,9 @@ def to_dict(s: Summary) -> dict:
         "device": {"name": s.device_name, "path": s.device_path, "field_T": s.field,
                    "temperature_K": s.temperature},
         "qubits": [{"name": q.name, "g": q.g, "larmor_Hz": q.larmor, "t1_s": q.t1, "t2_s": q.t2,
-                    "t2_star_s": q.t2_star, "preset": q.preset} for q in s.qubits],
+                    "t2_star_s": q.t2_star, "preset": q.preset,
+                    "t2_cpmg_s": {str(n): t for n, t in q.cpmg} if q.cpmg else None,
+                    "zeeman_noise": q.spectrum or None} for q in s.qubits],
         "runs": s.runs,
         "sweeps": [{"name": n, "first": a, "last": b, "points": k, "unit": d.symbol()}
                    for n, a, b, k, d in s.axes],

@@ -51,6 +51,9 @@ class Dot:
     preset: str = ""          # material preset the values came from, if any
     sources: tuple[str, ...] = ()  # where each preset value came from
     span: Span | None = None
+    # spectrum of the Larmor frequency's fluctuations (compiler.spectra.Spectrum,
+    # Hz²/Hz); when given, t2 and t2_star hold the times it implies
+    zeeman_noise: object = None
 
 
 @dataclass(frozen=True)
@@ -65,6 +68,7 @@ class Coupling:
     charge_noise: float = 0.0       # V rms voltage noise on the barrier
     detune: tuple[tuple[str, float], ...] = ()  # intermediate dot -> plunger offset (V)
     span: Span | None = None
+    barrier_noise: object = None    # spectrum of the barrier voltage (Spectrum, V²/Hz)
 
     @property
     def key(self) -> frozenset[str]:
@@ -129,6 +133,7 @@ class Device:
     rotation: RotationDefaults = RotationDefaults()
     readout: Readout = Readout()
     notes: str = ""
+    acquisition_time: float = 0.0   # s, total time a measurement averages over (0: not given)
     # Physically doubtful but legal settings (large idle exchange, weak
     # thermal polarisation, ...): positioned like errors, never raised.
     warnings: tuple[Problem, ...] = ()

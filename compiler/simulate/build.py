@@ -37,8 +37,9 @@ from ..device import exchange as X
 from ..device.model import Device
 from ..physics import precession_sign
 from ..synth.types import Waveforms
+from .bands import mode_shapes
 from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, Model,
-                    NoiseVariable, Pair)
+                    NoiseVariable, Pair, Profile)
 from .sources import ALL_ON, SOURCES, Switches
 
 
@@ -146,7 +147,8 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
                           lo_v, hi_v, delta))
     specs = tuple(DotSpec(q, SPIN_HALF_LEVELS, device.dots[q].g < 0) for q in dots)
-    dissipators, noise = [], []
+    dissipators, noise, profiles = [], [], []
+    window = K * h
     for src in SOURCES.values():
         if not sw.on(src.key):
             continue
@@ -158,6 +160,34 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         if src.noise is not None:
             noise += [NoiseVariable(src.key, moves, target, rms)
                       for moves, target, rms in src.noise(device)]
+        if src.window is not None and sw.on(src.key):
+            # the bands of a spectrum for this window (sources.py, bands.py)
+            nv, ds, pf = window_terms(src.key, src.window(device, window), K, h)
+            noise += nv
+            dissipators += ds
+            profiles += pf
     # the engines take the dissipators dot by dot, in registry order
     dissipators.sort(key=lambda d: d.dot)
-    return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise))
+    return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise),
+                 tuple(profiles))
+
+
+MODE_CHUNKS = 1024     # gate-band modes are held on at most this many chunks per window
+
+
+def window_terms(key: str, items, K: int, h: float):
+    """Model terms of a source's band items (:attr:`.sources.Source.window`):
+    (noise variables, dissipators, profiles)."""
+    noise, dissipators, profiles = [], [], []
+    chunk = max(1, K // MODE_CHUNKS)
+    for item in items:
+        if item[0] in ("detuning", "barrier"):
+            noise.append(NoiseVariable(key, *item))
+        elif item[0] == "dissipator":
+            dissipators.append(Dissipator(key, item[1], item[2], item[3]))
+        elif item[0] == "mode":
+            c, s = mode_shapes(item[2], item[3], K, h, chunk)
+            profiles += [Profile(key, item[1], c), Profile(key, item[1], s)]
+        else:
+            raise ValueError(f"source {key}: unknown band item {item[0]!r}")
+    return noise, dissipators, profiles

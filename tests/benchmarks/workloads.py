@@ -12,14 +12,15 @@ CHANNEL = ("{{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], ris
 
 
 def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
-                preset: str = "bilayer_graphene") -> str:
+                preset: str = "bilayer_graphene", zeeman_noise: str = "") -> str:
     """n dots D0..D(n-1) in a line on one microwave line (Larmor frequencies
     28 MHz apart at 1 T), nearest-neighbour exchange through barrier
     gates (closed to well under a millihertz at idle), and, with
     ``long_range``, an exchange between D0 and D2 across a detuned D1."""
     dots = "\n".join(
         f"  D{k}: {{preset: {preset}, g: {2.0 + 0.002 * k:.4f}, drive: {{line: mw, "
-        f"rabi_per_volt: 40 MHz/V}}, plunger: P{k}}}" for k in range(n))
+        f"rabi_per_volt: 40 MHz/V}}, plunger: P{k}"
+        + (f", zeeman_noise: {zeeman_noise}" if zeeman_noise else "") + "}" for k in range(n))
     cpl = "\n".join(
         f"  - {{dots: [D{k}, D{k + 1}], barrier: B{k}, exchange: {{model: exponential, j0: 150 MHz, "
         f"v0: 20 mV}}, idle_voltage: -600 mV, pulse_voltage: 0 mV, charge_noise: {charge_noise}}}"
@@ -36,6 +37,7 @@ def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
     return f"""name: "benchmark line of {n} dots (invented)"
 field: 1 T
 temperature: 30 mK
+acquisition_time: 600 s
 rotation: {{mode: duration, shape: gauss, duration: 100 ns, sigmas: 4}}
 readout: {{marker: M1, duration: 1 us}}
 dots:
@@ -84,11 +86,12 @@ def line_steps(n: int, steps: int, *, long_range: bool = True) -> list[str]:
 
 
 def write_case(folder: Path, n: int, steps: int, *, charge_noise: str = "0 uV",
-               long_range: bool = True, prepare: str = "down") -> Path:
+               long_range: bool = True, prepare: str = "down", zeeman_noise: str = "") -> Path:
     """Device and sequence files for a line workload; returns the sequence path."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "device.yaml").write_text(line_device(n, charge_noise=charge_noise,
-                                                    long_range=long_range))
+                                                    long_range=long_range,
+                                                    zeeman_noise=zeeman_noise))
     dots = " ".join(f"D{k}" for k in range(n))
     body = "\n".join(line_steps(n, steps, long_range=long_range))
     seq = folder / f"line{n}.dotseq"

@@ -144,7 +144,7 @@ class FastEngine:
                 "neglected_exchange_rad": self.neglected_exchange_rad}
 
     def evolve(self, model: Model, point: NoisePoint, *, rho0=None, process=False, trace_points=0):
-        return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0)], rho0=rho0,
+        return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0, point.modes)], rho0=rho0,
                             process=process, trace_points=trace_points)
 
     def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0,
@@ -313,10 +313,14 @@ class FastEngine:
         h = model.h
         combos: dict = {}
         which = []
+        # the gate-band profiles on the cluster's dots (time-dependent detuning)
+        prof = [j for j, p in enumerate(model.profiles) if p.dot in pc.dots]
+        prof_dots = tuple(q for q in pc.dots if any(model.profiles[j].dot == q for j in prof))
         for i in idx:
             pt = points[i]
             key = (tuple(pt.detuning[q] if pt.detuning else 0.0 for q in pc.dots)
-                   + tuple(pt.dv[j] if pt.dv else 0.0 for j in pc.pairs))
+                   + tuple(pt.dv[j] if pt.dv else 0.0 for j in pc.pairs)
+                   + tuple(pt.modes[j] if pt.modes else 0.0 for j in prof))
             which.append(combos.setdefault(key, len(combos)))
         # frame angles ϑ_q(k) = 2π·w_q·t_k at the sub-step centres (module notes)
         t = model.t0 + (np.arange(s, e) + 0.5) * h
@@ -335,6 +339,7 @@ class FastEngine:
                 cols_fixed += [a, b]
         for j in pc.pairs:
             gens += list(pc.pair[j])
+        gens += [pc.det[q] for q in prof_dots]
         G = np.stack(gens) if gens else np.zeros((0,) + pc.base.shape)
         statics, Cs = [], []
         for key in combos:
@@ -354,6 +359,13 @@ class FastEngine:
                     cs, sn = np.cos(ang), np.sin(ang)
                     Fr, Fi = Fr * cs - Fi * sn, Fr * sn + Fi * cs
                 cols += [J[s:e], Fr, Fi]
+            if prof_dots:
+                modes = [0.0] * len(model.profiles)
+                for j, x in zip(prof, key[len(pc.dots) + len(pc.pairs):]):
+                    modes[j] = x
+                for q in prof_dots:
+                    d = model.detuning_profile(q, modes)
+                    cols.append(np.zeros(e - s) if d is None else d[s:e])
             statics.append(static)
             Cs.append(np.stack(cols, axis=1) if cols else np.zeros((e - s, 0)))
         chans = self._chain(np.stack(statics), G, np.stack(Cs), h, pc, tuple(combos),
