@@ -129,7 +129,7 @@ def test_as_soon_as_possible_placement():
     assert rb.start_sample == pi2                # B shares line mw with A: after A's burst
     assert rc.start_sample == 30                 # C is on its own line, after its wait
     ex = by_kind["sqrtswap"][0]
-    assert ex.start_sample >= 2 * pi2            # exchange waits for both dots (and may align)
+    assert ex.start_sample >= 2 * pi2            # exchange waits for both dots (and may wait for its phase)
     trig = by_kind["trigger"][0]
     assert trig.start_sample == max(x.end_sample for x in tl.slots if x is not trig and x is not wa)
     assert wa.start_sample == trig.start_sample

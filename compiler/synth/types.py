@@ -64,7 +64,7 @@ class StepRecord:
 
     index: int                # position in the timeline
     kind: str                 # rot, zrot, sqrtswap, sqrtswap_inv, swap, wait, read, trigger,
-                              # phasewait (wait inserted to phase-align an exchange), pad (end padding)
+                              # phasewait (wait inserted so an exchange starts at the right flip-flop phase), pad (end padding)
     qubits: tuple[str, ...]
     start: int                # first sample
     stop: int                 # one past the last sample
