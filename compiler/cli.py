@@ -134,24 +134,10 @@ def _rb_parser(sub) -> None:
     b.add_argument("--resamples", type=int, default=200, help="bootstrap resamples over the "
                    "sequences for the 95 %% intervals (default 200)")
     b.add_argument("--device", help="device description (YAML) to use instead of the file's own")
-    b.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
-                   "the number of cores; 1 computes in this process)")
-    b.add_argument("--cluster", metavar="tcp://HOST:PORT", help="simulate on this Dask scheduler "
-                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); the "
-                   "sequences travel with the tasks; needs pip install 'dotseq[dask]'")
-    b.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
-                   help="give up on a --cluster address that does not answer as a Dask scheduler "
-                   "within this time (default 10)")
+    _worker_flags(b, "simulate", "the sequences travel with the tasks; ")
     b.add_argument("--resume", action="store_true", help="continue the unfinished run in the -o "
                    "folder (same device and arguments)")
-    b.add_argument("--engine", choices=("fast", "reference"), default="fast",
-                   help="fast (default) or reference (qutip mesolve, slow)")
-    b.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
-                   "variable (default 5, as dotseq simulate)")
-    b.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
-                   help="full product grid, one noise at a time, or auto (default)")
-    b.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per "
-                   "sample (default 2)")
+    _model_flags(b)
     b.add_argument("--quiet", action="store_true", help="no progress bar")
     b.add_argument("--json", action="store_true", help="print rb.json on stdout for scripts")
 
@@ -190,46 +176,49 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--confine", action="store_true", help=CONFINE_HELP)
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
-    w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
-                   "the number of cores; 1 computes in this process)")
+    _worker_flags(w, "compute", "")
     w.add_argument("--more-workers-than-cores", action="store_true", help="start as many local "
                    "worker processes as --workers asks even when that is more than the cores "
                    "(otherwise capped at the core count)")
-    w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
-                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
-                   "pip install 'dotseq[dask]'")
-    w.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
-                   help="give up on a --cluster address that does not answer as a Dask scheduler "
-                   "within this time (default 10)")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
-    w.add_argument("--engine", choices=("fast", "reference"), default="fast",
-                   help="fast (default) or reference (qutip mesolve, slow)")
-    w.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
-                   "variable (default 5)")
-    w.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
-                   help="full product grid, one noise at a time, or auto (default)")
-    w.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
-                   "(default 2)")
+    _model_flags(w)
     w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
                    "--substeps of 64 or more; slow)")
     w.add_argument("--quiet", action="store_true", help="no progress bar")
     w.add_argument("--json", action="store_true", help="print sweep.json on stdout for scripts")
 
 
-def _sim_flags(p) -> None:
+def _worker_flags(p, verb: str, cluster_note: str) -> None:
+    """Where the many simulations of a sweep or an rb run are computed."""
+    p.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
+                   "the number of cores; 1 computes in this process)")
+    p.add_argument("--cluster", metavar="tcp://HOST:PORT", help=f"{verb} on this Dask scheduler "
+                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); "
+                   f"{cluster_note}needs pip install 'dotseq[dask]'")
+    p.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
+                   help="give up on a --cluster address that does not answer as a Dask scheduler "
+                   "within this time (default 10)")
+
+
+def _model_flags(p) -> None:
+    """The simulation's engine and accuracy (simulate, run, sweep, rb)."""
     from .simulate.engines import ENGINES
     p.add_argument("--engine", choices=tuple(ENGINES), default="fast",
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
-    p.add_argument("--run", type=int, default=0, dest="detail_run",
-                   help="run of a sweep that gets per-step fidelities, the budget and traces")
     p.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
                    "variable (default 5)")
     p.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
                    help="full product grid, one noise at a time (exact to second order), or auto")
     p.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
                    "(default 2)")
+
+
+def _sim_flags(p) -> None:
+    p.add_argument("--run", type=int, default=0, dest="detail_run",
+                   help="run of a sweep that gets per-step fidelities, the budget and traces")
+    _model_flags(p)
     p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
                    "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
     p.add_argument("--no-budget", action="store_true", help="skip the error budget")

@@ -17,9 +17,8 @@ import json
 import os
 from pathlib import Path
 
-from ..source import Unreadable, check_regular
 from ..sweep.errors import fail
-from ..sweep.store import dumps, write_atomic
+from ..sweep.store import dumps, open_locked_state, write_atomic
 
 STATE_NAME = "survival.jsonl"
 STATE_FORMAT = "dotseq-rb-state"
@@ -103,24 +102,7 @@ class RBFolder:
                      "n_tasks": self.key.get("n_tasks", 0), "key": self.key})
 
     def _lock(self) -> None:
-        if os.path.lexists(self.state_path):
-            try:
-                check_regular(self.state_path)
-            except Unreadable as e:
-                raise fail(self.state_path, f"cannot use the rb state file: {e.reason}",
-                           "delete it, or choose another -o folder") from None
-        f = open(self.state_path, "a+b")
-        try:
-            import fcntl
-            try:
-                fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                f.close()
-                raise fail(self.path, "another dotseq rb run is writing into this folder",
-                           "wait for it to finish, or choose another -o folder") from None
-        except ImportError:  # pragma: no cover - no fcntl: no lock
-            pass
-        self._file = f
+        self._file = open_locked_state(self.state_path, self.path, "rb", "dotseq rb run")
 
     def _read(self):
         self._file.seek(0)
