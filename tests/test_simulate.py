@@ -339,3 +339,23 @@ def load_checked_text(src, dev):
     ex = expand(parse_text(src, "t.dotseq"))
     check(ex, dev)
     return Checked(ex, dev, tuple(schedule(r, dev) for r in ex.runs))
+
+
+def test_readout_beside_a_burst_does_not_cut_the_simulated_span(tmp_path):
+    # 'rot B x 180 deg; read A' on the demo pair: the readout of A starts at 0 beside
+    # B's burst; the simulated span must reach the end of the burst, so B ends up
+    # flipped (π pulse from spin down: P(up) near 1) and the whole-run fidelity is
+    # that of a π pulse, not 0.008 (issue 14; Rabi 1937 for the π flip)
+    dev = (SEQUENCES / "devices" / "demo_pair.yaml").read_text()
+    (tmp_path / "dev.yaml").write_text(dev)
+    seq = tmp_path / "s.dotseq"
+    seq.write_text('device "dev.yaml"\nprepare A B down\nrot B x 180 deg\nread A\n')
+    compiled = compile(load(seq))
+    tl = compiled.runs[0].timeline
+    burst = next(s for s in tl.slots if s.kind == "rot")
+    from compiler.simulate.run import end_sample
+    assert end_sample(tl) == burst.end_sample
+    r = simulate(compiled, SimOptions(nodes=3, budget=False, steps=False)).runs[0]
+    assert r.duration == pytest.approx(burst.duration)
+    assert r.populations["B"] > 0.95 and r.populations["A"] < 0.05
+    assert r.average_fidelity > 0.95

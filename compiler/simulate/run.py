@@ -82,17 +82,23 @@ class SimOptions:
 
 
 def end_sample(tl) -> int:
-    """The simulated span: up to the start of the trailing readout(s), else the
-    end of the last step."""
+    """The simulated span: up to the start of the trailing readout(s) or, when
+    an operation that is not one of them ends later (a readout placed beside
+    a burst on another dot), up to the end of that operation, so that no
+    burst or exchange is cut off; without trailing readouts the end of the
+    last step."""
     steps = list(tl.run.steps)
     end = tl.n_samples
     trailing = set()
     while steps and isinstance(steps[-1], (P.Readout, P.Trigger)):
         trailing.add(id(steps.pop()))
     if trailing:
+        ends = [s.end_sample for s in tl.slots if id(s.step) not in trailing]
         starts = [s.start_sample for s in tl.slots if s.step is not None and id(s.step) in trailing]
         if starts:
-            end = min(starts)
+            end = max([min(starts)] + ends)
+        elif ends:
+            end = max(ends)
     return end
 
 
