@@ -161,12 +161,29 @@ def _whole_run(result: SimulationResult, i: int, look: _Look) -> Section:
         rows.append((f"P(up) of dot {dot} at readout", fmt_population(p), ""))
     lines = [f"simulated span {fmt_value(run.duration, 's', 4, look.micro)} (to the start of "
              "the final readout)"]
+    lines.append(averaging_line(result, run))
     notes = []
     if run.process_fidelity is None:
         notes.append("process fidelity not computed (more than five qubits)")
     return Section(f"whole run: {_run_title(result, i, look)}", lines=tuple(lines),
                    table=Table(("quantity", "value", look.minus_f), tuple(rows), "lrr"),
                    notes=tuple(notes))
+
+
+def averaging_line(result: SimulationResult, run: RunResult) -> str:
+    """The stated accuracy of the average over quasi-static noise."""
+    tol = result.settings.get("averaging_tolerance")
+    err = run.averaging_error
+    if err is None:
+        return "quasi-static noise not averaged (one quadrature node): its share is not in these figures"
+    if err == 0 and run.nodes <= 1:
+        return "no quasi-static noise to average"
+    over = (f"; ABOVE the tolerance {tol:.1e}: give --nodes higher or check the run"
+            if tol is not None and err > tol else
+            (f" (tolerance {tol:.1e})" if tol is not None else ""))
+    return (f"averaging error {err:.1e} in fidelity (|F({run.nodes}) - F({run.nodes - 2})| of "
+            f"the Gauss-Hermite rules of {run.nodes} and {run.nodes - 2} nodes per noise "
+            f"variable){over}")
 
 
 def _populations(run: RunResult) -> list[tuple[str, float]]:
@@ -190,7 +207,7 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
             if d not in dots:
                 dots.append(d)
     shown_dots = dots[:MAX_DOTS_IN_SWEEP_TABLE]
-    headers = (("run",) + tuple(names) + ("F process", "F average", "F state")
+    headers = (("run",) + tuple(names) + ("F process", "F average", "F state", "avg. error")
                + tuple(f"P(up) {d}" for d in shown_dots) + ("",))
     order = list(range(len(runs)))
     notes = []
@@ -209,14 +226,15 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
                     + tuple(fmt_value(sw[n], _unit_of(result, n), 4, look.micro) if n in sw else ""
                             for n in names)
                     + (fmt_fidelity(r.process_fidelity), fmt_fidelity(r.average_fidelity),
-                       fmt_fidelity(r.state_fidelity))
+                       fmt_fidelity(r.state_fidelity),
+                       "n/a" if r.averaging_error is None else f"{r.averaging_error:.1e}")
                     + tuple(fmt_population(pops[d]) if d in pops else "" for d in shown_dots)
                     + (("best" if not look.md else "**best**") if i == best else "",))
     if len(dots) > len(shown_dots):
         notes.append(f"P(up) of {len(dots) - len(shown_dots)} more dots in results.json")
     lines = (f"one line per run; best = highest {metric} fidelity",)
     return Section("runs", lines=lines,
-                   table=Table(headers, tuple(rows), "r" + "r" * len(names) + "rrr"
+                   table=Table(headers, tuple(rows), "r" + "r" * len(names) + "rrrr"
                                + "r" * len(shown_dots) + "l"),
                    notes=tuple(notes))
 

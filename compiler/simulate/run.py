@@ -34,6 +34,7 @@ from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
+MAX_NODES = 41                    # Gauss–Hermite nodes per variable at most (refinement stops there)
 
 
 @dataclass(frozen=True)
@@ -41,14 +42,14 @@ class SimOptions:
     engine: str = "fast"          # "fast" or "reference"
     rwa: bool = True
     substeps: int = 2             # sub-steps per sample of the piecewise-constant model
-    nodes: int = 5                # quadrature nodes per quasi-static noise variable
+    nodes: int = 5                # quadrature nodes per quasi-static noise variable to start from
+    averaging_tolerance: float = 1e-4   # fidelity: refine the quadrature until two rules agree
     quadrature: str = "auto"      # "tensor", "additive" or "auto"
     budget: bool = True
     steps: bool = True
     detail_run: int = 0           # run that gets per-step fidelities, budget and traces
     trace_points: int = 300
     max_step_entries: int = 200   # per-step fidelities for at most this many program steps
-    sweep_nodes: int = 3          # quadrature nodes for the runs other than the detail run
     threads: int = 0              # threads for independent evaluations; 0: automatic
 
     def worker_threads(self) -> int:
@@ -67,8 +68,14 @@ class SimOptions:
                              hint=f"use --engine {' or '.join(ENGINES)}")
         if self.substeps < 1 or self.substeps > 64:
             raise UsageError(f"substeps {self.substeps} must be from 1 to 64")
-        if self.nodes < 1 or self.nodes > 15:
-            raise UsageError(f"nodes {self.nodes} must be from 1 to 15")
+        if self.nodes < 1 or self.nodes > MAX_NODES:
+            raise UsageError(f"nodes {self.nodes} must be from 1 to {MAX_NODES}",
+                             hint="the quadrature is refined from this many nodes until two "
+                                  "rules agree within --averaging-tolerance; 1 switches the "
+                                  "averaging over quasi-static noise off")
+        if not (1e-12 <= self.averaging_tolerance <= 0.1):
+            raise UsageError(f"averaging tolerance {self.averaging_tolerance:g} must be from "
+                             "1e-12 to 0.1", hint="a fidelity difference, e.g. 1e-4 (default)")
         if self.threads < 0 or self.threads > 256:
             raise UsageError(f"threads {self.threads} must be from 0 (automatic) to 256")
         if self.quadrature not in ("tensor", "additive", "auto"):
@@ -123,6 +130,9 @@ class Whole:
     traces: dict
     duration: float
     dim: int = 0                 # dimension of the simulated register
+    nodes: int = 1               # quadrature nodes per noise variable of the figures
+    averaging_error: float | None = 0.0   # |F(nodes) − F(nodes − 2)|; None: not averaged
+    quadrature: str = ""         # the rule: tensor or additive
 
     @property
     def infidelity(self) -> float:
@@ -130,21 +140,56 @@ class Whole:
 
 
 def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engine, *,
-                   traces: int = 0) -> Whole:
+                   traces: int = 0, nodes: int | None = None) -> Whole:
     """The whole run (to the start of its final readout) with the given
-    sources switched on, averaged over the quadrature points."""
+    sources switched on, averaged over the quadrature points.
+
+    With ``nodes`` given, that Gauss–Hermite rule (the budget's what-if
+    runs use the rule of the total).  Otherwise the average is refined:
+    rules of ``opts.nodes − 2`` and ``opts.nodes`` nodes per variable (then
+    + 2 nodes at a time, up to :data:`MAX_NODES`) until the fidelities of
+    two successive rules agree within ``opts.averaging_tolerance``; the
+    finer one is kept and their difference is the stated averaging error
+    (``Whole.averaging_error``; it exceeds the tolerance only when
+    :data:`MAX_NODES` was reached).  The kind of rule (product grid or one
+    variable at a time) is fixed per run (:func:`quadrature_rule`)."""
     need = compile_changes(switches)
     wrong = {k: v for k, v in need.items() if getattr(crun.options, k) != v}
     if wrong:
         raise ValueError(f"run {crun.index} was compiled without {wrong}, which these switches "
                          "need (the sources' compile_off options)")
     tl, wf, device = crun.timeline, crun.waveforms, crun.device
-    dots = tuple(device.dots)
-    n = len(dots)
     stop = end_sample(tl)
     model = build_model(wf, device, switches=switches, m=opts.substeps, start=0, stop=stop,
                         rwa=opts.rwa)
-    pts = noise_points(model, opts.nodes, opts.quadrature)
+    rule = quadrature_rule(device, opts)
+    noisy = any(v.rms > 0 for v in model.noise)
+    if nodes is not None or not noisy or opts.nodes <= 1:
+        n = opts.nodes if nodes is None else nodes
+        w = _evaluate(crun, model, n, rule, engine, traces)
+        # nothing to average: exact; averaging switched off (one node) or a
+        # fixed rule asked for by the caller: not estimated here
+        err = 0.0 if not noisy else None
+        return dataclasses.replace(w, nodes=n, averaging_error=err, quadrature=rule)
+    coarse_n = max(1, opts.nodes - 2)
+    coarse = _evaluate(crun, model, coarse_n, rule, engine, 0)
+    fine_n = opts.nodes
+    while True:
+        fine = _evaluate(crun, model, fine_n, rule, engine, traces)
+        diff = max(abs(fine.f_state - coarse.f_state),
+                   abs((fine.f_avg or 0.0) - (coarse.f_avg or 0.0)))
+        if diff <= opts.averaging_tolerance or fine_n + 2 > MAX_NODES:
+            return dataclasses.replace(fine, nodes=fine_n, averaging_error=float(diff),
+                                       quadrature=rule)
+        coarse, fine_n = fine, fine_n + 2
+
+
+def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: int) -> Whole:
+    """One quadrature rule over the model of one run."""
+    tl, device = crun.timeline, crun.device
+    dots = tuple(device.dots)
+    n = len(dots)
+    pts = noise_points(model, nodes, rule)
     psi0 = F.initial_state(tl.run, dots, model.ground_up)
     rho0 = np.outer(psi0, psi0.conj())
     process = n <= MAX_PROCESS_QUBITS
@@ -168,7 +213,7 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim)
+    return Whole(f_pro, f_avg, f_state, pops, named, end_sample(tl) * tl.dt, model.dim, nodes)
 
 
 def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
@@ -260,7 +305,7 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
 
     def work(job):
         crun, sw = job
-        return evaluate_whole(crun, sw, opts, engine).infidelity
+        return evaluate_whole(crun, sw, opts, engine, nodes=total.nodes).infidelity
 
     threads = opts.worker_threads()
     if threads > 1:
@@ -316,9 +361,8 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
         if progress:
             progress(f"run {i + 1}/{n_runs}")
         is_detail = i == detail
-        run_opts = opts if is_detail else dataclasses.replace(
-            opts, nodes=min(opts.nodes, opts.sweep_nodes), quadrature="additive")
-        whole = evaluate_whole(crun, ALL_ON, run_opts, engine,
+        # every run averaged to the same stated accuracy (evaluate_whole refines)
+        whole = evaluate_whole(crun, ALL_ON, opts, engine,
                                traces=opts.trace_points if is_detail else 0)
         steps = budget = ()
         floor = remainder = 0.0
@@ -332,15 +376,15 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
-                              whole.traces, {"wall_s": time.perf_counter() - t0}))
+                              whole.traces, {"wall_s": time.perf_counter() - t0},
+                              whole.averaging_error, whole.nodes))
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
     warnings = tuple(sorted({w.render() for tl in checked.timelines for w in tl.warnings}))
     stats = {"wall_s": time.perf_counter() - t_start, "engine": engine.name, **engine.stats()}
     settings = {"substeps_per_sample": opts.substeps, "quadrature_nodes": opts.nodes,
                 "quadrature": opts.quadrature, "rwa": opts.rwa, "detail_run": detail,
-                "sweep_quadrature": f"additive, {min(opts.nodes, opts.sweep_nodes)} nodes "
-                                    "(runs other than the detail run)" if n_runs > 1 else "",
+                "averaging_tolerance": opts.averaging_tolerance,
                 "fidelity_metric": "budget and totals: 1 - average gate fidelity of the whole "
                                    "run (1 - state fidelity above 5 dots)"}
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,

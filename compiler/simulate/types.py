@@ -58,6 +58,10 @@ class RunResult:
     budget_remainder: float = 0.0            # total − floor − Σ contributions (interaction)
     traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
     stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
+    # |F(n) − F(n − 2)| of the last two quadrature rules (fidelity); 0 without
+    # quasi-static noise, None when not averaged (one node)
+    averaging_error: float | None = 0.0
+    nodes: int = 1                           # Gauss–Hermite nodes per noise variable used
 
 
 @dataclass(frozen=True)
