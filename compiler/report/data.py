@@ -164,6 +164,7 @@ def _run(d: dict) -> RunResult:
         stats=dict(d.get("stats", {})),
         averaging_error=_opt(d.get("averaging_error", 0.0)),
         nodes=int(d.get("nodes", 1)),
+        budget_numerical_error=_num(d.get("budget_numerical_error", 0.0)),
     )
 
 

@@ -296,6 +296,15 @@ def _budget(result: SimulationResult, i: int, look: _Look, top: int | None) -> S
     mismatch = budget_mismatch(run)
     if abs(mismatch) > 1e-9 * max(abs(run.budget_total), 1e-12) + 1e-15:
         notes.append(f"the lines do not add up to the total: difference {fmt_sci(mismatch)}")
+    num = float(getattr(run, "budget_numerical_error", 0.0) or 0.0)
+    if num > 0:
+        state = ("; the negative floor is within it (a fidelity above 1 is not claimed)"
+                 if run.budget_floor < 0 and -run.budget_floor <= num else
+                 ("; the floor is NEGATIVE BEYOND it: worth reporting with the input files"
+                  if run.budget_floor < 0 else ""))
+        notes.append(f"numerical error of the floor and of each line: about {fmt_sci(num)} "
+                     f"(sub-step model, from the floor run with twice the sub-steps, plus the "
+                     f"bound on dropped weak exchange){state}")
     if any(b.value < 0 for b in rows):
         notes.append("a negative contribution means the run is better with that source on "
                      "(or, for the remainder, that sources partly cancel)")

@@ -62,6 +62,9 @@ class RunResult:
     # quasi-static noise, None when not averaged (one node)
     averaging_error: float | None = 0.0
     nodes: int = 1                           # Gauss–Hermite nodes per noise variable used
+    # numerical error of the budget's floor: sub-step model (Richardson, twice the
+    # sub-steps) plus the fast engine's bound on dropped exchange
+    budget_numerical_error: float = 0.0
 
 
 @dataclass(frozen=True)

@@ -92,7 +92,7 @@ def simulate_point(task: PointTask) -> PointResult:
     budget = ()
     floor = remainder = None
     if task.budget:
-        lines, floor, remainder = error_budget(crun, opts, engine, whole, RECOMPILER.run)
+        lines, floor, remainder, _ = error_budget(crun, opts, engine, whole, RECOMPILER.run)
         budget = tuple((b.source, float(b.infidelity)) for b in lines)
         floor, remainder = float(floor), float(remainder)
     return PointResult(
