@@ -25,11 +25,12 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
 from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
-from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
+from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
                      format_quantity,
                      parse_quantity)
 from . import exchange as xch
+from . import levels as lv
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
                     Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
 from .presets import PRESETS
@@ -37,10 +38,12 @@ from .presets import PRESETS
 # --------------------------------------------------------------------- schema
 
 TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
-TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings")
+TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt")
 
-DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger")
-DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt")
+DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger",
+            "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
+VALLEY_KEYS = ("spin_orbit", "valley_splitting", "valley_g")
+DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt", "direction")
 
 CHANNEL_KINDS = ("iq", "gate", "marker")
 CHANNEL_KEYS = ("kind", "sample_rate", "bits", "range", "rise_time", "bandwidth",
@@ -448,13 +451,47 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
         r.error(t2s.node, f"{path}.t2_star = {shown[0]} is longer "
                           f"than the Hahn-echo T2 = {shown[1]}",
                 "an echo only removes dephasing, so T2* ≤ T2")
+    valley: dict[str, _Val] = {}
+    for key in ("spin_orbit", "valley_splitting"):
+        v = r.get(m, key, _energy_or_freq, r, f"{path}.{key}")
+        if v is not None:
+            if v.value < 0:
+                r.error(v.node, f"{path}.{key} must not be negative, got '{v.node.value}'",
+                        "give the gap as a positive energy, e.g. 60 ueV")
+            valley[key] = v
+    vg = r.get(m, "valley_g", r.number, f"{path}.valley_g")
+    if vg is not None:
+        valley["valley_g"] = vg
+    vt1 = r.get(m, "valley_t1", r.quantity, f"{path}.valley_t1", TIME, positive=True)
+    if vt1 is not None:
+        valley["valley_t1"] = vt1
+    if preset is not None:
+        p = PRESETS[preset.value]
+        for key in VALLEY_KEYS + ("valley_t1",):
+            if key not in m and p.extra(key) is not None:
+                valley[key] = _Val(p.extra(key), preset.node)
+                sources.append(f"{key}: {p.source(key)}")
+    four = any(k in valley for k in VALLEY_KEYS)
+    for key in ("valley_t1", "qubit_levels"):
+        if key in m and not four:
+            r.error(m[key][0], f"{path}.{key} is for a spin–valley dot",
+                    "give spin_orbit, valley_splitting or valley_g (or a preset with them), "
+                    "or remove this key")
+    qlev = None
+    if "qubit_levels" in m and four:
+        qlev = r.get(m, "qubit_levels", _level_pair, r, f"{path}.qubit_levels")
     drive = None
     if "drive" in m:
         drive = _read_drive(r, m["drive"], f"{path}.drive", values.get("g"))
+        if drive is not None and drive.get("direction") is not None and not four:
+            r.warn(drive["direction"].node, f"{path}.drive.direction is used only by "
+                                            "spin–valley dots",
+                   "a spin-1/2's rabi_per_volt already holds its drive calibration")
     plunger = r.get(m, "plunger", r.ident, f"{path}.plunger", "channel")
     if len(r.problems.problems) > n_before or drive is None or plunger is None:
         return None
     return {"name": name, "values": values, "drive": drive, "plunger": plunger,
+            "valley": valley if four else None, "qubit_levels": qlev,
             "preset": preset.value if preset else "", "sources": tuple(sources),
             "node": knode, "span": r.span(knode)}
 
@@ -467,6 +504,7 @@ def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) ->
     except _Skip:
         return None
     line = r.get(m, "line", r.ident, f"{path}.line", "channel")
+    direction = r.get(m, "direction", _direction, r, f"{path}.direction")
     rabi = r.get(m, "rabi_per_volt", r.quantity, f"{path}.rabi_per_volt", FREQ_PER_VOLT,
                  positive=True)
     b1 = r.get(m, "b1_per_volt", r.quantity, f"{path}.b1_per_volt", FIELD_PER_VOLT,
@@ -488,7 +526,33 @@ def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) ->
         per_volt = _Val(physics.rabi_from_b1(g.value, b1.value), b1.node)
     else:
         return None
-    return {"line": line, "rabi": per_volt, "span": r.span(knode)}
+    return {"line": line, "rabi": per_volt, "span": r.span(knode), "direction": direction}
+
+
+def _direction(node: Node, r: _Reader, path: str) -> tuple[float, float, float]:
+    """A direction [x, y, z] (plain numbers, not all zero; normalised)."""
+    if not isinstance(node, SequenceNode) or len(node.value) != 3:
+        r.fail(node, f"{path} must be a list of three numbers [x, y, z], got {_kind_of(node)}",
+               "x in-plane along the static field's in-plane part, z out of the plane; "
+               "e.g. [0, 1, 0] (the default: in-plane, perpendicular to the field)")
+    xs = tuple(r.number(v, f"{path}[{i}]") for i, v in enumerate(node.value))
+    norm = math.sqrt(sum(x * x for x in xs))
+    if not norm > 0 or not math.isfinite(norm):
+        r.fail(node, f"{path} must not be the zero vector", "e.g. [0, 1, 0]")
+    return tuple(x / norm for x in xs)
+
+
+def _level_pair(node: Node, r: _Reader, path: str) -> tuple[int, int]:
+    """Two distinct level indices 0..3 (0 = ground), lower first."""
+    if not isinstance(node, SequenceNode) or len(node.value) != 2:
+        r.fail(node, f"{path} must be a list of two level numbers [lower, upper], got "
+                     f"{_kind_of(node)}", "levels count from 0 (the ground level); e.g. [0, 2]")
+    a = r.integer(node.value[0], f"{path}[0]", 0, lv.LEVELS - 1)
+    b = r.integer(node.value[1], f"{path}[1]", 0, lv.LEVELS - 1)
+    if not a < b:
+        r.fail(node, f"{path}: the lower level must come first and differ from the upper, got "
+                     f"[{a}, {b}]", "e.g. [0, 2]")
+    return (a, b)
 
 
 def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
@@ -759,6 +823,13 @@ def _build(r: _Reader, root: Node) -> Device:
     notes = r.get(top, "notes", r.text, "notes")
     fld = r.get(top, "field", r.quantity, "field", FIELD, positive=True)
     temp = r.get(top, "temperature", r.quantity, "temperature", TEMPERATURE, positive=True)
+    tilt = r.get(top, "field_tilt", r.quantity, "field_tilt", ANGLE, bare_zero=True)
+    if tilt is not None and not -math.pi / 2 <= tilt.value <= math.pi / 2:
+        r.error(tilt.node, f"field_tilt must be from -90 deg to 90 deg, got '{tilt.node.value}'",
+                "the angle of the field from the sample plane: 0 deg in-plane, 90 deg "
+                "out of plane")
+        tilt = None
+    tilt_v = tilt.value if tilt is not None else 0.0
 
     # channels first: dots and couplings refer to them
     raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
@@ -846,10 +917,31 @@ def _build(r: _Reader, root: Node) -> Device:
                                        f"dot '{plungers[pl]}'", "each dot needs its own plunger gate")
         plungers.setdefault(pl, nm)
         g = d["values"]["g"].value
-        if line is not None and fld is not None:
-            _check_larmor(r, nm, g, fld, line, d)
-        if line is not None and fld is not None:
+        v = d["values"]
+        valley = d["valley"]
+        extra = {}
+        if valley is not None:
+            extra = {k: valley[k].value for k in valley}
+            if d["qubit_levels"] is not None:
+                extra["qubit_levels"] = d["qubit_levels"].value
+        dot = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
+                  t2_star=v["t2_star"].value,
+                  drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
+                              d["drive"]["span"],
+                              d["drive"]["direction"].value if d["drive"]["direction"] else None),
+                  plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"], **extra)
+        dots[nm] = dot
+        f_l = None
+        if fld is not None:
             f_l = physics.larmor_frequency(g, fld.value)
+            if dot.spin_valley:
+                from .model import dot_ladder
+                lad = dot_ladder(dot, fld.value, tilt_v)
+                f_l = lad.larmor
+                _valley_warnings(r, nm, d, lad, fld.value)
+        if line is not None and fld is not None:
+            _check_larmor(r, nm, g, fld, line, d, f_l)
+        if line is not None and fld is not None:
             full = d["drive"]["rabi"].value * max(abs(line.v_min), abs(line.v_max))
             if full > RWA_RATIO * f_l:
                 r.warn(d["drive"]["rabi"].node,
@@ -864,12 +956,6 @@ def _build(r: _Reader, root: Node) -> Device:
                                   f"{format_quantity(temp.value, TEMPERATURE)}",
                        "thermal initialisation and spin-to-charge readout will be poor; "
                        "raise the field or lower the temperature")
-        v = d["values"]
-        dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
-                       t2_star=v["t2_star"].value,
-                       drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
-                                   d["drive"]["span"]),
-                       plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"])
 
     couplings: list[Coupling] = []
     for c in raw_couplings:
@@ -898,19 +984,39 @@ def _build(r: _Reader, root: Node) -> Device:
                   dots=dots, couplings=tuple(couplings), channels=channels,
                   rotation=rotation[0] if rotation else RotationDefaults(),
                   readout=readout[0] if readout else Readout(),
-                  notes=notes.value if notes else "",
+                  notes=notes.value if notes else "", field_tilt=tilt_v,
                   warnings=tuple(r.warnings.problems))
 
 
-def _check_larmor(r: _Reader, nm: str, g: float, fld: _Val, line: Channel, d: dict) -> None:
+def _valley_warnings(r: _Reader, nm: str, d: dict, lad, field: float) -> None:
+    """Valley degeneracy of a qubit level and a relaxation hotspot near the field."""
+    fq = lambda x: format_quantity(x, FREQUENCY, 5)  # noqa: E731
+    if lad.degenerate:
+        r.warn(d["node"], f"dots.{nm}: qubit level(s) {lad.qubit} (nearly) degenerate with "
+                          f"level(s) {', '.join(map(str, lad.degenerate))} (valley degeneracy)",
+               "lift it: tilt the field out of the plane (field_tilt) so the valley g-factor "
+               "splits the valleys, or give a valley_splitting")
+    if lv.near_hotspot(lad, field):
+        r.warn(d["node"], f"dots.{nm}: the field {format_quantity(field, FIELD)} is near the "
+                          f"spin–valley hotspot at {format_quantity(lad.hotspot_field, FIELD)} "
+                          f"(Zeeman energy {fq(lad.zeeman)} ≈ valley splitting)",
+               "spin relaxation is fast where E_Z = E_v (Yang et al., Nat. Commun. 4, 2069 "
+               "(2013)); move the field or the valley splitting away from it")
+
+
+def _check_larmor(r: _Reader, nm: str, g: float, fld: _Val, line: Channel, d: dict,
+                  f_l: float | None = None) -> None:
     """f_L = LO + IF must put IF inside the line's band (common practice, no source)."""
-    f_l = physics.larmor_frequency(g, fld.value)
+    if f_l is None:
+        f_l = physics.larmor_frequency(g, fld.value)
     if_needed = f_l - line.lo
     if line.if_min <= if_needed <= line.if_max:
         return
     fq = lambda x: format_quantity(x, FREQUENCY, 6)  # noqa: E731
+    what = (f"|g| = {abs(g):g}" if d.get("valley") is None
+            else "qubit transition of the spin–valley levels")
     r.error(d["drive"]["line"].node,
-            f"dots.{nm}: Larmor frequency {fq(f_l)} (|g| = {abs(g):g} at "
+            f"dots.{nm}: Larmor frequency {fq(f_l)} ({what} at "
             f"{format_quantity(fld.value, FIELD)}) is not reachable on line '{line.name}': "
             f"LO {fq(line.lo)} + IF band [{fq(line.if_min)}, {fq(line.if_max)}] covers "
             f"{fq(line.lo + line.if_min)} to {fq(line.lo + line.if_max)}",

@@ -48,6 +48,16 @@ class Preset:
     t2: float
     t2_star: float
     sources: MappingProxyType
+    # spin–valley values (None: not part of this preset): spin_orbit and
+    # valley_splitting in Hz (E/h), valley_g, valley_t1 in s
+    spin_orbit: float | None = None
+    valley_splitting: float | None = None
+    valley_g: float | None = None
+    valley_t1: float | None = None
+
+    def extra(self, field: str) -> float | None:
+        """A spin–valley value of the preset, or None."""
+        return getattr(self, field)
 
     def value(self, field: str) -> float:
         """The preset value of ``field`` (g in 1, times in s)."""
@@ -61,11 +71,16 @@ class Preset:
 FIELDS = ("g", "t1", "t2", "t2_star")
 
 
+VALLEY_FIELDS = ("spin_orbit", "valley_splitting", "valley_g", "valley_t1")
+
+
 def _preset(name: str, description: str, g: float, t1: float, t2: float, t2_star: float,
-            sources: dict[str, str]) -> Preset:
-    assert set(sources) == set(FIELDS), name
+            sources: dict[str, str], **valley) -> Preset:
+    assert set(sources) == set(FIELDS) | set(valley), name
+    assert set(valley) <= set(VALLEY_FIELDS), name
     assert 0 < t2_star <= t2 <= 2 * t1, name
-    return Preset(name, description, g, t1, t2, t2_star, MappingProxyType(dict(sources)))
+    return Preset(name, description, g, t1, t2, t2_star, MappingProxyType(dict(sources)),
+                  **valley)
 
 
 _GAAS_KOPPENS = "Koppens, Nowack & Vandersypen, PRL 100, 236802 (2008), at 70 mT"

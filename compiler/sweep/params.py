@@ -30,7 +30,7 @@ from ..device.model import Device
 from ..errors import UsageError, did_you_mean
 from ..expand.evaluate import EvalError, Quantity, evaluate
 from ..parse import tree as T
-from ..physics import H as PLANCK, K_B, larmor_frequency
+from ..physics import H as PLANCK, K_B
 from ..program import Expanded
 from ..units import (BASES, FIELD, FREQ_PER_VOLT, FREQUENCY, NONE, TEMPERATURE, TIME, VOLTAGE,
                      Dim, format_distinct, format_quantity)
@@ -240,7 +240,7 @@ def constraints(device: Device) -> list[tuple[str, str, str]]:
                                      "zero", "the drive calibration is positive"))
         line = device.channels.get(d.drive.line)
         if line is not None and d.g != 0 and device.field > 0:
-            f_l = larmor_frequency(d.g, device.field)
+            f_l = device.larmor(q)
             need = f_l - line.lo
             if not line.if_min <= need <= line.if_max:
                 out.append((f"{q}.larmor",
@@ -318,7 +318,7 @@ def cautions(device: Device) -> list[tuple[str, str]]:
     for q, d in device.dots.items():
         if d.g == 0 or not device.field > 0:
             continue
-        f_l = larmor_frequency(d.g, device.field)
+        f_l = device.larmor(q)
         line = device.channels.get(d.drive.line)
         if line is not None:
             full = d.drive.rabi_per_volt * max(abs(line.v_min), abs(line.v_max))
