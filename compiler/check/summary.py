@@ -26,6 +26,14 @@ class QubitInfo:
     t2: float
     t2_star: float
     preset: str
+    levels: tuple[float, ...] = ()       # Hz from the ground level (spin–valley dots)
+    qubit_levels: tuple[int, int] = (0, 1)
+    leakage: tuple | None = None         # nearest leakage transition: (from, to, Hz, element)
+    leakage_gap: float | None = None     # Hz between it and the qubit transition
+
+    @property
+    def spin_valley(self) -> bool:
+        return bool(self.levels)
 
 
 @dataclass(frozen=True)
@@ -71,9 +79,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     used = sorted({q for tl in timelines for s in tl.slots
                    for q in s.qubits} | {q for r in expanded.runs for q, *_ in r.prepare},
                   key=list(device.dots).index)
-    qubits = tuple(QubitInfo(q, device.dots[q].g, device.larmor(q), device.dots[q].t1,
-                             device.dots[q].t2, device.dots[q].t2_star, device.dots[q].preset)
-                   for q in (used or list(device.dots)))
+    qubits = tuple(_qubit_info(device, q) for q in (used or list(device.dots)))
     per_run = [Counter(s.kind for s in tl.slots) for tl in timelines]
     kinds = [k for k in KIND_ORDER if any(c[k] for c in per_run)]
     counts = tuple((k, min(c[k] for c in per_run), max(c[k] for c in per_run)) for k in kinds)
@@ -93,6 +99,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
                     for q, d in sorted(per_qubit.items(), key=lambda kv: list(device.dots).index(kv[0]))
                     if d > 0)
     warnings = [w.render("warning") for w in device.warnings]
+    warnings += _leakage_warnings(device, qubits, timelines)
     worst: dict[str, object] = {}
     for tl in timelines:
         for w in tl.warnings:
@@ -104,6 +111,58 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     return Summary(expanded.file, device.name, device.path, device.field, device.temperature,
                    qubits, len(expanded.runs), axes, counts, min(totals, default=0.0),
                    max(totals, default=0.0), longest, margins, tuple(warnings))
+
+
+# a burst of length T reaches a transition detuned by Δ when Δ·T < this (its spectrum's
+# main lobe and first side lobes; common practice, no source)
+BURST_REACH = 3.0
+
+
+def _qubit_info(device: Device, q: str) -> QubitInfo:
+    d = device.dots[q]
+    info = QubitInfo(q, d.g, device.larmor(q), d.t1, d.t2, d.t2_star, d.preset)
+    if not d.spin_valley:
+        return info
+    lad = device.ladders[q]
+    lk = lad.leakage()
+    import dataclasses
+    return dataclasses.replace(info, levels=lad.energies, qubit_levels=lad.qubit,
+                               leakage=lk[0] if lk else None,
+                               leakage_gap=lad.leakage_gap if lk else None)
+
+
+def _leakage_warnings(device: Device, qubits, timelines) -> list[str]:
+    """A burst whose spectrum reaches a leakage transition of its qubit."""
+    out = []
+    for q in qubits:
+        if q.leakage is None:
+            continue
+        shortest = min((s.duration for tl in timelines for s in tl.slots
+                        if s.kind == "rot" and q.name in s.qubits and s.duration > 0),
+                       default=None)
+        if shortest is not None and q.leakage_gap * shortest < BURST_REACH:
+            a, b, f, el = q.leakage
+            out.append(f"warning: qubit {q.name}: the shortest burst ({fq(shortest, TIME)}) has a "
+                       f"spectrum about {fq(1 / shortest, FREQUENCY)} wide, which reaches the leakage "
+                       f"transition {a}->{b} at {fq(abs(f), FREQUENCY, 6)}, "
+                       f"{fq(q.leakage_gap, FREQUENCY)} from the qubit transition "
+                       f"(matrix element {el:.3g})\n  hint: lengthen the bursts (a Gaussian "
+                       f"shape narrows the spectrum), or move the field to open the gap")
+    return out
+
+
+def _ladder_lines(q: QubitInfo) -> list[str]:
+    lo, hi = q.qubit_levels
+    out = [f"  {q.name:<7} levels from the ground level: "
+           + ", ".join(f"{i}: {fq(e, FREQUENCY, 6)}" for i, e in enumerate(q.levels)),
+           f"          qubit: levels {lo}->{hi} at {fq(q.larmor, FREQUENCY, 7)}"]
+    if q.leakage is not None:
+        a, b, f, el = q.leakage
+        out.append(f"          nearest leakage: {a}->{b} at {fq(abs(f), FREQUENCY, 6)} "
+                   f"({fq(q.leakage_gap, FREQUENCY)} from the qubit; matrix element {el:.3g})")
+    else:
+        out.append("          nearest leakage: none the drive connects")
+    return out
 
 
 def _range(lo: int, hi: int) -> str:
@@ -119,6 +178,9 @@ def render_text(s: Summary) -> str:
     for q in s.qubits:
         out.append(f"  {q.name:<7} {q.g:<10.5g} {fq(q.larmor, FREQUENCY, 7):<12} {fq(q.t1, TIME):<10} "
                    f"{fq(q.t2, TIME):<10} {fq(q.t2_star, TIME):<10} {q.preset or '-'}")
+    for q in s.qubits:
+        if q.spin_valley:
+            out += _ladder_lines(q)
     out.append("")
     if s.axes:
         for name, a, b, n, dim in s.axes:
@@ -153,7 +215,10 @@ def to_dict(s: Summary) -> dict:
         "device": {"name": s.device_name, "path": s.device_path, "field_T": s.field,
                    "temperature_K": s.temperature},
         "qubits": [{"name": q.name, "g": q.g, "larmor_Hz": q.larmor, "t1_s": q.t1, "t2_s": q.t2,
-                    "t2_star_s": q.t2_star, "preset": q.preset} for q in s.qubits],
+                    "t2_star_s": q.t2_star, "preset": q.preset,
+                    "levels_Hz": list(q.levels) if q.spin_valley else [0.0, q.larmor],
+                    "qubit_levels": list(q.qubit_levels),
+                    "leakage_gap_Hz": q.leakage_gap} for q in s.qubits],
         "runs": s.runs,
         "sweeps": [{"name": n, "first": a, "last": b, "points": k, "unit": d.symbol()}
                    for n, a, b, k, d in s.axes],

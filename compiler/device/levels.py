@@ -182,3 +182,45 @@ def near_hotspot(lad: Ladder, field: float) -> bool:
     Zeeman energy equals the valley splitting (Yang et al. 2013)."""
     return math.isfinite(lad.hotspot_field) and \
         abs(field - lad.hotspot_field) < HOTSPOT_WINDOW * lad.hotspot_field
+
+
+def qubit_basis(lad: Ladder) -> tuple[tuple[int, ...], np.ndarray, tuple[float, ...]]:
+    """The simulation's basis of a spin–valley dot: level order (qubit upper,
+    qubit lower, then the other levels from below), the eigenvectors in that
+    order with the upper qubit vector rephased so that ⟨upper|σ·n̂|lower⟩ is
+    real and ≥ 0 (the drive then turns about x at phase 0, as for a spin-1/2
+    whose index 0 is spin up), and the energies (Hz from the ground level)."""
+    lo, hi = lad.qubit
+    order = (hi, lo) + tuple(i for i in range(LEVELS) if i not in lad.qubit)
+    v = lad.vectors[:, order].copy()
+    el = lad.drive[hi, lo]
+    if abs(el) > 0:
+        v[:, 0] *= el / abs(el)
+    return order, v, tuple(lad.energies[i] for i in order)
+
+
+def relaxation_rates(lad: Ladder, t1: float, valley_t1: float, temperature: float
+                     ) -> list[tuple[int, int, float]]:
+    """Transition rates (from, to, 1/s) between the levels in the order of
+    :func:`qubit_basis`: downward Γ = (1/T1)·½Σ_a|⟨j|σ_a|i⟩|² + (1/T1_v)·½Σ_a|⟨j|τ_a|i⟩|²
+    (a spin flip between pure spin states relaxes at 1/T1, a valley flip at
+    1/T1_v; a level that mixes spin and valley, as at the hotspot E_Z = E_v,
+    relaxes through both: Yang et al., Nat. Commun. 4, 2069 (2013)), upward
+    Γ·e^{−hf/k_BT} (detailed balance)."""
+    from ..physics import K_B
+    order, v, e = qubit_basis(lad)
+    sp = [v.conj().T @ s @ v for s in SPIN]
+    va = [v.conj().T @ s @ v for s in VALLEY]
+    out = []
+    for i in range(LEVELS):
+        for j in range(LEVELS):
+            if e[i] <= e[j]:
+                continue
+            down = (0.5 * sum(abs(s[j, i]) ** 2 for s in sp) / t1
+                    + 0.5 * sum(abs(s[j, i]) ** 2 for s in va) / valley_t1)
+            if down <= 0:
+                continue
+            x = PLANCK * (e[i] - e[j]) / (K_B * temperature)
+            out.append((i, j, down))
+            out.append((j, i, down * math.exp(-x)))
+    return out

@@ -472,6 +472,10 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
                 valley[key] = _Val(p.extra(key), preset.node)
                 sources.append(f"{key}: {p.source(key)}")
     four = any(k in valley for k in VALLEY_KEYS)
+    if four and "g" in values and values["g"].value < 0:
+        r.error(values["g"].node, f"{path}.g must be positive for a spin–valley dot, got "
+                                  f"{values['g'].value:g}",
+                "the levels are ordered by energy; give |g| (graphene, silicon: g ≈ 2)")
     for key in ("valley_t1", "qubit_levels"):
         if key in m and not four:
             r.error(m[key][0], f"{path}.{key} is for a spin–valley dot",

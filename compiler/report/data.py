@@ -140,7 +140,8 @@ def _step(d: dict) -> StepFidelity:
     return StepFidelity(index=int(d["index"]), kind=str(d["kind"]),
                         qubits=tuple(d["qubits"]), label=str(d["label"]),
                         source=str(d["source"]), start=_num(d["start"]),
-                        duration=_num(d["duration"]), fidelity=_num(d["fidelity"]))
+                        duration=_num(d["duration"]), fidelity=_num(d["fidelity"]),
+                        leakage=_num(d.get("leakage", 0.0)))
 
 
 def _run(d: dict) -> RunResult:
@@ -162,6 +163,7 @@ def _run(d: dict) -> RunResult:
         traces={k: np.asarray([_num(x) for x in v], dtype=float) if isinstance(v, list) else v
                 for k, v in d.get("traces", {}).items()},
         stats=dict(d.get("stats", {})),
+        leakage=_num(d.get("leakage", 0.0)),
     )
 
 

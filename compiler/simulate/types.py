@@ -31,6 +31,7 @@ class StepFidelity:
     start: float               # s
     duration: float            # s
     fidelity: float            # average gate fidelity (Nielsen 2002)
+    leakage: float = 0.0       # population leaving the qubit levels, from the maximally mixed qubit state
 
 
 @dataclass(frozen=True)
@@ -58,6 +59,8 @@ class RunResult:
     budget_remainder: float = 0.0            # total − floor − Σ contributions (interaction)
     traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
     stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
+    leakage: float = 0.0                     # population outside the qubit levels at the end
+                                             # (from the declared initial state; spin–valley dots)
 
 
 @dataclass(frozen=True)

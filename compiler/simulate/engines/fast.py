@@ -2,8 +2,9 @@
 into clusters of dots that interact.
 
 This is the fast path for two levels per dot (the Pauli representation of
-:mod:`.pauli`); a model with other level counts is refused, and the
-reference engine (:mod:`.reference`) takes any.
+:mod:`.pauli`); a model with other level counts (spin–valley dots) takes the
+general path of :mod:`.levels` (the same method with complex
+superoperators), and the reference engine (:mod:`.reference`) takes any.
 
 Method (docs/simulate.md, "The fast engine"):
 
@@ -155,8 +156,8 @@ class FastEngine:
         replace ``rho0`` for registers too large for a dense density matrix;
         the result then holds only ``pauli``."""
         if any(lv != 2 for lv in model.levels):
-            raise NotImplementedError("the fast engine's Pauli representation is for two "
-                                      "levels per dot; use the reference engine")
+            return self._levels_average(model, points, rho0=rho0, process=process,
+                                        trace_points=trace_points, pauli0=pauli0)
         if pauli0 is not None:
             rho0 = np.asarray(pauli0, dtype=float)
         t0 = time.perf_counter()
@@ -196,6 +197,28 @@ class FastEngine:
         st["neglected_exchange_rad"] = self._neglected_now
         st["wall_s"] = time.perf_counter() - t0
         return Evolution(S, rho, traces, st, R_sum, r_sum)
+
+    def _levels_average(self, model, points, *, rho0, process, trace_points, pauli0):
+        """Models with dots of other than two levels: the general path (.levels)."""
+        if pauli0 is not None:
+            raise NotImplementedError("Pauli coefficients are for two-level dots only")
+        from .levels import LevelsPath
+        if getattr(self, "_levels", None) is None:
+            self._levels = LevelsPath(self)
+        stats0 = self.stats()
+        self._largest_now = 0
+        self._neglected_now = 0.0
+        with one_thread():
+            S, rho, traces, wall = self._levels.average(model, points, rho0=rho0,
+                                                        process=process,
+                                                        trace_points=trace_points)
+        self.calls += 1
+        now = self.stats()
+        st = {k: now[k] - stats0[k] for k in now}
+        st["largest_cluster"] = self._largest_now
+        st["neglected_exchange_rad"] = self._neglected_now
+        st["wall_s"] = wall
+        return Evolution(S, rho, traces, st)
 
     # -------------------------------------------------------------- preparation
 
