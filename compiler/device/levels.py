@@ -21,7 +21,9 @@ E_v and the Δ_SO·τz·sz term the spin–valley coupling that mixes |v−,↑�
 |v+,↓⟩ at E_Z = E_v: Yang et al., Nat. Commun. 4, 2069 (2013)).
 
 The qubit is a pair of eigenlevels: by default the ground level and the
-lowest level the spin operator connects to it (a spin flip).  Without valley
+lowest level the spin operator connects to it (a spin flip: at least half as
+strongly as the best connected level, so that a weak connection through
+spin–valley mixing does not count).  Without valley
 mixing τz commutes with H, so each valley is diagonalised on its own and a
 valley-degenerate pair keeps pure valley eigenvectors (K before K′ at equal
 energy).
@@ -160,13 +162,14 @@ def ladder(spin_orbit: float, valley_splitting: float, g_s: float, g_v: float, f
     n = n / np.linalg.norm(n)
     d = v.conj().T @ sum(c * s for c, s in zip(n, SPIN)) @ v
     if qubit is None:
-        upper = None
-        for j in range(1, LEVELS):
-            conn = sum(abs((v[:, j].conj() @ s @ v[:, 0])) ** 2 for s in SPIN)
-            if conn > CONNECT_TOL:
-                upper = j
-                break
-        qubit = (0, upper if upper is not None else 1)
+        # the lowest level the spin operator connects to the ground level at least half
+        # as strongly as the best connected one (a weak connection through spin–valley
+        # mixing does not make a spin flip)
+        conn = [sum(abs((v[:, j].conj() @ s @ v[:, 0])) ** 2 for s in SPIN) for j in range(LEVELS)]
+        best = max(conn[1:])
+        upper = next((j for j in range(1, LEVELS) if conn[j] > CONNECT_TOL
+                      and conn[j] >= 0.5 * best), 1)
+        qubit = (0, upper)
     f_q = e[qubit[1]] - e[qubit[0]]
     tol = DEGENERATE_RATIO * max(abs(f_q), 1.0)
     degenerate = tuple(b for b in range(LEVELS) if b not in qubit
