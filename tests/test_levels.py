@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from compiler.device import load_device_text
+from conftest import ROOT
 from compiler.device.levels import hamiltonian, ladder
 from compiler.errors import DeviceError
 from compiler.physics import H, MU_B, energy_to_frequency, larmor_frequency
@@ -177,3 +178,38 @@ def test_hotspot_warning_names_the_field():
         "    plunger: P_A\n", "    plunger: P_A\n    valley_splitting: 100 ueV\n"
                              "    spin_orbit: 0.5 ueV\n"), "sv.yaml")
     assert any("hotspot" in w.message for w in d.warnings)
+
+
+# ------------------------------------------------------------------ check output
+
+def test_check_prints_the_ladder_and_json_gives_levels(tmp_path):
+    import json
+
+    from compiler.check.summary import render_text, to_dict
+    from compiler import check_file
+    s = check_file(ROOT / "sequences" / "cnot_pair.dotseq")
+    text = render_text(s)
+    assert "levels from the ground level" in text and "qubit: levels 0->2" in text
+    q = {x["name"]: x for x in json.loads(json.dumps(to_dict(s)))["qubits"]}
+    lad = ladder(energy_to_frequency(65e-6), 0.0, 2.0, GV, 0.4, math.radians(3))
+    assert q["A"]["larmor_Hz"] == pytest.approx(lad.larmor, rel=1e-12)
+    assert q["A"]["levels_Hz"] == pytest.approx(list(lad.energies), abs=1e-3)
+    assert q["A"]["leakage_gap_Hz"] is None                  # nothing the drive connects
+
+
+def test_check_warns_when_a_short_burst_reaches_a_leakage_transition(tmp_path):
+    # valley-mixed dot: the drive connects a qubit level to a level about 330 MHz from the
+    # qubit transition; a 4 ns burst is about 250 MHz wide (common practice, no source)
+    lad = ladder(energy_to_frequency(40e-6), energy_to_frequency(0.5e-6), 2.0, 0.0, 0.3, 0.05)
+    assert lad.leakage() and lad.leakage_gap < 4e8
+    dev = DEVICE.replace("LO", f"{lad.larmor / 1e9:.6f} GHz").replace(
+        "    plunger: P_A\n", "    plunger: P_A\n    spin_orbit: 40 ueV\n    valley_splitting: 0.5 ueV\n"
+    ).replace("400 mT", "300 mT").replace("10 MHz/V", "100 MHz/V") + "field_tilt: 0.05 rad\n"
+    (tmp_path / "d.yaml").write_text(dev)
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\nrot A x 90 deg duration=4 ns\n')
+    from compiler import check_file
+    from compiler.check.summary import render_text
+    text = render_text(check_file(tmp_path / "s.dotseq"))
+    assert "reaches the leakage transition" in text
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\nrot A x 90 deg duration=400 ns\n')
+    assert "reaches the leakage transition" not in render_text(check_file(tmp_path / "s.dotseq"))

@@ -100,6 +100,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
                     if d > 0)
     warnings = [w.render("warning") for w in device.warnings]
     warnings += _leakage_warnings(device, qubits, timelines)
+    warnings += _valley_gap_warnings(device)
     worst: dict[str, object] = {}
     for tl in timelines:
         for w in tl.warnings:
@@ -148,6 +149,38 @@ def _leakage_warnings(device: Device, qubits, timelines) -> list[str]:
                        f"{fq(q.leakage_gap, FREQUENCY)} from the qubit transition "
                        f"(matrix element {el:.3g})\n  hint: lengthen the bursts (a Gaussian "
                        f"shape narrows the spectrum), or move the field to open the gap")
+    return out
+
+
+VALLEY_J_RATIO = 10.0    # the valley-polarised exchange needs the valley gap this far above J
+
+
+def _valley_gap_warnings(device: Device) -> list[str]:
+    """Exchange is simulated in the valley-polarised limit (J·S1·S2 on the spins,
+    identity on the valleys): it needs each spin–valley dot's gap from its
+    qubit levels to the other levels well above J and the drive."""
+    from ..device import exchange as X
+    out = []
+    for c in device.couplings:
+        v = c.pulse_voltage if c.pulse_voltage is not None else c.idle_voltage
+        lo, hi = X.v_range(c.exchange)
+        j = float(X.j_of_v(c.exchange, min(max(v, lo), hi)))
+        for q in c.dots:
+            d = device.dots[q]
+            if not d.spin_valley:
+                continue
+            lad = device.ladders[q]
+            gap = min(abs(lad.energies[b] - lad.energies[a]) for a in lad.qubit
+                      for b in range(len(lad.energies)) if b not in lad.qubit)
+            line = device.channels[d.drive.line]
+            rabi = device.rabi_per_volt(q) * max(abs(line.v_min), abs(line.v_max))
+            if gap < VALLEY_J_RATIO * max(j, rabi):
+                out.append(f"warning: dot {q}: the gap {fq(gap, FREQUENCY)} from its qubit levels "
+                           f"to the next level is not well above J = {fq(j, FREQUENCY)} "
+                           f"(couplings {c.dots[0]}-{c.dots[1]}) or the full-scale Rabi "
+                           f"frequency {fq(rabi, FREQUENCY)}\n  hint: exchange is simulated in "
+                           "the valley-polarised limit (spins only); tilt the field or raise the "
+                           "valley splitting")
     return out
 
 
