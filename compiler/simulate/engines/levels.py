@@ -58,6 +58,38 @@ def _at(o: np.ndarray, k: int, dims: tuple[int, ...]) -> np.ndarray:
     return out
 
 
+def _hermitian_basis(D: int) -> np.ndarray:
+    """T (D²×D², unitary): rows are vec(B_k)† of an orthonormal basis of
+    Hermitian D×D matrices (E_ii; (E_ij + E_ji)/√2 and i(E_ij − E_ji)/√2 for
+    i < j), column stacking.  A Hermiticity-preserving superoperator L is real
+    in it: T·L·T† is real (so its exponential costs a quarter of the complex
+    one)."""
+    rows = []
+    for i in range(D):
+        m = np.zeros((D, D), dtype=complex)
+        m[i, i] = 1
+        rows.append(m)
+    r2 = math.sqrt(0.5)
+    for i in range(D):
+        for j in range(i + 1, D):
+            m = np.zeros((D, D), dtype=complex)
+            m[i, j] = m[j, i] = r2
+            rows.append(m)
+            m = np.zeros((D, D), dtype=complex)
+            m[i, j], m[j, i] = 1j * r2, -1j * r2
+            rows.append(m)
+    return np.stack([m.reshape(-1, order="F").conj() for m in rows])
+
+
+_BASES: dict = {}
+
+
+def _basis(D: int) -> np.ndarray:
+    if D not in _BASES:
+        _BASES[D] = _hermitian_basis(D)
+    return _BASES[D]
+
+
 def _expm(A: np.ndarray) -> np.ndarray:
     if A.shape[-1] <= 64:
         return PL.expm_batch(A)
@@ -71,6 +103,7 @@ class LevelsPath:
     def __init__(self, engine):
         self.engine = engine
         self._cache: dict = {}
+        self._gens: dict = {}          # real generators per (model, cluster)
 
     # ------------------------------------------------------------------ public
     def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0):
@@ -223,12 +256,26 @@ class LevelsPath:
         else:
             starts = np.zeros(1, dtype=int)
         lengths = np.diff(np.append(starts, n_sub))
-        L = np.broadcast_to(static, (len(starts),) + static.shape).copy()
+        # in a Hermitian basis every generator is real (a quarter of the work)
+        T = _basis(int(round(math.sqrt(static.shape[0]))))
+        Th = T.conj().T
+        static_r = np.real(T @ static @ Th)
+        ck = (id(model), dots, pairs)
+        hit = self._gens.get(ck)
+        if hit is not None and hit[0] is model:
+            G_r = hit[1]
+        else:
+            G_r = (np.stack([np.real(T @ g @ Th) for g in G]) if len(G)
+                   else np.zeros((0,) + static_r.shape))
+            if len(self._gens) > 64:
+                self._gens.clear()
+            self._gens[ck] = (model, G_r)
+        L = np.broadcast_to(static_r, (len(starts),) + static_r.shape).copy()
         if C.shape[1]:
-            L += np.einsum("rt,tij->rij", C[starts].astype(complex), G)
+            L += np.einsum("rt,tij->rij", C[starts], G_r)
         mats = _expm(L * (model.h * lengths)[:, None, None])
         eng.exponentials += len(starts)
-        got = ordered_product(mats[None])[0]
+        got = Th @ ordered_product(mats[None])[0] @ T
         if len(self._cache) > eng.cache_entries:
             self._cache.clear()
         self._cache[key] = got
