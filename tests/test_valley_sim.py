@@ -136,3 +136,27 @@ def test_qubit_restriction_counts_leakage_as_error():
     S = np.kron(U.conj(), U)
     Sq = restrict_channel(S, V)
     assert leakage_of(Sq) == pytest.approx(0.5)
+
+
+@pytest.mark.slow
+def test_engines_agree_on_an_exchange_between_four_level_dots(tmp_path):
+    # J·S1·S2 between the two four-level dots of the bilayer demo pair, with drive, relaxation,
+    # the Zeeman difference and an off-centre noise point: fast engine against mesolve
+    # (slow: mesolve on 16 states with the 256 columns of the process; several minutes)
+    from conftest import SEQUENCES
+
+    from compiler import compile, load
+    from compiler.simulate.build import build_model
+    from compiler.simulate.model import noise_points
+    (tmp_path / "s.dotseq").write_text(
+        f'device "{SEQUENCES / "devices" / "demo_pair.yaml"}"\nprepare A B down\n'
+        "sqrtswap A B\nread A B\n")
+    c = load(tmp_path / "s.dotseq")
+    wf = compile(c).waveforms[0]
+    stop = next(r.start for r in wf.steps if r.kind == "read")
+    model = build_model(wf, c.device, m=2, stop=stop)
+    assert model.levels == (4, 4) and any(p.parts for p in model.pairs)
+    pt = noise_points(model, 3, "tensor")[4]
+    a = FastEngine().evolve(model, pt, process=True)
+    b = ReferenceEngine().evolve(model, pt, process=True)
+    assert np.abs(a.superop - b.superop).max() < 1e-7
