@@ -58,6 +58,3 @@ def exchange_phase(j_integral: float) -> float:
     """Exchange phase ∫J dt/ħ in rad from ∫(J/h) dt (dimensionless, Hz·s)."""
     return 2.0 * math.pi * j_integral
 
-
-# ∫(J/h) dt needed for each exchange gate; a phase of π/2 is √SWAP.
-EXCHANGE_TARGET = {"sqrtswap": 0.25, "sqrtswap_inv": 0.75, "swap": 0.5}

@@ -138,12 +138,17 @@ def leaf_steps(steps):
 
 
 def step_qubits(s: Step) -> tuple[str, ...]:
-    if isinstance(s, (Rotation, FrameRotation)):
-        return (s.qubit,)
-    if isinstance(s, ExchangeGate):
-        return (s.a, s.b)
-    if isinstance(s, (Idle, Readout)):
-        return s.qubits
-    if isinstance(s, Parallel):
-        return tuple(q for x in s.steps for q in step_qubits(x))
-    return ()
+    """The dots a step acts on (a trigger: none)."""
+    return STEP_QUBITS[type(s)](s)
+
+
+# The dots each kind of step acts on.
+STEP_QUBITS = {
+    Rotation: lambda s: (s.qubit,),
+    FrameRotation: lambda s: (s.qubit,),
+    ExchangeGate: lambda s: (s.a, s.b),
+    Idle: lambda s: s.qubits,
+    Readout: lambda s: s.qubits,
+    Trigger: lambda s: (),
+    Parallel: lambda s: tuple(q for x in s.steps for q in step_qubits(x)),
+}

@@ -30,7 +30,7 @@ from scipy.optimize import brentq
 from . import analog, shapes
 from .device import exchange as X
 from .device.model import Coupling, Device, RotationDefaults
-from .physics import EXCHANGE_TARGET
+from .steps import EXCHANGE_GATES
 
 SETTLE_TAUS = 12.0     # an exchange slot lasts until the RC tail is e^-12 ≈ 6e-6 of the step
 GL_NODES = 12          # Gauss–Legendre nodes per sample for ∫J(V(t))dt
@@ -234,7 +234,7 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
                      duration: float | None, amplitude: float | None) -> ExchangeDesign:
     model = coupling.exchange
     tau = analog.rc_tau(ch.rise_time)
-    target = EXCHANGE_TARGET[gate]
+    target = EXCHANGE_GATES[gate].integral
     idle = coupling.idle_voltage
     settle = math.ceil(SETTLE_TAUS * tau / dt) if tau > 0 else 0
     pre = 0
@@ -295,12 +295,6 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
 # Only the differential pre-phase ξ = (F_a − F_b)/2 − πδ·t0 matters before
 # the gate; after it, free frame updates (F' = F + ε) absorb the rest.
 
-SQRT_SWAP = np.array([[1, 0, 0, 0],
-                      [0, (1 + 1j) / 2, (1 - 1j) / 2, 0],
-                      [0, (1 - 1j) / 2, (1 + 1j) / 2, 0],
-                      [0, 0, 0, 1]], dtype=complex)
-SWAP = np.array([[1, 0, 0, 0], [0, 0, 1, 0], [0, 1, 0, 0], [0, 0, 0, 1]], dtype=complex)
-TARGETS = {"sqrtswap": SQRT_SWAP, "sqrtswap_inv": SQRT_SWAP.conj().T, "swap": SWAP}
 SUBSTEPS = 16   # piecewise-constant sub-steps per sample for the pair propagator
 
 
@@ -449,7 +443,7 @@ class PairGate:
 @lru_cache(maxsize=256)
 def _pair_gate_cached(design: ExchangeDesign, model, delta: float) -> PairGate:
     U = pair_propagator(design, model, delta)
-    T = TARGETS[design.gate]
+    T = EXCHANGE_GATES[design.gate].target
     xs = np.linspace(0, math.pi, 361, endpoint=False)
     vals = _best_post_many(_post_rows(U, T, xs))[0]
     x0 = xs[int(np.argmax(vals))]
@@ -483,7 +477,7 @@ def _post_table(design: ExchangeDesign, model, delta: float):
     [0, π], for interpolation (σ, η unwrapped along ξ)."""
     g = pair_gate(design, model, delta)
     xs = np.linspace(0.0, math.pi, TABLE_POINTS + 1)
-    rows = _post_rows(g.U_mean, TARGETS[design.gate], xs)
+    rows = _post_rows(g.U_mean, EXCHANGE_GATES[design.gate].target, xs)
     best, sg, et = _best_post_many(rows)
     # (σ, η) and (σ + π, η + π) are the same gate up to a global sign, and σ, η
     # are defined mod 2π: follow the branch continuously so interpolation is smooth

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 
 from compiler import pulses as PU
+from compiler.steps import EXCHANGE_GATES
 from compiler.device import load_device
 from conftest import SEQUENCES
 
@@ -29,7 +30,7 @@ def test_interpolated_post_phases_match_the_direct_search(gate):
     for xi in g.xi_best + np.linspace(-0.2, 0.2, 41) + math.pi * np.array([[0], [1], [-3]]):
         for x in np.atleast_1d(xi):
             a = PU.best_post_phases(d, C.exchange, DELTA, x)
-            b = PU._best_post(g.U_mean, PU.TARGETS[gate], x)
+            b = PU._best_post(g.U_mean, EXCHANGE_GATES[gate].target, x)
             same = abs(np.trace(_uq(g.U_mean, x, *a[1:]).conj().T @ _uq(g.U_mean, x, *b[1:]))) / 4
             assert 1 - same < 1e-12
             assert a[0] == pytest.approx(b[0], abs=1e-12)

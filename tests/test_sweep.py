@@ -526,3 +526,19 @@ def test_a_point_is_compiled_once(ramsey, monkeypatch):
     monkeypatch.setattr(PLAN, "KEEP_COMPILED_BYTES", 0)
     plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST)
     assert all(t.compiled is None for t in plan.tasks)
+
+
+def test_swept_device_gets_the_loader_warnings_too():
+    # The loader's rules are written once (compiler.device.rules.validate): a
+    # swept idle level that leaves the dots coupled between gates is warned
+    # about like in the file (J(idle)/J(pulse) > 1e-2; common practice, no
+    # source).  The sweep's own copy of the rules had no such warning.
+    pair = device_text(
+        extra_dot="  B: {g: 2.001, t1: 1 s, t2: 1 s, t2_star: 1 us, drive: {line: mw, "
+                  "rabi_per_volt: 100 MHz/V}, plunger: P_B}",
+        couplings="couplings:\n  - {dots: [A, B], barrier: B_AB, exchange: {model: exponential, "
+                  "j0: 20 kHz, v0: 40 mV}, idle_voltage: 0 mV, pulse_voltage: 300 mV}\n")
+    dev = load_device_text(pair, "d.yaml")
+    assert PR.cautions(dev) == []
+    ids = [cid for cid, _ in PR.cautions(PR.apply_device(dev, {"A-B.idle_voltage": 0.2}))]
+    assert ids == ["A-B.idle-exchange"]

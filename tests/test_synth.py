@@ -14,7 +14,7 @@ from compiler.device import load_device, load_device_text
 from compiler.errors import SynthesisError
 from compiler.expand import expand
 from compiler.parse import parse_text
-from compiler.pulses import SQRT_SWAP
+from compiler.steps import SQRT_SWAP
 from compiler.schedule import schedule
 from compiler.synth import as_played, synthesize
 from conftest import SEQUENCES
@@ -171,7 +171,7 @@ def test_sqrtswap_with_zeeman_difference_matches_its_frame_model():
     U = frame_unitary(wf, dev, m=8, ideal=True)
     T = SQRT_SWAP @ np.kron(np.diag([np.exp(-0.5j * math.radians(40)), np.exp(0.5j * math.radians(40))]), I2)
     f = gate_fidelity(U, T)
-    assert f == pytest.approx(ex.info["frame_fidelity"], abs=2e-5)
+    assert f == pytest.approx(ex.info.frame_fidelity, abs=2e-5)
     assert f > 0.9999
 
 

@@ -29,6 +29,53 @@ def _pair_span(s: P.ExchangeGate) -> Span | None:
     return a
 
 
+def _check_exchange(s: P.ExchangeGate, device: Device, known, add) -> None:
+    ok = known(s.a, s) & known(s.b, s)
+    if ok and device.coupling(s.a, s.b) is None:
+        partners = sorted({d for c in device.couplings if s.a in c.dots
+                           for d in c.dots if d != s.a})
+        add(_problem(f"dots {s.a} and {s.b} are not coupled in the device", s,
+                     f"{s.a} is coupled to: {', '.join(partners) or 'nothing'}; "
+                     "add a coupling to the device file or use a coupled pair",
+                     _pair_span(s)))
+
+
+def _check_readout(s: P.Readout, device: Device, known, add) -> None:
+    for q in s.qubits:
+        known(q, s)
+    if not device.readout.marker:
+        add(_problem("the device has no readout marker channel", s,
+                     "add readout: {marker: NAME, duration: ...} to the device file"))
+
+
+def _check_trigger(s: P.Trigger, device: Device, known, add) -> None:
+    if not device.readout.trigger_marker:
+        add(_problem("the device has no trigger marker channel", s,
+                     "add readout: {trigger_marker: NAME} to the device file"))
+
+
+def _check_qubits(s, device: Device, known, add) -> None:
+    for q in P.step_qubits(s):
+        known(q, s)
+
+
+def _check_group(s: P.Parallel, device: Device, known, add) -> None:
+    for m in s.steps:
+        CHECKS[type(m)](m, device, known, add)
+
+
+# What each kind of program step needs from the device.
+CHECKS = {
+    P.Rotation: _check_qubits,
+    P.FrameRotation: _check_qubits,
+    P.ExchangeGate: _check_exchange,
+    P.Idle: _check_qubits,
+    P.Readout: _check_readout,
+    P.Trigger: _check_trigger,
+    P.Parallel: _check_group,
+}
+
+
 def check(expanded: P.Expanded, device: Device) -> None:
     """Raise CheckError if any run asks for something the device lacks."""
     problems: dict[tuple, Problem] = {}
@@ -54,27 +101,6 @@ def check(expanded: P.Expanded, device: Device) -> None:
                             suggest(q, dots) or "dots: " + ", ".join(dots),
                             read_source_line(span.file, span.line)))
         for s in P.leaf_steps(run.steps):
-            if isinstance(s, P.ExchangeGate):
-                ok = known(s.a, s) & known(s.b, s)
-                if ok and device.coupling(s.a, s.b) is None:
-                    partners = sorted({d for c in device.couplings if s.a in c.dots
-                                       for d in c.dots if d != s.a})
-                    add(_problem(f"dots {s.a} and {s.b} are not coupled in the device", s,
-                                 f"{s.a} is coupled to: {', '.join(partners) or 'nothing'}; "
-                                 "add a coupling to the device file or use a coupled pair",
-                                 _pair_span(s)))
-            elif isinstance(s, P.Readout):
-                for q in s.qubits:
-                    known(q, s)
-                if not device.readout.marker:
-                    add(_problem("the device has no readout marker channel", s,
-                                 "add readout: {marker: NAME, duration: ...} to the device file"))
-            elif isinstance(s, P.Trigger):
-                if not device.readout.trigger_marker:
-                    add(_problem("the device has no trigger marker channel", s,
-                                 "add readout: {trigger_marker: NAME} to the device file"))
-            else:
-                for q in P.step_qubits(s):
-                    known(q, s)
+            CHECKS[type(s)](s, device, known, add)
     if problems:
         raise CheckError(list(problems.values()))

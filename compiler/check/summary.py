@@ -8,13 +8,14 @@ from dataclasses import dataclass, field
 from .. import program as P
 from ..device.model import Device
 from ..errors import Span
+from ..margin import Margin, coherence_margins
 from ..physics import COHERENCE_RULE
 from ..schedule import Timeline
+from ..steps import GATE_KINDS, KINDS
 from ..units import FIELD, FREQUENCY, NONE, TEMPERATURE, TIME, Dim, format_quantity as fq
 
-GATE_KINDS = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "zcorrect")
-KIND_ORDER = ("rot", "zrot", "sqrtswap", "sqrtswap_inv", "swap", "wait", "read", "trigger",
-              "phasewait", "zcorrect")
+# step counts are printed in the order of the table of step kinds
+KIND_ORDER = tuple(KINDS)
 
 
 @dataclass(frozen=True)
@@ -42,15 +43,6 @@ class Longest:
     qubits: tuple[str, ...]
     duration: float
     span: Span
-
-
-@dataclass(frozen=True)
-class Margin:
-    qubit: str
-    t2: float
-    longest: float       # s, longest gate acting on this qubit
-    ratio: float
-    flagged: bool
 
 
 @dataclass(frozen=True)
@@ -84,20 +76,11 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     kinds = [k for k in KIND_ORDER if any(c[k] for c in per_run)]
     counts = tuple((k, min(c[k] for c in per_run), max(c[k] for c in per_run)) for k in kinds)
     longest: Longest | None = None
-    per_qubit: dict[str, float] = {}
     for tl in timelines:
         for s in tl.slots:
-            if s.kind not in GATE_KINDS:
-                continue
-            qs = s.qubits
-            if longest is None or s.duration > longest.duration:
-                longest = Longest(s.kind, qs, s.duration, s.span)
-            for q in qs:
-                per_qubit[q] = max(per_qubit.get(q, 0.0), s.duration)
-    margins = tuple(Margin(q, device.dots[q].t2, d, device.dots[q].t2 / d,
-                           device.dots[q].t2 / d < COHERENCE_RULE)
-                    for q, d in sorted(per_qubit.items(), key=lambda kv: list(device.dots).index(kv[0]))
-                    if d > 0)
+            if s.kind in GATE_KINDS and (longest is None or s.duration > longest.duration):
+                longest = Longest(s.kind, s.qubits, s.duration, s.span)
+    margins = coherence_margins(timelines, device)
     warnings = [w.render("warning") for w in device.warnings]
     warnings += _leakage_warnings(device, qubits, timelines)
     warnings += _valley_gap_warnings(device)

@@ -1,8 +1,16 @@
 """Exchange strength J(V) of a barrier gate: evaluation, slope and inverse.
 
-Pure functions on :class:`~compiler.device.model.ExchangeModel`.  J is the
+One frozen class per model, all with the same small interface
+(:class:`ExchangeModel`): ``j(v)``, ``dj_dv(v)``, ``v(j)``, ``v_range()``,
+``scaled(s)`` (J multiplied by s) and ``check()``; :data:`MODELS` is the
+table of them by the name a device file gives (``model: ...``).  J is the
 singlet–triplet splitting of H = J·S1·S2, stored as the frequency J/h in Hz;
-barrier voltages V are in volts.  Every model makes J rise with V.
+barrier voltages V are in volts.  Every model makes J rise with V.  A new
+model is one class here and one entry in :data:`MODELS`; the loader reads
+its keys from the class (``REQUIRED``, ``OPTIONAL``, ``ENERGIES``).
+
+The functions :func:`j_of_v`, :func:`dj_dv`, :func:`v_of_j` and
+:func:`v_range` are the same calls written as functions of the model.
 
 Models
 ------
@@ -21,15 +29,13 @@ table
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, replace
 from functools import lru_cache
+from typing import ClassVar
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 from scipy.optimize import brentq
-
-from .model import ExchangeModel
-
-KINDS = ("exponential", "hubbard", "table")
 
 
 def _out(x: np.ndarray) -> float | np.ndarray:
@@ -69,174 +75,263 @@ def _table_interp(volts: tuple[float, ...], joules: tuple[float, ...]) -> PchipI
                              extrapolate=False)
 
 
-def _check_table(model: ExchangeModel) -> None:
-    v = np.asarray(model.volts, float)
-    j = np.asarray(model.joules, float)
-    if v.size < 2 or v.size != j.size:
-        raise ValueError("an exchange table needs at least 2 (V, J) points of equal count")
-    if not (np.all(np.isfinite(v)) and np.all(np.isfinite(j))):
-        raise ValueError("exchange table values must be finite")
-    if np.any(np.diff(v) <= 0):
-        raise ValueError("exchange table voltages must strictly increase")
-    if np.any(j <= 0) or np.any(np.diff(j) <= 0):
-        raise ValueError("exchange table J values must be positive and strictly increase")
+class ExchangeModel:
+    """J(V) of a barrier gate: J/h in Hz as a function of barrier voltage V.
+
+    The interface every model class implements.  ``kind`` is the name in the
+    device file; ``REQUIRED``/``OPTIONAL`` are its keys there, ``ENERGIES``
+    the keys given as an energy (eV) or a frequency E/h; ``SWEEPABLE`` the
+    parameters a sweep may set directly (besides ``j_scale``, which every
+    model takes through :meth:`scaled`).
+    """
+
+    kind: ClassVar[str] = ""
+    REQUIRED: ClassVar[tuple[str, ...]] = ()
+    OPTIONAL: ClassVar[tuple[str, ...]] = ()
+    ENERGIES: ClassVar[tuple[str, ...]] = ()
+    SWEEPABLE: ClassVar[tuple[str, ...]] = ()
+
+    # ------------------------------------------------ what each model writes
+    def check(self) -> None:
+        """Raise ``ValueError`` when the parameters make no valid model."""
+        raise NotImplementedError
+
+    def v_range(self) -> tuple[float, float]:
+        """Voltages (V) on which J(V) is defined: ``(-inf, inf)`` for closed forms."""
+        return -math.inf, math.inf
+
+    def positive(self) -> bool:
+        """Whether J > 0 on the whole range (False: the parameters are unphysical)."""
+        raise NotImplementedError
+
+    def scaled(self, s: float) -> "ExchangeModel":
+        """The same model with J multiplied by ``s`` at every voltage."""
+        raise NotImplementedError
+
+    def _j(self, v: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def _slope(self, v: np.ndarray, j: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def _v(self, j: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    # ------------------------------------------------ shared
+    def j(self, v: float | np.ndarray) -> float | np.ndarray:
+        """Exchange J/h (Hz) at barrier voltage(s) ``v`` (V), same shape.
+
+        Raises ``ValueError`` outside :meth:`v_range` or for an invalid model.
+        """
+        self.check()
+        v = np.asarray(v, float)
+        self._in_range(v)
+        return _out(self._j(v))
+
+    def dj_dv(self, v: float | np.ndarray) -> float | np.ndarray:
+        """Slope d(J/h)/dV in Hz/V, used to turn voltage noise into J noise."""
+        self.check()
+        v = np.asarray(v, float)
+        j = np.asarray(self.j(v))
+        return _out(self._slope(v, j))
+
+    def v(self, j: float | np.ndarray) -> float | np.ndarray:
+        """Barrier voltage (V) giving exchange ``j`` (Hz, > 0); inverse of :meth:`j`."""
+        self.check()
+        j = np.asarray(j, float)
+        if not np.all(np.isfinite(j)) or np.any(j <= 0):
+            raise ValueError("exchange J must be positive and finite to find its voltage")
+        return _out(self._v(j))
+
+    def _in_range(self, v: np.ndarray) -> None:
+        lo, hi = self.v_range()
+        if lo == -math.inf and hi == math.inf:
+            return
+        if not np.all(np.isfinite(v)):
+            raise ValueError("barrier voltage must be finite")
+        if np.any(v < lo) or np.any(v > hi):
+            bad = float(v[(v < lo) | (v > hi)].flat[0]) if v.ndim else float(v)
+            raise ValueError(f"barrier voltage {bad:g} V is outside the exchange table "
+                             f"[{lo:g} V, {hi:g} V]; extend the calibration table")
 
 
-def _check_params(model: ExchangeModel) -> None:
-    if model.kind == "exponential":
-        if not (model.j0 > 0 and model.v0 > 0):
+@dataclass(frozen=True)
+class Exponential(ExchangeModel):
+    """J = j0·exp(V/v0) (common practice, no single source)."""
+
+    j0: float                # Hz
+    v0: float                # V
+
+    kind: ClassVar[str] = "exponential"
+    REQUIRED: ClassVar[tuple[str, ...]] = ("j0", "v0")
+    SWEEPABLE: ClassVar[tuple[str, ...]] = ("j0",)
+
+    def check(self) -> None:
+        if not (self.j0 > 0 and self.v0 > 0):
             raise ValueError("exponential exchange needs j0 > 0 and v0 > 0")
-    elif model.kind == "hubbard":
-        if not (model.t0 > 0 and model.vt > 0 and model.u > 0):
-            raise ValueError("hubbard exchange needs t0 > 0, vt > 0 and u > 0")
-        if not abs(model.detuning) < model.u:
-            raise ValueError("hubbard exchange needs |detuning| < u")
-    elif model.kind == "table":
-        _check_table(model)
-    else:
-        raise ValueError(f"unknown exchange model '{model.kind}'; known: {', '.join(KINDS)}")
 
+    def positive(self) -> bool:
+        return self.j0 > 0
+
+    def scaled(self, s: float) -> "Exponential":
+        return replace(self, j0=self.j0 * s)
+
+    def _j(self, v):
+        return self.j0 * np.exp(v / self.v0)
+
+    def _slope(self, v, j):
+        return j / self.v0
+
+    def _v(self, j):
+        return self.v0 * np.log(j / self.j0)
+
+
+@dataclass(frozen=True)
+class Hubbard(ExchangeModel):
+    """J = 4·t(V)²·U/(U² − ε²), t(V) = t0·exp(V/vt) (Burkard, Loss &
+    DiVincenzo, PRB 59, 2070 (1999)); t0, U, ε as E/h in Hz."""
+
+    t0: float                # Hz  tunnel coupling at V = 0, t/h
+    vt: float                # V   voltage scale of t
+    u: float                 # Hz  charging energy U/h
+    detuning: float = 0.0    # Hz  ε/h
+
+    kind: ClassVar[str] = "hubbard"
+    REQUIRED: ClassVar[tuple[str, ...]] = ("t0", "vt", "u")
+    OPTIONAL: ClassVar[tuple[str, ...]] = ("detuning",)
+    ENERGIES: ClassVar[tuple[str, ...]] = ("t0", "u", "detuning")
+
+    def check(self) -> None:
+        if not (self.t0 > 0 and self.vt > 0 and self.u > 0):
+            raise ValueError("hubbard exchange needs t0 > 0, vt > 0 and u > 0")
+        if not abs(self.detuning) < self.u:
+            raise ValueError("hubbard exchange needs |detuning| < u")
+
+    def positive(self) -> bool:
+        return self.t0 > 0
+
+    def scaled(self, s: float) -> "Hubbard":
+        return replace(self, t0=self.t0 * math.sqrt(s))     # J ∝ t²
+
+    def tunnel(self, v: float) -> float:
+        """Tunnel coupling t/h (Hz) at barrier voltage ``v``."""
+        return self.t0 * math.exp(v / self.vt)
+
+    def _j(self, v):
+        return _hubbard_j(self.t0 * np.exp(v / self.vt), self.u, self.detuning)
+
+    def _slope(self, v, j):
+        return 2.0 * j / self.vt
+
+    def _v(self, j):
+        u, eps = self.u, self.detuning
+        t = np.sqrt(j * (u * u - eps * eps) / (4.0 * u))
+        return self.vt * np.log(t / self.t0)
+
+
+@dataclass(frozen=True)
+class Table(ExchangeModel):
+    """Calibration points (V_i, J_i), J interpolated monotonically (PCHIP in
+    log J; Fritsch & Carlson 1980) and never extrapolated."""
+
+    volts: tuple[float, ...]     # V
+    joules: tuple[float, ...]    # Hz (J/h values; name kept short)
+
+    kind: ClassVar[str] = "table"
+    REQUIRED: ClassVar[tuple[str, ...]] = ("points",)
+
+    def check(self) -> None:
+        v = np.asarray(self.volts, float)
+        j = np.asarray(self.joules, float)
+        if v.size < 2 or v.size != j.size:
+            raise ValueError("an exchange table needs at least 2 (V, J) points of equal count")
+        if not (np.all(np.isfinite(v)) and np.all(np.isfinite(j))):
+            raise ValueError("exchange table values must be finite")
+        if np.any(np.diff(v) <= 0):
+            raise ValueError("exchange table voltages must strictly increase")
+        if np.any(j <= 0) or np.any(np.diff(j) <= 0):
+            raise ValueError("exchange table J values must be positive and strictly increase")
+
+    def v_range(self) -> tuple[float, float]:
+        self.check()
+        return float(self.volts[0]), float(self.volts[-1])
+
+    def positive(self) -> bool:
+        return all(j > 0 for j in self.joules)
+
+    def scaled(self, s: float) -> "Table":
+        return replace(self, joules=tuple(j * s for j in self.joules))
+
+    def _interp(self) -> PchipInterpolator:
+        return _table_interp(self.volts, self.joules)
+
+    def _j(self, v):
+        return np.exp(self._interp()(v))
+
+    def _slope(self, v, j):
+        return j * self._interp().derivative()(v)
+
+    def _v(self, j):
+        jmin, jmax = self.joules[0], self.joules[-1]
+        # accept the table's end values up to rounding (exp(log J) is not exactly J)
+        j = np.where(np.abs(j - jmin) <= 1e-12 * jmin, jmin, j)
+        j = np.where(np.abs(j - jmax) <= 1e-12 * jmax, jmax, j)
+        if np.any(j < jmin) or np.any(j > jmax):
+            bad = float(j[(j < jmin) | (j > jmax)].flat[0]) if j.ndim else float(j)
+            raise ValueError(f"exchange {bad:g} Hz is outside the table range "
+                             f"[{jmin:g} Hz, {jmax:g} Hz]; extend the calibration table")
+        interp = self._interp()
+        v0, v1 = self.volts[0], self.volts[-1]
+
+        def root(target: float) -> float:
+            y = math.log(target)
+            if y <= interp(v0):
+                return float(v0)
+            if y >= interp(v1):
+                return float(v1)
+            return brentq(lambda x: float(interp(x)) - y, v0, v1, xtol=1e-15)
+
+        flat = np.array([root(float(x)) for x in j.ravel()])
+        return flat.reshape(j.shape)
+
+
+# The exchange models by the name a device file gives them.
+MODELS: dict[str, type[ExchangeModel]] = {m.kind: m for m in (Exponential, Hubbard, Table)}
+KINDS = tuple(MODELS)
+
+
+# ------------------------------------------------------------ the same as functions
 
 def v_range(model: ExchangeModel) -> tuple[float, float]:
-    """Voltages on which J(V) is defined.
-
-    Parameters
-    ----------
-    model : ExchangeModel
-
-    Returns
-    -------
-    (float, float), V
-        ``(V_first, V_last)`` of a table; ``(-inf, inf)`` for closed forms.
-    """
-    _check_params(model)
-    if model.kind == "table":
-        return float(model.volts[0]), float(model.volts[-1])
-    return -math.inf, math.inf
-
-
-def _in_range(model: ExchangeModel, v: np.ndarray) -> None:
-    lo, hi = v_range(model)
-    if not np.all(np.isfinite(v)):
-        raise ValueError("barrier voltage must be finite")
-    if np.any(v < lo) or np.any(v > hi):
-        bad = float(v[(v < lo) | (v > hi)].flat[0]) if v.ndim else float(v)
-        raise ValueError(f"barrier voltage {bad:g} V is outside the exchange table "
-                         f"[{lo:g} V, {hi:g} V]; extend the calibration table")
+    """Voltages on which J(V) is defined: ``(V_first, V_last)`` of a table,
+    ``(-inf, inf)`` for closed forms (:meth:`ExchangeModel.v_range`)."""
+    model.check()
+    return model.v_range()
 
 
 def j_of_v(model: ExchangeModel, v: float | np.ndarray) -> float | np.ndarray:
-    """Exchange J/h at barrier voltage V.
-
-    Parameters
-    ----------
-    model : ExchangeModel
-    v : float or array_like, V
-        Barrier voltage(s).
-
-    Returns
-    -------
-    float or ndarray, Hz
-        J/h, same shape as ``v``.
-
-    Raises
-    ------
-    ValueError
-        A table is asked outside its voltage range, or the model is invalid.
+    """Exchange J/h (Hz) at barrier voltage V (:meth:`ExchangeModel.j`).
 
     Examples
     --------
-    >>> m = ExchangeModel("exponential", j0=1e4, v0=0.04)
-    >>> round(j_of_v(m, 0.0))
+    >>> round(j_of_v(Exponential(j0=1e4, v0=0.04), 0.0))
     10000
     """
-    _check_params(model)
-    v = np.asarray(v, float)
-    if model.kind == "exponential":
-        return _out(model.j0 * np.exp(v / model.v0))
-    if model.kind == "hubbard":
-        t = model.t0 * np.exp(v / model.vt)
-        return _out(_hubbard_j(t, model.u, model.detuning))
-    _in_range(model, v)
-    return _out(np.exp(_table_interp(model.volts, model.joules)(v)))
+    return model.j(v)
 
 
 def dj_dv(model: ExchangeModel, v: float | np.ndarray) -> float | np.ndarray:
-    """Slope dJ/dV of the exchange, used to turn voltage noise into J noise.
-
-    Parameters
-    ----------
-    model : ExchangeModel
-    v : float or array_like, V
-
-    Returns
-    -------
-    float or ndarray, Hz/V
-        d(J/h)/dV.  Exponential: J/v0; Hubbard: 2J/vt; table: J·d(ln J)/dV
-        of the PCHIP interpolant.
-    """
-    _check_params(model)
-    v = np.asarray(v, float)
-    j = np.asarray(j_of_v(model, v))
-    if model.kind == "exponential":
-        return _out(j / model.v0)
-    if model.kind == "hubbard":
-        return _out(2.0 * j / model.vt)
-    return _out(j * _table_interp(model.volts, model.joules).derivative()(v))
+    """Slope d(J/h)/dV in Hz/V (:meth:`ExchangeModel.dj_dv`).  Exponential:
+    J/v0; Hubbard: 2J/vt; table: J·d(ln J)/dV of the PCHIP interpolant."""
+    return model.dj_dv(v)
 
 
 def v_of_j(model: ExchangeModel, j: float | np.ndarray) -> float | np.ndarray:
-    """Barrier voltage giving exchange J/h (inverse of :func:`j_of_v`).
+    """Barrier voltage giving exchange J/h (:meth:`ExchangeModel.v`).
 
-    Parameters
-    ----------
-    model : ExchangeModel
-    j : float or array_like, Hz
-        Target J/h, > 0.
-
-    Returns
-    -------
-    float or ndarray, V
-
-    Raises
-    ------
-    ValueError
-        ``j`` ≤ 0, or outside the J range of a table.
-
-    Notes
-    -----
     Exponential: V = v0·ln(J/j0).  Hubbard: t = √(J(U² − ε²)/(4U)),
     V = vt·ln(t/t0).  Table: the unique root of the monotone interpolant
-    (Brent's method, to 1e-15 V).
+    (Brent's method, to 1e-15 V).  Raises ``ValueError`` for J ≤ 0 or outside
+    the J range of a table.
     """
-    _check_params(model)
-    j = np.asarray(j, float)
-    if not np.all(np.isfinite(j)) or np.any(j <= 0):
-        raise ValueError("exchange J must be positive and finite to find its voltage")
-    if model.kind == "exponential":
-        return _out(model.v0 * np.log(j / model.j0))
-    if model.kind == "hubbard":
-        u, eps = model.u, model.detuning
-        t = np.sqrt(j * (u * u - eps * eps) / (4.0 * u))
-        return _out(model.vt * np.log(t / model.t0))
-    jmin, jmax = model.joules[0], model.joules[-1]
-    # accept the table's end values up to rounding (exp(log J) is not exactly J)
-    j = np.where(np.abs(j - jmin) <= 1e-12 * jmin, jmin, j)
-    j = np.where(np.abs(j - jmax) <= 1e-12 * jmax, jmax, j)
-    if np.any(j < jmin) or np.any(j > jmax):
-        bad = float(j[(j < jmin) | (j > jmax)].flat[0]) if j.ndim else float(j)
-        raise ValueError(f"exchange {bad:g} Hz is outside the table range "
-                         f"[{jmin:g} Hz, {jmax:g} Hz]; extend the calibration table")
-    interp = _table_interp(model.volts, model.joules)
-    v0, v1 = model.volts[0], model.volts[-1]
-
-    def root(target: float) -> float:
-        y = math.log(target)
-        if y <= interp(v0):
-            return float(v0)
-        if y >= interp(v1):
-            return float(v1)
-        return brentq(lambda x: float(interp(x)) - y, v0, v1, xtol=1e-15)
-
-    flat = np.array([root(float(x)) for x in j.ravel()])
-    return _out(flat.reshape(j.shape))
+    return model.v(j)

@@ -4,15 +4,18 @@ The text is composed with ``yaml.SafeLoader`` into a node tree (no Python
 objects are built by YAML itself), so every value keeps its line and column.
 The reader walks the tree against the schema below, converts quantities to
 SI floats with :func:`compiler.units.parse_quantity`, collects every problem
-it finds, then checks the physics across sections (coherence times, Larmor
-frequency against the microwave band, channel kinds, exchange ranges) and
-raises one :class:`~compiler.errors.DeviceError` listing all of them.
+it finds, builds the :class:`Device` from what it could read, then checks
+the physics across sections with :func:`compiler.device.rules.validate`
+(coherence times, Larmor frequency against the microwave band, exchange
+ranges, ...), placing each finding at the value its key names, and raises
+one :class:`~compiler.errors.DeviceError` listing all of them.
 
 The file format is described key by key in ``docs/device.md``.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 from dataclasses import dataclass
@@ -27,13 +30,13 @@ from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
 from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
-                     format_quantity,
                      parse_quantity)
 from . import exchange as xch
 from . import levels as lv
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
                     Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
 from .presets import PRESETS
+from .rules import ERROR, validate
 
 # --------------------------------------------------------------------- schema
 
@@ -57,13 +60,11 @@ CHANNEL_ONLY = {"lo": ("iq",), "if_band": ("iq",), "bias_tee": ("iq", "gate")}
 
 COUPLING_KEYS = ("dots", "barrier", "exchange", "idle_voltage", "pulse_voltage",
                  "charge_noise", "detune")
-EXCHANGE_REQUIRED = {
-    "exponential": ("j0", "v0"),
-    "hubbard": ("t0", "vt", "u"),
-    "table": ("points",),
-}
-EXCHANGE_OPTIONAL = {"exponential": (), "hubbard": ("detuning",), "table": ()}
-EXCHANGE_ALL = ("model", "j0", "v0", "t0", "vt", "u", "detuning", "points")
+# every key of every exchange model (xch.MODELS), for the unknown-key check
+EXCHANGE_ALL = ("model",) + tuple(dict.fromkeys(
+    k for m in xch.MODELS.values() for k in m.REQUIRED + m.OPTIONAL))
+# how a model parameter is read: energies (eV or E/h) are listed by the model
+EXCHANGE_DIMS = {"j0": FREQUENCY, "v0": VOLTAGE, "vt": VOLTAGE}
 
 ROTATION_KEYS = ("mode", "shape", "amplitude", "duration", "sigmas", "edge")
 ROTATION_MODES = ("amplitude", "duration")
@@ -99,11 +100,6 @@ MIN_LENGTH_HINT = ("a generator's minimum waveform length is tens to thousands o
                    "make runs longer, end the sequence with a 'wait'")
 GRANULARITY_HINT = "a generator's length granularity is a few samples (1 to 64 is typical)"
 
-# Thresholds of the (non-fatal) warnings.
-IDLE_EXCHANGE_RATIO = 1e-2     # J(idle)/J(pulse) above this is worth a warning
-THERMAL_RATIO = 3.0            # h·f_L/(k_B·T) below this: weak spin polarisation
-RWA_RATIO = 0.1                # f_Rabi(full scale)/f_L above this: RWA doubtful
-HUBBARD_T_RATIO = 0.2          # t/(U − |ε|) above this: 4t²U/(U²−ε²) unreliable
 BANDWIDTH_RISE = 0.35          # t_rise = 0.35/f_3dB (common practice, no source)
 
 
@@ -140,6 +136,9 @@ class _Reader:
         # channels declared but unreadable: references to them are not
         # reported again as "not in channels"
         self.broken_channels: set[str] = set()
+        # device-file key ("dots.A.t2") -> the node of its value, to place
+        # the findings of rules.validate
+        self.nodes: dict[str, Node] = {}
 
     # ---------------------------------------------------------------- report
     def span(self, node: Node) -> Span:
@@ -311,6 +310,9 @@ class _Reader:
         """Read m[key] with ``fn(value_node, *args)``; None when absent or bad."""
         if key not in m:
             return None
+        path = next((a for a in args if isinstance(a, str)), None)
+        if path is not None:
+            self.nodes[path] = m[key][1]
         try:
             return _Val(fn(m[key][1], *args, **kw), m[key][1])
         except _Skip:
@@ -440,17 +442,7 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
         elif "preset" not in m:
             r.error(knode, f"{path} needs '{key}' (or a 'preset' to take it from)",
                     "presets: " + ", ".join(PRESETS))
-    # coherence: T2* <= T2 <= 2 T1 (Bloch relaxation; common practice, no source)
-    t1, t2, t2s = values.get("t1"), values.get("t2"), values.get("t2_star")
-    if t1 is not None and t2 is not None and t2.value > 2 * t1.value * (1 + 1e-12):
-        shown = format_distinct(t2.value, 2 * t1.value, TIME)
-        r.error(t2.node, f"{path}.t2 = {shown[0]} is longer than 2·T1 = {shown[1]}",
-                "T2 cannot exceed 2·T1: check the units of t1 and t2")
-    if t2 is not None and t2s is not None and t2s.value > t2.value * (1 + 1e-12):
-        shown = format_distinct(t2s.value, t2.value, TIME)
-        r.error(t2s.node, f"{path}.t2_star = {shown[0]} is longer "
-                          f"than the Hahn-echo T2 = {shown[1]}",
-                "an echo only removes dephasing, so T2* ≤ T2")
+    # T2* <= T2 <= 2 T1 and the other physical rules: rules.validate
     valley: dict[str, _Val] = {}
     for key in ("spin_orbit", "valley_splitting"):
         v = r.get(m, key, _energy_or_freq, r, f"{path}.{key}")
@@ -569,46 +561,54 @@ def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
         kind = r.choice(m["model"][1], f"{path}.model", xch.KINDS)
     except _Skip:
         return None
-    allowed = EXCHANGE_REQUIRED[kind] + EXCHANGE_OPTIONAL[kind]
+    cls = xch.MODELS[kind]
+    allowed = cls.REQUIRED + cls.OPTIONAL
     bad = False
     for key, (kn, _) in m.items():
         if key != "model" and key not in allowed:
             r.error(kn, f"{path}.{key} is not a parameter of the {kind} model "
                         f"(it takes {', '.join(allowed)})")
             bad = True
-    for key in EXCHANGE_REQUIRED[kind]:
+    for key in cls.REQUIRED:
         if key not in m:
             r.error(knode, f"{path} is missing the required key '{key}' of the {kind} model",
                     f"add '{KEY_EXAMPLES.get(key, key + ': ...')}'")
             bad = True
-    if kind == "exponential":
-        j0 = r.get(m, "j0", r.quantity, f"{path}.j0", FREQUENCY, positive=True)
-        v0 = r.get(m, "v0", r.quantity, f"{path}.v0", VOLTAGE, positive=True)
-        if bad or j0 is None or v0 is None:
-            return None
-        return _Val(ExchangeModel("exponential", j0=j0.value, v0=v0.value), vnode)
-    if kind == "hubbard":
-        t0 = r.get(m, "t0", _energy_or_freq, r, f"{path}.t0", positive=True)
-        vt = r.get(m, "vt", r.quantity, f"{path}.vt", VOLTAGE, positive=True)
-        u = r.get(m, "u", _energy_or_freq, r, f"{path}.u", positive=True)
-        eps = r.get(m, "detuning", _energy_or_freq, r, f"{path}.detuning")
-        eps_v = eps.value if eps else 0.0
-        if u is not None and eps is not None and not abs(eps_v) < u.value:
-            shown = format_distinct(abs(eps_v), u.value, FREQUENCY)
-            r.error(eps.node, f"{path}.detuning |ε| = {shown[0]}"
-                              f" (as ε/h) is not below the charging energy U/h = {shown[1]}",
-                    "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
-                    "charge moves to one dot)")
-            return None
-        if bad or None in (t0, vt, u):
-            return None
-        return _Val(ExchangeModel("hubbard", t0=t0.value, vt=vt.value, u=u.value,
-                                  detuning=eps_v), vnode)
-    pts = r.get(m, "points", _table_points, r, f"{path}.points")
-    if bad or pts is None:
+    params: dict[str, Any] = {}
+    for key in allowed:
+        if key == "points":
+            got = r.get(m, key, _table_points, r, f"{path}.points")
+            if got is not None:
+                params["volts"], params["joules"] = got.value
+        elif key in cls.ENERGIES:
+            got = r.get(m, key, _energy_or_freq, r, f"{path}.{key}",
+                        positive=key in cls.REQUIRED)
+        else:
+            got = r.get(m, key, r.quantity, f"{path}.{key}", EXCHANGE_DIMS[key], positive=True)
+        if got is None:
+            if key in cls.REQUIRED:
+                bad = True
+        elif key != "points":
+            params[key] = got.value
+    if bad:
         return None
-    volts, joules = pts.value
-    return _Val(ExchangeModel("table", volts=volts, joules=joules), vnode)
+    model = cls(**params)
+    try:
+        model.check()
+    except ValueError as e:
+        if not isinstance(model, xch.Hubbard):
+            r.error(knode, f"{path}: {e}")
+            return None
+        # the one rule a model's parameters can break beyond their own signs
+        u, eps = params.get("u"), params.get("detuning")
+        node = m["detuning"][1] if "detuning" in m else knode
+        shown = format_distinct(abs(eps or 0.0), u or 0.0, FREQUENCY)
+        r.error(node, f"{path}.detuning |ε| = {shown[0]}"
+                      f" (as ε/h) is not below the charging energy U/h = {shown[1]}",
+                "the Hubbard exchange 4t²U/(U²−ε²) needs |ε| < U (otherwise the "
+                "charge moves to one dot)")
+        return None
+    return _Val(model, vnode)
 
 
 def _energy_or_freq(node: Node, r: _Reader, path: str, positive: bool = False) -> float:
@@ -760,10 +760,6 @@ def _read_rotation(r: _Reader, kv: tuple[Node, Node]) -> tuple[RotationDefaults,
     if shape_v == "flattop" and "edge" not in m:
         r.error(knode, "rotation.shape is 'flattop' but rotation.edge is missing",
                 "e.g. 'edge: 5 ns' (length of each rising and falling edge)")
-    if mode_v == "duration" and dur is not None and edge is not None and shape_v == "flattop" \
-            and 2 * edge.value > dur.value:
-        r.error(edge.node, f"rotation.edge: two edges of {edge.node.value} do not fit in "
-                           f"rotation.duration {dur.node.value}")
     if len(r.problems.problems) > n_before:
         return None
     kw: dict = {"mode": mode_v, "shape": shape_v}
@@ -913,7 +909,7 @@ def _build(r: _Reader, root: Node) -> Device:
     plungers: dict[str, str] = {}
     for nm, d in raw_dots.items():
         path = f"dots.{nm}"
-        line = _need_channel(r, channels, d["drive"]["line"], f"{path}.drive.line", "iq")
+        _need_channel(r, channels, d["drive"]["line"], f"{path}.drive.line", "iq")
         _need_channel(r, channels, d["plunger"], f"{path}.plunger", "gate")
         pl = d["plunger"].value
         if pl in plungers:
@@ -921,6 +917,7 @@ def _build(r: _Reader, root: Node) -> Device:
                                        f"dot '{plungers[pl]}'", "each dot needs its own plunger gate")
         plungers.setdefault(pl, nm)
         g = d["values"]["g"].value
+        r.nodes[path] = d["node"]
         v = d["values"]
         valley = d["valley"]
         extra = {}
@@ -928,158 +925,71 @@ def _build(r: _Reader, root: Node) -> Device:
             extra = {k: valley[k].value for k in valley}
             if d["qubit_levels"] is not None:
                 extra["qubit_levels"] = d["qubit_levels"].value
-        dot = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
-                  t2_star=v["t2_star"].value,
-                  drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
-                              d["drive"]["span"],
-                              d["drive"]["direction"].value if d["drive"]["direction"] else None),
-                  plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"], **extra)
-        dots[nm] = dot
-        f_l = None
-        if fld is not None:
-            f_l = physics.larmor_frequency(g, fld.value)
-            if dot.spin_valley:
-                from .model import dot_ladder
-                lad = dot_ladder(dot, fld.value, tilt_v)
-                f_l = lad.larmor
-                _valley_warnings(r, nm, d, lad, fld.value)
-        if line is not None and fld is not None:
-            _check_larmor(r, nm, g, fld, line, d, f_l)
-        if line is not None and fld is not None:
-            full = d["drive"]["rabi"].value * max(abs(line.v_min), abs(line.v_max))
-            if full > RWA_RATIO * f_l:
-                r.warn(d["drive"]["rabi"].node,
-                       f"{path}.drive: Rabi frequency at full scale "
-                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[0]} exceeds "
-                       f"{RWA_RATIO:g}·f_L = "
-                       f"{format_distinct(full, RWA_RATIO * f_l, FREQUENCY)[1]}",
-                       "the rotating-wave approximation becomes doubtful at strong drive")
-            if temp is not None and physics.H * f_l < THERMAL_RATIO * physics.K_B * temp.value:
-                r.warn(d["node"], f"{path}: Zeeman energy h·f_L = h·{format_quantity(f_l, FREQUENCY)}"
-                                  f" is below {THERMAL_RATIO:g}·k_B·T at "
-                                  f"{format_quantity(temp.value, TEMPERATURE)}",
-                       "thermal initialisation and spin-to-charge readout will be poor; "
-                       "raise the field or lower the temperature")
+        dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
+                       t2_star=v["t2_star"].value,
+                       drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
+                                   d["drive"]["span"],
+                                   d["drive"]["direction"].value if d["drive"]["direction"]
+                                   else None),
+                       plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"],
+                       **extra)
 
     couplings: list[Coupling] = []
     for c in raw_couplings:
-        couplings.append(_check_coupling(r, c, channels, plungers))
+        couplings.append(_check_coupling(r, c, channels))
 
-    if rotation is not None:
-        rot, extra = rotation
-        amp = extra["amplitude"]
-        if amp is not None:
-            for nm, d in dots.items():
-                ch = channels.get(d.drive.line)
-                if ch is not None and amp.value > max(abs(ch.v_min), abs(ch.v_max)):
-                    r.error(amp.node, f"rotation.amplitude {amp.node.value} is above the range "
-                                      f"of drive line '{ch.name}' (dot {nm})",
-                            f"keep it within ±{format_quantity(max(abs(ch.v_min), abs(ch.v_max)), VOLTAGE)}")
-                    break
     if readout is not None:
         ro, refs = readout
         _need_channel(r, channels, refs["marker"], "readout.marker", "marker")
         if refs["trigger_marker"] is not None:
             _need_channel(r, channels, refs["trigger_marker"], "readout.trigger_marker", "marker")
 
+    # the device as far as it could be read (values not read are NaN and
+    # break no rule), checked against the physical rules written once
+    device = Device(name=name.value if name else "", path=r.file,
+                    field=fld.value if fld else math.nan,
+                    temperature=temp.value if temp else math.nan,
+                    dots=dots, couplings=tuple(couplings), channels=channels,
+                    rotation=rotation[0] if rotation else RotationDefaults(),
+                    readout=readout[0] if readout else Readout(),
+                    notes=notes.value if notes else "", field_tilt=tilt_v)
+    for f in validate(device):
+        node = _locate(r, root, f.key, f.near)
+        message = f.message
+        if f.key not in r.nodes and f.key.startswith("rotation."):
+            message += f" ({f.key} is not in the file: its default applies)"
+        (r.error if f.severity == ERROR else r.warn)(node, message, f.hint)
     if r.problems:
         raise _Skip
-    return Device(name=name.value, path=r.file, field=fld.value, temperature=temp.value,
-                  dots=dots, couplings=tuple(couplings), channels=channels,
-                  rotation=rotation[0] if rotation else RotationDefaults(),
-                  readout=readout[0] if readout else Readout(),
-                  notes=notes.value if notes else "", field_tilt=tilt_v,
-                  warnings=tuple(r.warnings.problems))
+    return dataclasses.replace(device, warnings=tuple(r.warnings.problems))
 
 
-def _valley_warnings(r: _Reader, nm: str, d: dict, lad, field: float) -> None:
-    """Valley degeneracy of a qubit level and a relaxation hotspot near the field."""
-    fq = lambda x: format_quantity(x, FREQUENCY, 5)  # noqa: E731
-    if lad.degenerate:
-        r.warn(d["node"], f"dots.{nm}: qubit level(s) {lad.qubit} (nearly) degenerate with "
-                          f"level(s) {', '.join(map(str, lad.degenerate))} (valley degeneracy)",
-               "lift it: tilt the field out of the plane (field_tilt) so the valley g-factor "
-               "splits the valleys, or give a valley_splitting")
-    if lv.near_hotspot(lad, field):
-        r.warn(d["node"], f"dots.{nm}: the field {format_quantity(field, FIELD)} is near the "
-                          f"spin–valley hotspot at {format_quantity(lad.hotspot_field, FIELD)} "
-                          f"(Zeeman energy {fq(lad.zeeman)} ≈ valley splitting)",
-               "spin relaxation is fast where E_Z = E_v (Yang et al., Nat. Commun. 4, 2069 "
-               "(2013)); move the field or the valley splitting away from it")
+def _locate(r: _Reader, root: Node, key: str, near: tuple[str, ...]) -> Node:
+    """The node of a finding's key in the file: the key itself, else the
+    first of ``near`` found, else the closest enclosing key, else the top."""
+    for k in (key,) + near:
+        if k in r.nodes:
+            return r.nodes[k]
+    k = key
+    while True:
+        parent = re.sub(r"(\.[^.\[]*|\[\d+\])$", "", k)
+        if parent == k or not parent:
+            return root
+        k = parent
+        if k in r.nodes:
+            return r.nodes[k]
 
 
-def _check_larmor(r: _Reader, nm: str, g: float, fld: _Val, line: Channel, d: dict,
-                  f_l: float | None = None) -> None:
-    """f_L = LO + IF must put IF inside the line's band (common practice, no source)."""
-    if f_l is None:
-        f_l = physics.larmor_frequency(g, fld.value)
-    if_needed = f_l - line.lo
-    if line.if_min <= if_needed <= line.if_max:
-        return
-    fq = lambda x: format_quantity(x, FREQUENCY, 6)  # noqa: E731
-    what = (f"|g| = {abs(g):g}" if d.get("valley") is None
-            else "qubit transition of the spin–valley levels")
-    r.error(d["drive"]["line"].node,
-            f"dots.{nm}: Larmor frequency {fq(f_l)} ({what} at "
-            f"{format_quantity(fld.value, FIELD)}) is not reachable on line '{line.name}': "
-            f"LO {fq(line.lo)} + IF band [{fq(line.if_min)}, {fq(line.if_max)}] covers "
-            f"{fq(line.lo + line.if_min)} to {fq(line.lo + line.if_max)}",
-            f"it needs IF = f_L − LO = {fq(if_needed)}; move the LO, widen if_band, or "
-            "check g and field")
-
-
-def _check_coupling(r: _Reader, c: dict, channels: dict, plungers: dict) -> Coupling:
+def _check_coupling(r: _Reader, c: dict, channels: dict) -> Coupling:
     a, b = c["pair"].value
     path = f"couplings[{c['index']}]"
     model: ExchangeModel = c["model"].value
-    barrier = _need_channel(r, channels, c["barrier"], f"{path}.barrier", "gate")
+    _need_channel(r, channels, c["barrier"], f"{path}.barrier", "gate")
     idle_v = c["idle"].value if c["idle"] else 0.0
     pulse_v = c["pulse"].value if c["pulse"] else None
-    lo, hi = xch.v_range(model)
-    for key, val in (("idle_voltage", c["idle"]), ("pulse_voltage", c["pulse"])):
-        if val is None:
-            continue
-        if barrier is not None and not barrier.v_min <= val.value <= barrier.v_max:
-            r.error(val.node, f"{path}.{key} {val.node.value} is outside the range of barrier "
-                              f"channel '{barrier.name}' "
-                              f"[{format_quantity(barrier.v_min, VOLTAGE)}, "
-                              f"{format_quantity(barrier.v_max, VOLTAGE)}]")
-        elif not lo <= val.value <= hi:
-            r.error(val.node, f"{path}.{key} {val.node.value} is outside the exchange table "
-                              f"[{format_quantity(lo, VOLTAGE)}, {format_quantity(hi, VOLTAGE)}]",
-                    "the table is never extrapolated: add a calibration point")
-    if c["pulse"] is not None and not pulse_v > idle_v:
-        r.error(c["pulse"].node, f"{path}.pulse_voltage {c['pulse'].node.value} is not above "
-                                 f"idle_voltage ({format_quantity(idle_v, VOLTAGE)})",
-                "J rises with barrier voltage: the exchange pulse must go above idle")
-    elif c["pulse"] is not None:
-        try:
-            j_idle = float(xch.j_of_v(model, idle_v))
-            j_pulse = float(xch.j_of_v(model, pulse_v))
-        except ValueError:
-            pass  # reported above
-        else:
-            if j_idle > IDLE_EXCHANGE_RATIO * j_pulse:
-                node = c["idle"].node if c["idle"] else c["pulse"].node
-                r.warn(node, f"{path}: exchange at idle {format_quantity(j_idle, FREQUENCY)} is "
-                             f"{j_idle / j_pulse:.2g} of the exchange at the pulse level "
-                             f"{format_quantity(j_pulse, FREQUENCY)}",
-                       "the dots stay coupled between gates; lower idle_voltage")
-            if model.kind == "hubbard":
-                t = model.t0 * math.exp(pulse_v / model.vt)
-                if t > HUBBARD_T_RATIO * (model.u - abs(model.detuning)):
-                    r.warn(c["pulse"].node,
-                           f"{path}: tunnel coupling t/h = {format_quantity(t, FREQUENCY)} at the "
-                           f"pulse level is not small against U − |ε|",
-                           "J = 4t²U/(U²−ε²) holds only for t ≪ U − |ε|")
-    for nm, off, kn in c["detune"]:
-        pl = None
-        for dot_pl, dot_nm in plungers.items():
-            if dot_nm == nm:
-                pl = channels.get(dot_pl)
-        if pl is not None and abs(off) > pl.v_max - pl.v_min:
-            r.error(kn, f"{path}.detune.{nm}: offset {format_quantity(off, VOLTAGE)} is larger "
-                        f"than the whole range of plunger '{pl.name}'")
+    r.nodes[path] = c["node"]
+    for nm, _, kn in c["detune"]:
+        r.nodes[f"{path}.detune.{nm}"] = kn
     return Coupling(dots=(a, b), barrier=c["barrier"].value, exchange=model,
                     idle_voltage=idle_v, pulse_voltage=pulse_v,
                     charge_noise=c["noise"].value if c["noise"] else 0.0,

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 from ..errors import Problem, Span
+from .exchange import ExchangeModel
 
 # What a generator channel can be (checked when loading; docs/device.md).
 # DAC widths: arbitrary waveform generators have 8 to 16 bits, precision DC
@@ -27,29 +28,6 @@ MAX_BITS = 24
 # 2^24 + 2^16 samples a run (about 17 ms at 1 GS/s).
 MAX_MIN_LENGTH = 2 ** 24       # samples
 MAX_GRANULARITY = 2 ** 16      # samples, also for the common multiple of all channels
-
-
-@dataclass(frozen=True)
-class ExchangeModel:
-    """J(V) of a barrier gate: J/h in Hz as a function of barrier voltage V.
-
-    kind:
-      * ``"exponential"``: J = j0·exp(V/v0)  (common practice, no single source)
-      * ``"hubbard"``: J = 4·t(V)²·U/(U² − ε²), t(V) = t0·exp(V/vt)
-        (Burkard, Loss & DiVincenzo, PRB 59, 2070 (1999); t0, U, ε as J/h in Hz)
-      * ``"table"``: calibration points (V_i, J_i), J interpolated
-        monotonically (PCHIP in log J) and never extrapolated.
-    """
-
-    kind: str
-    j0: float = 0.0          # Hz        (exponential)
-    v0: float = 0.0          # V         (exponential)
-    t0: float = 0.0          # Hz        (hubbard: tunnel coupling at V = 0, t/h)
-    vt: float = 0.0          # V         (hubbard: voltage scale of t)
-    u: float = 0.0           # Hz        (hubbard: charging energy U/h)
-    detuning: float = 0.0    # Hz        (hubbard: ε/h)
-    volts: tuple[float, ...] = ()   # V  (table)
-    joules: tuple[float, ...] = ()  # Hz (table: J/h values; name kept short)
 
 
 @dataclass(frozen=True)

@@ -1,5 +1,7 @@
-"""Putting a finished bundle folder in place without ever showing a half
-written one at the target path.
+"""Putting a finished output folder (bundle, report) or file (preview,
+sweep table and figure) in place without ever showing a half written one at
+the target path: the one writer every output goes through
+(:func:`output_state`, :func:`replace_folder`, :func:`write_file`).
 
 The writer fills a temporary folder beside the target (same parent, so the
 move is a rename on one file system), named ``.NAME.partial-PID-TOKEN``.
@@ -88,9 +90,53 @@ def is_bundle(folder: Path) -> bool:
             and read_format(folder) == FORMAT_NAME)
 
 
+def output_state(target: Path, overwrite: bool, *, what: str, is_ours, ours: str, fail_with,
+                 known: frozenset[str] | None = None) -> str:
+    """The one check of an output folder before a writer replaces it (the
+    bundle, the report; ``ABSENT``, ``EMPTY`` or ``BUNDLE`` = an earlier
+    output of this writer).
+
+    Refused, with an error built by ``fail_with(path, message, hint)``: a
+    symbolic link, a file, an unreadable folder, a folder ``is_ours`` does
+    not recognise (``ours`` says what it looks for), one of ours holding
+    entries not in ``known`` (when given: replacing would delete them), and
+    one of ours while ``overwrite`` is False.  Nothing is touched.
+    """
+    if not os.path.lexists(target):
+        return ABSENT
+    if target.is_symlink():
+        raise fail_with(target, "the output path is a symbolic link; dotseq does not replace "
+                                "links", "give the real folder, or choose another -o folder")
+    if not target.is_dir():
+        raise fail_with(target, f"the output path exists and is a file, not a dotseq {what}; "
+                                "nothing was written", "choose another -o folder")
+    try:
+        names = sorted(e.name for e in os.scandir(target))
+    except OSError as e:
+        raise fail_with(target, f"cannot read the output folder: {e.strerror or e}",
+                        "check its permissions or choose another -o folder") from None
+    if not names:
+        return EMPTY
+    if not is_ours(target):
+        raise fail_with(target, f"the output folder exists and is not a dotseq {what} (no "
+                                f"{ours}); nothing was written and nothing was deleted",
+                        "choose another -o folder (a new or empty one)")
+    foreign = [n for n in names if known is not None and n not in known]
+    if foreign:
+        shown = ", ".join(foreign[:3]) + (f" and {len(foreign) - 3} more" if len(foreign) > 3
+                                          else "")
+        raise fail_with(target, f"the output folder holds a dotseq {what} and other files "
+                                f"({shown}); replacing it would delete them, so nothing was "
+                                "written", "move those files out, or choose another -o folder")
+    if not overwrite:
+        raise fail_with(target, f"the output folder already holds a dotseq {what}",
+                        "allow overwriting, or choose another -o folder")
+    return BUNDLE
+
+
 def target_state(target: Path, overwrite: bool) -> str:
-    """What is at the target now: ``"absent"``, ``"empty"`` (an empty
-    folder) or ``"bundle"``.
+    """What is at the bundle target now: ``"absent"``, ``"empty"`` (an empty
+    folder) or ``"bundle"`` (:func:`output_state` for bundles).
 
     Raises
     ------
@@ -98,31 +144,67 @@ def target_state(target: Path, overwrite: bool) -> str:
         The target is a file, a symbolic link, a folder that is not a dotseq
         bundle, or a bundle while ``overwrite`` is False.  Nothing is touched.
     """
-    if not os.path.lexists(target):
-        return ABSENT
-    if target.is_symlink():
-        raise fail(target, "the output path is a symbolic link; dotseq does not replace links",
-                   "give the real folder, or choose another -o folder")
-    if not target.is_dir():
-        raise fail(target, "the output path exists and is a file, not a dotseq bundle; "
-                           "nothing was written",
-                   "choose another -o folder")
+    return output_state(target, overwrite, what="bundle", is_ours=is_bundle,
+                        ours=f"{MANIFEST_NAME} with format '{FORMAT_NAME}'", fail_with=fail)
+
+
+def replace_folder(target: Path, fill, state, fail_with, what: str) -> Path:
+    """The one way dotseq puts a finished output folder in place: ``fill(tmp)``
+    writes everything into a fresh temporary sibling of ``target``
+    (:func:`make_temp`); its folder entries are flushed to disk; ``state()``
+    (the writer's :func:`output_state`) is asked again, since the target may
+    have changed meanwhile, and :func:`publish` moves the folder in.
+
+    On an OSError the temporary folder is removed and the error becomes
+    ``fail_with(target, message, hint)`` (the target is left as it was); on
+    any other exception, including KeyboardInterrupt, it is removed and the
+    exception re-raised.
+    """
+    tmp = make_temp(target, fail_with)
     try:
-        empty = not any(os.scandir(target))
+        fill(tmp)
+        for root, dirs, _ in os.walk(tmp):
+            for d in dirs:
+                fsync_dir(Path(root) / d)
+        fsync_dir(tmp)
+        publish(tmp, target, state())
     except OSError as e:
-        raise fail(target, f"cannot read the output folder: {e.strerror or e}",
-                   "check its permissions or choose another -o folder") from None
-    if empty:
-        return EMPTY
-    if read_format(target) != FORMAT_NAME:
-        raise fail(target, f"the output folder exists and is not a dotseq bundle (no "
-                           f"{MANIFEST_NAME} with format '{FORMAT_NAME}'); nothing was "
-                           "written and nothing was deleted",
-                   "choose another -o folder (a new or empty one)")
-    if not overwrite:
-        raise fail(target, "the output folder already holds a dotseq bundle",
-                   "allow overwriting, or choose another -o folder")
-    return BUNDLE
+        remove(tmp)
+        where = getattr(e, "filename", None) or tmp
+        raise fail_with(target, f"could not write the {what} ({e.strerror or e}; at {where}); "
+                                "nothing was changed at the output folder",
+                        "check free disk space and permissions, or choose another -o folder") \
+            from None
+    except BaseException:
+        remove(tmp)
+        raise
+    return target
+
+
+def write_file(path: Path, write, mode: int | None = None) -> Path:
+    """The one way dotseq writes a single output file: ``write(f)`` fills a
+    hidden temporary file beside ``path`` (binary), which is flushed to disk
+    and renamed onto ``path``; a half-written file never sits at ``path``.
+    The file gets ``mode``, else the mode of the file it replaces, else
+    rw-r--r--.  OSError propagates after the temporary file is removed."""
+    tmp = path.parent / f".{path.name}.{PARTIAL}-{os.getpid()}-{secrets.token_hex(4)}"
+    try:
+        with open(tmp, "xb") as f:
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+        if mode is None:
+            mode = path.stat().st_mode & 0o777 if path.is_file() else 0o644
+        os.chmod(tmp, mode)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+    fsync_dir(path.parent)
+    return path
 
 
 def aside_name(target: Path, what: str, pid: int | None = None) -> Path:
@@ -227,12 +309,12 @@ def _newest_first(p: Path) -> tuple:
         return (0, p.name)
 
 
-def make_temp(target: Path) -> Path:
+def make_temp(target: Path, fail_with=fail) -> Path:
     """Create the temporary folder beside ``target`` (mode from the umask).
 
     Raises
     ------
-    BundleError
+    BundleError (or what ``fail_with`` builds)
         The parent folder is not writable.
     """
     for _ in range(100):
@@ -243,10 +325,11 @@ def make_temp(target: Path) -> Path:
         except FileExistsError:
             continue
         except OSError as e:
-            raise fail(target, f"cannot create a folder in {target.parent}: "
-                               f"{e.strerror or e}",
-                       "check that the folder is writable, or choose another -o folder") from None
-    raise fail(target, f"cannot find a free temporary name in {target.parent}")
+            raise fail_with(target, f"cannot create a folder in {target.parent}: "
+                                    f"{e.strerror or e}",
+                            "check that the folder is writable, or choose another -o folder") \
+                from None
+    raise fail_with(target, f"cannot find a free temporary name in {target.parent}", "")
 
 
 def publish(tmp: Path, target: Path, state: str) -> None:
@@ -415,10 +498,8 @@ def write_folder(out_dir, fill, *, marker: str, fmt: str, what: str, fail_with,
     except OSError:
         pass
     folder_state(target, marker, fmt, allow_unknown, fail_with, option)
-    tmp = None
-    try:
-        tmp = aside_name(target, PARTIAL)
-        os.mkdir(tmp)
+
+    def fill_and_mark(tmp: Path) -> None:
         extra = fill(tmp) or {}
         entries = {}
         for e in sorted(os.scandir(tmp), key=lambda e: e.name):
@@ -434,22 +515,10 @@ def write_folder(out_dir, fill, *, marker: str, fmt: str, what: str, fail_with,
             f.write(json.dumps(body, indent=2, sort_keys=True) + "\n")
             f.flush()
             os.fsync(f.fileno())
-        fsync_dir(tmp)
-        state = folder_state(target, marker, fmt, allow_unknown, fail_with, option)
-        publish(tmp, target, state)
-    except OSError as e:
-        if tmp is not None:
-            remove(tmp)
-        where = getattr(e, "filename", None) or tmp or target
-        raise fail_with(target, f"could not write the {what} ({e.strerror or e}; at {where}); "
-                        "nothing was changed at the output folder",
-                        "check free disk space and permissions, or choose another -o folder") \
-            from None
-    except BaseException:
-        if tmp is not None:
-            remove(tmp)
-        raise
-    return target
+
+    return replace_folder(target, fill_and_mark,
+                          lambda: folder_state(target, marker, fmt, allow_unknown, fail_with,
+                                               option), fail_with, what)
 
 
 __all__ = ["resolve_target", "target_state", "recover", "make_temp", "publish", "remove",

@@ -19,7 +19,7 @@ from ..synth.types import Waveforms
 from . import atomic
 from .errors import BundleError, at, fail
 from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, checked_cast,
-                    csv_bytes_bound, fsync_dir, npy_bytes, sha256_file, write_csv, write_npy,
+                    csv_bytes_bound, npy_bytes, sha256_file, write_csv, write_npy,
                     write_npy_rows)
 from .manifest import (ARRAYS_FOLDER, CSV_NAME, FORMAT_NAME, FORMAT_VERSION, MANIFEST_NAME, Plan,
                        build, check_runs, chunks, codes_file, output_file, pad_values,
@@ -84,8 +84,8 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
     except OSError:
         pass  # tidying is best effort; the checks below still protect the target
     atomic.target_state(target, overwrite)
-    tmp = atomic.make_temp(target)
-    try:
+
+    def fill(tmp: Path) -> None:
         written = _write_data(plan, tmp, csv)
         checksums = {rel: w.sha256 for rel, w in written.items()}
         sizes = {rel: w.size for rel, w in written.items()}
@@ -97,21 +97,9 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
             f.abort()
             raise
         f.close()
-        for sub in {Path(rel).parent for rel in written}:
-            fsync_dir(tmp / sub)
-        fsync_dir(tmp)
-        state = atomic.target_state(target, overwrite)  # again: it may have changed meanwhile
-        atomic.publish(tmp, target, state)
-    except OSError as e:
-        atomic.remove(tmp)
-        where = getattr(e, "filename", None) or tmp
-        raise fail(target, f"could not write the bundle ({e.strerror or e}; at {where}); "
-                           "nothing was changed at the output folder",
-                   "check free disk space and permissions, or choose another -o folder") from None
-    except BaseException:
-        atomic.remove(tmp)
-        raise
-    return target
+
+    return atomic.replace_folder(target, fill, lambda: atomic.target_state(target, overwrite),
+                                 fail, "bundle")
 
 
 def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:

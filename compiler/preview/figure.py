@@ -17,8 +17,6 @@ directly (no pyplot, no global state) and written atomically.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -30,6 +28,7 @@ from matplotlib.colors import to_rgba
 from matplotlib.patches import Patch, Rectangle
 from matplotlib.ticker import MaxNLocator
 
+from ..export import atomic
 from ..synth.types import Output, StepRecord, Waveforms
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity
 from . import style as S
@@ -637,41 +636,21 @@ def _metadata(fmt: str) -> dict:
 
 
 def save_atomic(fig: Figure, path: Path, fmt: str) -> Path:
-    """Write ``fig`` to ``path`` via a temporary file in the same folder and
-    :func:`os.replace`, so a half-written image never sits at ``path``.
+    """Write ``fig`` to ``path`` through the one output writer
+    (:func:`compiler.export.atomic.write_file`: a temporary file in the same
+    folder, flushed, then renamed), so a half-written image never sits at
+    ``path``.
 
     Raises
     ------
     PreviewError
         When the file cannot be written (permissions, full disk, ...).
     """
-    folder = path.parent if str(path.parent) else Path(".")
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=f".tmp{path.suffix}",
-                                   dir=folder)
+        return atomic.write_file(path, lambda fh: fig.canvas.print_figure(
+            fh, format=fmt, dpi=DPI, metadata=_metadata(fmt)))
     except OSError as exc:
         raise PreviewError(f"cannot write '{path}': {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fig.canvas.print_figure(fh, format=fmt, dpi=DPI, metadata=_metadata(fmt))
-        # mkstemp makes the file private (0600); give it the mode of the file
-        # it replaces, or the usual rw-r--r-- for a new one
-        os.chmod(tmp, path.stat().st_mode & 0o777 if path.exists() else 0o644)
-        os.replace(tmp, path)
-    except OSError as exc:
-        _remove(tmp)
-        raise PreviewError(f"cannot write '{path}': {exc.strerror or exc}") from None
-    except BaseException:
-        _remove(tmp)
-        raise
-    return path
-
-
-def _remove(tmp: str) -> None:
-    try:
-        os.unlink(tmp)
-    except OSError:
-        pass
 
 
 def preview(wf: Waveforms, out_path: str | Path, *, start: float | None = None,

@@ -8,20 +8,12 @@ from __future__ import annotations
 
 import math
 
-# Step boxes of the timeline strip, by StepRecord.kind: (face colour, hatch).
-STEP_STYLE: dict[str, tuple[str, str]] = {
-    "rot": ("#7fb3a6", ""),          # sage teal
-    "zrot": ("#9d8fc4", ""),         # soft lavender (zero-length mark)
-    "sqrtswap": ("#d9a47a", ""),     # clay
-    "sqrtswap_inv": ("#c99068", ""),
-    "swap": ("#b97c55", ""),
-    "wait": ("#e4e6ea", ""),         # pale grey
-    "read": ("#8fa9d6", ""),         # periwinkle
-    "trigger": ("#c8bf7a", ""),      # straw
-    "phasewait": ("#ffffff", "///"),  # inserted by the compiler: hatched
-    "zcorrect": ("#e9d8c8", "\\\\"),  # inserted 2π-burst phase correction: pale clay, back-hatched
-    "pad": ("#ffffff", "xx"),
-}
+from ..steps import KINDS
+
+# Step boxes of the timeline strip, by StepRecord.kind: (face colour, hatch),
+# from the table of step kinds (compiler.steps.KINDS, where each kind's
+# colours are written).
+STEP_STYLE: dict[str, tuple[str, str]] = {k: (v.face, v.hatch) for k, v in KINDS.items()}
 OTHER_STEP = ("#cfcfcf", "")
 STEP_EDGE = "#5b6470"
 HATCH_EDGE = "#8a8f99"
@@ -46,7 +38,7 @@ LARMOR_COLOURS = ("#a23b3b", "#3b6ea2", "#3b8a5a", "#8a6a1f", "#6a3b8a", "#1f7a7
 CAUTION_TEXT = ("Check voltages and microwave power against your sample's and "
                 "lab's limits before loading.")
 
-EXCHANGE_NAMES = {"sqrtswap": "√SWAP", "sqrtswap_inv": "√SWAP⁻¹", "swap": "SWAP"}
+EXCHANGE_NAMES = {k: v.name for k, v in KINDS.items() if v.ideal == "exchange"}
 
 
 def step_style(kind: str) -> tuple[str, str]:
@@ -90,49 +82,55 @@ def step_labels(kind: str, qubits: tuple[str, ...], params: dict) -> list[str]:
     list of str
         e.g. ``["x 90°", "x90"]``, ``["√SWAP A–B", "√SWAP"]``, ``["pad"]``.
     """
-    p = params or {}
-    if kind == "rot":
-        # the rotation axis' azimuth; synthesis calls it axis_phase_rad
-        axis = _axis(float(p.get("axis_phase_rad", p.get("phase_rad", 0.0))))
-        if "angle_rad" in p:
-            ang = _degrees(float(p["angle_rad"]))
-            return [f"{axis} {ang}", f"{axis}{ang}"]
-        return [f"rot {axis}", axis]
-    if kind == "zrot":
-        ang = p.get("angle_rad", p.get("frame_rad"))
-        return [f"z {_degrees(float(ang))}", "z"] if ang is not None else ["z"]
-    if kind in EXCHANGE_NAMES:
-        name = EXCHANGE_NAMES[kind]
-        if len(qubits) == 2:
-            return [f"{name} {qubits[0]}–{qubits[1]}", name, "ex"]
-        return [name, "ex"]
-    if kind == "pad":
-        return ["padding (end)", "pad", "p"]
-    if kind == "phasewait":
-        return ["phase wait (inserted)", "phasewait", "pw"]
-    if kind == "zcorrect":
-        return ["z-correct (inserted)", "zcorrect", "zc"]
-    if kind == "trigger":
-        label = str(p.get("label", "")).strip()
-        return ([f"trigger {label}"] if label else []) + ["trigger", "trig", "t"]
-    if kind == "read":
-        return ["read", "r"]
-    if kind == "wait":
-        return ["wait", "w"]
-    return [kind]
+    k = KINDS.get(kind)
+    if k is None:
+        return [kind]
+    return LABELS[k.label](k, qubits, params or {})
+
+
+def _rotation_labels(k, qubits, p: dict) -> list[str]:
+    # the rotation axis' azimuth; synthesis calls it axis_phase_rad
+    axis = _axis(float(p.get("axis_phase_rad", p.get("phase_rad", 0.0))))
+    if "angle_rad" in p:
+        ang = _degrees(float(p["angle_rad"]))
+        return [f"{axis} {ang}", f"{axis}{ang}"]
+    return [f"rot {axis}", axis]
+
+
+def _frame_labels(k, qubits, p: dict) -> list[str]:
+    ang = p.get("angle_rad", p.get("frame_rad"))
+    return [f"{k.name} {_degrees(float(ang))}", *k.labels] if ang is not None else list(k.labels)
+
+
+def _exchange_labels(k, qubits, p: dict) -> list[str]:
+    if len(qubits) == 2:
+        return [f"{k.name} {qubits[0]}–{qubits[1]}", *k.labels]
+    return list(k.labels)
+
+
+def _trigger_labels(k, qubits, p: dict) -> list[str]:
+    label = str(p.get("label", "")).strip()
+    return ([f"{k.name} {label}"] if label else []) + list(k.labels)
+
+
+# How each kind's label is made, by its ``label`` in compiler.steps.KINDS.
+LABELS = {
+    "rotation": _rotation_labels,
+    "frame": _frame_labels,
+    "exchange": _exchange_labels,
+    "trigger": _trigger_labels,
+    "fixed": lambda k, qubits, p: list(k.labels),
+}
 
 
 def kind_name(kind: str) -> str:
     """Short name of a step kind, for merged boxes of a dense timeline."""
-    return EXCHANGE_NAMES.get(kind, {"zrot": "z", "phasewait": "phase wait", "zcorrect": "z-corr",
-                                    "pad": "pad"}.get(kind, kind))
-
-
-# Dense timelines (steps narrower than a few pixels) are drawn as shares per
-# pixel column, without hatching: padding then gets a grey of its own.
-_DENSE = {"phasewait": "#b6bac3", "zcorrect": "#d9bfa6", "pad": "#d3d6dc"}
+    k = KINDS.get(kind)
+    return k.name if k is not None else kind
 
 
 def dense_colour(kind: str) -> str:
-    """Fill colour of a step kind in a dense (merged) timeline lane."""
-    return _DENSE.get(kind, step_style(kind)[0])
+    """Fill colour of a step kind in a dense (merged) timeline lane (no
+    hatching there: inserted time gets a grey of its own)."""
+    k = KINDS.get(kind)
+    return k.dense_colour if k is not None else OTHER_STEP[0]

@@ -16,29 +16,24 @@ function of the result; :func:`save_png` writes one.
 from __future__ import annotations
 
 import math
-from pathlib import Path
 from typing import Callable
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.colors import LinearSegmentedColormap
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
-from matplotlib.ticker import LogLocator, MaxNLocator, NullFormatter
+from matplotlib.ticker import MaxNLocator
 from matplotlib.transforms import blended_transform_factory
 
+from .. import figstyle as FS
+from ..figstyle import BEST_COLOUR, FIDELITY_MAP, FONT, HEIGHT, WIDTH, new_figure
+from ..figstyle import save_png  # noqa: F401  (write.py saves through this module)
 from ..preview import style as S
 from ..simulate.types import RunResult, SimulationResult
-from .fmt import (axis_scale, best_index, budget_rows, detail_index, fmt_fidelity, fmt_percent,
-                  fmt_sci, fmt_value, has_budget, sweep_metric, time_unit, trace_series,
+from ..numfmt import axis_scale, fmt_fidelity, fmt_percent, fmt_sci, fmt_value, time_unit
+from .fmt import (best_index, budget_rows, detail_index, has_budget, sweep_metric, trace_series,
                   traces_index)
 
-DPI = 110
-WIDTH = 10.0                 # in (1100 px)
-HEIGHT = 6.0                 # in (660 px)
-FONT = 10.0
-CHAR_IN = 0.58 * FONT / 72   # average glyph width at FONT, inches
 MAX_BARS = 16                # budget bars before the smallest sources are merged
 MAX_STEP_BARS = 40           # steps drawn as labelled horizontal bars; more: vertical
 MAX_LABEL = 44               # characters of a bar label
@@ -51,10 +46,7 @@ REMAINDER_COLOUR = S.Q_COLOUR       # sienna: sources acting together
 METRIC_COLOURS = {"process": S.I_COLOUR, "average": S.GATE_COLOURS[0], "state": S.Q_COLOUR}
 METRIC_NAMES = {"process": "process fidelity", "average": "average gate fidelity",
                 "state": "state fidelity"}
-BEST_COLOUR = S.CAUTION             # dark amber star and outline
 DOT_COLOURS = S.LARMOR_COLOURS      # one colour per dot, in register order
-FIDELITY_MAP = LinearSegmentedColormap.from_list(
-    "dotseq_fidelity", ["#f4f0e8", "#cfe1d9", "#7fb3a6", "#3f7d8a", "#2e4e6e"])
 
 FILES = ("budget.png", "steps.png", "populations.png", "sweep.png")
 CAPTIONS = {"budget.png": "Error budget", "steps.png": "Infidelity of each step",
@@ -64,82 +56,10 @@ CAPTIONS = {"budget.png": "Error budget", "steps.png": "Infidelity of each step"
 
 # ---------------------------------------------------------------- shared
 
-def new_figure(width: float = WIDTH, height: float = HEIGHT) -> Figure:
-    """A white figure of ``width`` x ``height`` inches with an Agg canvas."""
-    fig = Figure(figsize=(width, height), dpi=DPI, facecolor="white")
-    FigureCanvasAgg(fig)
-    return fig
-
-
-def save_png(fig: Figure, path: str | Path) -> None:
-    """Write ``fig`` as PNG at :data:`DPI` (no creation date in the file)."""
-    fig.canvas.print_figure(str(path), format="png", dpi=DPI,
-                            metadata={"Software": "dotseq report"})
-
-
-def _axes(fig: Figure, left: float, bottom: float, width: float, height: float):
-    """Axes placed in inches from the lower left corner."""
-    w, h = fig.get_size_inches()
-    ax = fig.add_axes((left / w, bottom / h, width / w, height / h))
-    _style(ax)
-    return ax
-
-
-def _style(ax, grid_axis: str = "both") -> None:
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-    for side in ("left", "bottom"):
-        ax.spines[side].set_color("#9aa0a8")
-    ax.tick_params(labelsize=FONT - 1, colors=S.TEXT, length=3)
-    ax.grid(True, axis=grid_axis, color=S.GRID, lw=0.8, which="major")
-    ax.set_axisbelow(True)
-    ax.xaxis.label.set_color(S.TEXT)
-    ax.yaxis.label.set_color(S.TEXT)
-
-
-def _titles(fig: Figure, title: str, subtitle: str = "") -> None:
-    w, h = fig.get_size_inches()
-    fig.text(0.25 / w, 1 - 0.22 / h, title, ha="left", va="top", fontsize=FONT + 3,
-             color=S.TEXT, weight="bold")
-    if subtitle:
-        fig.text(0.25 / w, 1 - 0.55 / h, subtitle, ha="left", va="top", fontsize=FONT - 0.5,
-                 color=S.MUTED_TEXT)
-
-
-def _footer(fig: Figure, text: str) -> None:
-    w, h = fig.get_size_inches()
-    fig.text(0.25 / w, 0.12 / h, text, ha="left", va="bottom", fontsize=FONT - 1.5,
-             color=S.MUTED_TEXT)
-
-
-def _short(text: str, n: int = MAX_LABEL) -> str:
-    text = str(text)
-    return text if len(text) <= n else text[: n - 1] + "…"
-
-
 def _run_name(result: SimulationResult, run: RunResult, micro: str = "µ") -> str:
     units = {n: u for n, _, u in result.axes}
     where = ", ".join(f"{n} = {fmt_value(v, units.get(n, ''), 4, micro)}" for n, v in run.sweep)
     return f"run {run.run_index}" + (f" ({where})" if where else "")
-
-
-def _log_limits(mags: np.ndarray) -> tuple[float, float]:
-    lo = 10.0 ** math.floor(math.log10(float(np.min(mags))))
-    hi = 10.0 ** math.ceil(math.log10(float(np.max(mags))) + 1e-9)
-    if hi <= lo * 10:
-        hi = lo * 10
-    return lo, hi
-
-
-def _log_ticks(ax, axis: str = "x") -> None:
-    a = ax.xaxis if axis == "x" else ax.yaxis
-    a.set_major_locator(LogLocator(base=10.0, numticks=12))
-    a.set_minor_locator(LogLocator(base=10.0, subs=np.arange(2, 10) * 0.1, numticks=12))
-    a.set_minor_formatter(NullFormatter())
-
-
-def _text_width_in(text: str, size: float = FONT - 1) -> float:
-    return len(text) * 0.58 * size / 72
 
 
 # ---------------------------------------------------------------- budget
@@ -162,21 +82,21 @@ def budget_figure(result: SimulationResult, i: int | None = None) -> Figure | No
     finite = np.isfinite(values)
     mags = np.abs(values[finite & (values != 0)])
     log = mags.size >= 2 and float(mags.max() / mags.min()) > 20.0
-    labels = [_short(r.label) for r in rows]
+    labels = [FS.short(r.label) for r in rows]
     colours = [{"source": SOURCE_COLOUR, "other": OTHER_COLOUR, "floor": FLOOR_COLOUR,
                 "remainder": REMAINDER_COLOUR}[r.kind] for r in rows]
     n = len(rows)
     height = max(HEIGHT, 1.9 + 0.34 * n)
     fig = new_figure(WIDTH, height)
-    left = min(max(max(_text_width_in(s) for s in labels) + 0.45, 1.6), 3.6)
+    left = min(max(max(FS.text_width_in(s) for s in labels) + 0.45, 1.6), 3.6)
     right = 1.9
-    ax = _axes(fig, left, 0.95, WIDTH - left - right, height - 0.95 - 1.05)
+    ax = FS.axes(fig, left, 0.95, WIDTH - left - right, height - 0.95 - 1.05)
     y = np.arange(n)[::-1].astype(float)
     if log:
-        lo, hi = _log_limits(mags)
+        lo, hi = FS.log_limits(mags)
         ax.set_xscale("log")
         ax.set_xlim(lo, hi)
-        _log_ticks(ax)
+        FS.log_ticks(ax)
         for yy, v, c in zip(y, values, colours):
             if not np.isfinite(v) or v == 0:
                 continue
@@ -213,10 +133,10 @@ def budget_figure(result: SimulationResult, i: int | None = None) -> Figure | No
                 ha="left", va="center", fontsize=FONT - 1, color=S.TEXT, family="monospace")
     if n > 2:  # a thin rule between the sources and the floor/remainder bars
         ax.axhline(1.5, color="#d8dbe0", lw=0.8)
-    _titles(fig, f"Error budget: {_run_name(result, run)}",
+    FS.titles(fig, f"Error budget: {_run_name(result, run)}",
             f"total infidelity {fmt_sci(total)} = floor + the sources' contributions + "
             "interaction remainder;  contribution = total − infidelity with that source off")
-    _footer(fig, "floor: infidelity left with every listed source off.  interaction "
+    FS.footer(fig, "floor: infidelity left with every listed source off.  interaction "
                  "remainder: total − floor − sum of contributions (sources acting together).")
     return fig
 
@@ -242,7 +162,7 @@ def steps_figure(result: SimulationResult, i: int | None = None) -> Figure | Non
     steps = list(run.steps)
     inf = np.array([1.0 - float(s.fidelity) for s in steps])
     pos = inf[np.isfinite(inf) & (inf > 0)]
-    lo, hi = _log_limits(pos) if pos.size else (1e-6, 1e-2)
+    lo, hi = FS.log_limits(pos) if pos.size else (1e-6, 1e-2)
     shown = np.where(np.isfinite(inf) & (inf > 0), inf, lo)
     colours = [_step_colour(s.kind)[0] for s in steps]
     n = len(steps)
@@ -251,16 +171,16 @@ def steps_figure(result: SimulationResult, i: int | None = None) -> Figure | Non
                 "against its ideal operation (log scale)")
     worst = int(np.nanargmax(np.where(np.isfinite(inf), inf, -np.inf)))
     if n <= MAX_STEP_BARS:
-        labels = [_short(f"#{s.index}  {s.label or s.kind}") for s in steps]
+        labels = [FS.short(f"#{s.index}  {s.label or s.kind}") for s in steps]
         height = max(HEIGHT, 1.9 + 0.27 * n)
         fig = new_figure(WIDTH, height)
-        left = min(max(max(_text_width_in(s) for s in labels) + 0.45, 1.6), 3.6)
+        left = min(max(max(FS.text_width_in(s) for s in labels) + 0.45, 1.6), 3.6)
         right = 1.2
-        ax = _axes(fig, left, 0.95, WIDTH - left - right, height - 0.95 - 1.05)
+        ax = FS.axes(fig, left, 0.95, WIDTH - left - right, height - 0.95 - 1.05)
         y = np.arange(n)[::-1].astype(float)
         ax.set_xscale("log")
         ax.set_xlim(lo, hi)
-        _log_ticks(ax)
+        FS.log_ticks(ax)
         ax.barh(y, shown - lo, left=lo, height=0.66, color=colours, edgecolor=S.STEP_EDGE,
                 lw=0.6)
         ax.set_yticks(y)
@@ -277,11 +197,11 @@ def steps_figure(result: SimulationResult, i: int | None = None) -> Figure | Non
         ax.set_xlabel("infidelity 1 − F  (log scale)", fontsize=FONT)
     else:
         fig = new_figure()
-        ax = _axes(fig, 1.0, 0.95, WIDTH - 1.4, HEIGHT - 0.95 - 1.25)
+        ax = FS.axes(fig, 1.0, 0.95, WIDTH - 1.4, HEIGHT - 0.95 - 1.25)
         x = np.arange(n)
         ax.set_yscale("log")
         ax.set_ylim(lo, hi * 10)   # a decade of room for the labels of the worst steps
-        _log_ticks(ax, "y")
+        FS.log_ticks(ax, "y")
         ax.bar(x, shown - lo, bottom=lo, width=0.85 if n < 400 else 1.0, color=colours, lw=0)
         ax.set_xlim(-0.5, n - 0.5)
         ax.xaxis.set_major_locator(MaxNLocator(nbins=12, integer=True))
@@ -300,7 +220,7 @@ def steps_figure(result: SimulationResult, i: int | None = None) -> Figure | Non
             if len(picked) == 5:
                 break
         for rank, k in enumerate(sorted(picked)):
-            ax.annotate(_short(f"#{steps[k].index} {steps[k].label or steps[k].kind}", 24),
+            ax.annotate(FS.short(f"#{steps[k].index} {steps[k].label or steps[k].kind}", 24),
                         (k, shown[k]), xytext=(0, 8 + 11 * (rank % 2)),
                         textcoords="offset points", ha="center", va="bottom",
                         fontsize=FONT - 2, color=S.TEXT,
@@ -309,9 +229,9 @@ def steps_figure(result: SimulationResult, i: int | None = None) -> Figure | Non
         ax.legend(handles=[Patch(color=_step_colour(k)[0], label=k) for k in kinds[:10]],
                   loc="lower right", bbox_to_anchor=(1.0, 1.01), ncol=min(len(kinds), 10),
                   fontsize=FONT - 2, frameon=False, handlelength=1.2, columnspacing=1.0)
-    _titles(fig, title, subtitle)
+    FS.titles(fig, title, subtitle)
     s = steps[worst]
-    _footer(fig, f"worst step: #{s.index} {s.label or s.kind} on {' '.join(s.qubits) or '-'} "
+    FS.footer(fig, f"worst step: #{s.index} {s.label or s.kind} on {' '.join(s.qubits) or '-'} "
                  f"({s.source}), 1 − F = {fmt_sci(inf[worst])}.  Colours: step kind, as in "
                  "the preview.")
     return fig
@@ -340,7 +260,7 @@ def populations_figure(result: SimulationResult, i: int | None = None) -> Figure
     strip_h = 0.26 * len(lanes) if run.steps else 0.0
     left, right = 1.1, 1.75
     main_h = HEIGHT - 0.95 - 1.1 - (strip_h + 0.12 if strip_h else 0.0)
-    ax = _axes(fig, left, 0.95, WIDTH - left - right, main_h)
+    ax = FS.axes(fig, left, 0.95, WIDTH - left - right, main_h)
     colour = {d: DOT_COLOURS[k % len(DOT_COLOURS)] for k, d in enumerate(lanes)}
     extra = [name for name, _ in curves if name not in colour]
     for k, name in enumerate(extra):
@@ -363,9 +283,9 @@ def populations_figure(result: SimulationResult, i: int | None = None) -> Figure
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False,
               fontsize=FONT - 1)
     if run.steps:
-        sx = _axes(fig, left, 0.95 + main_h + 0.12, WIDTH - left - right, strip_h)
+        sx = FS.axes(fig, left, 0.95 + main_h + 0.12, WIDTH - left - right, strip_h)
         _draw_strip(sx, run, lanes, scale, ax.get_xlim(), WIDTH - left - right)
-    _titles(fig, f"Spin-up probability: {_run_name(result, run)}",
+    FS.titles(fig, f"Spin-up probability: {_run_name(result, run)}",
             "P(spin up) of each dot in its qubit frame, from the simulated state; diamonds: "
             "the populations at readout")
     return fig
@@ -396,7 +316,7 @@ def _draw_strip(ax, run: RunResult, lanes: list[str], scale: float, xlim: tuple[
                                    edgecolor=S.STEP_EDGE if not hatch else S.HATCH_EDGE, lw=0.5))
             px = w / span * width_in
             label = s.label or s.kind
-            if _text_width_in(label, FONT - 3) < px - 0.06:
+            if FS.text_width_in(label, FONT - 3) < px - 0.06:
                 ax.text(x0 + w / 2, r + 0.5, label, ha="center", va="center",
                         fontsize=FONT - 3, color=S.TEXT, clip_on=True)
 
@@ -429,26 +349,6 @@ def _grid_positions(result: SimulationResult) -> list[tuple[int, ...]] | None:
     if len(result.runs) == int(np.prod(shape)) if shape else False:
         return [tuple(int(x) for x in np.unravel_index(k, shape)) for k in range(len(result.runs))]
     return None
-
-
-def _log_spaced(v: np.ndarray) -> bool:
-    v = np.sort(np.asarray(v, dtype=float))
-    if v.size < 3 or np.any(v <= 0) or v[-1] / v[0] < 20:
-        return False
-    d = np.diff(np.log(v))
-    return bool(np.all(d > 0) and np.std(d) < 0.05 * np.mean(d))
-
-
-def _edges(v: np.ndarray, log: bool) -> np.ndarray:
-    v = np.asarray(v, dtype=float)
-    if v.size == 1:
-        return np.array([v[0] / 1.5, v[0] * 1.5]) if log else np.array([v[0] - 0.5, v[0] + 0.5]) \
-            if v[0] == 0 else (np.array([v[0] * 0.9, v[0] * 1.1]) if v[0] > 0 else
-                               np.array([v[0] * 1.1, v[0] * 0.9]))
-    w = np.log(v) if log else v
-    mid = (w[1:] + w[:-1]) / 2
-    e = np.concatenate([[w[0] - (mid[0] - w[0])], mid, [w[-1] + (w[-1] - mid[-1])]])
-    return np.exp(e) if log else e
 
 
 def _metrics(result: SimulationResult) -> list[tuple[str, np.ndarray]]:
@@ -492,15 +392,15 @@ def _sweep_lines(result: SimulationResult, pos: list[tuple[int, ...]] | None) ->
     order = np.argsort(x, kind="stable")
     scale, xunit = axis_scale(x, unit)
     xs = x / scale
-    log_x = _log_spaced(x)
+    log_x = FS.log_spaced(x)
     metric, _ = sweep_metric(result)
     best = best_index(result)
     curves = _metrics(result)
     fig = new_figure()
     left, right = 1.15, 2.0
     top_h, bot_h = 2.35, 1.55
-    ax_b = _axes(fig, left, 0.8, WIDTH - left - right, bot_h)
-    ax_t = _axes(fig, left, 0.8 + bot_h + 0.22, WIDTH - left - right, top_h)
+    ax_b = FS.axes(fig, left, 0.8, WIDTH - left - right, bot_h)
+    ax_t = FS.axes(fig, left, 0.8 + bot_h + 0.22, WIDTH - left - right, top_h)
     ax_t.sharex(ax_b)
     few = len(x) <= 60
     for key, v in curves:
@@ -513,9 +413,9 @@ def _sweep_lines(result: SimulationResult, pos: list[tuple[int, ...]] | None) ->
     inf_pos = inf_all[np.isfinite(inf_all) & (inf_all > 0)]
     if inf_pos.size:
         ax_b.set_yscale("log")
-        lo, hi = _log_limits(inf_pos)
+        lo, hi = FS.log_limits(inf_pos)
         ax_b.set_ylim(lo, hi)
-        _log_ticks(ax_b, "y")
+        FS.log_ticks(ax_b, "y")
     if log_x:
         for a in (ax_t, ax_b):
             a.set_xscale("log")
@@ -542,7 +442,7 @@ def _sweep_lines(result: SimulationResult, pos: list[tuple[int, ...]] | None) ->
     extra = ""
     if len(result.axes) > 1:
         extra = "  (plotted against the first parameter only)"
-    _titles(fig, f"Fidelity against {name}{extra}", note)
+    FS.titles(fig, f"Fidelity against {name}{extra}", note)
     return fig
 
 
@@ -566,8 +466,8 @@ def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
     s1, yu = axis_scale(v1, u1)
     o0, o1 = np.argsort(v0, kind="stable"), np.argsort(v1, kind="stable")
     rank0, rank1 = np.argsort(o0), np.argsort(o1)
-    log0, log1 = _log_spaced(v0), _log_spaced(v1)
-    e0, e1 = _edges(v0[o0], log0), _edges(v1[o1], log1)
+    log0, log1 = FS.log_spaced(v0), FS.log_spaced(v1)
+    e0, e1 = FS.edges(v0[o0], log0), FS.edges(v1[o1], log1)
     fig = new_figure()
     gap, left, right_cb = 0.35, 1.1, 1.15   # right_cb: colour bar, its ticks and label
     w_panel = (WIDTH - left - 0.3 - len(panels) * right_cb - (len(panels) - 1) * gap) / len(panels)
@@ -579,7 +479,7 @@ def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
             a, b = pos[k][0], pos[k][1]
             grid[rank1[b], rank0[a]] = curves[key][k]
         x0 = left + p * (w_panel + right_cb + gap)
-        ax = _axes(fig, x0, 0.95, w_panel, HEIGHT - 0.95 - 1.25)
+        ax = FS.axes(fig, x0, 0.95, w_panel, HEIGHT - 0.95 - 1.25)
         ax.grid(False)
         finite = grid[np.isfinite(grid)]
         vmin, vmax = (float(finite.min()), float(finite.max())) if finite.size else (0.0, 1.0)
@@ -597,7 +497,7 @@ def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
             ax.set_ylabel(f"{n1} ({yu})" if yu else n1, fontsize=FONT)
         else:  # same y axis as the first panel
             ax.tick_params(axis="y", labelleft=False)
-        cax = _axes(fig, x0 + w_panel + 0.15, 0.95, 0.16, HEIGHT - 0.95 - 1.25)
+        cax = FS.axes(fig, x0 + w_panel + 0.15, 0.95, 0.16, HEIGHT - 0.95 - 1.25)
         cb = fig.colorbar(mesh, cax=cax)
         cb.set_label(METRIC_NAMES[key], fontsize=FONT - 1, color=S.TEXT)
         cb.ax.tick_params(labelsize=FONT - 2)
@@ -635,7 +535,7 @@ def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
     title = f"Fidelity over {n0} and {n1}"
     if fixed:
         title += f"  (slice at {fixed})"
-    _titles(fig, title, note)
+    FS.titles(fig, title, note)
     return fig
 
 

@@ -17,9 +17,10 @@ from typing import Any, Sequence
 from ..preview.style import CAUTION_TEXT
 from ..simulate.types import RunResult, SimulationResult
 from .data import jsonable
+from ..numfmt import (fmt_fidelity, fmt_infidelity, fmt_percent, fmt_population, fmt_ratio,
+                      fmt_sci, fmt_time_number, fmt_value, time_unit)
 from .fmt import (COHERENCE_RULE, budget_mismatch, budget_rows, best_index, detail_index,
-                  fmt_fidelity, fmt_infidelity, fmt_percent, fmt_population, fmt_ratio, fmt_sci, fmt_time_number,
-                  fmt_value, has_budget, is_below, sweep_metric, time_unit)
+                  has_budget, is_below, sweep_metric)
 
 MAX_DOTS_IN_SWEEP_TABLE = 6   # P(up) columns of the sweep table
 ENGINES = {"reference": "reference (qutip mesolve)", "fast": "fast"}

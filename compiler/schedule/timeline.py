@@ -21,7 +21,7 @@ leaves in the rotating frames.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, replace
 
 from .. import program as P
 from ..device.model import Device
@@ -44,6 +44,42 @@ PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~
 MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
 
 
+# ------------------------------------------------------------ slot information
+# What the scheduler knows about a placed step besides its time, one frozen
+# type per kind of slot (Slot.info), never changed after the slot is made.
+
+@dataclass(frozen=True, slots=True)
+class BurstInfo:
+    """A rotation's burst."""
+    frame: float                                   # rad, the dot's frame when played
+    spectator_frame_updates: tuple[tuple[str, float], ...] = ()  # (dot, rad) light-shift undo
+
+
+@dataclass(frozen=True, slots=True)
+class FrameInfo:
+    """A z rotation (frame update)."""
+    frame: float                                   # rad, the dot's frame after it
+
+
+@dataclass(frozen=True, slots=True)
+class ExchangeInfo:
+    """An exchange gate and the frame updates that compensate it."""
+    frames_before: tuple[tuple[str, float], ...]   # (dot, rad)
+    frame_updates: tuple[tuple[str, float], ...]   # (dot, rad)
+    frame_fidelity: float                          # compensated gate in the rotating frames
+    zeeman_difference_Hz: float
+
+
+@dataclass(frozen=True, slots=True)
+class InsertedInfo:
+    """Time the scheduler inserts before an exchange (phasewait, zcorrect)."""
+    reason: str
+    spectator_frame_updates: tuple[tuple[str, float], ...] = ()
+
+
+SlotInfo = BurstInfo | FrameInfo | ExchangeInfo | InsertedInfo | None
+
+
 @dataclass(frozen=True, slots=True)
 class Slot:
     """One step placed on the sample grid."""
@@ -60,7 +96,7 @@ class Slot:
     span: Span | None = None   # source statement (for inserted entries: the exchange's)
     via: tuple[str, ...] = ()
     group: int = -1            # index of its 'together' group, -1 if none
-    info: dict = field(default_factory=dict)   # frames, fidelity, corrections, ...
+    info: SlotInfo = None      # what else is known about it, by kind of slot
 
     @property
     def start(self) -> float:
@@ -123,25 +159,30 @@ class Timeline:
         return self.n_samples * self.dt
 
 
+def _exchange_resources(step: P.ExchangeGate, device: Device) -> tuple[str, ...]:
+    c = device.coupling(step.a, step.b)
+    res = [f"dot:{step.a}", f"dot:{step.b}", f"ch:{c.barrier}"]
+    for d, _ in c.detune:
+        res += [f"dot:{d}", f"ch:{device.dots[d].plunger}"]
+    return tuple(res)
+
+
+# The resources each kind of program step occupies (dots, lines, channels).
+RESOURCES = {
+    P.Rotation: lambda s, dev: (f"dot:{s.qubit}", f"line:{dev.dots[s.qubit].drive.line}"),
+    P.FrameRotation: lambda s, dev: (f"dot:{s.qubit}",),
+    P.ExchangeGate: _exchange_resources,
+    P.Idle: lambda s, dev: tuple(f"dot:{q}" for q in (s.qubits or tuple(dev.dots))),
+    P.Readout: lambda s, dev: tuple(f"dot:{q}" for q in s.qubits) + (f"ch:{dev.readout.marker}",),
+    P.Trigger: lambda s, dev: tuple(f"dot:{q}" for q in dev.dots)
+    + (f"ch:{dev.readout.trigger_marker}",),
+    P.Parallel: lambda s, dev: tuple(dict.fromkeys(r for m in s.steps
+                                                   for r in RESOURCES[type(m)](m, dev))),
+}
+
+
 def _resources(step, device: Device) -> tuple[str, ...]:
-    dots = tuple(device.dots)
-    if isinstance(step, P.Rotation):
-        return (f"dot:{step.qubit}", f"line:{device.dots[step.qubit].drive.line}")
-    if isinstance(step, P.FrameRotation):
-        return (f"dot:{step.qubit}",)
-    if isinstance(step, P.ExchangeGate):
-        c = device.coupling(step.a, step.b)
-        res = [f"dot:{step.a}", f"dot:{step.b}", f"ch:{c.barrier}"]
-        for d, _ in c.detune:
-            res += [f"dot:{d}", f"ch:{device.dots[d].plunger}"]
-        return tuple(res)
-    if isinstance(step, P.Idle):
-        return tuple(f"dot:{q}" for q in (step.qubits or dots))
-    if isinstance(step, P.Readout):
-        return tuple(f"dot:{q}" for q in step.qubits) + (f"ch:{device.readout.marker}",)
-    if isinstance(step, P.Trigger):
-        return tuple(f"dot:{q}" for q in dots) + (f"ch:{device.readout.trigger_marker}",)
-    raise TypeError(step)
+    return RESOURCES[type(step)](step, device)
 
 
 FRAME_LOG_STEPS = 200         # top-level steps whose frames are logged by default
@@ -266,8 +307,8 @@ class _Scheduler:
             if k > 0:
                 res = (f"dot:{a}", f"dot:{b}")
                 self.slots.append(Slot(None, "phasewait", (a, b), t0, k, res, self.dt, span=step.span,
-                                       via=step.via, info={"reason": "phase alignment before "
-                                                            f"{step.gate} {a} {b}"}))
+                                       via=step.via, info=InsertedInfo(
+                                           f"phase alignment before {step.gate} {a} {b}")))
             return t0 + k
         # B: bursts on a, ending where the exchange starts
         line = f"line:{self.device.dots[a].drive.line}"
@@ -286,9 +327,9 @@ class _Scheduler:
             self.slots.append(Slot(None, "zcorrect", (a,), start_b + i * pi_burst.n, pi_burst.n,
                                    res, self.dt, burst=pi_burst, play_phase=axis - F,
                                    span=step.span, via=step.via,
-                                   info={"reason": f"z rotation of {a} by {math.degrees(beta):.6g}"
-                                                   f" deg before {step.gate} {a} {b}",
-                                         **({"spectator_frame_updates": shifts[i]} if shifts[i] else {})}))
+                                   info=InsertedInfo(f"z rotation of {a} by {math.degrees(beta):.6g}"
+                                                     f" deg before {step.gate} {a} {b}",
+                                                     tuple(shifts[i].items()))))
         self.occupy(res, start_b + cost_b)
         self.frames[a] = F - beta
         return t_ex
@@ -311,9 +352,8 @@ class _Scheduler:
             self.warn(f"this {step.gate} reaches only {fid:.6f} average gate fidelity in the "
                       "rotating frames, even after frame compensation", step,
                       f"zeeman:{step.span}", 1 - fid)
-        info = {"frames_before": {a: self.frames[a], b: self.frames[b]},
-                "frame_updates": {a: ea, b: eb}, "frame_fidelity": fid,
-                "zeeman_difference_Hz": abs(delta)}
+        info = ExchangeInfo(((a, self.frames[a]), (b, self.frames[b])), ((a, ea), (b, eb)), fid,
+                            abs(delta))
         self.frames[a] += ea
         self.frames[b] += eb
         self.place_simple(step, t0, design.total, group, exchange=design, info=info)
@@ -345,44 +385,52 @@ class _Scheduler:
     def place(self, step, group: int, t_group: int | None = None) -> None:
         res = self.resources(step)
         t0 = self.earliest(res) if t_group is None else t_group
-        if isinstance(step, P.Rotation):
-            b = self.burst_for(step)
-            if b is None:
-                return
-            self.place_simple(step, t0, b.n, group, burst=b,
-                              play_phase=b.phase - self.frames[step.qubit],
-                              info={"frame": self.frames[step.qubit]})
-            if t_group is None:
-                shifts = self.correct_spectators(step.qubit, b, step)
-                if shifts:
-                    self.slots[-1].info["spectator_frame_updates"] = shifts
-        elif isinstance(step, P.FrameRotation):
-            self.frames[step.qubit] += step.angle
-            self.place_simple(step, t0, 0, group, info={"frame": self.frames[step.qubit]})
-        elif isinstance(step, P.ExchangeGate):
-            d = self.exchange_for(step)
-            if d is None:
-                return
-            t0 = self.prepare_exchange(step, d, t0, t_group is not None)
-            self.place_exchange(step, d, t0, group)
-        elif isinstance(step, P.Idle):
-            n = step.duration / self.dt
-            if not n <= MAX_RUN_SAMPLES - t0:     # also inf and nan
-                self.fail(f"this wait of {step.duration:.4g} s ends beyond "
-                          f"{MAX_RUN_SAMPLES:,} samples ({fq(MAX_RUN_SAMPLES * self.dt, TIME)} "
-                          "at this sample rate), the longest run dotseq can place", step,
-                          "a run is placed on an integer sample grid exact up to 2^53 samples; "
-                          "shorten the wait")
-                return
-            self.place_simple(step, t0, int(round(n)), group)
-        elif isinstance(step, P.Readout):
-            self.place_simple(step, t0, int(math.ceil(self.device.readout.duration / self.dt - 1e-9)),
-                              group)
-        elif isinstance(step, P.Trigger):
-            slot = self.place_simple(step, t0, 0, group)
-            ch = f"ch:{self.device.readout.trigger_marker}"
-            self.occupy((ch,), t0 + int(math.ceil(TRIGGER_WIDTH / self.dt - 1e-9)))
-            del slot
+        PLACE[type(step)](self, step, t0, group, t_group)
+
+    def place_rotation(self, step: P.Rotation, t0: int, group: int, t_group) -> None:
+        b = self.burst_for(step)
+        if b is None:
+            return
+        frame = self.frames[step.qubit]
+        # a lone burst undoes its light shift on the other dots of its line now;
+        # in a group, place_group does it once the group's driven dots are known
+        shifts = self.correct_spectators(step.qubit, b, step) if t_group is None else {}
+        self.place_simple(step, t0, b.n, group, burst=b, play_phase=b.phase - frame,
+                          info=BurstInfo(frame, tuple(shifts.items())))
+
+    def place_frame(self, step: P.FrameRotation, t0: int, group: int, t_group) -> None:
+        self.frames[step.qubit] += step.angle
+        self.place_simple(step, t0, 0, group, info=FrameInfo(self.frames[step.qubit]))
+
+    def place_exchange_step(self, step: P.ExchangeGate, t0: int, group: int, t_group) -> None:
+        d = self.exchange_for(step)
+        if d is None:
+            return
+        t0 = self.prepare_exchange(step, d, t0, t_group is not None)
+        self.place_exchange(step, d, t0, group)
+
+    def place_idle(self, step: P.Idle, t0: int, group: int, t_group) -> None:
+        n = step.duration / self.dt
+        if not n <= MAX_RUN_SAMPLES - t0:     # also inf and nan
+            self.fail(f"this wait of {step.duration:.4g} s ends beyond "
+                      f"{MAX_RUN_SAMPLES:,} samples ({fq(MAX_RUN_SAMPLES * self.dt, TIME)} "
+                      "at this sample rate), the longest run dotseq can place", step,
+                      "a run is placed on an integer sample grid exact up to 2^53 samples; "
+                      "shorten the wait")
+            return
+        self.place_simple(step, t0, int(round(n)), group)
+
+    def place_readout(self, step: P.Readout, t0: int, group: int, t_group) -> None:
+        self.place_simple(step, t0, int(math.ceil(self.device.readout.duration / self.dt - 1e-9)),
+                          group)
+
+    def place_trigger(self, step: P.Trigger, t0: int, group: int, t_group) -> None:
+        self.place_simple(step, t0, 0, group)
+        ch = f"ch:{self.device.readout.trigger_marker}"
+        self.occupy((ch,), t0 + int(math.ceil(TRIGGER_WIDTH / self.dt - 1e-9)))
+
+    def place_nested_group(self, step: P.Parallel, t0: int, group: int, t_group) -> None:
+        raise TypeError("a 'together' group inside a group reached the scheduler")
 
     def place_group(self, group: P.Parallel, gi: int) -> None:
         res = {r for m in group.steps for r in self.resources(m)}
@@ -401,10 +449,12 @@ class _Scheduler:
                     self.place_exchange(m, d, t0, gi)
             else:
                 self.place(m, gi, t_group=t0)
-                if isinstance(m, P.Rotation) and self.slots and self.slots[-1].step is m:
-                    shifts = self.correct_spectators(m.qubit, self.slots[-1].burst, m, driven)
+                last = self.slots[-1] if self.slots else None
+                if isinstance(m, P.Rotation) and last is not None and last.step is m:
+                    shifts = self.correct_spectators(m.qubit, last.burst, m, driven)
                     if shifts:
-                        self.slots[-1].info["spectator_frame_updates"] = shifts
+                        self.slots[-1] = replace(last, info=replace(
+                            last.info, spectator_frame_updates=tuple(shifts.items())))
 
     def schedule(self) -> Timeline:
         log = []
@@ -425,6 +475,18 @@ class _Scheduler:
         slots = tuple(self.slots[i] for i in order)
         return Timeline(self.run, slots, n, self.dt, dict(self.frames),
                         tuple(self.warnings.values()), tuple(log), tuple(self.slots))
+
+
+# How each kind of program step is placed (groups: _Scheduler.place_group).
+PLACE = {
+    P.Rotation: _Scheduler.place_rotation,
+    P.FrameRotation: _Scheduler.place_frame,
+    P.ExchangeGate: _Scheduler.place_exchange_step,
+    P.Idle: _Scheduler.place_idle,
+    P.Readout: _Scheduler.place_readout,
+    P.Trigger: _Scheduler.place_trigger,
+    P.Parallel: _Scheduler.place_nested_group,
+}
 
 
 def schedule(run: P.Run, device: Device, *, spectator_correction: bool = True,

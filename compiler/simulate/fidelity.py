@@ -14,7 +14,7 @@ import numpy as np
 from scipy.linalg import expm
 
 from .. import program as P
-from ..physics import EXCHANGE_TARGET
+from ..steps import EXCHANGE_GATES, KINDS
 
 SX = np.array([[0, 1], [1, 0]], dtype=complex)
 SY = np.array([[0, -1j], [1j, 0]], dtype=complex)
@@ -54,27 +54,33 @@ def exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
     """exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate (1/4 for √SWAP);
     cached, returned read-only."""
     s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
-    u = expm(-2j * math.pi * EXCHANGE_TARGET[gate] * s1s2)
+    u = expm(-2j * math.pi * EXCHANGE_GATES[gate].integral * s1s2)
     u.flags.writeable = False
     return u
 
 
+def _parallel(step: P.Parallel, dots: tuple[str, ...]) -> np.ndarray:
+    u = np.eye(2 ** len(dots), dtype=complex)
+    for s in step.steps:
+        u = step_unitary(s, dots) @ u
+    return u
+
+
+# The ideal operation of each kind of step, by its ``ideal`` in compiler.steps.KINDS.
+IDEAL_OPS = {
+    "rotation": lambda s, dots: op(rotation(s.phase, s.angle), dots.index(s.qubit), len(dots)),
+    "frame": lambda s, dots: op(np.diag([np.exp(-0.5j * s.angle), np.exp(0.5j * s.angle)]),
+                                dots.index(s.qubit), len(dots)),
+    "exchange": lambda s, dots: exchange_unitary(s.gate, dots.index(s.a), dots.index(s.b),
+                                                 len(dots)),
+    "identity": lambda s, dots: np.eye(2 ** len(dots), dtype=complex),  # waits, readout, triggers
+    "product": _parallel,
+}
+
+
 def step_unitary(step, dots: tuple[str, ...]) -> np.ndarray:
     """The ideal operation of one program step on the whole register."""
-    n = len(dots)
-    if isinstance(step, P.Rotation):
-        return op(rotation(step.phase, step.angle), dots.index(step.qubit), n)
-    if isinstance(step, P.FrameRotation):
-        return op(np.diag([np.exp(-0.5j * step.angle), np.exp(0.5j * step.angle)]),
-                  dots.index(step.qubit), n)
-    if isinstance(step, P.ExchangeGate):
-        return exchange_unitary(step.gate, dots.index(step.a), dots.index(step.b), n)
-    if isinstance(step, P.Parallel):
-        u = np.eye(2 ** n, dtype=complex)
-        for s in step.steps:
-            u = step_unitary(s, dots) @ u
-        return u
-    return np.eye(2 ** n, dtype=complex)          # waits, readout markers, triggers
+    return IDEAL_OPS[KINDS[step.kind].ideal](step, dots)
 
 
 def ideal_unitary(steps, dots: tuple[str, ...]) -> np.ndarray:

@@ -20,10 +20,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import program as P
-from ..check.summary import GATE_KINDS
 from ..device.model import Device
 from ..errors import UsageError
-from ..physics import COHERENCE_RULE
+from ..margin import coherence_margins
 from ..synth.types import CompiledRun, Recompiler
 from ..threads import one_thread
 from . import fidelity as F
@@ -212,7 +211,7 @@ def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
         Sq = F.to_qubit_frames(S, [before[q] for q in dots], [after[q] for q in dots])
         U = F.step_unitary(step, dots)
         fid = F.average_fidelity(F.process_fidelity(Sq, U), 2 ** n)
-        kind = "together" if isinstance(step, P.Parallel) else step.kind
+        kind = step.kind
         qubits = tuple(dict.fromkeys(q for s in slots for q in s.qubits))
         label = _label(step)
         src = f"{step.span.file}:{step.span.line}:{step.span.col}" if step.span else ""
@@ -292,7 +291,7 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
     d = total.dim
     zeeman = 0.0
     for s in tl.slots:
-        f = s.info.get("frame_fidelity")
+        f = getattr(s.info, "frame_fidelity", None)      # exchange slots
         if f is not None:
             f_pro = (5 * f - 1) / 4                       # pair average -> process fidelity
             zeeman += (1 - f_pro) * d / (d + 1)
@@ -363,15 +362,4 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
 
 
 def _coherence(checked):
-    longest: dict[str, float] = {}
-    for tl in checked.timelines:
-        for s in tl.slots:
-            if s.kind in GATE_KINDS:
-                for q in s.qubits:
-                    longest[q] = max(longest.get(q, 0.0), s.duration)
-    out = []
-    for q, d in longest.items():
-        if d > 0:
-            t2 = checked.device.dots[q].t2
-            out.append((q, t2, d, t2 / d, t2 / d < COHERENCE_RULE))
-    return tuple(out)
+    return tuple(m.as_tuple() for m in coherence_margins(checked.timelines, checked.device))

@@ -25,11 +25,9 @@ from matplotlib.ticker import FuncFormatter
 
 from ..physics import COHERENCE_RULE
 from ..preview import style as S
-from ..report.figures import (BEST_COLOUR, DPI, FIDELITY_MAP, FONT, HEIGHT, WIDTH, _axes,
-                              _edges, _footer, _log_limits, _log_ticks, _log_spaced, _short,
-                              _titles,
-                              new_figure)
-from ..report.fmt import axis_scale, fmt_fidelity, fmt_sci, fmt_value
+from .. import figstyle as FS
+from ..figstyle import BEST_COLOUR, DPI, FIDELITY_MAP, FONT, HEIGHT, WIDTH, new_figure
+from ..numfmt import axis_scale, fmt_fidelity, fmt_sci, fmt_value
 from .table import best_point
 from .types import INVALID, OK, SweepTable
 
@@ -127,12 +125,12 @@ def _lines(table: SweepTable):
     scale, unit = axis_scale(x, ax0.unit)
     xs = x / scale
     order = np.argsort(x, kind="stable")
-    log_x = ax0.spacing == "log" or _log_spaced(x)
+    log_x = ax0.spacing == "log" or FS.log_spaced(x)
     fig = new_figure()
     left, right = 1.15, 2.75
     top_h, bot_h = 2.25, 1.65
-    ax_b = _axes(fig, left, 0.85, WIDTH - left - right, bot_h)
-    ax_t = _axes(fig, left, 0.85 + bot_h + 0.22, WIDTH - left - right, top_h)
+    ax_b = FS.axes(fig, left, 0.85, WIDTH - left - right, bot_h)
+    ax_t = FS.axes(fig, left, 0.85 + bot_h + 0.22, WIDTH - left - right, top_h)
     ax_t.sharex(ax_b)
     few = n <= 60
     mk = dict(marker="o" if few else None, ms=4)
@@ -157,14 +155,14 @@ def _lines(table: SweepTable):
             c = SOURCE_COLOURS[k % len(SOURCE_COLOURS)]
             ax_b.plot(xs[order], np.where(v > 0, v, np.nan)[order], color=c, lw=1.2, ls="--",
                       marker="." if few else None)
-            handles.append(Line2D([], [], color=c, lw=1.2, ls="--", label=_short(s, MAX_LABEL)))
+            handles.append(Line2D([], [], color=c, lw=1.2, ls="--", label=FS.short(s, MAX_LABEL)))
             curves.append(v)
     allv = np.concatenate(curves)
     pos = allv[np.isfinite(allv) & (allv > 0)]
     if pos.size:
         ax_b.set_yscale("log")
-        ax_b.set_ylim(*_log_limits(pos))
-        _log_ticks(ax_b, "y")
+        ax_b.set_ylim(*FS.log_limits(pos))
+        FS.log_ticks(ax_b, "y")
     if log_x:
         for a in (ax_t, ax_b):
             a.set_xscale("log")
@@ -179,7 +177,7 @@ def _lines(table: SweepTable):
     note, crosses = _margin_note(margin)
     if crosses:
         below = np.isfinite(margin) & (margin < COHERENCE_RULE)
-        e = _edges(x[order], log_x) / scale
+        e = FS.edges(x[order], log_x) / scale
         for j, i in enumerate(order):
             if below[i]:
                 for a in (ax_t, ax_b):
@@ -205,9 +203,9 @@ def _lines(table: SweepTable):
                 fontsize=FONT - 1.5)
     sub = f"{table.sequence} on {table.device_name}; {_settings_text(table)}"
     best_note = _best_note(table)
-    _titles(fig, _title(table, f"against {ax0.name}"),
+    FS.titles(fig, _title(table, f"against {ax0.name}"),
             sub + ("\n" + best_note if best_note else "") + (f"; {note}" if note else ""))
-    _footer(fig, FOOTER)
+    FS.footer(fig, FOOTER)
     return fig
 
 
@@ -232,21 +230,21 @@ def _map(table: SweepTable):
             invalid[r, c] = True
     s0, u0 = axis_scale(v0, a0.unit)
     s1, u1 = axis_scale(v1, a1.unit)
-    log0 = a0.spacing == "log" or _log_spaced(v0)
-    log1 = a1.spacing == "log" or _log_spaced(v1)
-    e0, e1 = _edges(v0[o0], log0), _edges(v1[o1], log1)
+    log0 = a0.spacing == "log" or FS.log_spaced(v0)
+    log1 = a1.spacing == "log" or FS.log_spaced(v1)
+    e0, e1 = FS.edges(v0[o0], log0), FS.edges(v1[o1], log1)
     xc = (np.sqrt(e0[1:] * e0[:-1]) if log0 else (e0[1:] + e0[:-1]) / 2) / s0
     yc = (np.sqrt(e1[1:] * e1[:-1]) if log1 else (e1[1:] + e1[:-1]) / 2) / s1
     fig = new_figure()
     left, bottom = 1.15, 0.9
     w = WIDTH - left - 1.9
     h = HEIGHT - bottom - 1.55
-    ax = _axes(fig, left, bottom, w, h)
+    ax = FS.axes(fig, left, bottom, w, h)
     ax.grid(False)
     finite = inf[np.isfinite(inf)]
     positive = finite[finite > 0]
     if positive.size and positive.max() / positive.min() > 3:
-        lo, hi = _log_limits(positive)
+        lo, hi = FS.log_limits(positive)
         norm = LogNorm(vmin=lo, vmax=hi)
         shown = np.where(inf > 0, inf, np.nan)
         scale_note = "log scale"
@@ -275,7 +273,7 @@ def _map(table: SweepTable):
     ax.set_ylim(e1[0] / s1, e1[-1] / s1)
     ax.set_xlabel(_axis_label(a0, u0), fontsize=FONT)
     ax.set_ylabel(_axis_label(a1, u1), fontsize=FONT)
-    cax = _axes(fig, left + w + 0.2, bottom, 0.18, h)
+    cax = FS.axes(fig, left + w + 0.2, bottom, 0.18, h)
     cb = fig.colorbar(mesh, cax=cax)
     cb.set_label(f"1 − F ({scale_note}); darker is better", fontsize=FONT - 1, color=S.TEXT)
     cb.ax.tick_params(labelsize=FONT - 2)
@@ -321,7 +319,7 @@ def _map(table: SweepTable):
                   ncol=len(handles), frameon=False, fontsize=FONT - 1.5, borderaxespad=0.0)
     sub = f"{table.sequence} on {table.device_name}; {_settings_text(table)}"
     best_note = _best_note(table)
-    _titles(fig, _title(table, f"over {a0.name} and {a1.name}"),
+    FS.titles(fig, _title(table, f"over {a0.name} and {a1.name}"),
             sub + ("\n" + best_note if best_note else "") + (f"; {note}" if note else ""))
-    _footer(fig, FOOTER)
+    FS.footer(fig, FOOTER)
     return fig

@@ -10,8 +10,9 @@ setting after its name)::
 A value is applied by building a modified :class:`~compiler.device.model.Device`
 with :func:`dataclasses.replace`; both the compiler and the simulator then see
 it (the pulses are designed for the modified device).  The physical
-constraints the device loader enforces are checked again for every point
-(:func:`constraints`).
+rules the device loader enforces (:func:`compiler.device.rules.validate`,
+written once) are checked again for every point (:func:`constraints`,
+:func:`cautions`).
 
 Sequence parameters are the file's own ``let`` and ``sweep`` names; a value
 replaces the definition in the parsed tree, which is then expanded again
@@ -21,19 +22,15 @@ replaces the definition in the parsed tree, which is then expanded again
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass
 
-from ..device import exchange as xch
-from ..device.loader import RWA_RATIO, THERMAL_RATIO
 from ..device.model import Device
+from ..device.rules import ERROR, WARNING, validate
 from ..errors import UsageError, did_you_mean
 from ..expand.evaluate import EvalError, Quantity, evaluate
 from ..parse import tree as T
-from ..physics import H as PLANCK, K_B
 from ..program import Expanded
-from ..units import (BASES, FIELD, FREQ_PER_VOLT, FREQUENCY, NONE, TEMPERATURE, TIME, VOLTAGE,
-                     Dim, format_distinct, format_quantity)
+from ..units import BASES, FIELD, FREQ_PER_VOLT, FREQUENCY, NONE, TEMPERATURE, TIME, VOLTAGE, Dim
 
 DOT_ATTRS = {"g": (NONE, "g-factor"), "t1": (TIME, "relaxation time T1"),
              "t2": (TIME, "Hahn-echo T2"), "t2_star": (TIME, "Ramsey T2*"),
@@ -43,6 +40,7 @@ PAIR_ATTRS = {"j_scale": (NONE, "factor on the whole J(V) curve"),
               "pulse_voltage": (VOLTAGE, "barrier level during exchange"),
               "idle_voltage": (VOLTAGE, "barrier level between gates"),
               "charge_noise": (VOLTAGE, "rms quasi-static barrier noise")}
+EXCHANGE_ATTRS = ("j0",)    # parameters of one exchange model (ExchangeModel.SWEEPABLE)
 PREFIX_DEVICE, PREFIX_FILE = "device.", "file."
 
 
@@ -86,10 +84,11 @@ def device_params(device: Device) -> dict[str, Param]:
     for c in device.couplings:
         pn = _pair_name(device, c)
         for attr, (dim, what) in PAIR_ATTRS.items():
-            if attr == "j0" and c.exchange.kind != "exponential":
+            if attr in EXCHANGE_ATTRS and attr not in c.exchange.SWEEPABLE:
                 continue
-            nominal = {"j_scale": 1.0, "j0": c.exchange.j0, "pulse_voltage": c.pulse_voltage,
-                       "idle_voltage": c.idle_voltage, "charge_noise": c.charge_noise}[attr]
+            nominal = (getattr(c.exchange, attr) if attr in EXCHANGE_ATTRS else
+                       {"j_scale": 1.0, "pulse_voltage": c.pulse_voltage,
+                        "idle_voltage": c.idle_voltage, "charge_noise": c.charge_noise}[attr])
             out[f"{pn}.{attr}"] = Param(f"{pn}.{attr}", "device", dim,
                                         f"{what} of the coupling {pn}", nominal)
     return out
@@ -111,7 +110,7 @@ def _not_offered(name: str, device: Device) -> str:
     if attr == "j0" and "-" in head:
         a, _, b = head.partition("-")
         c = device.coupling(a, b)
-        if c is not None and c.exchange.kind != "exponential":
+        if c is not None and "j0" not in c.exchange.SWEEPABLE:
             return (f"{head}.j0 exists only for an exponential J(V); this coupling's model is "
                     f"'{c.exchange.kind}': vary {_pair_name(device, c)}.j_scale (a factor on the "
                     "whole J(V) curve) instead")
@@ -172,16 +171,11 @@ def apply_device(device: Device, values: dict[str, float]) -> Device:
                 cs.append(c)
                 continue
             m = c.exchange
-            if "j0" in ch:
-                m = dataclasses.replace(m, j0=ch["j0"])
+            direct = {k: v for k, v in ch.items() if k in m.SWEEPABLE}
+            if direct:
+                m = dataclasses.replace(m, **direct)
             if "j_scale" in ch:
-                s = ch["j_scale"]
-                if m.kind == "exponential":
-                    m = dataclasses.replace(m, j0=m.j0 * s)
-                elif m.kind == "hubbard":
-                    m = dataclasses.replace(m, t0=m.t0 * math.sqrt(s))
-                else:
-                    m = dataclasses.replace(m, joules=tuple(j * s for j in m.joules))
+                m = m.scaled(ch["j_scale"])
             kw = {k: v for k, v in ch.items() if k in ("pulse_voltage", "idle_voltage",
                                                         "charge_noise")}
             cs.append(dataclasses.replace(c, exchange=m, **kw))
@@ -189,150 +183,17 @@ def apply_device(device: Device, values: dict[str, float]) -> Device:
     return dataclasses.replace(device, **new)
 
 
-def _q(x: float, dim: Dim) -> str:
-    return format_quantity(x, dim, 6)
-
-
-def _q2(a: float, b: float, dim: Dim) -> tuple[str, str]:
-    """Two values compared in a message, with the digits that tell them apart."""
-    return format_distinct(a, b, dim, 6)
-
-
 def constraints(device: Device) -> list[tuple[str, str, str]]:
-    """The physical constraints the device loader enforces, checked again:
-    ``(id, message, hint)`` for each one violated (empty when all hold).
-
-    * T2* ≤ T2 ≤ 2·T1, all positive (Bloch relaxation; common practice, no
-      source);
-    * the Larmor frequency within the drive line's LO + IF band;
-    * field, temperature, Rabi per volt, J positive; burst amplitude within
-      every drive line's range; barrier levels within the channel and the
-      exchange model's range, the pulse level above idle.
-    """
-    out: list[tuple[str, str, str]] = []
-    if not device.field > 0:
-        out.append(("field", f"field = {_q(device.field, FIELD)} is not above zero",
-                    "the Zeeman splitting needs a field"))
-    if not device.temperature > 0:
-        out.append(("temperature", f"temperature = {_q(device.temperature, TEMPERATURE)} is not "
-                                   "above zero", "give a temperature above 0 K"))
-    for q, d in device.dots.items():
-        if d.g == 0:
-            out.append((f"{q}.g", f"{q}.g is zero", "a dot needs a non-zero g-factor"))
-        for attr in ("t1", "t2", "t2_star"):
-            v = getattr(d, attr)
-            if not v > 0:
-                out.append((f"{q}.{attr}", f"{q}.{attr} = {_q(v, TIME)} is not above zero",
-                            "coherence times are positive"))
-        if d.t1 > 0 and d.t2 > 2 * d.t1 * (1 + 1e-12):
-            shown = _q2(d.t2, 2 * d.t1, TIME)
-            out.append((f"{q}.t2>2t1", f"{q}.t2 = {shown[0]} is longer than 2·T1 = {shown[1]}",
-                        f"T2 cannot exceed 2·T1: keep {q}.t2 at most 2·{q}.t1"))
-        if d.t2 > 0 and d.t2_star > d.t2 * (1 + 1e-12):
-            shown = _q2(d.t2_star, d.t2, TIME)
-            out.append((f"{q}.t2*>t2", f"{q}.t2_star = {shown[0]} is longer than the "
-                                       f"Hahn-echo T2 = {shown[1]}",
-                        f"an echo only removes dephasing, so T2* ≤ T2: keep {q}.t2_star at most "
-                        f"{q}.t2"))
-        if not d.drive.rabi_per_volt > 0:
-            out.append((f"{q}.rabi", f"{q}.rabi_per_volt = "
-                                     f"{_q(d.drive.rabi_per_volt, FREQ_PER_VOLT)} is not above "
-                                     "zero", "the drive calibration is positive"))
-        line = device.channels.get(d.drive.line)
-        if line is not None and d.g != 0 and device.field > 0:
-            f_l = device.larmor(q)
-            need = f_l - line.lo
-            if not line.if_min <= need <= line.if_max:
-                out.append((f"{q}.larmor",
-                            f"dot {q}: Larmor frequency {_q(f_l, FREQUENCY)} (|g| = {abs(d.g):g} "
-                            f"at {_q(device.field, FIELD)}) is not reachable on line "
-                            f"'{line.name}': LO {_q(line.lo, FREQUENCY)} + IF band covers "
-                            f"{_q(line.lo + line.if_min, FREQUENCY)} to "
-                            f"{_q(line.lo + line.if_max, FREQUENCY)}",
-                            f"it needs IF = {_q(need, FREQUENCY)}; narrow the range of the field "
-                            "or g, or move the LO in the device file"))
-    rot = device.rotation
-    if rot.mode == "amplitude":
-        if not rot.amplitude > 0:
-            out.append(("rotation.amplitude", f"rotation.amplitude = {_q(rot.amplitude, VOLTAGE)} "
-                                              "is not above zero", "give a positive amplitude"))
-        for q, d in device.dots.items():
-            line = device.channels.get(d.drive.line)
-            if line is not None and rot.amplitude > max(abs(line.v_min), abs(line.v_max)):
-                out.append(("rotation.amplitude>range",
-                            f"rotation.amplitude = {_q(rot.amplitude, VOLTAGE)} is above the "
-                            f"range of drive line '{line.name}' (dot {q})",
-                            f"keep it within ±{_q(max(abs(line.v_min), abs(line.v_max)), VOLTAGE)}"
-                            " (and within your lab's limits)"))
-                break
-    else:
-        if not rot.duration > 0:
-            out.append(("rotation.duration", f"rotation.duration = {_q(rot.duration, TIME)} is "
-                                             "not above zero", "give a positive burst length"))
-        elif rot.shape == "flattop" and 2 * rot.edge > rot.duration:
-            out.append(("rotation.edge", f"rotation.duration = {_q(rot.duration, TIME)} is "
-                                         f"shorter than the two flat-top edges "
-                                         f"({_q(2 * rot.edge, TIME)})",
-                        "keep rotation.duration at least twice rotation.edge"))
-    for c in device.couplings:
-        pn = _pair_name(device, c)
-        m = c.exchange
-        if m.kind == "exponential" and not m.j0 > 0:
-            out.append((f"{pn}.j0", f"{pn}.j0 = {_q(m.j0, FREQUENCY)} is not above zero",
-                        "J is positive"))
-        if m.kind == "hubbard" and not m.t0 > 0 or m.kind == "table" and \
-                not all(j > 0 for j in m.joules):
-            out.append((f"{pn}.j_scale", f"{pn}: J(V) is not positive", "keep j_scale above 0"))
-        if not c.charge_noise >= 0:
-            out.append((f"{pn}.charge_noise", f"{pn}.charge_noise = "
-                                              f"{_q(c.charge_noise, VOLTAGE)} is negative",
-                        "an rms value is zero or positive"))
-        barrier = device.channels.get(c.barrier)
-        lo, hi = xch.v_range(m)
-        for key, v in (("idle_voltage", c.idle_voltage), ("pulse_voltage", c.pulse_voltage)):
-            if v is None:
-                continue
-            if barrier is not None and not barrier.v_min <= v <= barrier.v_max:
-                out.append((f"{pn}.{key}.range", f"{pn}.{key} = {_q(v, VOLTAGE)} is outside the "
-                                                 f"range of barrier channel '{barrier.name}' "
-                                                 f"[{_q(barrier.v_min, VOLTAGE)}, "
-                                                 f"{_q(barrier.v_max, VOLTAGE)}]",
-                            "keep it within the channel range (and your lab's limits)"))
-            elif not lo <= v <= hi:
-                out.append((f"{pn}.{key}.table", f"{pn}.{key} = {_q(v, VOLTAGE)} is outside the "
-                                                 f"exchange table [{_q(lo, VOLTAGE)}, "
-                                                 f"{_q(hi, VOLTAGE)}]",
-                            "the table is never extrapolated: stay inside it"))
-        if c.pulse_voltage is not None and not c.pulse_voltage > c.idle_voltage:
-            shown = _q2(c.pulse_voltage, c.idle_voltage, VOLTAGE)
-            out.append((f"{pn}.pulse<=idle", f"{pn}.pulse_voltage = {shown[0]} is not above "
-                                             f"idle_voltage = {shown[1]}",
-                        "J rises with barrier voltage: the exchange pulse must go above idle"))
-    return out
+    """The physical rules the device loader enforces
+    (:func:`compiler.device.rules.validate`), checked again for a swept
+    device: ``(id, message, hint)`` for each one broken (empty when all hold)."""
+    return [(f.id, f.message, f.hint) for f in validate(device) if f.severity == ERROR]
 
 
 def cautions(device: Device) -> list[tuple[str, str]]:
     """Legal but doubtful settings, as the loader warns about them:
     ``(id, message)``."""
-    out = []
-    for q, d in device.dots.items():
-        if d.g == 0 or not device.field > 0:
-            continue
-        f_l = device.larmor(q)
-        line = device.channels.get(d.drive.line)
-        if line is not None:
-            full = d.drive.rabi_per_volt * max(abs(line.v_min), abs(line.v_max))
-            if full > RWA_RATIO * f_l:
-                out.append((f"{q}.rwa", f"dot {q}: Rabi frequency at full scale "
-                                        f"{_q(full, FREQUENCY)} exceeds {RWA_RATIO:g}·f_L = "
-                                        f"{_q(RWA_RATIO * f_l, FREQUENCY)} (the rotating-wave "
-                                        "approximation becomes doubtful)"))
-        if device.temperature > 0 and PLANCK * f_l < THERMAL_RATIO * K_B * device.temperature:
-            out.append((f"{q}.thermal", f"dot {q}: Zeeman energy h·f_L = h·{_q(f_l, FREQUENCY)} "
-                                        f"is below {THERMAL_RATIO:g}·k_B·T at "
-                                        f"{_q(device.temperature, TEMPERATURE)} (poor thermal "
-                                        "initialisation and readout)"))
-    return out
+    return [(f.id, f.message) for f in validate(device) if f.severity == WARNING]
 
 
 # ------------------------------------------------------------------ sequence

@@ -21,7 +21,7 @@ import time
 import traceback
 
 from .. import RECOMPILER, compile_run
-from ..check.summary import GATE_KINDS
+from ..margin import coherence_margins
 from ..errors import DotseqError
 from ..simulate.engines import make_engine
 from ..simulate.run import error_budget, evaluate_whole
@@ -64,13 +64,7 @@ def _allocator_for_arrays() -> None:
 def coherence(tl, device) -> tuple[tuple[str, float, float, float], ...]:
     """T2 over the longest gate on each dot of one timeline (the margin
     ``dotseq check`` prints)."""
-    longest: dict[str, float] = {}
-    for s in tl.slots:
-        if s.kind in GATE_KINDS:
-            for q in s.qubits:
-                longest[q] = max(longest.get(q, 0.0), s.duration)
-    return tuple((q, device.dots[q].t2, d, device.dots[q].t2 / d)
-                 for q, d in longest.items() if d > 0)
+    return tuple(m.as_tuple()[:4] for m in coherence_margins([tl], device))
 
 
 def _first_line(err: DotseqError) -> str:

@@ -17,12 +17,11 @@ from __future__ import annotations
 
 import json
 import os
-import secrets
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..export import atomic
 from ..export.atomic import pid_alive
-from ..export.files import fsync_dir
 from ..errors import Problem, Span
 from ..source import Unreadable, check_regular
 from .errors import SweepError, fail
@@ -41,27 +40,11 @@ def dumps(obj) -> str:
     return json.dumps(jsonable(obj), sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
-def _temp_name(path: Path) -> Path:
-    return path.parent / f".{path.name}.partial-{os.getpid()}-{secrets.token_hex(4)}"
-
-
 def write_atomic(path: Path, data: bytes) -> None:
-    """Write ``data`` to a hidden file beside ``path``, flush it to disk and
-    rename it onto ``path``."""
-    tmp = _temp_name(path)
-    try:
-        with open(tmp, "xb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    fsync_dir(path.parent)
+    """Write ``data`` to ``path`` through the one output writer
+    (:func:`compiler.export.atomic.write_file`: a hidden file beside it,
+    flushed to disk, renamed onto it)."""
+    atomic.write_file(path, lambda f: f.write(data))
 
 
 def _leftover(name: str) -> int | None:

@@ -7,7 +7,7 @@ import os
 import sys
 
 from ..physics import COHERENCE_RULE
-from ..report.fmt import fmt_fidelity, fmt_ratio, fmt_sci
+from ..numfmt import fmt_fidelity, fmt_ratio, fmt_sci
 from ..units import format_quantity
 from .table import best_point, values_text
 from .types import INVALID, OK

@@ -33,13 +33,24 @@ from functools import lru_cache
 
 import numpy as np
 
-from .. import analog, program as P
+from .. import analog
 from ..device.model import Device
 from ..errors import Problem, SynthesisError, read_source_line
 from ..physics import precession_sign
-from ..schedule.timeline import TRIGGER_WIDTH, Slot, Timeline
+from ..schedule.timeline import TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline
 from ..units import TIME, VOLTAGE, format_quantity as fq
 from .types import Output, StepRecord, Waveforms
+
+
+# What each kind of slot puts into the outputs (the handlers in synthesize):
+# every kind a timeline can hold (compiler.steps.KINDS but 'together', which
+# the scheduler opens, and 'pad', which synthesis adds itself).
+SLOT_RENDER = {
+    "rot": "burst", "zcorrect": "burst",
+    "sqrtswap": "exchange", "sqrtswap_inv": "exchange", "swap": "exchange",
+    "read": "readout", "trigger": "trigger", "zrot": "frame",
+    "wait": "time", "phasewait": "time",
+}
 
 
 @lru_cache(maxsize=4096)
@@ -168,6 +179,57 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
             dc[name] = idle_of.get(name, 0.0) if c.bias_tee > 0 else 0.0
 
     own: dict[str, np.ndarray] = {}
+
+    def burst(s: Slot, a: int, b: int) -> dict:
+        if s.n == 0:
+            return {}
+        q = s.qubits[0]
+        dot = device.dots[q]
+        line = chans[dot.drive.line]
+        f_if = device.larmor(q) - line.lo
+        phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
+        shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+        amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
+                                          math.sin(phi + 2 * math.pi * f_if * a * dt))
+        # kept as (amplitude, shared cached shape): no per-burst array
+        events[line.name].append((a, b, (amp, shape), "add"))
+        if per_dot:
+            own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += amp * shape
+        params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
+                  "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
+                  "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
+        if isinstance(s.info, BurstInfo):
+            params["frame_rad"] = s.info.frame
+        return params
+
+    def exchange(s: Slot, a: int, b: int) -> dict:
+        d = s.exchange
+        c = device.coupling(*s.qubits)
+        events[c.barrier].append((a, b, d.samples(), "set"))
+        for dd, offset in c.detune:
+            events[device.dots[dd].plunger].append((a, b, float(offset), "add"))
+        info = s.info
+        return {"level_V": d.level, "idle_V": d.idle, "j_peak_Hz": d.j_peak,
+                "exchange_integral": d.integral, "target_integral": d.target,
+                "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
+                "frame_updates_rad": dict(info.frame_updates),
+                "frame_fidelity": info.frame_fidelity,
+                "zeeman_difference_Hz": info.zeeman_difference_Hz}
+
+    def readout(s: Slot, a: int, b: int) -> dict:
+        events[device.readout.marker].append((a, b, 1.0, "set"))
+        return {}
+
+    def trigger(s: Slot, a: int, b: int) -> dict:
+        w = int(math.ceil(TRIGGER_WIDTH / dt - 1e-9))
+        events[device.readout.trigger_marker].append((a, min(a + w, n), 1.0, "set"))
+        return {"label": s.step.label, "width_s": w * dt}
+
+    def frame(s: Slot, a: int, b: int) -> dict:
+        return {"angle_rad": s.step.angle, "frame_rad": s.info.frame}
+
+    handlers = {"burst": burst, "exchange": exchange, "readout": readout, "trigger": trigger,
+                "frame": frame, "time": lambda s, a, b: {}}
     records: list[StepRecord] = []
     texts: dict = {}          # repeated steps share their source text and channel list
     chan_of: dict = {}
@@ -180,47 +242,9 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         ch_list = chan_of.get(s.resources)
         if ch_list is None:
             ch_list = chan_of[s.resources] = _slot_channels(s, device)
-        params: dict = {}
-        if s.burst is not None and s.n > 0:
-            q = s.qubits[0]
-            dot = device.dots[q]
-            line = chans[dot.drive.line]
-            f_if = device.larmor(q) - line.lo
-            phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-            shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
-            amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
-                                              math.sin(phi + 2 * math.pi * f_if * a * dt))
-            # kept as (amplitude, shared cached shape): no per-burst array
-            events[line.name].append((a, b, (amp, shape), "add"))
-            if per_dot:
-                own.setdefault(q, np.zeros(n, dtype=complex))[a:b] += amp * shape
-            params = {"angle_rad": s.burst.angle, "axis_phase_rad": s.burst.phase,
-                      "play_phase_rad": s.play_phase, "amplitude_V": s.burst.amplitude,
-                      "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
-            if s.step is not None:
-                params["frame_rad"] = s.info.get("frame", 0.0)
-        elif s.exchange is not None:
-            d = s.exchange
-            c = device.coupling(*s.qubits)
-            events[c.barrier].append((a, b, d.samples(), "set"))
-            for dd, offset in c.detune:
-                events[device.dots[dd].plunger].append((a, b, float(offset), "add"))
-            params = {"level_V": d.level, "idle_V": d.idle, "j_peak_Hz": d.j_peak,
-                      "exchange_integral": d.integral, "target_integral": d.target,
-                      "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
-                      "frame_updates_rad": s.info.get("frame_updates", {}),
-                      "frame_fidelity": s.info.get("frame_fidelity", 1.0),
-                      "zeeman_difference_Hz": s.info.get("zeeman_difference_Hz", 0.0)}
-        elif isinstance(s.step, P.Readout):
-            events[device.readout.marker].append((a, b, 1.0, "set"))
-        elif isinstance(s.step, P.Trigger):
-            w = int(math.ceil(TRIGGER_WIDTH / dt - 1e-9))
-            events[device.readout.trigger_marker].append((a, min(a + w, n), 1.0, "set"))
-            params = {"label": s.step.label, "width_s": w * dt}
-        elif isinstance(s.step, P.FrameRotation):
-            params = {"angle_rad": s.step.angle, "frame_rad": s.info.get("frame", 0.0)}
-        if s.info.get("reason"):
-            params["reason"] = s.info["reason"]
+        params = handlers[SLOT_RENDER[s.kind]](s, a, b)
+        if isinstance(s.info, InsertedInfo) and s.info.reason:
+            params["reason"] = s.info.reason
         records.append(StepRecord(len(records), s.kind, s.qubits, a, b, ch_list, src, text, params))
     if n > tl.n_samples:
         records.append(StepRecord(len(records), "pad", (), tl.n_samples, n, tuple(chans), "", "",
