@@ -22,10 +22,11 @@ from pathlib import Path
 
 from . import limits
 from .check import check
+from .check.lines import summed_tone_problems
 from .check.summary import Summary, summarize
 from .device import device_of, load_device
 from .device.model import Device
-from .errors import DotseqError
+from .errors import CheckError, DotseqError, ProblemCap, SequenceError
 from .expand import expand
 from .parse import parse_path, parse_text
 from .program import Expanded
@@ -71,12 +72,96 @@ def load(path: str | Path, device: str | Path | None = None, *,
     budget = limits.budget(memory_limit)
     with _bulk():
         # the tree is dropped once expanded: its memory is reused by the schedule
-        expanded = expand(parse_path(path, budget=budget, confine=confine), budget=budget)
-        dev = device_of(expanded, device, confine=confine)
-        check(expanded, dev)
-        log = DEFAULT_OPTIONS.frame_log_steps
-        timelines = tuple(schedule(r, dev, record_frames=log) for r in expanded.runs)
+        found: list = []
+        expanded = expand(parse_path(path, budget=budget, confine=confine), budget=budget,
+                          collect=found)
+        # the problems of expansion, device, checking and scheduling in one round
+        cap = ProblemCap()
+        first: list = []
+
+        seen: set = set()
+
+        def note(err: DotseqError) -> None:
+            first.append(type(err))
+            for p in err.problems:          # a let is evaluated once per pass: report it once
+                if (p.message, p.span) not in seen:
+                    seen.add((p.message, p.span))
+                    cap.add(p)
+            cap.more += err.more
+
+        if found:
+            note(SequenceError(found))
+        try:
+            dev = device_of(expanded, device, confine=confine)
+        except DotseqError as e:
+            if not cap:
+                raise
+            note(e)
+            _raise_collected(cap, first)
+        try:
+            check(expanded, dev)
+            runs = expanded.runs
+        except CheckError as e:
+            note(e)
+            # the steps check refused (unknown dots, uncoupled pairs, missing
+            # markers) are left out; the rest is scheduled for its own problems
+            runs = tuple(_checked_steps(r, dev) for r in expanded.runs)
+        timelines: tuple = ()
+        try:
+            log = DEFAULT_OPTIONS.frame_log_steps
+            timelines = tuple(schedule(r, dev, record_frames=log) for r in runs)
+            check_timelines(timelines, dev)
+        except DotseqError as e:
+            note(e)
+        if cap:
+            _raise_collected(cap, first)
     return Checked(expanded, dev, timelines)
+
+
+def _checked_steps(run, dev: Device):
+    """``run`` without the steps :func:`check` refuses."""
+    from dataclasses import replace
+    from . import program as P
+
+    def ok(s) -> bool:
+        if not all(q in dev.dots for q in P.step_qubits(s)):
+            return False
+        if isinstance(s, P.ExchangeGate):
+            return dev.coupling(s.a, s.b) is not None
+        if isinstance(s, P.Readout):
+            return bool(dev.readout.marker)
+        if isinstance(s, P.Trigger):
+            return bool(dev.readout.trigger_marker)
+        return True
+
+    steps = []
+    for s in run.steps:
+        if isinstance(s, P.Parallel):
+            inner = tuple(m for m in s.steps if ok(m))
+            if inner:
+                steps.append(replace(s, steps=inner))
+        elif ok(s):
+            steps.append(s)
+    return replace(run, steps=tuple(steps),
+                   prepare=tuple(p for p in run.prepare if p[0] in dev.dots))
+
+
+def _raise_collected(cap: ProblemCap, classes: list) -> None:
+    """One error with every problem found (the class of the first stage that
+    found one), capped like the parser's: MAX_SHOWN shown, the rest counted."""
+    raise classes[0](cap.problems, more=cap.more, more_note="")
+
+
+def check_timelines(timelines, device: Device) -> None:
+    """Checks of the scheduled runs against the device: the peak of tones
+    summed on one line (raises CheckError naming the group)."""
+    from .errors import CheckError
+    problems: dict = {}
+    for tl in timelines:
+        for p in summed_tone_problems(tl, device):
+            problems.setdefault((p.message, p.span), p)
+    if problems:
+        raise CheckError(list(problems.values()))
 
 
 def check_file(path: str | Path, device: str | Path | None = None, *,

@@ -220,3 +220,34 @@ def tone_burst(envelope: np.ndarray, if_freq: float, dt: float, tau: float) -> n
     coef_y = r_last * dt * s1 + r_end * tail * a
     x[kl] = (e[kl] * dt - coef_y * y[kl]) / coef_x
     return x
+
+
+def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: float,
+                            start: int, dt: float, tau: float, v_min: float, v_max: float,
+                            bits: int) -> tuple[float, bool]:
+    """Fraction of a burst's drive area lost to the DAC codes, and whether
+    nothing is left (every sample on the same code pair).
+
+    The burst alone (A·e^{iφ}·e^{iω t0}·x_k, :func:`tone_burst`) is rounded to
+    the I and Q codes; the played area along the ideal one is the projection
+    Σ q_k·conj(x_k) / Σ |x_k|², and the loss is |1 − that| (an error of
+    length or of axis alike).  A cheap bound skips the rounding when the
+    loss is surely below 1e-3: each code is at most half an LSB off, so the
+    loss is at most (LSB/√2)·n / (A·Σ|e_k|)."""
+    e = np.asarray(envelope, dtype=float)
+    n = len(e)
+    if n == 0 or amplitude <= 0:
+        return 0.0, False
+    q = lsb(v_min, v_max, bits)
+    bound = (q / math.sqrt(2)) * n / (amplitude * float(np.abs(e).sum()))
+    if bound < 1e-3:
+        return bound, False
+    x = amplitude * np.exp(1j * (phase + 2 * math.pi * if_freq * start * dt)) * tone_burst(
+        e, if_freq, dt, tau)
+    def rq(v):
+        return np.rint((v - v_min) / q) * q + v_min
+    zero = complex(rq(np.zeros(1))[0], rq(np.zeros(1))[0])
+    played = rq(x.real) + 1j * rq(x.imag) - zero
+    ratio = complex(np.vdot(x, played) / np.vdot(x, x))
+    nothing = bool(np.all(played == 0))
+    return abs(1 - ratio), nothing

@@ -100,7 +100,46 @@ def build_parser() -> argparse.ArgumentParser:
     _common(r)
     _sim_flags(r)
     _sweep_parser(sub)
+    _rb_parser(sub)
     return p
+
+
+def _rb_parser(sub) -> None:
+    b = sub.add_parser("rb", help="randomized benchmarking of one or two qubits: random Clifford "
+                       "sequences written as .dotseq files, simulated, fitted (rb.json, rb.png)",
+                       description="Generate random Clifford sequences of the given lengths "
+                       "(each ending with the inverting Clifford) in the device's native steps, "
+                       "simulate them with the full model on the local cores, fit A·p^m + B and "
+                       "report the error per Clifford and per native step with confidence "
+                       "intervals, optionally interleaved RB of one step, and compare with the "
+                       "simulated per-step fidelities (docs/rb.md). Exit codes: 0 done, 2 bad "
+                       "input, 3 internal error, 130 interrupted (finished simulations kept; "
+                       "continue with --resume).")
+    b.add_argument("source", metavar="FILE_OR_DEVICE", help="device description (.yaml) or a "
+                   "sequence file whose device statement names it")
+    b.add_argument("-o", "--out", required=True, help="folder for rb.json, rb.png, the sequences "
+                   "and the state file survival.jsonl")
+    b.add_argument("--qubits", nargs="+", required=True, metavar="Q",
+                   help="one qubit (single-qubit RB) or a coupled pair (two-qubit RB)")
+    b.add_argument("--lengths", default="1,2,4,8,16,32,64", help="sequence lengths in Cliffords, "
+                   "separated by commas (default 1,2,4,8,16,32,64)")
+    b.add_argument("--sequences", type=int, default=20, help="random sequences per length "
+                   "(default 20)")
+    b.add_argument("--seed", type=int, default=0, help="seed of the random sequences (default 0)")
+    b.add_argument("--interleave", metavar="STEP", help="interleaved RB of this step: 'rot Q AXIS "
+                   "ANGLE' (x, y, -x, -y, z; ±90 or 180) or, on two qubits, 'cz' (two √SWAP "
+                   "around a z rotation)")
+    b.add_argument("--decomposition", default="virtual-z", help="native decomposition: virtual-z "
+                   "(default; z rotations as frame updates) or, on one qubit, xy")
+    b.add_argument("--resamples", type=int, default=200, help="bootstrap resamples over the "
+                   "sequences for the 95 %% intervals (default 200)")
+    b.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    _worker_flags(b, "simulate", "the sequences travel with the tasks; ")
+    b.add_argument("--resume", action="store_true", help="continue the unfinished run in the -o "
+                   "folder (same device and arguments)")
+    _model_flags(b)
+    b.add_argument("--quiet", action="store_true", help="no progress bar")
+    b.add_argument("--json", action="store_true", help="print rb.json on stdout for scripts")
 
 
 SWEEP_EPILOG = (
@@ -137,46 +176,49 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--confine", action="store_true", help=CONFINE_HELP)
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
-    w.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
-                   "the number of cores; 1 computes in this process)")
+    _worker_flags(w, "compute", "")
     w.add_argument("--more-workers-than-cores", action="store_true", help="start as many local "
                    "worker processes as --workers asks even when that is more than the cores "
                    "(otherwise capped at the core count)")
-    w.add_argument("--cluster", metavar="tcp://HOST:PORT", help="compute on this Dask scheduler "
-                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); needs "
-                   "pip install 'dotseq[dask]'")
-    w.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
-                   help="give up on a --cluster address that does not answer as a Dask scheduler "
-                   "within this time (default 10)")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
-    w.add_argument("--engine", choices=("fast", "reference"), default="fast",
-                   help="fast (default) or reference (qutip mesolve, slow)")
-    w.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
-                   "variable (default 5)")
-    w.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
-                   help="full product grid, one noise at a time, or auto (default)")
-    w.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
-                   "(default 2)")
+    _model_flags(w)
     w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
                    "--substeps of 64 or more; slow)")
     w.add_argument("--quiet", action="store_true", help="no progress bar")
     w.add_argument("--json", action="store_true", help="print sweep.json on stdout for scripts")
 
 
-def _sim_flags(p) -> None:
+def _worker_flags(p, verb: str, cluster_note: str) -> None:
+    """Where the many simulations of a sweep or an rb run are computed."""
+    p.add_argument("--workers", type=int, default=None, help="local worker processes (default: "
+                   "the number of cores; 1 computes in this process)")
+    p.add_argument("--cluster", metavar="tcp://HOST:PORT", help=f"{verb} on this Dask scheduler "
+                   "(default: the DOTSEQ_CLUSTER environment variable; 'local' ignores it); "
+                   f"{cluster_note}needs pip install 'dotseq[dask]'")
+    p.add_argument("--cluster-timeout", type=float, default=None, metavar="SECONDS",
+                   help="give up on a --cluster address that does not answer as a Dask scheduler "
+                   "within this time (default 10)")
+
+
+def _model_flags(p) -> None:
+    """The simulation's engine and accuracy (simulate, run, sweep, rb)."""
     from .simulate.engines import ENGINES
     p.add_argument("--engine", choices=tuple(ENGINES), default="fast",
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
-    p.add_argument("--run", type=int, default=0, dest="detail_run",
-                   help="run of a sweep that gets per-step fidelities, the budget and traces")
     p.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
                    "variable (default 5)")
     p.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
                    help="full product grid, one noise at a time (exact to second order), or auto")
     p.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
                    "(default 2)")
+
+
+def _sim_flags(p) -> None:
+    p.add_argument("--run", type=int, default=0, dest="detail_run",
+                   help="run of a sweep that gets per-step fidelities, the budget and traces")
+    _model_flags(p)
     p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
                    "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
     p.add_argument("--no-budget", action="store_true", help="skip the error budget")
@@ -302,7 +344,7 @@ def cmd_preview(args) -> int:
                          f"(0..{n - 1})")
     wf = _synthesised(args, checked, runs=[args.run])[0].waveforms[0]
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
-    sweep = ", ".join(f"{k} = {v:g}" for k, v in wf.sweep)
+    sweep = checked.timelines[args.run].run.sweep_text()
     title = f"{args.file} (run {args.run}{': ' + sweep if sweep else ''}) on {checked.device.name}"
     out = preview(wf, args.out, start=_time_arg(args.t_from, "--from"),
                   stop=_time_arg(args.t_to, "--to"), step=args.step, title=title, lo=lo)
@@ -462,6 +504,64 @@ def cmd_sweep(args) -> int:
             "failed": EXIT_INTERNAL}[outcome.status]
 
 
+def cmd_rb(args) -> int:
+    import signal
+    from .benchmarking.run import Progress, RBSettings, parse_lengths, plan_rb, run_rb, \
+        summary_lines
+    import os
+    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address, connect,
+                                local_cores)
+    cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
+    cluster = cluster.strip() or None
+    if cluster == "local":
+        cluster = None
+    if cluster and args.workers is not None:
+        raise UsageError("--workers sets the local worker processes, but the simulations go to "
+                         f"the Dask cluster {cluster}", hint="drop --workers, or give --cluster "
+                         "local to compute here")
+    timeout = DEFAULT_CLUSTER_TIMEOUT if args.cluster_timeout is None else args.cluster_timeout
+    if not 0 < timeout <= 3600:
+        raise UsageError(f"--cluster-timeout {timeout:g}: give from 0 to 3600 seconds",
+                         hint="e.g. --cluster-timeout 30")
+    if cluster:
+        cluster = check_address(cluster)
+    settings = RBSettings(tuple(args.qubits), parse_lengths(args.lengths), args.sequences,
+                          args.seed, args.decomposition, args.interleave, args.engine, args.nodes,
+                          args.quadrature, args.substeps, args.resamples)
+    workers = args.workers if args.workers is not None else local_cores()
+    if workers < 1:
+        raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    workers = min(workers, local_cores())
+    from .simulate import SimOptions
+    SimOptions(engine=args.engine, nodes=args.nodes, quadrature=args.quadrature,
+               substeps=args.substeps).check()
+    plan = plan_rb(args.source, settings, device=args.device)
+    connection = None
+    if cluster:
+        if not args.debug:           # dotseq reports lost simulations itself
+            import logging
+            logging.getLogger("distributed").setLevel(logging.CRITICAL)
+        connection = connect(cluster, timeout)
+
+    def on_term(signum, frame):
+        raise KeyboardInterrupt
+    old_term = signal.signal(signal.SIGTERM, on_term)
+    try:
+        outcome = run_rb(plan, args.out, workers=workers, resume=args.resume,
+                         progress=Progress(enabled=not args.quiet), cluster=connection)
+    except KeyboardInterrupt:
+        print(f"dotseq rb: interrupted; every finished simulation is kept in {args.out}/"
+              "survival.jsonl: continue with the same arguments and --resume", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    finally:
+        signal.signal(signal.SIGTERM, old_term)
+    if args.json and outcome.data is not None:
+        print((outcome.folder / "rb.json").read_text(), end="")
+    else:
+        print("\n".join(summary_lines(outcome)), file=sys.stderr if args.json else sys.stdout)
+    return {"complete": EXIT_OK, "invalid": EXIT_INPUT, "failed": EXIT_INTERNAL}[outcome.status]
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
@@ -474,7 +574,8 @@ def main(argv: list[str] | None = None) -> int:
             _make_parent(args.out)
         args.argv = argv
         return {"check": cmd_check, "compile": cmd_compile, "preview": cmd_preview,
-                "simulate": cmd_simulate, "run": cmd_run, "sweep": cmd_sweep}[args.command](args)
+                "simulate": cmd_simulate, "run": cmd_run, "sweep": cmd_sweep,
+                "rb": cmd_rb}[args.command](args)
     except DotseqError as e:
         if want_json:
             print(json.dumps(e.to_dict(), indent=2))

@@ -115,6 +115,14 @@ class Run:
     sweep: tuple[tuple[str, float], ...]   # (name, SI value) per axis
     prepare: tuple[tuple[str, str, Span], ...]   # (qubit, state, span) as declared
     steps: tuple[Step, ...]
+    sweep_dims: tuple[Dim, ...] = ()       # the dimension of each sweep value (for printing)
+
+    def sweep_text(self) -> str:
+        """``tau = 400 ns, amp = 20 mV``: this run's sweep point with units."""
+        from .units import format_quantity
+        dims = self.sweep_dims if len(self.sweep_dims) == len(self.sweep) else ()
+        return ", ".join(f"{n} = {format_quantity(v, dims[i])}" if dims else f"{n} = {v:g}"
+                         for i, (n, v) in enumerate(self.sweep))
 
 
 @dataclass(frozen=True, slots=True)

@@ -31,6 +31,7 @@ from . import analog, shapes
 from .device import exchange as X
 from .device.model import Coupling, Device, RotationDefaults
 from .steps import EXCHANGE_GATES
+from .units import VOLTAGE, format_quantity as fq
 
 SETTLE_TAUS = 12.0     # an exchange slot lasts until the RC tail is e^-12 ≈ 6e-6 of the step
 GL_NODES = 12          # Gauss–Legendre nodes per sample for ∫J(V(t))dt
@@ -46,6 +47,39 @@ class DesignError(ValueError):
 
 
 MAX_PULSE_SAMPLES = 2 ** 53     # sample counts stay exact integers in float64
+
+# An explicit duration= or amplitude= on a step is honoured or refused, never
+# quietly replaced: the played value may differ from the request only by what
+# the sample grid forces, at most this fraction (common practice, no source).
+REQUEST_TOLERANCE = 0.05
+
+
+def _grid_text(t: float, dt: float) -> str:
+    from .units import TIME, format_quantity as fq
+    lo = max(1, math.floor(t / dt))
+    cands = sorted({lo, lo + 1})
+    return " or ".join(f"{fq(k * dt, TIME)} ({k} sample{'s' * (k != 1)})" for k in cands)
+
+
+def check_duration_request(t: float, dt: float, what: str) -> None:
+    """Refuse an explicit duration the sample grid cannot realise: one that
+    rounds to no sample, or that the nearest whole number of samples changes
+    by more than :data:`REQUEST_TOLERANCE`.  The hint names the nearest
+    realisable durations."""
+    if not math.isfinite(t) or t / dt > MAX_PULSE_SAMPLES:
+        return                   # _samples reports it
+    n = int(round(t / dt))
+    if n >= 1 and abs(n * dt - t) <= REQUEST_TOLERANCE * t + 1e-12 * dt:
+        return
+    from .units import TIME, format_quantity as fq
+    if n < 1:
+        msg = (f"the {what} duration {fq(t, TIME)} is shorter than half a sample "
+               f"({fq(dt, TIME)} per sample): the grid cannot play it")
+    else:
+        msg = (f"the {what} duration {fq(t, TIME)} is not realisable on the sample grid "
+               f"({fq(dt, TIME)} per sample): the nearest, {fq(n * dt, TIME)}, differs by "
+               f"{abs(n * dt - t) / t:.0%}, more than the {REQUEST_TOLERANCE:.0%} allowed")
+    raise DesignError(msg, f"nearest realisable: duration={_grid_text(t, dt)}")
 
 
 def _samples(t: float, dt: float, what: str, ceil: bool = False) -> int:
@@ -106,6 +140,8 @@ def design_burst(angle: float, phase: float, rabi_per_volt: float, dt: float,
         n = _samples(t_cont, dt, "burst", ceil=True)
     else:
         t = duration if duration is not None else rot.duration
+        if duration is not None:
+            check_duration_request(duration, dt, "burst")
         n = _samples(t, dt, "burst")
     if n > MAX_BURST_SAMPLES:
         raise DesignError(f"this burst would last {n:,} samples ({n * dt * 1e3:.4g} ms), more than "
@@ -117,7 +153,29 @@ def design_burst(angle: float, phase: float, rabi_per_volt: float, dt: float,
     if area <= 0:
         raise DesignError(f"a {shape} burst of {n} samples has no area",
                           "use a longer burst or another shape")
-    return BurstDesign(n, need / area, shape, env, theta, axis)
+    played = need / area
+    if amplitude is not None and played < (1 - REQUEST_TOLERANCE) * abs(amplitude):
+        _refuse_burst_amplitude(abs(amplitude), played, n, need, shape, dt, rot)
+    return BurstDesign(n, played, shape, env, theta, axis)
+
+
+def _refuse_burst_amplitude(amp: float, played: float, n: int, need: float, shape: str,
+                            dt: float, rot: RotationDefaults) -> None:
+    """An explicit burst amplitude that a whole number of samples cannot
+    realise: the realisable amplitudes nearest to it (n and n − 1 samples)."""
+    from .units import TIME, VOLTAGE, format_quantity as fq
+    opts = [f"amplitude={fq(played, VOLTAGE)} ({n} sample{'s' * (n != 1)})"]
+    if n > 1:
+        env = _envelope(shape, n - 1, dt, rot.sigmas, rot.edge)
+        area = math.fsum(env) * dt
+        if area > 0:
+            opts.append(f"amplitude={fq(need / area, VOLTAGE)} ({n - 1} sample{'s' * (n != 2)})")
+    raise DesignError(
+        f"the burst amplitude {fq(amp, VOLTAGE)} is not realisable on the sample grid: this "
+        f"rotation then takes {fq(n * dt, TIME)} ({n} sample{'s' * (n != 1)}) and its amplitude "
+        f"would have to drop to {fq(played, VOLTAGE)} ({1 - played / amp:.0%} lower, more than "
+        f"the {REQUEST_TOLERANCE:.0%} allowed)",
+        "nearest realisable: " + " or ".join(opts) + "; or give duration= instead")
 
 
 # ------------------------------------------------------------------ exchange
@@ -218,6 +276,47 @@ def j_integral(model, level: float, idle: float, pre: int, n: int, post: int, dt
     return float(math.fsum(np.concatenate(parts))) if parts else 0.0
 
 
+def _at_level(integral, model, v0: float, idle: float, target: float, dt: float):
+    """(samples, level) of a pulse at ``v0``: the fewest samples whose
+    integral reaches the target, the level then lowered to hit it exactly."""
+    j0 = float(X.j_of_v(model, v0))
+    n = max(1, math.ceil(target / (j0 * dt)) - 2) if j0 > 0 else 10_000_001
+    while integral(v0, n) < target:
+        n += 1
+        if n > 10_000_000:
+            raise DesignError("the exchange pulse would be longer than 10^7 samples",
+                              "raise the barrier level")
+    level = brentq(lambda v: integral(v, n) - target, idle, v0, xtol=1e-16, rtol=1e-15,
+                   maxiter=200)
+    return n, float(level)
+
+
+def _highest_realisable(level: float, idle: float) -> float:
+    """The highest request that the same sample count realises within
+    REQUEST_TOLERANCE, given the level that count needs: an amplitude v gets
+    that count for v from ``level`` up, and is honoured while
+    v − level ≤ tol·(v − idle), i.e. up to (level − tol·idle)/(1 − tol).
+    Rounded down to 0.1 mV, so the value printed is itself realisable."""
+    top = (level - REQUEST_TOLERANCE * idle) / (1 - REQUEST_TOLERANCE)
+    return max(math.floor(top * 1e4) / 1e4, math.ceil(level * 1e4) / 1e4)
+
+
+def _shortest_exchange_hint(integral, hi: float, n: int, target: float, dt: float) -> str:
+    """Hint naming the shortest duration the top of the barrier range allows."""
+    from .units import TIME, format_quantity as fq
+    k = max(n, 1)
+    while integral(hi, k) < target:
+        k *= 2
+        if k > 10_000_000:
+            return "give a longer duration, or extend the J(V) calibration / channel range"
+    lo = k // 2 if k > n else n
+    while k - lo > 1:
+        mid = (lo + k) // 2
+        lo, k = (mid, k) if integral(hi, mid) < target else (lo, mid)
+    return (f"the shortest realisable at the top of the range is duration={fq(k * dt, TIME)} "
+            f"({k} samples); or extend the J(V) calibration / channel range")
+
+
 def design_exchange(gate: str, coupling: Coupling, device: Device, dt: float,
                     duration: float | None = None, amplitude: float | None = None) -> ExchangeDesign:
     """Barrier pulse for an exchange gate, solved through the coupling's J(V)
@@ -250,12 +349,13 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
         return j_integral(model, level, idle, pre, n, post, dt, tau)
 
     if duration is not None:
+        check_duration_request(duration, dt, "exchange pulse")
         n = _samples(duration, dt, "exchange pulse")
         if integral(hi, n) < target:
             raise DesignError(
                 f"even at the top of the barrier range ({hi * 1e3:.4g} mV) exchange over "
                 f"{n} samples stays below the {gate} target",
-                "give a longer duration, or extend the J(V) calibration / channel range")
+                _shortest_exchange_hint(integral, hi, n, target, dt))
         level = brentq(lambda v: integral(v, n) - target, idle, hi, xtol=1e-16, rtol=1e-15,
                        maxiter=200)
     else:
@@ -264,21 +364,38 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
             raise DesignError(f"the coupling {'-'.join(coupling.dots)} has no pulse_voltage",
                               "give amplitude= or duration= on the step, or pulse_voltage in "
                               "the device file")
+        if amplitude is not None and not (ch.v_min <= v0 <= top):
+            near = min(max(v0, ch.v_min), top, hi_v)
+            if near > idle:
+                try:
+                    _, lev = _at_level(integral, model, near, idle, target, dt)
+                    if near - lev > REQUEST_TOLERANCE * (near - idle):
+                        near = _highest_realisable(lev, idle)
+                except DesignError:
+                    pass
+            raise DesignError(f"the barrier level {fq(v0, VOLTAGE)} is outside the range of "
+                              f"channel '{ch.name}' ({fq(ch.v_min, VOLTAGE, 6)} to {fq(top, VOLTAGE, 6)})",
+                              f"nearest realisable: amplitude={fq(near, VOLTAGE)}"
+                              + ("" if near > idle else
+                                 f"; exchange needs a level above idle ({idle * 1e3:.4g} mV)"))
         if not (lo_v <= v0 <= hi_v):
             raise DesignError(f"the barrier level {v0 * 1e3:.4g} mV is outside the J(V) "
-                              "calibration", "stay inside the calibration table")
+                              f"calibration ({lo_v * 1e3:.4g} mV to {hi_v * 1e3:.4g} mV)",
+                              "stay inside the calibration table")
         if v0 <= idle:
             raise DesignError(f"the barrier level {v0 * 1e3:.4g} mV is not above the idle "
                               f"level {idle * 1e3:.4g} mV", "raise amplitude=")
-        j0 = float(X.j_of_v(model, v0))
-        n = max(1, math.ceil(target / (j0 * dt)) - 2)
-        while integral(v0, n) < target:
-            n += 1
-            if n > 10_000_000:
-                raise DesignError("the exchange pulse would be longer than 10^7 samples",
-                                  "raise the barrier level")
-        level = brentq(lambda v: integral(v, n) - target, idle, v0, xtol=1e-16, rtol=1e-15,
-                       maxiter=200)
+        n, level = _at_level(integral, model, v0, idle, target, dt)
+        if amplitude is not None and v0 - level > REQUEST_TOLERANCE * (v0 - idle):
+            near = _highest_realisable(level, idle)
+            raise DesignError(
+                f"the barrier level {v0 * 1e3:.4g} mV is not realisable on the sample grid: "
+                f"J there is {float(X.j_of_v(model, v0)):.3g} Hz, so the {gate} pulse would last "
+                f"{n} sample{'s' * (n != 1)} and its level would have to drop to "
+                f"{level * 1e3:.4g} mV to give the exact exchange (more than "
+                f"{REQUEST_TOLERANCE:.0%} of the pulse height)",
+                (f"nearest realisable: amplitude={fq(near, VOLTAGE)} (or lower)"
+                 if near is not None else "give a lower amplitude= or duration="))
     return ExchangeDesign(gate, pre, n, post, float(level), idle, float(X.j_of_v(model, level)),
                           integral(level, n), target, tau, dt)
 
@@ -550,14 +667,12 @@ def frame_updates_after(design: ExchangeDesign, model, delta: float, xi: float,
 SPECTATOR_SUBSTEPS = 4
 
 
-@lru_cache(maxsize=16384)
-def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
-                    sign: int) -> float:
-    """z angle α (rad) that a burst leaves on a spectator dot whose rotating
-    frame is ``detuning`` (Hz) away from the burst's tone: the spectator's
-    propagator is closest to Rz(α) = exp(−iασz/2).  Frame update: F −= α."""
-    if design.n == 0 or detuning == 0:
-        return 0.0
+def _spectator_propagator(design: BurstDesign, rabi_per_volt: float, detuning: float,
+                          dt: float, sign: int) -> np.ndarray:
+    """2×2 propagator of a spectator dot under a burst designed for another
+    dot, in the spectator's rotating frame, whose frame is ``detuning`` (Hz)
+    away from the burst's tone: exact exponentials of the sampled envelope,
+    SPECTATOR_SUBSTEPS per sample."""
     m = SPECTATOR_SUBSTEPS
     h = dt / m
     t = (np.arange(design.n * m) + 0.5) * h
@@ -577,4 +692,31 @@ def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, 
     M[:, 1, 1] = c
     M[:, 0, 1] = -1j * s * (nx - 1j * ny)
     M[:, 1, 0] = -1j * s * (nx + 1j * ny)
-    return float(-2 * np.angle(ordered_product(M)[0, 0]))
+    return ordered_product(M)
+
+
+@lru_cache(maxsize=16384)
+def spectator_phase(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
+                    sign: int) -> float:
+    """z angle α (rad) that a burst leaves on a spectator dot whose rotating
+    frame is ``detuning`` (Hz) away from the burst's tone: the spectator's
+    propagator is closest to Rz(α) = exp(−iασz/2).  Frame update: F −= α."""
+    if design.n == 0 or detuning == 0:
+        return 0.0
+    U = _spectator_propagator(design, rabi_per_volt, detuning, dt, sign)
+    return float(-2 * np.angle(U[0, 0]))
+
+
+@lru_cache(maxsize=16384)
+def spectator_flip(design: BurstDesign, rabi_per_volt: float, detuning: float, dt: float,
+                   sign: int = 1) -> float:
+    """Probability |U_↓↑|² that a burst designed for one dot flips a spectator
+    dot ``detuning`` (Hz) away on the same line, from the exact propagation
+    of the sampled envelope (:func:`_spectator_propagator`).  For a square
+    burst of Rabi frequency Ω/2π and length t this is the off-resonant Rabi
+    formula P = Ω²/(Ω²+Δ²)·sin²(√(Ω²+Δ²)·t/2) (Rabi, Phys. Rev. 51, 652
+    (1937)); tests/test_check.py compares the two."""
+    if design.n == 0:
+        return 0.0
+    U = _spectator_propagator(design, rabi_per_volt, detuning, dt, sign)
+    return float(min(1.0, abs(U[1, 0]) ** 2))

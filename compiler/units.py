@@ -62,12 +62,15 @@ TEMPERATURE = _d(K=1)
 ENERGY = _d(eV=1)
 FREQ_PER_VOLT = FREQUENCY / VOLTAGE
 FIELD_PER_VOLT = FIELD / VOLTAGE
+FREQ_NOISE = FREQUENCY ** 2 / FREQUENCY     # Hz²/Hz: spectral density of frequency noise
+VOLT_NOISE = VOLTAGE ** 2 / FREQUENCY       # V²/Hz: spectral density of voltage noise
 
 DIM_NAMES = {
     NONE: "a plain number", TIME: "a time", FREQUENCY: "a frequency",
     VOLTAGE: "a voltage", FIELD: "a magnetic field", ANGLE: "an angle",
     TEMPERATURE: "a temperature", ENERGY: "an energy",
     FREQ_PER_VOLT: "a frequency per volt", FIELD_PER_VOLT: "a field per volt",
+    VOLT_NOISE: "a voltage noise density (V^2/Hz)",
 }
 
 # Example units, used in hints ("write it as 40 ns").
@@ -75,6 +78,7 @@ EXAMPLE_UNIT = {
     TIME: "40 ns", FREQUENCY: "10 MHz", VOLTAGE: "100 mV", FIELD: "500 mT",
     ANGLE: "90 deg", TEMPERATURE: "50 mK", ENERGY: "10 ueV",
     FREQ_PER_VOLT: "40 MHz/V", FIELD_PER_VOLT: "1 mT/V",
+    VOLT_NOISE: "1e-12 V^2/Hz",
 }
 
 PREFIX_EXP = {"p": -12, "n": -9, "u": -6, "µ": -6, "μ": -6, "m": -3, "": 0, "k": 3, "M": 6, "G": 9}
@@ -122,6 +126,13 @@ def lookup_unit(symbol: str) -> tuple[float, Dim] | None:
     """Scale to SI and dimension of a unit symbol, possibly compound 'a/b'."""
     if symbol in UNITS:
         return UNITS[symbol]
+    if "^2/" in symbol:
+        # a squared unit per unit (noise densities): 'kHz^2/Hz', 'uV^2/Hz'
+        head, _, tail = symbol.partition("^2/")
+        a, b = UNITS.get(head), UNITS.get(tail)
+        if a and b:
+            return a[0] ** 2 / b[0], a[1] ** 2 / b[1]
+        return None
     if "/" in symbol:
         head, _, tail = symbol.partition("/")
         a, b = UNITS.get(head), UNITS.get(tail)
@@ -131,7 +142,7 @@ def lookup_unit(symbol: str) -> tuple[float, Dim] | None:
 
 
 _NUMBER = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
-_QUANTITY_RE = re.compile(rf"^\s*({_NUMBER})\s*([A-Za-zµμ/]+)?\s*$")
+_QUANTITY_RE = re.compile(rf"^\s*({_NUMBER})\s*([A-Za-zµμ/]+(?:\^2/[A-Za-zµμ]+)?)?\s*$")
 
 
 class UnitError(ValueError):
@@ -195,6 +206,7 @@ def parse_quantity(text: str | float | int, expected: Dim, what: str = "value",
 _DISPLAY = {
     TIME: "s", FREQUENCY: "Hz", VOLTAGE: "V", FIELD: "T", TEMPERATURE: "K",
     ENERGY: "eV", FREQ_PER_VOLT: "Hz/V", FIELD_PER_VOLT: "T/V",
+    VOLT_NOISE: "V^2/Hz",
 }
 _PREFIX_STEPS = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"),
                  (1e-6, "u"), (1e-9, "n"), (1e-12, "p")]
@@ -209,6 +221,9 @@ def format_quantity(value: float, dim: Dim, digits: int = 4) -> str:
     unit = _DISPLAY.get(dim, dim.symbol())
     if value == 0 or not math.isfinite(value):
         return f"{_g(value, digits)} {unit}"
+    if dim == VOLT_NOISE:
+        # a prefix would square with the unit (1 uV^2/Hz = 1e-12 V^2/Hz): none
+        return f"{value:.{digits}g} {unit}"
     mag = abs(value)
     for scale, p in _PREFIX_STEPS:
         if mag >= scale * 0.9995:

@@ -311,3 +311,104 @@ def test_a_broken_statement_is_skipped_without_a_token_per_word(junk, monkeypatc
     with pytest.raises(SequenceSyntaxError):
         parse_text("?" + junk * (100_000 // len(junk)) + "\nwait 1 ns\n", "junk.dotseq")
     assert made[0] < 100, made[0]
+
+
+# issue 14, item 3: an explicit request is honoured or refused, never replaced.
+# (source on the bundled default device unless a device line is given; error
+# class, line, column, message fragment, hint fragment)
+DEMO_PAIR = (Path(__file__).parent.parent / "sequences" / "devices" / "demo_pair.yaml").resolve()
+REQUEST_CASES = [
+    pytest.param("sqrtswap A B amplitude=2 V", "ScheduleError", 1, 1,
+                 "outside the range of channel 'B_AB'", "nearest realisable: amplitude=686.4 mV",
+                 id="exchange-amplitude-beyond-channel"),
+    pytest.param("sqrtswap A B amplitude=600 mV", "ScheduleError", 1, 1,
+                 "not realisable on the sample grid", "nearest realisable: amplitude=473.5 mV",
+                 id="exchange-amplitude-off-grid"),
+    pytest.param("sqrtswap A B duration=0.5 ns", "ScheduleError", 1, 1,
+                 "shorter than half a sample", "duration=1 ns (1 sample)",
+                 id="exchange-duration-below-a-sample"),
+    pytest.param("sqrtswap A B duration=1.4 ns", "ScheduleError", 1, 1,
+                 "differs by 29%", "1 ns (1 sample) or 2 ns (2 samples)",
+                 id="exchange-duration-off-grid"),
+    pytest.param(f'device "{DEMO_PAIR}"\nsqrtswap A B duration=1 ns', "ScheduleError", 2, 1,
+                 "stays below the sqrtswap target", "shortest realisable at the top of the range "
+                 "is duration=5 ns", id="exchange-duration-beyond-calibration"),
+    pytest.param("rot A x 90 deg duration=0.3 ns", "ScheduleError", 1, 1,
+                 "shorter than half a sample", "duration=1 ns", id="burst-duration-below-a-sample"),
+    pytest.param("rot A x 1 deg amplitude=200 mV", "ScheduleError", 1, 1,
+                 "amplitude would have to drop to 138.9 mV",
+                 "amplitude=138.9 mV (2 samples) or amplitude=277.8 mV (1 sample)",
+                 id="burst-amplitude-off-grid"),
+    pytest.param("rot A x 90 deg amplitude=2 V", "ScheduleError", 1, 1,
+                 "burst amplitude 2 V is beyond the ±500 mV range", "amplitude=500 mV",
+                 id="burst-amplitude-beyond-line"),
+    pytest.param(f'device "{DEMO_PAIR}"\nrot A x 0.001 deg', "ScheduleError", 2, 1,
+                 "every code is zero, nothing would be played", "larger amplitude",
+                 id="burst-lost-to-quantisation"),
+]
+
+
+@pytest.mark.parametrize("src, cls, line, col, message, hint", REQUEST_CASES)
+def test_explicit_requests_are_refused_not_replaced(write, src, cls, line, col, message, hint):
+    from compiler import load
+    p = write("req.dotseq", src + "\n")
+    with pytest.raises(DotseqError) as info:
+        load(p)
+    err = info.value
+    assert type(err).__name__ == cls, err.render()
+    q = err.first
+    assert (q.span.line, q.span.col) == (line, col), err.render()
+    assert message in q.message, err.render()
+    assert hint in q.hint, err.render()
+
+
+@pytest.mark.parametrize("src", ["sqrtswap A B amplitude=473.5 mV", "sqrtswap A B amplitude=686.4 mV",
+                                 "rot A x 1 deg amplitude=138.9 mV", "sqrtswap A B duration=1 ns"])
+def test_the_suggested_values_are_realisable(write, src):
+    from compiler import load
+    load(write("ok.dotseq", src + "\n"))
+
+
+def test_a_burst_losing_area_to_quantisation_is_a_warning(write):
+    # 0.05 deg at 500 ns: 74 µV peak against 61 µV per code of a 14-bit ±500 mV line
+    from compiler import check_file
+    s = check_file(write("q.dotseq", f'device "{DEMO_PAIR}"\nrot A x 0.05 deg\n'))
+    w = [w for w in s.warnings if "DAC codes of this burst lose" in w]
+    assert len(w) == 1 and "q.dotseq:2:1" in w[0], s.warnings
+    # a burst well above the code step is silent
+    s = check_file(write("q2.dotseq", f'device "{DEMO_PAIR}"\nrot A x 2 deg\n'))
+    assert not any("DAC codes" in w for w in s.warnings)
+
+
+def test_errors_of_expansion_checking_and_scheduling_come_in_one_round(write):
+    # issue 14, item 6: these used to take four rounds of fixing
+    from compiler import load
+    src = (f'device "{DEMO_PAIR}"\nlet a = 3 V + 2 s\nrot Q x 90 deg\n'
+           "sqrtswap A B amplitude=600 mV\nwait -3 ns\nrot A x 90 deg duration=0.2 ns\n")
+    with pytest.raises(DotseqError) as info:
+        load(write("m.dotseq", src))
+    err = info.value
+    got = [(p.span.line, p.span.col) for p in err.problems]
+    assert sorted(got) == [(2, 9), (3, 5), (4, 1), (5, 6), (6, 1)], err.render()
+    assert type(err) is SequenceError       # the first stage that found a problem
+    assert [p.message for p in err.problems].count("cannot add a time to a voltage in 'a'") == 1
+
+
+def test_collected_errors_are_capped_like_the_parser(write):
+    from compiler import load
+    src = "let a = 3 V + 2 s\n" + "".join(f"rot Q{i} x 90 deg\n" for i in range(14))
+    with pytest.raises(DotseqError) as info:
+        load(write("m.dotseq", src))
+    err = info.value
+    assert len(err.problems) == 10 and err.more == 5
+    assert "... and 5 more" in err.render()
+
+
+def test_a_missing_device_file_points_at_the_device_line(write):
+    from compiler import load
+    from compiler.errors import DeviceError
+    with pytest.raises(DeviceError) as info:
+        load(write("d.dotseq", 'wait 1 ns\ndevice "nothere.yaml"\nrot A x 90 deg\n'))
+    p = info.value.first
+    assert (p.span.file.endswith("d.dotseq"), p.span.line, p.span.col) == (True, 2, 1)
+    assert "cannot read device file" in p.message and "nothere.yaml" in p.message

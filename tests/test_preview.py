@@ -440,3 +440,17 @@ def test_inserted_kinds_have_styles_and_labels_of_their_own():
     assert all(S.step_style(k)[1] for k in ("phasewait", "zcorrect", "pad"))   # hatched
     assert S.step_labels("phasewait", ("A", "B"), {})[0].startswith("phase wait")
     assert S.step_labels("zcorrect", ("A",), {})[0].startswith("z-correct")
+
+
+def test_swept_values_print_with_units_in_the_titles(write):
+    # issue 14, item 6: the subtitle said 'tau = 4e-07'
+    from compiler import compile_file
+    from compiler.preview import resolve_window
+    p = write("s.dotseq", "sweep tau over [100 ns, 400 ns]\nrot A x 90 deg\nwait tau on A\n"
+              "sweep amp over [20 mV, 30 mV]\nrot A x 90 deg amplitude=amp\n")
+    wf = compile_file(p, runs=[1]).waveforms[0]
+    assert wf.sweep_text == "tau = 100 ns, amp = 30 mV"
+    fig = figure_mod.build_figure(wf, resolve_window(wf))
+    texts = [t.get_text() for t in fig.texts]
+    assert any("tau = 100 ns, amp = 30 mV" in t for t in texts), texts
+    assert not any("e-07" in t or "0.03" in t for t in texts)

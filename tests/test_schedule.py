@@ -129,7 +129,7 @@ def test_as_soon_as_possible_placement():
     assert rb.start_sample == pi2                # B shares line mw with A: after A's burst
     assert rc.start_sample == 30                 # C is on its own line, after its wait
     ex = by_kind["sqrtswap"][0]
-    assert ex.start_sample >= 2 * pi2            # exchange waits for both dots (and may align)
+    assert ex.start_sample >= 2 * pi2            # exchange waits for both dots (and may wait for its phase)
     trig = by_kind["trigger"][0]
     assert trig.start_sample == max(x.end_sample for x in tl.slots if x is not trig and x is not wa)
     assert wa.start_sample == trig.start_sample
@@ -166,3 +166,22 @@ def test_zeeman_difference_warning():
     tl = timeline("sqrtswap A C amplitude=250 mV\n")
     assert tl.warnings and "not well above the Zeeman difference" in tl.warnings[0].message
     assert not timeline("sqrtswap A B\n").warnings
+
+
+def test_weak_exchange_warning_says_how_to_fix_it():
+    # J(250 mV) ≈ 10 MHz against ΔEz(A,C) ≈ 5.6 MHz: J = 5·ΔEz ≈ 28 MHz is at
+    # v0·ln(J/j0) = 40 mV·ln(28 MHz/20 kHz) ≈ 290 mV, inside the ±1 V barrier
+    tl = timeline("sqrtswap A C amplitude=250 mV\n")
+    m = tl.warnings[0].message
+    assert "fix: a larger J: J ≥ 27.99 MHz" in m and "give amplitude=289.8 mV" in m
+    assert "pulse_voltage of A-C" in m
+    assert "a smaller Zeeman difference" in m
+    assert "controlled-phase" not in m and "cz" not in m.lower()    # no such gate in the language
+
+
+def test_a_warning_inside_a_block_names_the_statement_and_the_call():
+    tl = timeline("block g(a, b) {\n  sqrtswap a b amplitude=250 mV\n}\nwait 1 ns\ndo g(A, C)\n")
+    w = tl.warnings[0]
+    text = w.render()
+    assert text.startswith("t.dotseq:2:3: warning: J = ")
+    assert "\n    in block 'g' called at t.dotseq:5:1" in text

@@ -503,6 +503,31 @@ def test_unreachable_cluster_is_a_clear_error(tmp_path, ramsey, capsys):
     assert code == 2 and "cannot reach the Dask scheduler at tcp://127.0.0.1:9" in err
 
 
+def test_point_warnings_are_in_the_table_and_the_worst_is_named(tmp_path):
+    # issue 14, item 5: the bundled pair (J about 10 MHz against a Zeeman
+    # difference of 140 MHz; J scaled by 1 and 4): every point's "J not well
+    # above the Zeeman difference" warning is kept, the worst named
+    from compiler.sweep.text import outcome_lines
+    p = tmp_path / "x.dotseq"
+    p.write_text("prepare A B down\nsqrtswap A B\n", encoding="utf-8")
+    plan = plan_sweep(p, ["A-B.j_scale=1,4"], options=FAST)
+    assert set(plan.point_warnings) == {0, 1}
+    assert all("not well above the Zeeman difference" in w[0][1]
+               for w in plan.point_warnings.values())
+    worst = max((0, 1), key=lambda i: plan.point_warnings[i][0][0])
+    label = f"A-B.j_scale = {(1, 4)[worst]}"
+    line = [w for w in plan.warnings if "points have warnings" in w]
+    assert len(line) == 1 and "2 of 2 points" in line[0] and label in line[0], line
+    out = run_sweep(plan, tmp_path / "s", workers=1)
+    rows = list(csv.DictReader(x for x in (tmp_path / "s" / "sweep.csv").read_text().splitlines()
+                               if not x.startswith("#")))
+    assert [r["warnings"] for r in rows] == ["1", "1"]
+    assert "x.dotseq:2:1: warning: J = " in rows[1]["worst_warning"]
+    doc = json.loads((tmp_path / "s" / "sweep.json").read_text())
+    assert "Zeeman" in doc["points"][0]["warnings"][0]
+    assert any(x.startswith("warnings  2 of 2 points") and label in x for x in outcome_lines(out))
+
+
 # ------------------------------------------------------------------ compiled once
 
 def test_a_point_is_compiled_once(ramsey, monkeypatch):

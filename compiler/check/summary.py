@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections import Counter
+import dataclasses
 from dataclasses import dataclass, field
 
 from .. import program as P
@@ -12,6 +13,7 @@ from ..margin import Margin, coherence_margins
 from ..physics import COHERENCE_RULE
 from ..schedule import Timeline
 from ..steps import GATE_KINDS, KINDS
+from .lines import line_warnings
 from ..units import FIELD, FREQUENCY, NONE, TEMPERATURE, TIME, Dim, format_quantity as fq
 
 # step counts are printed in the order of the table of step kinds
@@ -31,6 +33,8 @@ class QubitInfo:
     qubit_levels: tuple[int, int] = (0, 1)
     leakage: tuple | None = None         # nearest leakage transition: (from, to, Hz, element)
     leakage_gap: float | None = None     # Hz between it and the qubit transition
+    spectrum: str = ""                           # the Zeeman-noise spectrum, as text
+    cpmg: tuple[tuple[int, float], ...] = ()     # (N, CPMG-N T2 in s) it implies
 
     @property
     def spin_valley(self) -> bool:
@@ -86,7 +90,7 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     warnings += _valley_gap_warnings(device)
     worst: dict[str, object] = {}
     for tl in timelines:
-        for w in tl.warnings:
+        for w in tuple(tl.warnings) + tuple(line_warnings(tl, device)):
             if w.key not in worst or w.severity > worst[w.key].severity:
                 worst[w.key] = w
     warnings += [w.render() for w in worst.values()]
@@ -103,13 +107,21 @@ BURST_REACH = 3.0
 
 
 def _qubit_info(device: Device, q: str) -> QubitInfo:
+    """A qubit's line; with a Zeeman-noise spectrum, the T2*, Hahn T2 and
+    CPMG-N T2 it implies (1/e times of the filter-function integrals,
+    compiler/spectra.py); for a spin–valley dot, its level ladder."""
     d = device.dots[q]
     info = QubitInfo(q, d.g, device.larmor(q), d.t1, d.t2, d.t2_star, d.preset)
+    if d.zeeman_noise is not None:
+        from .. import spectra
+        times = spectra.implied_times(d.zeeman_noise)
+        info = dataclasses.replace(info, t2=times["t2_s"], t2_star=times["t2_star_s"],
+                                   spectrum=spectrum_text(d.zeeman_noise, "Hz^2/Hz"),
+                                   cpmg=tuple(sorted(times["t2_cpmg_s"].items())))
     if not d.spin_valley:
         return info
     lad = device.ladders[q]
     lk = lad.leakage()
-    import dataclasses
     return dataclasses.replace(info, levels=lad.energies, qubit_levels=lad.qubit,
                                leakage=lk[0] if lk else None,
                                leakage_gap=lad.leakage_gap if lk else None)
@@ -181,6 +193,17 @@ def _ladder_lines(q: QubitInfo) -> list[str]:
     return out
 
 
+def spectrum_text(sp, unit: str) -> str:
+    """S(f) in one line: '4e+08 Hz^2/Hz/f^1 + white on [1.667 mHz, inf Hz]'."""
+    parts = []
+    if sp.s1:
+        parts.append(f"{sp.s1:.4g} {unit}" + (f"/f^{sp.beta:g}" if sp.beta else ""))
+    if sp.white:
+        parts.append(f"{sp.white:.4g} {unit} white")
+    hi = "inf" if sp.f_high == float("inf") else fq(sp.f_high, FREQUENCY)
+    return " + ".join(parts or ["0"]) + f" on [{fq(sp.f_low, FREQUENCY)}, {hi}]"
+
+
 def _range(lo: int, hi: int) -> str:
     return str(lo) if lo == hi else f"{lo}..{hi}"
 
@@ -195,6 +218,10 @@ def render_text(s: Summary) -> str:
         out.append(f"  {q.name:<7} {q.g:<10.5g} {fq(q.larmor, FREQUENCY, 7):<12} {fq(q.t1, TIME):<10} "
                    f"{fq(q.t2, TIME):<10} {fq(q.t2_star, TIME):<10} {q.preset or '-'}")
     for q in s.qubits:
+        if q.spectrum:
+            out.append(f"  {q.name:<7} Zeeman noise {q.spectrum}: implies T2* {fq(q.t2_star, TIME)}, "
+                       f"Hahn T2 {fq(q.t2, TIME)}")
+            out.append(f"  {'':<7} CPMG-N T2: " + ", ".join(f"N={n} {fq(t, TIME)}" for n, t in q.cpmg))
         if q.spin_valley:
             out += _ladder_lines(q)
     out.append("")
@@ -234,7 +261,9 @@ def to_dict(s: Summary) -> dict:
                     "t2_star_s": q.t2_star, "preset": q.preset,
                     "levels_Hz": list(q.levels) if q.spin_valley else [0.0, q.larmor],
                     "qubit_levels": list(q.qubit_levels),
-                    "leakage_gap_Hz": q.leakage_gap} for q in s.qubits],
+                    "leakage_gap_Hz": q.leakage_gap,
+                    "t2_cpmg_s": {str(n): t for n, t in q.cpmg} if q.cpmg else None,
+                    "zeeman_noise": q.spectrum or None} for q in s.qubits],
         "runs": s.runs,
         "sweeps": [{"name": n, "first": a, "last": b, "points": k, "unit": d.symbol()}
                    for n, a, b, k, d in s.axes],

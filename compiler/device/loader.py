@@ -28,6 +28,8 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
 from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
+from .. import spectra
+from ..units import (FREQ_NOISE, VOLT_NOISE)
 from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
                      parse_quantity)
@@ -41,9 +43,9 @@ from .rules import ERROR, validate
 # --------------------------------------------------------------------- schema
 
 TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
-TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt")
+TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time")
 
-DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger",
+DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise",
             "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
 VALLEY_KEYS = ("spin_orbit", "valley_splitting", "valley_g")
 DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt", "direction")
@@ -59,7 +61,9 @@ CHANNEL_REQUIRED = {
 CHANNEL_ONLY = {"lo": ("iq",), "if_band": ("iq",), "bias_tee": ("iq", "gate")}
 
 COUPLING_KEYS = ("dots", "barrier", "exchange", "idle_voltage", "pulse_voltage",
-                 "charge_noise", "detune")
+                 "charge_noise", "detune", "barrier_noise")
+# a noise spectrum S(f) = at_1hz/f^exponent + white on [f_low, f_high] (docs/device.md)
+SPECTRUM_KEYS = ("at_1hz", "exponent", "white", "f_low", "f_high")
 # every key of every exchange model (xch.MODELS), for the unknown-key check
 EXCHANGE_ALL = ("model",) + tuple(dict.fromkeys(
     k for m in xch.MODELS.values() for k in m.REQUIRED + m.OPTIONAL))
@@ -85,6 +89,7 @@ KEY_EXAMPLES = {
     "model": "model: exponential", "marker": "marker: M1", "duration": "duration: 2 us",
     "j0": "j0: 20 kHz", "v0": "v0: 40 mV", "t0": "t0: 2 ueV", "vt": "vt: 150 mV", "u": "u: 1 meV",
     "points": "points: [[0 mV, 10 kHz], [100 mV, 200 kHz]]",
+    "at_1hz": "at_1hz: 1e6 Hz^2/Hz", "exponent": "exponent: 1",
 }
 
 _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
@@ -432,9 +437,18 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
         v = r.get(m, key, r.quantity, f"{path}.{key}", TIME, positive=True)
         if v is not None:
             values[key] = v
+    zeeman = None
+    if "zeeman_noise" in m:
+        zeeman = _read_spectrum(r, m["zeeman_noise"], f"{path}.zeeman_noise", FREQ_NOISE, "Hz^2/Hz")
+        for key in ("t2", "t2_star"):
+            if key in m:
+                r.error(m[key][0], f"{path} gives both '{key}' and 'zeeman_noise'",
+                        f"give the spectrum alone: dotseq check prints the {key} it implies")
     for key in ("g", "t1", "t2", "t2_star"):
         if key in m:
             continue
+        if key in ("t2", "t2_star") and "zeeman_noise" in m:
+            continue            # implied by the spectrum (set when the device is assembled)
         if preset is not None:
             p = PRESETS[preset.value]
             values[key] = _Val(p.value(key), preset.node)
@@ -488,6 +502,7 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
         return None
     return {"name": name, "values": values, "drive": drive, "plunger": plunger,
             "valley": valley if four else None, "qubit_levels": qlev,
+            "zeeman": zeeman,
             "preset": preset.value if preset else "", "sources": tuple(sources),
             "node": knode, "span": r.span(knode)}
 
@@ -708,6 +723,13 @@ def _read_coupling(r: _Reader, i: int, node: Node, dots: dict, dot_names: set) -
                   bare_zero=True)
     noise = r.get(m, "charge_noise", r.quantity, f"{path}.charge_noise", VOLTAGE,
                   nonnegative=True, bare_zero=True)
+    bnoise = None
+    if "barrier_noise" in m:
+        bnoise = _read_spectrum(r, m["barrier_noise"], f"{path}.barrier_noise", VOLT_NOISE,
+                                "V^2/Hz")
+        if "charge_noise" in m:
+            r.error(m["charge_noise"][0], f"{path} gives both 'charge_noise' and 'barrier_noise'",
+                    "give one: the rms of a quasi-static offset, or the spectrum")
     detune: list[tuple[str, float, Node]] = []
     if "detune" in m:
         dk, dv = m["detune"]
@@ -735,7 +757,76 @@ def _read_coupling(r: _Reader, i: int, node: Node, dots: dict, dot_names: set) -
     if len(r.problems.problems) > n_before or None in (pair, barrier, model):
         return None
     return {"pair": pair, "barrier": barrier, "model": model, "idle": idle, "pulse": pulse,
-            "noise": noise, "detune": detune, "node": node, "span": r.span(node), "index": i}
+            "noise": noise, "detune": detune, "node": node, "span": r.span(node), "index": i,
+            "bnoise": bnoise}
+
+
+def _read_spectrum(r: _Reader, kv: tuple[Node, Node], path: str, dim: Dim,
+                   unit: str) -> dict | None:
+    """A spectrum mapping (SPECTRUM_KEYS): values in SI; f_low may be left to
+    the top-level acquisition_time (resolved by :func:`_make_spectrum`)."""
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, path, SPECTRUM_KEYS, ("at_1hz", "exponent"), anchor=knode,
+                      example=f"e.g. '{knode.value}: {{at_1hz: 1e6 {unit}, exponent: 1}}'")
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    out: dict = {"node": knode, "path": path}
+    for key in ("at_1hz", "white"):
+        if key not in m:
+            continue
+        vn = m[key][1]
+        v = r.get(m, key, r.quantity, f"{path}.{key}", dim, nonnegative=True, bare_zero=True)
+        if v is None:
+            continue
+        written = str(vn.value)
+        if v.value != 0 and "^2/" not in written:
+            r.error(vn, f"{path}.{key} '{written}' must be a spectral density in {unit}",
+                    f"write it like '1e6 {unit}' (a squared unit per hertz)")
+            continue
+        out[key] = v.value
+    ex = r.get(m, "exponent", r.number, f"{path}.exponent")
+    if ex is not None:
+        if not 0 <= ex.value < 4:
+            r.error(ex.node, f"{path}.exponent {ex.value:g} must be from 0 (white) to below 4",
+                    "1/f noise has exponent 1; measured spin-qubit spectra have 0.5 to 2.6")
+        out["beta"] = float(ex.value)
+    for key in ("f_low", "f_high"):
+        v = r.get(m, key, r.quantity, f"{path}.{key}", FREQUENCY, positive=True)
+        if v is not None:
+            out[key] = v.value
+    if "f_low" in out and "f_high" in out and not out["f_high"] > out["f_low"]:
+        r.error(m["f_high"][1], f"{path}.f_high must be above f_low",
+                "the spectrum lives on [f_low, f_high]")
+    if len(r.problems.problems) > n_before:
+        return None
+    return out
+
+
+def _make_spectrum(r: _Reader, raw: dict | None, acq) -> spectra.Spectrum | None:
+    """The Spectrum of a read mapping, f_low defaulting to 1/acquisition_time."""
+    if raw is None:
+        return None
+    f_low = raw.get("f_low")
+    beta = raw.get("beta", 1.0)
+    if f_low is None:
+        if acq is not None:
+            f_low = 1.0 / acq.value
+        elif raw.get("at_1hz", 0.0) > 0 and beta > 0:
+            r.error(raw["node"], f"{raw['path']} needs a low cut-off: give 'f_low' or a "
+                                 "top-level 'acquisition_time'",
+                    "e.g. 'acquisition_time: 600 s' at the top (f_low = 1/acquisition_time: "
+                    "under 1/f noise T2* depends on how long a measurement averages)")
+            return None
+        else:
+            f_low = 0.0
+    try:
+        return spectra.Spectrum(raw.get("at_1hz", 0.0), beta, raw.get("white", 0.0), f_low,
+                                raw.get("f_high", math.inf))
+    except ValueError as exc:
+        r.error(raw["node"], f"{raw['path']}: {exc}")
+        return None
 
 
 def _read_rotation(r: _Reader, kv: tuple[Node, Node]) -> tuple[RotationDefaults, dict] | None:
@@ -830,6 +921,7 @@ def _build(r: _Reader, root: Node) -> Device:
                 "out of plane")
         tilt = None
     tilt_v = tilt.value if tilt is not None else 0.0
+    acq = r.get(top, "acquisition_time", r.quantity, "acquisition_time", TIME, positive=True)
 
     # channels first: dots and couplings refer to them
     raw_channels = _read_channels(r, top["channels"][1], top["channels"][0]) \
@@ -925,8 +1017,19 @@ def _build(r: _Reader, root: Node) -> Device:
             extra = {k: valley[k].value for k in valley}
             if d["qubit_levels"] is not None:
                 extra["qubit_levels"] = d["qubit_levels"].value
-        dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=v["t2"].value,
-                       t2_star=v["t2_star"].value,
+        zn = _make_spectrum(r, d["zeeman"], acq)
+        if d["zeeman"] is not None:
+            if zn is None:
+                continue
+            # the T2* and Hahn T2 the spectrum implies (1/e times of the
+            # filter-function integrals; compiler/spectra.py)
+            t2s_v = spectra.coherence_time(zn, "ramsey")
+            t2_v = min(spectra.coherence_time(zn, "hahn"), 2 * v["t1"].value)
+            t2s_v = min(t2s_v, t2_v)
+        else:
+            t2s_v, t2_v = v["t2_star"].value, v["t2"].value
+        dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=t2_v,
+                       t2_star=t2s_v, zeeman_noise=zn,
                        drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
                                    d["drive"]["span"],
                                    d["drive"]["direction"].value if d["drive"]["direction"]
@@ -936,7 +1039,11 @@ def _build(r: _Reader, root: Node) -> Device:
 
     couplings: list[Coupling] = []
     for c in raw_couplings:
-        couplings.append(_check_coupling(r, c, channels))
+        cp = _check_coupling(r, c, channels)
+        bn = _make_spectrum(r, c["bnoise"], acq)
+        if bn is not None:
+            cp = dataclasses.replace(cp, barrier_noise=bn)
+        couplings.append(cp)
 
     if readout is not None:
         ro, refs = readout
@@ -952,7 +1059,8 @@ def _build(r: _Reader, root: Node) -> Device:
                     dots=dots, couplings=tuple(couplings), channels=channels,
                     rotation=rotation[0] if rotation else RotationDefaults(),
                     readout=readout[0] if readout else Readout(),
-                    notes=notes.value if notes else "", field_tilt=tilt_v)
+                    notes=notes.value if notes else "", field_tilt=tilt_v,
+                    acquisition_time=acq.value if acq else 0.0)
     for f in validate(device):
         node = _locate(r, root, f.key, f.near)
         message = f.message

@@ -56,6 +56,9 @@ class Dot:
     preset: str = ""          # material preset the values came from, if any
     sources: tuple[str, ...] = ()  # where each preset value came from
     span: Span | None = None
+    # spectrum of the Larmor frequency's fluctuations (compiler.spectra.Spectrum,
+    # Hz²/Hz); when given, t2 and t2_star hold the times it implies
+    zeeman_noise: object = None
     # spin–valley dot (docs/device.md): present when the file or the preset
     # gives any of spin_orbit, valley_splitting, valley_g; None = a spin-1/2
     spin_orbit: float | None = None        # Hz, Kane–Mele gap Δ_SO/h
@@ -87,6 +90,7 @@ class Coupling:
     charge_noise: float = 0.0       # V rms voltage noise on the barrier
     detune: tuple[tuple[str, float], ...] = ()  # intermediate dot -> plunger offset (V)
     span: Span | None = None
+    barrier_noise: object = None    # spectrum of the barrier voltage (Spectrum, V²/Hz)
 
     @property
     def key(self) -> frozenset[str]:
@@ -152,6 +156,7 @@ class Device:
     readout: Readout = Readout()
     notes: str = ""
     field_tilt: float = 0.0   # rad from the sample plane (0 = in-plane, π/2 = out of plane)
+    acquisition_time: float = 0.0   # s, total time a measurement averages over (0: not given)
     # Physically doubtful but legal settings (large idle exchange, weak
     # thermal polarisation, ...): positioned like errors, never raised.
     warnings: tuple[Problem, ...] = ()

@@ -81,6 +81,7 @@ class Expander:
         # set when a step estimate read a swept value (run sizes may then differ)
         self.estimate_reads_sweeps = False
         self.swept_names: frozenset[str] = frozenset()
+        self.fatal = False          # a step limit was passed: nothing more is done
 
     # ------------------------------------------------------------ problems
     def source_line(self, span: Span | None) -> str:
@@ -95,6 +96,7 @@ class Expander:
                  via: tuple[str, ...] = ()) -> _TooManySteps:
         """Record that the run passed its step limit; the caller raises the result."""
         self.fail(message, span, hint + self.step_hint, via)
+        self.fatal = True
         return _TooManySteps()
 
     # ------------------------------------------------------------ values
@@ -328,7 +330,8 @@ class Expander:
                     env[s.name] = _Broken()
             except _TooManySteps:
                 break       # recorded once; expanding further would only take memory
-        return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps))
+        return P.Run(index, tuple((n, v) for n, v, _ in point), tuple(prepare), tuple(steps),
+                     tuple(d for _, _, d in point))
 
     def qubit(self, ident: T.Ident, env: dict, via) -> tuple[str, Span]:
         """The qubit an identifier names, and where that name is written
@@ -499,16 +502,22 @@ def _count_text(n: int) -> str:
 
 
 def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_STEPS,
-           budget: Budget | None = None) -> P.Expanded:
+           budget: Budget | None = None, collect: list | None = None) -> P.Expanded:
     """Expand a parsed file into its runs; raises SequenceError.
 
     The steps of all runs together are limited to ``MAX_TOTAL_STEPS``, or to
     what ``budget`` (from :func:`compiler.limits.budget`) allows in memory;
     expansion stops as soon as the limit is passed, before the steps are
-    scheduled."""
+    scheduled.
+
+    With ``collect`` (a list) the problems of the declarations and of the
+    first run that has any are appended to it instead of raised, and the
+    runs expanded so far are returned (a statement with a problem is left
+    out), so later stages can report their problems in the same round
+    (:func:`compiler.load`).  Passing a step limit still raises at once."""
     ex = Expander(src, max_runs, max_steps, budget)
     axes, device, blocks, _ = ex.declarations()
-    if ex.problems:
+    if ex.problems and collect is None:
         raise SequenceError(ex.problems)
     device_path = None
     if device is not None:
@@ -523,7 +532,9 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
                 f"{n} = {format_quantity(v, d)}" for n, v, d in point) + f" (run {i})"
         runs.append(ex.run(i, point, blocks))
         if ex.problems:
-            raise SequenceError(ex.problems)
+            if collect is None or ex.fatal:
+                raise SequenceError(ex.problems)
+            break           # the other runs would repeat the same statements' problems
         # members of 'together' groups are scheduled and recorded one by one
         total += sum(len(s.steps) if isinstance(s, P.Parallel) else 1 for s in runs[-1].steps)
         if i == 0 and len(grid) > 1 and not ex.estimate_reads_sweeps and (
@@ -547,5 +558,7 @@ def expand(src: T.SourceFile, *, max_runs: int = MAX_RUNS, max_steps: int = MAX_
             span = axes[0].span if axes else (runs[-1].steps[0].span if runs[-1].steps else None)
             raise SequenceError(f"{message} ({i + 1} of {len(grid)} runs reach {total:,})",
                                 span, hint, read_source_line(span.file, span.line) if span else "")
+    if collect is not None:
+        collect.extend(ex.problems)
     return P.Expanded(src.file, device_path, device.span if device else None, tuple(axes),
                       tuple(runs))

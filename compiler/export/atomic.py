@@ -90,6 +90,17 @@ def is_bundle(folder: Path) -> bool:
             and read_format(folder) == FORMAT_NAME)
 
 
+def _refuse_link_or_file(target: Path, fail_with, expected: str) -> None:
+    """Refuse an output path that is a symbolic link or a file (``expected``
+    says what a folder there should be, e.g. "a dotseq bundle")."""
+    if target.is_symlink():
+        raise fail_with(target, "the output path is a symbolic link; dotseq does not replace "
+                                "links", "give the real folder, or choose another -o folder")
+    if not target.is_dir():
+        raise fail_with(target, f"the output path exists and is a file, not {expected}; "
+                                "nothing was written", "choose another -o folder")
+
+
 def output_state(target: Path, overwrite: bool, *, what: str, is_ours, ours: str, fail_with,
                  known: frozenset[str] | None = None) -> str:
     """The one check of an output folder before a writer replaces it (the
@@ -104,12 +115,7 @@ def output_state(target: Path, overwrite: bool, *, what: str, is_ours, ours: str
     """
     if not os.path.lexists(target):
         return ABSENT
-    if target.is_symlink():
-        raise fail_with(target, "the output path is a symbolic link; dotseq does not replace "
-                                "links", "give the real folder, or choose another -o folder")
-    if not target.is_dir():
-        raise fail_with(target, f"the output path exists and is a file, not a dotseq {what}; "
-                                "nothing was written", "choose another -o folder")
+    _refuse_link_or_file(target, fail_with, f"a dotseq {what}")
     try:
         names = sorted(e.name for e in os.scandir(target))
     except OSError as e:
@@ -447,12 +453,7 @@ def folder_state(target: Path, marker: str, fmt: str, allow_unknown: bool, fail_
     """
     if not os.path.lexists(target):
         return ABSENT
-    if target.is_symlink():
-        raise fail_with(target, "the output path is a symbolic link; dotseq does not replace "
-                        "links", "give the real folder, or choose another -o folder")
-    if not target.is_dir():
-        raise fail_with(target, "the output path exists and is a file, not a folder; nothing "
-                        "was written", "choose another -o folder")
+    _refuse_link_or_file(target, fail_with, "a folder")
     try:
         if not any(os.scandir(target)):
             return EMPTY

@@ -608,7 +608,7 @@ def build_figure(wf: Waveforms, window: Window, *, title: str = "",
              fontsize=FONT + 5, color=S.TEXT, weight="bold")
     facts = [f"run {wf.run_index}"]
     if wf.sweep:
-        facts.append(", ".join(f"{name} = {value:g}" for name, value in wf.sweep))
+        facts.append(wf.sweep_text or ", ".join(f"{name} = {value:g}" for name, value in wf.sweep))
     facts += [f"{format_quantity(fs, FREQUENCY)}".replace("Hz", "S/s"),
               f"{_count(wf.n_samples)} samples", f"{_q(wf.duration, TIME)} in all",
               f"{_count(len(wf.steps))} timeline steps"]

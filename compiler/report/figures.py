@@ -48,10 +48,11 @@ METRIC_NAMES = {"process": "process fidelity", "average": "average gate fidelity
                 "state": "state fidelity"}
 DOT_COLOURS = S.LARMOR_COLOURS      # one colour per dot, in register order
 
-FILES = ("budget.png", "steps.png", "populations.png", "sweep.png")
+FILES = ("budget.png", "steps.png", "populations.png", "sweep.png", "spectra.png")
 CAPTIONS = {"budget.png": "Error budget", "steps.png": "Infidelity of each step",
             "populations.png": "Spin-up probability against time",
-            "sweep.png": "Fidelity over the sweep"}
+            "sweep.png": "Fidelity over the sweep",
+            "spectra.png": "Noise spectra and the filter functions of the run and its worst steps"}
 
 
 # ---------------------------------------------------------------- shared
@@ -539,6 +540,51 @@ def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
     return fig
 
 
+# ---------------------------------------------------------------- spectra
+
+def spectra_figure(result: SimulationResult) -> Figure | None:
+    """Per dot with a Zeeman-noise spectrum: S(f) (left axis, Hz²/Hz) and,
+    on the right axis, the filter functions |Y(f)|² (s²) of the detail run
+    (its π pulses flip the toggling function) and of free evolution over its
+    worst steps (Cywiński et al., PRB 77, 174509 (2008)): the decay is
+    2π²∫S|Y|² df, so the product of the curves is what dephases.  None when
+    no dot has a spectrum."""
+    from .. import spectra as SP
+    if not result.noise_spectra:
+        return None
+    n = len(result.noise_spectra)
+    fig = new_figure(WIDTH, max(HEIGHT, 1.6 + 3.2 * n))
+    _titles(fig, "Noise spectra and filter functions",
+            "S(f) of the Larmor frequency; |Y(f)|² of the run and of its worst steps")
+    top, bottom = 0.86, 0.10
+    hgt = (top - bottom) / n
+    for k, (dot, sp, filters) in enumerate(result.noise_spectra):
+        ax = fig.add_axes((0.09, top - (k + 1) * hgt + 0.12 * hgt, 0.78, hgt * 0.74))
+        tmin = min([f[1] for f in filters if f[1] > 0] + [1e-6])
+        tmax = max([f[1] for f in filters if f[1] > 0] + [1e-6])
+        lo = max(sp.f_low, 1e-3 / tmax)
+        hi = min(sp.f_high, 300.0 / tmin)
+        f = np.geomspace(lo, hi, 1500)
+        ax.loglog(f, np.maximum(sp.psd(f), 1e-300), color=DOT_COLOURS[k % len(DOT_COLOURS)],
+                  lw=2.0, label=f"S(f), dot {dot}")
+        ax.set_ylabel("S(f)  (Hz²/Hz)")
+        ax.set_xlabel("frequency (Hz)")
+        _style(ax)
+        ax2 = ax.twinx()
+        for j, (label, t, pulses) in enumerate(filters):
+            y = SP.filter_function(f, t, pulses)
+            ax2.loglog(f, np.maximum(y, 1e-30), lw=1.0, alpha=0.85,
+                       color=S.GATE_COLOURS[j % len(S.GATE_COLOURS)], label=_short(label))
+        ax2.set_ylabel("|Y(f)|²  (s²)")
+        ymax = max(t for _, t, _ in filters) ** 2 if filters else 1.0
+        ax2.set_ylim(ymax * 1e-8, ymax * 3)
+        lines = ax.get_legend_handles_labels()
+        lines2 = ax2.get_legend_handles_labels()
+        ax2.legend(lines[0] + lines2[0], lines[1] + lines2[1], fontsize=FONT - 2,
+                   loc="lower left", frameon=False)
+    return fig
+
+
 # ---------------------------------------------------------------- plan
 
 BUILDERS: dict[str, Callable[[SimulationResult], Figure | None]] = {
@@ -546,6 +592,7 @@ BUILDERS: dict[str, Callable[[SimulationResult], Figure | None]] = {
     "steps.png": steps_figure,
     "populations.png": populations_figure,
     "sweep.png": sweep_figure,
+    "spectra.png": spectra_figure,
 }
 
 
@@ -562,6 +609,8 @@ def planned(result: SimulationResult) -> tuple[str, ...]:
         out.append("populations.png")
     if result.axes and result.runs:
         out.append("sweep.png")
+    if result.noise_spectra:
+        out.append("spectra.png")
     return tuple(out)
 
 

@@ -32,11 +32,11 @@ _SUFFIX_UNITS = (("_Hz", "Hz"), ("_s", "s"), ("_V", "V"), ("_T", "T"), ("_K", "K
 
 @dataclass(frozen=True)
 class Table:
-    """Rows of text cells; ``align`` holds ``l`` or ``r`` per column."""
+    """Rows of text cells; ``justify`` holds ``l`` or ``r`` per column."""
 
     headers: tuple[str, ...]
     rows: tuple[tuple[str, ...], ...]
-    align: str
+    justify: str
 
 
 @dataclass(frozen=True)
@@ -237,7 +237,7 @@ def _steps(result: SimulationResult, i: int, look: _Look, max_rows: int | None) 
         steps = [steps[k] for k in sorted(worst)]
     headers = ("#", "step", "qubits", f"start ({tu})", f"duration ({du})", "fidelity",
                look.minus_f)
-    align = "rllrrrr"
+    justify = "rllrrrr"
     rows = []
     for s in steps:
         row = (str(s.index), s.label or s.kind, " ".join(s.qubits),
@@ -248,14 +248,14 @@ def _steps(result: SimulationResult, i: int, look: _Look, max_rows: int | None) 
         rows.append(row)
     if look.md:
         headers += ("source",)
-        align += "l"
+        justify += "l"
     worst = min(run.steps, key=lambda s: s.fidelity)
     lines = ("average gate fidelity of each step simulated alone on the whole register "
              "against its ideal operation",)
     notes.insert(0, f"worst step: #{worst.index} {worst.label or worst.kind} "
                     f"({look.minus_f} = {fmt_infidelity(worst.fidelity)})")
     return Section(f"steps: {_run_title(result, i, look)}", lines=lines,
-                   table=Table(headers, tuple(rows), align), notes=tuple(notes))
+                   table=Table(headers, tuple(rows), justify), notes=tuple(notes))
 
 
 def _budget(result: SimulationResult, i: int, look: _Look, top: int | None) -> Section | None:
@@ -368,7 +368,7 @@ def table_text(t: Table, indent: str = "  ") -> list[str]:
 
     def line(cells: Sequence[str]) -> str:
         parts = [c.rjust(w) if a == "r" else c.ljust(w)
-                 for c, w, a in zip(cells, widths, t.align)]
+                 for c, w, a in zip(cells, widths, t.justify)]
         return (indent + "  ".join(parts)).rstrip()
 
     return [line(t.headers), (indent + "  ".join("-" * w for w in widths)).rstrip()] + \
@@ -379,7 +379,7 @@ def table_markdown(t: Table) -> list[str]:
     """A table as Markdown pipe-table lines."""
     rule = {"l": ":---", "r": "---:"}
     out = ["| " + " | ".join(_esc(h) for h in t.headers) + " |",
-           "|" + "|".join(rule.get(a, "---") for a in t.align) + "|"]
+           "|" + "|".join(rule.get(a, "---") for a in t.justify) + "|"]
     for r in t.rows:
         out.append("| " + " | ".join(c if c.startswith("**") else _esc(c) for c in r) + " |")
     return out

@@ -26,6 +26,7 @@ from dataclasses import dataclass, replace
 from .. import program as P
 from ..device.model import Device
 from ..errors import Problem, ScheduleError, Span, read_source_line
+from ..analog import burst_quantisation_loss, lsb, rc_tau
 from ..physics import precession_sign
 from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
                       frame_updates_after, pair_gate, spectator_phase)
@@ -42,6 +43,9 @@ EXCHANGE_FIDELITY_WARN = 0.999
 TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
 MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
+# Warn when the DAC codes of a burst lose more than this fraction of its area
+# (common practice, no source); when nothing is left it is an error.
+QUANTISATION_LOSS_WARN = 0.01
 
 
 # ------------------------------------------------------------ slot information
@@ -136,8 +140,10 @@ class Warning_:
     severity: float = 0.0      # larger is worse; the summary keeps the worst per key
 
     def render(self) -> str:
+        """``file:line:col: warning: message``, then the chain of block calls
+        (``in block 'b' called at file:line:col``), innermost first."""
         where = f"{self.span}: " if self.span is not None else ""
-        return f"{where}warning: {self.message}"
+        return "\n".join([f"{where}warning: {self.message}"] + [f"    {c}" for c in self.via])
 
 
 @dataclass(frozen=True)
@@ -157,6 +163,37 @@ class Timeline:
     @property
     def total(self) -> float:
         return self.n_samples * self.dt
+
+
+def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.25) -> str:
+    """What makes an exchange gate clean again: a larger J, at a higher
+    barrier pulse level (and so a shorter pulse), with the level that gives
+    J = CLEAN_EXCHANGE_RATIO × the Zeeman difference when the calibration
+    and the channel reach it; or a smaller Zeeman difference.  (The language
+    has no controlled-phase gate to suggest instead: docs/language.md.)"""
+    from ..analog import top_voltage
+    from ..device import exchange as X
+    want = CLEAN_EXCHANGE_RATIO * delta
+    ch = device.channels[coupling.barrier]
+    top = min(top_voltage(ch.v_min, ch.v_max, ch.bits), X.v_range(coupling.exchange)[1])
+    try:
+        v = float(X.v_of_j(coupling.exchange, want))
+    except ValueError:
+        v = math.inf
+    pair = "-".join(coupling.dots)
+    dt = 1.0 / device.sample_rate
+    if target / want < 2 * dt:
+        level = (f"J ≥ {fq(want, FREQUENCY)} would make the pulse about "
+                 f"{fq(target / want, TIME)}, under two samples at this sample rate")
+    elif v <= top:
+        level = (f"J ≥ {fq(want, FREQUENCY)} needs a barrier pulse level of about "
+                 f"{fq(v, VOLTAGE)}: give amplitude={fq(v, VOLTAGE)} on the step or raise "
+                 f"pulse_voltage of {pair} in the device file (the pulse gets shorter)")
+    else:
+        level = (f"J ≥ {fq(want, FREQUENCY)} is beyond the barrier's calibration and range "
+                 f"(up to {fq(top, VOLTAGE)}): extend the J(V) calibration or the channel range "
+                 f"of {pair}")
+    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field)")
 
 
 def _exchange_resources(step: P.ExchangeGate, device: Device) -> tuple[str, ...]:
@@ -239,14 +276,20 @@ class _Scheduler:
 
     def _burst_for(self, step: P.Rotation) -> BurstDesign | None:
         dot = self.device.dots[step.qubit]
+        line = self.device.channels[dot.drive.line]
+        peak = min(-line.v_min, line.v_max)
+        if step.amplitude is not None and abs(step.amplitude) > peak:
+            self.fail(f"the burst amplitude {fq(abs(step.amplitude), VOLTAGE)} is beyond the "
+                      f"±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
+                      f"the nearest the line plays is amplitude={fq(peak, VOLTAGE)}; or give "
+                      "duration= instead")
+            return None
         try:
             b = design_burst(step.angle, step.phase, self.device.rabi_per_volt(step.qubit), self.dt,
                              self.device.rotation, step.shape, step.duration, step.amplitude)
         except DesignError as e:
             self.fail(e.message, step, e.hint)
             return None
-        line = self.device.channels[dot.drive.line]
-        peak = min(-line.v_min, line.v_max)
         if b.amplitude > peak:
             self.fail(f"the burst for this rotation needs {fq(b.amplitude, VOLTAGE)} peak, beyond "
                       f"the ±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
@@ -346,7 +389,8 @@ class _Scheduler:
         if abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
             self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well above the Zeeman difference "
                       f"{fq(abs(delta), FREQUENCY)} of {a} and {b}: the {step.gate} is not clean "
-                      f"(best {fid:.6f} average gate fidelity after frame compensation)", step,
+                      f"(best {fid:.6f} average gate fidelity after frame compensation); "
+                      + weak_exchange_fix(c, self.device, abs(delta), design.target), step,
                       f"zeeman:{step.span}", 1 - fid)
         elif fid < EXCHANGE_FIDELITY_WARN:
             self.warn(f"this {step.gate} reaches only {fid:.6f} average gate fidelity in the "
@@ -357,6 +401,33 @@ class _Scheduler:
         self.frames[a] += ea
         self.frames[b] += eb
         self.place_simple(step, t0, design.total, group, exchange=design, info=info)
+
+    def check_quantisation(self, step: P.Rotation, b: BurstDesign, start: int,
+                           play_phase: float) -> None:
+        """Warn (or refuse, when nothing is left) a burst whose DAC codes lose
+        more than QUANTISATION_LOSS_WARN of its area."""
+        dot = self.device.dots[step.qubit]
+        line = self.device.channels[dot.drive.line]
+        if line.bits <= 0:
+            return
+        f_if = self.device.larmor(step.qubit) - line.lo
+        phi = play_phase if precession_sign(dot.g) > 0 else math.pi - play_phase
+        loss, nothing = burst_quantisation_loss(
+            b.envelope, b.amplitude, phi, f_if, start, self.dt, rc_tau(line.rise_time),
+            line.v_min, line.v_max, line.bits)
+        lsb_v = lsb(line.v_min, line.v_max, line.bits)
+        if nothing:
+            self.fail(f"this {math.degrees(b.angle):.4g} deg burst needs only "
+                      f"{fq(b.amplitude, VOLTAGE)} peak, below half a DAC step "
+                      f"({fq(lsb_v, VOLTAGE)} per code on line '{line.name}'): every code is "
+                      "zero, nothing would be played", step,
+                      "use a shorter burst with a larger amplitude (amplitude=...), or leave "
+                      "out a rotation this small")
+        elif loss > QUANTISATION_LOSS_WARN:
+            self.warn(f"the DAC codes of this burst lose {loss:.1%} of its area "
+                      f"({fq(b.amplitude, VOLTAGE)} peak against {fq(lsb_v, VOLTAGE)} per code "
+                      f"on line '{line.name}'; more than {QUANTISATION_LOSS_WARN:.0%})", step,
+                      f"quantisation:{step.span}", loss)
 
     def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=()) -> dict:
         """Frame updates that undo the light shift a burst on ``q`` leaves on
@@ -397,6 +468,7 @@ class _Scheduler:
         shifts = self.correct_spectators(step.qubit, b, step) if t_group is None else {}
         self.place_simple(step, t0, b.n, group, burst=b, play_phase=b.phase - frame,
                           info=BurstInfo(frame, tuple(shifts.items())))
+        self.check_quantisation(step, b, t0, b.phase - frame)
 
     def place_frame(self, step: P.FrameRotation, t0: int, group: int, t_group) -> None:
         self.frames[step.qubit] += step.angle

@@ -39,8 +39,9 @@ from ..physics import precession_sign
 from ..synth.types import Waveforms
 from ..device.levels import SPIN, qubit_basis
 from ..errors import UsageError
+from .bands import mode_shapes
 from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, LevelPair, Model,
-                    NoiseVariable, Pair, freeze)
+                    NoiseVariable, Pair, Profile, freeze)
 
 CONNECT_TOL = 1e-6     # |matrix element|² below this: the drive does not connect two levels
 
@@ -243,7 +244,8 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
                           lo_v, hi_v, delta))
     specs = tuple(specs[q] for q in dots)
-    dissipators, noise = [], []
+    dissipators, noise, profiles = [], [], []
+    window = K * h
     for src in SOURCES.values():
         if not sw.on(src.key):
             continue
@@ -255,10 +257,16 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         if src.noise is not None:
             noise += [NoiseVariable(src.key, moves, target, rms)
                       for moves, target, rms in src.noise(device)]
+        if src.window is not None and sw.on(src.key):
+            # the bands of a spectrum for this window (sources.py, bands.py)
+            nv, ds, pf = window_terms(src.key, src.window(device, window), K, h)
+            noise += nv
+            dissipators += ds
+            profiles += pf
     # the engines take the dissipators dot by dot, in registry order
     dissipators.sort(key=lambda d: d.dot)
     return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise),
-                 drive_terms)
+                 drive_terms, tuple(profiles))
 
 
 def _valley_drive(spec: DotSpec, c: np.ndarray, dt: float, tau: float, m: int, lo: float,
@@ -284,3 +292,24 @@ def _valley_drive(spec: DotSpec, c: np.ndarray, dt: float, tau: float, m: int, l
                 continue
             out.append((f"t_{i}_{j}", (r / 2) * D[i, j] * np.conj(b)))
     return tuple(out)
+
+
+MODE_CHUNKS = 1024     # gate-band modes are held on at most this many chunks per window
+
+
+def window_terms(key: str, items, K: int, h: float):
+    """Model terms of a source's band items (:attr:`.sources.Source.window`):
+    (noise variables, dissipators, profiles)."""
+    noise, dissipators, profiles = [], [], []
+    chunk = max(1, K // MODE_CHUNKS)
+    for item in items:
+        if item[0] in ("detuning", "barrier"):
+            noise.append(NoiseVariable(key, *item))
+        elif item[0] == "dissipator":
+            dissipators.append(Dissipator(key, item[1], item[2], item[3]))
+        elif item[0] == "mode":
+            c, s = mode_shapes(item[2], item[3], K, h, chunk)
+            profiles += [Profile(key, item[1], c), Profile(key, item[1], s)]
+        else:
+            raise ValueError(f"source {key}: unknown band item {item[0]!r}")
+    return noise, dissipators, profiles

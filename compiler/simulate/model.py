@@ -198,6 +198,17 @@ class NoiseVariable:
 
 
 @dataclass(frozen=True, eq=False)
+class Profile:
+    """A noise variable with a shape in time (a gate-band mode of a noise
+    spectrum): the detuning of ``dot`` is x·shape[k] on sub-step k, x the
+    variable's value at a quadrature point (:attr:`NoisePoint.modes`),
+    Gaussian with unit variance (the rms is in the shape)."""
+    source: str                  # registry key
+    dot: int                     # register index
+    shape: np.ndarray            # (K,) Hz per unit of the variable
+
+
+@dataclass(frozen=True, eq=False)
 class Model:
     dots: tuple[DotSpec, ...]
     h: float                     # s, sub-step
@@ -210,6 +221,16 @@ class Model:
     # dots with their own operators: register index -> ((operator name, coefficient per
     # sub-step), ...), each term c·O + c*·O†
     drive_terms: dict = field(default_factory=dict)
+    profiles: tuple[Profile, ...] = ()
+
+    def detuning_profile(self, dot: int, modes) -> np.ndarray | None:
+        """Σ x_j·shape_j over the profiles on ``dot`` (Hz per sub-step), or
+        None when every one of them is zero at this point."""
+        out = None
+        for x, p in zip(modes, self.profiles):
+            if x and p.dot == dot:
+                out = x * p.shape if out is None else out + x * p.shape
+        return out
 
     @property
     def n(self) -> int:
@@ -253,6 +274,7 @@ class NoisePoint:
     detuning: tuple[float, ...]          # Hz per dot
     dv: tuple[float, ...]                # V per pair
     weight: float
+    modes: tuple[float, ...] = ()        # value of each of the model's profiles (unit variance)
 
 
 def noise_points(model: Model, nodes: int, mode: str = "auto", max_tensor: int = 27) -> list[NoisePoint]:
@@ -264,6 +286,30 @@ def noise_points(model: Model, nodes: int, mode: str = "auto", max_tensor: int =
     exact to second order in the noise amplitudes (cross terms between
     independent noises are of fourth order); used when the product grid is
     larger than ``max_tensor`` points (``auto``)."""
+    pts = _constant_points(model, nodes, mode, max_tensor)
+    return pts + _mode_points(model) if model.profiles else pts
+
+
+MODE_NODES = 2       # Gauss–Hermite nodes per profiled variable (x = ±1: exact to third order)
+
+
+def _mode_points(model: Model) -> list[NoisePoint]:
+    """The gate-band modes, one variable at a time around zero (added to the
+    constant variables' rule): Σ_j Σ_i w_i (ρ(x_i e_j) − ρ(0)); cross terms
+    between independent variables are of fourth order in the amplitudes."""
+    x, w = gauss_hermite(MODE_NODES)
+    nd, npair, M = model.n, len(model.pairs), len(model.profiles)
+    zero = (0.0,) * M
+    pts = [NoisePoint((0.0,) * nd, (0.0,) * npair, -float(M), zero)]
+    for j in range(M):
+        for xv, wv in zip(x, w):
+            modes = [0.0] * M
+            modes[j] = float(xv)
+            pts.append(NoisePoint((0.0,) * nd, (0.0,) * npair, float(wv), tuple(modes)))
+    return pts
+
+
+def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> list[NoisePoint]:
     x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
     vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms)
              for v in model.noise if v.rms > 0]

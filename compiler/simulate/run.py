@@ -102,9 +102,69 @@ def program_steps(tl):
     return steps
 
 
-def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0):
+def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, product: bool = True,
+             correction=None):
+    """The model averaged over its quadrature points.  Gate-band modes: as a
+    product of channel corrections (``product``, :func:`combine_modes`), or
+    with ``correction`` (a superoperator found once for the whole run) applied
+    to the average over the other variables, or else one at a time in the
+    points (the additive rule, exact to second order: the per-step
+    fidelities, whose errors are small)."""
+    if model.profiles and process and correction is not None:
+        const = [p for p in pts if not p.modes]
+        ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
+        S = ev.superop @ correction
+        rho = None
+        if rho0 is not None:
+            d = rho0.shape[0]
+            rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
+        return S, rho, ev.traces
+    if model.profiles and process and product:
+        return combine_modes(engine, model, pts, rho0=rho0, traces=traces)
     ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
+
+
+def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict | None = None):
+    """The gate-band modes (points with ``modes``) combined as a product of
+    channel corrections instead of a sum: S = S_c·exp(Σ_j log(R₀⁻¹·R_j)),
+    S_c the average over the constant noise variables, R₀ the run without
+    noise variables, R_j the average over mode j's nodes.  Equal to the
+    additive rule to second order in the mode amplitudes, and exact when the
+    corrections commute (pure dephasing: χ adds over the modes, so decays to
+    1/e come out as exp(−Σχ_j) instead of 1 − Σ(1 − e^{−χ_j})).
+    Returns (superoperator, final ρ from ``rho0``, traces)."""
+    from scipy.linalg import expm, logm
+    const = [p for p in pts if not p.modes]
+    centre = [p for p in pts if p.modes and not any(p.modes)]
+    ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
+    if not centre:
+        return ev.superop, ev.rho, ev.traces
+    zero = dataclasses.replace(centre[0], weight=1.0)
+    R0 = engine.average(model, [zero], process=True).superop
+    groups: dict = {}
+    for p in pts:
+        if p.modes and any(p.modes):
+            j = next(i for i, x in enumerate(p.modes) if x)
+            groups.setdefault(j, []).append(p)
+    R0inv = np.linalg.inv(R0)
+    gen = np.zeros_like(R0)
+    for j, grp in groups.items():
+        wsum = sum(p.weight for p in grp)
+        Rj = engine.average(model, [dataclasses.replace(p, weight=p.weight / wsum) for p in grp],
+                            process=True).superop
+        X = R0inv @ Rj - np.eye(len(R0))
+        nx = np.linalg.norm(X, 2)
+        gen += (X - X @ X / 2 + X @ X @ X / 3) if nx < 0.05 else logm(np.eye(len(R0)) + X)
+    corr = expm(gen)
+    if parts is not None:
+        parts["correction"] = corr
+    S = ev.superop @ corr
+    rho = None
+    if rho0 is not None:
+        d = rho0.shape[0]
+        rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
+    return S, rho, ev.traces
 
 
 @dataclass
@@ -124,7 +184,7 @@ class Whole:
 
 
 def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engine, *,
-                   traces: int = 0) -> Whole:
+                   traces: int = 0, correction=None, parts: dict | None = None) -> Whole:
     """The whole run (to the start of its final readout) with the given
     sources switched on, averaged over the quadrature points."""
     need = compile_changes(switches)
@@ -145,7 +205,11 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
     if V is not None:
         rho0 = V @ rho0 @ V.conj().T
     process = n <= MAX_PROCESS_QUBITS
-    S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces)
+    if parts is not None and model.profiles and process and correction is None:
+        S, rho, tr = combine_modes(engine, model, pts, rho0=rho0, traces=traces, parts=parts)
+    else:
+        S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces,
+                              correction=correction if model.profiles else None)
     leakage = 0.0
     if V is not None:
         # fidelities on the qubit levels, leakage counted as error
@@ -202,7 +266,7 @@ def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
         wf = part(crun, tuple(slots), after)
         model = build_model(wf, device, m=opts.substeps, start=a, stop=b_sim, rwa=opts.rwa)
         pts = noise_points(model, opts.nodes, opts.quadrature)
-        S, _, _ = _average(engine, model, pts, process=True, rho0=None)
+        S, _, _ = _average(engine, model, pts, process=True, rho0=None, product=False)
         V = F.qubit_isometry(model.levels)
         leak = 0.0
         if V is not None:
@@ -241,11 +305,15 @@ def quadrature_rule(device: Device, opts: SimOptions) -> str:
         return opts.quadrature
     n_vars = sum(1 for src in SOURCES.values() if src.noise is not None
                  for _, _, rms in src.noise(device) if rms > 0)
+    # the held band of a spectrum (its gate-band modes are always one at a time)
+    n_vars += sum(1 for src in SOURCES.values() if src.window is not None
+                  for item in src.window(device, 1e-6)
+                  if item[0] in ("detuning", "barrier") and item[2] > 0)
     return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
 
 
 def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
-                 recompile, progress=None):
+                 recompile, progress=None, correction=None):
     """Contribution of each registry source with ``budget="switch"``: total
     infidelity minus the infidelity with that source switched off (the run
     recompiled through ``recompile`` under the source's ``compile_off``
@@ -272,8 +340,10 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
         progress(f"error budget: {len(jobs)} evaluations")
 
     def work(job):
+        # the gate-band correction of the total is reused: switching another
+        # source off changes it only through cross terms of fourth order
         crun, sw = job
-        return evaluate_whole(crun, sw, opts, engine).infidelity
+        return evaluate_whole(crun, sw, opts, engine, correction=correction).infidelity
 
     threads = opts.worker_threads()
     if threads > 1:
@@ -331,8 +401,9 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
         is_detail = i == detail
         run_opts = opts if is_detail else dataclasses.replace(
             opts, nodes=min(opts.nodes, opts.sweep_nodes), quadrature="additive")
+        parts: dict = {}
         whole = evaluate_whole(crun, ALL_ON, run_opts, engine,
-                               traces=opts.trace_points if is_detail else 0)
+                               traces=opts.trace_points if is_detail else 0, parts=parts)
         steps = budget = ()
         floor = remainder = 0.0
         if is_detail and opts.steps:
@@ -341,7 +412,7 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
             steps = step_fidelities(crun, opts, engine, recompiler.part)
         if is_detail and opts.budget:
             budget, floor, remainder = error_budget(crun, opts, engine, whole, recompiler.run,
-                                                    progress)
+                                                    progress, parts.get("correction"))
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
@@ -357,8 +428,34 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                                     "(runs other than the detail run)" if n_runs > 1 else "",
                 "fidelity_metric": "budget and totals: 1 - average gate fidelity of the whole "
                                    "run (1 - state fidelity above 5 dots)"}
+    spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
-                            tuple(runs), axes, coherence, settings, warnings, stats)
+                            tuple(runs), axes, coherence, settings, warnings, stats, spectra)
+
+
+WORST_STEPS = 3
+
+
+def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tuple:
+    """Per dot with a Zeeman-noise spectrum, the filter functions to overlay:
+    the detail run's (its π rotations on the dot as the toggling function's
+    flips) and free evolution over each of the dot's WORST_STEPS worst steps."""
+    out = []
+    tl = crun.timeline
+    stop = end_sample(tl) * tl.dt
+    for q, d in device.dots.items():
+        if d.zeeman_noise is None:
+            continue
+        flips = sorted(s.start + s.duration / 2 for s in tl.slots
+                       if isinstance(s.step, P.Rotation) and q in s.qubits
+                       and abs(abs(math.remainder(s.step.angle, 2 * math.pi)) - math.pi) < 1e-6)
+        filters = [(f"run {result.run_index} ({len(flips)} π pulses)", stop,
+                    tuple(t for t in flips if 0 < t < stop))]
+        mine = sorted((s for s in result.steps if q in s.qubits), key=lambda s: s.fidelity)
+        filters += [(f"{s.label} (worst step {k + 1})", s.duration, ())
+                    for k, s in enumerate(mine[:WORST_STEPS]) if s.duration > 0]
+        out.append((q, d.zeeman_noise, tuple(filters)))
+    return tuple(out)
 
 
 def _coherence(checked):

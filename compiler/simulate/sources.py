@@ -39,7 +39,7 @@ class Source:
     name: str                      # the error budget's line
     reads: str                     # what it reads from the device
     note: str                      # the budget's explanation
-    kind: str                      # "lindblad", "quasi-static" or "played"
+    kind: str                      # "lindblad", "quasi-static", "gate band" or "played"
     # CompileOptions changes under which the run is recompiled while it is off
     compile_off: tuple[tuple[str, object], ...] = ()
     # lindblad: (device, dot name) -> ((operator, rate 1/s), ...); operators by
@@ -50,6 +50,10 @@ class Source:
     noise: Callable[[Device], tuple[tuple[str, int, float], ...]] | None = None
     budget: str = "switch"         # "switch", or "frame model" (see ZEEMAN in run.py)
     in_floor: bool = True          # switched off for the budget's floor
+    # bands of a noise spectrum, which depend on the simulated window T (s):
+    # (device, T) -> items ("detuning", dot, rms Hz) | ("barrier", coupling, rms V)
+    # | ("mode", dot, f Hz, σ Hz) | ("dissipator", dot, operator, rate 1/s)
+    window: Callable[[Device, float], tuple] | None = None
 
 
 def _relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
@@ -78,6 +82,8 @@ def _level_relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
 def _dephasing(device: Device, q: str) -> tuple[tuple[str, float], ...]:
     """Pure dephasing √(γφ/2)·σz with γφ = 1/T2 − 1/(2T1)."""
     d = device.dots[q]
+    if d.zeeman_noise is not None:
+        return ()                  # a spectrum: its white and fast bands instead
     return (("z", max(1.0 / d.t2 - 1.0 / (2 * d.t1), 0.0) / 2),)
 
 
@@ -85,11 +91,45 @@ def _zeeman_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
     """Quasi-static Gaussian detuning with T2* = √2/σ_ω (Merkulov, Efros &
     Rosen, PRB 65, 205309 (2002))."""
     return tuple(("detuning", i, math.sqrt(2) / d.t2_star / (2 * math.pi))
-                 for i, d in enumerate(device.dots.values()))
+                 for i, d in enumerate(device.dots.values()) if d.zeeman_noise is None)
 
 
 def _charge_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
-    return tuple(("barrier", i, c.charge_noise) for i, c in enumerate(device.couplings))
+    return tuple(("barrier", i, c.charge_noise) for i, c in enumerate(device.couplings)
+                 if c.barrier_noise is None)
+
+
+def _spectral(device: Device, window: float, band: str) -> tuple:
+    """One band (``static``, ``gate``, ``fast``) of every dot's Zeeman-noise
+    spectrum for a window of T seconds (:func:`.bands.split`)."""
+    from .bands import split
+    out = []
+    for i, d in enumerate(device.dots.values()):
+        if d.zeeman_noise is None:
+            continue
+        b = split(d.zeeman_noise, window)
+        if band == "static" and b.static_rms > 0:
+            out.append(("detuning", i, b.static_rms))
+        elif band == "gate":
+            out += [("mode", i, f, sig) for f, sig in b.modes]
+        elif band == "fast" and b.fast_rate > 0:
+            out.append(("dissipator", i, "z", b.fast_rate))
+    return tuple(out)
+
+
+def _barrier_static(device: Device, window: float) -> tuple:
+    """The barrier-voltage spectra below QS_FRACTION/T as a quasi-static
+    offset (their faster part is not simulated yet: docs/simulate.md)."""
+    from .bands import split
+    out = []
+    for i, c in enumerate(device.couplings):
+        if c.barrier_noise is not None:
+            sp = c.barrier_noise
+            b = split(sp, window)
+            var = sp.band_variance(sp.f_low, b.f_qs) if not sp.is_white else 0.0
+            if var > 0:
+                out.append(("barrier", i, math.sqrt(var)))
+    return tuple(out)
 
 
 SOURCES: dict[str, Source] = {s.key: s for s in (
@@ -103,6 +143,22 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
     Source("charge", "charge noise on exchange", "couplings.*.charge_noise",
            "quasi-static barrier offset of the device's rms, through J(V)", "quasi-static",
            noise=_charge_noise),
+    Source("zeeman_static", "Zeeman noise spectrum, quasi-static band",
+           "dots.*.zeeman_noise, acquisition_time",
+           "S(f) below 0.1/T (T the simulated stretch) as a Gaussian detuning held for the "
+           "stretch, by quadrature", "quasi-static",
+           window=lambda dev, t: _spectral(dev, t, "static")),
+    Source("zeeman_gate", "Zeeman noise spectrum, gate band", "dots.*.zeeman_noise",
+           "S(f) from 0.1/T to 64/T as random-phase sinusoids on the played waveforms "
+           "(1/(2T) apart up to 10/T, then 4 per decade)", "gate band",
+           window=lambda dev, t: _spectral(dev, t, "gate")),
+    Source("zeeman_fast", "Zeeman noise spectrum, white and fast band", "dots.*.zeeman_noise",
+           "white part and S(f) above 64/T as Lindblad dephasing", "lindblad",
+           window=lambda dev, t: _spectral(dev, t, "fast")),
+    Source("barrier_static", "barrier noise spectrum, quasi-static band",
+           "couplings.*.barrier_noise, acquisition_time",
+           "barrier-voltage S(f) below 0.1/T as a held offset, through J(V)", "quasi-static",
+           window=_barrier_static),
     Source("crosstalk", "drive crosstalk", "the shared microwave lines",
            "each dot driven only by its own bursts (and no light-shift corrections)", "played",
            compile_off=(("spectator_correction", False), ("per_dot", True))),

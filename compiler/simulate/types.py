@@ -75,3 +75,6 @@ class SimulationResult:
     settings: dict = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
     stats: dict = field(default_factory=dict)
+    # per dot with a Zeeman-noise spectrum: (dot, Spectrum, ((label, length s,
+    # π-pulse times s), ...)): the filter functions the report's spectra.png overlays
+    noise_spectra: tuple = ()

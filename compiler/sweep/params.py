@@ -79,6 +79,8 @@ def device_params(device: Device) -> dict[str, Param]:
         vals = {"g": d.g, "t1": d.t1, "t2": d.t2, "t2_star": d.t2_star,
                 "rabi_per_volt": d.drive.rabi_per_volt}
         for attr, (dim, what) in DOT_ATTRS.items():
+            if attr in ("t2", "t2_star") and d.zeeman_noise is not None:
+                continue          # implied by the spectrum, not a simulation input
             out[f"{q}.{attr}"] = Param(f"{q}.{attr}", "device", dim, f"{what} of dot {q}",
                                        vals[attr])
     for c in device.couplings:
@@ -107,6 +109,11 @@ def _not_offered(name: str, device: Device) -> str:
                 "'amplitude' (bursts have rotation.amplitude and their length follows from the "
                 "angle); vary rotation.amplitude")
     head, _, attr = name.rpartition(".")
+    if attr in ("t2", "t2_star") and head in device.dots \
+            and device.dots[head].zeeman_noise is not None:
+        return (f"{name} is not a parameter of this device: dot {head} gives its Zeeman noise "
+                "as a spectrum (zeeman_noise), from which T2 and T2* follow; edit the "
+                "spectrum in the device file instead")
     if attr == "j0" and "-" in head:
         a, _, b = head.partition("-")
         c = device.coupling(a, b)

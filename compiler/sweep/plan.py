@@ -180,6 +180,9 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     device_cache: dict[tuple, tuple[Device, bool]] = {}
     scheduled: dict[tuple, object] = {}        # compiled run, or the error
     kept = 0
+    run_warnings: dict[tuple, tuple] = {}
+    per_point: dict[int, tuple] = {}
+    worst_at: tuple = ()          # (index, severity, point label) of the worst warning
     constraint_fails: dict[str, list[tuple[str, str, str]]] = {}
     caution_hits: dict[str, list[str]] = {}
     stage_errors: list[tuple[DotseqError, str]] = []
@@ -230,6 +233,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                 crun = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
                 tl = crun.timeline
                 scheduled[ck] = crun
+                run_warnings[ck] = point_warnings_of(tl, dev)
                 for q, d in dev.dots.items():
                     r = end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
                     if r > longest.get(q, (0.0, ""))[0]:
@@ -247,6 +251,10 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         else:
             kept += compiled_bytes(crun)
         tasks.append(PointTask(index, tuple(coords), ex.runs[0], dev, options, budget, crun))
+        if run_warnings.get(ck):
+            per_point[index] = run_warnings[ck]
+            if not worst_at or per_point[index][0][0] > worst_at[1]:
+                worst_at = (index, per_point[index][0][0], label)
 
     if constraint_fails:
         raise _constraint_error(constraint_fails, len(device_cache))
@@ -258,9 +266,32 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
            "device_sha256": _sha256([dev_path]), "device_name": dev0.name,
            "axes": [_spec_record(a) for a in axes], "fixed": [_spec_record(s) for s in sets],
            "options": sim_settings(options), "budget": bool(budget)}
-    warnings = tuple(_caution_lines(caution_hits)) + _quadrature_caution(longest, options.nodes)
+    warnings = (tuple(_caution_lines(caution_hits)) + _quadrature_caution(longest, options.nodes)
+                + _worst_point_warning(per_point, worst_at, total))
     return SweepPlan(str(path), dev0.name, dev_path, tuple(axes), tuple(sets), tuple(tasks),
-                     options, bool(budget), key, warnings)
+                     options, bool(budget), key, warnings, per_point)
+
+
+def point_warnings_of(tl, device) -> tuple[tuple[float, str], ...]:
+    """The warnings `dotseq check` gives for one compiled run (the
+    scheduler's and the drive-line checks), worst first: (severity, text)."""
+    from ..check.lines import line_warnings
+    seen: dict[str, tuple[float, str]] = {}
+    for w in tuple(tl.warnings) + tuple(line_warnings(tl, device)):
+        text = w.render()
+        if w.key not in seen or w.severity > seen[w.key][0]:
+            seen[w.key] = (float(w.severity), text)
+    return tuple(sorted(seen.values(), key=lambda x: -x[0]))
+
+
+def _worst_point_warning(per_point: dict, worst_at: tuple, total: int) -> tuple[str, ...]:
+    """One line naming the worst warning of any point, and how many points warn."""
+    if not per_point:
+        return ()
+    idx, _, where = worst_at
+    text = per_point[idx][0][1].replace("warning: ", "", 1)
+    return (f"{len(per_point)} of {total} points have warnings (column 'warnings' of the "
+            f"table); the worst, at {where}: {text}",)
 
 
 @lru_cache(maxsize=None)

@@ -257,24 +257,7 @@ class Folder:
 
     def _lock(self) -> None:
         """Open the state file (created if missing) and hold an exclusive lock on it."""
-        if os.path.lexists(self.state_path):    # a FIFO would block, /dev/zero never end
-            try:
-                check_regular(self.state_path)
-            except Unreadable as e:
-                raise fail(self.state_path, f"cannot use the sweep state file: {e.reason}",
-                           "delete it, or choose another -o folder") from None
-        f = open(self.state_path, "a+b")
-        try:
-            import fcntl
-            try:
-                fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
-                f.close()
-                raise fail(self.path, "another dotseq sweep is writing into this folder",
-                           "wait for it to finish, or choose another -o folder") from None
-        except ImportError:  # pragma: no cover - no fcntl (Windows): no lock
-            pass
-        self._file = f
+        self._file = open_locked_state(self.state_path, self.path, "sweep", "dotseq sweep")
 
     def _truncate(self, size: int) -> None:
         self._file.truncate(size)
@@ -316,3 +299,29 @@ class Folder:
                 f.close()
             except OSError:      # a full disk: the error that matters was raised already
                 pass
+
+
+def open_locked_state(state_path: Path, folder: Path, name: str, writer: str):
+    """Open a resumable state file (created if missing) for appending and
+    hold an exclusive lock on it: ``name`` says whose state file it is
+    (``sweep``, ``rb``), ``writer`` what else may be writing (``dotseq sweep``).  A state file that is no regular file (a FIFO would
+    block, /dev/zero never end) or a folder another run is writing into is
+    refused naming the path."""
+    if os.path.lexists(state_path):
+        try:
+            check_regular(state_path)
+        except Unreadable as e:
+            raise fail(state_path, f"cannot use the {name} state file: {e.reason}",
+                       "delete it, or choose another -o folder") from None
+    f = open(state_path, "a+b")
+    try:
+        import fcntl
+        try:
+            fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            f.close()
+            raise fail(folder, f"another {writer} is writing into this folder",
+                       "wait for it to finish, or choose another -o folder") from None
+    except ImportError:  # pragma: no cover - no fcntl (Windows): no lock
+        pass
+    return f

@@ -23,7 +23,7 @@ from ..units import format_quantity
 from .types import MISSING, OK, PointResult, SweepPlan, SweepTable
 
 FORMAT_NAME = "dotseq-sweep"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3       # 3: per-point warnings (CSV columns warnings, worst_warning)
 METRIC_TEXT = {
     "average gate fidelity": "average gate fidelity of the whole run (up to the start of its "
                              "final readout) against the ideal circuit",
@@ -42,7 +42,7 @@ def make_table(plan: SweepPlan, points, stats: dict | None = None) -> SweepTable
     options = dict(plan.key.get("options", {}))
     return SweepTable(plan.key, plan.sequence, plan.device_name, plan.axes, plan.fixed, pts,
                       plan.n_points, options, metric, plan.budget, plan.warnings,
-                      dict(stats or {}))
+                      dict(stats or {}), dict(plan.point_warnings))
 
 
 def _with_state_metric(p: PointResult) -> PointResult:
@@ -120,7 +120,7 @@ def csv_text(table: SweepTable) -> str:
     head += [f"margin {q}" for q in dots]
     if table.budget:
         head += [f"budget {s}" for s in sources] + ["budget floor", "budget remainder"]
-    head += ["wall [s]", "message"]
+    head += ["wall [s]", "message", "warnings", "worst_warning"]
     w.writerow(head)
 
     def num(x):
@@ -128,8 +128,10 @@ def csv_text(table: SweepTable) -> str:
 
     for i, coords, p in _grid(table):
         row = [str(i)] + [repr(float(v)) for v in coords]
+        warns = table.point_warnings.get(i, ())
         if p is None:
-            row += [MISSING] + [""] * (len(head) - len(row) - 1)
+            row += [MISSING] + [""] * (len(head) - len(row) - 3)
+            row += [str(len(warns)), warns[0][1] if warns else ""]
             w.writerow(row)
             continue
         pops = dict(p.populations)
@@ -142,7 +144,7 @@ def csv_text(table: SweepTable) -> str:
             b = dict(p.budget)
             row += [num(b.get(s)) for s in sources] + [num(p.budget_floor),
                                                        num(p.budget_remainder)]
-        row += [f"{p.wall_s:.4f}", p.message]
+        row += [f"{p.wall_s:.4f}", p.message, str(len(warns)), warns[0][1] if warns else ""]
         w.writerow(row)
     return buf.getvalue()
 
@@ -159,7 +161,8 @@ def document(table: SweepTable, *, figure: str | None = None) -> dict:
     points = []
     for i, coords, p in _grid(table):
         d = {"index": i, "values": {a.name: v for a, v in zip(table.axes, coords)},
-             "values_text": values_text(table, coords)}
+             "values_text": values_text(table, coords),
+             "warnings": [t for _, t in table.point_warnings.get(i, ())]}
         if p is None:
             d["status"] = MISSING
             points.append(d)

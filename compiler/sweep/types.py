@@ -82,6 +82,9 @@ class SweepPlan:
     budget: bool
     key: dict = field(default_factory=dict)      # what must match for --resume
     warnings: tuple[str, ...] = ()
+    # per grid index: the warnings of that point's compiled run, worst first
+    # (as `dotseq check` words them), each (severity, text)
+    point_warnings: dict = field(default_factory=dict)
 
     @property
     def shape(self) -> tuple[int, ...]:
@@ -137,6 +140,7 @@ class SweepTable:
     budget: bool
     warnings: tuple[str, ...] = ()
     stats: dict = field(default_factory=dict)
+    point_warnings: dict = field(default_factory=dict)   # index -> ((severity, text), ...)
 
     @property
     def missing(self) -> tuple[int, ...]:

@@ -309,4 +309,5 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         raise SynthesisError(problems)
     warnings = tuple(w.render() for w in tl.warnings)
     return Waveforms(tl.run.index, tl.run.sweep, fs, n, outputs, tuple(records), dict(tl.frames),
-                     {q: device.larmor(q) for q in device.dots}, warnings, own)
+                     {q: device.larmor(q) for q in device.dots}, warnings, own,
+                     tl.run.sweep_text())

@@ -64,7 +64,7 @@ class StepRecord:
 
     index: int                # position in the timeline
     kind: str                 # rot, zrot, sqrtswap, sqrtswap_inv, swap, wait, read, trigger,
-                              # phasewait (wait inserted to phase-align an exchange), pad (end padding)
+                              # phasewait (wait inserted so an exchange starts at the right flip-flop phase), pad (end padding)
     qubits: tuple[str, ...]
     start: int                # first sample
     stop: int                 # one past the last sample
@@ -91,6 +91,7 @@ class Waveforms:
     # with synthesize(per_dot=True): each dot's own bursts as a complex baseband
     # (I + iQ, V, before quantisation), for simulations without drive crosstalk
     per_dot: dict = field(default_factory=dict)
+    sweep_text: str = ""                     # the sweep point with units: "tau = 400 ns"
 
     @property
     def duration(self) -> float:

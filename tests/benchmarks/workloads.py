@@ -12,17 +12,19 @@ CHANNEL = ("{{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], ris
 
 
 def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
-                preset: str = "") -> str:
+                preset: str = "", zeeman_noise: str = "") -> str:
     """n dots D0..D(n-1) in a line on one microwave line (Larmor frequencies
     28 MHz apart at 1 T), nearest-neighbour exchange through barrier
     gates (closed to well under a millihertz at idle), and, with
     ``long_range``, an exchange between D0 and D2 across a detuned D1.  Without
     ``preset`` the dots are spin-1/2 with the times the bilayer_graphene preset
     had before it became four-level (T1 200 µs, T2 20 µs, T2* 2 µs)."""
-    what = f"preset: {preset}" if preset else "t1: 200 us, t2: 20 us, t2_star: 2 us"
+    what = (f"preset: {preset}" if preset else
+            "t1: 200 us" if zeeman_noise else "t1: 200 us, t2: 20 us, t2_star: 2 us")
     dots = "\n".join(
         f"  D{k}: {{{what}, g: {2.0 + 0.002 * k:.4f}, drive: {{line: mw, "
-        f"rabi_per_volt: 40 MHz/V}}, plunger: P{k}}}" for k in range(n))
+        f"rabi_per_volt: 40 MHz/V}}, plunger: P{k}"
+        + (f", zeeman_noise: {zeeman_noise}" if zeeman_noise else "") + "}" for k in range(n))
     cpl = "\n".join(
         f"  - {{dots: [D{k}, D{k + 1}], barrier: B{k}, exchange: {{model: exponential, j0: 150 MHz, "
         f"v0: 20 mV}}, idle_voltage: -600 mV, pulse_voltage: 0 mV, charge_noise: {charge_noise}}}"
@@ -39,6 +41,7 @@ def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
     return f"""name: "benchmark line of {n} dots (invented)"
 field: 1 T
 temperature: 30 mK
+acquisition_time: 600 s
 rotation: {{mode: duration, shape: gauss, duration: 100 ns, sigmas: 4}}
 readout: {{marker: M1, duration: 1 us}}
 dots:
@@ -87,11 +90,12 @@ def line_steps(n: int, steps: int, *, long_range: bool = True) -> list[str]:
 
 
 def write_case(folder: Path, n: int, steps: int, *, charge_noise: str = "0 uV",
-               long_range: bool = True, prepare: str = "down") -> Path:
+               long_range: bool = True, prepare: str = "down", zeeman_noise: str = "") -> Path:
     """Device and sequence files for a line workload; returns the sequence path."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "device.yaml").write_text(line_device(n, charge_noise=charge_noise,
-                                                    long_range=long_range))
+                                                    long_range=long_range,
+                                                    zeeman_noise=zeeman_noise))
     dots = " ".join(f"D{k}" for k in range(n))
     body = "\n".join(line_steps(n, steps, long_range=long_range))
     seq = folder / f"line{n}.dotseq"

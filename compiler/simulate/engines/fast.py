@@ -59,6 +59,7 @@ from ...threads import one_thread
 from ..model import Model, NoisePoint, dot_operator
 from ..types import Evolution
 from . import pauli as PL
+from .clusters import clusters
 
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
 
@@ -145,7 +146,7 @@ class FastEngine:
                 "neglected_exchange_rad": self.neglected_exchange_rad}
 
     def evolve(self, model: Model, point: NoisePoint, *, rho0=None, process=False, trace_points=0):
-        return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0)], rho0=rho0,
+        return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0, point.modes)], rho0=rho0,
                             process=process, trace_points=trace_points)
 
     def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0,
@@ -336,10 +337,14 @@ class FastEngine:
         h = model.h
         combos: dict = {}
         which = []
+        # the gate-band profiles on the cluster's dots (time-dependent detuning)
+        prof = [j for j, p in enumerate(model.profiles) if p.dot in pc.dots]
+        prof_dots = tuple(q for q in pc.dots if any(model.profiles[j].dot == q for j in prof))
         for i in idx:
             pt = points[i]
             key = (tuple(pt.detuning[q] if pt.detuning else 0.0 for q in pc.dots)
-                   + tuple(pt.dv[j] if pt.dv else 0.0 for j in pc.pairs))
+                   + tuple(pt.dv[j] if pt.dv else 0.0 for j in pc.pairs)
+                   + tuple(pt.modes[j] if pt.modes else 0.0 for j in prof))
             which.append(combos.setdefault(key, len(combos)))
         # frame angles ϑ_q(k) = 2π·w_q·t_k at the sub-step centres (module notes)
         t = model.t0 + (np.arange(s, e) + 0.5) * h
@@ -358,6 +363,7 @@ class FastEngine:
                 cols_fixed += [a, b]
         for j in pc.pairs:
             gens += list(pc.pair[j])
+        gens += [pc.det[q] for q in prof_dots]
         G = np.stack(gens) if gens else np.zeros((0,) + pc.base.shape)
         statics, Cs = [], []
         for key in combos:
@@ -377,6 +383,13 @@ class FastEngine:
                     cs, sn = np.cos(ang), np.sin(ang)
                     Fr, Fi = Fr * cs - Fi * sn, Fr * sn + Fi * cs
                 cols += [J[s:e], Fr, Fi]
+            if prof_dots:
+                modes = [0.0] * len(model.profiles)
+                for j, x in zip(prof, key[len(pc.dots) + len(pc.pairs):]):
+                    modes[j] = x
+                for q in prof_dots:
+                    d = model.detuning_profile(q, modes)
+                    cols.append(np.zeros(e - s) if d is None else d[s:e])
             statics.append(static)
             Cs.append(np.stack(cols, axis=1) if cols else np.zeros((e - s, 0)))
         chans = self._chain(np.stack(statics), G, np.stack(Cs), h, pc, tuple(combos),
@@ -524,7 +537,7 @@ class FastEngine:
             if e <= s:
                 continue
             active = [i for i, m in enumerate(prep["on"]) if m[s]]
-            for dots, pairs in _clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
+            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
                                          active):
                 pc = self._cluster_pieces(model, dots, pairs)
                 self._largest_now = max(self._largest_now, len(dots))
@@ -546,29 +559,6 @@ class FastEngine:
 
 
 # ------------------------------------------------------------------ helpers
-
-def _clusters(n: int, edges, active):
-    """Connected groups of dots (sorted tuples) and the pairs inside each."""
-    parent = list(range(n))
-
-    def find(x):
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    for a, b in edges:
-        parent[find(a)] = find(b)
-    groups: dict = {}
-    for q in range(n):
-        groups.setdefault(find(q), []).append(q)
-    out = []
-    for members in groups.values():
-        dots = tuple(sorted(members))
-        pairs = tuple(i for i, (a, b) in zip(active, edges) if a in members)
-        out.append((dots, pairs))
-    return out
-
 
 def _embed(M: np.ndarray, dots: tuple[int, ...], into: tuple[int, ...]) -> np.ndarray:
     """A channel on ``dots`` as a channel on the superset ``into`` (identity

@@ -34,6 +34,7 @@ from ...pulses import ordered_product
 from ..model import LevelPair, Model, dot_operator, embed_pair
 from ..types import Evolution
 from . import pauli as PL
+from .clusters import clusters
 
 
 def _ham(H: np.ndarray) -> np.ndarray:
@@ -127,7 +128,6 @@ class LevelsPath:
         marks = (np.unique(np.linspace(0, K, max(trace_points, 2)).round().astype(int))
                  if trace_points and rho0 is not None else np.zeros(0, int))
         bounds = sorted(bounds | set(int(x) for x in marks))
-        from .fast import _clusters
         S_sum = rho_sum = None
         traces: dict = {}
         for ip, pt in enumerate(points):
@@ -154,7 +154,7 @@ class LevelsPath:
                 if e <= s:
                     continue
                 active = [i for i, m in enumerate(on) if m[s]]
-                for dots, pairs in _clusters(n, [(model.pairs[i].a, model.pairs[i].b)
+                for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
                                                  for i in active], active):
                     eng._largest_now = max(eng._largest_now, len(dots))
                     eng.largest_cluster = max(eng.largest_cluster, len(dots))
@@ -231,6 +231,16 @@ class LevelsPath:
                 spm = (_at(dot_operator(model.dots[p.a], "raise"), a, dims)
                        @ _at(dot_operator(model.dots[p.b], "lower"), b, dims))
                 herm_pair(spm / 2, F[s:e])
+        # gate-band modes of a noise spectrum (bands.py): a detuning in time on
+        # the dots that have profiles, one generator each whatever the point
+        # (zero columns where the point's modes are zero), so that the cached
+        # generators of a model and cluster stay the same for every point
+        prof_dots = {p.dot for p in model.profiles}
+        for q in dots:
+            if q in prof_dots:
+                prof = model.detuning_profile(q, pt.modes) if pt.modes else None
+                gens.append(det[q])
+                cols.append(np.zeros(e - s) if prof is None else np.real(prof[s:e]))
         static = base.copy()
         for q in dots:
             dq = pt.detuning[q] if pt.detuning else 0.0

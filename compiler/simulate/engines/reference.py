@@ -66,6 +66,9 @@ class ReferenceEngine:
         for k, d in enumerate(point.detuning):
             if d:
                 static = static + two_pi * d / 2 * at("z", k)
+            prof = model.detuning_profile(k, point.modes) if point.modes else None
+            if prof is not None:                    # gate-band modes: detuning in time
+                H.append([two_pi * at("z", k) / 2, coef(prof.astype(complex))])
         dims = [list(model.levels), list(model.levels)]
         for i, p in enumerate(model.pairs):
             if isinstance(p, LevelPair):
