@@ -39,7 +39,7 @@ DEVICE_LINES = [
     "  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}",   # 6
     "  M1: {kind: marker, sample_rate: 1 GS/s}",                                # 7
     "dots:",                                                                    # 8
-    "  A: {preset: bilayer_graphene, drive: {line: mw, rabi_per_volt: 60 MHz/V}, plunger: P_A}",
+    "  A: {preset: graphene, drive: {line: mw, rabi_per_volt: 60 MHz/V}, plunger: P_A}",
 ]
 SEQUENCE = 'device "dev.yaml"\nrot A x 90 deg\nwait 100 ns on A\n'
 

@@ -21,7 +21,10 @@ from compiler.simulate.model import noise_points
 from compiler.simulate.run import evaluate_whole
 from compiler.simulate.sources import Switches, all_off, compile_changes
 from compiler.synth import synthesize
-from conftest import SEQUENCES
+from conftest import ROOT, SEQUENCES
+
+# the two-level demo pair (spin-1/2 dots) for the two-level engine checks
+SPIN_HALF_PAIR = ROOT / "tests" / "data" / "spin_half_pair.yaml"
 
 QUIET = Switches().off("t1", "t2", "t2_star", "charge")
 
@@ -232,12 +235,12 @@ channels:
 """
     src = "prepare A down\nrot A x 90 deg\nrot A y 180 deg\nrot A x 90 deg\n"
     res = {}
-    for preset, g in (("bilayer_graphene", 2.0), ("gaas", -0.44)):
+    for preset, g in (("graphene", 2.0), ("gaas", -0.44)):
         dev = load_device_text(dev_text(preset, g), "d.yaml")
         run = run_of(src, dev)
         tl = compile_run(run, dev).timeline
         res[preset] = (tl.slots[0].duration, whole(src, dev, nodes=5).f_avg)
-    (t_gr, f_gr), (t_ga, f_ga) = res["bilayer_graphene"], res["gaas"]
+    (t_gr, f_gr), (t_ga, f_ga) = res["graphene"], res["gaas"]
     assert t_ga / t_gr == pytest.approx(2.0 / 0.44, rel=0.02)
     assert f_gr > f_ga
 
@@ -247,7 +250,7 @@ channels:
 @pytest.mark.parametrize("name", ["cnot_pair.dotseq", "ramsey_pair.dotseq"])
 def test_fast_engine_agrees_with_mesolve(name):
     # qutip mesolve (tolerances tightened) on the same piecewise-constant model
-    c = load(SEQUENCES / name)
+    c = load(SEQUENCES / name, device=SPIN_HALF_PAIR)
     wf = compile(c, runs=[0]).waveforms[0]
     stop = next(r.start for r in wf.steps if r.kind == "read")
     model = build_model(wf, c.device, m=2, stop=stop)
@@ -273,7 +276,7 @@ def test_fast_engine_agrees_with_mesolve(name):
 
 
 def test_simulate_reports_steps_and_budget():
-    c = load(SEQUENCES / "cnot_pair.dotseq")
+    c = load(SEQUENCES / "cnot_pair.dotseq", device=SPIN_HALF_PAIR)
     r = simulate(compile(c), SimOptions(nodes=3, quadrature="additive"))
     run = r.runs[0]
     assert 0.5 < run.average_fidelity < 1 and run.steps and run.budget

@@ -30,10 +30,11 @@ from .. import physics
 from ..errors import DeviceError, Problem, ProblemList, Span, suggest
 from .. import spectra
 from ..units import (FREQ_NOISE, VOLT_NOISE)
-from ..units import (ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
+from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
                      parse_quantity)
 from . import exchange as xch
+from . import levels as lv
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
                     Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
 from .presets import PRESETS
@@ -42,10 +43,12 @@ from .rules import ERROR, validate
 # --------------------------------------------------------------------- schema
 
 TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
-TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "acquisition_time")
+TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time")
 
-DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise")
-DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt")
+DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise",
+            "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
+VALLEY_KEYS = ("spin_orbit", "valley_splitting", "valley_g")
+DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt", "direction")
 
 CHANNEL_KINDS = ("iq", "gate", "marker")
 CHANNEL_KEYS = ("kind", "sample_rate", "bits", "range", "rise_time", "bandwidth",
@@ -454,13 +457,51 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
             r.error(knode, f"{path} needs '{key}' (or a 'preset' to take it from)",
                     "presets: " + ", ".join(PRESETS))
     # T2* <= T2 <= 2 T1 and the other physical rules: rules.validate
+    valley: dict[str, _Val] = {}
+    for key in ("spin_orbit", "valley_splitting"):
+        v = r.get(m, key, _energy_or_freq, r, f"{path}.{key}")
+        if v is not None:
+            if v.value < 0:
+                r.error(v.node, f"{path}.{key} must not be negative, got '{v.node.value}'",
+                        "give the gap as a positive energy, e.g. 60 ueV")
+            valley[key] = v
+    vg = r.get(m, "valley_g", r.number, f"{path}.valley_g")
+    if vg is not None:
+        valley["valley_g"] = vg
+    vt1 = r.get(m, "valley_t1", r.quantity, f"{path}.valley_t1", TIME, positive=True)
+    if vt1 is not None:
+        valley["valley_t1"] = vt1
+    if preset is not None:
+        p = PRESETS[preset.value]
+        for key in VALLEY_KEYS + ("valley_t1",):
+            if key not in m and p.extra(key) is not None:
+                valley[key] = _Val(p.extra(key), preset.node)
+                sources.append(f"{key}: {p.source(key)}")
+    four = any(k in valley for k in VALLEY_KEYS)
+    if four and "g" in values and values["g"].value < 0:
+        r.error(values["g"].node, f"{path}.g must be positive for a spin–valley dot, got "
+                                  f"{values['g'].value:g}",
+                "the levels are ordered by energy; give |g| (graphene, silicon: g ≈ 2)")
+    for key in ("valley_t1", "qubit_levels"):
+        if key in m and not four:
+            r.error(m[key][0], f"{path}.{key} is for a spin–valley dot",
+                    "give spin_orbit, valley_splitting or valley_g (or a preset with them), "
+                    "or remove this key")
+    qlev = None
+    if "qubit_levels" in m and four:
+        qlev = r.get(m, "qubit_levels", _level_pair, r, f"{path}.qubit_levels")
     drive = None
     if "drive" in m:
         drive = _read_drive(r, m["drive"], f"{path}.drive", values.get("g"))
+        if drive is not None and drive.get("direction") is not None and not four:
+            r.warn(drive["direction"].node, f"{path}.drive.direction is used only by "
+                                            "spin–valley dots",
+                   "a spin-1/2's rabi_per_volt already holds its drive calibration")
     plunger = r.get(m, "plunger", r.ident, f"{path}.plunger", "channel")
     if len(r.problems.problems) > n_before or drive is None or plunger is None:
         return None
     return {"name": name, "values": values, "drive": drive, "plunger": plunger,
+            "valley": valley if four else None, "qubit_levels": qlev,
             "zeeman": zeeman,
             "preset": preset.value if preset else "", "sources": tuple(sources),
             "node": knode, "span": r.span(knode)}
@@ -474,6 +515,7 @@ def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) ->
     except _Skip:
         return None
     line = r.get(m, "line", r.ident, f"{path}.line", "channel")
+    direction = r.get(m, "direction", _direction, r, f"{path}.direction")
     rabi = r.get(m, "rabi_per_volt", r.quantity, f"{path}.rabi_per_volt", FREQ_PER_VOLT,
                  positive=True)
     b1 = r.get(m, "b1_per_volt", r.quantity, f"{path}.b1_per_volt", FIELD_PER_VOLT,
@@ -495,7 +537,33 @@ def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) ->
         per_volt = _Val(physics.rabi_from_b1(g.value, b1.value), b1.node)
     else:
         return None
-    return {"line": line, "rabi": per_volt, "span": r.span(knode)}
+    return {"line": line, "rabi": per_volt, "span": r.span(knode), "direction": direction}
+
+
+def _direction(node: Node, r: _Reader, path: str) -> tuple[float, float, float]:
+    """A direction [x, y, z] (plain numbers, not all zero; normalised)."""
+    if not isinstance(node, SequenceNode) or len(node.value) != 3:
+        r.fail(node, f"{path} must be a list of three numbers [x, y, z], got {_kind_of(node)}",
+               "x in-plane along the static field's in-plane part, z out of the plane; "
+               "e.g. [0, 1, 0] (the default: in-plane, perpendicular to the field)")
+    xs = tuple(r.number(v, f"{path}[{i}]") for i, v in enumerate(node.value))
+    norm = math.sqrt(sum(x * x for x in xs))
+    if not norm > 0 or not math.isfinite(norm):
+        r.fail(node, f"{path} must not be the zero vector", "e.g. [0, 1, 0]")
+    return tuple(x / norm for x in xs)
+
+
+def _level_pair(node: Node, r: _Reader, path: str) -> tuple[int, int]:
+    """Two distinct level indices 0..3 (0 = ground), lower first."""
+    if not isinstance(node, SequenceNode) or len(node.value) != 2:
+        r.fail(node, f"{path} must be a list of two level numbers [lower, upper], got "
+                     f"{_kind_of(node)}", "levels count from 0 (the ground level); e.g. [0, 2]")
+    a = r.integer(node.value[0], f"{path}[0]", 0, lv.LEVELS - 1)
+    b = r.integer(node.value[1], f"{path}[1]", 0, lv.LEVELS - 1)
+    if not a < b:
+        r.fail(node, f"{path}: the lower level must come first and differ from the upper, got "
+                     f"[{a}, {b}]", "e.g. [0, 2]")
+    return (a, b)
 
 
 def _read_exchange(r: _Reader, kv: tuple[Node, Node], path: str) -> _Val | None:
@@ -846,6 +914,13 @@ def _build(r: _Reader, root: Node) -> Device:
     notes = r.get(top, "notes", r.text, "notes")
     fld = r.get(top, "field", r.quantity, "field", FIELD, positive=True)
     temp = r.get(top, "temperature", r.quantity, "temperature", TEMPERATURE, positive=True)
+    tilt = r.get(top, "field_tilt", r.quantity, "field_tilt", ANGLE, bare_zero=True)
+    if tilt is not None and not -math.pi / 2 <= tilt.value <= math.pi / 2:
+        r.error(tilt.node, f"field_tilt must be from -90 deg to 90 deg, got '{tilt.node.value}'",
+                "the angle of the field from the sample plane: 0 deg in-plane, 90 deg "
+                "out of plane")
+        tilt = None
+    tilt_v = tilt.value if tilt is not None else 0.0
     acq = r.get(top, "acquisition_time", r.quantity, "acquisition_time", TIME, positive=True)
 
     # channels first: dots and couplings refer to them
@@ -936,6 +1011,12 @@ def _build(r: _Reader, root: Node) -> Device:
         g = d["values"]["g"].value
         r.nodes[path] = d["node"]
         v = d["values"]
+        valley = d["valley"]
+        extra = {}
+        if valley is not None:
+            extra = {k: valley[k].value for k in valley}
+            if d["qubit_levels"] is not None:
+                extra["qubit_levels"] = d["qubit_levels"].value
         zn = _make_spectrum(r, d["zeeman"], acq)
         if d["zeeman"] is not None:
             if zn is None:
@@ -950,8 +1031,11 @@ def _build(r: _Reader, root: Node) -> Device:
         dots[nm] = Dot(name=nm, g=g, t1=v["t1"].value, t2=t2_v,
                        t2_star=t2s_v, zeeman_noise=zn,
                        drive=Drive(d["drive"]["line"].value, d["drive"]["rabi"].value,
-                                   d["drive"]["span"]),
-                       plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"])
+                                   d["drive"]["span"],
+                                   d["drive"]["direction"].value if d["drive"]["direction"]
+                                   else None),
+                       plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"],
+                       **extra)
 
     couplings: list[Coupling] = []
     for c in raw_couplings:
@@ -975,7 +1059,7 @@ def _build(r: _Reader, root: Node) -> Device:
                     dots=dots, couplings=tuple(couplings), channels=channels,
                     rotation=rotation[0] if rotation else RotationDefaults(),
                     readout=readout[0] if readout else Readout(),
-                    notes=notes.value if notes else "",
+                    notes=notes.value if notes else "", field_tilt=tilt_v,
                     acquisition_time=acq.value if acq else 0.0)
     for f in validate(device):
         node = _locate(r, root, f.key, f.near)

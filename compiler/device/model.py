@@ -37,6 +37,11 @@ class Drive:
     line: str                 # name of an IQ channel pair
     rabi_per_volt: float      # Hz/V of microwave amplitude (from B1/V if given so)
     span: Span | None = None
+    # direction of the drive's oscillating field (x in-plane along the static
+    # field's in-plane part, z out of plane); None = the default, in-plane and
+    # perpendicular to the static field (levels.default_direction).  Used by
+    # spin–valley dots only.
+    direction: tuple[float, float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -54,6 +59,23 @@ class Dot:
     # spectrum of the Larmor frequency's fluctuations (compiler.spectra.Spectrum,
     # Hz²/Hz); when given, t2 and t2_star hold the times it implies
     zeeman_noise: object = None
+    # spin–valley dot (docs/device.md): present when the file or the preset
+    # gives any of spin_orbit, valley_splitting, valley_g; None = a spin-1/2
+    spin_orbit: float | None = None        # Hz, Kane–Mele gap Δ_SO/h
+    valley_splitting: float | None = None  # Hz, Δ_KK′/h (K–K′ mixing; E_v/h in silicon)
+    valley_g: float | None = None          # valley g-factor g_v
+    valley_t1: float | None = None         # s, valley relaxation time (None: t1)
+    qubit_levels: tuple[int, int] | None = None  # levels of the qubit (None: default rule)
+
+    @property
+    def spin_valley(self) -> bool:
+        """True for a four-level (spin–valley) dot."""
+        return (self.spin_orbit is not None or self.valley_splitting is not None
+                or self.valley_g is not None)
+
+    @property
+    def levels(self) -> int:
+        return 4 if self.spin_valley else 2
 
 
 @dataclass(frozen=True)
@@ -133,6 +155,7 @@ class Device:
     rotation: RotationDefaults = RotationDefaults()
     readout: Readout = Readout()
     notes: str = ""
+    field_tilt: float = 0.0   # rad from the sample plane (0 = in-plane, π/2 = out of plane)
     acquisition_time: float = 0.0   # s, total time a measurement averages over (0: not given)
     # Physically doubtful but legal settings (large idle exchange, weak
     # thermal polarisation, ...): positioned like errors, never raised.
@@ -173,10 +196,36 @@ class Device:
         """Larmor frequency of a dot (Hz)."""
         return self.larmor_table[dot]
 
+    def rabi_per_volt(self, dot: str) -> float:
+        """Rabi frequency per volt of the qubit transition (Hz/V): the drive's
+        calibration for a bare spin times |⟨upper|σ·n̂|lower⟩| (exactly the
+        calibration for a spin-1/2)."""
+        d = self.dots[dot]
+        if not d.spin_valley:
+            return d.drive.rabi_per_volt
+        return d.drive.rabi_per_volt * self.ladders[dot].element
+
     @cached_property
     def larmor_table(self) -> dict[str, float]:
+        """Qubit frequency per dot: |g|·μB·B/h for a spin-1/2, the qubit
+        transition of the level ladder for a spin–valley dot."""
         from ..physics import larmor_frequency
-        return {name: larmor_frequency(d.g, self.field) for name, d in self.dots.items()}
+        return {name: (self.ladders[name].larmor if d.spin_valley
+                       else larmor_frequency(d.g, self.field))
+                for name, d in self.dots.items()}
+
+    @cached_property
+    def ladders(self) -> dict:
+        """Level ladder (:class:`.levels.Ladder`) of every spin–valley dot."""
+        return {name: dot_ladder(d, self.field, self.field_tilt)
+                for name, d in self.dots.items() if d.spin_valley}
+
+
+def dot_ladder(d: Dot, field: float, tilt: float):
+    """The :class:`.levels.Ladder` of a spin–valley dot in this field."""
+    from .levels import ladder
+    return ladder(d.spin_orbit or 0.0, d.valley_splitting or 0.0, d.g, d.valley_g or 0.0,
+                  field, tilt, d.drive.direction, d.qubit_levels)
 
 
 def granularity_of(values) -> int:

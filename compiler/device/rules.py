@@ -19,6 +19,7 @@ is written so that NaN breaks none (the reader has reported it already).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 
 from .. import physics
@@ -132,10 +133,18 @@ def _dot_rules(device: Device, q: str, d, add) -> None:
     if line is None or line.kind != "iq" or d.g == 0 or not device.field > 0:
         return
     f_l = physics.larmor_frequency(d.g, device.field)
+    what = f"|g| = {abs(d.g):g}"
+    if d.spin_valley:
+        if not (math.isfinite(device.field) and math.isfinite(device.field_tilt)):
+            return
+        lad = device.ladders[q]
+        f_l = lad.larmor
+        what = "qubit transition of the spin–valley levels"
+        _valley_rules(device, q, lad, add)
     need = f_l - line.lo
     if need < line.if_min or need > line.if_max:
         add(Finding(f"{p}.drive.line", "larmor",
-                    f"{p}: Larmor frequency {_q(f_l, FREQUENCY)} (|g| = {abs(d.g):g} at "
+                    f"{p}: Larmor frequency {_q(f_l, FREQUENCY)} ({what} at "
                     f"{format_quantity(device.field, FIELD)}) is not reachable on line "
                     f"'{line.name}': LO {_q(line.lo, FREQUENCY)} + IF band "
                     f"[{_q(line.if_min, FREQUENCY)}, {_q(line.if_max, FREQUENCY)}] covers "
@@ -157,6 +166,28 @@ def _dot_rules(device: Device, q: str, d, add) -> None:
                     f"{THERMAL_RATIO:g}·k_B·T at {_q(device.temperature, TEMPERATURE)}",
                     "thermal initialisation and spin-to-charge readout will be poor; raise the "
                     "field or lower the temperature", WARNING))
+
+
+def _valley_rules(device: Device, q: str, lad, add) -> None:
+    """A spin–valley dot: a qubit level (nearly) degenerate with another level,
+    and the field near the relaxation hotspot E_Z = E_v (warnings)."""
+    from . import levels as lv
+    p = f"dots.{q}"
+    if lad.degenerate:
+        add(Finding(p, "valley-degenerate",
+                    f"{p}: qubit level(s) {lad.qubit} (nearly) degenerate with level(s) "
+                    f"{', '.join(map(str, lad.degenerate))} (valley degeneracy)",
+                    "lift it: tilt the field out of the plane (field_tilt) so the valley "
+                    "g-factor splits the valleys, or give a valley_splitting", WARNING))
+    if lv.near_hotspot(lad, device.field):
+        add(Finding(p, "hotspot",
+                    f"{p}: the field {format_quantity(device.field, FIELD)} is near the "
+                    f"spin–valley hotspot at {format_quantity(lad.hotspot_field, FIELD)} "
+                    f"(Zeeman energy {format_quantity(lad.zeeman, FREQUENCY, 5)} ≈ valley "
+                    "splitting)",
+                    "spin relaxation is fast where E_Z = E_v (Yang et al., Nat. Commun. 4, "
+                    "2069 (2013)); move the field or the valley splitting away from it",
+                    WARNING))
 
 
 def _rotation_rules(device: Device, add) -> None:

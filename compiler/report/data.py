@@ -140,7 +140,8 @@ def _step(d: dict) -> StepFidelity:
     return StepFidelity(index=int(d["index"]), kind=str(d["kind"]),
                         qubits=tuple(d["qubits"]), label=str(d["label"]),
                         source=str(d["source"]), start=_num(d["start"]),
-                        duration=_num(d["duration"]), fidelity=_num(d["fidelity"]))
+                        duration=_num(d["duration"]), fidelity=_num(d["fidelity"]),
+                        leakage=_num(d.get("leakage", 0.0)))
 
 
 def _run(d: dict) -> RunResult:
@@ -166,6 +167,7 @@ def _run(d: dict) -> RunResult:
         nodes=int(d.get("nodes", 1)),
         compared_nodes=int(d.get("compared_nodes", max(0, int(d.get("nodes", 1)) - 2))),
         budget_numerical_error=_num(d.get("budget_numerical_error", 0.0)),
+        leakage=_num(d.get("leakage", 0.0)),
     )
 
 

@@ -285,7 +285,7 @@ class _Scheduler:
                       "duration= instead")
             return None
         try:
-            b = design_burst(step.angle, step.phase, dot.drive.rabi_per_volt, self.dt,
+            b = design_burst(step.angle, step.phase, self.device.rabi_per_volt(step.qubit), self.dt,
                              self.device.rotation, step.shape, step.duration, step.amplitude)
         except DesignError as e:
             self.fail(e.message, step, e.hint)
@@ -343,7 +343,7 @@ class _Scheduler:
             period = 1.0 / (abs(delta) * self.dt)          # samples per π of ξ
             k = int(round((r / (math.pi * delta * self.dt)) % period)) % max(1, int(round(period)))
         # option B: physical z rotation on dot a from two π bursts
-        pi_burst = design_burst(math.pi, 0.0, self.device.dots[a].drive.rabi_per_volt, self.dt,
+        pi_burst = design_burst(math.pi, 0.0, self.device.rabi_per_volt(a), self.dt,
                                 self.device.rotation)
         cost_b = 2 * pi_burst.n
         if k is not None and k <= cost_b:
@@ -446,7 +446,7 @@ class _Scheduler:
             alpha = self._spectator_cache.get(key)
             if alpha is None:
                 alpha = self._spectator_cache[key] = spectator_phase(
-                    burst, dot.drive.rabi_per_volt, f_q - self.device.larmor(o), self.dt,
+                    burst, self.device.rabi_per_volt(o), f_q - self.device.larmor(o), self.dt,
                     precession_sign(dot.g))
             if alpha:
                 self.frames[o] -= alpha

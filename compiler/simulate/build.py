@@ -37,9 +37,85 @@ from ..device import exchange as X
 from ..device.model import Device
 from ..physics import precession_sign
 from ..synth.types import Waveforms
+from ..device.levels import SPIN, qubit_basis
+from ..errors import UsageError
 from .bands import mode_shapes
-from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, Model,
-                    NoiseVariable, Pair, Profile)
+from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, LevelPair, Model,
+                    NoiseVariable, Pair, Profile, freeze)
+
+CONNECT_TOL = 1e-6     # |matrix element|² below this: the drive does not connect two levels
+
+
+def valley_spec(device: Device, q: str) -> DotSpec:
+    """The four-level :class:`DotSpec` of a spin–valley dot: basis and energies
+    from :func:`compiler.device.levels.qubit_basis`, operators ``raise``,
+    ``lower``, ``z`` (±1 on the qubit levels), ``up`` (the upper qubit level),
+    ``sx``, ``sy``, ``sz`` (σ/2 on the spin, identity on the valley) and
+    ``drive`` (σ·n̂ of the drive direction)."""
+    lad = device.ladders[q]
+    _, v, e = qubit_basis(lad)
+    d = device.dots[q]
+    n = np.asarray(d.drive.direction if d.drive.direction is not None else (0.0, 1.0, 0.0))
+    n = n / np.linalg.norm(n)
+    L = len(e)
+    one = lambda i, j: np.eye(L)[:, [i]] @ np.eye(L)[[j], :]  # noqa: E731
+    ops = {"raise": one(0, 1), "lower": one(1, 0),
+           "z": np.diag([1.0, -1.0] + [0.0] * (L - 2)), "up": one(0, 0),
+           "sx": v.conj().T @ SPIN[0] @ v / 2, "sy": v.conj().T @ SPIN[1] @ v / 2,
+           "sz": v.conj().T @ SPIN[2] @ v / 2,
+           "drive": v.conj().T @ sum(c * s for c, s in zip(n, SPIN)) @ v}
+    return DotSpec(q, L, False, tuple((k, freeze(m)) for k, m in ops.items()), tuple(e), (0, 1))
+
+
+def _spin_half_spec(device: Device, q: str) -> DotSpec:
+    """A spin-1/2 with the energies of its rotating frame (up, down)."""
+    s = precession_sign(device.dots[q].g) * device.larmor(q) / 2
+    return DotSpec(q, SPIN_HALF_LEVELS, device.dots[q].g < 0,
+                   (("sx", freeze(np.array([[0, 1], [1, 0]]) / 2)),
+                    ("sy", freeze(np.array([[0, -1j], [1j, 0]]) / 2)),
+                    ("sz", freeze(np.diag([0.5, -0.5])))), (s, -s))
+
+
+def _level_pair(device: Device, specs: dict, a: int, b: int, qa: str, qb: str, volts, tn,
+                cpl, lo_v, hi_v, h: float, zeeman: bool) -> LevelPair:
+    """J·S_a·S_b in the interaction picture of both dots' levels, split by frequency."""
+    sa, sb = specs[qa], specs[qb]
+    ea, eb = np.array(sa.energies), np.array(sb.energies)
+    if not zeeman:
+        # the Zeeman difference off: both qubits at their mean frequency
+        fa, fb = ea[0] - ea[1], eb[0] - eb[1]
+        mean = (fa + fb) / 2
+        for e, f in ((ea, fa), (eb, fb)):
+            mid = (e[0] + e[1]) / 2
+            e[0], e[1] = mid + np.sign(f) * abs(mean) / 2, mid - np.sign(f) * abs(mean) / 2
+    from .model import dot_operator
+    op = sum(np.kron(dot_operator(sa, f"s{c}"), dot_operator(sb, f"s{c}")) for c in "xyz")
+    da, db = len(ea), len(eb)
+    e = (ea[:, None] + eb[None, :]).reshape(-1)
+    nu = e[:, None] - e[None, :]                   # element (r, c) turns at E_r − E_c
+    cutoff = 0.5 / h
+    groups: dict = {}
+    dropped = 0.0
+    scale = max(np.abs(nu).max(), 1.0)
+    for r, c in zip(*np.nonzero(np.abs(op) > 1e-14)):
+        f = nu[r, c]
+        if f < 0:
+            continue
+        if f > cutoff:
+            dropped = max(dropped, abs(op[r, c]))
+            continue
+        key = round(f / scale, 9)
+        groups.setdefault(key, []).append((r, c, f))
+    parts = []
+    for key in sorted(groups):
+        m = np.zeros_like(op)
+        fs = []
+        for r, c, f in groups[key]:
+            m[r, c] = op[r, c]
+            fs.append(f)
+        parts.append((float(np.mean(fs)), m))
+    return LevelPair(a, b, f"{qa}-{qb}", volts, tn, cpl.exchange, lo_v, hi_v, tuple(parts), dropped)
+
 from .sources import ALL_ON, SOURCES, Switches
 
 
@@ -93,12 +169,20 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
     Larmor frequency (``m`` large), which makes it slow (Bloch & Siegert,
     Phys. Rev. 57, 522 (1940))."""
     dots = tuple(device.dots)
+    four = {q for q in dots if device.dots[q].spin_valley}
+    if four and not rwa:
+        raise UsageError("the simulation without the rotating-wave approximation is for spin-1/2 "
+                         f"dots only; {', '.join(sorted(four))} are spin–valley dots",
+                         hint="leave out --no-rwa")
+    specs = {q: (valley_spec(device, q) if q in four else
+                 DotSpec(q, SPIN_HALF_LEVELS, device.dots[q].g < 0)) for q in dots}
     dt = 1.0 / wf.sample_rate
     stop = wf.n_samples if stop is None else stop
     h = dt / m
     K = (stop - start) * m
     sw = switches
     drive: dict[int, np.ndarray] = {}
+    drive_terms: dict[int, tuple] = {}
     for idx, q in enumerate(dots):
         dot = device.dots[q]
         line = device.channels[dot.drive.line]
@@ -111,6 +195,12 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
             c = wf.per_dot.get(q)
             if c is None:
                 continue
+        if q in four:
+            terms = _valley_drive(specs[q], np.asarray(c, dtype=complex), dt, tau, m, line.lo,
+                                  start, stop, dot.drive.rabi_per_volt, h)
+            if terms:
+                drive_terms[idx] = terms
+            continue
         if_hz = device.larmor(q) - line.lo
         b = _exact_means(np.asarray(c, dtype=complex), dt, tau, m, if_hz, 0.0)[start * m:stop * m]
         if not np.any(b):
@@ -138,6 +228,13 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
             v = v - analog.rc_boundaries(mean, h, ch.bias_tee, 0.0)[:-1, None]
         v = v[start * m:stop * m] + out.dc_level
         a, b = dots.index(cpl.dots[0]), dots.index(cpl.dots[1])
+        if cpl.dots[0] in four or cpl.dots[1] in four:
+            tn = start * dt + (np.arange(K)[:, None] + (GL_X[None, :] + 1) / 2) * h
+            lo_v, hi_v = X.v_range(cpl.exchange)
+            sp = {q: specs[q] if q in four else _spin_half_spec(device, q) for q in cpl.dots}
+            pairs.append(_level_pair(device, sp, a, b, cpl.dots[0], cpl.dots[1], v, tn, cpl,
+                                     lo_v, hi_v, h, sw.on("exchange_zeeman")))
+            continue
         da, db = device.dots[cpl.dots[0]], device.dots[cpl.dots[1]]
         delta = (precession_sign(da.g) * device.larmor(cpl.dots[0])
                  - precession_sign(db.g) * device.larmor(cpl.dots[1])) if sw.on("exchange_zeeman") else 0.0
@@ -146,7 +243,7 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         lo_v, hi_v = X.v_range(cpl.exchange)
         pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
                           lo_v, hi_v, delta))
-    specs = tuple(DotSpec(q, SPIN_HALF_LEVELS, device.dots[q].g < 0) for q in dots)
+    specs = tuple(specs[q] for q in dots)
     dissipators, noise, profiles = [], [], []
     window = K * h
     for src in SOURCES.values():
@@ -169,7 +266,32 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
     # the engines take the dissipators dot by dot, in registry order
     dissipators.sort(key=lambda d: d.dot)
     return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise),
-                 tuple(profiles))
+                 drive_terms, tuple(profiles))
+
+
+def _valley_drive(spec: DotSpec, c: np.ndarray, dt: float, tau: float, m: int, lo: float,
+                  start: int, stop: int, r: float, h: float) -> tuple:
+    """Drive terms of a spin–valley dot: for every transition i ← j (E_i > E_j)
+    that σ·n̂ connects and that lies within the sub-step's Nyquist band of the
+    qubit transition, the coefficient of |i⟩⟨j| is
+    (r/2)·D_ij·conj(mean of c·e^{−i2π(f_ij − LO)t}) (the spin-1/2's rule with
+    the transition's own frequency and matrix element; rotating-wave
+    approximation)."""
+    from .model import dot_operator
+    D = dot_operator(spec, "drive")
+    e = spec.energies
+    f_q = e[0] - e[1]
+    out = []
+    for i in range(spec.levels):
+        for j in range(spec.levels):
+            f = e[i] - e[j]
+            if f <= 0 or abs(D[i, j]) ** 2 < CONNECT_TOL or abs(f - f_q) > 0.5 / h:
+                continue
+            b = _exact_means(c, dt, tau, m, f - lo, 0.0)[start * m:stop * m]
+            if not np.any(b):
+                continue
+            out.append((f"t_{i}_{j}", (r / 2) * D[i, j] * np.conj(b)))
+    return tuple(out)
 
 
 MODE_CHUNKS = 1024     # gate-band modes are held on at most this many chunks per window

@@ -123,6 +123,32 @@ def _single(state: str | None, ground_up: bool) -> np.ndarray:
     return STATES[state]
 
 
+# ------------------------------------------------------------------ qubit subspace
+
+def qubit_isometry(levels: tuple[int, ...]) -> np.ndarray | None:
+    """V (d × 2^n): the qubit levels (0 and 1) of every dot inside the
+    register's levels; None when every dot has two levels."""
+    if all(lv == 2 for lv in levels):
+        return None
+    return reduce(np.kron, [np.eye(lv)[:, :2] for lv in levels]).astype(complex)
+
+
+def restrict_channel(S: np.ndarray, V: np.ndarray) -> np.ndarray:
+    """The channel from qubit states to the qubit block of the output,
+    ρ_q -> V†·S(V ρ_q V†)·V (column stacking); population that leaves the
+    qubit levels is lost, so fidelities count leakage as error (Wood &
+    Gambetta, PRA 97, 032306 (2018))."""
+    return np.kron(V.T, V.conj().T) @ S @ np.kron(V.conj(), V)
+
+
+def leakage_of(Sq: np.ndarray) -> float:
+    """Average leakage of a restricted channel: 1 − Tr S_q(1/d) (Wood &
+    Gambetta 2018)."""
+    d = int(round(math.sqrt(Sq.shape[0])))
+    out = Sq @ (np.eye(d, dtype=complex) / d).reshape(-1, order="F")
+    return float(1.0 - np.real(np.trace(out.reshape(d, d, order="F"))))
+
+
 # ------------------------------------------------------------------ superoperators
 
 def super_unitary(u: np.ndarray) -> np.ndarray:

@@ -24,9 +24,16 @@ noise: Gaussian variables (:class:`NoiseVariable`) averaged by quadrature
 (:func:`noise_points`), each moving one dot's detuning (Hz) or one pair's
 barrier voltage (V).
 
-Levels: every dot declares its number of levels (2 today: a spin-1/2 in its
-rotating frame).  The reference engine works for any number; the fast
-engine's Pauli representation is a fast path for two levels.
+Levels: every dot declares its number of levels: 2 for a spin-1/2 in its
+rotating frame, 4 for a spin–valley dot (:mod:`compiler.device.levels`) in
+the interaction picture of its own levels, with its operators given by the
+dot (:class:`DotSpec` ``ops``; index 0 the upper and 1 the lower qubit level,
+so ``raise``, ``z`` and ``up`` mean what they mean for a spin-1/2).  Such a
+dot is driven through every transition the drive connects
+(``drive_terms``: c·O + c*·O† per term) and coupled by a :class:`LevelPair`.
+The reference engine works for any number of levels; the fast engine's
+Pauli representation is its fast path for two levels and a general path
+(:mod:`.engines.levels`) takes clusters with other level counts.
 """
 
 from __future__ import annotations
@@ -57,11 +64,33 @@ class DotSpec:
     name: str
     levels: int = 2
     ground_up: bool = False        # True when the ground state is spin up (g < 0)
+    # dots with their own operators (spin–valley): (name, matrix as nested tuples)
+    ops: tuple = ()
+    energies: tuple[float, ...] = ()   # Hz, level energies in the dot's basis order
+    qubit: tuple[int, int] = (0, 1)    # indices of the qubit levels in the dot's basis
+
+
+def freeze(matrix: np.ndarray) -> tuple:
+    """A matrix as nested tuples of complex numbers (hashable, for DotSpec.ops)."""
+    return tuple(tuple(complex(x) for x in row) for row in np.asarray(matrix))
 
 
 def dot_operator(dot: DotSpec, name: str) -> np.ndarray:
     """A named operator of one dot (``raise``, ``lower``, ``z``, ``up``,
-    ``to_ground``, ``from_ground``), a levels × levels matrix."""
+    ``to_ground``, ``from_ground``, and a spin–valley dot's own: ``sx``,
+    ``sy``, ``sz``, ``t_i_j`` = |i⟩⟨j|), a levels × levels matrix."""
+    if dot.ops:
+        for nm, m in dot.ops:
+            if nm == name:
+                return np.array(m, dtype=complex)
+        if name in ("to_ground", "from_ground"):
+            return dot_operator(dot, "lower" if name == "to_ground" else "raise")
+        if name.startswith("t_"):
+            i, j = (int(x) for x in name[2:].split("_"))
+            out = np.zeros((dot.levels, dot.levels), dtype=complex)
+            out[i, j] = 1.0
+            return out
+        raise KeyError(f"dot {dot.name}: no operator '{name}'")
     ops = OPERATORS.get(dot.levels)
     if ops is None:
         raise NotImplementedError(f"dot {dot.name}: no operators for {dot.levels} levels yet")
@@ -79,6 +108,22 @@ def embed(matrix: np.ndarray, k: int, levels: tuple[int, ...]) -> np.ndarray:
     for i, lv in enumerate(levels):
         out = np.kron(out, matrix if i == k else np.eye(lv, dtype=complex))
     return out
+
+
+def embed_pair(matrix: np.ndarray, a: int, b: int, levels: tuple[int, ...]) -> np.ndarray:
+    """An operator on dots (a, b) (a dA·dB square matrix, a the more significant
+    factor) placed on the whole register (identity on the other dots)."""
+    n = len(levels)
+    da, db = levels[a], levels[b]
+    rest = [i for i in range(n) if i not in (a, b)]
+    full = np.kron(matrix, np.eye(math.prod(levels[i] for i in rest), dtype=complex))
+    order = [a, b] + rest                       # axes of `full`
+    dims = [levels[i] for i in order]
+    t = full.reshape(dims + dims)
+    perm = [order.index(i) for i in range(n)]
+    t = t.transpose(perm + [n + p for p in perm])
+    d = math.prod(levels)
+    return t.reshape(d, d)
 
 
 @dataclass(frozen=True, eq=False)
@@ -100,6 +145,40 @@ class Pair:
         j = X.j_of_v(self.exchange, v)
         w = GL_W / 2
         return (j * w).sum(axis=1), (j * self.phase * w).sum(axis=1)
+
+
+@dataclass(frozen=True, eq=False)
+class LevelPair:
+    """Exchange J·S_a·S_b between dots with their own operators (spin–valley
+    dots: spin operators ⊗ identity on the valleys, the valley-polarised
+    limit), in the interaction picture of both dots' levels: the operator
+    splits into parts O_ν turning at frequencies ν (Hz), each with the
+    coefficient J·e^{i2πνt} averaged over the sub-step at the Gauss–Legendre
+    nodes; the ν = 0 part is Hermitian, the others come with their adjoint.
+    Parts turning faster than ``cutoff`` are left out (secular limit)."""
+    a: int
+    b: int
+    name: str
+    volts: np.ndarray            # (K, GL_NODES) barrier voltage at the nodes, V
+    times: np.ndarray            # (K, GL_NODES) s, times of the nodes
+    exchange: object
+    v_lo: float
+    v_hi: float
+    parts: tuple = ()            # ((ν Hz, operator on (a, b) as dA·dB square matrix), ...), ν ≥ 0
+    dropped: float = 0.0         # largest |operator| norm left out (secular limit)
+
+    def coefficients(self, dv: float = 0.0) -> tuple[np.ndarray, list]:
+        """(J mean, [mean of J·e^{i2πνt} per part]) per sub-step, Hz."""
+        v = np.clip(self.volts + dv, self.v_lo, self.v_hi)
+        j = X.j_of_v(self.exchange, v)
+        w = GL_W / 2
+        out = []
+        for nu, _ in self.parts:
+            if nu == 0:
+                out.append((j * w).sum(axis=1).astype(complex))
+            else:
+                out.append((j * np.exp(2j * math.pi * nu * self.times) * w).sum(axis=1))
+        return (j * w).sum(axis=1), out
 
 
 @dataclass(frozen=True)
@@ -136,9 +215,12 @@ class Model:
     t0: float                    # s, window start (from the start of the run)
     k: int                       # number of sub-steps
     drive: dict = field(default_factory=dict)   # register index -> complex coefficient per sub-step (Hz)
-    pairs: tuple[Pair, ...] = ()
+    pairs: tuple = ()                           # Pair (spin-1/2 dots) or LevelPair
     dissipators: tuple[Dissipator, ...] = ()
     noise: tuple[NoiseVariable, ...] = ()
+    # dots with their own operators: register index -> ((operator name, coefficient per
+    # sub-step), ...), each term c·O + c*·O†
+    drive_terms: dict = field(default_factory=dict)
     profiles: tuple[Profile, ...] = ()
 
     def detuning_profile(self, dot: int, modes) -> np.ndarray | None:

@@ -188,11 +188,12 @@ class Whole:
     pops: dict
     traces: dict
     duration: float
-    dim: int = 0                 # dimension of the simulated register
+    dim: int = 0                 # dimension of the qubit register (2^n)
     nodes: int = 1               # quadrature nodes per noise variable of the figures
     averaging_error: float | None = 0.0   # |F(nodes) − F(compared)|; None: not averaged
     quadrature: str = ""         # the rule: tensor or additive
     compared: int = 0            # nodes of the coarser rule compared with
+    leakage: float = 0.0         # population outside the qubit levels at the end
 
     @property
     def infidelity(self) -> float:
@@ -266,33 +267,47 @@ def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: i
     n = len(dots)
     pts = noise_points(model, nodes, rule)
     psi0 = F.initial_state(tl.run, dots, model.ground_up)
+    V = F.qubit_isometry(model.levels)
     rho0 = np.outer(psi0, psi0.conj())
+    if V is not None:
+        rho0 = V @ rho0 @ V.conj().T
     process = n <= MAX_PROCESS_QUBITS
     if parts is not None and model.profiles and process and correction is None:
         S, rho, tr = combine_modes(engine, model, pts, rho0=rho0, traces=traces, parts=parts)
     else:
         S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces,
                               correction=correction if model.profiles else None)
+    leakage = 0.0
+    if V is not None:
+        # fidelities on the qubit levels, leakage counted as error
+        S = F.restrict_channel(S, V) if S is not None else None
+        rho = V.conj().T @ rho @ V
+        leakage = float(1.0 - np.real(np.trace(rho)))
+    qdim = 2 ** n
     U = F.ideal_unitary(program_steps(tl), dots)
     frames = [tl.frames[q] for q in dots]
     f_pro = f_avg = None
     if process:
         Sq = F.to_qubit_frames(S, [0.0] * n, frames)
         f_pro = F.process_fidelity(Sq, U)
-        f_avg = F.average_fidelity(f_pro, model.dim)
+        f_avg = F.average_fidelity(f_pro, qdim)
     rq = F.rho_to_qubit_frames(rho, frames)
     psi = U @ psi0
     f_state = float(np.real(psi.conj() @ rq @ psi))
     pops = {}
     for k, q in enumerate(dots):
-        up = embed(dot_operator(model.dots[k], "up"), k, model.levels)
+        if V is None:
+            up = embed(dot_operator(model.dots[k], "up"), k, model.levels)
+        else:
+            up = F.op(np.diag([1.0, 0.0]).astype(complex), k, n)
         pops[q] = float(np.real(np.trace(up @ rq)))
     named = {}
     if tr:
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, end_sample(tl) * tl.dt, model.dim, nodes)
+    return Whole(f_pro, f_avg, f_state, pops, named, end_sample(tl) * tl.dt, qdim, nodes,
+                 leakage=leakage)
 
 
 def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
@@ -320,14 +335,20 @@ def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
         model = build_model(wf, device, m=opts.substeps, start=a, stop=b_sim, rwa=opts.rwa)
         pts = noise_points(model, opts.nodes, opts.quadrature)
         S, _, _ = _average(engine, model, pts, process=True, rho0=None, product=False)
+        V = F.qubit_isometry(model.levels)
+        leak = 0.0
+        if V is not None:
+            S = F.restrict_channel(S, V)
+            leak = F.leakage_of(S)
         Sq = F.to_qubit_frames(S, [before[q] for q in dots], [after[q] for q in dots])
         U = F.step_unitary(step, dots)
-        fid = F.average_fidelity(F.process_fidelity(Sq, U), model.dim)
+        fid = F.average_fidelity(F.process_fidelity(Sq, U), 2 ** n)
         kind = step.kind
         qubits = tuple(dict.fromkeys(q for s in slots for q in s.qubits))
         label = _label(step)
         src = f"{step.span.file}:{step.span.line}:{step.span.col}" if step.span else ""
-        out.append(StepFidelity(entry_no, kind, qubits, label, src, a * dt, (b - a) * dt, fid))
+        out.append(StepFidelity(entry_no, kind, qubits, label, src, a * dt, (b - a) * dt, fid,
+                                leak))
     return tuple(out)
 
 
@@ -483,7 +504,7 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                               whole.infidelity if budget else 0.0, floor, remainder,
                               whole.traces, {"wall_s": time.perf_counter() - t0},
                               whole.averaging_error, whole.nodes, numerical,
-                              whole.compared))
+                              whole.compared, whole.leakage))
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
     warnings = tuple(sorted({w.render() for tl in checked.timelines for w in tl.warnings}))

@@ -60,10 +60,23 @@ def _relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
     """Relaxation to the ground state at Γ↓ and excitation at Γ↑ with
     Γ↓ + Γ↑ = 1/T1 and Γ↑/Γ↓ = e^{−hf/k_BT} (detailed balance)."""
     d = device.dots[q]
+    if d.spin_valley:
+        return _level_relaxation(device, q)
     x = PLANCK * device.larmor(q) / (K_B * device.temperature)
     g1 = 1.0 / d.t1
     down = g1 / (1 + math.exp(-x))
     return (("to_ground", down), ("from_ground", g1 - down))
+
+
+def _level_relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
+    """A spin–valley dot: relaxation among its four levels with detailed
+    balance, spin flips at 1/T1, valley flips at 1/valley_t1, mixed levels
+    through both (:func:`compiler.device.levels.relaxation_rates`; the
+    hotspot of Yang et al., Nat. Commun. 4, 2069 (2013))."""
+    from ..device.levels import relaxation_rates
+    d = device.dots[q]
+    rates = relaxation_rates(device.ladders[q], d.t1, d.valley_t1 or d.t1, device.temperature)
+    return tuple((f"t_{j}_{i}", rate) for i, j, rate in rates)
 
 
 def _dephasing(device: Device, q: str) -> tuple[tuple[str, float], ...]:

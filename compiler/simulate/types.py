@@ -31,6 +31,7 @@ class StepFidelity:
     start: float               # s
     duration: float            # s
     fidelity: float            # average gate fidelity (Nielsen 2002)
+    leakage: float = 0.0       # population leaving the qubit levels, from the maximally mixed qubit state
 
 
 @dataclass(frozen=True)
@@ -66,6 +67,8 @@ class RunResult:
     # sub-steps) plus the fast engine's bound on dropped exchange
     budget_numerical_error: float = 0.0
     compared_nodes: int = 0                  # nodes of the coarser rule it was compared with
+    leakage: float = 0.0                     # population outside the qubit levels at the end
+                                             # (from the declared initial state; spin–valley dots)
 
 
 @dataclass(frozen=True)

@@ -12,13 +12,17 @@ CHANNEL = ("{{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], ris
 
 
 def line_device(n: int, *, charge_noise: str = "0 uV", long_range: bool = True,
-                preset: str = "bilayer_graphene", zeeman_noise: str = "") -> str:
+                preset: str = "", zeeman_noise: str = "") -> str:
     """n dots D0..D(n-1) in a line on one microwave line (Larmor frequencies
     28 MHz apart at 1 T), nearest-neighbour exchange through barrier
     gates (closed to well under a millihertz at idle), and, with
-    ``long_range``, an exchange between D0 and D2 across a detuned D1."""
+    ``long_range``, an exchange between D0 and D2 across a detuned D1.  Without
+    ``preset`` the dots are spin-1/2 with the times the bilayer_graphene preset
+    had before it became four-level (T1 200 µs, T2 20 µs, T2* 2 µs)."""
+    what = (f"preset: {preset}" if preset else
+            "t1: 200 us" if zeeman_noise else "t1: 200 us, t2: 20 us, t2_star: 2 us")
     dots = "\n".join(
-        f"  D{k}: {{preset: {preset}, g: {2.0 + 0.002 * k:.4f}, drive: {{line: mw, "
+        f"  D{k}: {{{what}, g: {2.0 + 0.002 * k:.4f}, drive: {{line: mw, "
         f"rabi_per_volt: 40 MHz/V}}, plunger: P{k}"
         + (f", zeeman_noise: {zeeman_noise}" if zeeman_noise else "") + "}" for k in range(n))
     cpl = "\n".join(

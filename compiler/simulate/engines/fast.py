@@ -2,8 +2,9 @@
 into clusters of dots that interact.
 
 This is the fast path for two levels per dot (the Pauli representation of
-:mod:`.pauli`); a model with other level counts is refused, and the
-reference engine (:mod:`.reference`) takes any.
+:mod:`.pauli`); a model with other level counts (spin–valley dots) takes the
+general path of :mod:`.levels` (the same method with complex
+superoperators), and the reference engine (:mod:`.reference`) takes any.
 
 Method (docs/simulate.md, "The fast engine"):
 
@@ -61,6 +62,7 @@ from ...threads import one_thread
 from ..model import Model, NoisePoint, dot_operator
 from ..types import Evolution
 from . import pauli as PL
+from .clusters import clusters
 
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
 
@@ -162,8 +164,8 @@ class FastEngine:
         replace ``rho0`` for registers too large for a dense density matrix;
         the result then holds only ``pauli``."""
         if any(lv != 2 for lv in model.levels):
-            raise NotImplementedError("the fast engine's Pauli representation is for two "
-                                      "levels per dot; use the reference engine")
+            return self._levels_average(model, points, rho0=rho0, process=process,
+                                        trace_points=trace_points, pauli0=pauli0)
         if pauli0 is not None:
             rho0 = np.asarray(pauli0, dtype=float)
         t0 = time.perf_counter()
@@ -204,6 +206,28 @@ class FastEngine:
         st["exchange_error_bound"] = 0.75 * self._neglected_now
         st["wall_s"] = time.perf_counter() - t0
         return Evolution(S, rho, traces, st, R_sum, r_sum)
+
+    def _levels_average(self, model, points, *, rho0, process, trace_points, pauli0):
+        """Models with dots of other than two levels: the general path (.levels)."""
+        if pauli0 is not None:
+            raise NotImplementedError("Pauli coefficients are for two-level dots only")
+        from .levels import LevelsPath
+        if getattr(self, "_levels", None) is None:
+            self._levels = LevelsPath(self)
+        stats0 = self.stats()
+        self._largest_now = 0
+        self._neglected_now = 0.0
+        with one_thread():
+            S, rho, traces, wall = self._levels.average(model, points, rho0=rho0,
+                                                        process=process,
+                                                        trace_points=trace_points)
+        self.calls += 1
+        now = self.stats()
+        st = {k: now[k] - stats0[k] for k in now}
+        st["largest_cluster"] = self._largest_now
+        st["neglected_exchange_rad"] = self._neglected_now
+        st["wall_s"] = wall
+        return Evolution(S, rho, traces, st)
 
     # -------------------------------------------------------------- preparation
 
@@ -526,7 +550,7 @@ class FastEngine:
             if e <= s:
                 continue
             active = [i for i, m in enumerate(prep["on"]) if m[s]]
-            for dots, pairs in _clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
+            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
                                          active):
                 pc = self._cluster_pieces(model, dots, pairs)
                 self._largest_now = max(self._largest_now, len(dots))
@@ -548,29 +572,6 @@ class FastEngine:
 
 
 # ------------------------------------------------------------------ helpers
-
-def _clusters(n: int, edges, active):
-    """Connected groups of dots (sorted tuples) and the pairs inside each."""
-    parent = list(range(n))
-
-    def find(x):
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    for a, b in edges:
-        parent[find(a)] = find(b)
-    groups: dict = {}
-    for q in range(n):
-        groups.setdefault(find(q), []).append(q)
-    out = []
-    for members in groups.values():
-        dots = tuple(sorted(members))
-        pairs = tuple(i for i, (a, b) in zip(active, edges) if a in members)
-        out.append((dots, pairs))
-    return out
-
 
 def _embed(M: np.ndarray, dots: tuple[int, ...], into: tuple[int, ...]) -> np.ndarray:
     """A channel on ``dots`` as a channel on the superset ``into`` (identity

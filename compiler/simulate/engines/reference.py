@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 
-from ..model import Model, NoisePoint, dot_operator
+from ..model import LevelPair, Model, NoisePoint, dot_operator, embed_pair
 from ..types import Evolution
 
 
@@ -58,13 +58,29 @@ class ReferenceEngine:
         for k, c in model.drive.items():
             H.append([two_pi * at("raise", k), coef(c)])
             H.append([two_pi * at("lower", k), coef(np.conj(c))])
+        for k, terms in model.drive_terms.items():
+            for name, c in terms:
+                o = at(name, k)
+                H.append([two_pi * o, coef(c)])
+                H.append([two_pi * o.dag(), coef(np.conj(c))])
         for k, d in enumerate(point.detuning):
             if d:
                 static = static + two_pi * d / 2 * at("z", k)
             prof = model.detuning_profile(k, point.modes) if point.modes else None
             if prof is not None:                    # gate-band modes: detuning in time
                 H.append([two_pi * at("z", k) / 2, coef(prof.astype(complex))])
+        dims = [list(model.levels), list(model.levels)]
         for i, p in enumerate(model.pairs):
+            if isinstance(p, LevelPair):
+                _, Fs = p.coefficients(point.dv[i] if point.dv else 0.0)
+                for (nu, M), F in zip(p.parts, Fs):
+                    o = qt.Qobj(embed_pair(M, p.a, p.b, model.levels), dims=dims)
+                    if nu == 0:
+                        H.append([two_pi * o, coef(F.real)])
+                    else:
+                        H.append([two_pi * o, coef(F)])
+                        H.append([two_pi * o.dag(), coef(np.conj(F))])
+                continue
             J, F = p.coefficients(point.dv[i] if point.dv else 0.0)
             H.append([two_pi * at("z", p.a) * at("z", p.b) / 4, coef(J)])
             H.append([two_pi * at("raise", p.a) * at("lower", p.b) / 2, coef(F)])

@@ -1,0 +1,317 @@
+"""The fast engine's general path: dots with any number of levels.
+
+Used by :class:`.fast.FastEngine` for models that hold a dot with other than
+two levels (spin–valley dots).  The same method as the Pauli path, with
+complex superoperators in the column-stacked basis instead of real Pauli
+transfer matrices:
+
+1. the Lindblad generator is constant on every sub-step, so a sub-step is the
+   channel exp(L·h) exactly; runs of identical sub-steps take one
+   exponential exp(L·h·n);
+2. the run is cut into segments in which the set of exchange pairs that are
+   on does not change (closed barriers dropped within the same phase budget
+   as the Pauli path); in a segment the register splits into clusters of
+   dots joined by pairs that are on, and each cluster's channel is computed
+   on its own dots only (16×16 for one four-level dot, 256×256 for a pair);
+3. channels are cached by content (the same burst or wait again is one
+   look-up) and applied to the state, a tensor with one row and one column
+   axis per dot and a batch axis (the d² columns of the process, and the
+   state), by one contraction over the cluster's axes.
+
+Quadrature points are evolved one after another; a cluster's channel that
+does not depend on a point's own noise values is found in the cache.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import time
+
+import numpy as np
+
+from ...pulses import ordered_product
+from ..model import LevelPair, Model, dot_operator, embed_pair
+from ..types import Evolution
+from . import pauli as PL
+from .clusters import clusters
+
+
+def _ham(H: np.ndarray) -> np.ndarray:
+    """Column-stacked superoperator of ρ -> −i·2π·[H, ρ] (H in Hz)."""
+    d = H.shape[0]
+    eye = np.eye(d)
+    return -2j * math.pi * (np.kron(eye, H) - np.kron(H.T, eye))
+
+
+def _diss(c: np.ndarray) -> np.ndarray:
+    """Column-stacked superoperator of cρc† − ½{c†c, ρ}."""
+    d = c.shape[0]
+    eye = np.eye(d)
+    cdc = c.conj().T @ c
+    return np.kron(c.conj(), c) - 0.5 * (np.kron(eye, cdc) + np.kron(cdc.T, eye))
+
+
+def _at(o: np.ndarray, k: int, dims: tuple[int, ...]) -> np.ndarray:
+    out = np.eye(1, dtype=complex)
+    for i, lv in enumerate(dims):
+        out = np.kron(out, o if i == k else np.eye(lv))
+    return out
+
+
+def _hermitian_basis(D: int) -> np.ndarray:
+    """T (D²×D², unitary): rows are vec(B_k)† of an orthonormal basis of
+    Hermitian D×D matrices (E_ii; (E_ij + E_ji)/√2 and i(E_ij − E_ji)/√2 for
+    i < j), column stacking.  A Hermiticity-preserving superoperator L is real
+    in it: T·L·T† is real (so its exponential costs a quarter of the complex
+    one)."""
+    rows = []
+    for i in range(D):
+        m = np.zeros((D, D), dtype=complex)
+        m[i, i] = 1
+        rows.append(m)
+    r2 = math.sqrt(0.5)
+    for i in range(D):
+        for j in range(i + 1, D):
+            m = np.zeros((D, D), dtype=complex)
+            m[i, j] = m[j, i] = r2
+            rows.append(m)
+            m = np.zeros((D, D), dtype=complex)
+            m[i, j], m[j, i] = 1j * r2, -1j * r2
+            rows.append(m)
+    return np.stack([m.reshape(-1, order="F").conj() for m in rows])
+
+
+_BASES: dict = {}
+
+
+def _basis(D: int) -> np.ndarray:
+    if D not in _BASES:
+        _BASES[D] = _hermitian_basis(D)
+    return _BASES[D]
+
+
+def _expm(A: np.ndarray) -> np.ndarray:
+    if A.shape[-1] <= 64:
+        return PL.expm_batch(A)
+    from scipy.linalg import expm
+    return np.stack([expm(a) for a in A.reshape((-1,) + A.shape[-2:])]).reshape(A.shape)
+
+
+class LevelsPath:
+    """General-levels propagation for :class:`.fast.FastEngine` (module notes)."""
+
+    def __init__(self, engine):
+        self.engine = engine
+        self._cache: dict = {}
+        self._gens: dict = {}          # real generators per (model, cluster)
+
+    # ------------------------------------------------------------------ public
+    def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0):
+        eng = self.engine
+        t0 = time.perf_counter()
+        levels = model.levels
+        n, d = model.n, model.dim
+        K, h = model.k, model.h
+        coefs = []
+        jmax = []
+        for i, p in enumerate(model.pairs):
+            per = {}
+            for dv in sorted({pt.dv[i] if pt.dv else 0.0 for pt in points}):
+                per[dv] = p.coefficients(dv)
+            coefs.append(per)
+            jmax.append(np.max(np.abs(np.stack([c[0] for c in per.values()])), axis=0))
+        on = eng._on_masks(jmax, h, K)
+        bounds = {0, K}
+        for m in on:
+            bounds.update((np.flatnonzero(m[1:] != m[:-1]) + 1).tolist())
+        marks = (np.unique(np.linspace(0, K, max(trace_points, 2)).round().astype(int))
+                 if trace_points and rho0 is not None else np.zeros(0, int))
+        bounds = sorted(bounds | set(int(x) for x in marks))
+        S_sum = rho_sum = None
+        traces: dict = {}
+        for ip, pt in enumerate(points):
+            cols = []
+            if process:
+                cols.append(np.eye(d * d, dtype=complex))
+            if rho0 is not None:
+                cols.append(np.asarray(rho0, dtype=complex).reshape(-1, order="F")[:, None])
+            X = np.concatenate(cols, axis=1)
+            B = X.shape[1]
+            # vec index i + d·j -> tensor (rows…, cols…, batch)
+            T = X.reshape(d, d, B, order="F").reshape(levels + levels + (B,))
+            tt, tp = [], []
+
+            def record(k, T=T):
+                rho = T[..., -1].reshape(d, d)
+                tt.append(k * h)
+                tp.append([float(np.real(np.trace(
+                    _at(dot_operator(model.dots[q], "up"), q, levels) @ rho))) for q in range(n)])
+
+            if ip == 0 and 0 in set(marks.tolist()):
+                record(0)
+            for s, e in zip(bounds[:-1], bounds[1:]):
+                if e <= s:
+                    continue
+                active = [i for i, m in enumerate(on) if m[s]]
+                for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
+                                                 for i in active], active):
+                    eng._largest_now = max(eng._largest_now, len(dots))
+                    eng.largest_cluster = max(eng.largest_cluster, len(dots))
+                    M = self._channel(model, coefs, dots, pairs, s, e, pt)
+                    T = _apply(T, dots, M, levels)
+                    eng.applications += 1
+                if ip == 0 and e in set(marks.tolist()):
+                    record(e, T)
+            out = T.reshape(d, d, B).reshape(d * d, B, order="F")
+            w = pt.weight
+            if process:
+                S = out[:, :d * d]
+                S_sum = w * S if S_sum is None else S_sum + w * S
+            if rho0 is not None:
+                r = out[:, -1].reshape(d, d, order="F")
+                rho_sum = w * r if rho_sum is None else rho_sum + w * r
+            if ip == 0 and tt:
+                traces["t"] = model.t0 + np.array(tt)
+                arr = np.array(tp)
+                for q in range(n):
+                    traces[q] = arr[:, q]
+        return S_sum, rho_sum, traces, time.perf_counter() - t0
+
+    # ------------------------------------------------------------------ channels
+    def _pieces(self, model: Model, dots, pairs):
+        """Generators of a cluster: (named real-coefficient generators, dissipator
+        sum, detuning generators) on the cluster's own levels."""
+        dims = tuple(model.levels[q] for q in dots)
+        pos = {q: i for i, q in enumerate(dots)}
+        base = np.zeros((math.prod(dims) ** 2,) * 2, dtype=complex)
+        for q in dots:
+            for dsp in model.dissipators_of(q):
+                base += dsp.rate * _diss(_at(dot_operator(model.dots[q], dsp.operator), pos[q], dims))
+        det = {q: _ham(_at(dot_operator(model.dots[q], "z"), pos[q], dims) / 2) for q in dots}
+        return dims, pos, base, det
+
+    def _channel(self, model, coefs, dots, pairs, s, e, pt):
+        eng = self.engine
+        dims, pos, base, det = self._pieces(model, dots, pairs)
+        gens, cols = [], []
+
+        def herm_pair(O, c):
+            """c·O + c*·O†  =  Re c·(O + O†) + Im c·i(O − O†)."""
+            gens.append(_ham(O + O.conj().T))
+            cols.append(np.real(c))
+            gens.append(_ham(1j * (O - O.conj().T)))
+            cols.append(np.imag(c))
+
+        for q in dots:
+            if q in model.drive:
+                herm_pair(_at(dot_operator(model.dots[q], "raise"), pos[q], dims),
+                          model.drive[q][s:e])
+            for name, c in model.drive_terms.get(q, ()):
+                herm_pair(_at(dot_operator(model.dots[q], name), pos[q], dims), c[s:e])
+        for i in pairs:
+            p = model.pairs[i]
+            dv = pt.dv[i] if pt.dv else 0.0
+            a, b = pos[p.a], pos[p.b]
+            if isinstance(p, LevelPair):
+                _, Fs = coefs[i][dv]
+                for (nu, M), F in zip(p.parts, Fs):
+                    O = embed_pair(M, a, b, dims)
+                    if nu == 0:
+                        gens.append(_ham(O))
+                        cols.append(np.real(F[s:e]))
+                    else:
+                        herm_pair(O, F[s:e])
+            else:
+                J, F = coefs[i][dv]
+                za = _at(dot_operator(model.dots[p.a], "z"), a, dims)
+                zb = _at(dot_operator(model.dots[p.b], "z"), b, dims)
+                gens.append(_ham(za @ zb / 4))
+                cols.append(J[s:e])
+                spm = (_at(dot_operator(model.dots[p.a], "raise"), a, dims)
+                       @ _at(dot_operator(model.dots[p.b], "lower"), b, dims))
+                herm_pair(spm / 2, F[s:e])
+        # gate-band modes of a noise spectrum (bands.py): a detuning in time on
+        # the dots that have profiles, one generator each whatever the point
+        # (zero columns where the point's modes are zero), so that the cached
+        # generators of a model and cluster stay the same for every point
+        prof_dots = {p.dot for p in model.profiles}
+        for q in dots:
+            if q in prof_dots:
+                prof = model.detuning_profile(q, pt.modes) if pt.modes else None
+                gens.append(det[q])
+                cols.append(np.zeros(e - s) if prof is None else np.real(prof[s:e]))
+        static = base.copy()
+        for q in dots:
+            dq = pt.detuning[q] if pt.detuning else 0.0
+            if dq:
+                static += dq * det[q]
+        C = np.stack(cols, axis=1) if cols else np.zeros((e - s, 0))
+        key = (dots, pairs, dims, model.h, static.tobytes(), C.shape,
+               hashlib.blake2b(C.tobytes(), digest_size=16).digest(),
+               tuple(model.dots[q] for q in dots),
+               tuple(x.rate for q in dots for x in model.dissipators_of(q)))
+        got = self._cache.get(key)
+        if got is not None:
+            eng.cache_hits += 1
+            return got
+        G = np.stack(gens) if gens else np.zeros((0,) + static.shape, dtype=complex)
+        n_sub = e - s
+        if C.shape[1] and n_sub > 1:
+            scale = np.abs(C).max(axis=0)
+            tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+            change = np.ones(n_sub, dtype=bool)
+            change[1:] = np.any(np.abs(C[1:] - C[:-1]) > tol, axis=1)
+            starts = np.flatnonzero(change)
+        else:
+            starts = np.zeros(1, dtype=int)
+        lengths = np.diff(np.append(starts, n_sub))
+        # in a Hermitian basis every generator is real (a quarter of the work)
+        T = _basis(int(round(math.sqrt(static.shape[0]))))
+        Th = T.conj().T
+        static_r = np.real(T @ static @ Th)
+        ck = (id(model), dots, pairs)
+        hit = self._gens.get(ck)
+        if hit is not None and hit[0] is model:
+            G_r = hit[1]
+        else:
+            G_r = (np.stack([np.real(T @ g @ Th) for g in G]) if len(G)
+                   else np.zeros((0,) + static_r.shape))
+            if len(self._gens) > 64:
+                self._gens.clear()
+            self._gens[ck] = (model, G_r)
+        L = np.broadcast_to(static_r, (len(starts),) + static_r.shape).copy()
+        if C.shape[1]:
+            L += np.einsum("rt,tij->rij", C[starts], G_r)
+        mats = _expm(L * (model.h * lengths)[:, None, None])
+        eng.exponentials += len(starts)
+        got = Th @ ordered_product(mats[None])[0] @ T
+        if len(self._cache) > eng.cache_entries:
+            self._cache.clear()
+        self._cache[key] = got
+        return got
+
+
+def _apply(T: np.ndarray, dots, M: np.ndarray, levels) -> np.ndarray:
+    """(M on ``dots``) applied to the state tensor T (rows…, cols…, batch); M is
+    column-stacked on the cluster: M[i' + D·j', i + D·j]."""
+    n = len(levels)
+    c = len(dots)
+    dims = [levels[q] for q in dots]
+    Mt = M.reshape(_mshape(dims))
+    # Mt axes: j_out (c), i_out (c), j_in (c), i_in (c); labels above the state's 2n + 1
+    jo = [2 * n + 1 + k for k in range(c)]
+    io = [2 * n + 1 + c + k for k in range(c)]
+    ji = [n + q for q in dots]
+    ii = [q for q in dots]
+    t_axes = list(range(2 * n + 1))
+    out_axes = [io[dots.index(q)] if q in dots else q for q in range(n)] + \
+               [jo[dots.index(q)] if q in dots else n + q for q in range(n)] + [2 * n]
+    return np.einsum(Mt, jo + io + ji + ii, T, t_axes, out_axes, optimize=True)
+
+
+def _mshape(dims) -> tuple[int, ...]:
+    """Shape of a column-stacked cluster superoperator split into per-dot axes:
+    (j_out…, i_out…, j_in…, i_in…), each multi-index with the first dot most
+    significant (vec index i + D·j, so j is the slower index)."""
+    return tuple(dims) * 4
