@@ -439,7 +439,7 @@ def cmd_sweep(args) -> int:
     from .simulate import SimOptions
     from .sweep import plan_sweep, run_sweep
     from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address,
-                                local_cores, require_dask)
+                                local_cores, pool_context, require_dask)
     from .sweep.table import json_text
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
@@ -472,6 +472,8 @@ def cmd_sweep(args) -> int:
         workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
+    if not cluster and workers > 1:
+        pool_context()               # the workers' server imports the package while we plan
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget, confine=args.confine)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
@@ -510,7 +512,7 @@ def cmd_rb(args) -> int:
         summary_lines
     import os
     from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address, connect,
-                                local_cores)
+                                local_cores, pool_context)
     cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
     cluster = cluster.strip() or None
     if cluster == "local":
@@ -535,6 +537,8 @@ def cmd_rb(args) -> int:
     from .simulate import SimOptions
     SimOptions(engine=args.engine, nodes=args.nodes, quadrature=args.quadrature,
                substeps=args.substeps).check()
+    if not cluster and workers > 1:
+        pool_context()               # the workers' server imports the package while we plan
     plan = plan_rb(args.source, settings, device=args.device)
     connection = None
     if cluster:
