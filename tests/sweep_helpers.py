@@ -23,8 +23,9 @@ def how_started(task):
     thread settings."""
     import multiprocessing.forkserver
     import sys
+    from compiler.sweep.execute import PRELOAD
     from compiler.sweep.point import worker_info
     return {"index": task.index, "forkserver": multiprocessing.forkserver.get_inherited_fds()
             is not None, "parent": multiprocessing.parent_process().pid,
-            "modules": sorted(m for m in sys.modules if m.startswith("compiler")),
+            "modules": sorted(m for m in PRELOAD if m in sys.modules),
             "env": worker_info()["env"]}

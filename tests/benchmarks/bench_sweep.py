@@ -45,7 +45,6 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import resource
 import statistics
 import sys
 import tempfile
@@ -122,16 +121,23 @@ def timed(fn):
     return time.perf_counter() - t, out
 
 
-def children_cpu() -> float:
-    """CPU seconds (user + system) used so far by ended child processes."""
-    r = resource.getrusage(resource.RUSAGE_CHILDREN)
-    return r.ru_utime + r.ru_stime
+def measured_point(task):
+    """evaluate_point, with the worker's process id and the CPU seconds
+    (user + system) it has used so far (the workers are the fork server's
+    children, not this process's, so their CPU time is asked of them)."""
+    r = evaluate_point(task)
+    t = os.times()
+    return r, os.getpid(), t.user + t.system
 
 
 def cold_pool(tasks, workers):
+    """The points on a pool started fresh; and the workers' CPU seconds."""
     got = []
-    run_pool(tasks, got.append, workers)
-    return got
+    run_pool(tasks, got.append, workers, measured_point)
+    cpu: dict[int, float] = {}
+    for _, pid, c in got:
+        cpu[pid] = max(cpu.get(pid, 0.0), c)
+    return [r for r, _, _ in got], sum(cpu.values())
 
 
 def warm_pool(ex, tasks, fn=evaluate_point):
@@ -193,9 +199,8 @@ def main() -> int:
     reference = None
     for r in range(args.repeats):
         for w, store in ((1, t1s), (2, t2s)) if r % 2 == 0 else ((2, t2s), (1, t1s)):
-            cpu0 = children_cpu()
-            t, got = timed(lambda: cold_pool(tasks, w))
-            got_cores = (children_cpu() - cpu0) / t
+            t, (got, cpu) = timed(lambda: cold_pool(tasks, w))
+            got_cores = cpu / t
             store.append(t)
             cores[w].append(got_cores)
             reference = reference or numbers(got)
