@@ -13,6 +13,7 @@ from pathlib import Path
 from . import CompileOptions, __version__, check_file, compile, load
 from .check.summary import render_text, summarize, to_dict
 from .errors import DotseqError, UsageError
+from .runwarnings import merged
 from .limits import MAX_SOURCE_CHARS, check_synthesis_size, default_limit, human, parse_size
 from .source import Oversize, Unreadable, read_capped
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
@@ -297,7 +298,7 @@ def cmd_compile(args) -> int:
     path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
                         csv=args.csv, stacked=args.stack)
     wfs = compiled.waveforms
-    warnings = sorted({w for wf in wfs for w in wf.warnings})
+    warnings = sorted(merged([r.timeline.warnings for r in compiled.runs]))
     if args.json:
         print(json.dumps({"ok": True, "bundle": str(path), "runs": len(wfs),
                           "samples": [wf.n_samples for wf in wfs],
