@@ -304,3 +304,24 @@ def test_merged_warnings_keep_positions_and_call_chains_apart():
     loss = [Warning_(f"loses {p}%", a, (), "quantisation:f.dotseq:3:1", p) for p in (15, 26, 21)]
     assert merged([(w,) for w in loss]) == (
         "f.dotseq:3:1: warning: loses 26% (in 3 of 3 runs; the worst shown)",)
+
+
+@pytest.mark.parametrize("command, goes", [
+    (["sweep", str(SEQUENCES / "ramsey_single.dotseq"), "--vary", "A.t2_star=2us:5us:2"],
+     "the sweep goes"),
+    (["rb", str(SEQUENCES / "devices" / "demo_single.yaml"), "--qubits", "A"],
+     "the simulations go")])
+def test_sweep_and_rb_refuse_workers_beside_a_cluster_alike(command, goes, tmp_path, capsys,
+                                                           monkeypatch):
+    """sweep and rb place their simulations by one rule: --workers beside a
+    cluster (given, or from DOTSEQ_CLUSTER, which the message names) and a
+    timeout out of range are refused before anything is planned."""
+    monkeypatch.setenv("DOTSEQ_CLUSTER", "tcp://127.0.0.1:1")
+    args = command + ["-o", str(tmp_path / "out"), "--quiet"]
+    assert main(args + ["--workers", "2"]) == 2
+    err = capsys.readouterr().err
+    assert (f"--workers sets the local worker processes, but {goes} to the Dask cluster "
+            "tcp://127.0.0.1:1 (from DOTSEQ_CLUSTER)") in err
+    assert main(args + ["--cluster", "local", "--cluster-timeout", "0"]) == 2
+    assert "--cluster-timeout 0: give from 0 to 3600 seconds" in capsys.readouterr().err
+    assert not (tmp_path / "out").exists()
