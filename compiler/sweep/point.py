@@ -132,9 +132,9 @@ def worker_started(parent: int | None = None) -> None:
     file when that process ends, however it ends); a worker forked from the
     fork server is that server's child, so its parent process id says
     nothing.  Without a sentinel it looks every ``PARENT_POLL_S`` whether it
-    was re-parented.  Once every worker has ended, the fork server and the
-    multiprocessing resource tracker (which wait for the last holder of
-    their pipes) end too."""
+    was re-parented.  Once the sweep's process and every worker have ended,
+    the fork server and the multiprocessing resource tracker (which wait for
+    the last holder of their pipes) end too."""
     import multiprocessing
     import signal
     import threading
