@@ -23,6 +23,9 @@ alternate, so slow phases of a busy machine hit both):
   with each, the cores the workers
   actually got (their CPU time over the wall time): on a machine shared with
   other work the 2 workers get fewer than 2 cores, and the speed-up shows it;
+  so the workers' CPU seconds are also compared: one worker's against the
+  mean of two workers' is what two free cores would give
+  (``speedup_2_workers_cpu``; a worker's start-up counts in its CPU time);
 * warm pool and warm cluster: a pool of 2 already started, and a Dask
   LocalCluster (2 worker processes, 1 thread each, loopback TCP) already
   started with a connected client; ``dask_overhead_ms_per_point =
@@ -190,12 +193,13 @@ def main() -> int:
                                  initargs=(os.getpid(),)) as ex:
             infos = [f.result() for f in [ex.submit(probe_worker) for _ in range(4)]]
     for info in {i["pid"]: i for i in infos}.values():
-        print(f"worker pid {info['pid']}: {info['threads']} threads; "
+        print(f"worker pid {info['pid']}: {info['threads']} threads (one watches the parent); "
               + ", ".join(f"{k}={v}" for k, v in info["env"].items() if k.startswith(("OMP", "OPENBLAS", "MKL"))))
 
     # cold pools of 1 and 2 workers (the path of `dotseq sweep --workers N`)
     t1s, t2s = [], []
     cores = {1: [], 2: []}
+    cpus = {1: [], 2: []}
     reference = None
     for r in range(args.repeats):
         for w, store in ((1, t1s), (2, t2s)) if r % 2 == 0 else ((2, t2s), (1, t1s)):
@@ -203,6 +207,7 @@ def main() -> int:
             got_cores = cpu / t
             store.append(t)
             cores[w].append(got_cores)
+            cpus[w].append(cpu)
             reference = reference or numbers(got)
             assert numbers(got) == reference, "pool results differ"
             print(f"  pool of {w}: {t:.2f} s ({t / n * 1e3:.0f} ms per point); the workers got "
@@ -210,11 +215,17 @@ def main() -> int:
     t1, t2 = statistics.median(t1s), statistics.median(t2s)
     speedup = t1 / t2
     speedup_server = (t1 + t_server) / (t2 + t_server)
+    # what two free cores would give: one worker's CPU seconds against the
+    # mean of two workers' (hardly moved by other work on the machine)
+    cpu1, cpu2 = statistics.median(cpus[1]), statistics.median(cpus[2])
+    speedup_cpu = cpu1 / (cpu2 / 2)
     print(f"local pool, started fresh: 1 worker {t1:.2f} s, 2 workers {t2:.2f} s: "
           f"speed-up {speedup:.2f}x (aim >= 1.7x); cores obtained: "
           f"{statistics.median(cores[1]):.2f} with 1 worker, {statistics.median(cores[2]):.2f} "
           "with 2 (below 2: other processes hold the cores); with the server's start added to "
           f"both: {speedup_server:.2f}x")
+    print(f"workers' CPU time: {cpu1:.2f} s with 1 worker, {cpu2:.2f} s with 2: on two free "
+          f"cores the 2 workers would give {speedup_cpu:.2f}x")
 
     # warm pool of 2 against a warm Dask cluster of 2 single-threaded workers
     overhead = noop = None
@@ -263,6 +274,7 @@ def main() -> int:
           f"{os.getloadavg()[0]:.2f} at the end (other work on the machine slows the 2-worker runs)")
     print(json.dumps({"speedup_2_workers": round(speedup, 3),
                       "speedup_2_workers_with_server": round(speedup_server, 3),
+                      "speedup_2_workers_cpu": round(speedup_cpu, 3),
                       "server_start_s": round(t_server, 2),
                       "cores_obtained_1_worker": round(statistics.median(cores[1]), 2),
                       "dask_overhead_ms_per_point": None if overhead is None else round(overhead, 2),
