@@ -26,6 +26,8 @@ alternate, so slow phases of a busy machine hit both):
   so the workers' CPU seconds are also compared: one worker's against the
   mean of two workers' is what two free cores would give
   (``speedup_2_workers_cpu``; a worker's start-up counts in its CPU time);
+  and before the pools, the cores two busy loops get together
+  (``cores_free_2_busy_loops``, the most any two workers could get then);
 * warm pool and warm cluster: a pool of 2 already started, and a Dask
   LocalCluster (2 worker processes, 1 thread each, loopback TCP) already
   started with a connected client; ``dask_overhead_ms_per_point =
@@ -124,6 +126,21 @@ def timed(fn):
     return time.perf_counter() - t, out
 
 
+def spin(seconds: float) -> float:
+    """Busy loop for ``seconds`` of wall time; the CPU seconds it got."""
+    t0, c0 = time.perf_counter(), time.process_time()
+    while time.perf_counter() - t0 < seconds:
+        pass
+    return time.process_time() - c0
+
+
+def cores_free(ctx, seconds: float = 2.0) -> float:
+    """How many cores two busy processes get together (2 on an idle
+    2-core machine): the most any 2 workers can get now."""
+    with ProcessPoolExecutor(2, mp_context=ctx) as ex:
+        return sum(f.result() for f in [ex.submit(spin, seconds) for _ in range(2)]) / seconds
+
+
 def measured_point(task):
     """evaluate_point, with the worker's process id and the CPU seconds
     (user + system) it has used so far (the workers are the fork server's
@@ -195,6 +212,10 @@ def main() -> int:
     for info in {i["pid"]: i for i in infos}.values():
         print(f"worker pid {info['pid']}: {info['threads']} threads (one watches the parent); "
               + ", ".join(f"{k}={v}" for k, v in info["env"].items() if k.startswith(("OMP", "OPENBLAS", "MKL"))))
+
+    free = cores_free(ctx)
+    print(f"two busy loops got {free:.2f} cores together (other work on the machine takes the "
+          "rest; the 2-worker speed-up cannot exceed this)")
 
     # cold pools of 1 and 2 workers (the path of `dotseq sweep --workers N`)
     t1s, t2s = [], []
@@ -275,6 +296,7 @@ def main() -> int:
     print(json.dumps({"speedup_2_workers": round(speedup, 3),
                       "speedup_2_workers_with_server": round(speedup_server, 3),
                       "speedup_2_workers_cpu": round(speedup_cpu, 3),
+                      "cores_free_2_busy_loops": round(free, 2),
                       "server_start_s": round(t_server, 2),
                       "cores_obtained_1_worker": round(statistics.median(cores[1]), 2),
                       "dask_overhead_ms_per_point": None if overhead is None else round(overhead, 2),
