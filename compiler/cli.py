@@ -8,11 +8,13 @@ import argparse
 import json
 import sys
 import traceback
+from contextlib import contextmanager
 from pathlib import Path
 
 from . import CompileOptions, __version__, check_file, compile, load
 from .check.summary import render_text, summarize, to_dict
 from .errors import DotseqError, UsageError
+from .runwarnings import merged
 from .limits import MAX_SOURCE_CHARS, check_synthesis_size, default_limit, human, parse_size
 from .source import Oversize, Unreadable, read_capped
 from .units import FREQUENCY, TIME, UnitError, format_quantity, parse_quantity
@@ -40,67 +42,72 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"dotseq {__version__}")
     p.add_argument("--debug", action="store_true", help="show Python tracebacks of internal errors")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    c = sub.add_parser("check", help="parse and validate a sequence and its device; print a summary",
-                       description="Parse a sequence file, load its device description, check both "
-                       "and print qubits, Larmor frequencies, duration, step counts, the longest "
-                       "gate and the coherence margin.")
-    c.add_argument("file", help="sequence file (.dotseq)")
-    c.add_argument("--device", help="device description (YAML) to use instead of the file's own")
-    c.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    c = _command(sub, "check", "parse and validate a sequence and its device; print a summary",
+                 "Parse a sequence file, load its device description, check both and print qubits, "
+                 "Larmor frequencies, duration, step counts, the longest gate and the coherence "
+                 "margin.", epilog=None)
+    c.add_argument("--device", help=DEVICE_HELP)
+    c.add_argument("--json", action="store_true", help=JSON_HELP)
     c.add_argument("--confine", action="store_true", help=CONFINE_HELP)
 
-    k = sub.add_parser("compile", help="compile a sequence into the sample arrays each channel "
-                       "plays, written as a bundle folder",
-                       description="Check, schedule and synthesise every run of a sequence and write "
-                       "a bundle folder: one .npy per output (volts and DAC codes), a JSON manifest "
-                       "with the step timeline, frames and checksums (docs/bundle.md). The folder is "
-                       "written atomically.", epilog=CAUTION)
-    k.add_argument("file", help="sequence file (.dotseq)")
-    k.add_argument("-o", "--out", required=True, help="bundle folder to write (replaced if it holds "
-                   "an earlier bundle)")
+    k = _command(sub, "compile", "compile a sequence into the sample arrays each channel plays, "
+                 "written as a bundle folder",
+                 "Check, schedule and synthesise every run of a sequence and write a bundle folder: "
+                 "one .npy per output (volts and DAC codes), a JSON manifest with the step "
+                 "timeline, frames and checksums (docs/bundle.md). The folder is written "
+                 "atomically.", out="bundle folder to write (replaced if it holds an earlier bundle)")
     _common(k)
     k.add_argument("--csv", action="store_true", help="also write samples.csv per run")
     k.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
                    "output (shorter runs padded at the end, recorded in the manifest)")
-    k.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    k.add_argument("--json", action="store_true", help=JSON_HELP)
 
-    v = sub.add_parser("preview", help="draw what the generators will play (PNG, SVG or PDF)",
-                       description="Draw the step timeline, every output against time and the "
-                       "microwave spectrum with each dot's Larmor frequency marked.", epilog=CAUTION)
-    v.add_argument("file", help="sequence file (.dotseq)")
-    v.add_argument("-o", "--out", required=True, help="image file: .png, .svg or .pdf")
+    v = _command(sub, "preview", "draw what the generators will play (PNG, SVG or PDF)",
+                 "Draw the step timeline, every output against time and the microwave spectrum "
+                 "with each dot's Larmor frequency marked.", out="image file: .png, .svg or .pdf")
     _common(v)
     v.add_argument("--run", type=int, default=0, help="which run of a sweep to draw (default 0)")
     v.add_argument("--from", dest="t_from", help="start of the time window, e.g. '1.5 us'")
     v.add_argument("--to", dest="t_to", help="end of the time window, e.g. '3 us'")
     v.add_argument("--step", type=int, help="zoom on one timeline entry (its index in the manifest)")
 
-    m = sub.add_parser("simulate", help="simulate what the generators play: fidelities and an "
-                       "error budget, written as a report folder",
-                       description="Lindblad simulation of the compiled waveforms (T1 at temperature, "
-                       "T2, quasi-static Zeeman noise for T2*, charge noise on exchange, drive "
-                       "crosstalk, rise times, quantisation, bias tee): per-step and whole-run "
-                       "fidelities, readout populations and an error budget (docs/simulate.md).",
-                       epilog=CAUTION)
-    m.add_argument("file", help="sequence file (.dotseq)")
-    m.add_argument("-o", "--out", required=True, help="report folder to write")
+    m = _command(sub, "simulate", "simulate what the generators play: fidelities and an error "
+                 "budget, written as a report folder",
+                 "Lindblad simulation of the compiled waveforms (T1 at temperature, T2, "
+                 "quasi-static Zeeman noise for T2*, charge noise on exchange, drive crosstalk, rise "
+                 "times, quantisation, bias tee): per-step and whole-run fidelities, readout "
+                 "populations and an error budget (docs/simulate.md).",
+                 out="report folder to write")
     _common(m)
     _sim_flags(m)
-    m.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
+    m.add_argument("--json", action="store_true", help=JSON_HELP)
 
-    r = sub.add_parser("run", help="check, compile, preview and simulate into one folder",
-                       description="The whole job: check the sequence, write the waveform bundle "
-                       "(DIR/bundle), a preview of the detail run (DIR/preview.png) and the "
-                       "simulation report (DIR/report).", epilog=CAUTION)
-    r.add_argument("file", help="sequence file (.dotseq)")
-    r.add_argument("-o", "--out", required=True, help="folder for the bundle, preview and report "
-                   "(written as one unit; an earlier run's folder is replaced)")
+    r = _command(sub, "run", "check, compile, preview and simulate into one folder",
+                 "The whole job: check the sequence, write the waveform bundle (DIR/bundle), a "
+                 "preview of the detail run (DIR/preview.png) and the simulation report "
+                 "(DIR/report).", out="folder for the bundle, preview and report (written as one "
+                 "unit; an earlier run's folder is replaced)")
     r.add_argument("--discard-other-files", action="store_true", help="replace the -o folder even "
                    "when it holds files dotseq did not write (they are deleted)")
     _common(r)
     _sim_flags(r)
     _sweep_parser(sub)
     _rb_parser(sub)
+    return p
+
+
+DEVICE_HELP = "device description (YAML) to use instead of the file's own"
+JSON_HELP = "print the result as JSON for scripts"
+
+
+def _command(sub, name: str, summary: str, description: str, *, out: str | None = None,
+             epilog: str | None = CAUTION) -> argparse.ArgumentParser:
+    """A subcommand that reads a sequence file: its parser with the file and,
+    when ``out`` (its help) is given, the required -o/--out."""
+    p = sub.add_parser(name, help=summary, description=description, epilog=epilog)
+    p.add_argument("file", help="sequence file (.dotseq)")
+    if out is not None:
+        p.add_argument("-o", "--out", required=True, help=out)
     return p
 
 
@@ -133,7 +140,7 @@ def _rb_parser(sub) -> None:
                    "(default; z rotations as frame updates) or, on one qubit, xy")
     b.add_argument("--resamples", type=int, default=200, help="bootstrap resamples over the "
                    "sequences for the 95 %% intervals (default 200)")
-    b.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    b.add_argument("--device", help=DEVICE_HELP)
     _worker_flags(b, "simulate", "the sequences travel with the tasks; ")
     b.add_argument("--resume", action="store_true", help="continue the unfinished run in the -o "
                    "folder (same device and arguments)")
@@ -154,17 +161,15 @@ SWEEP_EPILOG = (
 
 
 def _sweep_parser(sub) -> None:
-    w = sub.add_parser("sweep", help="simulate a sweep of one or two device or sequence "
-                       "parameters in parallel: a table (CSV, JSON) and a plot",
-                       description="Whole-run fidelity (and with --budget the largest error "
-                       "sources) at every point of a sweep of one or two parameters of the device "
-                       "(field, a dot's g or T2, a coupling's J, the drive) or of the sequence (its "
-                       "let and sweep names), on the local cores or a Dask cluster. Every point "
-                       "is checked before anything is simulated; finished points are kept when "
-                       "the sweep is interrupted (docs/sweep.md).", epilog=SWEEP_EPILOG)
-    w.add_argument("file", help="sequence file (.dotseq)")
-    w.add_argument("-o", "--out", required=True, help="folder for sweep.csv, sweep.json, sweep.png "
-                   "and the state file points.jsonl")
+    w = _command(sub, "sweep", "simulate a sweep of one or two device or sequence parameters in "
+                 "parallel: a table (CSV, JSON) and a plot",
+                 "Whole-run fidelity (and with --budget the largest error sources) at every point "
+                 "of a sweep of one or two parameters of the device (field, a dot's g or T2, a "
+                 "coupling's J, the drive) or of the sequence (its let and sweep names), on the "
+                 "local cores or a Dask cluster. Every point is checked before anything is "
+                 "simulated; finished points are kept when the sweep is interrupted "
+                 "(docs/sweep.md).", out="folder for sweep.csv, sweep.json, sweep.png and the "
+                 "state file points.jsonl", epilog=SWEEP_EPILOG)
     w.add_argument("--vary", action="append", default=[], metavar="NAME=START:STOP:POINTS",
                    help="sweep a parameter: START:STOP:POINTS (even), START:STOP:POINTS:log, or "
                    "V1,V2,...; values with units, e.g. --vary field=0.5T:1.5T:11 (at most two; "
@@ -172,7 +177,7 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--set", dest="fixed", action="append", default=[], metavar="NAME=VALUE",
                    help="hold a parameter at one value, e.g. --set A.t2=40us or --set tau=200ns "
                    "(pins a sweep of the file)")
-    w.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    w.add_argument("--device", help=DEVICE_HELP)
     w.add_argument("--confine", action="store_true", help=CONFINE_HELP)
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
@@ -231,7 +236,7 @@ def _sim_flags(p) -> None:
 
 
 def _common(p) -> None:
-    p.add_argument("--device", help="device description (YAML) to use instead of the file's own")
+    p.add_argument("--device", help=DEVICE_HELP)
     p.add_argument("--predistort", action="store_true", help="pre-distort gate outputs for their "
                    "bias tee's droop")
     p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
@@ -302,7 +307,7 @@ def cmd_compile(args) -> int:
     path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
                         csv=args.csv, stacked=args.stack)
     wfs = compiled.waveforms
-    warnings = sorted({w for wf in wfs for w in wf.warnings})
+    warnings = sorted(merged([r.timeline.warnings for r in compiled.runs]))
     if args.json:
         print(json.dumps({"ok": True, "bundle": str(path), "runs": len(wfs),
                           "samples": [wf.n_samples for wf in wfs],
@@ -438,23 +443,22 @@ def cmd_run(args) -> int:
     return EXIT_OK
 
 
-def cmd_sweep(args) -> int:
+def _where_to_compute(args, goes: str) -> tuple[str | None, float, int]:
+    """(Dask scheduler address or None, its timeout in s, local workers) of
+    ``sweep`` and ``rb``: --cluster, else the DOTSEQ_CLUSTER variable
+    ('local' or empty: this machine).  --workers beside a cluster, a
+    timeout outside (0, 3600] s, an address that is not a scheduler's and a
+    missing Dask are refused before anything is planned; ``goes`` says what
+    would go to the cluster ("the sweep goes")."""
     import os
-    import shlex
-    import signal
-    from .simulate import SimOptions
-    from .sweep import plan_sweep, run_sweep
     from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address,
                                 local_cores, require_dask)
-    from .sweep.table import json_text
-    from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
-
     cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
     cluster = cluster.strip() or None
     if cluster == "local":
         cluster = None
     if cluster and args.workers is not None:
-        raise UsageError("--workers sets the local worker processes, but the sweep goes to the Dask "
+        raise UsageError(f"--workers sets the local worker processes, but {goes} to the Dask "
                          f"cluster {cluster}" + ("" if args.cluster else
                                                  f" (from {CLUSTER_VARIABLE})"),
                          hint="drop --workers, or give --cluster local to compute here")
@@ -471,6 +475,33 @@ def cmd_sweep(args) -> int:
     workers = args.workers if args.workers is not None else local_cores()
     if workers < 1:
         raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
+    return cluster, timeout, workers
+
+
+@contextmanager
+def _sigterm_as_interrupt():
+    """A batch system's stop (SIGTERM) handled like Ctrl-C inside the block:
+    the finished points or simulations are kept."""
+    import signal
+
+    def on_term(signum, frame):
+        raise KeyboardInterrupt
+    old_term = signal.signal(signal.SIGTERM, on_term)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old_term)
+
+
+def cmd_sweep(args) -> int:
+    import shlex
+    from .simulate import SimOptions
+    from .sweep import plan_sweep, run_sweep
+    from .sweep.execute import local_cores, pool_context
+    from .sweep.table import json_text
+    from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
+
+    cluster, timeout, workers = _where_to_compute(args, "the sweep goes")
     capped = ""
     if workers > local_cores() and not args.more_workers_than_cores:
         capped = (f" (--workers {workers} capped at the {local_cores()} cores; "
@@ -479,6 +510,8 @@ def cmd_sweep(args) -> int:
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
                       averaging_tolerance=args.averaging_tolerance)
+    if not cluster and workers > 1:
+        pool_context()               # the workers' server imports the package while we plan
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget, confine=args.confine)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
@@ -490,16 +523,10 @@ def cmd_sweep(args) -> int:
              else f"{workers} local processes" + capped)
     if not args.json:
         print("\n".join(plan_lines(plan, args.file, where)), flush=True)
-
-    def on_term(signum, frame):      # a batch system's stop: like Ctrl-C, keep the points
-        raise KeyboardInterrupt
-    old_term = signal.signal(signal.SIGTERM, on_term)
-    try:
+    with _sigterm_as_interrupt():
         outcome = run_sweep(plan, args.out, workers=workers, cluster=cluster, resume=args.resume,
                             progress=Progress(enabled=not args.quiet), command=command,
                             cluster_timeout=timeout)
-    finally:
-        signal.signal(signal.SIGTERM, old_term)
     if args.json:
         print(json_text(outcome.table, figure="sweep.png" if "png" in outcome.files else None),
               end="")
@@ -512,56 +539,29 @@ def cmd_sweep(args) -> int:
 
 
 def cmd_rb(args) -> int:
-    import signal
     from .benchmarking.run import Progress, RBSettings, parse_lengths, plan_rb, run_rb, \
         summary_lines
-    import os
-    from .sweep.execute import (CLUSTER_VARIABLE, DEFAULT_CLUSTER_TIMEOUT, check_address, connect,
-                                local_cores)
-    cluster = args.cluster if args.cluster is not None else os.environ.get(CLUSTER_VARIABLE, "")
-    cluster = cluster.strip() or None
-    if cluster == "local":
-        cluster = None
-    if cluster and args.workers is not None:
-        raise UsageError("--workers sets the local worker processes, but the simulations go to "
-                         f"the Dask cluster {cluster}", hint="drop --workers, or give --cluster "
-                         "local to compute here")
-    timeout = DEFAULT_CLUSTER_TIMEOUT if args.cluster_timeout is None else args.cluster_timeout
-    if not 0 < timeout <= 3600:
-        raise UsageError(f"--cluster-timeout {timeout:g}: give from 0 to 3600 seconds",
-                         hint="e.g. --cluster-timeout 30")
-    if cluster:
-        cluster = check_address(cluster)
+    from .sweep.execute import connect, local_cores, pool_context
+    cluster, timeout, workers = _where_to_compute(args, "the simulations go")
     settings = RBSettings(tuple(args.qubits), parse_lengths(args.lengths), args.sequences,
                           args.seed, args.decomposition, args.interleave, args.engine, args.nodes,
                           args.quadrature, args.substeps, args.resamples)
-    workers = args.workers if args.workers is not None else local_cores()
-    if workers < 1:
-        raise UsageError(f"--workers {workers}: give at least 1", hint="e.g. --workers 2")
     workers = min(workers, local_cores())
     from .simulate import SimOptions
     SimOptions(engine=args.engine, nodes=args.nodes, quadrature=args.quadrature,
                substeps=args.substeps).check()
+    if not cluster and workers > 1:
+        pool_context()               # the workers' server imports the package while we plan
     plan = plan_rb(args.source, settings, device=args.device)
-    connection = None
-    if cluster:
-        if not args.debug:           # dotseq reports lost simulations itself
-            import logging
-            logging.getLogger("distributed").setLevel(logging.CRITICAL)
-        connection = connect(cluster, timeout)
-
-    def on_term(signum, frame):
-        raise KeyboardInterrupt
-    old_term = signal.signal(signal.SIGTERM, on_term)
+    connection = connect(cluster, timeout) if cluster else None
     try:
-        outcome = run_rb(plan, args.out, workers=workers, resume=args.resume,
-                         progress=Progress(enabled=not args.quiet), cluster=connection)
+        with _sigterm_as_interrupt():
+            outcome = run_rb(plan, args.out, workers=workers, resume=args.resume,
+                             progress=Progress(enabled=not args.quiet), cluster=connection)
     except KeyboardInterrupt:
         print(f"dotseq rb: interrupted; every finished simulation is kept in {args.out}/"
               "survival.jsonl: continue with the same arguments and --resume", file=sys.stderr)
         return EXIT_INTERRUPTED
-    finally:
-        signal.signal(signal.SIGTERM, old_term)
     if args.json and outcome.data is not None:
         print((outcome.folder / "rb.json").read_text(), end="")
     else:

@@ -15,3 +15,17 @@ def die_on_point(task):
         os._exit(17)
     return evaluate_point(task)
 
+
+
+def how_started(task):
+    """What a local worker knows of its own start: forked by the fork
+    server (which had the package imported), the modules present, its
+    thread settings."""
+    import multiprocessing.forkserver
+    import sys
+    from compiler.sweep.execute import PRELOAD
+    from compiler.sweep.point import worker_info
+    return {"index": task.index, "forkserver": multiprocessing.forkserver.get_inherited_fds()
+            is not None, "parent": multiprocessing.parent_process().pid,
+            "modules": sorted(m for m in PRELOAD if m in sys.modules),
+            "env": worker_info()["env"]}

@@ -475,3 +475,19 @@ def test_rb_task_loads_from_its_own_text_when_the_path_is_not_there(tmp_path):
     r = simulate_task(task)
     assert r["status"] == "ok", r
     assert r["survival"] == pytest.approx(1, abs=1e-5)
+
+
+def test_rb_workers_report_the_cpu_time_of_their_simulations(tmp_path):
+    """The workers are forked by the fork server, not by the command, so the
+    operating system does not add their CPU time to the command's: each
+    simulation reports its own, and rb.json sums them (what
+    tests/benchmarks/bench_rb.py adds up)."""
+    dev = _nearly_ideal(tmp_path)                     # a single dot: fast
+    out = tmp_path / "rb"
+    assert main(["rb", str(dev), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
+                 "--workers", "2", "--quiet", "--resamples", "20", "-o", str(out)]) == 0
+    timing = json.loads((out / "rb.json").read_text())["timing"]
+    assert timing["backend"] == "local processes" and timing["workers"] == 2
+    rows = [json.loads(l) for l in (out / "survival.jsonl").read_text().splitlines()[1:]]
+    assert len(rows) == 7 and all(r["cpu_s"] > 0 for r in rows)
+    assert timing["simulation_cpu_s"] == pytest.approx(sum(r["cpu_s"] for r in rows))

@@ -246,3 +246,82 @@ def test_help_names_the_command(capsys):
     assert e.value.code == 0
     out = capsys.readouterr().out
     assert out.startswith("usage: dotseq")
+
+
+RUNS_WARNING = """device "{device}"
+sweep tau from 0 ns to 2 us in 5
+sweep angle over [0.02 deg, 90 deg]
+prepare A down
+rot A x angle
+rot A x 90 deg
+wait tau on A
+rot A x 90 deg
+read A
+"""
+
+
+def test_a_warning_of_many_runs_is_printed_once_with_its_run_count(tmp_path):
+    """A burst whose DAC codes lose area in 5 of the 10 runs (those of the
+    tiny angle; the same message in each): one warning per position with
+    the number of runs, from check, compile and simulate alike (common
+    practice, no source)."""
+    from compiler import compile as compile_checked, load
+    from compiler.simulate import SimOptions, simulate
+    f = tmp_path / "tiny.dotseq"
+    f.write_text(RUNS_WARNING.format(device=SEQUENCES / "devices" / "demo_single.yaml"))
+    tag = f"{f}:5:1: warning: the DAC codes of this burst lose"
+    for args in (("check", f), ("compile", f, "-o", tmp_path / "b")):
+        code, out, err = dotseq(*args)
+        assert code == 0, err
+        lines = [l for l in out.splitlines() if "warning:" in l]
+        assert len(lines) == 1 and lines[0].startswith(tag), out
+        assert lines[0].endswith("(in 5 of 10 runs)")
+    code, out, _ = dotseq("compile", f, "-o", tmp_path / "b", "--json")
+    assert code == 0 and len(json.loads(out)["warnings"]) == 1
+    checked = load(f)
+    result = simulate(compile_checked(checked), SimOptions(nodes=3, substeps=1, budget=False,
+                                                           steps=False))
+    assert len(result.warnings) == 1 and result.warnings[0].startswith(tag)
+    assert result.warnings[0].endswith("(in 5 of 10 runs)")
+
+
+def test_merged_warnings_keep_positions_and_call_chains_apart():
+    from compiler.errors import Span
+    from compiler.runwarnings import merged
+    from compiler.schedule.timeline import Warning_
+    a = Span("f.dotseq", 3, 1, 3, 5)
+    b = Span("f.dotseq", 4, 1, 4, 5)
+    same = Warning_("J is low", a)
+    other_call = Warning_("J is low", a, ("in block 'g' called at f.dotseq:9:1",))
+    runs = [(same, other_call), (same,), (same, Warning_("J is low", b)), ()]
+    out = merged(runs)
+    assert out == ("f.dotseq:3:1: warning: J is low (in 3 of 4 runs)",
+                   "f.dotseq:3:1: warning: J is low (in 1 of 4 runs)\n"
+                   "    in block 'g' called at f.dotseq:9:1",
+                   "f.dotseq:4:1: warning: J is low (in 1 of 4 runs)")
+    assert merged([(same, same)]) == ("f.dotseq:3:1: warning: J is low",)   # one run: no count
+    # one subject (key) at one position, the message differing by run: the worst, said so
+    loss = [Warning_(f"loses {p}%", a, (), "quantisation:f.dotseq:3:1", p) for p in (15, 26, 21)]
+    assert merged([(w,) for w in loss]) == (
+        "f.dotseq:3:1: warning: loses 26% (in 3 of 3 runs; the worst shown)",)
+
+
+@pytest.mark.parametrize("command, goes", [
+    (["sweep", str(SEQUENCES / "ramsey_single.dotseq"), "--vary", "A.t2_star=2us:5us:2"],
+     "the sweep goes"),
+    (["rb", str(SEQUENCES / "devices" / "demo_single.yaml"), "--qubits", "A"],
+     "the simulations go")])
+def test_sweep_and_rb_refuse_workers_beside_a_cluster_alike(command, goes, tmp_path, capsys,
+                                                           monkeypatch):
+    """sweep and rb place their simulations by one rule: --workers beside a
+    cluster (given, or from DOTSEQ_CLUSTER, which the message names) and a
+    timeout out of range are refused before anything is planned."""
+    monkeypatch.setenv("DOTSEQ_CLUSTER", "tcp://127.0.0.1:1")
+    args = command + ["-o", str(tmp_path / "out"), "--quiet"]
+    assert main(args + ["--workers", "2"]) == 2
+    err = capsys.readouterr().err
+    assert (f"--workers sets the local worker processes, but {goes} to the Dask cluster "
+            "tcp://127.0.0.1:1 (from DOTSEQ_CLUSTER)") in err
+    assert main(args + ["--cluster", "local", "--cluster-timeout", "0"]) == 2
+    assert "--cluster-timeout 0: give from 0 to 3600 seconds" in capsys.readouterr().err
+    assert not (tmp_path / "out").exists()

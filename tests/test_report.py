@@ -383,3 +383,18 @@ def test_many_steps_and_budget_sources_draw(tmp_path):
     assert (out / "steps.png").exists() and (out / "budget.png").exists()
     text = summary_text(r, max_rows=10)
     assert "showing the 10 steps with the largest infidelity of 120" in text
+
+
+def test_markdown_escapes_each_cell_once():
+    """A budget note with Markdown's special characters (the registry's own
+    'rms √2/T2*') is escaped once: 'T2\\*' in the file, shown as 'T2*'."""
+    from dataclasses import replace
+    from compiler.report.text import render_markdown
+    run = make_run()
+    budget = (BudgetLine("T2*", 6.2e-4, "Gaussian detuning, rms √2/T2*, by quadrature"),
+              BudgetLine("a|b", 2.9e-4, "under_score `tick` | bar"))
+    result = replace(make_result("single"), runs=(replace(run, budget=budget),))
+    md = render_markdown(result)
+    assert "| Gaussian detuning, rms √2/T2\\*, by quadrature |" in md
+    assert "| under\\_score \\`tick\\` \\| bar |" in md
+    assert "\\\\" not in md                          # no escaped backslash anywhere

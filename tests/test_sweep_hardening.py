@@ -51,6 +51,17 @@ def children_of(pid: int) -> list[int]:
     return out
 
 
+def descendants_of(pid: int) -> list[int]:
+    """Children, grandchildren, ...: the workers are forked from the fork
+    server, a child of the sweep's process."""
+    out, todo = [], [pid]
+    while todo:
+        kids = children_of(todo.pop())
+        out += kids
+        todo += kids
+    return out
+
+
 def running(pid: int) -> bool:
     st = _proc_stat(pid)
     return st is not None and st[0] not in ("Z", "X")     # a zombie has ended
@@ -67,15 +78,15 @@ def test_killing_the_sweep_leaves_no_worker_behind(tmp_path):
         deadline = time.monotonic() + 90
         state = out / "points.jsonl"
         while time.monotonic() < deadline:            # both workers up and a point finished
-            if len(children_of(main.pid)) >= 3 and state.exists() and \
+            if len(descendants_of(main.pid)) >= 4 and state.exists() and \
                     state.read_bytes().count(b"\n") >= 3:
                 break
             assert main.poll() is None
             time.sleep(0.1)
         else:
             pytest.fail("the sweep did not start its workers")
-        kids = children_of(main.pid)                   # 2 workers and the resource tracker
-        assert len(kids) >= 3
+        kids = descendants_of(main.pid)     # 2 workers, the fork server, the resource tracker
+        assert len(kids) >= 4
         os.kill(main.pid, signal.SIGKILL)
         main.wait(timeout=10)
         t0 = time.monotonic()
@@ -90,7 +101,7 @@ def test_killing_the_sweep_leaves_no_worker_behind(tmp_path):
         if main.poll() is None:
             main.kill()
             main.wait()
-        for k in kids + children_of(main.pid):      # the test's own leftovers, by id
+        for k in kids + descendants_of(main.pid):   # the test's own leftovers, by id
             try:
                 os.kill(k, signal.SIGKILL)
             except OSError:

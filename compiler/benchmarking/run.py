@@ -116,10 +116,12 @@ def simulate_task(task: RBTask) -> dict:
     """Load and simulate one generated file (one BLAS thread); never raises
     for the file's own trouble (``status`` invalid or error, with the reason)."""
     from ..threads import one_thread
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     try:
         with one_thread():
-            return _simulate(task, t0)
+            out = _simulate(task, t0)
+        out["cpu_s"] = time.process_time() - c0     # this process's CPU: where the work ran
+        return out
     except DotseqError as e:
         p = e.first
         return {"name": task.name, "status": "invalid", "wall_s": time.perf_counter() - t0,
@@ -600,7 +602,9 @@ def run_rb(plan: RBPlan, out, *, workers: int = 1, resume: bool = False,
                           "resumed": resumed, "backend": backend.get("backend"),
                           "workers": backend.get("workers"),
                           "mean_simulation_s": float(np.mean([r["wall_s"] for r in
-                                                              results.values()]))}
+                                                              results.values()])),
+                          "simulation_cpu_s": float(sum(r.get("cpu_s", 0.0) for r in
+                                                        results.values()))}
         data["files"] = {"sequences": "sequences/", "device": DEVICE_COPY, "steps": STEPS_FILE,
                          "figure": "rb.png", "state": "survival.jsonl"}
         from ..report.data import jsonable

@@ -11,6 +11,7 @@ from ..device.model import Device
 from ..errors import Span
 from ..margin import Margin, coherence_margins
 from ..physics import COHERENCE_RULE
+from ..runwarnings import merged
 from ..schedule import Timeline
 from ..steps import GATE_KINDS, KINDS
 from .lines import line_warnings
@@ -88,12 +89,8 @@ def summarize(expanded: P.Expanded, device: Device, timelines: list[Timeline]) -
     warnings = [w.render("warning") for w in device.warnings]
     warnings += _leakage_warnings(device, qubits, timelines)
     warnings += _valley_gap_warnings(device)
-    worst: dict[str, object] = {}
-    for tl in timelines:
-        for w in tuple(tl.warnings) + tuple(line_warnings(tl, device)):
-            if w.key not in worst or w.severity > worst[w.key].severity:
-                worst[w.key] = w
-    warnings += [w.render() for w in worst.values()]
+    warnings += merged([tuple(tl.warnings) + tuple(line_warnings(tl, device))
+                        for tl in timelines])
     totals = [tl.total for tl in timelines]
     axes = tuple((a.name, a.values[0], a.values[-1], len(a.values), a.dim) for a in expanded.axes)
     return Summary(expanded.file, device.name, device.path, device.field, device.temperature,

@@ -292,7 +292,7 @@ def _budget(result: SimulationResult, i: int, look: _Look, top: int | None) -> S
     for b in rows:
         row = (b.label, fmt_sci(b.value), fmt_percent(b.share))
         if look.md:
-            row = row + (_esc(b.note),)
+            row = row + (b.note,)             # table_markdown escapes every cell
         table_rows.append(row)
     total_row = ("total", fmt_sci(run.budget_total),
                  fmt_percent(100.0 if run.budget_total != 0.0 else None))

@@ -23,6 +23,7 @@ from .. import program as P
 from ..device.model import Device
 from ..errors import UsageError
 from ..margin import coherence_margins
+from ..runwarnings import merged
 from ..synth.types import CompiledRun, Recompiler
 from ..threads import one_thread
 from . import fidelity as F
@@ -507,7 +508,7 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                               whole.compared, whole.leakage))
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
-    warnings = tuple(sorted({w.render() for tl in checked.timelines for w in tl.warnings}))
+    warnings = tuple(sorted(merged([tl.warnings for tl in checked.timelines])))
     stats = {"wall_s": time.perf_counter() - t_start, "engine": engine.name, **engine.stats()}
     settings = {"substeps_per_sample": opts.substeps, "quadrature_nodes": opts.nodes,
                 "quadrature": opts.quadrature, "rwa": opts.rwa, "detail_run": detail,

@@ -127,21 +127,34 @@ def worker_started(parent: int | None = None) -> None:
 
     With ``parent`` (the sweep's process id) a watchdog thread ends this
     worker at once when that process is gone (killed with SIGKILL, it
-    cannot stop its workers itself): the worker is then re-parented, so
-    ``os.getppid()`` changes.  Once every worker has ended, the
-    multiprocessing resource tracker (which waits for the last holder of its
-    pipe) ends too."""
+    cannot stop its workers itself).  The worker waits on the sentinel
+    ``multiprocessing`` gives it of the process that started it (the
+    sweep's process holds the other end of that pipe, so it reads end of
+    file when that process ends, however it ends); a worker forked from the
+    fork server is that server's child, so its parent process id says
+    nothing.  Without a sentinel it looks every ``PARENT_POLL_S`` whether it
+    was re-parented.  Once the sweep's process and every worker have ended,
+    the fork server and the multiprocessing resource tracker (which wait for
+    the last holder of their pipes) end too."""
+    import multiprocessing
     import signal
     import threading
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     if parent is None:
         return
+    starter = multiprocessing.parent_process()
+    if starter is not None and starter.pid == parent:
+        from multiprocessing.connection import wait
 
-    def watch() -> None:
-        while True:
-            time.sleep(PARENT_POLL_S)
-            if os.getppid() != parent:
-                os._exit(1)
+        def watch() -> None:
+            wait([starter.sentinel])
+            os._exit(1)
+    else:
+        def watch() -> None:
+            while True:
+                time.sleep(PARENT_POLL_S)
+                if os.getppid() != parent:
+                    os._exit(1)
     threading.Thread(target=watch, name="dotseq-parent-watchdog", daemon=True).start()
 
 

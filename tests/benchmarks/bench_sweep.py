@@ -10,12 +10,24 @@ nodes, 1 sub-step per sample), about half a second per point here.
 Measured in this run, medians over the repeats (the two pool sizes
 alternate, so slow phases of a busy machine hit both):
 
+* the fork server of the local pool (``pool_context``): the time from its
+  start to the first point computed by a worker forked from it
+  (``server_start_s``: a fresh interpreter importing numpy, scipy, qutip
+  and dotseq once); ``dotseq sweep`` and ``dotseq rb`` start it before they
+  plan, so that import runs while the points are planned;
 * ``t1``, ``t2``: the sweep through the local pool path of ``dotseq sweep``
-  (``run_pool``) with 1 and 2 worker processes, each started fresh
-  (spawning and importing included, as a user meets it);
-  ``speedup_2_workers = t1 / t2``; with each, the cores the workers
+  (``run_pool``) with 1 and 2 worker processes, each pool started fresh
+  (its workers forked from the server, as a user meets it);
+  ``speedup_2_workers = t1 / t2``; also with the server's start added to
+  both, as if nothing had overlapped it (``speedup_2_workers_with_server``);
+  with each, the cores the workers
   actually got (their CPU time over the wall time): on a machine shared with
   other work the 2 workers get fewer than 2 cores, and the speed-up shows it;
+  so the workers' CPU seconds are also compared: one worker's against the
+  mean of two workers' is what two free cores would give
+  (``speedup_2_workers_cpu``; a worker's start-up counts in its CPU time);
+  and before the pools, the cores two busy loops get together
+  (``cores_free_2_busy_loops``, the most any two workers could get then);
 * warm pool and warm cluster: a pool of 2 already started, and a Dask
   LocalCluster (2 worker processes, 1 thread each, loopback TCP) already
   started with a connected client; ``dask_overhead_ms_per_point =
@@ -30,16 +42,14 @@ alternate, so slow phases of a busy machine hit both):
 
 Every backend must give the same numbers (checked).  The last line printed
 is one JSON object with the keys ``speedup_2_workers`` and
-``dask_overhead_ms_per_point``.
+``dask_overhead_ms_per_point`` (and the figures above).
 """
 
 from __future__ import annotations
 
 import argparse
 import json
-import multiprocessing
 import os
-import resource
 import statistics
 import sys
 import tempfile
@@ -49,7 +59,7 @@ from pathlib import Path
 
 from compiler.simulate.run import SimOptions
 from compiler.sweep import plan_sweep
-from compiler.sweep.execute import child_threads, connect, run_dask, run_pool
+from compiler.sweep.execute import child_threads, connect, pool_context, run_dask, run_pool
 from compiler.sweep.point import evaluate_point, simulate_point, worker_info, worker_started
 from compiler.sweep.types import OK, PointResult
 
@@ -116,16 +126,38 @@ def timed(fn):
     return time.perf_counter() - t, out
 
 
-def children_cpu() -> float:
-    """CPU seconds (user + system) used so far by ended child processes."""
-    r = resource.getrusage(resource.RUSAGE_CHILDREN)
-    return r.ru_utime + r.ru_stime
+def spin(seconds: float) -> float:
+    """Busy loop for ``seconds`` of wall time; the CPU seconds it got."""
+    t0, c0 = time.perf_counter(), time.process_time()
+    while time.perf_counter() - t0 < seconds:
+        pass
+    return time.process_time() - c0
+
+
+def cores_free(ctx, seconds: float = 2.0) -> float:
+    """How many cores two busy processes get together (2 on an idle
+    2-core machine): the most any 2 workers can get now."""
+    with ProcessPoolExecutor(2, mp_context=ctx) as ex:
+        return sum(f.result() for f in [ex.submit(spin, seconds) for _ in range(2)]) / seconds
+
+
+def measured_point(task):
+    """evaluate_point, with the worker's process id and the CPU seconds
+    (user + system) it has used so far (the workers are the fork server's
+    children, not this process's, so their CPU time is asked of them)."""
+    r = evaluate_point(task)
+    t = os.times()
+    return r, os.getpid(), t.user + t.system
 
 
 def cold_pool(tasks, workers):
+    """The points on a pool started fresh; and the workers' CPU seconds."""
     got = []
-    run_pool(tasks, got.append, workers)
-    return got
+    run_pool(tasks, got.append, workers, measured_point)
+    cpu: dict[int, float] = {}
+    for _, pid, c in got:
+        cpu[pid] = max(cpu.get(pid, 0.0), c)
+    return [r for r, _, _ in got], sum(cpu.values())
 
 
 def warm_pool(ex, tasks, fn=evaluate_point):
@@ -161,36 +193,60 @@ def main() -> int:
     print(f"one point in this process: {t_default:.3f} s with the default BLAS threads, "
           f"{t_one:.3f} s with one thread (x{t_default / t_one:.1f})")
 
-    # worker thread settings
-    ctx = multiprocessing.get_context("spawn")
+    # the fork server's start, up to the first point of a worker forked from it
+    t0 = time.perf_counter()
+    ctx = pool_context()
     with child_threads():
-        with ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started) as ex:
+        with ProcessPoolExecutor(1, mp_context=ctx, initializer=worker_started,
+                                 initargs=(os.getpid(),)) as ex:
+            ex.submit(evaluate_point, tasks[0]).result()
+    t_server = time.perf_counter() - t0
+    print(f"fork server ({ctx.get_start_method()}): {t_server:.2f} s from its start to the first "
+          "point of a worker forked from it")
+
+    # worker thread settings
+    with child_threads():
+        with ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started,
+                                 initargs=(os.getpid(),)) as ex:
             infos = [f.result() for f in [ex.submit(probe_worker) for _ in range(4)]]
     for info in {i["pid"]: i for i in infos}.values():
-        print(f"worker pid {info['pid']}: {info['threads']} threads; "
+        print(f"worker pid {info['pid']}: {info['threads']} threads (one watches the parent); "
               + ", ".join(f"{k}={v}" for k, v in info["env"].items() if k.startswith(("OMP", "OPENBLAS", "MKL"))))
+
+    free = cores_free(ctx)
+    print(f"two busy loops got {free:.2f} cores together (other work on the machine takes the "
+          "rest; the 2-worker speed-up cannot exceed this)")
 
     # cold pools of 1 and 2 workers (the path of `dotseq sweep --workers N`)
     t1s, t2s = [], []
     cores = {1: [], 2: []}
+    cpus = {1: [], 2: []}
     reference = None
     for r in range(args.repeats):
         for w, store in ((1, t1s), (2, t2s)) if r % 2 == 0 else ((2, t2s), (1, t1s)):
-            cpu0 = children_cpu()
-            t, got = timed(lambda: cold_pool(tasks, w))
-            got_cores = (children_cpu() - cpu0) / t
+            t, (got, cpu) = timed(lambda: cold_pool(tasks, w))
+            got_cores = cpu / t
             store.append(t)
             cores[w].append(got_cores)
+            cpus[w].append(cpu)
             reference = reference or numbers(got)
             assert numbers(got) == reference, "pool results differ"
             print(f"  pool of {w}: {t:.2f} s ({t / n * 1e3:.0f} ms per point); the workers got "
                   f"{got_cores:.2f} cores on average (CPU time / wall time)")
     t1, t2 = statistics.median(t1s), statistics.median(t2s)
     speedup = t1 / t2
+    speedup_server = (t1 + t_server) / (t2 + t_server)
+    # what two free cores would give: one worker's CPU seconds against the
+    # mean of two workers' (hardly moved by other work on the machine)
+    cpu1, cpu2 = statistics.median(cpus[1]), statistics.median(cpus[2])
+    speedup_cpu = cpu1 / (cpu2 / 2)
     print(f"local pool, started fresh: 1 worker {t1:.2f} s, 2 workers {t2:.2f} s: "
           f"speed-up {speedup:.2f}x (aim >= 1.7x); cores obtained: "
           f"{statistics.median(cores[1]):.2f} with 1 worker, {statistics.median(cores[2]):.2f} "
-          "with 2 (below 2: other processes hold the cores)")
+          "with 2 (below 2: other processes hold the cores); with the server's start added to "
+          f"both: {speedup_server:.2f}x")
+    print(f"workers' CPU time: {cpu1:.2f} s with 1 worker, {cpu2:.2f} s with 2: on two free "
+          f"cores the 2 workers would give {speedup_cpu:.2f}x")
 
     # warm pool of 2 against a warm Dask cluster of 2 single-threaded workers
     overhead = noop = None
@@ -201,7 +257,8 @@ def main() -> int:
     else:
         tp, td = [], []
         with child_threads():
-            ex = ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started)
+            ex = ProcessPoolExecutor(2, mp_context=ctx, initializer=worker_started,
+                                     initargs=(os.getpid(),))
             [f.result() for f in [ex.submit(warm_worker, tasks[0]) for _ in range(4)]]
             with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                               host="127.0.0.1", dashboard_address=None) as cluster:
@@ -237,6 +294,11 @@ def main() -> int:
     print("all backends gave the same numbers; load average "
           f"{os.getloadavg()[0]:.2f} at the end (other work on the machine slows the 2-worker runs)")
     print(json.dumps({"speedup_2_workers": round(speedup, 3),
+                      "speedup_2_workers_with_server": round(speedup_server, 3),
+                      "speedup_2_workers_cpu": round(speedup_cpu, 3),
+                      "cores_free_2_busy_loops": round(free, 2),
+                      "server_start_s": round(t_server, 2),
+                      "cores_obtained_1_worker": round(statistics.median(cores[1]), 2),
                       "dask_overhead_ms_per_point": None if overhead is None else round(overhead, 2),
                       "points": n, "t_1_worker_s": round(t1, 2), "t_2_workers_s": round(t2, 2),
                       "cores_obtained_2_workers": round(statistics.median(cores[2]), 2),
