@@ -251,3 +251,53 @@ def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: f
     ratio = complex(np.vdot(x, played) / np.vdot(x, x))
     nothing = bool(np.all(played == 0))
     return abs(1 - ratio), nothing
+
+
+# ------------------------------------------------------------- I/Q mixer
+#
+# An I/Q mixer with Q's gain g relative to I, Q skewed by φ from quadrature
+# and DC offsets o_i, o_q at its inputs plays (model of
+# compiler.device.model.Mixer; common practice, no source)
+#
+#     c_eff = (I + o_i) + i·g·e^{iφ}·(Q + o_q),   V(t) = Re[c_eff·e^{iωt}].
+#
+# Written with c = I + iQ, the uncorrected mixer gives
+# c_eff = ½(1 + g·e^{iφ})·c + ½(1 − g·e^{iφ})·c* (+ the offsets): the c*
+# part is the image, a tone at LO − IF for a tone c ∝ e^{i2π·IF·t}.
+
+
+def mixer_output(i: np.ndarray, q: np.ndarray, gain: float = 1.0, skew: float = 0.0,
+                 offset_i: float = 0.0, offset_q: float = 0.0) -> np.ndarray:
+    """Complex baseband (V) the mixer turns into RF from the voltages ``i``,
+    ``q`` at its inputs: (i + offset_i) + i·g·e^{iφ}·(q + offset_q)."""
+    return (np.asarray(i, dtype=float) + offset_i) + (1j * gain * complex(
+        math.cos(skew), math.sin(skew))) * (np.asarray(q, dtype=float) + offset_q)
+
+
+def mixer_predistort(c, gain: float = 1.0, skew: float = 0.0, offset_i: float = 0.0,
+                     offset_q: float = 0.0) -> tuple:
+    """The I and Q (V) to play so that the mixer outputs the complex baseband
+    ``c``: the inverse of :func:`mixer_output`,
+
+        Q = Im c / (g·cos φ) − o_q,   I = Re c + tan φ·Im c − o_i.
+
+    Parameters
+    ----------
+    c : complex array, V
+        The intended baseband I + iQ of an ideal mixer.
+    gain, skew : float (ratio, rad)
+        Q's gain over I's and the skew from quadrature (|φ| < π/2).
+    offset_i, offset_q : float, V
+        The mixer's input offsets.
+    """
+    c = np.asarray(c)
+    re_c, im_c = np.real(c), np.imag(c)
+    return (re_c + math.tan(skew) * im_c - offset_i,
+            im_c * (1.0 / (gain * math.cos(skew))) - offset_q)
+
+
+def image_ratio(gain: float, skew: float) -> float:
+    """Amplitude of the image over the wanted sideband of an uncorrected
+    mixer: |1 − g·e^{iφ}| / |1 + g·e^{iφ}| (0 for an ideal mixer)."""
+    z = gain * complex(math.cos(skew), math.sin(skew))
+    return abs(1 - z) / abs(1 + z)

@@ -52,7 +52,8 @@ def build_parser() -> argparse.ArgumentParser:
     k = sub.add_parser("compile", help="compile a sequence into the sample arrays each channel "
                        "plays, written as a bundle folder",
                        description="Check, schedule and synthesise every run of a sequence and write "
-                       "a bundle folder: one .npy per output (volts and DAC codes), a JSON manifest "
+                       "a bundle folder: the volts and DAC codes of every output (.npy, each distinct stretch "
+                       "stored once unless --full), a JSON manifest "
                        "with the step timeline, frames and checksums (docs/bundle.md). The folder is "
                        "written atomically.", epilog=CAUTION)
     k.add_argument("file", help="sequence file (.dotseq)")
@@ -60,8 +61,12 @@ def build_parser() -> argparse.ArgumentParser:
                    "an earlier bundle)")
     _common(k)
     k.add_argument("--csv", action="store_true", help="also write samples.csv per run")
-    k.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
-                   "output (shorter runs padded at the end, recorded in the manifest)")
+    lay = k.add_mutually_exclusive_group()
+    lay.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
+                     "output (shorter runs padded at the end, recorded in the manifest)")
+    lay.add_argument("--full", action="store_true", help="one full array per run and output "
+                     "(default: every distinct stretch stored once in segments/, each run a "
+                     "table of references; docs/bundle.md)")
     k.add_argument("--json", action="store_true", help="print the result as JSON for scripts")
 
     v = sub.add_parser("preview", help="draw what the generators will play (PNG, SVG or PDF)",
@@ -295,7 +300,8 @@ def cmd_compile(args) -> int:
     from .export import write_bundle
     compiled, need = _synthesised(args)
     path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
-                        csv=args.csv, stacked=args.stack)
+                        csv=args.csv, stacked=args.stack,
+                        segments=not (args.stack or args.full))
     wfs = compiled.waveforms
     warnings = sorted({w for wf in wfs for w in wf.warnings})
     if args.json:
@@ -414,7 +420,8 @@ def cmd_run(args) -> int:
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
 
     def fill(tmp):
-        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled))
+        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled),
+                     segments=True)
         preview(compiled.waveforms[k], tmp / "preview.png",
                 title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
         write_report(result, tmp / "report")

@@ -129,7 +129,7 @@ def test_manifest_contents(tmp_path):
     m = json.loads(text)
     # deterministic JSON: sorted keys, indent 2, trailing newline
     assert text == json.dumps(m, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
-    assert m["format"] == FORMAT_NAME == "dotseq-bundle" and m["format_version"] == FORMAT_VERSION == 2
+    assert m["format"] == FORMAT_NAME == "dotseq-bundle" and m["format_version"] == FORMAT_VERSION == 3
     assert m["layout"] == "per-run"
     assert m["source"] == SOURCE
     assert m["sample_rate_Hz"] == 1e9
@@ -178,8 +178,10 @@ def test_npy_writer_matches_numpy_save(tmp_path):
 
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
-                                dict(stacked=True, csv=True)],
-                         ids=["per-run", "csv", "stacked", "stacked-csv"])
+                                dict(stacked=True, csv=True), dict(segments=True),
+                                dict(segments=True, csv=True)],
+                         ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
+                              "segments-csv"])
 def test_same_input_gives_byte_identical_bundle(tmp_path, kw):
     runs = runs3((200, 150, 180) if kw.get("stacked") else (200, 200, 200))
     a = write_bundle(runs, tmp_path / "a", source=SOURCE, **kw)
@@ -566,8 +568,10 @@ def test_killed_export_leaves_previous_bundle_intact(tmp_path):
 # ---------------------------------------------------------------- sizes
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
-                                dict(stacked=True, csv=True)],
-                         ids=["per-run", "csv", "stacked", "stacked-csv"])
+                                dict(stacked=True, csv=True), dict(segments=True),
+                                dict(segments=True, csv=True)],
+                         ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
+                              "segments-csv"])
 def test_estimate_is_an_upper_bound_close_to_the_real_size(tmp_path, kw):
     runs = runs3((200, 150, 180))
     est = estimate_bundle_bytes(runs, source=SOURCE, **kw)
@@ -597,8 +601,9 @@ def test_estimate_npy_part_is_exact():
 
 # ---------------------------------------------------------------- streamed manifest
 
-@pytest.mark.parametrize("stacked", [False, True], ids=["per-run", "stacked"])
-def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
+@pytest.mark.parametrize("stacked, segments", [(False, False), (True, False), (False, True)],
+                         ids=["per-run", "stacked", "segments"])
+def test_streamed_manifest_is_the_same_text(stacked, segments, monkeypatch):
     """The manifest is written one timeline entry at a time (a run of a
     million steps must not be held as dicts and text); the bytes are the
     same as encoding the whole manifest at once, chunk boundaries included."""
@@ -610,7 +615,7 @@ def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
     many = make_run(2, 200)
     many = Waveforms(**{**{f: getattr(many, f) for f in many.__dataclass_fields__},
                         "steps": many.steps * 40})
-    plan = mf.check_runs([make_run(0, 200), empty, many], stacked=stacked)
+    plan = mf.check_runs([make_run(0, 200), empty, many], stacked=stacked, segments=segments)
     sizes = bundle_mod._file_sizes(plan, True)
     sums = {rel: f"{i:064x}" for i, rel in enumerate(sizes)}
     whole = mf.dumps(mf.build(plan, SOURCE, sums, sizes, True))
@@ -639,3 +644,82 @@ def test_manifest_formatter_matches_the_json_encoder(value, indent):
                                                 ensure_ascii=False, allow_nan=False)
     # nested one level down: the same text as the encoder writes inside a dict
     assert '{\n  "k": ' + format_json(value, 2) + "\n}" == expected
+
+
+# ---------------------------------------------------------------- segments (issue 19)
+
+def test_segments_round_trip_is_bit_identical_and_shares_stretches(tmp_path):
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "s", source=SOURCE, segments=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["layout"] == "segments"
+    assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "segments"]
+    b = read_bundle(out)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].dtype == np.float64
+            assert r["volts"][name].tobytes() == np.asarray(o.volts, np.float64).tobytes()
+            if o.codes is not None:
+                assert r["codes"][name].tobytes() == np.asarray(o.codes, np.int32).tobytes()
+    # P_A is two constant stretches per run: stored as one sample each, and
+    # shared by every run that plays the same level (here 0 V before 150 ns)
+    seg = m["segments"]["P_A"]
+    pool = np.load(out / seg["file"])
+    assert seg["samples"] == len(pool) == 1 + 2       # 0 V once, the levels of runs 0 and 2
+    table = np.load(out / seg["table_file"])
+    lo, hi = m["runs"][1]["outputs"]["P_A"]["table_rows"]
+    assert table[lo:hi].tolist() == [[0, 1, 150]]     # run 1 ends at 150: only 0 V
+    # the recipe of docs/bundle.md, without dotseq
+    e = m["runs"][2]["outputs"]["mw.I"]
+    pool = np.load(out / e["file"])
+    tab = np.load(out / e["table_file"])
+    a, z = e["table_rows"]
+    v = np.concatenate([np.tile(pool[o:o + n], r) for o, n, r in tab[a:z]])
+    assert v.tobytes() == runs[2].outputs["mw.I"].volts.tobytes()
+
+
+def test_segments_refuse_stacking_and_damaged_tables(tmp_path):
+    with pytest.raises(BundleError, match="either stacked or stored as segments"):
+        write_bundle(runs3(), tmp_path / "x", source=SOURCE, segments=True, stacked=True)
+    out = write_bundle(runs3(), tmp_path / "s", source=SOURCE, segments=True)
+    t = out / "segments" / "table" / "mw.I.npy"
+    data = bytearray(t.read_bytes())
+    data[-1] ^= 1
+    t.write_bytes(bytes(data))
+    with pytest.raises(BundleError, match="checksum") as ei:
+        read_bundle(out)
+    assert "mw.I.npy" in str(ei.value)
+
+
+def test_rebuild_refuses_tables_that_do_not_fit():
+    from compiler.export import rebuild_segments
+    pool = np.array([0.0, 1.0, 2.0])
+    assert rebuild_segments(pool, [[0, 1, 2], [1, 2, 2]], 6).tolist() == [0, 0, 1, 2, 1, 2]
+    with pytest.raises(ValueError, match="give 6 samples"):
+        rebuild_segments(pool, [[0, 1, 2], [1, 2, 2]], 7)
+    with pytest.raises(ValueError, match="outside the pool"):
+        rebuild_segments(pool, [[2, 2, 1]], 2)
+
+
+def test_segments_of_a_compiled_sweep_rebuild_bit_identically_and_are_small(tmp_path):
+    """Every run of a compiled sweep (Ramsey, 5 waits) rebuilt from the
+    segment layout is byte for byte the compiled arrays, and the shared
+    readout and idle windows are stored once: the bundle is a small part of
+    the full one; writing twice gives the same bytes."""
+    from compiler import compile_file
+    from conftest import SEQUENCES
+    runs = compile_file(SEQUENCES / "ramsey_single.dotseq").waveforms
+    assert len(runs) == 5
+    seg = write_bundle(runs, tmp_path / "seg", source=SOURCE, segments=True)
+    full = write_bundle(runs, tmp_path / "full", source=SOURCE)
+    b = read_bundle(seg)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].tobytes() == np.asarray(o.volts).tobytes(), name
+            if o.codes is not None:
+                assert r["codes"][name].tobytes() == np.asarray(o.codes, np.int32).tobytes()
+    size = lambda d: sum(len(x) for x in all_files(d).values())  # noqa: E731
+    assert size(seg) < 0.1 * size(full)
+    again = write_bundle(compile_file(SEQUENCES / "ramsey_single.dotseq").waveforms,
+                         tmp_path / "again", source=SOURCE, segments=True)
+    assert all_files(again) == all_files(seg)

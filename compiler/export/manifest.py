@@ -20,9 +20,10 @@ import numpy as np
 
 from ..synth.types import Output, Waveforms
 from .errors import BundleError, at
+from .segments import SEGMENTS_FOLDER, TABLE_FOLDER, plan_segments
 
 FORMAT_NAME = "dotseq-bundle"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 MANIFEST_NAME = "manifest.json"
 ARRAYS_FOLDER = "arrays"
 CSV_NAME = "samples.csv"
@@ -71,6 +72,11 @@ class Plan:
     order: tuple[str, ...]             # output names in device channel order (union, first seen)
     stacked: bool
     n_max: int                         # longest run, samples (the stacked width)
+    pools: dict | None = None          # segment layout: output name -> segments.Pool
+
+    @property
+    def segments(self) -> bool:
+        return self.pools is not None
 
 
 def _where(w: Waveforms, name: str | None = None) -> str:
@@ -119,7 +125,7 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
             problems.append(at(where, f"{label} is {x!r}, expected a finite number of volts"))
 
 
-def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
+def check_runs(runs: Sequence[Waveforms], *, stacked: bool, segments: bool = False) -> Plan:
     """Check the runs handed to the writer; every problem at once.
 
     Raises
@@ -127,8 +133,12 @@ def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
     BundleError
         No runs, different sample rates, a malformed output (wrong length,
         non-finite samples, a name that cannot be a file name), repeated run
-        indices, or (stacked) runs whose outputs differ.
+        indices, (stacked) runs whose outputs differ, or both stacked and
+        segments asked for.
     """
+    if stacked and segments:
+        raise BundleError(at("<options>", "a bundle is either stacked or stored as segments, "
+                                          "not both", "choose one layout"))
     if isinstance(runs, Waveforms):
         runs = [runs]
     runs = tuple(runs)
@@ -189,7 +199,9 @@ def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
                                    "write without stacking (one folder per run)"))
     if problems:
         raise BundleError(problems)
-    return Plan(runs, rates[0], tuple(order), stacked, max(int(w.n_samples) for w in runs))
+    pools = plan_segments(runs, order) if segments else None
+    return Plan(runs, rates[0], tuple(order), stacked, max(int(w.n_samples) for w in runs),
+                pools)
 
 
 # ---------------------------------------------------------------- JSON
@@ -400,6 +412,8 @@ def output_entry(o: Output, *, file: str, codes: str | None, shape: list[int],
         "codes_file": codes,
         "codes_dtype": "int32" if codes else None,
         "codes_sha256": checksums[codes] if codes else None,
+        "shift_samples": int(o.shift),
+        "delay_s": float(o.delay),
     }
     if row is not None:
         e["row"] = row
@@ -446,7 +460,13 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         n = int(w.n_samples)
         outputs = {}
         for name, o in w.outputs.items():
-            if plan.stacked:
+            if plan.segments:
+                f, c, t = segment_files(name, o.codes is not None)
+                outputs[name] = output_entry(o, file=f, codes=c, shape=[n], checksums=checksums)
+                outputs[name]["table_file"] = t
+                outputs[name]["table_sha256"] = checksums[t]
+                outputs[name]["table_rows"] = list(plan.pools[name].ranges[row])
+            elif plan.stacked:
                 f = f"{ARRAYS_FOLDER}/{output_file(name)}"
                 c = f"{ARRAYS_FOLDER}/{codes_file(name)}" if o.codes is not None else None
                 pv, pc = pad_values(o)
@@ -462,7 +482,7 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         runs_out.append({
             "index": int(w.run_index),
             "position": row,
-            "folder": folder if (csv or not plan.stacked) else None,
+            "folder": folder if (csv or not (plan.stacked or plan.segments)) else None,
             "sweep": {str(k): plain(v, f"sweep {k}") for k, v in w.sweep},
             "n_samples": n,
             "duration_s": n / fs,
@@ -476,10 +496,15 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
             "larmor_Hz": plain(dict(w.larmor), "larmor"),
             "warnings": [str(x) for x in w.warnings],
         })
-    return {
+    delays: dict[str, float] = {}
+    for w in plan.runs:
+        for o in w.outputs.values():
+            delays.setdefault(str(o.channel), float(o.delay))
+    out = {
         "format": FORMAT_NAME,
         "format_version": FORMAT_VERSION,
-        "layout": "stacked" if plan.stacked else "per-run",
+        "layout": "stacked" if plan.stacked else ("segments" if plan.segments else "per-run"),
+        "delays_s": delays,
         "source": plain(dict(source), "source"),
         "sample_rate_Hz": fs,
         "hold": HOLD,
@@ -492,3 +517,19 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         "files": {p: {"sha256": checksums[p], "bytes": int(sizes[p])} for p in checksums},
         "runs": runs_out,
     }
+    if plan.segments:
+        segs = {}
+        for name, pool in plan.pools.items():
+            f, c, t = segment_files(name, pool.has_codes)
+            segs[name] = {"file": f, "codes_file": c, "table_file": t,
+                          "samples": pool.samples, "rows": pool.rows}
+        out["segments"] = segs
+    return out
+
+
+def segment_files(name: str, has_codes: bool) -> tuple[str, str | None, str]:
+    """The pool of volts, the pool of codes (None for markers) and the table
+    of one output in the segment layout (paths relative to the bundle)."""
+    return (f"{SEGMENTS_FOLDER}/{output_file(name)}",
+            f"{SEGMENTS_FOLDER}/{codes_file(name)}" if has_codes else None,
+            f"{TABLE_FOLDER}/{output_file(name)}")
