@@ -20,6 +20,7 @@ numerical integration: within sample k, y(t) = x_k + (y_k − x_k)·e^{−(t−t
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -222,6 +223,16 @@ def tone_burst(envelope: np.ndarray, if_freq: float, dt: float, tau: float) -> n
     return x
 
 
+@lru_cache(maxsize=4096)
+def tone_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.ndarray:
+    """:func:`tone_burst` of an envelope given as a tuple, cached and
+    read-only: repeated bursts (the same envelope on the same line) share one
+    array in the scheduler's quantisation check and in synthesis."""
+    x = tone_burst(np.asarray(envelope, dtype=float), if_freq, dt, tau)
+    x.setflags(write=False)
+    return x
+
+
 def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: float,
                             start: int, dt: float, tau: float, v_min: float, v_max: float,
                             bits: int) -> tuple[float, bool]:
@@ -242,8 +253,9 @@ def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: f
     bound = (q / math.sqrt(2)) * n / (amplitude * float(np.abs(e).sum()))
     if bound < 1e-3:
         return bound, False
-    x = amplitude * np.exp(1j * (phase + 2 * math.pi * if_freq * start * dt)) * tone_burst(
-        e, if_freq, dt, tau)
+    shape = (tone_shape(envelope, if_freq, dt, tau) if isinstance(envelope, tuple)
+             else tone_burst(e, if_freq, dt, tau))
+    x = amplitude * np.exp(1j * (phase + 2 * math.pi * if_freq * start * dt)) * shape
     def rq(v):
         return np.rint((v - v_min) / q) * q + v_min
     zero = complex(rq(np.zeros(1))[0], rq(np.zeros(1))[0])

@@ -61,6 +61,12 @@ def build_parser() -> argparse.ArgumentParser:
                    "an earlier bundle)")
     _common(k)
     k.add_argument("--csv", action="store_true", help="also write samples.csv per run")
+    k.add_argument("--hdf5", action="store_true", help="also write bundle.h5: a dataset per run "
+                   "and output with units, sample rate, codes scaling and checksums (needs h5py: "
+                   "pip install 'dotseq[hdf5]')")
+    k.add_argument("--raw", action="store_true", help="also write raw/run_NNNN/NAME.i32: the DAC "
+                   "codes as little-endian int32 without header (markers .u8), the scaling in "
+                   "the manifest")
     lay = k.add_mutually_exclusive_group()
     lay.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
                      "output (shorter runs padded at the end, recorded in the manifest)")
@@ -301,7 +307,8 @@ def cmd_compile(args) -> int:
     compiled, need = _synthesised(args)
     path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
                         csv=args.csv, stacked=args.stack,
-                        segments=not (args.stack or args.full))
+                        segments=not (args.stack or args.full), raw=args.raw,
+                        hdf5=args.hdf5)
     wfs = compiled.waveforms
     warnings = sorted({w for wf in wfs for w in wf.warnings})
     if args.json:

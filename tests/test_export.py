@@ -7,6 +7,7 @@ The waveforms here are synthetic, built by hand; no physics is checked.
 from __future__ import annotations
 
 import errno
+import hashlib
 import io
 import json
 import os
@@ -179,9 +180,9 @@ def test_npy_writer_matches_numpy_save(tmp_path):
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
                                 dict(stacked=True, csv=True), dict(segments=True),
-                                dict(segments=True, csv=True)],
+                                dict(segments=True, csv=True), dict(segments=True, raw=True)],
                          ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
-                              "segments-csv"])
+                              "segments-csv", "segments-raw"])
 def test_same_input_gives_byte_identical_bundle(tmp_path, kw):
     runs = runs3((200, 150, 180) if kw.get("stacked") else (200, 200, 200))
     a = write_bundle(runs, tmp_path / "a", source=SOURCE, **kw)
@@ -569,9 +570,9 @@ def test_killed_export_leaves_previous_bundle_intact(tmp_path):
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
                                 dict(stacked=True, csv=True), dict(segments=True),
-                                dict(segments=True, csv=True)],
+                                dict(segments=True, csv=True), dict(segments=True, raw=True)],
                          ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
-                              "segments-csv"])
+                              "segments-csv", "segments-raw"])
 def test_estimate_is_an_upper_bound_close_to_the_real_size(tmp_path, kw):
     runs = runs3((200, 150, 180))
     est = estimate_bundle_bytes(runs, source=SOURCE, **kw)
@@ -723,3 +724,73 @@ def test_segments_of_a_compiled_sweep_rebuild_bit_identically_and_are_small(tmp_
     again = write_bundle(compile_file(SEQUENCES / "ramsey_single.dotseq").waveforms,
                          tmp_path / "again", source=SOURCE, segments=True)
     assert all_files(again) == all_files(seg)
+
+
+# ---------------------------------------------------------------- raw and HDF5 (issue 19, item 4)
+
+def test_raw_code_files_decode_to_the_volts_bit_for_bit(tmp_path):
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "r", source=SOURCE, segments=True, raw=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["raw"]["byte_order"] == "little" and m["raw"]["header_bytes"] == 0
+    for w, r in zip(runs, m["runs"]):
+        for name, o in w.outputs.items():
+            e = r["outputs"][name]
+            data = (out / e["raw_file"]).read_bytes()
+            assert m["files"][e["raw_file"]]["sha256"] == hashlib.sha256(data).hexdigest()
+            if o.codes is None:
+                assert e["raw_dtype"] == "uint8" and e["raw_file"].endswith(".u8")
+                v = np.frombuffer(data, dtype="u1").astype(float)
+            else:
+                codes = np.frombuffer(data, dtype="<i4")
+                assert codes.tobytes() == np.asarray(o.codes, "<i4").tobytes()
+                v = e["raw_offset_V"] + codes * e["raw_scale_V"]
+            assert v.tobytes() == np.asarray(o.volts, np.float64).tobytes(), name
+    read_bundle(out)                    # the raw files are checksummed with the rest
+
+
+def test_hdf5_holds_every_run_and_output_with_units_scaling_and_checksums(tmp_path):
+    h5py = pytest.importorskip("h5py")
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "h", source=SOURCE, segments=True, hdf5=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["hdf5"] == {"file": "bundle.h5"} and "bundle.h5" in m["files"]
+    with h5py.File(out / "bundle.h5", "r") as f:
+        assert f.attrs["sample_rate_Hz"] == 1e9 and f.attrs["n_runs"] == 3
+        assert list(f) == ["run_0000", "run_0001", "run_0002"]
+        for w in runs:
+            g = f[f"run_{w.run_index:04d}"]
+            assert g.attrs["n_samples"] == w.n_samples
+            for name, o in w.outputs.items():
+                d = g[name]
+                assert d.dtype == np.float64 and d.attrs["unit"] == ("0 or 1" if o.codes is None
+                                                                     else "V")
+                assert d[()].tobytes() == np.asarray(o.volts, np.float64).tobytes()
+                assert d.attrs["sha256"] == hashlib.sha256(d[()].astype("<f8").tobytes()
+                                                           ).hexdigest()
+                if o.codes is not None:
+                    c = g[f"{name}.codes"]
+                    v = c.attrs["offset_V"] + c[()] * c.attrs["scale_V"]
+                    assert v.tobytes() == np.asarray(o.volts, np.float64).tobytes()
+    # the same waveforms give the same bytes (no timestamps)
+    again = write_bundle(runs3((200, 150, 180)), tmp_path / "h2", source=SOURCE, segments=True,
+                         hdf5=True)
+    assert (again / "bundle.h5").read_bytes() == (out / "bundle.h5").read_bytes()
+    est = estimate_bundle_bytes(runs, source=SOURCE, segments=True, hdf5=True)
+    assert sum(len(b) for b in all_files(out).values()) <= est
+
+
+def test_hdf5_without_h5py_is_refused_before_writing(tmp_path, monkeypatch):
+    import builtins
+    real = builtins.__import__
+
+    def no_h5py(name, *a, **k):
+        if name == "h5py":
+            raise ImportError("no h5py")
+        return real(name, *a, **k)
+
+    monkeypatch.setattr(builtins, "__import__", no_h5py)
+    with pytest.raises(BundleError, match="needs the h5py package") as ei:
+        write_bundle(runs3(), tmp_path / "h", source=SOURCE, hdf5=True)
+    assert "dotseq[hdf5]" in str(ei.value)
+    assert not (tmp_path / "h").exists() and leftovers(tmp_path) == []

@@ -16,7 +16,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from ..synth.types import Waveforms
-from . import atomic
+from . import atomic, formats
 from .errors import BundleError, at, fail
 from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, checked_cast,
                     csv_bytes_bound, npy_bytes, sha256_file, write_csv, write_npy,
@@ -31,7 +31,7 @@ from .segments import SEGMENTS_FOLDER, TABLE_DTYPE, TABLE_FOLDER, piece_volts, r
 
 def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapping,
                  csv: bool = False, stacked: bool = False, overwrite: bool = True,
-                 segments: bool = False) -> Path:
+                 segments: bool = False, raw: bool = False, hdf5: bool = False) -> Path:
     """Write the waveforms of every run as a bundle folder, atomically.
 
     Parameters
@@ -58,6 +58,12 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
         and each run as a table of references to them, instead of one full
         array per run and output; :func:`read_bundle` rebuilds the full
         arrays bit for bit.  Not together with ``stacked``.
+    raw : bool, optional
+        Also write ``raw/run_NNNN/NAME.i32`` (codes, little-endian int32, no
+        header; markers ``NAME.u8``), the scaling in the manifest.
+    hdf5 : bool, optional
+        Also write ``bundle.h5`` (needs h5py): a dataset per run and output,
+        attributes for units, sample rate, codes scaling and checksums.
 
     Returns
     -------
@@ -83,7 +89,9 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
     if not isinstance(source, Mapping):
         raise BundleError(at("<source>", f"source is a {type(source).__name__}, expected a dict",
                              "pass source={'sequence': ..., 'device': ..., ...}"))
-    plan = check_runs(runs, stacked=stacked, segments=segments)
+    plan = check_runs(runs, stacked=stacked, segments=segments, raw=raw, hdf5=hdf5)
+    if hdf5:
+        formats._h5py()       # refuse before anything is written when h5py is missing
     _check_manifest_values(plan, source)  # refuse unusable values before touching the disk
     target = atomic.resolve_target(out_dir)
     try:
@@ -118,6 +126,10 @@ def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
 
     if plan.segments:
         _write_segments(plan, tmp, put)
+    if plan.raw:
+        formats.write_raw(plan, tmp, put)
+    if plan.hdf5:
+        formats.write_hdf5(plan, tmp, put)
     if plan.stacked:
         (tmp / ARRAYS_FOLDER).mkdir()
         n_rows, width = len(plan.runs), plan.n_max
@@ -221,7 +233,8 @@ _MANIFEST_PER_STEP = 900   # bytes per timeline entry
 
 def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = False,
                           stacked: bool = False, sample_rate: float = 1e9,
-                          source: Mapping | None = None, segments: bool = False) -> int:
+                          source: Mapping | None = None, segments: bool = False,
+                          raw: bool = False, hdf5: bool = False) -> int:
     """Bytes the bundle will take on disk (file contents, not file-system
     blocks), so a caller can refuse before writing.
 
@@ -229,8 +242,9 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
     ----------
     runs : sequence of Waveforms or RunSize
         The runs, or their sizes when the waveforms are not made yet.
-    csv, stacked, segments : bool
-        As for :func:`write_bundle`.  With ``segments`` and RunSize entries
+    csv, stacked, segments, raw, hdf5 : bool
+        As for :func:`write_bundle` (the HDF5 part is an upper bound: its
+        data uncompressed).  With ``segments`` and RunSize entries
         the figure is an upper bound: every run's samples as if none were
         shared, plus the largest tables the steps allow.
     sample_rate : float, Hz, optional
@@ -251,8 +265,8 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
     if not runs:
         return 0
     if all(isinstance(r, Waveforms) for r in runs):
-        return _estimate_waveforms(runs, csv, stacked, source or {}, segments)
-    total = _MANIFEST_BASE
+        return _estimate_waveforms(runs, csv, stacked, source or {}, segments, raw, hdf5)
+    total = _MANIFEST_BASE + (1 << 16 if hdf5 else 0)
     n_max = max(_n_samples(r) for r in runs)
     for r in runs:
         if isinstance(r, Waveforms):
@@ -272,6 +286,10 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
         if not stacked:
             total += (n_an + n_mk) * npy_bytes((n,), VOLTS_DTYPE) + n_an * npy_bytes((n,),
                                                                                    CODES_DTYPE)
+        if raw:
+            total += n_an * 4 * n + n_mk * n
+        if hdf5:
+            total += int((n_an * 12 + n_mk * 8) * n * 1.02) + 8192 * (2 * n_an + n_mk) + 4096
         if segments:      # table rows: at most one per piece between step boundaries
             total += (n_an + n_mk) * ((2 * steps + 2) * TABLE_DTYPE.itemsize * 3 + 128)
         if csv:
@@ -306,6 +324,14 @@ def _file_sizes(plan: Plan, csv: bool) -> dict[str, int]:
             sizes[f"{ARRAYS_FOLDER}/{output_file(name)}"] = npy_bytes(shape, VOLTS_DTYPE)
             if plan.runs[0].outputs[name].codes is not None:
                 sizes[f"{ARRAYS_FOLDER}/{codes_file(name)}"] = npy_bytes(shape, CODES_DTYPE)
+    if plan.raw:
+        for w in plan.runs:
+            for name, o in w.outputs.items():
+                marker = o.codes is None
+                sizes[formats.raw_file(int(w.run_index), name, marker)] = formats.raw_bytes(
+                    int(w.n_samples), marker)
+    if plan.hdf5:
+        sizes[formats.HDF5_NAME] = formats.hdf5_bytes_bound(plan)
     if plan.segments:
         for name, pool in plan.pools.items():
             f_v, f_c, f_t = segment_files(name, pool.has_codes)
@@ -352,8 +378,9 @@ def _check_manifest_values(plan: Plan, source: Mapping) -> None:
 
 
 def _estimate_waveforms(runs: list[Waveforms], csv: bool, stacked: bool,
-                        source: Mapping, segments: bool = False) -> int:
-    plan = check_runs(runs, stacked=stacked, segments=segments)
+                        source: Mapping, segments: bool = False, raw: bool = False,
+                        hdf5: bool = False) -> int:
+    plan = check_runs(runs, stacked=stacked, segments=segments, raw=raw, hdf5=hdf5)
     sizes, manifest_bytes = _dry_manifest(plan, source, csv)
     return int(sum(sizes.values()) + manifest_bytes + 64)
 

@@ -73,6 +73,8 @@ class Plan:
     stacked: bool
     n_max: int                         # longest run, samples (the stacked width)
     pools: dict | None = None          # segment layout: output name -> segments.Pool
+    raw: bool = False                  # also raw little-endian code files
+    hdf5: bool = False                 # also one HDF5 file
 
     @property
     def segments(self) -> bool:
@@ -125,7 +127,8 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
             problems.append(at(where, f"{label} is {x!r}, expected a finite number of volts"))
 
 
-def check_runs(runs: Sequence[Waveforms], *, stacked: bool, segments: bool = False) -> Plan:
+def check_runs(runs: Sequence[Waveforms], *, stacked: bool, segments: bool = False,
+               raw: bool = False, hdf5: bool = False) -> Plan:
     """Check the runs handed to the writer; every problem at once.
 
     Raises
@@ -201,7 +204,7 @@ def check_runs(runs: Sequence[Waveforms], *, stacked: bool, segments: bool = Fal
         raise BundleError(problems)
     pools = plan_segments(runs, order) if segments else None
     return Plan(runs, rates[0], tuple(order), stacked, max(int(w.n_samples) for w in runs),
-                pools)
+                pools, bool(raw), bool(hdf5))
 
 
 # ---------------------------------------------------------------- JSON
@@ -478,6 +481,14 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
                 f = f"{folder}/{output_file(name)}"
                 c = f"{folder}/{codes_file(name)}" if o.codes is not None else None
                 outputs[name] = output_entry(o, file=f, codes=c, shape=[n], checksums=checksums)
+            if plan.raw:
+                marker = o.codes is None
+                rel = (f"raw/{folder}/{name}" + (".u8" if marker else ".i32"))
+                outputs[name].update({
+                    "raw_file": rel, "raw_sha256": checksums[rel],
+                    "raw_dtype": "uint8" if marker else "int32",
+                    "raw_scale_V": 1.0 if marker else float(o.lsb),
+                    "raw_offset_V": 0.0 if marker else float(o.v_min)})
         csv_path = f"{folder}/{CSV_NAME}"
         runs_out.append({
             "index": int(w.run_index),
@@ -517,6 +528,9 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         "files": {p: {"sha256": checksums[p], "bytes": int(sizes[p])} for p in checksums},
         "runs": runs_out,
     }
+    out["raw"] = ({"byte_order": "little", "header_bytes": 0,
+                   "volts": "raw_offset_V + code * raw_scale_V"} if plan.raw else None)
+    out["hdf5"] = {"file": "bundle.h5"} if plan.hdf5 else None
     if plan.segments:
         segs = {}
         for name, pool in plan.pools.items():

@@ -30,7 +30,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from functools import lru_cache
 
 import numpy as np
 
@@ -53,14 +52,6 @@ SLOT_RENDER = {
     "read": "readout", "trigger": "trigger", "zrot": "frame",
     "wait": "time", "phasewait": "time",
 }
-
-
-@lru_cache(maxsize=4096)
-def _burst_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.ndarray:
-    """Normalised held samples of a burst (see analog.tone_burst), cached."""
-    x = analog.tone_burst(np.asarray(envelope, dtype=float), if_freq, dt, tau)
-    x.setflags(write=False)
-    return x
 
 
 def _slot_text(slot: Slot) -> tuple[str, str]:
@@ -199,7 +190,7 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         line = chans[dot.drive.line]
         f_if = device.larmor(q) - line.lo
         phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-        shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+        shape = analog.tone_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
         amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                           math.sin(phi + 2 * math.pi * f_if * a * dt))
         # kept as (amplitude, shared cached shape): no per-burst array
