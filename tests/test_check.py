@@ -146,3 +146,17 @@ def test_no_image_warning_when_images_miss_the_dots(write):
     # the bundled pair: A's image at 14.104 GHz, 32 MHz from B, against 4 MHz of width
     s = check_file(write("x.dotseq", f'device "{DEFAULT}"\nrot A x 180 deg\nrot B x 180 deg\n'))
     assert not any("image of this" in x for x in s.warnings), s.warnings
+
+
+def test_summed_tones_are_checked_after_mixer_correction(write, tmp_path):
+    """Two 700 ns π bursts together fit the demo pair's ±500 mV line; with a
+    mixer whose Q path has 0.55 of I's gain, Q is played 1/0.55 larger and
+    the sum leaves the range: check refuses what compile would play."""
+    src = ('wait 10 ns\n'
+           "together { rot A x 180 deg duration=700 ns ; rot B x 180 deg duration=700 ns }\n")
+    check_file(write("ok.dotseq", f'device "{DEMO_PAIR}"\n' + src))
+    dev = _device(tmp_path, DEMO_PAIR, "if_band: [-250 MHz, 250 MHz]}",
+                  "if_band: [-250 MHz, 250 MHz], mixer: {gain_imbalance: 0.55}}")
+    with pytest.raises(CheckError) as info:
+        check_file(write("x.dotseq", f'device "{dev}"\n' + src))
+    assert "2 bursts played together on line 'mw'" in info.value.first.message

@@ -185,9 +185,14 @@ def summed_tone_problems(tl: Timeline, device: Device) -> list[Problem]:
                 amp = s.burst.amplitude * complex(
                     math.cos(phi + 2 * math.pi * f_if * s.start_sample * s.dt),
                     math.sin(phi + 2 * math.pi * f_if * s.start_sample * s.dt))
-                shape = analog.tone_burst(np.asarray(s.burst.envelope), f_if, s.dt, tau)
+                shape = analog.tone_shape(s.burst.envelope, f_if, s.dt, tau)
                 total[s.start_sample - a0:s.end_sample - a0] += amp * shape
-            parts = np.concatenate([total.real, total.imag])
+            mx = ch.mixer
+            if mx is not None and not mx.ideal:      # played pre-distorted (synthesis)
+                parts = np.concatenate(analog.mixer_predistort(
+                    total, mx.gain_imbalance, mx.phase_skew, mx.offset_i, mx.offset_q))
+            else:
+                parts = np.concatenate([total.real, total.imag])
             lo, hi = float(parts.min()), float(parts.max())
             if lo >= ch.v_min - q / 2 and hi <= top + q / 2:
                 continue
