@@ -327,8 +327,9 @@ def cmd_compile(args) -> int:
     print(f"outputs   {', '.join(wfs[0].outputs)}")
     for name, out in wfs[0].outputs.items():
         if out.kind != "marker":
-            lo = min(float(w.outputs[name].volts.min()) for w in wfs)
-            hi = max(float(w.outputs[name].volts.max()) for w in wfs)
+            ranges = [w.outputs[name].volt_range() for w in wfs]   # no full volts arrays
+            lo = min(r[0] for r in ranges)
+            hi = max(r[1] for r in ranges)
             print(f"  {name:<8} {lo * 1e3:9.3f} mV .. {hi * 1e3:9.3f} mV"
                   + (f"  (+ {out.dc_level * 1e3:.4g} mV DC through the bias tee)" if out.dc_level else ""))
     print(f"bundle    {path}  (manifest.json, checksums; about {human(need)} in memory)")

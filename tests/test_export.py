@@ -794,3 +794,22 @@ def test_hdf5_without_h5py_is_refused_before_writing(tmp_path, monkeypatch):
         write_bundle(runs3(), tmp_path / "h", source=SOURCE, hdf5=True)
     assert "dotseq[hdf5]" in str(ei.value)
     assert not (tmp_path / "h").exists() and leftovers(tmp_path) == []
+
+
+@pytest.mark.parametrize("kw", [dict(), dict(segments=True)], ids=["per-run", "segments"])
+def test_export_never_builds_a_full_volts_array(tmp_path, kw):
+    """Compiled outputs keep only their DAC codes; the writer derives volts a
+    piece at a time (the same arithmetic, so the same bytes) instead of
+    building and keeping a float64 array per output and run."""
+    from compiler import compile_file
+    from conftest import SEQUENCES
+    runs = compile_file(SEQUENCES / "ramsey_pair.dotseq").waveforms
+    derived = [(w, n) for w in runs for n, o in w.outputs.items()
+               if o.stored_volts is None and o.codes is not None]
+    assert derived
+    out = write_bundle(runs, tmp_path / "b", source=SOURCE, **kw)
+    assert all("volts" not in w.outputs[n].__dict__ for w, n in derived)
+    b = read_bundle(out)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].tobytes() == np.asarray(o.volts).tobytes()

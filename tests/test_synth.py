@@ -419,3 +419,18 @@ def test_range_is_checked_after_mixer_correction():
     with pytest.raises(SynthesisError, match="output 'mwA.Q' would need"):
         build("rot A y 180 deg amplitude=450 mV\n", dev)
     build("rot A y 180 deg amplitude=350 mV\n", dev)
+
+
+def test_volt_range_is_the_volts_extremes_without_building_them():
+    """dotseq compile prints each output's range: taken from the codes (one
+    pass over int codes) it is exactly volts.min()/max(), and the float64
+    volts array is not built."""
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    _, wf = build("rot A x 90 deg\nsqrtswap A B\nrot B y 45 deg\n", dev)
+    for name, o in wf.outputs.items():
+        if o.kind == "marker":
+            continue
+        fresh = type(o)(**{f: getattr(o, f) for f in o.__dataclass_fields__})
+        lo, hi = fresh.volt_range()
+        assert "volts" not in fresh.__dict__ or o.stored_volts is not None
+        assert (lo, hi) == (float(o.volts.min()), float(o.volts.max())), name

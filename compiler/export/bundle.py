@@ -29,6 +29,8 @@ from .segments import SEGMENTS_FOLDER, TABLE_DTYPE, TABLE_FOLDER, piece_volts, r
 
 # ---------------------------------------------------------------- writing
 
+VOLTS_CHUNK = 1 << 19      # samples of volts derived and written at a time
+
 def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapping,
                  csv: bool = False, stacked: bool = False, overwrite: bool = True,
                  segments: bool = False, raw: bool = False, hdf5: bool = False) -> Path:
@@ -148,8 +150,12 @@ def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
         (tmp / folder).mkdir()
         if not (plan.stacked or plan.segments):
             for name, o in w.outputs.items():
-                put(f"{folder}/{output_file(name)}",
-                    write_npy(tmp / folder / output_file(name), o.volts, VOLTS_DTYPE))
+                # volts derived from the codes a chunk at a time (no full array)
+                n = int(w.n_samples)
+                put(f"{folder}/{output_file(name)}", write_npy_pieces(
+                    tmp / folder / output_file(name),
+                    (piece_volts(o, i, min(i + VOLTS_CHUNK, n)) for i in range(0, n, VOLTS_CHUNK)),
+                    n, VOLTS_DTYPE))
                 if o.codes is not None:
                     put(f"{folder}/{codes_file(name)}",
                         write_npy(tmp / folder / codes_file(name), o.codes, CODES_DTYPE))

@@ -98,7 +98,16 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
         problems.append(at(where, f"output name {key!r} cannot be used as a file name",
                            "use letters, digits and _ . + - (not starting with '.', "
                            f"not ending in '{CODES_SUFFIX}', at most 100 characters)"))
-    v = np.asarray(o.volts)
+    derived = (o.stored_volts is None and o.codes is not None and "volts" not in o.__dict__
+               and o.marks is None)
+    if derived:
+        # volts = code·LSB + v_min: finite with finite lsb and v_min (checked
+        # below) and as long as the codes (checked below); not built here
+        v = np.asarray(o.codes)
+    elif o.stored_volts is None and o.codes is None and o.marks is not None:
+        v = np.asarray(o.marks)        # a marker kept as 0/1 bytes
+    else:
+        v = np.asarray(o.volts)
     if v.ndim != 1 or v.shape[0] != w.n_samples:
         problems.append(at(where, f"volts has shape {v.shape}, expected ({w.n_samples},)",
                            "every output of a run holds n_samples samples"))
@@ -122,7 +131,7 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
             problems.append(at(where, f"codes have dtype {c.dtype}, expected int32"))
         elif c.size and (int(c.min()) < -2**31 or int(c.max()) > 2**31 - 1):
             problems.append(at(where, "codes do not fit in int32"))
-    for label, x in (("dc_level", o.dc_level), ("lsb", o.lsb)):
+    for label, x in (("dc_level", o.dc_level), ("lsb", o.lsb), ("v_min", o.v_min)):
         if not isinstance(x, (int, float, np.integer, np.floating)) or not math.isfinite(x):
             problems.append(at(where, f"{label} is {x!r}, expected a finite number of volts"))
 

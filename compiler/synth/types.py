@@ -59,6 +59,20 @@ class Output:
     def ideal(self) -> np.ndarray:
         return self.stored_ideal if self.stored_ideal is not None else self.volts
 
+    def volt_range(self) -> tuple[float, float]:
+        """Lowest and highest volts (V) of the output, the same numbers as
+        ``volts.min()``, ``volts.max()``, without building the volts array
+        when only codes are kept (v = code·LSB + v_min rises with the code)."""
+        if self.stored_volts is not None or self.codes is None or "volts" in self.__dict__:
+            v = self.volts
+            return (float(v.min()), float(v.max())) if len(v) else (0.0, 0.0)
+        if not len(self.codes):
+            return 0.0, 0.0
+        ends = np.array([self.codes.min(), self.codes.max()])
+        v = np.multiply(ends, self.lsb, dtype=float)
+        v += self.v_min
+        return float(v[0]), float(v[1])
+
     def arrived(self, values: np.ndarray | None = None) -> np.ndarray:
         """The samples (``values``, default :attr:`volts`) on the timeline's
         grid: advanced by :attr:`shift` (the alignment of the channels'
