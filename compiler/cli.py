@@ -240,6 +240,9 @@ def _common(p) -> None:
     p.add_argument("--device", help="device description (YAML) to use instead of the file's own")
     p.add_argument("--predistort", action="store_true", help="pre-distort gate outputs for their "
                    "bias tee's droop")
+    p.add_argument("--no-mixer-correction", action="store_true", help="play I/Q as for an ideal "
+                   "mixer even where the device gives a mixer calibration (what-if: the "
+                   "uncorrected mixer and its image tone)")
     p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
                    "(default: half the memory available)")
     p.add_argument("--confine", action="store_true", help=CONFINE_HELP)
@@ -271,7 +274,8 @@ def _memory_limit(args) -> int:
 
 
 def _options(args) -> CompileOptions:
-    return CompileOptions(predistort=bool(args.predistort))
+    return CompileOptions(predistort=bool(args.predistort),
+                          mixer_correction=not getattr(args, "no_mixer_correction", False))
 
 
 def _synthesised(args, checked=None, runs: list[int] | None = None):
@@ -299,7 +303,8 @@ def _source(args, compiled) -> dict:
             files[label] = ""
     return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
             "dotseq_version": __version__, "sha256": files,
-            "predistort_bias_tee": bool(args.predistort)}
+            "predistort_bias_tee": bool(args.predistort),
+            "mixer_correction": not args.no_mixer_correction}
 
 
 def cmd_compile(args) -> int:
