@@ -179,6 +179,7 @@ def generator_memory_problems(run, n_timeline: int, device) -> list:
     (``Device.padded_samples``: delays, min_length, granularity).  Empty
     when every channel fits or no memory is given."""
     from .errors import Problem, read_source_line
+    from .units import FREQUENCY, TIME, format_quantity
     n = device.padded_samples(n_timeline)
     out = []
     for name, ch in device.channels.items():
@@ -188,7 +189,8 @@ def generator_memory_problems(run, n_timeline: int, device) -> list:
             fs = ch.sample_rate
             out.append(Problem(
                 f"{label} needs {n:,} samples on channel '{name}' "
-                f"({n / fs * 1e6:.6g} us at {fs / 1e6:g} MS/s), above its memory of "
+                f"({format_quantity(n / fs, TIME)} at "
+                f"{format_quantity(fs, FREQUENCY).replace('Hz', 'S/s')}), above its memory of "
                 f"{ch.memory:,} samples (channels.{name}.memory) by {n - ch.memory:,}",
                 ch.span, "shorten the run (fewer or shorter waits and readouts), split the "
                 "sweep into shorter runs, or give the generator's real memory",

@@ -270,3 +270,21 @@ def test_run_beyond_a_channels_memory_is_refused_with_the_numbers(command, tmp_p
     assert f"{dev}:6:3: error:" in err
     assert not (tmp_path / "b").exists()
     no_traceback(err)
+
+
+def test_sweep_points_beyond_a_channels_memory_are_refused(tmp_path, capsys):
+    """The sweep checks every point up front: the points whose run does not
+    fit are named, nothing is written."""
+    dev = tmp_path / "dev.yaml"
+    dev.write_text(device_text(P_A=("bits: 16", "bits: 16, memory: 600")), encoding="utf-8")
+    seq = tmp_path / "s.dotseq"
+    seq.write_text('device "dev.yaml"\nlet tau = 100 ns\nrot A x 90 deg\nwait tau on A\n',
+                   encoding="utf-8")
+    code = main(["sweep", str(seq), "--vary", "tau=100ns,700ns", "-o", str(tmp_path / "w"),
+                 "--workers", "1", "--quiet", "--nodes", "1"])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "on channel 'P_A'" in err and "above its memory of 600 samples" in err
+    assert "tau = 700 ns" in err and "tau = 100 ns" not in err
+    assert not (tmp_path / "w").exists()
+    no_traceback(err)
