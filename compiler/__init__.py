@@ -154,11 +154,15 @@ def _raise_collected(cap: ProblemCap, classes: list) -> None:
 
 def check_timelines(timelines, device: Device) -> None:
     """Checks of the scheduled runs against the device: the peak of tones
-    summed on one line (raises CheckError naming the group)."""
+    summed on one line (raises CheckError naming the group) and each
+    channel's waveform memory (naming the run, the channel and the
+    samples)."""
     from .errors import CheckError
+    from .limits import generator_memory_problems
     problems: dict = {}
     for tl in timelines:
-        for p in summed_tone_problems(tl, device):
+        for p in summed_tone_problems(tl, device) + generator_memory_problems(
+                tl.run, tl.n_samples, device):
             problems.setdefault((p.message, p.span), p)
     if problems:
         raise CheckError(list(problems.values()))
@@ -191,7 +195,7 @@ def compile_run(run, device: Device, options: CompileOptions = CompileOptions(),
                             exchange_zeeman=options.exchange_zeeman,
                             record_frames=options.frame_log_steps)
     wf = synthesize(timeline, dev, predistort=options.predistort, per_dot=options.per_dot,
-                    keep_ideal=options.keep_ideal)
+                    keep_ideal=options.keep_ideal, mixer_correction=options.mixer_correction)
     return CompiledRun(index, run, dev, timeline, wf, options)
 
 
@@ -210,7 +214,8 @@ def render_part(base: CompiledRun, slots: tuple, frames: dict) -> Waveforms:
     frames (per-step fidelities simulate each step alone)."""
     tl = base.timeline
     sub = Timeline(base.run, tuple(slots), tl.n_samples, tl.dt, frames)
-    return synthesize(sub, base.device, predistort=base.options.predistort, per_dot=True)
+    return synthesize(sub, base.device, predistort=base.options.predistort, per_dot=True,
+                      mixer_correction=base.options.mixer_correction)
 
 
 RECOMPILER = Recompiler(recompile, render_part)

@@ -20,6 +20,7 @@ numerical integration: within sample k, y(t) = x_k + (y_k − x_k)·e^{−(t−t
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -222,6 +223,16 @@ def tone_burst(envelope: np.ndarray, if_freq: float, dt: float, tau: float) -> n
     return x
 
 
+@lru_cache(maxsize=4096)
+def tone_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.ndarray:
+    """:func:`tone_burst` of an envelope given as a tuple, cached and
+    read-only: repeated bursts (the same envelope on the same line) share one
+    array in the scheduler's quantisation check and in synthesis."""
+    x = tone_burst(np.asarray(envelope, dtype=float), if_freq, dt, tau)
+    x.setflags(write=False)
+    return x
+
+
 def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: float,
                             start: int, dt: float, tau: float, v_min: float, v_max: float,
                             bits: int) -> tuple[float, bool]:
@@ -242,8 +253,9 @@ def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: f
     bound = (q / math.sqrt(2)) * n / (amplitude * float(np.abs(e).sum()))
     if bound < 1e-3:
         return bound, False
-    x = amplitude * np.exp(1j * (phase + 2 * math.pi * if_freq * start * dt)) * tone_burst(
-        e, if_freq, dt, tau)
+    shape = (tone_shape(envelope, if_freq, dt, tau) if isinstance(envelope, tuple)
+             else tone_burst(e, if_freq, dt, tau))
+    x = amplitude * np.exp(1j * (phase + 2 * math.pi * if_freq * start * dt)) * shape
     def rq(v):
         return np.rint((v - v_min) / q) * q + v_min
     zero = complex(rq(np.zeros(1))[0], rq(np.zeros(1))[0])
@@ -251,3 +263,53 @@ def burst_quantisation_loss(envelope, amplitude: float, phase: float, if_freq: f
     ratio = complex(np.vdot(x, played) / np.vdot(x, x))
     nothing = bool(np.all(played == 0))
     return abs(1 - ratio), nothing
+
+
+# ------------------------------------------------------------- I/Q mixer
+#
+# An I/Q mixer with Q's gain g relative to I, Q skewed by φ from quadrature
+# and DC offsets o_i, o_q at its inputs plays (model of
+# compiler.device.model.Mixer; common practice, no source)
+#
+#     c_eff = (I + o_i) + i·g·e^{iφ}·(Q + o_q),   V(t) = Re[c_eff·e^{iωt}].
+#
+# Written with c = I + iQ, the uncorrected mixer gives
+# c_eff = ½(1 + g·e^{iφ})·c + ½(1 − g·e^{iφ})·c* (+ the offsets): the c*
+# part is the image, a tone at LO − IF for a tone c ∝ e^{i2π·IF·t}.
+
+
+def mixer_output(i: np.ndarray, q: np.ndarray, gain: float = 1.0, skew: float = 0.0,
+                 offset_i: float = 0.0, offset_q: float = 0.0) -> np.ndarray:
+    """Complex baseband (V) the mixer turns into RF from the voltages ``i``,
+    ``q`` at its inputs: (i + offset_i) + i·g·e^{iφ}·(q + offset_q)."""
+    return (np.asarray(i, dtype=float) + offset_i) + (1j * gain * complex(
+        math.cos(skew), math.sin(skew))) * (np.asarray(q, dtype=float) + offset_q)
+
+
+def mixer_predistort(c, gain: float = 1.0, skew: float = 0.0, offset_i: float = 0.0,
+                     offset_q: float = 0.0) -> tuple:
+    """The I and Q (V) to play so that the mixer outputs the complex baseband
+    ``c``: the inverse of :func:`mixer_output`,
+
+        Q = Im c / (g·cos φ) − o_q,   I = Re c + tan φ·Im c − o_i.
+
+    Parameters
+    ----------
+    c : complex array, V
+        The intended baseband I + iQ of an ideal mixer.
+    gain, skew : float (ratio, rad)
+        Q's gain over I's and the skew from quadrature (|φ| < π/2).
+    offset_i, offset_q : float, V
+        The mixer's input offsets.
+    """
+    c = np.asarray(c)
+    re_c, im_c = np.real(c), np.imag(c)
+    return (re_c + math.tan(skew) * im_c - offset_i,
+            im_c * (1.0 / (gain * math.cos(skew))) - offset_q)
+
+
+def image_ratio(gain: float, skew: float) -> float:
+    """Amplitude of the image over the wanted sideband of an uncorrected
+    mixer: |1 − g·e^{iφ}| / |1 + g·e^{iφ}| (0 for an ideal mixer)."""
+    z = gain * complex(math.cos(skew), math.sin(skew))
+    return abs(1 - z) / abs(1 + z)

@@ -53,13 +53,24 @@ def build_parser() -> argparse.ArgumentParser:
     k = _command(sub, "compile", "compile a sequence into the sample arrays each channel plays, "
                  "written as a bundle folder",
                  "Check, schedule and synthesise every run of a sequence and write a bundle folder: "
-                 "one .npy per output (volts and DAC codes), a JSON manifest with the step "
-                 "timeline, frames and checksums (docs/bundle.md). The folder is written "
-                 "atomically.", out="bundle folder to write (replaced if it holds an earlier bundle)")
+                 "the volts and DAC codes of every output (.npy, each distinct stretch stored once "
+                 "unless --full), a JSON manifest with the step timeline, frames and checksums "
+                 "(docs/bundle.md). The folder is written atomically.",
+                 out="bundle folder to write (replaced if it holds an earlier bundle)")
     _common(k)
     k.add_argument("--csv", action="store_true", help="also write samples.csv per run")
-    k.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
-                   "output (shorter runs padded at the end, recorded in the manifest)")
+    k.add_argument("--hdf5", action="store_true", help="also write bundle.h5: a dataset per run "
+                   "and output with units, sample rate, codes scaling and checksums (needs h5py: "
+                   "pip install 'dotseq[hdf5]')")
+    k.add_argument("--raw", action="store_true", help="also write raw/run_NNNN/NAME.i32: the DAC "
+                   "codes as little-endian int32 without header (markers .u8), the scaling in "
+                   "the manifest")
+    lay = k.add_mutually_exclusive_group()
+    lay.add_argument("--stack", action="store_true", help="stack the runs of a sweep in one array per "
+                     "output (shorter runs padded at the end, recorded in the manifest)")
+    lay.add_argument("--full", action="store_true", help="one full array per run and output "
+                     "(default: every distinct stretch stored once in segments/, each run a "
+                     "table of references; docs/bundle.md)")
     k.add_argument("--json", action="store_true", help=JSON_HELP)
 
     v = _command(sub, "preview", "draw what the generators will play (PNG, SVG or PDF)",
@@ -239,6 +250,9 @@ def _common(p) -> None:
     p.add_argument("--device", help=DEVICE_HELP)
     p.add_argument("--predistort", action="store_true", help="pre-distort gate outputs for their "
                    "bias tee's droop")
+    p.add_argument("--no-mixer-correction", action="store_true", help="play I/Q as for an ideal "
+                   "mixer even where the device gives a mixer calibration (what-if: the "
+                   "uncorrected mixer and its image tone)")
     p.add_argument("--memory-limit", help="refuse to compile above this estimated memory, e.g. 2GiB "
                    "(default: half the memory available)")
     p.add_argument("--confine", action="store_true", help=CONFINE_HELP)
@@ -270,7 +284,8 @@ def _memory_limit(args) -> int:
 
 
 def _options(args) -> CompileOptions:
-    return CompileOptions(predistort=bool(args.predistort))
+    return CompileOptions(predistort=bool(args.predistort),
+                          mixer_correction=not getattr(args, "no_mixer_correction", False))
 
 
 def _synthesised(args, checked=None, runs: list[int] | None = None):
@@ -298,14 +313,17 @@ def _source(args, compiled) -> dict:
             files[label] = ""
     return {"sequence": str(args.file), "device": str(dev.path), "device_name": dev.name,
             "dotseq_version": __version__, "sha256": files,
-            "predistort_bias_tee": bool(args.predistort)}
+            "predistort_bias_tee": bool(args.predistort),
+            "mixer_correction": not args.no_mixer_correction}
 
 
 def cmd_compile(args) -> int:
     from .export import write_bundle
     compiled, need = _synthesised(args)
     path = write_bundle(compiled.waveforms, args.out, source=_source(args, compiled),
-                        csv=args.csv, stacked=args.stack)
+                        csv=args.csv, stacked=args.stack,
+                        segments=not (args.stack or args.full), raw=args.raw,
+                        hdf5=args.hdf5)
     wfs = compiled.waveforms
     warnings = sorted(merged([r.timeline.warnings for r in compiled.runs]))
     if args.json:
@@ -324,8 +342,9 @@ def cmd_compile(args) -> int:
     print(f"outputs   {', '.join(wfs[0].outputs)}")
     for name, out in wfs[0].outputs.items():
         if out.kind != "marker":
-            lo = min(float(w.outputs[name].volts.min()) for w in wfs)
-            hi = max(float(w.outputs[name].volts.max()) for w in wfs)
+            ranges = [w.outputs[name].volt_range() for w in wfs]   # no full volts arrays
+            lo = min(r[0] for r in ranges)
+            hi = max(r[1] for r in ranges)
             print(f"  {name:<8} {lo * 1e3:9.3f} mV .. {hi * 1e3:9.3f} mV"
                   + (f"  (+ {out.dc_level * 1e3:.4g} mV DC through the bias tee)" if out.dc_level else ""))
     print(f"bundle    {path}  (manifest.json, checksums; about {human(need)} in memory)")
@@ -425,7 +444,8 @@ def cmd_run(args) -> int:
     lo = {name: c.lo for name, c in checked.device.channels.items() if c.kind == "iq"}
 
     def fill(tmp):
-        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled))
+        write_bundle(compiled.waveforms, tmp / "bundle", source=_source(args, compiled),
+                     segments=True)
         preview(compiled.waveforms[k], tmp / "preview.png",
                 title=f"{args.file} (run {k}) on {checked.device.name}", lo=lo)
         write_report(result, tmp / "report")

@@ -170,3 +170,29 @@ class Budget:
 def budget(memory_limit: int | None = None) -> Budget:
     """The budget for ``memory_limit`` bytes (default: :func:`default_limit`)."""
     return Budget(default_limit() if memory_limit is None else int(memory_limit))
+
+
+def generator_memory_problems(run, n_timeline: int, device) -> list:
+    """A :class:`~compiler.errors.Problem` for every channel whose waveform
+    memory (``channels.NAME.memory``, samples) cannot hold this run: its
+    ``n_timeline`` samples padded as synthesis will pad them
+    (``Device.padded_samples``: delays, min_length, granularity).  Empty
+    when every channel fits or no memory is given."""
+    from .errors import Problem, read_source_line
+    from .units import FREQUENCY, TIME, format_quantity
+    n = device.padded_samples(n_timeline)
+    out = []
+    for name, ch in device.channels.items():
+        if ch.memory and n > ch.memory:
+            point = run.sweep_text() if run.sweep else ""
+            label = f"run {run.index}" + (f" ({point})" if point else "")
+            fs = ch.sample_rate
+            out.append(Problem(
+                f"{label} needs {n:,} samples on channel '{name}' "
+                f"({format_quantity(n / fs, TIME)} at "
+                f"{format_quantity(fs, FREQUENCY).replace('Hz', 'S/s')}), above its memory of "
+                f"{ch.memory:,} samples (channels.{name}.memory) by {n - ch.memory:,}",
+                ch.span, "shorten the run (fewer or shorter waits and readouts), split the "
+                "sweep into shorter runs, or give the generator's real memory",
+                read_source_line(ch.span.file, ch.span.line) if ch.span else ""))
+    return out

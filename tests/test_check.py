@@ -123,3 +123,47 @@ def test_summed_tones_within_the_range_pass(write):
     p = write("x.dotseq", f'device "{DEMO_PAIR}"\n'
               "together { rot A x 90 deg ; rot B x 90 deg }\n")
     check_file(p)
+
+
+def test_image_frequency_on_another_dot_is_a_warning(write, tmp_path):
+    """The bundled pair with the LO halfway between the two Larmor
+    frequencies: the image of A's burst, LO − IF_A = 2·LO − f_A, lands on B
+    (common practice, no source: an I/Q mixer's image is the tone mirrored
+    about the LO)."""
+    from compiler.physics import larmor_frequency
+    f_a, f_b = larmor_frequency(2.0, 0.5), larmor_frequency(2.02, 0.5)
+    lo = (f_a + f_b) / 2
+    dev = _device(tmp_path, DEFAULT, "lo: 14.05 GHz", f"lo: {lo:.0f} Hz")
+    s = check_file(write("x.dotseq", f'device "{dev}"\nrot A x 180 deg\nrot B x 180 deg\n'))
+    w = [x for x in s.warnings if "image of this" in x]
+    assert len(w) == 2, s.warnings
+    assert "x.dotseq:2:1" in w[0] and "burst on A" in w[0] and "from B on line 'mw'" in w[0]
+    assert "no mixer calibration" in w[0]
+    # with a calibration the warning says how strong the uncorrected image would be
+    text = dev.read_text().replace("if_band: [-300 MHz, 300 MHz]",
+                                   "if_band: [-300 MHz, 300 MHz], mixer: {gain_imbalance: 1.06, "
+                                   "phase_skew: 4 deg}", 1)
+    dev.write_text(text)
+    s = check_file(write("y.dotseq", f'device "{dev}"\nrot A x 180 deg\n'))
+    w = [x for x in s.warnings if "image of this" in x]
+    assert len(w) == 1 and "uncorrected it would be -27 dB below the tone" in w[0], s.warnings
+
+
+def test_no_image_warning_when_images_miss_the_dots(write):
+    # the bundled pair: A's image at 14.104 GHz, 32 MHz from B, against 4 MHz of width
+    s = check_file(write("x.dotseq", f'device "{DEFAULT}"\nrot A x 180 deg\nrot B x 180 deg\n'))
+    assert not any("image of this" in x for x in s.warnings), s.warnings
+
+
+def test_summed_tones_are_checked_after_mixer_correction(write, tmp_path):
+    """Two 700 ns π bursts together fit the demo pair's ±500 mV line; with a
+    mixer whose Q path has 0.55 of I's gain, Q is played 1/0.55 larger and
+    the sum leaves the range: check refuses what compile would play."""
+    src = ('wait 10 ns\n'
+           "together { rot A x 180 deg duration=700 ns ; rot B x 180 deg duration=700 ns }\n")
+    check_file(write("ok.dotseq", f'device "{DEMO_PAIR}"\n' + src))
+    dev = _device(tmp_path, DEMO_PAIR, "if_band: [-250 MHz, 250 MHz]}",
+                  "if_band: [-250 MHz, 250 MHz], mixer: {gain_imbalance: 0.55}}")
+    with pytest.raises(CheckError) as info:
+        check_file(write("x.dotseq", f'device "{dev}"\n' + src))
+    assert "2 bursts played together on line 'mw'" in info.value.first.message

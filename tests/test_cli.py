@@ -112,6 +112,30 @@ def test_compile_writes_a_verified_bundle(tmp_path):
     assert "sqrtswap" in kinds and "read" in kinds
 
 
+@pytest.mark.parametrize("flags", [[], ["--full"], ["--stack"]], ids=["segments", "full", "stack"])
+def test_compile_layouts_and_the_mixer_correction_flag(tmp_path, flags, capsys):
+    """dotseq compile writes segments by default (--full: per-run arrays);
+    with a mixer calibration the I output carries −offset_i, and
+    --no-mixer-correction plays the uncorrected 0 V (issue 19)."""
+    from compiler.export import read_bundle
+    dev = (SEQUENCES / "devices" / "demo_single.yaml").read_text(encoding="utf-8")
+    dev = dev.replace("if_band: [-250 MHz, 250 MHz]}",
+                      "if_band: [-250 MHz, 250 MHz], mixer: {offset_i: 5 mV}}")
+    (tmp_path / "d.yaml").write_text(dev, encoding="utf-8")
+    seq = tmp_path / "s.dotseq"
+    seq.write_text('device "d.yaml"\nrot A x 90 deg\nread A\n', encoding="utf-8")
+    for extra, want in (([], -0.005), (["--no-mixer-correction"], 0.0)):
+        out = tmp_path / ("b" + "".join(extra))
+        assert main(["compile", str(seq), "-o", str(out)] + flags + extra) == 0
+        b = read_bundle(out)
+        m = b["manifest"]
+        assert m["layout"] == {"--full": "per-run", "--stack": "stacked"}.get(
+            (flags or [""])[0], "segments")
+        assert m["source"]["mixer_correction"] is (not extra)
+        assert b["runs"][0]["volts"]["mw.I"][-1] == pytest.approx(want, abs=1e-4)
+    capsys.readouterr()
+
+
 def test_compile_twice_is_byte_identical(tmp_path):
     for d in ("a", "b"):
         code, _, err = dotseq("compile", "sequences/ramsey_pair.dotseq", "-o", tmp_path / d, "--stack")

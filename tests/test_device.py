@@ -415,6 +415,51 @@ BAD = [
                  "dots.A.drive.rabi_per_volt needs a unit", 10, 38, id="unitless_rabi"),
     pytest.param(edited(l1='name: !!python/object:os.system "echo"'),
                  "could not determine a constructor for the tag", 1, 7, id="python_tag"),
+    # generator memory, delays and the I/Q mixer (issue 19)
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "memory: 64 MB}"), "channels.P_A.memory must be a number of samples",
+                 25, 80, id="memory_in_bytes"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "memory: 1.5}"), "must be a whole number of samples", 25, 80,
+                 id="memory_fraction"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "memory: 0}"), "channels.P_A.memory must be from 1 to", 25, 80,
+                 id="memory_zero"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "memory: 10, min_length: 64}"), "is below the channel's min_length",
+                 25, 80, id="memory_below_min_length"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "delay: -3 ns}"), "channels.P_A.delay must not be negative", 25, 79,
+                 id="negative_delay"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "delay: 20 V}"), "channels.P_A.delay", 25, 79, id="delay_not_a_time"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "delay: 1 s}"), "above 16,777,216", 25, 79, id="delay_too_long"),
+    pytest.param(edited(l25="  P_A: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], "
+                            "mixer: {gain_imbalance: 1.1}}"),
+                 "channels.P_A.mixer applies only to channels of kind iq", 25, 72,
+                 id="mixer_on_gate"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: {gain_imbalance: -1}}"),
+                 "channels.mw.mixer.gain_imbalance must be greater than zero", 24, 144,
+                 id="mixer_negative_gain"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: {phase_skew: 95 deg}}"),
+                 "channels.mw.mixer.phase_skew = 95 deg is not within ±90°", 24, 140,
+                 id="mixer_skew_beyond_90"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: {phase_skew: 2 mV}}"),
+                 "channels.mw.mixer.phase_skew", 24, 140, id="mixer_skew_not_an_angle"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: {offset_i: 3 V}}"),
+                 "channels.mw.mixer.offset_i = 3 V is larger than the channel's whole range",
+                 24, 138, id="mixer_offset_too_big"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: {gain: 1.02}}"),
+                 "unknown key 'gain' in channels.mw.mixer", 24, 128, id="mixer_unknown_key"),
+    pytest.param(edited(l24='  mw: {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz], '
+                        "mixer: 1.02}"),
+                 "channels.mw.mixer must be a mapping", 24, 127, id="mixer_not_a_mapping"),
 ]
 
 

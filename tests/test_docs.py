@@ -3,7 +3,7 @@
 The fenced blocks marked ```python test in docs/*.md are extracted and run,
 each in a fresh namespace, in a temporary folder that holds a copy of
 sequences/ and the outputs the recipes read, made by the real commands:
-a bundle (dotseq compile), a report (dotseq simulate) and a sweep table
+a bundle (dotseq compile, also with --raw --hdf5), a report (dotseq simulate) and a sweep table
 (dotseq sweep).  A block marked ```python without 'test' is refused, so a
 new recipe cannot go untested.
 """
@@ -46,6 +46,7 @@ def outputs(tmp_path_factory):
     try:
         seq = "sequences/ramsey_single.dotseq"
         assert main(["compile", seq, "-o", "out/ramsey"]) == 0
+        assert main(["compile", seq, "-o", "out/ramsey-formats", "--raw", "--hdf5"]) == 0
         assert main(["simulate", seq, "-o", "out/ramsey-sim", "--no-budget"]) == 0
         assert main(["sweep", seq, "--vary", "A.t2_star=2us,5us", "--set", "tau=1us",
                      "-o", "out/ramsey-t2star", "--workers", "1", "--quiet", "--nodes", "3"]) == 0

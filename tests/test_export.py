@@ -7,6 +7,7 @@ The waveforms here are synthetic, built by hand; no physics is checked.
 from __future__ import annotations
 
 import errno
+import hashlib
 import io
 import json
 import os
@@ -129,7 +130,7 @@ def test_manifest_contents(tmp_path):
     m = json.loads(text)
     # deterministic JSON: sorted keys, indent 2, trailing newline
     assert text == json.dumps(m, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
-    assert m["format"] == FORMAT_NAME == "dotseq-bundle" and m["format_version"] == FORMAT_VERSION == 2
+    assert m["format"] == FORMAT_NAME == "dotseq-bundle" and m["format_version"] == FORMAT_VERSION == 3
     assert m["layout"] == "per-run"
     assert m["source"] == SOURCE
     assert m["sample_rate_Hz"] == 1e9
@@ -178,8 +179,10 @@ def test_npy_writer_matches_numpy_save(tmp_path):
 
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
-                                dict(stacked=True, csv=True)],
-                         ids=["per-run", "csv", "stacked", "stacked-csv"])
+                                dict(stacked=True, csv=True), dict(segments=True),
+                                dict(segments=True, csv=True), dict(segments=True, raw=True)],
+                         ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
+                              "segments-csv", "segments-raw"])
 def test_same_input_gives_byte_identical_bundle(tmp_path, kw):
     runs = runs3((200, 150, 180) if kw.get("stacked") else (200, 200, 200))
     a = write_bundle(runs, tmp_path / "a", source=SOURCE, **kw)
@@ -566,8 +569,10 @@ def test_killed_export_leaves_previous_bundle_intact(tmp_path):
 # ---------------------------------------------------------------- sizes
 
 @pytest.mark.parametrize("kw", [dict(), dict(csv=True), dict(stacked=True),
-                                dict(stacked=True, csv=True)],
-                         ids=["per-run", "csv", "stacked", "stacked-csv"])
+                                dict(stacked=True, csv=True), dict(segments=True),
+                                dict(segments=True, csv=True), dict(segments=True, raw=True)],
+                         ids=["per-run", "csv", "stacked", "stacked-csv", "segments",
+                              "segments-csv", "segments-raw"])
 def test_estimate_is_an_upper_bound_close_to_the_real_size(tmp_path, kw):
     runs = runs3((200, 150, 180))
     est = estimate_bundle_bytes(runs, source=SOURCE, **kw)
@@ -597,8 +602,9 @@ def test_estimate_npy_part_is_exact():
 
 # ---------------------------------------------------------------- streamed manifest
 
-@pytest.mark.parametrize("stacked", [False, True], ids=["per-run", "stacked"])
-def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
+@pytest.mark.parametrize("stacked, segments", [(False, False), (True, False), (False, True)],
+                         ids=["per-run", "stacked", "segments"])
+def test_streamed_manifest_is_the_same_text(stacked, segments, monkeypatch):
     """The manifest is written one timeline entry at a time (a run of a
     million steps must not be held as dicts and text); the bytes are the
     same as encoding the whole manifest at once, chunk boundaries included."""
@@ -610,7 +616,7 @@ def test_streamed_manifest_is_the_same_text(stacked, monkeypatch):
     many = make_run(2, 200)
     many = Waveforms(**{**{f: getattr(many, f) for f in many.__dataclass_fields__},
                         "steps": many.steps * 40})
-    plan = mf.check_runs([make_run(0, 200), empty, many], stacked=stacked)
+    plan = mf.check_runs([make_run(0, 200), empty, many], stacked=stacked, segments=segments)
     sizes = bundle_mod._file_sizes(plan, True)
     sums = {rel: f"{i:064x}" for i, rel in enumerate(sizes)}
     whole = mf.dumps(mf.build(plan, SOURCE, sums, sizes, True))
@@ -639,3 +645,171 @@ def test_manifest_formatter_matches_the_json_encoder(value, indent):
                                                 ensure_ascii=False, allow_nan=False)
     # nested one level down: the same text as the encoder writes inside a dict
     assert '{\n  "k": ' + format_json(value, 2) + "\n}" == expected
+
+
+# ---------------------------------------------------------------- segments (issue 19)
+
+def test_segments_round_trip_is_bit_identical_and_shares_stretches(tmp_path):
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "s", source=SOURCE, segments=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["layout"] == "segments"
+    assert sorted(p.name for p in out.iterdir()) == ["manifest.json", "segments"]
+    b = read_bundle(out)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].dtype == np.float64
+            assert r["volts"][name].tobytes() == np.asarray(o.volts, np.float64).tobytes()
+            if o.codes is not None:
+                assert r["codes"][name].tobytes() == np.asarray(o.codes, np.int32).tobytes()
+    # P_A is two constant stretches per run: stored as one sample each, and
+    # shared by every run that plays the same level (here 0 V before 150 ns)
+    seg = m["segments"]["P_A"]
+    pool = np.load(out / seg["file"])
+    assert seg["samples"] == len(pool) == 1 + 2       # 0 V once, the levels of runs 0 and 2
+    table = np.load(out / seg["table_file"])
+    lo, hi = m["runs"][1]["outputs"]["P_A"]["table_rows"]
+    assert table[lo:hi].tolist() == [[0, 1, 150]]     # run 1 ends at 150: only 0 V
+    # the recipe of docs/bundle.md, without dotseq
+    e = m["runs"][2]["outputs"]["mw.I"]
+    pool = np.load(out / e["file"])
+    tab = np.load(out / e["table_file"])
+    a, z = e["table_rows"]
+    v = np.concatenate([np.tile(pool[o:o + n], r) for o, n, r in tab[a:z]])
+    assert v.tobytes() == runs[2].outputs["mw.I"].volts.tobytes()
+
+
+def test_segments_refuse_stacking_and_damaged_tables(tmp_path):
+    with pytest.raises(BundleError, match="either stacked or stored as segments"):
+        write_bundle(runs3(), tmp_path / "x", source=SOURCE, segments=True, stacked=True)
+    out = write_bundle(runs3(), tmp_path / "s", source=SOURCE, segments=True)
+    t = out / "segments" / "table" / "mw.I.npy"
+    data = bytearray(t.read_bytes())
+    data[-1] ^= 1
+    t.write_bytes(bytes(data))
+    with pytest.raises(BundleError, match="checksum") as ei:
+        read_bundle(out)
+    assert "mw.I.npy" in str(ei.value)
+
+
+def test_rebuild_refuses_tables_that_do_not_fit():
+    from compiler.export import rebuild_segments
+    pool = np.array([0.0, 1.0, 2.0])
+    assert rebuild_segments(pool, [[0, 1, 2], [1, 2, 2]], 6).tolist() == [0, 0, 1, 2, 1, 2]
+    with pytest.raises(ValueError, match="give 6 samples"):
+        rebuild_segments(pool, [[0, 1, 2], [1, 2, 2]], 7)
+    with pytest.raises(ValueError, match="outside the pool"):
+        rebuild_segments(pool, [[2, 2, 1]], 2)
+
+
+def test_segments_of_a_compiled_sweep_rebuild_bit_identically_and_are_small(tmp_path):
+    """Every run of a compiled sweep (Ramsey, 5 waits) rebuilt from the
+    segment layout is byte for byte the compiled arrays, and the shared
+    readout and idle windows are stored once: the bundle is a small part of
+    the full one; writing twice gives the same bytes."""
+    from compiler import compile_file
+    from conftest import SEQUENCES
+    runs = compile_file(SEQUENCES / "ramsey_single.dotseq").waveforms
+    assert len(runs) == 5
+    seg = write_bundle(runs, tmp_path / "seg", source=SOURCE, segments=True)
+    full = write_bundle(runs, tmp_path / "full", source=SOURCE)
+    b = read_bundle(seg)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].tobytes() == np.asarray(o.volts).tobytes(), name
+            if o.codes is not None:
+                assert r["codes"][name].tobytes() == np.asarray(o.codes, np.int32).tobytes()
+    size = lambda d: sum(len(x) for x in all_files(d).values())  # noqa: E731
+    assert size(seg) < 0.1 * size(full)
+    again = write_bundle(compile_file(SEQUENCES / "ramsey_single.dotseq").waveforms,
+                         tmp_path / "again", source=SOURCE, segments=True)
+    assert all_files(again) == all_files(seg)
+
+
+# ---------------------------------------------------------------- raw and HDF5 (issue 19, item 4)
+
+def test_raw_code_files_decode_to_the_volts_bit_for_bit(tmp_path):
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "r", source=SOURCE, segments=True, raw=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["raw"]["byte_order"] == "little" and m["raw"]["header_bytes"] == 0
+    for w, r in zip(runs, m["runs"]):
+        for name, o in w.outputs.items():
+            e = r["outputs"][name]
+            data = (out / e["raw_file"]).read_bytes()
+            assert m["files"][e["raw_file"]]["sha256"] == hashlib.sha256(data).hexdigest()
+            if o.codes is None:
+                assert e["raw_dtype"] == "uint8" and e["raw_file"].endswith(".u8")
+                v = np.frombuffer(data, dtype="u1").astype(float)
+            else:
+                codes = np.frombuffer(data, dtype="<i4")
+                assert codes.tobytes() == np.asarray(o.codes, "<i4").tobytes()
+                v = e["raw_offset_V"] + codes * e["raw_scale_V"]
+            assert v.tobytes() == np.asarray(o.volts, np.float64).tobytes(), name
+    read_bundle(out)                    # the raw files are checksummed with the rest
+
+
+def test_hdf5_holds_every_run_and_output_with_units_scaling_and_checksums(tmp_path):
+    h5py = pytest.importorskip("h5py")
+    runs = runs3((200, 150, 180))
+    out = write_bundle(runs, tmp_path / "h", source=SOURCE, segments=True, hdf5=True)
+    m = json.loads((out / "manifest.json").read_text(encoding="utf-8"))
+    assert m["hdf5"] == {"file": "bundle.h5"} and "bundle.h5" in m["files"]
+    with h5py.File(out / "bundle.h5", "r") as f:
+        assert f.attrs["sample_rate_Hz"] == 1e9 and f.attrs["n_runs"] == 3
+        assert list(f) == ["run_0000", "run_0001", "run_0002"]
+        for w in runs:
+            g = f[f"run_{w.run_index:04d}"]
+            assert g.attrs["n_samples"] == w.n_samples
+            for name, o in w.outputs.items():
+                d = g[name]
+                assert d.dtype == np.float64 and d.attrs["unit"] == ("0 or 1" if o.codes is None
+                                                                     else "V")
+                assert d[()].tobytes() == np.asarray(o.volts, np.float64).tobytes()
+                assert d.attrs["sha256"] == hashlib.sha256(d[()].astype("<f8").tobytes()
+                                                           ).hexdigest()
+                if o.codes is not None:
+                    c = g[f"{name}.codes"]
+                    v = c.attrs["offset_V"] + c[()] * c.attrs["scale_V"]
+                    assert v.tobytes() == np.asarray(o.volts, np.float64).tobytes()
+    # the same waveforms give the same bytes (no timestamps)
+    again = write_bundle(runs3((200, 150, 180)), tmp_path / "h2", source=SOURCE, segments=True,
+                         hdf5=True)
+    assert (again / "bundle.h5").read_bytes() == (out / "bundle.h5").read_bytes()
+    est = estimate_bundle_bytes(runs, source=SOURCE, segments=True, hdf5=True)
+    assert sum(len(b) for b in all_files(out).values()) <= est
+
+
+def test_hdf5_without_h5py_is_refused_before_writing(tmp_path, monkeypatch):
+    import builtins
+    real = builtins.__import__
+
+    def no_h5py(name, *a, **k):
+        if name == "h5py":
+            raise ImportError("no h5py")
+        return real(name, *a, **k)
+
+    monkeypatch.setattr(builtins, "__import__", no_h5py)
+    with pytest.raises(BundleError, match="needs the h5py package") as ei:
+        write_bundle(runs3(), tmp_path / "h", source=SOURCE, hdf5=True)
+    assert "dotseq[hdf5]" in str(ei.value)
+    assert not (tmp_path / "h").exists() and leftovers(tmp_path) == []
+
+
+@pytest.mark.parametrize("kw", [dict(), dict(segments=True)], ids=["per-run", "segments"])
+def test_export_never_builds_a_full_volts_array(tmp_path, kw):
+    """Compiled outputs keep only their DAC codes; the writer derives volts a
+    piece at a time (the same arithmetic, so the same bytes) instead of
+    building and keeping a float64 array per output and run."""
+    from compiler import compile_file
+    from conftest import SEQUENCES
+    runs = compile_file(SEQUENCES / "ramsey_pair.dotseq").waveforms
+    derived = [(w, n) for w in runs for n, o in w.outputs.items()
+               if o.stored_volts is None and o.codes is not None]
+    assert derived
+    out = write_bundle(runs, tmp_path / "b", source=SOURCE, **kw)
+    assert all("volts" not in w.outputs[n].__dict__ for w, n in derived)
+    b = read_bundle(out)
+    for w, r in zip(runs, b["runs"]):
+        for name, o in w.outputs.items():
+            assert r["volts"][name].tobytes() == np.asarray(o.volts).tobytes()

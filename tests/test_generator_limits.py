@@ -231,3 +231,60 @@ def test_every_command_counts_the_padding(command, out, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2 and "(10000000 samples x 4 outputs)" in err, err
     assert not (tmp_path / out).exists()
+
+
+# ---------------------------------------------------------------- waveform memory (issue 19)
+
+@pytest.mark.parametrize("text, samples", [("1000", 1000), ("64 MS", 64_000_000),
+                                           ("2 GS", 2_000_000_000), ("32 MiS", 32 * 2 ** 20),
+                                           ("1.5 kS", 1500), ("4e6", 4_000_000)])
+def test_memory_is_read_in_samples(text, samples):
+    dev = load_device_text(device_text(P_A=("bits: 16", f"bits: 16, memory: {text}")), "d.yaml")
+    assert dev.channels["P_A"].memory == samples
+    assert dev.channels["mw"].memory == 0          # not given: not limited
+
+
+@pytest.mark.parametrize("command", ["check", "compile"])
+def test_run_beyond_a_channels_memory_is_refused_with_the_numbers(command, tmp_path, capsys):
+    """A sweep whose longest run does not fit the plunger's 600-sample memory:
+    refused before anything is synthesised or written, naming the run, its
+    sweep point, the channel and both sample counts, at the channel in the
+    device file."""
+    dev = tmp_path / "dev.yaml"
+    dev.write_text(device_text(P_A=("bits: 16", "bits: 16, memory: 600")), encoding="utf-8")
+    seq = tmp_path / "s.dotseq"
+    seq.write_text('device "dev.yaml"\nsweep tau over [100 ns, 700 ns]\nrot A x 90 deg\n'
+                   'wait tau on A\n', encoding="utf-8")
+    args = [command, str(seq)] + (["-o", str(tmp_path / "b")] if command == "compile" else [])
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    free = tmp_path / "free.yaml"
+    free.write_text(device_text(), encoding="utf-8")
+    c = load(seq, free)
+    n = c.device.padded_samples(c.timelines[1].n_samples)
+    assert c.device.padded_samples(c.timelines[0].n_samples) <= 600 < n
+    assert f"run 1 (tau = 700 ns) needs {n:,} samples on channel 'P_A'" in err, err
+    assert f"by {n - 600:,}" in err
+    assert "above its memory of 600 samples (channels.P_A.memory)" in err
+    assert "run 0" not in err
+    assert f"{dev}:6:3: error:" in err
+    assert not (tmp_path / "b").exists()
+    no_traceback(err)
+
+
+def test_sweep_points_beyond_a_channels_memory_are_refused(tmp_path, capsys):
+    """The sweep checks every point up front: the points whose run does not
+    fit are named, nothing is written."""
+    dev = tmp_path / "dev.yaml"
+    dev.write_text(device_text(P_A=("bits: 16", "bits: 16, memory: 600")), encoding="utf-8")
+    seq = tmp_path / "s.dotseq"
+    seq.write_text('device "dev.yaml"\nlet tau = 100 ns\nrot A x 90 deg\nwait tau on A\n',
+                   encoding="utf-8")
+    code = main(["sweep", str(seq), "--vary", "tau=100ns,700ns", "-o", str(tmp_path / "w"),
+                 "--workers", "1", "--quiet", "--nodes", "1"])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "on channel 'P_A'" in err and "above its memory of 600 samples" in err
+    assert "tau = 700 ns" in err and "tau = 100 ns" not in err
+    assert not (tmp_path / "w").exists()
+    no_traceback(err)

@@ -349,6 +349,20 @@ def test_figure_contents(wf):
     assert "decimated" not in text
 
 
+def test_spectrum_marks_the_image_frequencies(wf):
+    """An I/Q mixer's image of a tone at LO + IF is at LO − IF (common
+    practice, no source): the dotted marks sit at 2·LO − f_L of each dot."""
+    from compiler.preview import build_figure
+    fig = build_figure(wf, resolve_window(wf), lo={"mw": LO})
+    ax = next(a for a in fig.axes if "spectrum" in a.get_title(loc="left"))
+    labels = {t.get_text().strip(): t.get_position()[0] for t in ax.texts}
+    xs = sorted(line.get_xdata()[0] for line in ax.lines
+                if len(line.get_xdata()) == 2 and line.get_linewidth() == 0.8)
+    want = sorted((2 * LO - f) / 1e9 for f in wf.larmor.values())
+    assert "image of A" in labels and "image of B" in labels
+    assert xs == pytest.approx(want)
+
+
 def test_no_lo_gives_an_if_axis(wf):
     from compiler.preview import build_figure
     text = _all_text(build_figure(wf, resolve_window(wf)))

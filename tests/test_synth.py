@@ -276,3 +276,161 @@ def test_bias_tee_droop_and_predistortion():
     height = plain[0] - slot.exchange.idle
     assert droop_plain / height == pytest.approx(2e-6 / 20e-6, rel=0.1)
     assert droop_pre < droop_plain / 100
+
+
+# ------------------------------------------------------------- delays and the I/Q mixer (issue 19)
+
+def _ribbon_with(**keys: str):
+    """The demo ribbon with extra keys on some channel lines: P_B="delay: 37 ns"."""
+    text = (SEQUENCES / "devices" / "demo_ribbon.yaml").read_text(encoding="utf-8")
+    lines = text.splitlines()
+    for name, extra in keys.items():
+        i = next(i for i, line in enumerate(lines) if line.lstrip().startswith(f"{name}:")
+                 and "kind:" in line)
+        lines[i] = lines[i].replace("{kind:", f"{{{extra}, kind:", 1)
+    return load_device_text("\n".join(lines) + "\n", "ribbon.yaml")
+
+
+def _active(a: np.ndarray) -> tuple[int, int]:
+    """First and one-past-last sample that differ from the first sample."""
+    k = np.flatnonzero(a != a[0])
+    return int(k[0]), int(k[-1]) + 1
+
+
+def test_delays_make_exchange_pulse_and_plunger_detuning_arrive_together():
+    """The A-C exchange across dot B needs B's plunger offset while the
+    barrier S_AC is pulsed.  With 37 ns of cable on P_B, 5 ns on S_AC and
+    12 ns on the microwave line, the outputs are shifted so that both arrive
+    at the sample together: generator sample j of a channel arrives at
+    j + its delay (common practice, no source)."""
+    src = "rot A x 90 deg\nsqrtswap A C\nread A C\n"
+    plain = _ribbon_with()
+    dev = _ribbon_with(P_B="delay: 37 ns", S_AC="delay: 5 ns", mw="delay: 12 ns")
+    assert dev.shifts["P_B"] == 0 and dev.shifts["S_AC"] == 32 and dev.shifts["mw"] == 25
+    assert dev.shifts["P_A"] == 37 and dev.alignment == 37
+    tl0, wf0 = build(src, plain)
+    tl, wf = build(src, dev)
+    # what arrives at the sample at t + 37 ns (the slowest path) is what the
+    # timeline put at t, on every output: sample t + 37 − delay of the array
+    n = tl.n_samples
+    for name, o in wf.outputs.items():
+        d = dev.channels[o.channel].delay_samples
+        arrived = np.asarray(o.volts)[37 - d:37 - d + n]
+        np.testing.assert_array_equal(arrived, np.asarray(wf0.outputs[name].volts)[:n], name)
+    # so the barrier pulse arrives inside the plunger's detuning window
+    d_b, d_p = dev.channels["S_AC"].delay_samples, dev.channels["P_B"].delay_samples
+    b0, b1 = _active(wf.outputs["S_AC"].codes)
+    p0, p1 = _active(wf.outputs["P_B"].codes)
+    assert p0 + d_p <= b0 + d_b and b1 + d_b <= p1 + d_p
+    # played straight, without the shifts, it would not: 32 ns early on the
+    # barrier's 5 ns cable against the plunger's 37 ns
+    q0, q1 = _active(wf0.outputs["S_AC"].codes)
+    r0, r1 = _active(wf0.outputs["P_B"].codes)
+    assert q0 + d_b < r0 + d_p
+    # the arrays grow by the alignment, padded to the granularity; pad says why
+    assert wf.n_samples == dev.padded_samples(tl.n_samples) >= tl.n_samples + 37
+    assert "delays" in wf.steps[-1].params["reason"]
+    # the simulator sees what arrives: as_played undoes the shift
+    np.testing.assert_array_equal(as_played(wf, dev, "S_AC")[:tl.n_samples],
+                                  as_played(wf0, plain, "S_AC")[:tl.n_samples])
+
+
+def test_manifest_records_delays_and_shifts(tmp_path):
+    from compiler.export import read_bundle, write_bundle
+    dev = _ribbon_with(P_B="delay: 37 ns", S_AC="delay: 5 ns")
+    _, wf = build("sqrtswap A C\n", dev)
+    m = read_bundle(write_bundle([wf], tmp_path / "b", source={}, segments=True))["manifest"]
+    assert m["delays_s"]["P_B"] == 37e-9 and m["delays_s"]["S_AC"] == 5e-9
+    assert m["delays_s"]["P_A"] == 0.0
+    out = m["runs"][0]["outputs"]
+    assert (out["P_B"]["shift_samples"], out["S_AC"]["shift_samples"],
+            out["mw.Q"]["shift_samples"]) == (0, 32, 37)
+
+
+def test_delay_off_the_sample_grid_is_a_warning_with_the_residual():
+    dev = _ribbon_with(P_B="delay: 37.4 ns")
+    w = [p for p in dev.warnings if "channels.P_B.delay" in p.message]
+    assert w and "applied as 37" in w[0].message and "400 ps" in w[0].message
+    assert dev.channels["P_B"].delay_samples == 37
+
+
+MIXER = dict(gain=1.06, skew=math.radians(4.0), oi=0.006, oq=-0.004)
+MIXER_KEY = "mixer: {gain_imbalance: 1.06, phase_skew: 4 deg, offset_i: 6 mV, offset_q: -4 mV}"
+
+
+def _tone_powers(c: np.ndarray, f_if: float, fs: float = 1e9) -> tuple[float, float, float]:
+    """Amplitudes of c at +IF (wanted), −IF (image) and 0 (LO leakage), by
+    projection on each tone over a whole number of periods."""
+    t = np.arange(len(c)) / fs
+    amp = lambda f: abs(np.mean(c * np.exp(-2j * np.pi * f * t)))  # noqa: E731
+    return amp(f_if), amp(-f_if), amp(0.0)
+
+
+@pytest.mark.parametrize("correct", [True, False], ids=["pre-distorted", "uncorrected"])
+def test_mixer_predistortion_suppresses_the_image_beyond_60_dB(correct):
+    """A 2 us square burst at IF = +50 MHz through the mixer model
+    (analog.mixer_output, gain 1.06, skew 4°, offsets 6 and −4 mV): the
+    pre-distorted I/Q leave the image more than 60 dB below the tone, and no
+    LO leakage beyond the DAC's resolution (calibrated mixers: common
+    practice, no source).  Uncorrected, the image is what the model says:
+    |1 − g·e^{iφ}|/|1 + g·e^{iφ}| of the tone (about −27 dB here)."""
+    from compiler import CompileOptions, compile_run
+    f_a = 2.0 * 9.2740100783e-24 * 0.5 / 6.62607015e-34
+    dev = load_device_text(device_text(lo_a=f"{f_a - 50e6:.0f} Hz", extra_mw=", " + MIXER_KEY),
+                           "mixer.yaml")
+    assert dev.channels["mwA"].mixer.gain_imbalance == 1.06
+    ex = expand(parse_text("rot A x 180 deg duration=2 us\n", "t.dotseq"))
+    check(ex, dev)
+    wf = compile_run(ex.runs[0], dev, CompileOptions(mixer_correction=correct)).waveforms
+    f_if = dev.larmor("A") - dev.channels["mwA"].lo
+    i, q = wf.outputs["mwA.I"].volts[:2000], wf.outputs["mwA.Q"].volts[:2000]
+    c = analog.mixer_output(i, q, MIXER["gain"], MIXER["skew"], MIXER["oi"], MIXER["oq"])
+    tone, image, leak = _tone_powers(c, f_if)
+    if correct:
+        assert 20 * math.log10(image / tone) < -60
+        assert leak < 2 * dev.channels["mwA"].v_max / 2 ** 16      # within an LSB of 0
+        # the offsets are cancelled outside the burst too
+        assert wf.outputs["mwA.I"].volts[-1] == pytest.approx(-MIXER["oi"], abs=1e-4)
+    else:
+        expect = analog.image_ratio(MIXER["gain"], MIXER["skew"])
+        assert image / tone == pytest.approx(expect, rel=0.01)
+        # the same written out: |1 − g e^{iφ}|² = 1 + g² − 2g·cos φ
+        g, phi = MIXER["gain"], MIXER["skew"]
+        assert expect == pytest.approx(math.sqrt((1 + g * g - 2 * g * math.cos(phi))
+                                                 / (1 + g * g + 2 * g * math.cos(phi))))
+        assert 20 * math.log10(expect) == pytest.approx(-26.8, abs=0.1)
+
+
+def test_mixer_predistortion_inverts_the_model_exactly():
+    rng = np.random.default_rng(3)
+    c = rng.normal(size=50) + 1j * rng.normal(size=50)
+    i, q = analog.mixer_predistort(c, 0.93, math.radians(-7), 0.01, 0.02)
+    np.testing.assert_allclose(analog.mixer_output(i, q, 0.93, math.radians(-7), 0.01, 0.02), c,
+                               rtol=0, atol=1e-12)
+    assert analog.image_ratio(1.0, 0.0) == 0.0
+
+
+def test_range_is_checked_after_mixer_correction():
+    """Q is played 1/(g·cos φ) larger: a burst that fits an ideal mixer can
+    leave the range once corrected, and is refused naming the output."""
+    f_a = 2.0 * 9.2740100783e-24 * 0.5 / 6.62607015e-34
+    text = device_text(lo_a=f"{f_a:.0f} Hz", extra_mw=", mixer: {gain_imbalance: 0.8}")
+    dev = load_device_text(text, "mixer.yaml")
+    with pytest.raises(SynthesisError, match="output 'mwA.Q' would need"):
+        build("rot A y 180 deg amplitude=450 mV\n", dev)
+    build("rot A y 180 deg amplitude=350 mV\n", dev)
+
+
+def test_volt_range_is_the_volts_extremes_without_building_them():
+    """dotseq compile prints each output's range: taken from the codes (one
+    pass over int codes) it is exactly volts.min()/max(), and the float64
+    volts array is not built."""
+    dev = load_device(SEQUENCES / "devices" / "demo_pair.yaml")
+    _, wf = build("rot A x 90 deg\nsqrtswap A B\nrot B y 45 deg\n", dev)
+    for name, o in wf.outputs.items():
+        if o.kind == "marker":
+            continue
+        fresh = type(o)(**{f: getattr(o, f) for f in o.__dataclass_fields__})
+        lo, hi = fresh.volt_range()
+        assert "volts" not in fresh.__dict__ or o.stored_volts is not None
+        assert (lo, hi) == (float(o.volts.min()), float(o.volts.max())), name

@@ -13,6 +13,11 @@ anything is simulated (`dotseq check`, `compile`, the sweep plan).
   Larmor frequencies differ by less than the spectral width of the
   shortest burst on that line (1 / its length) cannot be addressed
   separately: a warning.
+* Images: an I/Q mixer that is not perfectly balanced also plays each
+  burst's mirror image at LO − IF; when that lands within the burst's
+  spectral width (1 / its length) of a dot on the line, a warning (the
+  ``mixer`` calibration of the line pre-distorts the image away as far as
+  it holds; :mod:`compiler.analog`).
 * Summed tones: bursts on one line that overlap in time add up
   (multi-tone); the peak of the I and Q sums must stay within the line's
   range.  This is the same sum synthesis plays (:mod:`compiler.synth.render`),
@@ -180,9 +185,14 @@ def summed_tone_problems(tl: Timeline, device: Device) -> list[Problem]:
                 amp = s.burst.amplitude * complex(
                     math.cos(phi + 2 * math.pi * f_if * s.start_sample * s.dt),
                     math.sin(phi + 2 * math.pi * f_if * s.start_sample * s.dt))
-                shape = analog.tone_burst(np.asarray(s.burst.envelope), f_if, s.dt, tau)
+                shape = analog.tone_shape(s.burst.envelope, f_if, s.dt, tau)
                 total[s.start_sample - a0:s.end_sample - a0] += amp * shape
-            parts = np.concatenate([total.real, total.imag])
+            mx = ch.mixer
+            if mx is not None and not mx.ideal:      # played pre-distorted (synthesis)
+                parts = np.concatenate(analog.mixer_predistort(
+                    total, mx.gain_imbalance, mx.phase_skew, mx.offset_i, mx.offset_q))
+            else:
+                parts = np.concatenate([total.real, total.imag])
             lo, hi = float(parts.min()), float(parts.max())
             if lo >= ch.v_min - q / 2 and hi <= top + q / 2:
                 continue
@@ -201,6 +211,55 @@ def summed_tone_problems(tl: Timeline, device: Device) -> list[Problem]:
     return problems
 
 
+def image_frequency(device: Device, dot: str) -> float:
+    """Where an I/Q mixer's image of a burst for ``dot`` lands (Hz): the
+    tone is at LO + IF, its image at LO − IF (IF = f_L − LO)."""
+    line = device.channels[device.dots[dot].drive.line]
+    return 2 * line.lo - device.larmor(dot)
+
+
+def image_warnings(tl: Timeline, device: Device) -> list[Warning_]:
+    """One warning per (statement, dot) whose burst's image frequency
+    LO − IF lies within the burst's spectral width (1 / its length) of a
+    dot on the same line: an imperfect mixer drives that dot there."""
+    out: dict[tuple, Warning_] = {}
+    for s in _bursts(tl):
+        q = s.qubits[0]
+        name = _line_of(s, device)
+        line = device.channels[name]
+        f_img = image_frequency(device, q)
+        width = 1.0 / s.duration
+        for o, dot in device.dots.items():
+            if dot.drive.line != name:
+                continue
+            df = abs(f_img - device.larmor(o))
+            if df >= width:
+                continue
+            sev = 1.0 - df / width
+            key = (s.span, o)
+            if key in out and out[key].severity >= sev:
+                continue
+            mx = line.mixer
+            if mx is not None and not mx.ideal:
+                ratio = analog.image_ratio(mx.gain_imbalance, mx.phase_skew)
+                how = (f"the calibration in channels.{name}.mixer pre-distorts it away as far "
+                       f"as it holds (uncorrected it would be "
+                       f"{20 * math.log10(ratio) if ratio > 0 else -math.inf:.0f} dB below "
+                       "the tone)")
+            else:
+                how = (f"line '{name}' has no mixer calibration (channels.{name}.mixer), so "
+                       "its strength is whatever the mixer's imbalance makes it")
+            who = "itself" if o == q else o
+            out[key] = Warning_(
+                f"the image of this {_what(s)} at LO − IF = {fq(f_img, FREQUENCY, 7)} lies "
+                f"{fq(df, FREQUENCY)} from {who} on line '{name}', within the burst's "
+                f"spectral width {fq(width, FREQUENCY)}; {how}: move the LO so that no dot "
+                "sits at LO − IF, or calibrate the mixer",
+                s.span, s.via, f"image:{s.span}:{o}", sev)
+    return list(out.values())
+
+
 def line_warnings(tl: Timeline, device: Device) -> list[Warning_]:
     """Every warning of this module for one timeline."""
-    return crosstalk_warnings(tl, device) + near_equal_warnings(tl, device)
+    return (crosstalk_warnings(tl, device) + near_equal_warnings(tl, device)
+            + image_warnings(tl, device))

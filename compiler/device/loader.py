@@ -35,8 +35,9 @@ from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PE
                      parse_quantity)
 from . import exchange as xch
 from . import levels as lv
-from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MIN_LENGTH, Channel, Coupling, Device, Dot,
-                    Drive, ExchangeModel, Readout, RotationDefaults, granularity_of)
+from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MEMORY, MAX_MIN_LENGTH, Channel, Coupling,
+                    Device, Dot, Drive, ExchangeModel, Mixer, Readout, RotationDefaults,
+                    granularity_of)
 from .presets import PRESETS
 from .rules import ERROR, validate
 
@@ -52,13 +53,21 @@ DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt", "direction")
 
 CHANNEL_KINDS = ("iq", "gate", "marker")
 CHANNEL_KEYS = ("kind", "sample_rate", "bits", "range", "rise_time", "bandwidth",
-                "min_length", "granularity", "bias_tee", "lo", "if_band")
+                "min_length", "granularity", "bias_tee", "lo", "if_band", "memory", "delay",
+                "mixer")
 CHANNEL_REQUIRED = {
     "iq": ("sample_rate", "bits", "range", "lo", "if_band"),
     "gate": ("sample_rate", "bits", "range"),
     "marker": ("sample_rate",),
 }
-CHANNEL_ONLY = {"lo": ("iq",), "if_band": ("iq",), "bias_tee": ("iq", "gate")}
+CHANNEL_ONLY = {"lo": ("iq",), "if_band": ("iq",), "bias_tee": ("iq", "gate"),
+                "mixer": ("iq",)}
+MIXER_KEYS = ("gain_imbalance", "phase_skew", "offset_i", "offset_q")
+# a sample count: a whole number, or with a unit S and an optional prefix
+# (k, M, G: powers of 1000; Ki, Mi, Gi: powers of 1024)
+_SAMPLES_RE = re.compile(r"\s*(\d+(?:\.\d*)?(?:[eE]\+?\d+)?)\s*(?:(k|M|G|Ki|Mi|Gi)?S)?\s*\Z")
+_SAMPLES_SCALE = {None: 1, "k": 10 ** 3, "M": 10 ** 6, "G": 10 ** 9, "Ki": 2 ** 10,
+                  "Mi": 2 ** 20, "Gi": 2 ** 30}
 
 COUPLING_KEYS = ("dots", "barrier", "exchange", "idle_voltage", "pulse_voltage",
                  "charge_noise", "detune", "barrier_noise")
@@ -90,7 +99,11 @@ KEY_EXAMPLES = {
     "j0": "j0: 20 kHz", "v0": "v0: 40 mV", "t0": "t0: 2 ueV", "vt": "vt: 150 mV", "u": "u: 1 meV",
     "points": "points: [[0 mV, 10 kHz], [100 mV, 200 kHz]]",
     "at_1hz": "at_1hz: 1e6 Hz^2/Hz", "exponent": "exponent: 1",
+    "memory": "memory: 64 MS", "delay": "delay: 12 ns",
+    "mixer": "mixer: {gain_imbalance: 1.02, phase_skew: 1.5 deg, offset_i: 3 mV, offset_q: -2 mV}",
 }
+MEMORY_HINT = ("give the generator's waveform memory per channel in samples, a whole number "
+               "like 16000000 or with a unit: '64 MS' (10^6 samples), '32 MiS' (2^20)")
 
 _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*\Z")
 
@@ -311,6 +324,29 @@ class _Reader:
                             f" and '{node.value[1].value}'", f"e.g. [-{ex}, {ex}]")
         return _Val(a, node.value[0]), _Val(b, node.value[1])
 
+    def samples(self, node: Node, path: str) -> int:
+        """A number of samples: a whole number, or '64 MS', '2 GS', '32 MiS'."""
+        value = self.scalar(node, path, "64 MS")
+        if isinstance(value, bool):
+            self.fail(node, f"{path} must be a number of samples, got '{node.value}'",
+                      MEMORY_HINT)
+        if isinstance(value, (int, float)):
+            x = value
+        else:
+            mt = _SAMPLES_RE.match(str(value))
+            if not mt:
+                self.fail(node, f"{path} must be a number of samples, got '{node.value}'",
+                          MEMORY_HINT)
+            x = float(mt.group(1)) * _SAMPLES_SCALE[mt.group(2)]
+        if not (math.isfinite(x) and float(x).is_integer()):
+            self.fail(node, f"{path} must be a whole number of samples, got '{node.value}'",
+                      MEMORY_HINT)
+        n = int(x)
+        if not 1 <= n <= MAX_MEMORY:
+            self.fail(node, f"{path} must be from 1 to {MAX_MEMORY:,} samples, got {n:,}",
+                      MEMORY_HINT)
+        return n
+
     def get(self, m: dict[str, tuple[Node, Node]], key: str, fn, *args, **kw):
         """Read m[key] with ``fn(value_node, *args)``; None when absent or bad."""
         if key not in m:
@@ -385,6 +421,10 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
                 bare_zero=True)
     lo = r.get(m, "lo", r.quantity, f"{path}.lo", FREQUENCY, positive=True)
     band = r.get(m, "if_band", r.pair, f"{path}.if_band", FREQUENCY, True)
+    memory = r.get(m, "memory", r.samples, f"{path}.memory")
+    delay = r.get(m, "delay", r.quantity, f"{path}.delay", TIME, nonnegative=True,
+                  bare_zero=True)
+    mixer = r.get(m, "mixer", _read_mixer, r, f"{path}.mixer")
     if fs is not None and band is not None:
         edge = max(abs(band.value[0].value), abs(band.value[1].value))
         if not edge < fs.value / 2:
@@ -414,7 +454,27 @@ def _read_channel_values(r: _Reader, m, path: str, kind: str) -> dict | None:
         ch["lo"] = lo.value
     if band:
         ch["if_min"], ch["if_max"] = band.value[0].value, band.value[1].value
+    if memory:
+        ch["memory"] = memory.value
+    if delay:
+        ch["delay"] = delay.value
+    if mixer:
+        ch["mixer"] = mixer.value
     return ch
+
+
+def _read_mixer(node: Node, r: _Reader, path: str) -> Mixer:
+    """The I/Q mixer's calibration: every key optional, ideal by default."""
+    m = r.mapping(node, path, MIXER_KEYS, example=KEY_EXAMPLES["mixer"])
+    gain = r.get(m, "gain_imbalance", r.number, f"{path}.gain_imbalance", positive=True)
+    skew = r.get(m, "phase_skew", r.quantity, f"{path}.phase_skew", ANGLE, bare_zero=True)
+    oi = r.get(m, "offset_i", r.quantity, f"{path}.offset_i", VOLTAGE, bare_zero=True)
+    oq = r.get(m, "offset_q", r.quantity, f"{path}.offset_q", VOLTAGE, bare_zero=True)
+    if any(k in m and v is None for k, v in (("gain_imbalance", gain), ("phase_skew", skew),
+                                             ("offset_i", oi), ("offset_q", oq))):
+        raise _Skip
+    return Mixer(gain.value if gain else 1.0, skew.value if skew else 0.0,
+                 oi.value if oi else 0.0, oq.value if oq else 0.0, r.span(node))
 
 
 def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:

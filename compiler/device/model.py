@@ -28,6 +28,41 @@ MAX_BITS = 24
 # 2^24 + 2^16 samples a run (about 17 ms at 1 GS/s).
 MAX_MIN_LENGTH = 2 ** 24       # samples
 MAX_GRANULARITY = 2 ** 16      # samples, also for the common multiple of all channels
+# Waveform memories of generators hold from about 10^5 to a few 10^9 samples
+# per channel (common practice, no source); the bound only refuses nonsense.
+MAX_MEMORY = 2 ** 40           # samples
+# Cable and filter delays are nanoseconds to a few microseconds (common
+# practice, no source); the bound keeps the alignment padding bounded like
+# MAX_MIN_LENGTH.
+MAX_DELAY_SAMPLES = 2 ** 24    # samples
+
+
+@dataclass(frozen=True)
+class Mixer:
+    """The calibration of an I/Q line's mixer, as a lab measures it.
+
+    Model (common practice, no source): the mixer's I and Q inputs carry
+    their own DC offsets, its Q path has the gain ``gain_imbalance`` relative
+    to I and is ``phase_skew`` away from quadrature, so that with the
+    local oscillator at ω it plays
+
+        V(t) = (I + offset_i)·cos ωt − g·(Q + offset_q)·sin(ωt + φ)
+             = Re[((I + offset_i) + i·g·e^{iφ}·(Q + offset_q))·e^{iωt}].
+
+    An ideal mixer (g = 1, φ = 0, no offsets) plays Re[(I + iQ)·e^{iωt}].
+    :func:`compiler.analog.mixer_predistort` inverts the model.
+    """
+
+    gain_imbalance: float = 1.0    # Q's gain over I's (plain ratio)
+    phase_skew: float = 0.0        # rad, deviation of Q from 90° after I
+    offset_i: float = 0.0          # V, DC offset at the mixer's I input
+    offset_q: float = 0.0          # V, DC offset at the mixer's Q input
+    span: Span | None = None
+
+    @property
+    def ideal(self) -> bool:
+        return (self.gain_imbalance == 1.0 and self.phase_skew == 0.0
+                and self.offset_i == 0.0 and self.offset_q == 0.0)
 
 
 @dataclass(frozen=True)
@@ -115,6 +150,14 @@ class Channel:
     if_max: float = 0.0       # Hz   (iq, signed)
     bias_tee: float = 0.0     # s, high-pass time constant; 0 = DC coupled
     span: Span | None = None
+    memory: int = 0           # samples of waveform memory for one run; 0 = not limited
+    delay: float = 0.0        # s, cables and filters from the generator to the sample
+    mixer: Mixer | None = None  # iq: the mixer's calibration (None: an ideal mixer)
+
+    @property
+    def delay_samples(self) -> int:
+        """The delay on the sample grid: rounded to the nearest sample."""
+        return int(round(self.delay * self.sample_rate)) if self.delay > 0 else 0
 
     @property
     def bandwidth(self) -> float:
@@ -186,11 +229,26 @@ class Device:
         return granularity_of(c.granularity for c in self.channels.values())
 
     def padded_samples(self, n: int) -> int:
-        """Samples the generators play for a timeline of ``n`` samples: at
-        least ``min_length``, rounded up to a multiple of ``granularity``.
+        """Samples the generators play for a timeline of ``n`` samples: ``n``
+        plus the alignment of the channels' delays, at least ``min_length``,
+        rounded up to a multiple of ``granularity``.
         Every memory estimate before synthesis uses this length."""
         g = self.granularity
-        return -(-max(int(n), self.min_length) // g) * g
+        return -(-max(int(n) + self.alignment, self.min_length) // g) * g
+
+    @property
+    def shifts(self) -> dict[str, int]:
+        """Samples by which each channel's output is played later than the
+        timeline, so that every channel's pulses reach the sample together:
+        the largest delay minus the channel's own (0 for the slowest path)."""
+        d = {n: c.delay_samples for n, c in self.channels.items()}
+        top = max(d.values(), default=0)
+        return {n: top - v for n, v in d.items()}
+
+    @property
+    def alignment(self) -> int:
+        """Samples the outputs grow by for the delays (the largest shift)."""
+        return max(self.shifts.values(), default=0)
 
     def larmor(self, dot: str) -> float:
         """Larmor frequency of a dot (Hz)."""

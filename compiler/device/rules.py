@@ -23,10 +23,10 @@ import math
 from dataclasses import dataclass, replace
 
 from .. import physics
-from ..units import (FIELD, FREQ_PER_VOLT, FREQUENCY, TEMPERATURE, TIME, VOLTAGE,
+from ..units import (ANGLE, FIELD, FREQ_PER_VOLT, FREQUENCY, TEMPERATURE, TIME, VOLTAGE,
                      format_distinct, format_quantity)
 from .exchange import Hubbard
-from .model import Device
+from .model import MAX_DELAY_SAMPLES, Device
 
 ERROR, WARNING = "error", "warning"
 
@@ -34,6 +34,11 @@ IDLE_EXCHANGE_RATIO = 1e-2     # J(idle)/J(pulse) above this is worth a warning
 THERMAL_RATIO = 3.0            # h·f_L/(k_B·T) below this: weak spin polarisation
 RWA_RATIO = 0.1                # f_Rabi(full scale)/f_L above this: RWA doubtful
 HUBBARD_T_RATIO = 0.2          # t/(U − |ε|) above this: 4t²U/(U²−ε²) unreliable
+# A calibrated I/Q mixer is a few percent and a few degrees from ideal
+# (common practice, no source); far beyond is more likely a typing mistake.
+MIXER_GAIN_WARN = (0.5, 2.0)   # gain_imbalance outside this: warning
+MIXER_SKEW_WARN = math.radians(30.0)   # |phase_skew| above this: warning
+DELAY_ROUND_WARN = 0.1         # delay off the sample grid by more than this fraction: warning
 REL_TOL = 1e-12                # relative slack on the coherence-time orderings
 
 
@@ -95,6 +100,8 @@ def validate(device: Device) -> list[Finding]:
         add(Finding("temperature", "temperature", f"temperature = "
                     f"{_q(device.temperature, TEMPERATURE)} is not above zero",
                     "give a temperature above 0 K"))
+    for name, ch in device.channels.items():
+        _channel_rules(device, name, ch, add)
     for q, d in device.dots.items():
         _dot_rules(device, q, d, lambda f, q=q: add(replace(f, subject=q)))
     _rotation_rules(device, add)
@@ -102,6 +109,54 @@ def validate(device: Device) -> list[Finding]:
         _coupling_rules(device, i, c,
                         lambda f, c=c: add(replace(f, subject=f"{c.dots[0]}-{c.dots[1]}")))
     return out
+
+
+def _channel_rules(device: Device, name: str, ch, add) -> None:
+    """Memory, delay and mixer of one channel."""
+    p = f"channels.{name}"
+    if ch.memory and ch.memory < ch.min_length:
+        add(Finding(f"{p}.memory", "memory<min_length",
+                    f"{p}.memory = {ch.memory:,} samples is below the channel's min_length "
+                    f"{ch.min_length:,}", "give the generator's real waveform memory"))
+    if ch.delay > 0 and ch.sample_rate > 0:
+        exact = ch.delay * ch.sample_rate
+        if exact > MAX_DELAY_SAMPLES:
+            add(Finding(f"{p}.delay", "delay", f"{p}.delay = {_q(ch.delay, TIME)} is "
+                        f"{exact:,.0f} samples, above {MAX_DELAY_SAMPLES:,}",
+                        "cable and filter delays are nanoseconds to microseconds; check the unit"))
+        elif abs(exact - round(exact)) > DELAY_ROUND_WARN:
+            add(Finding(f"{p}.delay", "delay-grid",
+                        f"{p}.delay = {_q(ch.delay, TIME)} is {exact:.3g} samples; it is "
+                        f"applied as {round(exact)} (pulses meet within "
+                        f"{_q(abs(exact - round(exact)) / ch.sample_rate, TIME)})",
+                        "outputs are shifted by whole samples only", WARNING))
+    mx = ch.mixer
+    if mx is None:
+        return
+    if not abs(mx.phase_skew) < math.pi / 2:
+        add(Finding(f"{p}.mixer.phase_skew", "mixer.skew",
+                    f"{p}.mixer.phase_skew = {_q(mx.phase_skew, ANGLE)} is not within ±90°",
+                    "the skew is the deviation from 90° between I and Q: a few degrees",
+                    near=(f"{p}.mixer",)))
+    elif abs(mx.phase_skew) > MIXER_SKEW_WARN:
+        add(Finding(f"{p}.mixer.phase_skew", "mixer.skew-large",
+                    f"{p}.mixer.phase_skew = {_q(mx.phase_skew, ANGLE)} is far from a "
+                    "calibrated mixer's few degrees", "check the unit (deg or rad)", WARNING,
+                    near=(f"{p}.mixer",)))
+    if mx.gain_imbalance > 0 and not (MIXER_GAIN_WARN[0] <= mx.gain_imbalance
+                                      <= MIXER_GAIN_WARN[1]):
+        add(Finding(f"{p}.mixer.gain_imbalance", "mixer.gain-large",
+                    f"{p}.mixer.gain_imbalance = {mx.gain_imbalance:g} is far from a "
+                    "calibrated mixer's few percent",
+                    "it is Q's gain over I's, a ratio near 1 (not in dB)", WARNING,
+                    near=(f"{p}.mixer",)))
+    for key, off in (("offset_i", mx.offset_i), ("offset_q", mx.offset_q)):
+        if abs(off) > ch.v_max - ch.v_min:
+            add(Finding(f"{p}.mixer.{key}", f"mixer.{key}",
+                        f"{p}.mixer.{key} = {_q(off, VOLTAGE)} is larger than the channel's "
+                        f"whole range [{_q(ch.v_min, VOLTAGE)}, {_q(ch.v_max, VOLTAGE)}]",
+                        "the offsets a mixer needs are millivolts; check the unit",
+                        near=(f"{p}.mixer",)))
 
 
 def _dot_rules(device: Device, q: str, d, add) -> None:

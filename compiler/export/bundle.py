@@ -16,20 +16,24 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from ..synth.types import Waveforms
-from . import atomic
+from . import atomic, formats
 from .errors import BundleError, at, fail
 from .files import (CODES_DTYPE, VOLTS_DTYPE, Written, _HashingFile, checked_cast,
                     csv_bytes_bound, npy_bytes, sha256_file, write_csv, write_npy,
-                    write_npy_rows)
+                    write_npy_pieces, write_npy_rows)
 from .manifest import (ARRAYS_FOLDER, CSV_NAME, FORMAT_NAME, FORMAT_VERSION, MANIFEST_NAME, Plan,
                        build, check_runs, chunks, codes_file, output_file, pad_values,
-                       plain, run_folder)
+                       plain, run_folder, segment_files)
+from .segments import SEGMENTS_FOLDER, TABLE_DTYPE, TABLE_FOLDER, piece_volts, rebuild
 
 
 # ---------------------------------------------------------------- writing
 
+VOLTS_CHUNK = 1 << 19      # samples of volts derived and written at a time
+
 def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapping,
-                 csv: bool = False, stacked: bool = False, overwrite: bool = True) -> Path:
+                 csv: bool = False, stacked: bool = False, overwrite: bool = True,
+                 segments: bool = False, raw: bool = False, hdf5: bool = False) -> Path:
     """Write the waveforms of every run as a bundle folder, atomically.
 
     Parameters
@@ -51,6 +55,17 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
         with the output's last sample, recorded in the manifest.
     overwrite : bool, optional
         Replace an existing bundle at ``out_dir`` (default True).
+    segments : bool, optional
+        Store every distinct stretch of each output once (``segments/``)
+        and each run as a table of references to them, instead of one full
+        array per run and output; :func:`read_bundle` rebuilds the full
+        arrays bit for bit.  Not together with ``stacked``.
+    raw : bool, optional
+        Also write ``raw/run_NNNN/NAME.i32`` (codes, little-endian int32, no
+        header; markers ``NAME.u8``), the scaling in the manifest.
+    hdf5 : bool, optional
+        Also write ``bundle.h5`` (needs h5py): a dataset per run and output,
+        attributes for units, sample rate, codes scaling and checksums.
 
     Returns
     -------
@@ -76,7 +91,9 @@ def write_bundle(runs: Sequence[Waveforms], out_dir: str | Path, *, source: Mapp
     if not isinstance(source, Mapping):
         raise BundleError(at("<source>", f"source is a {type(source).__name__}, expected a dict",
                              "pass source={'sequence': ..., 'device': ..., ...}"))
-    plan = check_runs(runs, stacked=stacked)
+    plan = check_runs(runs, stacked=stacked, segments=segments, raw=raw, hdf5=hdf5)
+    if hdf5:
+        formats._h5py()       # refuse before anything is written when h5py is missing
     _check_manifest_values(plan, source)  # refuse unusable values before touching the disk
     target = atomic.resolve_target(out_dir)
     try:
@@ -109,6 +126,12 @@ def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
     def put(rel: str, w: Written) -> None:
         written[rel] = w
 
+    if plan.segments:
+        _write_segments(plan, tmp, put)
+    if plan.raw:
+        formats.write_raw(plan, tmp, put)
+    if plan.hdf5:
+        formats.write_hdf5(plan, tmp, put)
     if plan.stacked:
         (tmp / ARRAYS_FOLDER).mkdir()
         n_rows, width = len(plan.runs), plan.n_max
@@ -122,13 +145,17 @@ def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
                     _padded(plan.runs, name, width, codes=True), n_rows, width, CODES_DTYPE))
     for w in plan.runs:
         folder = run_folder(int(w.run_index))
-        if plan.stacked and not csv:
+        if (plan.stacked or plan.segments) and not csv:
             continue
         (tmp / folder).mkdir()
-        if not plan.stacked:
+        if not (plan.stacked or plan.segments):
             for name, o in w.outputs.items():
-                put(f"{folder}/{output_file(name)}",
-                    write_npy(tmp / folder / output_file(name), o.volts, VOLTS_DTYPE))
+                # volts derived from the codes a chunk at a time (no full array)
+                n = int(w.n_samples)
+                put(f"{folder}/{output_file(name)}", write_npy_pieces(
+                    tmp / folder / output_file(name),
+                    (piece_volts(o, i, min(i + VOLTS_CHUNK, n)) for i in range(0, n, VOLTS_CHUNK)),
+                    n, VOLTS_DTYPE))
                 if o.codes is not None:
                     put(f"{folder}/{codes_file(name)}",
                         write_npy(tmp / folder / codes_file(name), o.codes, CODES_DTYPE))
@@ -139,6 +166,30 @@ def _write_data(plan: Plan, tmp: Path, csv: bool) -> dict[str, Written]:
                 [w.outputs[n].volts for n in names], names,
                 [w.outputs[n].kind for n in names]))
     return written
+
+
+def _write_segments(plan: Plan, tmp: Path, put) -> None:
+    """The pools and tables of the segment layout, written piece by piece
+    straight from each run's codes (no full-length array is built)."""
+    (tmp / SEGMENTS_FOLDER).mkdir()
+    (tmp / TABLE_FOLDER).mkdir(parents=True)
+    for name, pool in plan.pools.items():
+        f_v, f_c, f_t = segment_files(name, pool.has_codes)
+
+        def volts_pieces(pool=pool, name=name):
+            for pos, a, b in pool.pieces:
+                yield piece_volts(plan.runs[pos].outputs[name], a, b)
+
+        def code_pieces(pool=pool, name=name):
+            for pos, a, b in pool.pieces:
+                yield plan.runs[pos].outputs[name].codes[a:b]
+
+        put(f_v, write_npy_pieces(tmp / f_v, volts_pieces(), pool.samples, VOLTS_DTYPE))
+        if f_c is not None:
+            put(f_c, write_npy_pieces(tmp / f_c, code_pieces(), pool.samples, CODES_DTYPE))
+        table = (np.concatenate(pool.tables) if pool.tables
+                 else np.zeros((0, 3), dtype=TABLE_DTYPE))
+        put(f_t, write_npy(tmp / f_t, table, TABLE_DTYPE))
 
 
 def _padded(runs: Sequence[Waveforms], name: str, width: int, *, codes: bool):
@@ -182,13 +233,14 @@ class RunSize:
 
 _MANIFEST_BASE = 2048      # bytes: top-level keys, units, source
 _MANIFEST_PER_RUN = 1024   # bytes: run keys, frames, Larmor frequencies
-_MANIFEST_PER_OUTPUT = 700  # bytes per output per run
+_MANIFEST_PER_OUTPUT = 900  # bytes per output per run
 _MANIFEST_PER_STEP = 900   # bytes per timeline entry
 
 
 def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = False,
                           stacked: bool = False, sample_rate: float = 1e9,
-                          source: Mapping | None = None) -> int:
+                          source: Mapping | None = None, segments: bool = False,
+                          raw: bool = False, hdf5: bool = False) -> int:
     """Bytes the bundle will take on disk (file contents, not file-system
     blocks), so a caller can refuse before writing.
 
@@ -196,8 +248,11 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
     ----------
     runs : sequence of Waveforms or RunSize
         The runs, or their sizes when the waveforms are not made yet.
-    csv, stacked : bool
-        As for :func:`write_bundle`.
+    csv, stacked, segments, raw, hdf5 : bool
+        As for :func:`write_bundle` (the HDF5 part is an upper bound: its
+        data uncompressed).  With ``segments`` and RunSize entries
+        the figure is an upper bound: every run's samples as if none were
+        shared, plus the largest tables the steps allow.
     sample_rate : float, Hz, optional
         Used only for :class:`RunSize` entries (the width of the CSV time
         column); Waveforms carry their own.
@@ -216,8 +271,8 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
     if not runs:
         return 0
     if all(isinstance(r, Waveforms) for r in runs):
-        return _estimate_waveforms(runs, csv, stacked, source or {})
-    total = _MANIFEST_BASE
+        return _estimate_waveforms(runs, csv, stacked, source or {}, segments, raw, hdf5)
+    total = _MANIFEST_BASE + (1 << 16 if hdf5 else 0)
     n_max = max(_n_samples(r) for r in runs)
     for r in runs:
         if isinstance(r, Waveforms):
@@ -237,6 +292,12 @@ def estimate_bundle_bytes(runs: Sequence[Waveforms | RunSize], *, csv: bool = Fa
         if not stacked:
             total += (n_an + n_mk) * npy_bytes((n,), VOLTS_DTYPE) + n_an * npy_bytes((n,),
                                                                                    CODES_DTYPE)
+        if raw:
+            total += n_an * 4 * n + n_mk * n
+        if hdf5:
+            total += int((n_an * 12 + n_mk * 8) * n * 1.02) + 8192 * (2 * n_an + n_mk) + 4096
+        if segments:      # table rows: at most one per piece between step boundaries
+            total += (n_an + n_mk) * ((2 * steps + 2) * TABLE_DTYPE.itemsize * 3 + 128)
         if csv:
             total += csv_bytes_bound(fs, n, kinds)
     if stacked:
@@ -269,10 +330,25 @@ def _file_sizes(plan: Plan, csv: bool) -> dict[str, int]:
             sizes[f"{ARRAYS_FOLDER}/{output_file(name)}"] = npy_bytes(shape, VOLTS_DTYPE)
             if plan.runs[0].outputs[name].codes is not None:
                 sizes[f"{ARRAYS_FOLDER}/{codes_file(name)}"] = npy_bytes(shape, CODES_DTYPE)
+    if plan.raw:
+        for w in plan.runs:
+            for name, o in w.outputs.items():
+                marker = o.codes is None
+                sizes[formats.raw_file(int(w.run_index), name, marker)] = formats.raw_bytes(
+                    int(w.n_samples), marker)
+    if plan.hdf5:
+        sizes[formats.HDF5_NAME] = formats.hdf5_bytes_bound(plan)
+    if plan.segments:
+        for name, pool in plan.pools.items():
+            f_v, f_c, f_t = segment_files(name, pool.has_codes)
+            sizes[f_v] = npy_bytes((pool.samples,), VOLTS_DTYPE)
+            if f_c is not None:
+                sizes[f_c] = npy_bytes((pool.samples,), CODES_DTYPE)
+            sizes[f_t] = npy_bytes((pool.rows, 3), TABLE_DTYPE)
     for w in plan.runs:
         folder = run_folder(int(w.run_index))
         n = int(w.n_samples)
-        if not plan.stacked:
+        if not (plan.stacked or plan.segments):
             for name, o in w.outputs.items():
                 sizes[f"{folder}/{output_file(name)}"] = npy_bytes((n,), VOLTS_DTYPE)
                 if o.codes is not None:
@@ -308,8 +384,9 @@ def _check_manifest_values(plan: Plan, source: Mapping) -> None:
 
 
 def _estimate_waveforms(runs: list[Waveforms], csv: bool, stacked: bool,
-                        source: Mapping) -> int:
-    plan = check_runs(runs, stacked=stacked)
+                        source: Mapping, segments: bool = False, raw: bool = False,
+                        hdf5: bool = False) -> int:
+    plan = check_runs(runs, stacked=stacked, segments=segments, raw=raw, hdf5=hdf5)
     sizes, manifest_bytes = _dry_manifest(plan, source, csv)
     return int(sum(sizes.values()) + manifest_bytes + 64)
 
@@ -461,6 +538,9 @@ def _load(target: Path, m: dict, files: dict) -> dict:
         return cache[rel]
 
     stacked = m["layout"] == "stacked"
+    segmented = m["layout"] == "segments"
+    if m["layout"] not in ("per-run", "stacked", "segments"):
+        raise ValueError(f"unknown layout {m['layout']!r}")
     runs = []
     st_volts: dict[str, np.ndarray] = {}
     st_codes: dict[str, np.ndarray] = {}
@@ -469,6 +549,17 @@ def _load(target: Path, m: dict, files: dict) -> dict:
         volts, codes = {}, {}
         for name in r["output_order"]:
             e = r["outputs"][name]
+            if segmented:
+                seg = m["segments"][name]
+                lo, hi = (int(x) for x in e["table_rows"])
+                rows = load(e["table_file"], e["table_sha256"], TABLE_DTYPE,
+                            [seg["rows"], 3])[lo:hi]
+                volts[name] = rebuild(load(e["file"], e["sha256"], VOLTS_DTYPE,
+                                           [seg["samples"]]), rows, n)
+                if e["codes_file"]:
+                    codes[name] = rebuild(load(e["codes_file"], e["codes_sha256"], CODES_DTYPE,
+                                               [seg["samples"]]), rows, n)
+                continue
             a = load(e["file"], e["sha256"], VOLTS_DTYPE, e["shape"])
             c = (load(e["codes_file"], e["codes_sha256"], CODES_DTYPE, e["shape"])
                  if e["codes_file"] else None)

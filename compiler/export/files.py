@@ -151,6 +151,27 @@ def write_npy(path: Path, a: np.ndarray, dtype: np.dtype) -> Written:
     return f.close()
 
 
+def write_npy_pieces(path: Path, pieces: Iterable[np.ndarray], n: int,
+                     dtype: np.dtype) -> Written:
+    """Write a 1-D ``.npy`` of ``n`` elements from pieces written one after
+    the other (the pools of the segment layout); ValueError when they do not
+    add up to ``n``."""
+    f = _HashingFile(path)
+    try:
+        f.write(npy_header((n,), dtype))
+        count = 0
+        for piece in pieces:
+            piece = checked_cast(piece, dtype)
+            _write_array_bytes(f, piece)
+            count += piece.size
+        if count != n:
+            raise ValueError(f"{path.name}: wrote {count} elements, expected {n}")
+    except BaseException:
+        f.abort()
+        raise
+    return f.close()
+
+
 def write_npy_rows(path: Path, rows: Iterable[np.ndarray], n_rows: int, n_cols: int,
                    dtype: np.dtype) -> Written:
     """Write a 2-D ``.npy`` of shape ``(n_rows, n_cols)`` one row at a time.

@@ -20,9 +20,10 @@ import numpy as np
 
 from ..synth.types import Output, Waveforms
 from .errors import BundleError, at
+from .segments import SEGMENTS_FOLDER, TABLE_FOLDER, plan_segments
 
 FORMAT_NAME = "dotseq-bundle"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 MANIFEST_NAME = "manifest.json"
 ARRAYS_FOLDER = "arrays"
 CSV_NAME = "samples.csv"
@@ -71,6 +72,13 @@ class Plan:
     order: tuple[str, ...]             # output names in device channel order (union, first seen)
     stacked: bool
     n_max: int                         # longest run, samples (the stacked width)
+    pools: dict | None = None          # segment layout: output name -> segments.Pool
+    raw: bool = False                  # also raw little-endian code files
+    hdf5: bool = False                 # also one HDF5 file
+
+    @property
+    def segments(self) -> bool:
+        return self.pools is not None
 
 
 def _where(w: Waveforms, name: str | None = None) -> str:
@@ -90,7 +98,16 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
         problems.append(at(where, f"output name {key!r} cannot be used as a file name",
                            "use letters, digits and _ . + - (not starting with '.', "
                            f"not ending in '{CODES_SUFFIX}', at most 100 characters)"))
-    v = np.asarray(o.volts)
+    derived = (o.stored_volts is None and o.codes is not None and "volts" not in o.__dict__
+               and o.marks is None)
+    if derived:
+        # volts = code·LSB + v_min: finite with finite lsb and v_min (checked
+        # below) and as long as the codes (checked below); not built here
+        v = np.asarray(o.codes)
+    elif o.stored_volts is None and o.codes is None and o.marks is not None:
+        v = np.asarray(o.marks)        # a marker kept as 0/1 bytes
+    else:
+        v = np.asarray(o.volts)
     if v.ndim != 1 or v.shape[0] != w.n_samples:
         problems.append(at(where, f"volts has shape {v.shape}, expected ({w.n_samples},)",
                            "every output of a run holds n_samples samples"))
@@ -114,12 +131,13 @@ def _check_output(w: Waveforms, key: str, o: Any, problems: list) -> None:
             problems.append(at(where, f"codes have dtype {c.dtype}, expected int32"))
         elif c.size and (int(c.min()) < -2**31 or int(c.max()) > 2**31 - 1):
             problems.append(at(where, "codes do not fit in int32"))
-    for label, x in (("dc_level", o.dc_level), ("lsb", o.lsb)):
+    for label, x in (("dc_level", o.dc_level), ("lsb", o.lsb), ("v_min", o.v_min)):
         if not isinstance(x, (int, float, np.integer, np.floating)) or not math.isfinite(x):
             problems.append(at(where, f"{label} is {x!r}, expected a finite number of volts"))
 
 
-def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
+def check_runs(runs: Sequence[Waveforms], *, stacked: bool, segments: bool = False,
+               raw: bool = False, hdf5: bool = False) -> Plan:
     """Check the runs handed to the writer; every problem at once.
 
     Raises
@@ -127,8 +145,12 @@ def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
     BundleError
         No runs, different sample rates, a malformed output (wrong length,
         non-finite samples, a name that cannot be a file name), repeated run
-        indices, or (stacked) runs whose outputs differ.
+        indices, (stacked) runs whose outputs differ, or both stacked and
+        segments asked for.
     """
+    if stacked and segments:
+        raise BundleError(at("<options>", "a bundle is either stacked or stored as segments, "
+                                          "not both", "choose one layout"))
     if isinstance(runs, Waveforms):
         runs = [runs]
     runs = tuple(runs)
@@ -189,7 +211,9 @@ def check_runs(runs: Sequence[Waveforms], *, stacked: bool) -> Plan:
                                    "write without stacking (one folder per run)"))
     if problems:
         raise BundleError(problems)
-    return Plan(runs, rates[0], tuple(order), stacked, max(int(w.n_samples) for w in runs))
+    pools = plan_segments(runs, order) if segments else None
+    return Plan(runs, rates[0], tuple(order), stacked, max(int(w.n_samples) for w in runs),
+                pools, bool(raw), bool(hdf5))
 
 
 # ---------------------------------------------------------------- JSON
@@ -400,6 +424,8 @@ def output_entry(o: Output, *, file: str, codes: str | None, shape: list[int],
         "codes_file": codes,
         "codes_dtype": "int32" if codes else None,
         "codes_sha256": checksums[codes] if codes else None,
+        "shift_samples": int(o.shift),
+        "delay_s": float(o.delay),
     }
     if row is not None:
         e["row"] = row
@@ -446,7 +472,13 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         n = int(w.n_samples)
         outputs = {}
         for name, o in w.outputs.items():
-            if plan.stacked:
+            if plan.segments:
+                f, c, t = segment_files(name, o.codes is not None)
+                outputs[name] = output_entry(o, file=f, codes=c, shape=[n], checksums=checksums)
+                outputs[name]["table_file"] = t
+                outputs[name]["table_sha256"] = checksums[t]
+                outputs[name]["table_rows"] = list(plan.pools[name].ranges[row])
+            elif plan.stacked:
                 f = f"{ARRAYS_FOLDER}/{output_file(name)}"
                 c = f"{ARRAYS_FOLDER}/{codes_file(name)}" if o.codes is not None else None
                 pv, pc = pad_values(o)
@@ -458,11 +490,19 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
                 f = f"{folder}/{output_file(name)}"
                 c = f"{folder}/{codes_file(name)}" if o.codes is not None else None
                 outputs[name] = output_entry(o, file=f, codes=c, shape=[n], checksums=checksums)
+            if plan.raw:
+                marker = o.codes is None
+                rel = (f"raw/{folder}/{name}" + (".u8" if marker else ".i32"))
+                outputs[name].update({
+                    "raw_file": rel, "raw_sha256": checksums[rel],
+                    "raw_dtype": "uint8" if marker else "int32",
+                    "raw_scale_V": 1.0 if marker else float(o.lsb),
+                    "raw_offset_V": 0.0 if marker else float(o.v_min)})
         csv_path = f"{folder}/{CSV_NAME}"
         runs_out.append({
             "index": int(w.run_index),
             "position": row,
-            "folder": folder if (csv or not plan.stacked) else None,
+            "folder": folder if (csv or not (plan.stacked or plan.segments)) else None,
             "sweep": {str(k): plain(v, f"sweep {k}") for k, v in w.sweep},
             "n_samples": n,
             "duration_s": n / fs,
@@ -476,10 +516,15 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
             "larmor_Hz": plain(dict(w.larmor), "larmor"),
             "warnings": [str(x) for x in w.warnings],
         })
-    return {
+    delays: dict[str, float] = {}
+    for w in plan.runs:
+        for o in w.outputs.values():
+            delays.setdefault(str(o.channel), float(o.delay))
+    out = {
         "format": FORMAT_NAME,
         "format_version": FORMAT_VERSION,
-        "layout": "stacked" if plan.stacked else "per-run",
+        "layout": "stacked" if plan.stacked else ("segments" if plan.segments else "per-run"),
+        "delays_s": delays,
         "source": plain(dict(source), "source"),
         "sample_rate_Hz": fs,
         "hold": HOLD,
@@ -492,3 +537,22 @@ def build(plan: Plan, source: Mapping, checksums: Mapping[str, str],
         "files": {p: {"sha256": checksums[p], "bytes": int(sizes[p])} for p in checksums},
         "runs": runs_out,
     }
+    out["raw"] = ({"byte_order": "little", "header_bytes": 0,
+                   "volts": "raw_offset_V + code * raw_scale_V"} if plan.raw else None)
+    out["hdf5"] = {"file": "bundle.h5"} if plan.hdf5 else None
+    if plan.segments:
+        segs = {}
+        for name, pool in plan.pools.items():
+            f, c, t = segment_files(name, pool.has_codes)
+            segs[name] = {"file": f, "codes_file": c, "table_file": t,
+                          "samples": pool.samples, "rows": pool.rows}
+        out["segments"] = segs
+    return out
+
+
+def segment_files(name: str, has_codes: bool) -> tuple[str, str | None, str]:
+    """The pool of volts, the pool of codes (None for markers) and the table
+    of one output in the segment layout (paths relative to the bundle)."""
+    return (f"{SEGMENTS_FOLDER}/{output_file(name)}",
+            f"{SEGMENTS_FOLDER}/{codes_file(name)}" if has_codes else None,
+            f"{TABLE_FOLDER}/{output_file(name)}")

@@ -8,7 +8,8 @@ Layout, top to bottom, all trace axes sharing one time axis:
 * one axis per output (the I and Q halves of an I/Q line share one: I solid,
   Q dashed), samples drawn as a zero-order hold; markers as 0/1 steps;
 * the spectrum of each I/Q line's complex baseband ``I + iQ`` over the shown
-  window, with each dot's Larmor frequency marked.
+  window, with each dot's Larmor frequency marked, and where an imperfect
+  I/Q mixer would put its image (LO − IF, dotted).
 
 The figure is built on :class:`matplotlib.figure.Figure` with the Agg canvas
 directly (no pyplot, no global state) and written atomically.
@@ -385,6 +386,10 @@ def _draw_spectrum(ax, wf: Waveforms, panel: _Panel, window: Window, lo: float |
     f = f_if + centre
     band = (centre - fs / 2, centre + fs / 2)
     marks = [fl for fl in wf.larmor.values() if lo is not None and band[0] <= fl <= band[1]]
+    # where an imperfect I/Q mixer mirrors each dot's tone: LO − IF = 2·LO − f_L
+    images = {name: 2 * centre - fl for name, fl in wf.larmor.items()
+              if lo is not None and band[0] <= fl <= band[1] and fl != centre}
+    marks += list(images.values())
     if silent:
         f_lo, f_hi, zoomed = band[0], band[1], False
     else:
@@ -447,6 +452,17 @@ def _draw_spectrum(ax, wf: Waveforms, panel: _Panel, window: Window, lo: float |
                 color=colour, zorder=4,
                 bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none", alpha=0.8))
         k += 1
+    for k, (name, fi) in enumerate(images.items()):
+        if not (f_lo <= fi <= f_hi):
+            continue
+        colour = S.LARMOR_COLOURS[k % len(S.LARMOR_COLOURS)]
+        ax.axvline(fi * fscale, color=colour, lw=0.8, ls=(0, (1, 2)), alpha=0.8, zorder=3)
+        near_right = (fi - f_lo) > 0.75 * (f_hi - f_lo)
+        label = f"image of {name}"
+        ax.text(fi * fscale, 0.16 + 0.08 * (k % 3), f"{label} " if near_right else f" {label}",
+                transform=ax.get_xaxis_transform(), ha="right" if near_right else "left",
+                va="bottom", fontsize=FONT - 1.5, color=colour, zorder=4,
+                bbox=dict(boxstyle="square,pad=0.1", fc="white", ec="none", alpha=0.8))
     if outside:
         ax.text(0.995, 0.04, "Larmor outside this band: " + ", ".join(outside),
                 transform=ax.transAxes, ha="right", va="bottom", fontsize=FONT - 1.5,

@@ -16,6 +16,9 @@ the variation of the drive's phase and of J within a sub-step, an error of
 order (ω·h)² that tests/test_simulate.py shows falling with m.
 
 Drive on dot q (g > 0):  (r/2)·(b*·σ+ + b·σ−),   b = c(t)·e^{−i2π·IF_q·t}
+  (c the line's I + iQ as they arrive, through the mixer model of the
+  line's ``mixer`` calibration, :func:`compiler.analog.mixer_output`: an
+  uncorrected imbalance puts the image c* at LO − IF)
 Drive on dot q (g < 0): −(r/2)·(b·σ+ + b*·σ−)
 Exchange (a, b):  J·σz_a σz_b/4 + ½(J e^{i2πδt}·σ+_a σ−_b + h.c.),
                   δ = s_a f_a − s_b f_b  (Loss & DiVincenzo, PRA 57, 120 (1998))
@@ -189,8 +192,15 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         tau = analog.rc_tau(line.rise_time) if sw.on("filters") else 0.0
         if sw.on("crosstalk"):
             out_i, out_q = wf.outputs[f"{line.name}.I"], wf.outputs[f"{line.name}.Q"]
-            c = ((out_i.volts if sw.on("quantised") else out_i.ideal)
-                 + 1j * (out_q.volts if sw.on("quantised") else out_q.ideal))
+            # as they arrive (delay alignment undone), through the line's mixer
+            vi = out_i.arrived(out_i.volts if sw.on("quantised") else out_i.ideal)
+            vq = out_q.arrived(out_q.volts if sw.on("quantised") else out_q.ideal)
+            mx = line.mixer
+            if mx is not None and not mx.ideal and sw.on("mixer"):
+                c = analog.mixer_output(vi, vq, mx.gain_imbalance, mx.phase_skew,
+                                        mx.offset_i, mx.offset_q)
+            else:
+                c = vi + 1j * vq
         else:
             c = wf.per_dot.get(q)
             if c is None:
@@ -217,7 +227,7 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
     for cpl in device.couplings:
         ch = device.channels[cpl.barrier]
         out = wf.outputs[cpl.barrier]
-        x = np.asarray(out.volts if sw.on("quantised") else out.ideal, dtype=float)
+        x = np.asarray(out.arrived(out.volts if sw.on("quantised") else out.ideal), dtype=float)
         tau = analog.rc_tau(ch.rise_time) if sw.on("filters") else 0.0
         y0 = float(x[0]) if len(x) else 0.0
         v = _node_values(x, dt, tau, m, y0)

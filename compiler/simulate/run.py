@@ -409,10 +409,14 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
     if progress:
         progress(f"error budget: {len(jobs)} evaluations")
 
+    absent = {s.key for s in switched if s.applies is not None and not s.applies(device)}
+
     def work(job):
         # the gate-band correction of the total is reused: switching another
         # source off changes it only through cross terms of fourth order
         crun, sw = job
+        if sw.off_keys and sw.off_keys <= absent:
+            return total.infidelity        # a source the device does not have: 0
         return evaluate_whole(crun, sw, opts, engine, nodes=total.nodes,
                               correction=correction).infidelity
 

@@ -54,6 +54,9 @@ class Source:
     # (device, T) -> items ("detuning", dot, rms Hz) | ("barrier", coupling, rms V)
     # | ("mode", dot, f Hz, σ Hz) | ("dissipator", dot, operator, rate 1/s)
     window: Callable[[Device, float], tuple] | None = None
+    # device -> whether the source is present at all; when it is not, its
+    # budget line is 0 without an evaluation (None: always present)
+    applies: Callable[[Device], bool] | None = None
 
 
 def _relaxation(device: Device, q: str) -> tuple[tuple[str, float], ...]:
@@ -132,6 +135,11 @@ def _barrier_static(device: Device, window: float) -> tuple:
     return tuple(out)
 
 
+def _has_mixer(device: Device) -> bool:
+    """Whether an I/Q line of the device has a mixer that is not ideal."""
+    return any(c.mixer is not None and not c.mixer.ideal for c in device.channels.values())
+
+
 SOURCES: dict[str, Source] = {s.key: s for s in (
     Source("t1", "T1 relaxation", "dots.*.t1, temperature",
            "Lindblad relaxation with thermal excitation at the device temperature",
@@ -168,6 +176,10 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
     Source("quantised", "quantisation", "channels.*.bits, v_min, v_max",
            "unquantised samples", "played", compile_off=(("keep_ideal", True),)),
     Source("bias_tee", "bias tee", "channels.*.bias_tee", "no high-pass droop", "played"),
+    Source("mixer", "I/Q mixer imbalance", "channels.*.mixer",
+           "an ideal mixer, playing I/Q as designed (with the correction on, what is left of "
+           "the image and LO leakage after the pre-distortion)", "played",
+           compile_off=(("mixer_correction", False),), applies=_has_mixer),
     Source("exchange_zeeman", "Zeeman difference in exchange", "dots.*.g, field",
            "from the exchange frame model: Σ over exchange gates of the infidelity left "
            "after frame compensation (noise-free), not by switching off", "played",

@@ -16,16 +16,18 @@ from .types import Waveforms
 def as_played(wf: Waveforms, device: Device, name: str, oversample: int = 1) -> np.ndarray:
     """Voltage (V) of one output as it reaches the sample, averaged over each
     of ``oversample`` sub-intervals per sample (so time integrals are exact).
-    Gate outputs include their bias tee and DC level."""
+    Gate outputs include their bias tee and DC level; every output is taken
+    on the timeline's grid (:meth:`Output.arrived`: the delay alignment undone)."""
     out = wf.outputs[name]
     ch = device.channels[out.channel]
     dt = 1.0 / wf.sample_rate
+    x = out.arrived()
     if out.kind == "marker":
-        return np.repeat(out.volts, oversample)
+        return np.repeat(x, oversample)
     # before the run a microwave output is silent and a gate output sits at its
     # first (idle) value
-    y0 = 0.0 if out.kind == "iq" or not len(out.volts) else out.volts[0]
-    y = analog.rc_mean_per_sub(out.volts, dt, analog.rc_tau(ch.rise_time), oversample, y0=y0)
+    y0 = 0.0 if out.kind == "iq" or not len(x) else x[0]
+    y = analog.rc_mean_per_sub(x, dt, analog.rc_tau(ch.rise_time), oversample, y0=y0)
     if ch.bias_tee > 0:
         y = analog.bias_tee(y, dt / oversample, ch.bias_tee)
     return y + out.dc_level

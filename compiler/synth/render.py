@@ -28,14 +28,15 @@ an error naming the step and the time, never clipped.
 
 from __future__ import annotations
 
+import dataclasses
 import math
-from functools import lru_cache
 
 import numpy as np
 
 from .. import analog
 from ..device.model import Device
 from ..errors import Problem, SynthesisError, read_source_line
+from ..limits import generator_memory_problems
 from ..physics import precession_sign
 from ..schedule.timeline import TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline
 from ..units import TIME, VOLTAGE, format_quantity as fq
@@ -51,14 +52,6 @@ SLOT_RENDER = {
     "read": "readout", "trigger": "trigger", "zrot": "frame",
     "wait": "time", "phasewait": "time",
 }
-
-
-@lru_cache(maxsize=4096)
-def _burst_shape(envelope: tuple, if_freq: float, dt: float, tau: float) -> np.ndarray:
-    """Normalised held samples of a burst (see analog.tone_burst), cached."""
-    x = analog.tone_burst(np.asarray(envelope, dtype=float), if_freq, dt, tau)
-    x.setflags(write=False)
-    return x
 
 
 def _slot_text(slot: Slot) -> tuple[str, str]:
@@ -153,17 +146,26 @@ def _writer(tl: Timeline, k: int, channel: str, device: Device) -> Slot | None:
 
 
 def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
-               per_dot: bool = False, keep_ideal: bool = True) -> Waveforms:
+               per_dot: bool = False, keep_ideal: bool = True,
+               mixer_correction: bool = True) -> Waveforms:
     """Sample arrays of one scheduled run (see the module notes).  With
     ``per_dot`` the result also holds each dot's own bursts separately;
     ``keep_ideal=False`` keeps only the DAC codes (volts follow from them on
-    use), which halves the memory of long runs."""
+    use), which halves the memory of long runs.  ``mixer_correction=False``
+    plays I and Q as for an ideal mixer even where the device gives a
+    ``mixer`` calibration (what-if: the uncorrected mixer)."""
     dt = tl.dt
     fs = device.sample_rate
     chans = device.channels
-    # length: the timeline, then the generators' minimum length and granularity
+    # every channel's waveform memory holds the run (refused before allocating)
+    memory = generator_memory_problems(tl.run, tl.n_samples, device)
+    if memory:
+        raise SynthesisError(memory)
+    # length: the timeline plus the delay alignment, then the generators'
+    # minimum length and granularity
     n_min, gran = device.min_length, device.granularity
     n = device.padded_samples(tl.n_samples)
+    shifts = device.shifts
 
     # What each channel plays is collected as events (start, stop, values,
     # "add"/"set"), in time order, then streamed out in cache-sized chunks
@@ -188,7 +190,7 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         line = chans[dot.drive.line]
         f_if = device.larmor(q) - line.lo
         phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-        shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+        shape = analog.tone_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
         amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                           math.sin(phi + 2 * math.pi * f_if * a * dt))
         # kept as (amplitude, shared cached shape): no per-burst array
@@ -247,15 +249,24 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
             params["reason"] = s.info.reason
         records.append(StepRecord(len(records), s.kind, s.qubits, a, b, ch_list, src, text, params))
     if n > tl.n_samples:
+        reason = f"generator minimum length {n_min} and granularity {gran} samples"
+        if device.alignment:
+            reason = (f"alignment of the channels' delays ({device.alignment} samples), "
+                      + reason)
         records.append(StepRecord(len(records), "pad", (), tl.n_samples, n, tuple(chans), "", "",
-                                  {"reason": f"generator minimum length {n_min} and granularity "
-                                             f"{gran} samples"}))
+                                  {"reason": reason}))
+    # each channel plays its events later by its shift, so that every
+    # channel's pulses reach the sample together (Device.shifts)
+    for name, sh in shifts.items():
+        if sh:
+            events[name] = [(a + sh, b + sh, v, mode) for a, b, v, mode in events[name]]
 
     outputs: dict[str, Output] = {}
     problems: list[Problem] = []
 
     def fail_at(name: str, ch, k: int, v: float) -> None:
         top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+        k -= shifts.get(ch.name, 0)           # the timeline's sample
         slot = _writer(tl, k, ch.name, device)
         where = (f"during the {slot.kind} step at {slot.span}" if slot is not None and slot.span
                  else "outside any step")
@@ -290,8 +301,19 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
 
     for name, ch in chans.items():
         if ch.kind == "iq":
-            add_analog(f"{name}.I", ch, events[name], np.real, 0.0, 0.0, 0.0)
-            add_analog(f"{name}.Q", ch, events[name], np.imag, 0.0, 0.0, 0.0)
+            mx = ch.mixer
+            if mx is not None and mixer_correction and not mx.ideal:
+                # pre-distorted for the mixer (analog.mixer_predistort): linear
+                # in the bursts, the offsets as the baseline
+                t_i = math.tan(mx.phase_skew)
+                k_q = 1.0 / (mx.gain_imbalance * math.cos(mx.phase_skew))
+                add_analog(f"{name}.I", ch, events[name], lambda z: z.real + t_i * z.imag,
+                           -mx.offset_i, 0.0, 0.0)
+                add_analog(f"{name}.Q", ch, events[name], lambda z: z.imag * k_q,
+                           -mx.offset_q, 0.0, 0.0)
+            else:
+                add_analog(f"{name}.I", ch, events[name], np.real, 0.0, 0.0, 0.0)
+                add_analog(f"{name}.Q", ch, events[name], np.imag, 0.0, 0.0, 0.0)
         elif ch.kind == "gate":
             tau_pre = ch.bias_tee if predistort and ch.bias_tee > 0 else 0.0
             add_analog(name, ch, events[name], None, idle_of.get(name, 0.0), dc[name], tau_pre)
@@ -307,6 +329,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                                        marks=marks)
     if problems:
         raise SynthesisError(problems)
+    for key, o in outputs.items():
+        c = chans[o.channel]
+        if shifts[o.channel] or c.delay:
+            outputs[key] = dataclasses.replace(o, shift=shifts[o.channel], delay=c.delay)
     warnings = tuple(w.render() for w in tl.warnings)
     return Waveforms(tl.run.index, tl.run.sweep, fs, n, outputs, tuple(records), dict(tl.frames),
                      {q: device.larmor(q) for q in device.dots}, warnings, own,

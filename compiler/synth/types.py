@@ -42,6 +42,8 @@ class Output:
     lsb: float = 0.0                 # V per DAC code (0 for markers)
     v_min: float = 0.0               # V of code 0
     marks: np.ndarray | None = None  # markers kept compactly as uint8 0/1
+    shift: int = 0                   # samples played later than the timeline (channel delays)
+    delay: float = 0.0               # s, the channel's delay to the sample (device file)
 
     @cached_property
     def volts(self) -> np.ndarray:
@@ -56,6 +58,32 @@ class Output:
     @property
     def ideal(self) -> np.ndarray:
         return self.stored_ideal if self.stored_ideal is not None else self.volts
+
+    def volt_range(self) -> tuple[float, float]:
+        """Lowest and highest volts (V) of the output, the same numbers as
+        ``volts.min()``, ``volts.max()``, without building the volts array
+        when only codes are kept (v = code·LSB + v_min rises with the code)."""
+        if self.stored_volts is not None or self.codes is None or "volts" in self.__dict__:
+            v = self.volts
+            return (float(v.min()), float(v.max())) if len(v) else (0.0, 0.0)
+        if not len(self.codes):
+            return 0.0, 0.0
+        ends = np.array([self.codes.min(), self.codes.max()])
+        v = np.multiply(ends, self.lsb, dtype=float)
+        v += self.v_min
+        return float(v[0]), float(v[1])
+
+    def arrived(self, values: np.ndarray | None = None) -> np.ndarray:
+        """The samples (``values``, default :attr:`volts`) on the timeline's
+        grid: advanced by :attr:`shift` (the alignment of the channels'
+        delays), so that sample t is what reaches the sample at t plus the
+        common latency; the end holds the last value.  The simulator takes
+        every output this way."""
+        v = self.volts if values is None else values
+        sh = int(self.shift)
+        if not sh or not len(v):
+            return v
+        return np.concatenate((v[sh:], np.full(min(sh, len(v)), v[-1])))
 
 
 @dataclass(frozen=True)
@@ -113,6 +141,7 @@ class CompileOptions:
     ideal_bandwidth: bool = False      # play on channels without rise time (what-if)
     per_dot: bool = False              # also keep each dot's own bursts (what-if: no crosstalk)
     keep_ideal: bool = False           # also keep the unquantised samples (what-if: no quantisation)
+    mixer_correction: bool = True      # pre-distort I/Q for the line's mixer calibration
     frame_log_steps: int = 200         # top-level steps whose frames are logged (per-step fidelities)
 
     def schedule_key(self) -> tuple:
