@@ -45,8 +45,8 @@ class FrameRotation:
 
 @dataclass(frozen=True, slots=True)
 class ExchangeGate:
-    """√SWAP, its inverse, or SWAP between two coupled dots."""
-    gate: str                  # "sqrtswap", "sqrtswap_inv", "swap"
+    """√SWAP, its inverse, SWAP, CZ or CPHASE(angle) between two coupled dots."""
+    gate: str                  # a key of compiler.steps.EXCHANGE_GATES
     a: str
     b: str
     duration: float | None     # s
@@ -54,6 +54,7 @@ class ExchangeGate:
     span: Span
     via: tuple[str, ...] = ()
     qubit_spans: tuple[Span, ...] = ()
+    angle: float = 0.0         # rad, conditional phase of cz (π) and cphase; 0 otherwise
 
     @property
     def kind(self) -> str:

@@ -176,7 +176,8 @@ def test_weak_exchange_warning_says_how_to_fix_it():
     assert "fix: a larger J: J ≥ 27.99 MHz" in m and "give amplitude=289.8 mV" in m
     assert "pulse_voltage of A-C" in m
     assert "a smaller Zeeman difference" in m
-    assert "controlled-phase" not in m and "cz" not in m.lower()    # no such gate in the language
+    # the regime where a controlled phase works instead (Russ et al., PRB 97, 085421 (2018))
+    assert "or a controlled phase (cz A C), which needs J well below the Zeeman difference" in m
 
 
 def test_a_warning_inside_a_block_names_the_statement_and_the_call():

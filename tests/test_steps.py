@@ -75,11 +75,27 @@ def test_exchange_gates_defined_once_and_consistent():
     for g in K.EXCHANGE_GATES.values():
         # exp(−i·2π·x·S1·S2) with x = ∫(J/h)dt is the target up to a global
         # phase: x = 1/4 gives √SWAP, 1/2 SWAP (Loss & DiVincenzo, PRA 57,
-        # 120 (1998))
-        u = exchange_unitary(g.keyword, 0, 1, 2)
-        overlap = abs(np.trace(g.target.conj().T @ u)) / 4
-        assert overlap == pytest.approx(1.0, abs=1e-12), g.keyword
-        assert np.allclose(g.target @ g.target.conj().T, np.eye(4), atol=1e-14)
+        # 120 (1998)); a controlled phase is its own target
+        for angle in (math.pi, math.pi / 2, -0.3):
+            u = exchange_unitary(g.keyword, 0, 1, 2, angle)
+            t = g.target_for(angle)
+            overlap = abs(np.trace(t.conj().T @ u)) / 4
+            assert overlap == pytest.approx(1.0, abs=1e-12), g.keyword
+            assert np.allclose(t @ t.conj().T, np.eye(4), atol=1e-14)
+        assert g.regime in ("swap", "phase")
+        assert g.aligned == (g.regime == "swap")
+
+
+def test_controlled_phase_integral_and_target():
+    # the conditional phase of an adiabatic exchange pulse is −2π∫(J/h)dt
+    # (Meunier, Calado & Vandersypen, PRB 83, 121403 (2011), from memory;
+    # Russ et al., PRB 97, 085421 (2018)): CZ needs 1/2, CPHASE(π/2) 3/4
+    assert K.EXCHANGE_GATES["cz"].integral_for() == 0.5
+    assert K.EXCHANGE_GATES["cz"].integral_for(0.1) == 0.5       # cz ignores a step angle
+    assert K.EXCHANGE_GATES["cphase"].integral_for(math.pi / 2) == pytest.approx(0.75)
+    assert K.EXCHANGE_GATES["cphase"].integral_for(-math.pi / 2) == pytest.approx(0.25)
+    assert K.EXCHANGE_GATES["cphase"].integral_for(2 * math.pi) == 0.0
+    assert np.allclose(K.EXCHANGE_GATES["cz"].target_for(), np.diag([1, 1, 1, -1]))
 
 
 def test_slot_information_is_typed_and_never_changed(tmp_path):

@@ -10,6 +10,7 @@ from .. import program as P
 from ..errors import Problem, SequenceError, Span, did_you_mean, read_source_line, suggest
 from ..limits import BYTES_PER_STEP, FLAG_HINT, MAX_TOTAL_STEPS, Budget, human
 from ..parse import tree as T
+from ..steps import EXCHANGE_GATES
 from ..units import ANGLE, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
 from .evaluate import EvalError, Pending, Quantity, QubitRef, _PendingUse, evaluate
 
@@ -366,7 +367,18 @@ class Expander:
                 raise self.fail(f"{s.kind} needs two different qubits, got {a} twice", sb,
                                 "", via)
             _, dur, amp = self.step_options(s.options, env, via, burst=False)
-            out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb)))
+            gate = EXCHANGE_GATES[s.kind]
+            angle = 0.0
+            if s.angle is not None:
+                angle = self.value(s.angle, env, ANGLE, "the conditional phase", via)
+                if gate.integral_for(angle) == 0.0:
+                    raise self.fail(f"cphase by {format_quantity(angle, ANGLE)} is the identity "
+                                    "(a multiple of 360 deg)", s.angle.span,
+                                    "leave the step out, or give a phase that is not a multiple "
+                                    "of 360 deg", via)
+            elif gate.angle is not None:
+                angle = gate.angle
+            out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb), angle))
         elif isinstance(s, T.Wait):
             d = self.value(s.duration, env, TIME, "the wait", via)
             if d < 0:

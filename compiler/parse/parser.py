@@ -20,7 +20,7 @@ from ..source import Oversize, Unreadable, inside, read_capped
 from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
-            "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
+            "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read", "trigger", "together", "repeat",
             "block", "do")
 FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
              "min": 2, "max": 2, "round": 1}
@@ -31,7 +31,8 @@ SHAPES = ("square", "gauss", "flattop")
 # Spellings that are no keyword of the language, with the keyword they mean:
 # refused with a hint rather than read as a name.
 RENAMED_KEYWORDS = {"isqrtswap": "sqrtswap_inv"}
-INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "wait", "read", "do")
+INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read",
+                   "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
 MAX_INCLUDE_DEPTH = 32
 MAX_NESTING = 64
@@ -419,6 +420,20 @@ class Parser:
 
     def st_swap(self, start: Token) -> T.Stmt:
         return self._exchange("swap", start)
+
+    def st_cz(self, start: Token) -> T.Stmt:
+        return self._exchange("cz", start)
+
+    def st_cphase(self, start: Token) -> T.Stmt:
+        a = self.qubit("the first qubit of cphase")
+        b = self.qubit("the second qubit of cphase")
+        if self.at_end_of_statement() or (self.tok.kind == "NAME" and self.peek().kind == "OP"
+                                          and self.peek().text == "="):
+            raise self.error("cphase needs the conditional phase after the two qubits",
+                             self.tok.span, "e.g. cphase A B 90 deg (cz A B is cphase A B 180 deg)")
+        angle = self.expr()
+        opts = self.options(EXCHANGE_OPTIONS, "cphase")
+        return T.Exchange("cphase", a, b, opts, self.span_from(start), angle)
 
     def st_wait(self, start: Token) -> T.Stmt:
         d = self.expr()

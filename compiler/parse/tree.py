@@ -144,11 +144,12 @@ class Rot:
 
 @dataclass(frozen=True, slots=True)
 class Exchange:
-    kind: str                 # "sqrtswap", "sqrtswap_inv", "swap"
+    kind: str                 # "sqrtswap", "sqrtswap_inv", "swap", "cz", "cphase"
     a: Ident
     b: Ident
     options: tuple[Option, ...]
     span: Span
+    angle: Expr | None = None  # cphase: the conditional phase; None for the others
 
 
 @dataclass(frozen=True, slots=True)

@@ -104,7 +104,10 @@ def _frame_labels(k, qubits, p: dict) -> list[str]:
 
 def _exchange_labels(k, qubits, p: dict) -> list[str]:
     if len(qubits) == 2:
-        return [f"{k.name} {qubits[0]}–{qubits[1]}", *k.labels]
+        name = k.name
+        if k.keyword == "cphase" and "conditional_phase_rad" in p:
+            name = f"{name}({_degrees(float(p['conditional_phase_rad']))})"
+        return [f"{name} {qubits[0]}–{qubits[1]}", *k.labels]
     return list(k.labels)
 
 

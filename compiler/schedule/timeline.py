@@ -28,6 +28,7 @@ from ..device.model import Device
 from ..errors import Problem, ScheduleError, Span, read_source_line
 from ..analog import burst_quantisation_loss, lsb, rc_tau
 from ..physics import precession_sign
+from ..steps import EXCHANGE_GATES, KINDS
 from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
                       frame_updates_after, pair_gate, spectator_phase)
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
@@ -37,6 +38,10 @@ from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 # swap amplitude J²/(J²+ΔEz²) of Russ et al., PRB 97, 085421 (2018) is then
 # below 0.96).  The compensated fidelity computed per gate is also checked.
 CLEAN_EXCHANGE_RATIO = 5.0
+# A controlled phase (cz, cphase) needs the opposite: J at least this factor
+# below the Zeeman difference, or the flip-flop is no longer suppressed
+# (common practice, no source; Russ et al., PRB 97, 085421 (2018)).
+ADIABATIC_EXCHANGE_RATIO = 5.0
 # Warn when an exchange gate, compensated in the frames, is below this
 # average gate fidelity with its target (common practice, no source).
 EXCHANGE_FIDELITY_WARN = 0.999
@@ -169,8 +174,9 @@ def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.
     """What makes an exchange gate clean again: a larger J, at a higher
     barrier pulse level (and so a shorter pulse), with the level that gives
     J = CLEAN_EXCHANGE_RATIO × the Zeeman difference when the calibration
-    and the channel reach it; or a smaller Zeeman difference.  (The language
-    has no controlled-phase gate to suggest instead: docs/language.md.)"""
+    and the channel reach it; or a smaller Zeeman difference; or, when the
+    two-qubit gate may be a controlled phase, ``cz``, which works in this
+    regime (docs/language.md)."""
     from ..analog import top_voltage
     from ..device import exchange as X
     want = CLEAN_EXCHANGE_RATIO * delta
@@ -193,7 +199,9 @@ def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.
         level = (f"J ≥ {fq(want, FREQUENCY)} is beyond the barrier's calibration and range "
                  f"(up to {fq(top, VOLTAGE)}): extend the J(V) calibration or the channel range "
                  f"of {pair}")
-    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field)")
+    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field); or a "
+            f"controlled phase (cz {coupling.dots[0]} {coupling.dots[1]}), which needs J well "
+            "below the Zeeman difference")
 
 
 def _exchange_resources(step: P.ExchangeGate, device: Device) -> tuple[str, ...]:
@@ -300,7 +308,8 @@ class _Scheduler:
     def exchange_for(self, step: P.ExchangeGate) -> ExchangeDesign | None:
         c = self.device.coupling(step.a, step.b)
         try:
-            return design_exchange(step.gate, c, self.device, self.dt, step.duration, step.amplitude)
+            return design_exchange(step.gate, c, self.device, self.dt, step.duration,
+                                   step.amplitude, step.angle)
         except DesignError as e:
             self.fail(e.message, step, e.hint)
             return None
@@ -325,6 +334,8 @@ class _Scheduler:
                          in_group: bool) -> int:
         """Insert what brings the differential frame phase to the gate's
         optimum before ``t0``; returns the (possibly later) start sample."""
+        if not EXCHANGE_GATES[step.gate].aligned:
+            return t0                     # a controlled phase commutes with z phases
         a, b = step.a, step.b
         c = self.device.coupling(a, b)
         delta = self.delta(a, b)
@@ -386,7 +397,9 @@ class _Scheduler:
         t1 = (t0 + design.total) * self.dt
         ea, eb, fid = frame_updates_after(design, c.exchange, delta, xi, t1,
                                           self.frames[a], self.frames[b])
-        if abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
+        if EXCHANGE_GATES[step.gate].regime == "phase":
+            self.warn_phase_regime(step, design, delta, fid)
+        elif abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
             self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well above the Zeeman difference "
                       f"{fq(abs(delta), FREQUENCY)} of {a} and {b}: the {step.gate} is not clean "
                       f"(best {fid:.6f} average gate fidelity after frame compensation); "
@@ -401,6 +414,32 @@ class _Scheduler:
         self.frames[a] += ea
         self.frames[b] += eb
         self.place_simple(step, t0, design.total, group, exchange=design, info=info)
+
+    def warn_phase_regime(self, step: P.ExchangeGate, design: ExchangeDesign, delta: float,
+                          fid: float) -> None:
+        """A controlled phase needs J well below the Zeeman difference."""
+        a, b = step.a, step.b
+        name = KINDS[step.gate].name
+        if not self.exchange_zeeman:
+            return                        # the budget's counterfactual run
+        if delta == 0:
+            self.warn(f"{a} and {b} have the same Larmor frequency: the {name} pulse "
+                      f"(J up to {fq(design.j_peak, FREQUENCY)}) swaps the spins instead of "
+                      f"giving a controlled phase ({fid:.6f} average gate fidelity after frame "
+                      "compensation); fix: a Zeeman difference between the dots (different g "
+                      "or a field gradient), or sqrtswap-based gates", step,
+                      f"zeeman:{step.span}", 1 - fid)
+        elif design.j_peak * ADIABATIC_EXCHANGE_RATIO > abs(delta):
+            self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well below the Zeeman "
+                      f"difference {fq(abs(delta), FREQUENCY)} of {a} and {b}: the {name} is not "
+                      f"adiabatic ({fid:.6f} average gate fidelity after frame compensation); "
+                      f"fix: a lower barrier level (amplitude=) or a longer pulse (duration=), "
+                      f"J ≤ {fq(abs(delta) / ADIABATIC_EXCHANGE_RATIO, FREQUENCY)}", step,
+                      f"zeeman:{step.span}", 1 - fid)
+        elif fid < EXCHANGE_FIDELITY_WARN:
+            self.warn(f"this {name} reaches only {fid:.6f} average gate fidelity in the "
+                      "rotating frames, even after frame compensation; a longer pulse "
+                      "(duration=) is more adiabatic", step, f"zeeman:{step.span}", 1 - fid)
 
     def check_quantisation(self, step: P.Rotation, b: BurstDesign, start: int,
                            play_phase: float) -> None:

@@ -272,6 +272,8 @@ def _label(step) -> str:
         axis = {0: "x", 90: "y", 180: "-x", 270: "-y"}.get(round(ph, 9), f"phase({ph:g}°)")
         return f"rot {step.qubit} {axis} {math.degrees(step.angle):g}°"
     if isinstance(step, P.ExchangeGate):
+        if step.gate == "cphase":
+            return f"cphase {step.a} {step.b} {math.degrees(step.angle):g}°"
         return f"{step.gate} {step.a} {step.b}"
     if isinstance(step, P.Idle):
         return f"wait {step.duration * 1e9:g} ns" + (f" on {' '.join(step.qubits)}" if step.qubits else "")

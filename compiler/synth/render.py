@@ -48,6 +48,7 @@ from .types import Output, StepRecord, Waveforms
 SLOT_RENDER = {
     "rot": "burst", "zcorrect": "burst",
     "sqrtswap": "exchange", "sqrtswap_inv": "exchange", "swap": "exchange",
+    "cz": "exchange", "cphase": "exchange",
     "read": "readout", "trigger": "trigger", "zrot": "frame",
     "wait": "time", "phasewait": "time",
 }
@@ -214,7 +215,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                 "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
                 "frame_updates_rad": dict(info.frame_updates),
                 "frame_fidelity": info.frame_fidelity,
-                "zeeman_difference_Hz": info.zeeman_difference_Hz}
+                "zeeman_difference_Hz": info.zeeman_difference_Hz,
+                **({"conditional_phase_rad": d.angle, "shape": "hann"} if d.window else {})}
 
     def readout(s: Slot, a: int, b: int) -> dict:
         events[device.readout.marker].append((a, b, 1.0, "set"))
