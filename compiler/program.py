@@ -29,6 +29,7 @@ class Rotation:
     span: Span
     via: tuple[str, ...] = ()
     qubit_spans: tuple[Span, ...] = ()   # where each qubit is named
+    detuning: float = 0.0      # Hz, the burst's tone minus the dot's Larmor frequency
     kind = "rot"
 
 

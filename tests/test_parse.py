@@ -113,7 +113,9 @@ def test_expression_round_trip(expr):
     assert back == strip_spans(src), text
 
 
-NEW_STEP_FORMS = """cz A B
+NEW_STEP_FORMS = """rot A x 90 deg detuning=-2.5 MHz
+rot A y 180 deg duration=100 ns detuning=d
+cz A B
 cz A B duration=300 ns
 cphase A B 90 deg
 cphase A B -(pi / 4) rad amplitude=200 mV
@@ -130,9 +132,10 @@ def test_new_step_forms_print_back():
     text = format_source(tree)
     assert text == NEW_STEP_FORMS
     assert strip_spans(parse_text(text)) == strip_spans(tree)
-    cp = tree.body[2]
+    cp = tree.body[4]
     assert cp.kind == "cphase" and cp.angle == T.Num("90", "deg", cp.angle.span)
-    assert tree.body[0].angle is None
+    assert tree.body[2].angle is None
+    assert tree.body[0].options[0].key == "detuning"
 
 
 @settings(max_examples=100, deadline=None)

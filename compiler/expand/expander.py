@@ -11,7 +11,7 @@ from ..errors import Problem, SequenceError, Span, did_you_mean, read_source_lin
 from ..limits import BYTES_PER_STEP, FLAG_HINT, MAX_TOTAL_STEPS, Budget, human
 from ..parse import tree as T
 from ..steps import EXCHANGE_GATES
-from ..units import ANGLE, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
+from ..units import ANGLE, FREQUENCY, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
 from .evaluate import EvalError, Pending, Quantity, QubitRef, _PendingUse, evaluate
 
 MAX_RUNS = 100_000          # sweep points in one file
@@ -359,7 +359,12 @@ class Expander:
             else:
                 phase = _AXIS_PHASE[s.axis.kind] + (math.pi if s.axis.negative else 0.0)
             shape, dur, amp = self.step_options(s.options, env, via, burst=True)
-            out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,)))
+            detuning = 0.0
+            for o in s.options:
+                if o.key == "detuning":
+                    detuning = self.value(o.value, env, FREQUENCY, "the detuning option", via)
+            out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,),
+                                  detuning))
         elif isinstance(s, T.Exchange):
             a, sa = self.qubit(s.a, env, via)
             b, sb = self.qubit(s.b, env, via)

@@ -25,7 +25,7 @@ KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
 FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
              "min": 2, "max": 2, "round": 1}
 CONSTANTS = ("pi",)
-ROT_OPTIONS = ("shape", "duration", "amplitude")
+ROT_OPTIONS = ("shape", "duration", "amplitude", "detuning")
 EXCHANGE_OPTIONS = ("duration", "amplitude")
 SHAPES = ("square", "gauss", "flattop")
 # Spellings that are no keyword of the language, with the keyword they mean:

@@ -62,6 +62,13 @@ class BurstInfo:
     """A rotation's burst."""
     frame: float                                   # rad, the dot's frame when played
     spectator_frame_updates: tuple[tuple[str, float], ...] = ()  # (dot, rad) light-shift undo
+    detuning: float = 0.0                          # Hz, tone minus the dot's Larmor frequency
+
+
+def burst_detuning(slot: "Slot") -> float:
+    """The offset (Hz) of a burst slot's tone from its dot's Larmor frequency
+    (``rot ... detuning=``); 0 for every other slot."""
+    return slot.info.detuning if isinstance(slot.info, BurstInfo) else 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -303,6 +310,20 @@ class _Scheduler:
                       f"the ±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
                       "lengthen the burst (duration=...) or lower the angle")
             return None
+        if step.detuning:
+            f_if = self.device.larmor(step.qubit) - line.lo + step.detuning
+            nyq = self.device.sample_rate / 2
+            if not (line.if_min <= f_if <= line.if_max) or abs(f_if) >= nyq:
+                lo_d = line.if_min - (f_if - step.detuning)
+                hi_d = line.if_max - (f_if - step.detuning)
+                self.fail(f"a burst detuned by {fq(step.detuning, FREQUENCY)} from {step.qubit} "
+                          f"needs IF {fq(f_if, FREQUENCY)} on line '{line.name}', outside its "
+                          f"band [{fq(line.if_min, FREQUENCY)}, {fq(line.if_max, FREQUENCY)}]"
+                          + (f" or beyond the Nyquist frequency {fq(nyq, FREQUENCY)}"
+                             if abs(f_if) >= nyq else ""), step,
+                          f"detunings from {fq(lo_d, FREQUENCY)} to {fq(hi_d, FREQUENCY)} "
+                          "fit the band; or widen if_band / move the LO in the device file")
+                return None
         return b
 
     def exchange_for(self, step: P.ExchangeGate) -> ExchangeDesign | None:
@@ -449,7 +470,7 @@ class _Scheduler:
         line = self.device.channels[dot.drive.line]
         if line.bits <= 0:
             return
-        f_if = self.device.larmor(step.qubit) - line.lo
+        f_if = self.device.larmor(step.qubit) - line.lo + step.detuning
         phi = play_phase if precession_sign(dot.g) > 0 else math.pi - play_phase
         loss, nothing = burst_quantisation_loss(
             b.envelope, b.amplitude, phi, f_if, start, self.dt, rc_tau(line.rise_time),
@@ -468,7 +489,8 @@ class _Scheduler:
                       f"on line '{line.name}'; more than {QUANTISATION_LOSS_WARN:.0%})", step,
                       f"quantisation:{step.span}", loss)
 
-    def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=()) -> dict:
+    def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=(),
+                           detuning: float = 0.0) -> dict:
         """Frame updates that undo the light shift a burst on ``q`` leaves on
         the other dots of its line (dots driven in the same group excepted);
         returns them (dot -> update, rad)."""
@@ -476,12 +498,12 @@ class _Scheduler:
             return {}
         dots = self.device.dots
         line = dots[q].drive.line
-        f_q = self.device.larmor(q)
+        f_q = self.device.larmor(q) + detuning
         shifts = {}
         for o, dot in dots.items():
             if o == q or o in group_dots or dot.drive.line != line:
                 continue
-            key = (id(burst), o, q)
+            key = (id(burst), o, q, detuning)
             alpha = self._spectator_cache.get(key)
             if alpha is None:
                 alpha = self._spectator_cache[key] = spectator_phase(
@@ -504,9 +526,10 @@ class _Scheduler:
         frame = self.frames[step.qubit]
         # a lone burst undoes its light shift on the other dots of its line now;
         # in a group, place_group does it once the group's driven dots are known
-        shifts = self.correct_spectators(step.qubit, b, step) if t_group is None else {}
+        shifts = (self.correct_spectators(step.qubit, b, step, detuning=step.detuning)
+                  if t_group is None else {})
         self.place_simple(step, t0, b.n, group, burst=b, play_phase=b.phase - frame,
-                          info=BurstInfo(frame, tuple(shifts.items())))
+                          info=BurstInfo(frame, tuple(shifts.items()), step.detuning))
         self.check_quantisation(step, b, t0, b.phase - frame)
 
     def place_frame(self, step: P.FrameRotation, t0: int, group: int, t_group) -> None:
@@ -562,7 +585,8 @@ class _Scheduler:
                 self.place(m, gi, t_group=t0)
                 last = self.slots[-1] if self.slots else None
                 if isinstance(m, P.Rotation) and last is not None and last.step is m:
-                    shifts = self.correct_spectators(m.qubit, last.burst, m, driven)
+                    shifts = self.correct_spectators(m.qubit, last.burst, m, driven,
+                                                     detuning=m.detuning)
                     if shifts:
                         self.slots[-1] = replace(last, info=replace(
                             last.info, spectator_frame_updates=tuple(shifts.items())))

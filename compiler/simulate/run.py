@@ -270,7 +270,8 @@ def _label(step) -> str:
     if isinstance(step, P.Rotation):
         ph = math.degrees(step.phase) % 360
         axis = {0: "x", 90: "y", 180: "-x", 270: "-y"}.get(round(ph, 9), f"phase({ph:g}°)")
-        return f"rot {step.qubit} {axis} {math.degrees(step.angle):g}°"
+        det = f" detuning {step.detuning / 1e6:g} MHz" if step.detuning else ""
+        return f"rot {step.qubit} {axis} {math.degrees(step.angle):g}°{det}"
     if isinstance(step, P.ExchangeGate):
         if step.gate == "cphase":
             return f"cphase {step.a} {step.b} {math.degrees(step.angle):g}°"

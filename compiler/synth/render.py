@@ -37,7 +37,8 @@ from .. import analog
 from ..device.model import Device
 from ..errors import Problem, SynthesisError, read_source_line
 from ..physics import precession_sign
-from ..schedule.timeline import TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline
+from ..schedule.timeline import (TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline,
+                                 burst_detuning)
 from ..units import TIME, VOLTAGE, format_quantity as fq
 from .types import Output, StepRecord, Waveforms
 
@@ -189,7 +190,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         line = chans[dot.drive.line]
         f_if = device.larmor(q) - line.lo
         phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-        shape = _burst_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+        # a detuned burst (rot ... detuning=): the tone runs at IF + Δ from the
+        # burst's start, its phase there still referred to the dot's frame
+        det = burst_detuning(s)
+        shape = _burst_shape(s.burst.envelope, f_if + det, dt, analog.rc_tau(line.rise_time))
         amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                           math.sin(phi + 2 * math.pi * f_if * a * dt))
         # kept as (amplitude, shared cached shape): no per-burst array
@@ -201,6 +205,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                   "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
         if isinstance(s.info, BurstInfo):
             params["frame_rad"] = s.info.frame
+        if det:
+            params["detuning_Hz"] = det
         return params
 
     def exchange(s: Slot, a: int, b: int) -> dict:
