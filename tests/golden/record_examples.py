@@ -32,6 +32,7 @@ CASES = {
     "gaas_rabi": dict(nodes=3, budget=False),
     "ramsey_single": dict(nodes=3),
     "ribbon_long_range": dict(nodes=3, budget=False, steps=False),
+    "rabi_chevron": dict(nodes=3, budget=False, steps=False),
 }
 # Run-level figures of results.json that must not move (wall times and
 # engine statistics are left out: they are not physics).
