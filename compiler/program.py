@@ -91,6 +91,19 @@ class Trigger:
 
 
 @dataclass(frozen=True, slots=True)
+class Move:
+    """Take the gates to a named voltage point of the device: at once
+    (``ramp`` 0) or linearly over ``ramp`` seconds; they stay there until the
+    next move."""
+    point: str
+    ramp: float                # s, 0: a jump
+    span: Span
+    via: tuple[str, ...] = ()
+    point_span: Span | None = None   # where the point is named
+    kind = "move"
+
+
+@dataclass(frozen=True, slots=True)
 class Parallel:
     """Steps on different qubits that start together."""
     steps: tuple["Step", ...]
@@ -99,7 +112,7 @@ class Parallel:
     kind = "together"
 
 
-Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Parallel]
+Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Move, Parallel]
 
 
 @dataclass(frozen=True, slots=True)
@@ -160,5 +173,6 @@ STEP_QUBITS = {
     Idle: lambda s: s.qubits,
     Readout: lambda s: s.qubits,
     Trigger: lambda s: (),
+    Move: lambda s: (),
     Parallel: lambda s: tuple(q for x in s.steps for q in step_qubits(x)),
 }

@@ -16,7 +16,7 @@ report's per-step table carry as ``kind``.  :data:`KINDS` says for each one:
 * ``name`` and ``labels``: the short display name and the fixed labels of
   a timeline box (longest first); ``label`` says how the preview adds the
   step's parameters (``rotation``, ``frame``, ``exchange``, ``trigger``,
-  ``fixed``);
+  ``point``, ``fixed``);
 * ``face``, ``hatch``, ``dense``: its preview style (box colour, hatch, and
   colour in a dense lane).
 
@@ -83,6 +83,8 @@ KINDS: dict[str, StepKind] = {k.keyword: k for k in (
              "#8fa9d6"),                                          # periwinkle
     StepKind("trigger", P.Trigger, "identity", False, "trigger", ("trigger", "trig", "t"),
              "trigger", "#c8bf7a"),                               # straw
+    StepKind("move", P.Move, "identity", False, "move", ("move", "mv"), "point",
+             "#a9c29a"),                                          # moss (a voltage point)
     StepKind("together", P.Parallel, "product", False, "together", ("together",), "fixed",
              "#cfcfcf"),
     # inserted by the compiler: hatched

@@ -17,7 +17,7 @@ from compiler.check.summary import KIND_ORDER
 from compiler.parse.parser import KEYWORDS
 from compiler.preview.style import LABELS, STEP_STYLE, kind_name, step_labels
 from compiler.schedule.timeline import (PLACE, RESOURCES, BurstInfo, ExchangeInfo, FrameInfo,
-                                        InsertedInfo)
+                                        InsertedInfo, MoveInfo)
 from compiler.simulate.fidelity import IDEAL_OPS, exchange_unitary
 from compiler.synth.render import SLOT_RENDER
 
@@ -58,7 +58,7 @@ def test_synthesis_renders_every_kind_a_timeline_holds():
     # 'together' is opened by the scheduler; 'pad' is added by synthesis itself
     assert set(SLOT_RENDER) == set(K.KINDS) - {"together", "pad"}
     assert set(SLOT_RENDER.values()) == {"burst", "exchange", "readout", "trigger", "frame",
-                                         "time"}
+                                         "level", "time"}
 
 
 def test_preview_and_summary_know_every_kind():
@@ -106,7 +106,7 @@ def test_slot_information_is_typed_and_never_changed(tmp_path):
     for tl in checked.timelines:
         for s in tl.slots:
             assert s.info is None or isinstance(
-                s.info, (BurstInfo, FrameInfo, ExchangeInfo, InsertedInfo)), s.kind
+                s.info, (BurstInfo, FrameInfo, ExchangeInfo, InsertedInfo, MoveInfo)), s.kind
             hash(s.info)          # frozen all the way down: no dict to change
             seen.add(type(s.info))
             if s.info is not None:

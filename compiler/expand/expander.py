@@ -240,7 +240,7 @@ class Expander:
                                  _SATURATED)
             elif isinstance(s, T.Do):
                 total += self._estimate_call(s, env, blocks, sweeps, stack, memo)
-            elif isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Trigger, T.Together)):
+            elif isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Trigger, T.Move, T.Together)):
                 total += 1
             if total >= _SATURATED:
                 return _SATURATED
@@ -396,6 +396,14 @@ class Expander:
             out.append(P.Readout(qs, s.span, via, spans))
         elif isinstance(s, T.Trigger):
             out.append(P.Trigger(s.label, s.span, via))
+        elif isinstance(s, T.Move):
+            ramp = 0.0
+            for o in s.options:          # the parser allows only ramp=
+                ramp = self.value(o.value, env, TIME, "the ramp option", via)
+                if ramp < 0:
+                    raise self.fail(f"the ramp is negative ({format_quantity(ramp, TIME)})",
+                                    o.value.span, "give ramp=0 ns (a jump) or longer", via)
+            out.append(P.Move(s.point.name, ramp, s.span, via, s.point.span))
         elif isinstance(s, T.Together):
             inner: list = []
             for x in s.body:

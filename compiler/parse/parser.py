@@ -20,13 +20,14 @@ from ..source import Oversize, Unreadable, inside, read_capped
 from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
-            "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read", "trigger", "together", "repeat",
-            "block", "do")
+            "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read", "trigger", "move", "together",
+            "repeat", "block", "do")
 FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
              "min": 2, "max": 2, "round": 1}
 CONSTANTS = ("pi",)
 ROT_OPTIONS = ("shape", "duration", "amplitude", "detuning")
 EXCHANGE_OPTIONS = ("duration", "amplitude")
+MOVE_OPTIONS = ("ramp",)
 SHAPES = ("square", "gauss", "flattop")
 # Spellings that are no keyword of the language, with the keyword they mean:
 # refused with a hint rather than read as a name.
@@ -450,6 +451,15 @@ class Parser:
         while self.tok.kind == "NAME" and self.tok.text not in KEYWORDS:
             qubits.append(self.qubit())
         return T.Read(tuple(qubits), self.span_from(start))
+
+    def st_move(self, start: Token) -> T.Stmt:
+        t = self.expect_name("the name of a voltage point (points: in the device file)",
+                             "e.g. move measure, or move load ramp=100 ns")
+        if t.text in KEYWORDS:
+            raise self.error(f"'{t.text}' is a keyword, not a voltage point", t.span,
+                             "name a point from the device file's points: section")
+        opts = self.options(MOVE_OPTIONS, "move")
+        return T.Move(T.Ident(t.text, t.span), opts, self.span_from(start))
 
     def st_trigger(self, start: Token) -> T.Stmt:
         label = ""

@@ -75,6 +75,8 @@ def format_stmt(s: T.Stmt, indent: str = "") -> list[str]:
         return [f"{indent}wait {format_expr(s.duration)}{on}"]
     if isinstance(s, T.Read):
         return [f"{indent}read {_names(s.qubits)}"]
+    if isinstance(s, T.Move):
+        return [f"{indent}move {s.point.name}{_opts(s.options)}"]
     if isinstance(s, T.Trigger):
         return [f'{indent}trigger "{s.label}"' if s.label else f"{indent}trigger"]
     if isinstance(s, T.Do):

@@ -172,6 +172,14 @@ class Trigger:
 
 
 @dataclass(frozen=True, slots=True)
+class Move:
+    """``move POINT [ramp=TIME]``: the gates to a voltage point of the device."""
+    point: Ident
+    options: tuple[Option, ...]
+    span: Span
+
+
+@dataclass(frozen=True, slots=True)
 class Together:
     body: tuple["Stmt", ...]
     span: Span
@@ -200,7 +208,7 @@ class Do:
 
 
 Stmt = Union[DeviceStmt, Include, Let, SweepRange, SweepList, Prepare, Rot, Exchange,
-             Wait, Read, Trigger, Together, Repeat, BlockDef, Do]
+             Wait, Read, Trigger, Move, Together, Repeat, BlockDef, Do]
 
 
 @dataclass(frozen=True, slots=True)

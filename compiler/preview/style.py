@@ -116,12 +116,18 @@ def _trigger_labels(k, qubits, p: dict) -> list[str]:
     return ([f"{k.name} {label}"] if label else []) + list(k.labels)
 
 
+def _point_labels(k, qubits, p: dict) -> list[str]:
+    name = str(p.get("point", "")).strip()
+    return ([f"{k.name} {name}", f"→ {name}"] if name else []) + list(k.labels)
+
+
 # How each kind's label is made, by its ``label`` in compiler.steps.KINDS.
 LABELS = {
     "rotation": _rotation_labels,
     "frame": _frame_labels,
     "exchange": _exchange_labels,
     "trigger": _trigger_labels,
+    "point": _point_labels,
     "fixed": lambda k, qubits, p: list(k.labels),
 }
 

@@ -29,8 +29,10 @@ from ..errors import Problem, ScheduleError, Span, read_source_line
 from ..analog import burst_quantisation_loss, lsb, rc_tau
 from ..physics import precession_sign
 from ..steps import EXCHANGE_GATES, KINDS
-from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
-                      frame_updates_after, pair_gate, spectator_phase)
+from ..device import exchange as X
+from ..pulses import (BurstDesign, DesignError, ExchangeDesign, check_duration_request,
+                      design_burst, design_exchange, frame_updates_after, pair_gate,
+                      spectator_phase)
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 
 # Below this ratio of J to the Zeeman difference an exchange gate is not a
@@ -48,6 +50,10 @@ EXCHANGE_FIDELITY_WARN = 0.999
 TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
 MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
+# Warn when a bias tee's droop over a run, (1/τ)·∫(V − V_DC)dt of the levels
+# held at voltage points, exceeds this fraction of the largest step on the
+# channel (common practice, no source).
+DROOP_WARN = 0.01
 # Warn when the DAC codes of a burst lose more than this fraction of its area
 # (common practice, no source); when nothing is left it is an error.
 QUANTISATION_LOSS_WARN = 0.01
@@ -93,7 +99,16 @@ class InsertedInfo:
     spectator_frame_updates: tuple[tuple[str, float], ...] = ()
 
 
-SlotInfo = BurstInfo | FrameInfo | ExchangeInfo | InsertedInfo | None
+@dataclass(frozen=True, slots=True)
+class MoveInfo:
+    """A move to a voltage point: the levels of every point channel before
+    and after it (V, absolute; a ramp goes linearly from one to the other)."""
+    point: str
+    before: tuple[tuple[str, float], ...]
+    after: tuple[tuple[str, float], ...]
+
+
+SlotInfo = BurstInfo | FrameInfo | ExchangeInfo | InsertedInfo | MoveInfo | None
 
 
 @dataclass(frozen=True, slots=True)
@@ -228,6 +243,10 @@ RESOURCES = {
     P.Readout: lambda s, dev: tuple(f"dot:{q}" for q in s.qubits) + (f"ch:{dev.readout.marker}",),
     P.Trigger: lambda s, dev: tuple(f"dot:{q}" for q in dev.dots)
     + (f"ch:{dev.readout.trigger_marker}",),
+    # a move changes the charge configuration under every dot: a barrier
+    # across the dots and every gate channel a point names
+    P.Move: lambda s, dev: tuple(f"dot:{q}" for q in dev.dots)
+    + tuple(f"ch:{c}" for c in dev.point_channels),
     P.Parallel: lambda s, dev: tuple(dict.fromkeys(r for m in s.steps
                                                    for r in RESOURCES[type(m)](m, dev))),
 }
@@ -254,6 +273,10 @@ class _Scheduler:
         self.problems: dict[tuple, Problem] = {}
         self.warnings: dict[tuple, Warning_] = {}
         self.marker_free: dict[str, int] = {}
+        # the level of every gate channel a voltage point names (rest: no point)
+        self.levels = {c: device.rest_level(c) for c in device.point_channels}
+        self.point = ""                       # the point the gates are at ("" rest)
+        self.level_log: list[tuple[int, int, dict, dict]] = []   # (start, ramp, before, after)
         # repeated bodies reuse the same step objects: cache per object identity
         self._res_cache: dict[int, tuple[str, ...]] = {}
         self._burst_cache: dict[int, BurstDesign | None] = {}
@@ -328,6 +351,16 @@ class _Scheduler:
 
     def exchange_for(self, step: P.ExchangeGate) -> ExchangeDesign | None:
         c = self.device.coupling(step.a, step.b)
+        held = [(ch, self.levels[ch]) for ch in
+                (c.barrier, *(self.device.dots[d].plunger for d, _ in c.detune))
+                if ch in self.levels and self.levels[ch] != self.device.rest_level(ch)]
+        if held:
+            what = ", ".join(f"{ch} at {fq(v, VOLTAGE)}" for ch, v in held)
+            self.fail(f"the {step.gate} pulse needs its gates at rest, but the voltage point "
+                      f"'{self.point}' holds {what}", step,
+                      "move to a point that leaves the exchange's barrier (and detuned plungers) "
+                      "at their rest level before the exchange")
+            return None
         try:
             return design_exchange(step.gate, c, self.device, self.dt, step.duration,
                                    step.amplitude, step.angle)
@@ -563,6 +596,68 @@ class _Scheduler:
         ch = f"ch:{self.device.readout.trigger_marker}"
         self.occupy((ch,), t0 + int(math.ceil(TRIGGER_WIDTH / self.dt - 1e-9)))
 
+    def place_move(self, step: P.Move, t0: int, group: int, t_group) -> None:
+        dev = self.device
+        pt = dev.points[step.point]
+        n = 0
+        if step.ramp > 0:
+            if not step.ramp / self.dt <= MAX_RUN_SAMPLES - t0:
+                self.fail(f"this ramp of {step.ramp:.4g} s ends beyond {MAX_RUN_SAMPLES:,} "
+                          "samples, the longest run dotseq can place", step, "shorten the ramp")
+                return
+            try:
+                check_duration_request(step.ramp, self.dt, "ramp")
+            except DesignError as e:
+                self.fail(e.message, step, e.hint)
+                return
+            n = int(round(step.ramp / self.dt))
+        before = dict(self.levels)
+        after = {c: dev.rest_level(c) for c in dev.point_channels}
+        after.update(pt.levels)
+        self.levels, self.point = after, step.point
+        self.level_log.append((t0, n, before, after))
+        self.place_simple(step, t0, n, group, info=MoveInfo(
+            step.point, tuple(before.items()), tuple(after.items())))
+        for c in dev.couplings:
+            v = after.get(c.barrier)
+            if v is None or v <= c.idle_voltage:
+                continue
+            lo, hi = X.v_range(c.exchange)
+            j = float(X.j_of_v(c.exchange, min(max(v, lo), hi)))
+            pair = "-".join(c.dots)
+            self.warn(f"the voltage point '{step.point}' raises the barrier {c.barrier} of "
+                      f"{pair} to {fq(v, VOLTAGE)}, above its idle level "
+                      f"{fq(c.idle_voltage, VOLTAGE)}: J = {fq(j, FREQUENCY)} acts while the "
+                      "gates are there; the simulation includes it, the ideal circuit and the "
+                      "frames do not", step, f"point-exchange:{step.point}:{pair}", j)
+
+    def check_droop(self) -> None:
+        """Warn when a bias tee droops by more than DROOP_WARN of the largest
+        step of a point channel over the run: (1/τ)·∫(V − V_DC)dt."""
+        dev = self.device
+        if not self.level_log:
+            return
+        end = max([s.end_sample for s in self.slots] + [0])
+        for ch in dev.point_channels:
+            tau = dev.channels[ch].bias_tee
+            if tau <= 0:
+                continue
+            rest = dev.rest_level(ch)
+            area, big = 0.0, 0.0
+            for i, (t0, n, before, after) in enumerate(self.level_log):
+                stop = self.level_log[i + 1][0] if i + 1 < len(self.level_log) else end
+                a, b = before[ch] - rest, after[ch] - rest
+                area += (a + b) / 2 * n * self.dt + b * max(0, stop - t0 - n) * self.dt
+                big = max(big, abs(a), abs(b))
+            droop = abs(area) / tau
+            if big > 0 and droop > DROOP_WARN * big:
+                step = next(s.step for s in self.slots if isinstance(s.step, P.Move))
+                self.warn(f"the bias tee of channel '{ch}' droops by {fq(droop, VOLTAGE)} over the "
+                          f"run ((1/τ)·∫(V − V_DC)dt of the levels held at voltage points, τ = "
+                          f"{fq(tau, TIME)}), more than {DROOP_WARN:.0%} of the largest step "
+                          f"({fq(big, VOLTAGE)}): compile with --predistort to pre-compensate it, "
+                          "or return to the rest level sooner", step, f"droop:{ch}", droop / big)
+
     def place_nested_group(self, step: P.Parallel, t0: int, group: int, t_group) -> None:
         raise TypeError("a 'together' group inside a group reached the scheduler")
 
@@ -603,6 +698,7 @@ class _Scheduler:
                 self.place(step, -1)
             if logged:
                 log.append((step, tuple(range(first, len(self.slots))), before, dict(self.frames)))
+        self.check_droop()
         if self.problems:
             raise ScheduleError(list(self.problems.values()))
         n = max([s.end_sample for s in self.slots] + list(self.free.values()) + [0])
@@ -620,6 +716,7 @@ PLACE = {
     P.Idle: _Scheduler.place_idle,
     P.Readout: _Scheduler.place_readout,
     P.Trigger: _Scheduler.place_trigger,
+    P.Move: _Scheduler.place_move,
     P.Parallel: _Scheduler.place_nested_group,
 }
 

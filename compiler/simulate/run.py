@@ -276,6 +276,8 @@ def _label(step) -> str:
         if step.gate == "cphase":
             return f"cphase {step.a} {step.b} {math.degrees(step.angle):g}°"
         return f"{step.gate} {step.a} {step.b}"
+    if isinstance(step, P.Move):
+        return f"move {step.point}" + (f" ramp {step.ramp * 1e9:g} ns" if step.ramp else "")
     if isinstance(step, P.Idle):
         return f"wait {step.duration * 1e9:g} ns" + (f" on {' '.join(step.qubits)}" if step.qubits else "")
     return step.kind

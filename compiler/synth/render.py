@@ -51,7 +51,7 @@ SLOT_RENDER = {
     "sqrtswap": "exchange", "sqrtswap_inv": "exchange", "swap": "exchange",
     "cz": "exchange", "cphase": "exchange",
     "read": "readout", "trigger": "trigger", "zrot": "frame",
-    "wait": "time", "phasewait": "time",
+    "wait": "time", "phasewait": "time", "move": "level",
 }
 
 
@@ -233,11 +233,30 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         events[device.readout.trigger_marker].append((a, min(a + w, n), 1.0, "set"))
         return {"label": s.step.label, "width_s": w * dt}
 
+    # voltage points: each move sets every point channel for its ramp, then
+    # holds the new level up to the next move (or the end); levels at rest
+    # are the channel's baseline and need no event
+    moves = [s for s in tl.slots if s.kind == "move"]
+    next_move = {id(s): (moves[i + 1].start_sample if i + 1 < len(moves) else n)
+                 for i, s in enumerate(moves)}
+
+    def level(s: Slot, a: int, b: int) -> dict:
+        before, after = dict(s.info.before), dict(s.info.after)
+        stop = next_move[id(s)]
+        for ch, v in after.items():
+            v0, rest = before[ch], device.rest_level(ch)
+            if b > a and not (v0 == v == rest):
+                k = np.arange(b - a)
+                events[ch].append((a, b, v0 + (v - v0) * (k + 0.5) / (b - a), "set"))
+            if v != rest and stop > b:
+                events[ch].append((b, stop, float(v), "set"))
+        return {"point": s.info.point, "ramp_s": (b - a) * dt, "levels_V": after}
+
     def frame(s: Slot, a: int, b: int) -> dict:
         return {"angle_rad": s.step.angle, "frame_rad": s.info.frame}
 
     handlers = {"burst": burst, "exchange": exchange, "readout": readout, "trigger": trigger,
-                "frame": frame, "time": lambda s, a, b: {}}
+                "frame": frame, "level": level, "time": lambda s, a, b: {}}
     records: list[StepRecord] = []
     texts: dict = {}          # repeated steps share their source text and channel list
     chan_of: dict = {}
