@@ -33,6 +33,7 @@ CASES = {
     "ramsey_single": dict(nodes=3),
     "ribbon_long_range": dict(nodes=3, budget=False, steps=False),
     "rabi_chevron": dict(nodes=3, budget=False, steps=False),
+    "cz_bell": dict(nodes=3, budget=False),
 }
 # Run-level figures of results.json that must not move (wall times and
 # engine statistics are left out: they are not physics).
