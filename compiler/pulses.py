@@ -228,14 +228,15 @@ def _held_samples(runs, dt: float, tau: float, y0: float):
         if left <= 0:
             continue
         if isinstance(value, np.ndarray):       # a shaped part: every sample its own
-            x = np.asarray(value, float)
-            if tau > 0:
-                yb = analog.rc_boundaries(x, dt, tau, y)
-                yield x, yb[:-1], np.ones(len(x))
-                y = float(yb[-1])
-            else:
-                yield x, x.copy(), np.ones(len(x))
-                y = float(x[-1])
+            for c0 in range(0, len(value), HELD_CHUNK):
+                x = np.asarray(value[c0:c0 + HELD_CHUNK], float)
+                if tau > 0:
+                    yb = analog.rc_boundaries(x, dt, tau, y)
+                    yield x, yb[:-1], np.ones(len(x))
+                    y = float(yb[-1])
+                else:
+                    yield x, x.copy(), np.ones(len(x))
+                    y = float(x[-1])
             continue
         if tau <= 0:
             yield np.array([value], float), np.array([value], float), np.array([left], float)
@@ -353,6 +354,10 @@ def _shortest_exchange_hint(integral, hi: float, n: int, target: float, dt: floa
 # the flip-flop of a Hann pulse of a few hundred samples below 1e-4 in
 # probability: tests/test_pulses.py; common practice, no source).
 PHASE_J_FRACTION = 0.05
+# A shaped pulse has no repeated samples to count: its samples are computed
+# one by one, so it is bounded like a burst (1 ms at 1 GS/s, far beyond any
+# coherence time).
+MAX_SHAPED_SAMPLES = 1_000_000
 
 
 def zeeman_difference(device: Device, a: str, b: str) -> float:
@@ -421,14 +426,33 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
     if duration is not None:
         check_duration_request(duration, dt, what)
         n = _samples(duration, dt, what)
+        if n > MAX_SHAPED_SAMPLES:
+            raise DesignError(f"this {gate} pulse would last {n:,} samples, more than the "
+                              f"{MAX_SHAPED_SAMPLES:,} a shaped pulse may hold",
+                              "check the duration= (and its unit)")
         if n < 2:
             raise DesignError(f"a shaped {gate} pulse needs at least 2 samples",
                               "give a longer duration=")
-        if integral(hi, n) < target:
+        got = integral(hi, n)
+        if got < target:
+            from .units import TIME
+            # the integral of a window of fixed shape grows about linearly with
+            # its length: start there, then bisect for the shortest pulse
+            lo, k = n, min(math.ceil(n * target / max(got, 1e-300)) + 1, MAX_SHAPED_SAMPLES)
+            while k < MAX_SHAPED_SAMPLES and integral(hi, k) < target:
+                lo, k = k, min(2 * k, MAX_SHAPED_SAMPLES)
+            if integral(hi, k) < target:
+                hint = "a longer pulse than a shaped pulse may hold would be needed"
+            else:
+                while k - lo > 1:
+                    mid = (lo + k) // 2
+                    lo, k = (mid, k) if integral(hi, mid) < target else (lo, mid)
+                hint = (f"the shortest realisable at the top of the range is "
+                        f"duration={fq(k * dt, TIME)} ({k} samples)")
             raise DesignError(
                 f"even at the top of the barrier range ({hi * 1e3:.4g} mV) a {gate} pulse of "
                 f"{n} samples stays below the exchange it needs",
-                _shortest_exchange_hint(integral, hi, n, target, dt))
+                hint + "; or extend the J(V) calibration / channel range")
         level = solve(n, hi)
     else:
         if amplitude is not None:
@@ -456,9 +480,17 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
         # the fewest samples whose integral at v0 reaches the target (the
         # integral grows about linearly with n), then the level lowered to hit it
         n = max(2, math.ceil(target / max(integral(v0, 64) / 64, 1e-300)) - 2)
-        if n > 10_000_000:
-            raise DesignError(f"the {gate} pulse would be longer than 10^7 samples",
-                              "raise the barrier level (amplitude=)")
+        if n > MAX_SHAPED_SAMPLES:
+            from .units import FREQUENCY, TIME
+            why = (f"at J up to {fq(float(X.j_of_v(model, v0)), FREQUENCY)}"
+                   + (f" ({PHASE_J_FRACTION:g} of the Zeeman difference "
+                      f"{fq(delta, FREQUENCY)})" if amplitude is None and delta > 0 else ""))
+            raise DesignError(f"the {gate} pulse would last about {fq(n * dt, TIME)} "
+                              f"({n:,} samples) {why}, more than the {MAX_SHAPED_SAMPLES:,} "
+                              "samples a shaped pulse may hold",
+                              "a controlled phase needs a Zeeman difference of the pair well "
+                              "above 1/(pulse length); give amplitude= or duration= for a "
+                              "faster pulse, or use sqrtswap-based gates")
         while integral(v0, n) < target:
             n += 1
         while n > 2 and integral(v0, n - 1) >= target:

@@ -343,6 +343,9 @@ REQUEST_CASES = [
     pytest.param("rot A x 90 deg detuning=400 MHz", "ScheduleError", 1, 1,
                  "needs IF 346.2 MHz on line 'mw', outside its band",
                  "detunings from -246.2 MHz to 353.8 MHz fit the band", id="detuning-beyond-if-band"),
+    pytest.param(f'device "{DEMO_PAIR}"\ncz A B duration=10 ns', "ScheduleError", 2, 1,
+                 "a cz pulse of 10 samples stays below", "shortest realisable at the top of the "
+                 "range is duration=38 ns (38 samples)", id="cz-duration-beyond-calibration"),
     pytest.param("cz A B duration=1 ns", "ScheduleError", 1, 1,
                  "needs at least 2 samples", "longer duration=", id="cz-one-sample"),
     pytest.param("rot A x 90 deg duration=0.3 ns", "ScheduleError", 1, 1,

@@ -171,3 +171,19 @@ def test_hann_cz_is_adiabatic_at_the_default_ratio():
     v = d.samples()
     assert v[d.pre] - d.idle < 1e-3 * (d.level - d.idle)
     assert max(v) == pytest.approx(d.idle + (d.level - d.idle) * max(d.window))
+
+
+def test_cz_on_a_tiny_zeeman_difference_is_refused_quickly():
+    # ΔEz ≈ 0.6 kHz: J = ΔEz/20 would take tens of ms; refused at once with
+    # the reason, not designed sample by sample (common practice, no source)
+    import time
+    from compiler.device import load_device_text
+    text = (SEQUENCES / "devices" / "demo_pair.yaml").read_text().replace("g: 2.0012",
+                                                                          "g: 2.0000001")
+    dev = load_device_text(text, "d.yaml")
+    t = time.perf_counter()
+    with pytest.raises(PU.DesignError) as info:
+        PU.design_exchange("cz", dev.coupling("A", "B"), dev, 1e-9, angle=math.pi)
+    assert time.perf_counter() - t < 2.0
+    assert "of the Zeeman difference" in info.value.message
+    assert "sqrtswap" in info.value.hint
