@@ -271,6 +271,7 @@ def _held_nodes(x, yb, offsets, dt: float, tau: float, lo: float, hi: float) -> 
     return np.clip(y, lo, hi)
 
 
+@lru_cache(maxsize=256)
 def hann_window(n: int) -> tuple[float, ...]:
     """w_k = sin²(π(k + ½)/n), k = 0 … n−1: a raised-cosine (Hann) window at the
     sample midpoints, rising from and returning to zero with zero slope
@@ -419,6 +420,29 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
     def integral(level: float, n: int) -> float:
         return j_integral(model, level, idle, pre, n, post, dt, tau, hann_window(n))
 
+    def fewest(v: float, n0: int) -> int:
+        """The fewest samples (≥ 2) whose integral at level v reaches the
+        target (it grows with n): bracketed from the estimate n0, bisected."""
+        def ok(k: int) -> bool:
+            return integral(v, k) >= target
+        hi_n = max(2, n0)
+        if ok(hi_n):
+            lo = hi_n
+            while lo > 2 and ok(lo):
+                hi_n, lo = lo, max(2, lo // 2)
+            if ok(lo):
+                return lo
+        else:
+            lo = hi_n
+            while not ok(hi_n):
+                lo, hi_n = hi_n, 2 * hi_n
+                if hi_n > MAX_SHAPED_SAMPLES:
+                    return hi_n
+        while hi_n - lo > 1:                  # not ok(lo), ok(hi_n)
+            mid = (lo + hi_n) // 2
+            lo, hi_n = (lo, mid) if ok(mid) else (mid, hi_n)
+        return hi_n
+
     def solve(n: int, top: float) -> float:
         return float(brentq(lambda v: integral(v, n) - target, idle, top, xtol=1e-16,
                             rtol=1e-15, maxiter=200))
@@ -479,7 +503,9 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
                               "give amplitude= above idle, or duration=")
         # the fewest samples whose integral at v0 reaches the target (the
         # integral grows about linearly with n), then the level lowered to hit it
-        n = max(2, math.ceil(target / max(integral(v0, 64) / 64, 1e-300)) - 2)
+        n = max(2, math.ceil(target / max(integral(v0, 64) / 64, 1e-300)))
+        if n <= 4 * MAX_SHAPED_SAMPLES:
+            n = fewest(v0, n)
         if n > MAX_SHAPED_SAMPLES:
             from .units import FREQUENCY, TIME
             why = (f"at J up to {fq(float(X.j_of_v(model, v0)), FREQUENCY)}"
@@ -491,10 +517,6 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
                               "a controlled phase needs a Zeeman difference of the pair well "
                               "above 1/(pulse length); give amplitude= or duration= for a "
                               "faster pulse, or use sqrtswap-based gates")
-        while integral(v0, n) < target:
-            n += 1
-        while n > 2 and integral(v0, n - 1) >= target:
-            n -= 1
         level = solve(n, v0)
         if amplitude is not None and v0 - level > REQUEST_TOLERANCE * (v0 - idle):
             raise DesignError(
@@ -741,6 +763,10 @@ class PairGate:
 def _pair_gate_cached(design: ExchangeDesign, model, delta: float) -> PairGate:
     U = pair_propagator(design, model, delta)
     T = EXCHANGE_GATES[design.gate].target_for(design.angle)
+    if not EXCHANGE_GATES[design.gate].aligned:
+        # a diagonal target: Tr(T†U_q) sees only U's diagonal, which the
+        # pre-phase ξ multiplies by phases the post phases absorb
+        return PairGate(U, 0.0, float(_best_post(U, T, 0.0)[0]))
     xs = np.linspace(0, math.pi, 361, endpoint=False)
     vals = _best_post_many(_post_rows(U, T, xs))[0]
     x0 = xs[int(np.argmax(vals))]
