@@ -356,9 +356,11 @@ def _shortest_exchange_hint(integral, hi: float, n: int, target: float, dt: floa
 # probability: tests/test_pulses.py; common practice, no source).
 PHASE_J_FRACTION = 0.05
 # A shaped pulse has no repeated samples to count: its samples are computed
-# one by one, so it is bounded like a burst (1 ms at 1 GS/s, far beyond any
-# coherence time).
-MAX_SHAPED_SAMPLES = 1_000_000
+# one by one (about 0.1 s per solver step at 10^5 samples), so it is bounded:
+# 200 µs at 1 GS/s, beyond the coherence of any dot a controlled phase is
+# played on (T2* of 28Si/SiGe about 20 µs: Yoneda et al., Nat. Nanotechnol.
+# 13, 102 (2018)).
+MAX_SHAPED_SAMPLES = 200_000
 
 
 def zeeman_difference(device: Device, a: str, b: str) -> float:
@@ -504,7 +506,7 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
         # the fewest samples whose integral at v0 reaches the target (the
         # integral grows about linearly with n), then the level lowered to hit it
         n = max(2, math.ceil(target / max(integral(v0, 64) / 64, 1e-300)))
-        if n <= 4 * MAX_SHAPED_SAMPLES:
+        if n <= 2 * MAX_SHAPED_SAMPLES:       # else refused without computing it
             n = fewest(v0, n)
         if n > MAX_SHAPED_SAMPLES:
             from .units import FREQUENCY, TIME

@@ -119,7 +119,6 @@ def steps_for(device) -> str:
     dots = list(device.dots)
     lines = [f"rot {d} x 90 deg" for d in dots]
     lines += [f"sqrtswap {c.dots[0]} {c.dots[1]}" for c in device.couplings]
-    lines += [f"cz {c.dots[0]} {c.dots[1]}" for c in device.couplings]
     lines += [f"move {p} ramp=4 ns" for p in device.points]
     lines += ["wait 20 ns", "read " + " ".join(dots)]
     return "\n".join(lines) + "\n"

@@ -184,6 +184,6 @@ def test_cz_on_a_tiny_zeeman_difference_is_refused_quickly():
     t = time.perf_counter()
     with pytest.raises(PU.DesignError) as info:
         PU.design_exchange("cz", dev.coupling("A", "B"), dev, 1e-9, angle=math.pi)
-    assert time.perf_counter() - t < 2.0
+    assert time.perf_counter() - t < 1.0
     assert "of the Zeeman difference" in info.value.message
     assert "sqrtswap" in info.value.hint
