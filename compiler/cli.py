@@ -208,7 +208,12 @@ def _model_flags(p) -> None:
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
     p.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
-                   "variable (default 5)")
+                   "variable to start from (default 5; 1 switches the averaging off); refined "
+                   "until two rules agree within --averaging-tolerance")
+    p.add_argument("--averaging-tolerance", type=float, default=1e-4, metavar="FIDELITY",
+                   help="every run's average over quasi-static noise is refined until the "
+                   "fidelities of two successive quadrature rules agree within this (default "
+                   "1e-4); the achieved averaging error is reported per run")
     p.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
                    help="full product grid, one noise at a time (exact to second order), or auto")
     p.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
@@ -358,6 +363,7 @@ def cmd_preview(args) -> int:
 def _sim_options(args):
     from .simulate import SimOptions
     return SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes, rwa=not args.no_rwa,
+                      averaging_tolerance=args.averaging_tolerance,
                       quadrature=args.quadrature, budget=not args.no_budget,
                       steps=not args.no_steps, detail_run=args.detail_run)
 
@@ -471,7 +477,8 @@ def cmd_sweep(args) -> int:
                   "--more-workers-than-cores starts them all)")
         workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
-                      rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False)
+                      rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
+                      averaging_tolerance=args.averaging_tolerance)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
                       budget=args.budget, confine=args.confine)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])

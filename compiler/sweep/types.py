@@ -117,6 +117,7 @@ class PointResult:
     budget_floor: float | None = None
     budget_remainder: float | None = None
     wall_s: float = 0.0
+    averaging_error: float | None = None     # |F(n) − F(m)| of the last two quadrature rules (fidelity)
 
     @property
     def margin(self) -> float | None:
