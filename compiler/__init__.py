@@ -132,6 +132,8 @@ def _checked_steps(run, dev: Device):
             return bool(dev.readout.marker)
         if isinstance(s, P.Trigger):
             return bool(dev.readout.trigger_marker)
+        if isinstance(s, P.Move):
+            return s.point in dev.points
         return True
 
     steps = []

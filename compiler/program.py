@@ -29,6 +29,7 @@ class Rotation:
     span: Span
     via: tuple[str, ...] = ()
     qubit_spans: tuple[Span, ...] = ()   # where each qubit is named
+    detuning: float = 0.0      # Hz, the burst's tone minus the dot's Larmor frequency
     kind = "rot"
 
 
@@ -45,8 +46,8 @@ class FrameRotation:
 
 @dataclass(frozen=True, slots=True)
 class ExchangeGate:
-    """√SWAP, its inverse, or SWAP between two coupled dots."""
-    gate: str                  # "sqrtswap", "sqrtswap_inv", "swap"
+    """√SWAP, its inverse, SWAP, CZ or CPHASE(angle) between two coupled dots."""
+    gate: str                  # a key of compiler.steps.EXCHANGE_GATES
     a: str
     b: str
     duration: float | None     # s
@@ -54,6 +55,7 @@ class ExchangeGate:
     span: Span
     via: tuple[str, ...] = ()
     qubit_spans: tuple[Span, ...] = ()
+    angle: float = 0.0         # rad, conditional phase of cz (π) and cphase; 0 otherwise
 
     @property
     def kind(self) -> str:
@@ -89,6 +91,19 @@ class Trigger:
 
 
 @dataclass(frozen=True, slots=True)
+class Move:
+    """Take the gates to a named voltage point of the device: at once
+    (``ramp`` 0) or linearly over ``ramp`` seconds; they stay there until the
+    next move."""
+    point: str
+    ramp: float                # s, 0: a jump
+    span: Span
+    via: tuple[str, ...] = ()
+    point_span: Span | None = None   # where the point is named
+    kind = "move"
+
+
+@dataclass(frozen=True, slots=True)
 class Parallel:
     """Steps on different qubits that start together."""
     steps: tuple["Step", ...]
@@ -97,7 +112,7 @@ class Parallel:
     kind = "together"
 
 
-Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Parallel]
+Step = Union[Rotation, FrameRotation, ExchangeGate, Idle, Readout, Trigger, Move, Parallel]
 
 
 @dataclass(frozen=True, slots=True)
@@ -158,5 +173,6 @@ STEP_QUBITS = {
     Idle: lambda s: s.qubits,
     Readout: lambda s: s.qubits,
     Trigger: lambda s: (),
+    Move: lambda s: (),
     Parallel: lambda s: tuple(q for x in s.steps for q in step_qubits(x)),
 }

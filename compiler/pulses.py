@@ -190,9 +190,11 @@ class ExchangeDesign:
     idle: float                 # V, barrier level outside the pulse
     j_peak: float               # Hz, J at the pulse level
     integral: float             # ∫(J/h)dt over the slot, dimensionless
-    target: float               # 1/4, 1/2 or 3/4
+    target: float               # ∫(J/h)dt the gate needs: 1/4, 1/2, 3/4, or from a cphase angle
     tau: float                  # s, RC time constant of the barrier channel
     dt: float
+    window: tuple[float, ...] = ()  # shaped pulse: w_k per pulse sample (peak 1); () square
+    angle: float = 0.0          # rad, conditional phase of a controlled-phase gate
 
     @property
     def total(self) -> int:
@@ -201,7 +203,7 @@ class ExchangeDesign:
     def samples(self) -> np.ndarray:
         """Absolute barrier voltage per sample over the slot."""
         v = np.full(self.total, self.idle)
-        v[self.pre:self.pre + self.n] = self.level
+        v[self.pre:self.pre + self.n] = _pulse_values(self.level, self.idle, self.n, self.window)
         return v
 
 
@@ -224,6 +226,17 @@ def _held_samples(runs, dt: float, tau: float, y0: float):
     for value, count in runs:
         left = int(count)
         if left <= 0:
+            continue
+        if isinstance(value, np.ndarray):       # a shaped part: every sample its own
+            for c0 in range(0, len(value), HELD_CHUNK):
+                x = np.asarray(value[c0:c0 + HELD_CHUNK], float)
+                if tau > 0:
+                    yb = analog.rc_boundaries(x, dt, tau, y)
+                    yield x, yb[:-1], np.ones(len(x))
+                    y = float(yb[-1])
+                else:
+                    yield x, x.copy(), np.ones(len(x))
+                    y = float(x[-1])
             continue
         if tau <= 0:
             yield np.array([value], float), np.array([value], float), np.array([left], float)
@@ -258,19 +271,39 @@ def _held_nodes(x, yb, offsets, dt: float, tau: float, lo: float, hi: float) -> 
     return np.clip(y, lo, hi)
 
 
-def _slot_runs(level: float, idle: float, pre: int, n: int, post: int):
+@lru_cache(maxsize=256)
+def hann_window(n: int) -> tuple[float, ...]:
+    """w_k = sin²(π(k + ½)/n), k = 0 … n−1: a raised-cosine (Hann) window at the
+    sample midpoints, rising from and returning to zero with zero slope
+    (common practice for adiabatic exchange pulses, e.g. Xue et al., Nature
+    601, 343 (2022); shape of the window: no single source)."""
+    k = np.arange(n)
+    return tuple(float(x) for x in np.sin(math.pi * (k + 0.5) / n) ** 2)
+
+
+def _pulse_values(level: float, idle: float, n: int, window: tuple) -> np.ndarray | float:
+    """The pulse samples: ``level`` (square) or idle + (level − idle)·w_k."""
+    if not window:
+        return level
+    return idle + (level - idle) * np.asarray(window, float)
+
+
+def _slot_runs(level: float, idle: float, pre: int, n: int, post: int, window: tuple = ()):
+    if window and n:
+        return [(idle, pre), (_pulse_values(level, idle, n, window), n), (idle, post)]
     return [(idle, pre), (level, n), (idle, post)]
 
 
 def j_integral(model, level: float, idle: float, pre: int, n: int, post: int, dt: float,
-               tau: float) -> float:
+               tau: float, window: tuple = ()) -> float:
     """∫J(V(t))dt/h over an exchange slot (idle for ``pre`` samples, ``level``
-    for ``n``, idle for ``post``) through the RC, exactly up to quadrature
-    (Gauss–Legendre, GL_NODES per sample)."""
+    for ``n`` — or the shaped pulse idle + (level − idle)·w_k — idle for
+    ``post``) through the RC, exactly up to quadrature (Gauss–Legendre,
+    GL_NODES per sample)."""
     u = (_GL_X + 1.0) * 0.5 * dt                       # nodes in [0, dt]
     lo, hi = min(level, idle), max(level, idle)
     parts = []
-    for x, yb, w in _held_samples(_slot_runs(level, idle, pre, n, post), dt, tau, idle):
+    for x, yb, w in _held_samples(_slot_runs(level, idle, pre, n, post, window), dt, tau, idle):
         j = X.j_of_v(model, _held_nodes(x, yb, u, dt, tau, lo, hi))
         parts.append((j * _GL_W[None, :]).sum(axis=1) * 0.5 * dt * w)
     return float(math.fsum(np.concatenate(parts))) if parts else 0.0
@@ -317,15 +350,185 @@ def _shortest_exchange_hint(integral, hi: float, n: int, target: float, dt: floa
             f"({k} samples); or extend the J(V) calibration / channel range")
 
 
+# A controlled phase is played with J well below the Zeeman difference: by
+# default the peak J of its pulse is this fraction of |ΔEz| (J/ΔEz = 1/20 keeps
+# the flip-flop of a Hann pulse of a few hundred samples below 1e-4 in
+# probability: tests/test_pulses.py; common practice, no source).
+PHASE_J_FRACTION = 0.05
+# A shaped pulse has no repeated samples to count: its samples are computed
+# one by one (about 0.1 s per solver step at 10^5 samples), so it is bounded:
+# 200 µs at 1 GS/s, beyond the coherence of any dot a controlled phase is
+# played on (T2* of 28Si/SiGe about 20 µs: Yoneda et al., Nat. Nanotechnol.
+# 13, 102 (2018)).
+MAX_SHAPED_SAMPLES = 200_000
+
+
+def zeeman_difference(device: Device, a: str, b: str) -> float:
+    """δ = s_a·f_a − s_b·f_b (Hz), the pair's Zeeman difference in the qubit
+    frames (s = sign of g)."""
+    from .physics import precession_sign
+    d = device.dots
+    return (precession_sign(d[a].g) * device.larmor(a)
+            - precession_sign(d[b].g) * device.larmor(b))
+
+
 def design_exchange(gate: str, coupling: Coupling, device: Device, dt: float,
-                    duration: float | None = None, amplitude: float | None = None) -> ExchangeDesign:
+                    duration: float | None = None, amplitude: float | None = None,
+                    angle: float = 0.0) -> ExchangeDesign:
     """Barrier pulse for an exchange gate, solved through the coupling's J(V)
     with the channel's rise time included (cached: the same gate on the same
-    coupling is designed once)."""
+    coupling is designed once).  A controlled phase (``cz``, ``cphase`` with
+    its ``angle``) is a Hann-shaped pulse whose peak J is, unless the step
+    gives duration= or amplitude=, PHASE_J_FRACTION of the Zeeman difference
+    (at most the J of the coupling's pulse_voltage)."""
     ch = device.channels[coupling.barrier]
     taus = tuple(analog.rc_tau(device.channels[device.dots[d].plunger].rise_time)
                  for d, _ in coupling.detune)
+    kind = EXCHANGE_GATES[gate]
+    if kind.regime == "phase":
+        delta = abs(zeeman_difference(device, *coupling.dots))
+        return _design_phase(gate, coupling, ch, taus, dt, duration, amplitude, float(angle),
+                             delta)
     return _design_exchange(gate, coupling, ch, taus, dt, duration, amplitude)
+
+
+def _exchange_timing(coupling: Coupling, ch, plunger_taus: tuple, dt: float):
+    """(tau, pre, post, hi): the barrier's RC time, the settling samples before
+    (detuned plungers) and after the pulse, and the top of the usable range."""
+    tau = analog.rc_tau(ch.rise_time)
+    settle = math.ceil(SETTLE_TAUS * tau / dt) if tau > 0 else 0
+    pre = 0
+    if coupling.detune:
+        pre = max((math.ceil(SETTLE_TAUS * t / dt) for t in plunger_taus if t > 0), default=0)
+        settle = max(settle, pre)
+    top = analog.top_voltage(ch.v_min, ch.v_max, ch.bits)
+    hi = min(top, X.v_range(coupling.exchange)[1])
+    return tau, pre, settle, hi
+
+
+@lru_cache(maxsize=1024)
+def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: float,
+                  duration: float | None, amplitude: float | None, angle: float,
+                  delta: float) -> ExchangeDesign:
+    """A controlled-phase pulse: the barrier follows idle + (level − idle)·w(t)
+    with the Hann window w of :func:`hann_window`, its level solved so that
+    ∫J(V(t))dt/h equals the gate's integral (:func:`compiler.steps.phase_integral`)."""
+    model = coupling.exchange
+    target = EXCHANGE_GATES[gate].integral_for(angle)
+    idle = coupling.idle_voltage
+    tau, pre, post, hi = _exchange_timing(coupling, ch, plunger_taus, dt)
+    what = f"{gate} pulse"
+
+    def integral(level: float, n: int) -> float:
+        return j_integral(model, level, idle, pre, n, post, dt, tau, hann_window(n))
+
+    def fewest(v: float, n0: int) -> int:
+        """The fewest samples (≥ 2) whose integral at level v reaches the
+        target (it grows with n): bracketed from the estimate n0, bisected."""
+        def ok(k: int) -> bool:
+            return integral(v, k) >= target
+        hi_n = max(2, n0)
+        if ok(hi_n):
+            lo = hi_n
+            while lo > 2 and ok(lo):
+                hi_n, lo = lo, max(2, lo // 2)
+            if ok(lo):
+                return lo
+        else:
+            lo = hi_n
+            while not ok(hi_n):
+                lo, hi_n = hi_n, 2 * hi_n
+                if hi_n > MAX_SHAPED_SAMPLES:
+                    return hi_n
+        while hi_n - lo > 1:                  # not ok(lo), ok(hi_n)
+            mid = (lo + hi_n) // 2
+            lo, hi_n = (lo, mid) if ok(mid) else (mid, hi_n)
+        return hi_n
+
+    def solve(n: int, top: float) -> float:
+        return float(brentq(lambda v: integral(v, n) - target, idle, top, xtol=1e-16,
+                            rtol=1e-15, maxiter=200))
+
+    if duration is not None:
+        check_duration_request(duration, dt, what)
+        n = _samples(duration, dt, what)
+        if n > MAX_SHAPED_SAMPLES:
+            raise DesignError(f"this {gate} pulse would last {n:,} samples, more than the "
+                              f"{MAX_SHAPED_SAMPLES:,} a shaped pulse may hold",
+                              "check the duration= (and its unit)")
+        if n < 2:
+            raise DesignError(f"a shaped {gate} pulse needs at least 2 samples",
+                              "give a longer duration=")
+        got = integral(hi, n)
+        if got < target:
+            from .units import TIME
+            # the integral of a window of fixed shape grows about linearly with
+            # its length: start there, then bisect for the shortest pulse
+            lo, k = n, min(math.ceil(n * target / max(got, 1e-300)) + 1, MAX_SHAPED_SAMPLES)
+            while k < MAX_SHAPED_SAMPLES and integral(hi, k) < target:
+                lo, k = k, min(2 * k, MAX_SHAPED_SAMPLES)
+            if integral(hi, k) < target:
+                hint = "a longer pulse than a shaped pulse may hold would be needed"
+            else:
+                while k - lo > 1:
+                    mid = (lo + k) // 2
+                    lo, k = (mid, k) if integral(hi, mid) < target else (lo, mid)
+                hint = (f"the shortest realisable at the top of the range is "
+                        f"duration={fq(k * dt, TIME)} ({k} samples)")
+            raise DesignError(
+                f"even at the top of the barrier range ({hi * 1e3:.4g} mV) a {gate} pulse of "
+                f"{n} samples stays below the exchange it needs",
+                hint + "; or extend the J(V) calibration / channel range")
+        level = solve(n, hi)
+    else:
+        if amplitude is not None:
+            v0 = amplitude
+            if not (ch.v_min <= v0 <= hi):
+                raise DesignError(f"the barrier level {fq(v0, VOLTAGE)} is outside the range "
+                                  f"of channel '{ch.name}' and the J(V) calibration "
+                                  f"({fq(ch.v_min, VOLTAGE, 6)} to {fq(hi, VOLTAGE, 6)})",
+                                  "give an amplitude= inside the range, or duration=")
+        else:
+            pv = coupling.pulse_voltage if coupling.pulse_voltage is not None else hi
+            if delta > 0:
+                try:
+                    v0 = float(X.v_of_j(model, PHASE_J_FRACTION * delta))
+                except ValueError:
+                    v0 = pv
+                v0 = min(v0, pv, hi)
+            else:
+                v0 = min(pv, hi)
+        if v0 <= idle:
+            raise DesignError(f"the barrier level {v0 * 1e3:.4g} mV for the {gate} is not above "
+                              f"the idle level {idle * 1e3:.4g} mV (J there: "
+                              f"{float(X.j_of_v(model, v0)):.3g} Hz)",
+                              "give amplitude= above idle, or duration=")
+        # the fewest samples whose integral at v0 reaches the target (the
+        # integral grows about linearly with n), then the level lowered to hit it
+        n = max(2, math.ceil(target / max(integral(v0, 64) / 64, 1e-300)))
+        if n <= 2 * MAX_SHAPED_SAMPLES:       # else refused without computing it
+            n = fewest(v0, n)
+        if n > MAX_SHAPED_SAMPLES:
+            from .units import FREQUENCY, TIME
+            why = (f"at J up to {fq(float(X.j_of_v(model, v0)), FREQUENCY)}"
+                   + (f" ({PHASE_J_FRACTION:g} of the Zeeman difference "
+                      f"{fq(delta, FREQUENCY)})" if amplitude is None and delta > 0 else ""))
+            raise DesignError(f"the {gate} pulse would last about {fq(n * dt, TIME)} "
+                              f"({n:,} samples) {why}, more than the {MAX_SHAPED_SAMPLES:,} "
+                              "samples a shaped pulse may hold",
+                              "a controlled phase needs a Zeeman difference of the pair well "
+                              "above 1/(pulse length); give amplitude= or duration= for a "
+                              "faster pulse, or use sqrtswap-based gates")
+        level = solve(n, v0)
+        if amplitude is not None and v0 - level > REQUEST_TOLERANCE * (v0 - idle):
+            raise DesignError(
+                f"the barrier level {v0 * 1e3:.4g} mV is not realisable on the sample grid: the "
+                f"{gate} pulse would last {n} samples and its peak would have to drop to "
+                f"{level * 1e3:.4g} mV (more than {REQUEST_TOLERANCE:.0%} of the pulse height)",
+                f"nearest realisable: amplitude={fq(level, VOLTAGE)}; or give duration=")
+    w = hann_window(n)
+    return ExchangeDesign(gate, pre, n, post, level, idle, float(X.j_of_v(model, level)),
+                          integral(level, n), target, tau, dt, w, angle)
 
 
 @lru_cache(maxsize=1024)
@@ -448,7 +651,8 @@ def pair_propagator(design: ExchangeDesign, model, delta: float) -> np.ndarray:
     d = 2 * math.pi * delta / 2 * h       # (δ/2)·h in rad
     a_parts = []
     mid = np.eye(2, dtype=complex)
-    runs = _slot_runs(design.level, design.idle, design.pre, design.n, design.post)
+    runs = _slot_runs(design.level, design.idle, design.pre, design.n, design.post,
+                      design.window)
     for x, yb, w in _held_samples(runs, dt, design.tau, design.idle):
         y = _held_nodes(x, yb, offsets, dt, design.tau, lo, hi)
         jbar = (X.j_of_v(model, y) * _GL_W).sum(axis=-1) * 0.5   # mean J per sub-step, Hz
@@ -560,7 +764,11 @@ class PairGate:
 @lru_cache(maxsize=256)
 def _pair_gate_cached(design: ExchangeDesign, model, delta: float) -> PairGate:
     U = pair_propagator(design, model, delta)
-    T = EXCHANGE_GATES[design.gate].target
+    T = EXCHANGE_GATES[design.gate].target_for(design.angle)
+    if not EXCHANGE_GATES[design.gate].aligned:
+        # a diagonal target: Tr(T†U_q) sees only U's diagonal, which the
+        # pre-phase ξ multiplies by phases the post phases absorb
+        return PairGate(U, 0.0, float(_best_post(U, T, 0.0)[0]))
     xs = np.linspace(0, math.pi, 361, endpoint=False)
     vals = _best_post_many(_post_rows(U, T, xs))[0]
     x0 = xs[int(np.argmax(vals))]
@@ -594,7 +802,7 @@ def _post_table(design: ExchangeDesign, model, delta: float):
     [0, π], for interpolation (σ, η unwrapped along ξ)."""
     g = pair_gate(design, model, delta)
     xs = np.linspace(0.0, math.pi, TABLE_POINTS + 1)
-    rows = _post_rows(g.U_mean, EXCHANGE_GATES[design.gate].target, xs)
+    rows = _post_rows(g.U_mean, EXCHANGE_GATES[design.gate].target_for(design.angle), xs)
     best, sg, et = _best_post_many(rows)
     # (σ, η) and (σ + π, η + π) are the same gate up to a global sign, and σ, η
     # are defined mod 2π: follow the branch continuously so interpolation is smooth

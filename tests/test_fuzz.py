@@ -39,7 +39,8 @@ ALPHABET = st.sampled_from(list("abAB xyz019.-+*/^(){}[],;=#\"\n\t") +
                            ["rot ", "wait ", "ns", "deg", "let ", "sweep ", "repeat ", "do ", "block ",
                             "together", "sqrtswap A B", "MHz", "mV", " on ", "phase(", "1e308", "nan",
                             "inf", "-0", " duration=", " amplitude=", " shape=gauss", "read A B",
-                            "prepare A B singlet", "trigger ", "swap A B", "rot A x 90 deg\n"])
+                            "prepare A B singlet", "trigger ", "swap A B", "rot A x 90 deg\n",
+                            "cz A B", "cphase A B ", " detuning=", "move ", " ramp="])
 DEVICE_FILES = [BUNDLED_DEFAULT] + sorted((SEQUENCES / "devices").glob("*.yaml"))
 DEVICE_SEEDS = [Path(p).read_text(encoding="utf-8") for p in DEVICE_FILES]
 YAML_ALPHABET = st.sampled_from(
@@ -48,6 +49,7 @@ YAML_ALPHABET = st.sampled_from(
      "  A:\n", "    g: ", "t1: ", "t2: ", "sample_rate: ", "bits: ", "range: ", "kind: iq",
      "kind: gate", "kind: marker", "lo: ", "if_band: ", "drive: {line: mw, rabi_per_volt: 1 MHz/V}",
      "plunger: P_A", "model: table", "points: [[0 mV, 1 kHz], [1 mV, 2 kHz]]", "- ", "? ",
+     "points:\n", "  load: {P_A: 1 mV}\n",
      ".nan", ".inf", "-.inf", "1e999", "0 GS/s", "-1 ns", "1 GS/s", "500 mT", "40 mK", "mV", "MHz",
      "&a ", "*a", "<<: *a", "!!python/object:os.system", "!!binary", "~", "null", "yes", "0x1F",
      "1_000", "--- ", "...\n", "preset: gaas", "preset: bilayer_graphene"])
@@ -117,6 +119,7 @@ def steps_for(device) -> str:
     dots = list(device.dots)
     lines = [f"rot {d} x 90 deg" for d in dots]
     lines += [f"sqrtswap {c.dots[0]} {c.dots[1]}" for c in device.couplings]
+    lines += [f"move {p} ramp=4 ns" for p in device.points]
     lines += ["wait 20 ns", "read " + " ".join(dots)]
     return "\n".join(lines) + "\n"
 

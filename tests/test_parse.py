@@ -111,3 +111,37 @@ def test_expression_round_trip(expr):
     text = format_source(src)
     back = strip_spans(parse_text(text))
     assert back == strip_spans(src), text
+
+
+NEW_STEP_FORMS = """rot A x 90 deg detuning=-2.5 MHz
+rot A y 180 deg duration=100 ns detuning=d
+cz A B
+cz A B duration=300 ns
+cphase A B 90 deg
+cphase A B -(pi / 4) rad amplitude=200 mV
+cphase A B theta duration=t
+together {
+    cz A B
+    rot C x 90 deg
+}
+"""
+
+
+def test_new_step_forms_print_back():
+    tree = parse_text(NEW_STEP_FORMS)
+    text = format_source(tree)
+    assert text == NEW_STEP_FORMS
+    assert strip_spans(parse_text(text)) == strip_spans(tree)
+    cp = tree.body[4]
+    assert cp.kind == "cphase" and cp.angle == T.Num("90", "deg", cp.angle.span)
+    assert tree.body[2].angle is None
+    assert tree.body[0].options[0].key == "detuning"
+
+
+@settings(max_examples=100, deadline=None)
+@given(_exprs())
+def test_cphase_angle_round_trip(expr):
+    a, b = T.Ident("A", None), T.Ident("B", None)
+    src = T.SourceFile("", (T.Exchange("cphase", a, b, (), None, expr),))
+    text = format_source(src)
+    assert strip_spans(parse_text(text)) == strip_spans(src), text

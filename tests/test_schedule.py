@@ -176,7 +176,8 @@ def test_weak_exchange_warning_says_how_to_fix_it():
     assert "fix: a larger J: J ≥ 27.99 MHz" in m and "give amplitude=289.8 mV" in m
     assert "pulse_voltage of A-C" in m
     assert "a smaller Zeeman difference" in m
-    assert "controlled-phase" not in m and "cz" not in m.lower()    # no such gate in the language
+    # the regime where a controlled phase works instead (Russ et al., PRB 97, 085421 (2018))
+    assert "or a controlled phase (cz A C), which needs J well below the Zeeman difference" in m
 
 
 def test_a_warning_inside_a_block_names_the_statement_and_the_call():
@@ -185,6 +186,27 @@ def test_a_warning_inside_a_block_names_the_statement_and_the_call():
     text = w.render()
     assert text.startswith("t.dotseq:2:3: warning: J = ")
     assert "\n    in block 'g' called at t.dotseq:5:1" in text
+
+
+def test_controlled_phase_pulse_integrates_to_its_angle():
+    # a controlled phase θ needs ∫(J/h)dt = (−θ mod 2π)/2π (the conditional phase
+    # of an adiabatic exchange pulse is −2π∫(J/h)dt: Russ et al., PRB 97,
+    # 085421 (2018)); the Hann-shaped pulse integrated independently (scipy quad)
+    tl = timeline("cz A B duration=200 ns\ncphase A B 90 deg duration=150 ns\n"
+                  "cphase A B -60 deg duration=100 ns\n")
+    ex = [s for s in tl.slots if s.exchange is not None]
+    for slot, target in zip(ex, (0.5, 0.75, 1 / 6)):
+        assert _played_integral(slot) == pytest.approx(target, rel=1e-9)
+        w = np.asarray(slot.exchange.window)
+        assert w[0] < 1e-3 and w[-1] < 1e-3 and abs(w.max() - 1) < 1e-3
+    # no phase alignment is inserted before a controlled phase
+    assert [s.kind for s in tl.slots] == ["cz", "cphase", "cphase"]
+
+
+def test_controlled_phase_in_a_group_with_a_burst_on_another_dot():
+    tl = timeline("together { cz A B duration=200 ns ; rot C x 90 deg }\n")
+    kinds = {s.kind: s for s in tl.slots}
+    assert kinds["cz"].start_sample == kinds["rot"].start_sample == 0
 
 
 def test_readout_beside_a_burst_warns_with_its_position():

@@ -17,7 +17,7 @@ from compiler.check.summary import KIND_ORDER
 from compiler.parse.parser import KEYWORDS
 from compiler.preview.style import LABELS, STEP_STYLE, kind_name, step_labels
 from compiler.schedule.timeline import (PLACE, RESOURCES, BurstInfo, ExchangeInfo, FrameInfo,
-                                        InsertedInfo)
+                                        InsertedInfo, MoveInfo)
 from compiler.simulate.fidelity import IDEAL_OPS, exchange_unitary
 from compiler.synth.render import SLOT_RENDER
 
@@ -58,7 +58,7 @@ def test_synthesis_renders_every_kind_a_timeline_holds():
     # 'together' is opened by the scheduler; 'pad' is added by synthesis itself
     assert set(SLOT_RENDER) == set(K.KINDS) - {"together", "pad"}
     assert set(SLOT_RENDER.values()) == {"burst", "exchange", "readout", "trigger", "frame",
-                                         "time"}
+                                         "level", "time"}
 
 
 def test_preview_and_summary_know_every_kind():
@@ -75,11 +75,27 @@ def test_exchange_gates_defined_once_and_consistent():
     for g in K.EXCHANGE_GATES.values():
         # exp(−i·2π·x·S1·S2) with x = ∫(J/h)dt is the target up to a global
         # phase: x = 1/4 gives √SWAP, 1/2 SWAP (Loss & DiVincenzo, PRA 57,
-        # 120 (1998))
-        u = exchange_unitary(g.keyword, 0, 1, 2)
-        overlap = abs(np.trace(g.target.conj().T @ u)) / 4
-        assert overlap == pytest.approx(1.0, abs=1e-12), g.keyword
-        assert np.allclose(g.target @ g.target.conj().T, np.eye(4), atol=1e-14)
+        # 120 (1998)); a controlled phase is its own target
+        for angle in (math.pi, math.pi / 2, -0.3):
+            u = exchange_unitary(g.keyword, 0, 1, 2, angle)
+            t = g.target_for(angle)
+            overlap = abs(np.trace(t.conj().T @ u)) / 4
+            assert overlap == pytest.approx(1.0, abs=1e-12), g.keyword
+            assert np.allclose(t @ t.conj().T, np.eye(4), atol=1e-14)
+        assert g.regime in ("swap", "phase")
+        assert g.aligned == (g.regime == "swap")
+
+
+def test_controlled_phase_integral_and_target():
+    # the conditional phase of an adiabatic exchange pulse is −2π∫(J/h)dt
+    # (Meunier, Calado & Vandersypen, PRB 83, 121403 (2011), from memory;
+    # Russ et al., PRB 97, 085421 (2018)): CZ needs 1/2, CPHASE(π/2) 3/4
+    assert K.EXCHANGE_GATES["cz"].integral_for() == 0.5
+    assert K.EXCHANGE_GATES["cz"].integral_for(0.1) == 0.5       # cz ignores a step angle
+    assert K.EXCHANGE_GATES["cphase"].integral_for(math.pi / 2) == pytest.approx(0.75)
+    assert K.EXCHANGE_GATES["cphase"].integral_for(-math.pi / 2) == pytest.approx(0.25)
+    assert K.EXCHANGE_GATES["cphase"].integral_for(2 * math.pi) == 0.0
+    assert np.allclose(K.EXCHANGE_GATES["cz"].target_for(), np.diag([1, 1, 1, -1]))
 
 
 def test_slot_information_is_typed_and_never_changed(tmp_path):
@@ -90,7 +106,7 @@ def test_slot_information_is_typed_and_never_changed(tmp_path):
     for tl in checked.timelines:
         for s in tl.slots:
             assert s.info is None or isinstance(
-                s.info, (BurstInfo, FrameInfo, ExchangeInfo, InsertedInfo)), s.kind
+                s.info, (BurstInfo, FrameInfo, ExchangeInfo, InsertedInfo, MoveInfo)), s.kind
             hash(s.info)          # frozen all the way down: no dict to change
             seen.add(type(s.info))
             if s.info is not None:

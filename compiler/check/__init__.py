@@ -54,6 +54,19 @@ def _check_trigger(s: P.Trigger, device: Device, known, add) -> None:
                      "add readout: {trigger_marker: NAME} to the device file"))
 
 
+def _check_move(s: P.Move, device: Device, known, add) -> None:
+    if s.point in device.points:
+        return
+    span = s.point_span or s.span
+    if device.points:
+        hint = (suggest(s.point, device.points) or "") + \
+            " points of the device: " + ", ".join(device.points)
+    else:
+        hint = ("the device file has no points: section; add e.g. 'points: {measure: "
+                "{P_A: 12 mV}}'")
+    add(_problem(f"the device has no voltage point '{s.point}'", s, hint.strip(), span))
+
+
 def _check_qubits(s, device: Device, known, add) -> None:
     for q in P.step_qubits(s):
         known(q, s)
@@ -72,6 +85,7 @@ CHECKS = {
     P.Idle: _check_qubits,
     P.Readout: _check_readout,
     P.Trigger: _check_trigger,
+    P.Move: _check_move,
     P.Parallel: _check_group,
 }
 

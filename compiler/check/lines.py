@@ -36,7 +36,7 @@ from ..device.model import Device
 from ..errors import Problem, read_source_line
 from ..physics import precession_sign
 from ..pulses import spectator_flip
-from ..schedule.timeline import Slot, Timeline, Warning_
+from ..schedule.timeline import Slot, Timeline, Warning_, burst_detuning
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 
 # Warn when a burst flips another dot on its line with at least this
@@ -90,12 +90,12 @@ def crosstalk_warnings(tl: Timeline, device: Device) -> list[Warning_]:
     for s, busy in zip(bursts, alongside):
         q = s.qubits[0]
         line = _line_of(s, device)
-        f_q = device.larmor(q)
+        f_q = device.larmor(q) + burst_detuning(s)
         for o, dot in device.dots.items():
             if o == q or o in busy or dot.drive.line != line:
                 continue
             delta = f_q - device.larmor(o)
-            fk = (id(s.burst), o)
+            fk = (id(s.burst), o, f_q)
             p = flips.get(fk)
             if p is None:
                 p = flips[fk] = spectator_flip(s.burst, dot.drive.rabi_per_volt, delta, s.dt,

@@ -32,19 +32,20 @@ from .. import spectra
 from ..units import (FREQ_NOISE, VOLT_NOISE)
 from ..units import (ANGLE, ENERGY, EXAMPLE_UNIT, FIELD, FIELD_PER_VOLT, FREQ_PER_VOLT, FREQUENCY,
                      NONE, TEMPERATURE, TIME, VOLTAGE, Dim, UnitError, format_distinct,
-                     parse_quantity)
+                     format_quantity, parse_quantity)
 from . import exchange as xch
 from . import levels as lv
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MEMORY, MAX_MIN_LENGTH, Channel, Coupling,
                     Device, Dot, Drive, ExchangeModel, Mixer, Readout, RotationDefaults,
-                    granularity_of)
+                    VoltagePoint, granularity_of)
 from .presets import PRESETS
 from .rules import ERROR, validate
 
 # --------------------------------------------------------------------- schema
 
 TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
-TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time")
+TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time",
+                "points")
 
 DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise",
             "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
@@ -942,6 +943,62 @@ def _read_readout(r: _Reader, kv: tuple[Node, Node]) -> tuple[Readout, dict] | N
             {"marker": marker, "trigger_marker": trig})
 
 
+def _read_points(r: _Reader, kv: tuple[Node, Node], channels: dict) -> dict[str, VoltagePoint]:
+    """``points: {NAME: {GATE_CHANNEL: LEVEL, ...}, ...}``: named voltage points
+    (charge configurations), each level inside its gate channel's range."""
+    knode, vnode = kv
+    out: dict[str, VoltagePoint] = {}
+    ex = "points: {load: {P_A: 20 mV, P_B: -5 mV}, measure: {P_A: 12 mV}}"
+    if not isinstance(vnode, MappingNode) or not vnode.value:
+        r.error(vnode if isinstance(vnode, MappingNode) else knode,
+                "points must be a mapping of point name -> {gate channel: level, ...} with at "
+                "least one point", f"e.g. {ex}")
+        return out
+    for pk, pv in vnode.value:
+        try:
+            name = r.ident(pk, "points", "voltage point")
+        except _Skip:
+            continue
+        path = f"points.{name}"
+        if name in out:
+            r.error(pk, f"duplicate key '{name}' in points", "give each point one entry")
+            continue
+        if not isinstance(pv, MappingNode) or not pv.value:
+            r.error(pv if isinstance(pv, MappingNode) else pk,
+                    f"{path} must be a mapping of gate channel -> level with at least one "
+                    f"channel, got {_kind_of(pv)}", f"e.g. '{name}: {{P_A: 20 mV}}'")
+            continue
+        r.nodes[path] = pk
+        levels: list[tuple[str, float]] = []
+        seen: set[str] = set()
+        ok = True
+        for ck, cv in pv.value:
+            try:
+                ch_name = r.ident(ck, path, "channel")
+            except _Skip:
+                ok = False
+                continue
+            if ch_name in seen:
+                r.error(ck, f"duplicate key '{ch_name}' in {path}", "remove one of the two")
+                ok = False
+                continue
+            seen.add(ch_name)
+            ch = _need_channel(r, channels, _Val(ch_name, ck), f"{path}.{ch_name}", "gate")
+            try:
+                v = r.quantity(cv, f"{path}.{ch_name}", VOLTAGE, bare_zero=True)
+            except _Skip:
+                ok = False
+                continue
+            r.nodes[f"{path}.{ch_name}"] = cv
+            if ch is None:
+                ok = False
+                continue
+            levels.append((ch_name, v))
+        if ok:
+            out[name] = VoltagePoint(name, tuple(levels), r.span(pk))
+    return out
+
+
 # ------------------------------------------------------------------ the walk
 
 def _need_channel(r: _Reader, channels: dict, ref: _Val, path: str, kind: str) -> Channel | None:
@@ -1105,6 +1162,27 @@ def _build(r: _Reader, root: Node) -> Device:
             cp = dataclasses.replace(cp, barrier_noise=bn)
         couplings.append(cp)
 
+    points = _read_points(r, top["points"], channels) if "points" in top else {}
+    for pt in points.values():
+        # the generator plays the level, or behind a bias tee the level minus
+        # the DC level (the rest level comes through the tee): it must fit the
+        # channel's range (what synthesis would refuse, said here at the value)
+        from ..analog import top_voltage
+        for ch_name, v in pt.levels:
+            ch = channels[ch_name]
+            rest = next((c.idle_voltage for c in couplings if c.barrier == ch_name), 0.0)
+            dc = rest if ch.bias_tee > 0 else 0.0
+            top = top_voltage(ch.v_min, ch.v_max, ch.bits)
+            if not (ch.v_min <= v - dc <= top):
+                fq_ = lambda x: format_quantity(x, VOLTAGE)   # noqa: E731
+                tee = (f" (the level minus the DC level {fq_(dc)} behind the bias tee)"
+                       if dc else "")
+                r.error(r.nodes[f"points.{pt.name}.{ch_name}"],
+                        f"points.{pt.name}.{ch_name}: the generator would play {fq_(v - dc)}"
+                        f"{tee}, outside the range of channel '{ch_name}' ({fq_(ch.v_min)} to "
+                        f"{fq_(top)})", "give a level inside the range, or widen the channel's "
+                        "range")
+
     if readout is not None:
         ro, refs = readout
         _need_channel(r, channels, refs["marker"], "readout.marker", "marker")
@@ -1120,7 +1198,7 @@ def _build(r: _Reader, root: Node) -> Device:
                     rotation=rotation[0] if rotation else RotationDefaults(),
                     readout=readout[0] if readout else Readout(),
                     notes=notes.value if notes else "", field_tilt=tilt_v,
-                    acquisition_time=acq.value if acq else 0.0)
+                    acquisition_time=acq.value if acq else 0.0, points=points)
     for f in validate(device):
         node = _locate(r, root, f.key, f.near)
         message = f.message

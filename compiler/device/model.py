@@ -180,6 +180,20 @@ class RotationDefaults:
 
 
 @dataclass(frozen=True)
+class VoltagePoint:
+    """A named charge configuration: the levels (V, absolute, as the sample
+    sees them) of the gate channels it names.  A ``move`` step takes the
+    gates there; gates of other points that this one does not name go back
+    to their rest level (a barrier's idle_voltage, else 0 V)."""
+    name: str
+    levels: tuple[tuple[str, float], ...]   # (gate channel, V), in file order
+    span: Span | None = None
+
+    def level(self, channel: str) -> float | None:
+        return dict(self.levels).get(channel)
+
+
+@dataclass(frozen=True)
 class Readout:
     marker: str = ""          # marker channel for readout windows
     duration: float = 0.0     # s
@@ -200,6 +214,7 @@ class Device:
     notes: str = ""
     field_tilt: float = 0.0   # rad from the sample plane (0 = in-plane, π/2 = out of plane)
     acquisition_time: float = 0.0   # s, total time a measurement averages over (0: not given)
+    points: dict[str, VoltagePoint] = field(default_factory=dict)  # named voltage points
     # Physically doubtful but legal settings (large idle exchange, weak
     # thermal polarisation, ...): positioned like errors, never raised.
     warnings: tuple[Problem, ...] = ()
@@ -249,6 +264,19 @@ class Device:
     def alignment(self) -> int:
         """Samples the outputs grow by for the delays (the largest shift)."""
         return max(self.shifts.values(), default=0)
+
+    def rest_level(self, channel: str) -> float:
+        """The level (V) a gate channel holds when no point names it: its
+        coupling's idle_voltage for a barrier, else 0 V."""
+        for c in self.couplings:
+            if c.barrier == channel:
+                return c.idle_voltage
+        return 0.0
+
+    @cached_property
+    def point_channels(self) -> tuple[str, ...]:
+        """The gate channels any voltage point names, in file order."""
+        return tuple(dict.fromkeys(ch for p in self.points.values() for ch, _ in p.levels))
 
     def larmor(self, dot: str) -> float:
         """Larmor frequency of a dot (Hz)."""

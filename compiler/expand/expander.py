@@ -10,7 +10,8 @@ from .. import program as P
 from ..errors import Problem, SequenceError, Span, did_you_mean, read_source_line, suggest
 from ..limits import BYTES_PER_STEP, FLAG_HINT, MAX_TOTAL_STEPS, Budget, human
 from ..parse import tree as T
-from ..units import ANGLE, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
+from ..steps import EXCHANGE_GATES
+from ..units import ANGLE, FREQUENCY, NONE, TIME, VOLTAGE, EXAMPLE_UNIT, Dim, format_quantity
 from .evaluate import EvalError, Pending, Quantity, QubitRef, _PendingUse, evaluate
 
 MAX_RUNS = 100_000          # sweep points in one file
@@ -239,7 +240,7 @@ class Expander:
                                  _SATURATED)
             elif isinstance(s, T.Do):
                 total += self._estimate_call(s, env, blocks, sweeps, stack, memo)
-            elif isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Trigger, T.Together)):
+            elif isinstance(s, (T.Rot, T.Exchange, T.Wait, T.Read, T.Trigger, T.Move, T.Together)):
                 total += 1
             if total >= _SATURATED:
                 return _SATURATED
@@ -358,7 +359,12 @@ class Expander:
             else:
                 phase = _AXIS_PHASE[s.axis.kind] + (math.pi if s.axis.negative else 0.0)
             shape, dur, amp = self.step_options(s.options, env, via, burst=True)
-            out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,)))
+            detuning = 0.0
+            for o in s.options:
+                if o.key == "detuning":
+                    detuning = self.value(o.value, env, FREQUENCY, "the detuning option", via)
+            out.append(P.Rotation(q, phase, angle, shape, dur, amp, s.span, via, (qs,),
+                                  detuning))
         elif isinstance(s, T.Exchange):
             a, sa = self.qubit(s.a, env, via)
             b, sb = self.qubit(s.b, env, via)
@@ -366,7 +372,18 @@ class Expander:
                 raise self.fail(f"{s.kind} needs two different qubits, got {a} twice", sb,
                                 "", via)
             _, dur, amp = self.step_options(s.options, env, via, burst=False)
-            out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb)))
+            gate = EXCHANGE_GATES[s.kind]
+            angle = 0.0
+            if s.angle is not None:
+                angle = self.value(s.angle, env, ANGLE, "the conditional phase", via)
+                if gate.integral_for(angle) == 0.0:
+                    raise self.fail(f"cphase by {format_quantity(angle, ANGLE)} is the identity "
+                                    "(a multiple of 360 deg)", s.angle.span,
+                                    "leave the step out, or give a phase that is not a multiple "
+                                    "of 360 deg", via)
+            elif gate.angle is not None:
+                angle = gate.angle
+            out.append(P.ExchangeGate(s.kind, a, b, dur, amp, s.span, via, (sa, sb), angle))
         elif isinstance(s, T.Wait):
             d = self.value(s.duration, env, TIME, "the wait", via)
             if d < 0:
@@ -379,6 +396,14 @@ class Expander:
             out.append(P.Readout(qs, s.span, via, spans))
         elif isinstance(s, T.Trigger):
             out.append(P.Trigger(s.label, s.span, via))
+        elif isinstance(s, T.Move):
+            ramp = 0.0
+            for o in s.options:          # the parser allows only ramp=
+                ramp = self.value(o.value, env, TIME, "the ramp option", via)
+                if ramp < 0:
+                    raise self.fail(f"the ramp is negative ({format_quantity(ramp, TIME)})",
+                                    o.value.span, "give ramp=0 ns (a jump) or longer", via)
+            out.append(P.Move(s.point.name, ramp, s.span, via, s.point.span))
         elif isinstance(s, T.Together):
             inner: list = []
             for x in s.body:

@@ -20,18 +20,20 @@ from ..source import Oversize, Unreadable, inside, read_capped
 from .lexer import MAX_FILE_CHARS, Skip, Token, iter_tokens
 
 KEYWORDS = ("device", "include", "let", "sweep", "prepare", "rot", "sqrtswap",
-            "sqrtswap_inv", "swap", "wait", "read", "trigger", "together", "repeat",
-            "block", "do")
+            "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read", "trigger", "move", "together",
+            "repeat", "block", "do")
 FUNCTIONS = {"sin": 1, "cos": 1, "tan": 1, "sqrt": 1, "exp": 1, "log": 1, "abs": 1,
              "min": 2, "max": 2, "round": 1}
 CONSTANTS = ("pi",)
-ROT_OPTIONS = ("shape", "duration", "amplitude")
+ROT_OPTIONS = ("shape", "duration", "amplitude", "detuning")
 EXCHANGE_OPTIONS = ("duration", "amplitude")
+MOVE_OPTIONS = ("ramp",)
 SHAPES = ("square", "gauss", "flattop")
 # Spellings that are no keyword of the language, with the keyword they mean:
 # refused with a hint rather than read as a name.
 RENAMED_KEYWORDS = {"isqrtswap": "sqrtswap_inv"}
-INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "wait", "read", "do")
+INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read",
+                   "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
 MAX_INCLUDE_DEPTH = 32
 MAX_NESTING = 64
@@ -420,6 +422,20 @@ class Parser:
     def st_swap(self, start: Token) -> T.Stmt:
         return self._exchange("swap", start)
 
+    def st_cz(self, start: Token) -> T.Stmt:
+        return self._exchange("cz", start)
+
+    def st_cphase(self, start: Token) -> T.Stmt:
+        a = self.qubit("the first qubit of cphase")
+        b = self.qubit("the second qubit of cphase")
+        if self.at_end_of_statement() or (self.tok.kind == "NAME" and self.peek().kind == "OP"
+                                          and self.peek().text == "="):
+            raise self.error("cphase needs the conditional phase after the two qubits",
+                             self.tok.span, "e.g. cphase A B 90 deg (cz A B is cphase A B 180 deg)")
+        angle = self.expr()
+        opts = self.options(EXCHANGE_OPTIONS, "cphase")
+        return T.Exchange("cphase", a, b, opts, self.span_from(start), angle)
+
     def st_wait(self, start: Token) -> T.Stmt:
         d = self.expr()
         qubits: list[T.Ident] = []
@@ -435,6 +451,15 @@ class Parser:
         while self.tok.kind == "NAME" and self.tok.text not in KEYWORDS:
             qubits.append(self.qubit())
         return T.Read(tuple(qubits), self.span_from(start))
+
+    def st_move(self, start: Token) -> T.Stmt:
+        t = self.expect_name("the name of a voltage point (points: in the device file)",
+                             "e.g. move measure, or move load ramp=100 ns")
+        if t.text in KEYWORDS:
+            raise self.error(f"'{t.text}' is a keyword, not a voltage point", t.span,
+                             "name a point from the device file's points: section")
+        opts = self.options(MOVE_OPTIONS, "move")
+        return T.Move(T.Ident(t.text, t.span), opts, self.span_from(start))
 
     def st_trigger(self, start: Token) -> T.Stmt:
         label = ""

@@ -68,12 +68,15 @@ def format_stmt(s: T.Stmt, indent: str = "") -> list[str]:
             axis = ("-" if a.negative else "") + a.kind
         return [f"{indent}rot {s.qubit.name} {axis} {format_expr(s.angle)}{_opts(s.options)}"]
     if isinstance(s, T.Exchange):
-        return [f"{indent}{s.kind} {s.a.name} {s.b.name}{_opts(s.options)}"]
+        angle = f" {format_expr(s.angle)}" if s.angle is not None else ""
+        return [f"{indent}{s.kind} {s.a.name} {s.b.name}{angle}{_opts(s.options)}"]
     if isinstance(s, T.Wait):
         on = f" on {_names(s.qubits)}" if s.qubits else ""
         return [f"{indent}wait {format_expr(s.duration)}{on}"]
     if isinstance(s, T.Read):
         return [f"{indent}read {_names(s.qubits)}"]
+    if isinstance(s, T.Move):
+        return [f"{indent}move {s.point.name}{_opts(s.options)}"]
     if isinstance(s, T.Trigger):
         return [f'{indent}trigger "{s.label}"' if s.label else f"{indent}trigger"]
     if isinstance(s, T.Do):

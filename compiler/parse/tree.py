@@ -144,11 +144,12 @@ class Rot:
 
 @dataclass(frozen=True, slots=True)
 class Exchange:
-    kind: str                 # "sqrtswap", "sqrtswap_inv", "swap"
+    kind: str                 # "sqrtswap", "sqrtswap_inv", "swap", "cz", "cphase"
     a: Ident
     b: Ident
     options: tuple[Option, ...]
     span: Span
+    angle: Expr | None = None  # cphase: the conditional phase; None for the others
 
 
 @dataclass(frozen=True, slots=True)
@@ -167,6 +168,14 @@ class Read:
 @dataclass(frozen=True, slots=True)
 class Trigger:
     label: str
+    span: Span
+
+
+@dataclass(frozen=True, slots=True)
+class Move:
+    """``move POINT [ramp=TIME]``: the gates to a voltage point of the device."""
+    point: Ident
+    options: tuple[Option, ...]
     span: Span
 
 
@@ -199,7 +208,7 @@ class Do:
 
 
 Stmt = Union[DeviceStmt, Include, Let, SweepRange, SweepList, Prepare, Rot, Exchange,
-             Wait, Read, Trigger, Together, Repeat, BlockDef, Do]
+             Wait, Read, Trigger, Move, Together, Repeat, BlockDef, Do]
 
 
 @dataclass(frozen=True, slots=True)

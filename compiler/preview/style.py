@@ -104,7 +104,10 @@ def _frame_labels(k, qubits, p: dict) -> list[str]:
 
 def _exchange_labels(k, qubits, p: dict) -> list[str]:
     if len(qubits) == 2:
-        return [f"{k.name} {qubits[0]}–{qubits[1]}", *k.labels]
+        name = k.name
+        if k.keyword == "cphase" and "conditional_phase_rad" in p:
+            name = f"{name}({_degrees(float(p['conditional_phase_rad']))})"
+        return [f"{name} {qubits[0]}–{qubits[1]}", *k.labels]
     return list(k.labels)
 
 
@@ -113,12 +116,18 @@ def _trigger_labels(k, qubits, p: dict) -> list[str]:
     return ([f"{k.name} {label}"] if label else []) + list(k.labels)
 
 
+def _point_labels(k, qubits, p: dict) -> list[str]:
+    name = str(p.get("point", "")).strip()
+    return ([f"{k.name} {name}", f"→ {name}"] if name else []) + list(k.labels)
+
+
 # How each kind's label is made, by its ``label`` in compiler.steps.KINDS.
 LABELS = {
     "rotation": _rotation_labels,
     "frame": _frame_labels,
     "exchange": _exchange_labels,
     "trigger": _trigger_labels,
+    "point": _point_labels,
     "fixed": lambda k, qubits, p: list(k.labels),
 }
 

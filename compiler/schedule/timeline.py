@@ -28,8 +28,11 @@ from ..device.model import Device
 from ..errors import Problem, ScheduleError, Span, read_source_line
 from ..analog import burst_quantisation_loss, lsb, rc_tau
 from ..physics import precession_sign
-from ..pulses import (BurstDesign, DesignError, ExchangeDesign, design_burst, design_exchange,
-                      frame_updates_after, pair_gate, spectator_phase)
+from ..steps import EXCHANGE_GATES, KINDS
+from ..device import exchange as X
+from ..pulses import (BurstDesign, DesignError, ExchangeDesign, check_duration_request,
+                      design_burst, design_exchange, frame_updates_after, pair_gate,
+                      spectator_phase)
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 
 # Below this ratio of J to the Zeeman difference an exchange gate is not a
@@ -37,12 +40,20 @@ from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity as fq
 # swap amplitude J²/(J²+ΔEz²) of Russ et al., PRB 97, 085421 (2018) is then
 # below 0.96).  The compensated fidelity computed per gate is also checked.
 CLEAN_EXCHANGE_RATIO = 5.0
+# A controlled phase (cz, cphase) needs the opposite: J at least this factor
+# below the Zeeman difference, or the flip-flop is no longer suppressed
+# (common practice, no source; Russ et al., PRB 97, 085421 (2018)).
+ADIABATIC_EXCHANGE_RATIO = 5.0
 # Warn when an exchange gate, compensated in the frames, is below this
 # average gate fidelity with its target (common practice, no source).
 EXCHANGE_FIDELITY_WARN = 0.999
 TRIGGER_WIDTH = 20e-9   # s, length of a trigger marker pulse
 PHASE_TOL = 1e-5        # rad, differential phase left uncorrected (infidelity ~1e-11)
 MAX_RUN_SAMPLES = 2 ** 53  # sample indices stay exact in a float64 time axis
+# Warn when a bias tee's droop over a run, (1/τ)·∫(V − V_DC)dt of the levels
+# held at voltage points, exceeds this fraction of the largest step on the
+# channel (common practice, no source).
+DROOP_WARN = 0.01
 # Warn when the DAC codes of a burst lose more than this fraction of its area
 # (common practice, no source); when nothing is left it is an error.
 QUANTISATION_LOSS_WARN = 0.01
@@ -57,6 +68,13 @@ class BurstInfo:
     """A rotation's burst."""
     frame: float                                   # rad, the dot's frame when played
     spectator_frame_updates: tuple[tuple[str, float], ...] = ()  # (dot, rad) light-shift undo
+    detuning: float = 0.0                          # Hz, tone minus the dot's Larmor frequency
+
+
+def burst_detuning(slot: "Slot") -> float:
+    """The offset (Hz) of a burst slot's tone from its dot's Larmor frequency
+    (``rot ... detuning=``); 0 for every other slot."""
+    return slot.info.detuning if isinstance(slot.info, BurstInfo) else 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -81,7 +99,16 @@ class InsertedInfo:
     spectator_frame_updates: tuple[tuple[str, float], ...] = ()
 
 
-SlotInfo = BurstInfo | FrameInfo | ExchangeInfo | InsertedInfo | None
+@dataclass(frozen=True, slots=True)
+class MoveInfo:
+    """A move to a voltage point: the levels of every point channel before
+    and after it (V, absolute; a ramp goes linearly from one to the other)."""
+    point: str
+    before: tuple[tuple[str, float], ...]
+    after: tuple[tuple[str, float], ...]
+
+
+SlotInfo = BurstInfo | FrameInfo | ExchangeInfo | InsertedInfo | MoveInfo | None
 
 
 @dataclass(frozen=True, slots=True)
@@ -169,8 +196,9 @@ def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.
     """What makes an exchange gate clean again: a larger J, at a higher
     barrier pulse level (and so a shorter pulse), with the level that gives
     J = CLEAN_EXCHANGE_RATIO × the Zeeman difference when the calibration
-    and the channel reach it; or a smaller Zeeman difference.  (The language
-    has no controlled-phase gate to suggest instead: docs/language.md.)"""
+    and the channel reach it; or a smaller Zeeman difference; or, when the
+    two-qubit gate may be a controlled phase, ``cz``, which works in this
+    regime (docs/language.md)."""
     from ..analog import top_voltage
     from ..device import exchange as X
     want = CLEAN_EXCHANGE_RATIO * delta
@@ -193,7 +221,9 @@ def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.
         level = (f"J ≥ {fq(want, FREQUENCY)} is beyond the barrier's calibration and range "
                  f"(up to {fq(top, VOLTAGE)}): extend the J(V) calibration or the channel range "
                  f"of {pair}")
-    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field)")
+    return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field); or a "
+            f"controlled phase (cz {coupling.dots[0]} {coupling.dots[1]}), which needs J well "
+            "below the Zeeman difference")
 
 
 def _exchange_resources(step: P.ExchangeGate, device: Device) -> tuple[str, ...]:
@@ -213,6 +243,10 @@ RESOURCES = {
     P.Readout: lambda s, dev: tuple(f"dot:{q}" for q in s.qubits) + (f"ch:{dev.readout.marker}",),
     P.Trigger: lambda s, dev: tuple(f"dot:{q}" for q in dev.dots)
     + (f"ch:{dev.readout.trigger_marker}",),
+    # a move changes the charge configuration under every dot: a barrier
+    # across the dots and every gate channel a point names
+    P.Move: lambda s, dev: tuple(f"dot:{q}" for q in dev.dots)
+    + tuple(f"ch:{c}" for c in dev.point_channels),
     P.Parallel: lambda s, dev: tuple(dict.fromkeys(r for m in s.steps
                                                    for r in RESOURCES[type(m)](m, dev))),
 }
@@ -239,6 +273,10 @@ class _Scheduler:
         self.problems: dict[tuple, Problem] = {}
         self.warnings: dict[tuple, Warning_] = {}
         self.marker_free: dict[str, int] = {}
+        # the level of every gate channel a voltage point names (rest: no point)
+        self.levels = {c: device.rest_level(c) for c in device.point_channels}
+        self.point = ""                       # the point the gates are at ("" rest)
+        self.level_log: list[tuple[int, int, dict, dict]] = []   # (start, ramp, before, after)
         # repeated bodies reuse the same step objects: cache per object identity
         self._res_cache: dict[int, tuple[str, ...]] = {}
         self._burst_cache: dict[int, BurstDesign | None] = {}
@@ -295,12 +333,37 @@ class _Scheduler:
                       f"the ±{fq(peak, VOLTAGE)} range of line '{line.name}'", step,
                       "lengthen the burst (duration=...) or lower the angle")
             return None
+        if step.detuning:
+            f_if = self.device.larmor(step.qubit) - line.lo + step.detuning
+            nyq = self.device.sample_rate / 2
+            if not (line.if_min <= f_if <= line.if_max) or abs(f_if) >= nyq:
+                lo_d = line.if_min - (f_if - step.detuning)
+                hi_d = line.if_max - (f_if - step.detuning)
+                self.fail(f"a burst detuned by {fq(step.detuning, FREQUENCY)} from {step.qubit} "
+                          f"needs IF {fq(f_if, FREQUENCY)} on line '{line.name}', outside its "
+                          f"band [{fq(line.if_min, FREQUENCY)}, {fq(line.if_max, FREQUENCY)}]"
+                          + (f" or beyond the Nyquist frequency {fq(nyq, FREQUENCY)}"
+                             if abs(f_if) >= nyq else ""), step,
+                          f"detunings from {fq(lo_d, FREQUENCY)} to {fq(hi_d, FREQUENCY)} "
+                          "fit the band; or widen if_band / move the LO in the device file")
+                return None
         return b
 
     def exchange_for(self, step: P.ExchangeGate) -> ExchangeDesign | None:
         c = self.device.coupling(step.a, step.b)
+        held = [(ch, self.levels[ch]) for ch in
+                (c.barrier, *(self.device.dots[d].plunger for d, _ in c.detune))
+                if ch in self.levels and self.levels[ch] != self.device.rest_level(ch)]
+        if held:
+            what = ", ".join(f"{ch} at {fq(v, VOLTAGE)}" for ch, v in held)
+            self.fail(f"the {step.gate} pulse needs its gates at rest, but the voltage point "
+                      f"'{self.point}' holds {what}", step,
+                      "move to a point that leaves the exchange's barrier (and detuned plungers) "
+                      "at their rest level before the exchange")
+            return None
         try:
-            return design_exchange(step.gate, c, self.device, self.dt, step.duration, step.amplitude)
+            return design_exchange(step.gate, c, self.device, self.dt, step.duration,
+                                   step.amplitude, step.angle)
         except DesignError as e:
             self.fail(e.message, step, e.hint)
             return None
@@ -325,6 +388,8 @@ class _Scheduler:
                          in_group: bool) -> int:
         """Insert what brings the differential frame phase to the gate's
         optimum before ``t0``; returns the (possibly later) start sample."""
+        if not EXCHANGE_GATES[step.gate].aligned:
+            return t0                     # a controlled phase commutes with z phases
         a, b = step.a, step.b
         c = self.device.coupling(a, b)
         delta = self.delta(a, b)
@@ -386,7 +451,9 @@ class _Scheduler:
         t1 = (t0 + design.total) * self.dt
         ea, eb, fid = frame_updates_after(design, c.exchange, delta, xi, t1,
                                           self.frames[a], self.frames[b])
-        if abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
+        if EXCHANGE_GATES[step.gate].regime == "phase":
+            self.warn_phase_regime(step, design, delta, fid)
+        elif abs(delta) > 0 and design.j_peak < CLEAN_EXCHANGE_RATIO * abs(delta):
             self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well above the Zeeman difference "
                       f"{fq(abs(delta), FREQUENCY)} of {a} and {b}: the {step.gate} is not clean "
                       f"(best {fid:.6f} average gate fidelity after frame compensation); "
@@ -402,6 +469,32 @@ class _Scheduler:
         self.frames[b] += eb
         self.place_simple(step, t0, design.total, group, exchange=design, info=info)
 
+    def warn_phase_regime(self, step: P.ExchangeGate, design: ExchangeDesign, delta: float,
+                          fid: float) -> None:
+        """A controlled phase needs J well below the Zeeman difference."""
+        a, b = step.a, step.b
+        name = KINDS[step.gate].name
+        if not self.exchange_zeeman:
+            return                        # the budget's counterfactual run
+        if delta == 0:
+            self.warn(f"{a} and {b} have the same Larmor frequency: the {name} pulse "
+                      f"(J up to {fq(design.j_peak, FREQUENCY)}) swaps the spins instead of "
+                      f"giving a controlled phase ({fid:.6f} average gate fidelity after frame "
+                      "compensation); fix: a Zeeman difference between the dots (different g "
+                      "or a field gradient), or sqrtswap-based gates", step,
+                      f"zeeman:{step.span}", 1 - fid)
+        elif design.j_peak * ADIABATIC_EXCHANGE_RATIO > abs(delta):
+            self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well below the Zeeman "
+                      f"difference {fq(abs(delta), FREQUENCY)} of {a} and {b}: the {name} is not "
+                      f"adiabatic ({fid:.6f} average gate fidelity after frame compensation); "
+                      f"fix: a lower barrier level (amplitude=) or a longer pulse (duration=), "
+                      f"J ≤ {fq(abs(delta) / ADIABATIC_EXCHANGE_RATIO, FREQUENCY)}", step,
+                      f"zeeman:{step.span}", 1 - fid)
+        elif fid < EXCHANGE_FIDELITY_WARN:
+            self.warn(f"this {name} reaches only {fid:.6f} average gate fidelity in the "
+                      "rotating frames, even after frame compensation; a longer pulse "
+                      "(duration=) is more adiabatic", step, f"zeeman:{step.span}", 1 - fid)
+
     def check_quantisation(self, step: P.Rotation, b: BurstDesign, start: int,
                            play_phase: float) -> None:
         """Warn (or refuse, when nothing is left) a burst whose DAC codes lose
@@ -410,7 +503,7 @@ class _Scheduler:
         line = self.device.channels[dot.drive.line]
         if line.bits <= 0:
             return
-        f_if = self.device.larmor(step.qubit) - line.lo
+        f_if = self.device.larmor(step.qubit) - line.lo + step.detuning
         phi = play_phase if precession_sign(dot.g) > 0 else math.pi - play_phase
         loss, nothing = burst_quantisation_loss(
             b.envelope, b.amplitude, phi, f_if, start, self.dt, rc_tau(line.rise_time),
@@ -429,7 +522,8 @@ class _Scheduler:
                       f"on line '{line.name}'; more than {QUANTISATION_LOSS_WARN:.0%})", step,
                       f"quantisation:{step.span}", loss)
 
-    def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=()) -> dict:
+    def correct_spectators(self, q: str, burst: BurstDesign, step, group_dots=(),
+                           detuning: float = 0.0) -> dict:
         """Frame updates that undo the light shift a burst on ``q`` leaves on
         the other dots of its line (dots driven in the same group excepted);
         returns them (dot -> update, rad)."""
@@ -437,12 +531,12 @@ class _Scheduler:
             return {}
         dots = self.device.dots
         line = dots[q].drive.line
-        f_q = self.device.larmor(q)
+        f_q = self.device.larmor(q) + detuning
         shifts = {}
         for o, dot in dots.items():
             if o == q or o in group_dots or dot.drive.line != line:
                 continue
-            key = (id(burst), o, q)
+            key = (id(burst), o, q, detuning)
             alpha = self._spectator_cache.get(key)
             if alpha is None:
                 alpha = self._spectator_cache[key] = spectator_phase(
@@ -465,9 +559,10 @@ class _Scheduler:
         frame = self.frames[step.qubit]
         # a lone burst undoes its light shift on the other dots of its line now;
         # in a group, place_group does it once the group's driven dots are known
-        shifts = self.correct_spectators(step.qubit, b, step) if t_group is None else {}
+        shifts = (self.correct_spectators(step.qubit, b, step, detuning=step.detuning)
+                  if t_group is None else {})
         self.place_simple(step, t0, b.n, group, burst=b, play_phase=b.phase - frame,
-                          info=BurstInfo(frame, tuple(shifts.items())))
+                          info=BurstInfo(frame, tuple(shifts.items()), step.detuning))
         self.check_quantisation(step, b, t0, b.phase - frame)
 
     def place_frame(self, step: P.FrameRotation, t0: int, group: int, t_group) -> None:
@@ -501,6 +596,68 @@ class _Scheduler:
         ch = f"ch:{self.device.readout.trigger_marker}"
         self.occupy((ch,), t0 + int(math.ceil(TRIGGER_WIDTH / self.dt - 1e-9)))
 
+    def place_move(self, step: P.Move, t0: int, group: int, t_group) -> None:
+        dev = self.device
+        pt = dev.points[step.point]
+        n = 0
+        if step.ramp > 0:
+            if not step.ramp / self.dt <= MAX_RUN_SAMPLES - t0:
+                self.fail(f"this ramp of {step.ramp:.4g} s ends beyond {MAX_RUN_SAMPLES:,} "
+                          "samples, the longest run dotseq can place", step, "shorten the ramp")
+                return
+            try:
+                check_duration_request(step.ramp, self.dt, "ramp")
+            except DesignError as e:
+                self.fail(e.message, step, e.hint)
+                return
+            n = int(round(step.ramp / self.dt))
+        before = dict(self.levels)
+        after = {c: dev.rest_level(c) for c in dev.point_channels}
+        after.update(pt.levels)
+        self.levels, self.point = after, step.point
+        self.level_log.append((t0, n, before, after))
+        self.place_simple(step, t0, n, group, info=MoveInfo(
+            step.point, tuple(before.items()), tuple(after.items())))
+        for c in dev.couplings:
+            v = after.get(c.barrier)
+            if v is None or v <= c.idle_voltage:
+                continue
+            lo, hi = X.v_range(c.exchange)
+            j = float(X.j_of_v(c.exchange, min(max(v, lo), hi)))
+            pair = "-".join(c.dots)
+            self.warn(f"the voltage point '{step.point}' raises the barrier {c.barrier} of "
+                      f"{pair} to {fq(v, VOLTAGE)}, above its idle level "
+                      f"{fq(c.idle_voltage, VOLTAGE)}: J = {fq(j, FREQUENCY)} acts while the "
+                      "gates are there; the simulation includes it, the ideal circuit and the "
+                      "frames do not", step, f"point-exchange:{step.point}:{pair}", j)
+
+    def check_droop(self) -> None:
+        """Warn when a bias tee droops by more than DROOP_WARN of the largest
+        step of a point channel over the run: (1/τ)·∫(V − V_DC)dt."""
+        dev = self.device
+        if not self.level_log:
+            return
+        end = max([s.end_sample for s in self.slots] + [0])
+        for ch in dev.point_channels:
+            tau = dev.channels[ch].bias_tee
+            if tau <= 0:
+                continue
+            rest = dev.rest_level(ch)
+            area, big = 0.0, 0.0
+            for i, (t0, n, before, after) in enumerate(self.level_log):
+                stop = self.level_log[i + 1][0] if i + 1 < len(self.level_log) else end
+                a, b = before[ch] - rest, after[ch] - rest
+                area += (a + b) / 2 * n * self.dt + b * max(0, stop - t0 - n) * self.dt
+                big = max(big, abs(a), abs(b))
+            droop = abs(area) / tau
+            if big > 0 and droop > DROOP_WARN * big:
+                step = next(s.step for s in self.slots if isinstance(s.step, P.Move))
+                self.warn(f"the bias tee of channel '{ch}' droops by {fq(droop, VOLTAGE)} over the "
+                          f"run ((1/τ)·∫(V − V_DC)dt of the levels held at voltage points, τ = "
+                          f"{fq(tau, TIME)}), more than {DROOP_WARN:.0%} of the largest step "
+                          f"({fq(big, VOLTAGE)}): compile with --predistort to pre-compensate it, "
+                          "or return to the rest level sooner", step, f"droop:{ch}", droop / big)
+
     def place_nested_group(self, step: P.Parallel, t0: int, group: int, t_group) -> None:
         raise TypeError("a 'together' group inside a group reached the scheduler")
 
@@ -523,7 +680,8 @@ class _Scheduler:
                 self.place(m, gi, t_group=t0)
                 last = self.slots[-1] if self.slots else None
                 if isinstance(m, P.Rotation) and last is not None and last.step is m:
-                    shifts = self.correct_spectators(m.qubit, last.burst, m, driven)
+                    shifts = self.correct_spectators(m.qubit, last.burst, m, driven,
+                                                     detuning=m.detuning)
                     if shifts:
                         self.slots[-1] = replace(last, info=replace(
                             last.info, spectator_frame_updates=tuple(shifts.items())))
@@ -565,6 +723,7 @@ class _Scheduler:
                 self.place(step, -1)
             if logged:
                 log.append((step, tuple(range(first, len(self.slots))), before, dict(self.frames)))
+        self.check_droop()
         if self.problems:
             raise ScheduleError(list(self.problems.values()))
         self.warn_readout_overlaps()
@@ -583,6 +742,7 @@ PLACE = {
     P.Idle: _Scheduler.place_idle,
     P.Readout: _Scheduler.place_readout,
     P.Trigger: _Scheduler.place_trigger,
+    P.Move: _Scheduler.place_move,
     P.Parallel: _Scheduler.place_nested_group,
 }
 

@@ -50,11 +50,19 @@ def rotation(phase: float, angle: float) -> np.ndarray:
 
 
 @lru_cache(maxsize=256)
-def exchange_unitary(gate: str, a: int, b: int, n: int) -> np.ndarray:
-    """exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate (1/4 for √SWAP);
-    cached, returned read-only."""
-    s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
-    u = expm(-2j * math.pi * EXCHANGE_GATES[gate].integral * s1s2)
+def exchange_unitary(gate: str, a: int, b: int, n: int, angle: float = 0.0) -> np.ndarray:
+    """A swap-regime gate: exp(−i·2π·x·S_a·S_b) with x = ∫(J/h)dt of the gate
+    (1/4 for √SWAP); a controlled phase: CPHASE(angle) = diag(1, 1, 1, e^{iθ})
+    on dots a, b (phase on ↓↓, |0> = up).  Cached, returned read-only."""
+    g = EXCHANGE_GATES[gate]
+    if g.regime == "phase":
+        phase = g.target_for(angle)[3, 3]
+        down_a = np.kron(np.kron(np.ones(2 ** a), [0, 1]), np.ones(2 ** (n - a - 1)))
+        down_b = np.kron(np.kron(np.ones(2 ** b), [0, 1]), np.ones(2 ** (n - b - 1)))
+        u = np.diag(np.where((down_a * down_b) > 0, phase, 1.0 + 0j))
+    else:
+        s1s2 = sum(op(P_, a, n) @ op(P_, b, n) for P_ in (SX, SY, SZ)) / 4
+        u = expm(-2j * math.pi * g.integral * s1s2)
     u.flags.writeable = False
     return u
 
@@ -72,7 +80,7 @@ IDEAL_OPS = {
     "frame": lambda s, dots: op(np.diag([np.exp(-0.5j * s.angle), np.exp(0.5j * s.angle)]),
                                 dots.index(s.qubit), len(dots)),
     "exchange": lambda s, dots: exchange_unitary(s.gate, dots.index(s.a), dots.index(s.b),
-                                                 len(dots)),
+                                                 len(dots), s.angle),
     "identity": lambda s, dots: np.eye(2 ** len(dots), dtype=complex),  # waits, readout, triggers
     "product": _parallel,
 }

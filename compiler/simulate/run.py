@@ -359,9 +359,14 @@ def _label(step) -> str:
     if isinstance(step, P.Rotation):
         ph = math.degrees(step.phase) % 360
         axis = {0: "x", 90: "y", 180: "-x", 270: "-y"}.get(round(ph, 9), f"phase({ph:g}°)")
-        return f"rot {step.qubit} {axis} {math.degrees(step.angle):g}°"
+        det = f" detuning {step.detuning / 1e6:g} MHz" if step.detuning else ""
+        return f"rot {step.qubit} {axis} {math.degrees(step.angle):g}°{det}"
     if isinstance(step, P.ExchangeGate):
+        if step.gate == "cphase":
+            return f"cphase {step.a} {step.b} {math.degrees(step.angle):g}°"
         return f"{step.gate} {step.a} {step.b}"
+    if isinstance(step, P.Move):
+        return f"move {step.point}" + (f" ramp {step.ramp * 1e9:g} ns" if step.ramp else "")
     if isinstance(step, P.Idle):
         return f"wait {step.duration * 1e9:g} ns" + (f" on {' '.join(step.qubits)}" if step.qubits else "")
     return step.kind

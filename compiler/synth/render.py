@@ -38,7 +38,8 @@ from ..device.model import Device
 from ..errors import Problem, SynthesisError, read_source_line
 from ..limits import generator_memory_problems
 from ..physics import precession_sign
-from ..schedule.timeline import TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline
+from ..schedule.timeline import (TRIGGER_WIDTH, BurstInfo, InsertedInfo, Slot, Timeline,
+                                 burst_detuning)
 from ..units import TIME, VOLTAGE, format_quantity as fq
 from .types import Output, StepRecord, Waveforms
 
@@ -49,8 +50,9 @@ from .types import Output, StepRecord, Waveforms
 SLOT_RENDER = {
     "rot": "burst", "zcorrect": "burst",
     "sqrtswap": "exchange", "sqrtswap_inv": "exchange", "swap": "exchange",
+    "cz": "exchange", "cphase": "exchange",
     "read": "readout", "trigger": "trigger", "zrot": "frame",
-    "wait": "time", "phasewait": "time",
+    "wait": "time", "phasewait": "time", "move": "level",
 }
 
 
@@ -190,7 +192,10 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         line = chans[dot.drive.line]
         f_if = device.larmor(q) - line.lo
         phi = s.play_phase if precession_sign(dot.g) > 0 else math.pi - s.play_phase
-        shape = analog.tone_shape(s.burst.envelope, f_if, dt, analog.rc_tau(line.rise_time))
+        # a detuned burst (rot ... detuning=): the tone runs at IF + Δ from the
+        # burst's start, its phase there still referred to the dot's frame
+        det = burst_detuning(s)
+        shape = analog.tone_shape(s.burst.envelope, f_if + det, dt, analog.rc_tau(line.rise_time))
         amp = s.burst.amplitude * complex(math.cos(phi + 2 * math.pi * f_if * a * dt),
                                           math.sin(phi + 2 * math.pi * f_if * a * dt))
         # kept as (amplitude, shared cached shape): no per-burst array
@@ -202,6 +207,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                   "shape": s.burst.shape, "if_Hz": f_if, "larmor_Hz": device.larmor(q)}
         if isinstance(s.info, BurstInfo):
             params["frame_rad"] = s.info.frame
+        if det:
+            params["detuning_Hz"] = det
         return params
 
     def exchange(s: Slot, a: int, b: int) -> dict:
@@ -216,7 +223,8 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
                 "pulse_samples": d.n, "settle_before": d.pre, "settle_after": d.post,
                 "frame_updates_rad": dict(info.frame_updates),
                 "frame_fidelity": info.frame_fidelity,
-                "zeeman_difference_Hz": info.zeeman_difference_Hz}
+                "zeeman_difference_Hz": info.zeeman_difference_Hz,
+                **({"conditional_phase_rad": d.angle, "shape": "hann"} if d.window else {})}
 
     def readout(s: Slot, a: int, b: int) -> dict:
         events[device.readout.marker].append((a, b, 1.0, "set"))
@@ -227,11 +235,30 @@ def synthesize(tl: Timeline, device: Device, *, predistort: bool = False,
         events[device.readout.trigger_marker].append((a, min(a + w, n), 1.0, "set"))
         return {"label": s.step.label, "width_s": w * dt}
 
+    # voltage points: each move sets every point channel for its ramp, then
+    # holds the new level up to the next move (or the end); levels at rest
+    # are the channel's baseline and need no event
+    moves = [s for s in tl.slots if s.kind == "move"]
+    next_move = {id(s): (moves[i + 1].start_sample if i + 1 < len(moves) else n)
+                 for i, s in enumerate(moves)}
+
+    def level(s: Slot, a: int, b: int) -> dict:
+        before, after = dict(s.info.before), dict(s.info.after)
+        stop = next_move[id(s)]
+        for ch, v in after.items():
+            v0, rest = before[ch], device.rest_level(ch)
+            if b > a and not (v0 == v == rest):
+                k = np.arange(b - a)
+                events[ch].append((a, b, v0 + (v - v0) * (k + 0.5) / (b - a), "set"))
+            if v != rest and stop > b:
+                events[ch].append((b, stop, float(v), "set"))
+        return {"point": s.info.point, "ramp_s": (b - a) * dt, "levels_V": after}
+
     def frame(s: Slot, a: int, b: int) -> dict:
         return {"angle_rad": s.step.angle, "frame_rad": s.info.frame}
 
     handlers = {"burst": burst, "exchange": exchange, "readout": readout, "trigger": trigger,
-                "frame": frame, "time": lambda s, a, b: {}}
+                "frame": frame, "level": level, "time": lambda s, a, b: {}}
     records: list[StepRecord] = []
     texts: dict = {}          # repeated steps share their source text and channel list
     chan_of: dict = {}

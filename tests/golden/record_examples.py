@@ -39,6 +39,8 @@ CASES = {
     "gaas_rabi": dict(nodes=3, budget=False, averaging_tolerance=0.1),
     "ramsey_single": dict(nodes=3),
     "ribbon_long_range": dict(nodes=3, budget=False, steps=False, averaging_tolerance=0.1),
+    "rabi_chevron": dict(nodes=3, budget=False, steps=False),
+    "cz_bell": dict(nodes=3, budget=False),
 }
 # Run-level figures of results.json that must not move (wall times and
 # engine statistics are left out: they are not physics).
