@@ -1,0 +1,179 @@
+"""Readout and preparation with their errors: the device keys, the physics of
+:mod:`compiler.readout`, and the observables a simulated run records.
+
+Physics checks name their source beside them, or say "common practice, no
+source" / "value from memory".
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import constants as sc
+from scipy.integrate import solve_ivp
+
+from compiler import readout as RO
+from compiler.device import load_device_text
+from compiler.errors import DeviceError
+
+# A two-dot device; READOUT_* lines are spliced in below the dots / the coupling.
+DEVICE = """\
+name: "readout test pair"
+field: 500 mT
+temperature: 40 mK
+dots:
+  A:
+    g: 2.0
+    t1: 1 ms
+    t2: 20 us
+    t2_star: 2 us
+    drive: {{line: mw, rabi_per_volt: 10 MHz/V}}
+    plunger: P_A
+{ra}
+  B:
+    g: 2.02
+    t1: 1 ms
+    t2: 20 us
+    t2_star: 2 us
+    drive: {{line: mw, rabi_per_volt: 10 MHz/V}}
+    plunger: P_B
+{rb}
+couplings:
+  - dots: [A, B]
+    barrier: B_AB
+    exchange: {{model: exponential, j0: 20 kHz, v0: 40 mV}}
+    idle_voltage: 0 mV
+    pulse_voltage: 250 mV
+{rc}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], lo: 14.05 GHz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  B_AB: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  M1: {{kind: marker, sample_rate: 1 GS/s}}
+"""
+
+
+def device(ra: str = "", rb: str = "", rc: str = ""):
+    return load_device_text(DEVICE.format(ra=ra, rb=rb, rc=rc), "ro.yaml")
+
+
+def problem(text_kw: dict, fragment: str):
+    with pytest.raises(DeviceError) as ei:
+        device(**text_kw)
+    for p in ei.value.problems:
+        if fragment in p.message or fragment in p.hint:
+            return p
+    raise AssertionError(f"no problem mentions {fragment!r}:\n{ei.value}")
+
+
+# ------------------------------------------------------------ physics
+
+def test_tunnel_out_probability_against_the_rate_equations():
+    """P_out(t) = Γ/(Γ+W)·(1 − e^{−(Γ+W)t}) against the rate equations of
+    energy-selective readout integrated numerically (dP↑/dt = −(Γ+W)P↑,
+    dP_out/dt = ΓP↑; the rate model of Elzerman et al., Nature 430, 431
+    (2004), title and authors checked, volume and page from memory)."""
+    gamma, t1, t = 2.0e4, 3.0e-4, 2.5e-4
+
+    def rhs(_, y):
+        return [-(gamma + 1 / t1) * y[0], gamma * y[0]]
+
+    sol = solve_ivp(rhs, (0, t), [1.0, 0.0], rtol=1e-11, atol=1e-13)
+    assert RO.tunnel_out_probability(gamma, t1, t) == pytest.approx(sol.y[1, -1], rel=1e-8)
+    # long window, no relaxation: every spin-up electron leaves
+    assert RO.tunnel_out_probability(gamma, math.inf, 1.0) == pytest.approx(1.0, abs=1e-12)
+    # long window: the branching ratio Γ/(Γ + 1/T1) = 1/(1 + 1/(Γ·T1))
+    assert RO.tunnel_out_probability(gamma, t1, 1.0) == pytest.approx(
+        1 / (1 + 1 / (gamma * t1)), rel=1e-12)
+
+
+def test_energy_selective_fidelities_closed_form():
+    """F_up = (1−ε)P_out + ε(1−P_out), F_down = 1 − ε with ε = ½erfc(SNR/2√2)
+    (Elzerman et al., Nature 430, 431 (2004) for P_out; the threshold error:
+    common practice, no source), each written out independently here."""
+    gamma, t1, t, snr = 5.0e4, 1.0e-3, 1.0e-4, 6.0
+    p = gamma / (gamma + 1 / t1) * (1 - math.exp(-(gamma + 1 / t1) * t))
+    eps = 0.5 * math.erfc(snr / (2 * math.sqrt(2)))
+    f_up, f_down = RO.energy_selective_fidelities(gamma, t1, t, snr)
+    assert f_up == pytest.approx((1 - eps) * p + eps * (1 - p), rel=1e-12)
+    assert f_down == pytest.approx(1 - eps, rel=1e-12)
+    # the Gaussian threshold error against a direct integral of the noise tail
+    from scipy.stats import norm
+    assert RO.threshold_error(snr) == pytest.approx(norm.sf(snr / 2), rel=1e-10)
+
+
+def test_thermal_preparation_error_is_boltzmann():
+    """1/(1 + e^{hf/kT}) (textbook Boltzmann statistics), at 14 GHz and 40 mK."""
+    f, temp = 14e9, 0.04
+    x = sc.h * f / (sc.k * temp)
+    assert RO.thermal_excitation(f, temp) == pytest.approx(math.exp(-x) / (1 + math.exp(-x)),
+                                                           rel=1e-12)
+    assert RO.thermal_excitation(f, 0.0) == 0.0
+
+
+@pytest.mark.parametrize("p_true", [0.0, 0.25, 1.0])
+def test_assignment_mapping_on_known_states(p_true):
+    """The assignment matrix [[F_up, 1−F_down], [1−F_up, F_down]] acting on a
+    known state's probabilities (common practice, no source): spin up is
+    recorded up with F_up, spin down recorded up with 1 − F_down."""
+    f_up, f_down = 0.93, 0.72          # Elzerman et al. (2004)'s values, from memory
+    m = np.array([[f_up, 1 - f_down], [1 - f_up, f_down]])
+    want = (m @ np.array([p_true, 1 - p_true]))[0]
+    assert RO.recorded(p_true, f_up, f_down) == pytest.approx(want, abs=1e-15)
+
+
+# ------------------------------------------------------------ device keys
+
+def test_spin_readout_given_fidelities():
+    dev = device(ra="    readout: {fidelity_up: 0.95, fidelity_down: 0.99, preparation: 0.02}")
+    ro = dev.dots["A"].readout
+    assert (ro.kind, ro.fidelity_up, ro.fidelity_down) == ("energy_selective", 0.95, 0.99)
+    assert RO.dot_fidelities(dev, "A") == (0.95, 0.99)
+    assert RO.preparation_error(dev, "A") == 0.02
+    assert dev.dots["B"].readout is None
+    assert RO.dot_fidelities(dev, "B") == (1.0, 1.0)
+    assert RO.preparation_error(dev, "B") == 0.0
+
+
+def test_spin_readout_from_tunnel_rates_and_thermal_preparation():
+    dev = device(ra="    readout: {tunnel_out: 20 kHz, integration_time: 200 us, snr: 8}")
+    f_up, f_down = RO.dot_fidelities(dev, "A")
+    want = RO.energy_selective_fidelities(2e4, 1e-3, 2e-4, 8.0)   # relaxation: the dot's T1
+    assert (f_up, f_down) == pytest.approx(want, rel=1e-12)
+    assert RO.preparation_error(dev, "A") == pytest.approx(
+        RO.thermal_excitation(dev.larmor("A"), 0.04), rel=1e-12)
+
+
+def test_pair_readout_kinds():
+    dev = device(rc="    readout: {kind: parity, fidelity_even: 0.9, fidelity_odd: 0.8}")
+    ro = dev.couplings[0].readout
+    assert (ro.kind, ro.fidelity_yes, ro.fidelity_no) == ("parity", 0.9, 0.8)
+    dev = device(rc="    readout: {fidelity_singlet: 0.98, fidelity_triplet: 0.97}")
+    assert dev.couplings[0].readout.kind == "blockade"
+    assert RO.pair_fidelities(dev.couplings[0]) == (0.98, 0.97)
+
+
+@pytest.mark.parametrize("kw, fragment, line", [
+    (dict(ra="    readout: {fidelity_up: 1.2, fidelity_down: 0.9}"), "probability from 0 to 1", 12),
+    (dict(ra="    readout: {fidelity_up: 0.9}"), "but not 'fidelity_down'", 12),
+    (dict(ra="    readout: {fidelity_up: 0.9, fidelity_down: 0.9, tunnel_out: 1 kHz}"),
+     "gives both assignment fidelities", 12),
+    (dict(ra="    readout: {tunnel_out: 1 kHz}"), "needs 'integration_time'", 12),
+    (dict(ra="    readout: {kind: optical, fidelity_up: 0.9, fidelity_down: 0.9}"),
+     "must be one of energy_selective", 12),
+    (dict(rc="    readout: {kind: blockade, fidelity_even: 0.9, fidelity_triplet: 0.9}"),
+     "does not belong to a blockade readout", 27),
+    (dict(rc="    readout: {kind: parity, fidelity_even: 0.9}"), "needs 'fidelity_odd'", 27),
+])
+def test_bad_readout_keys(kw, fragment, line):
+    p = problem(kw, fragment)
+    assert p.span.file == "ro.yaml" and p.span.line == line
+    assert p.hint
+
+
+def test_readout_without_information_is_a_warning():
+    dev = device(ra="    readout: {fidelity_up: 0.5, fidelity_down: 0.4}")
+    assert any("records nothing" in w.message for w in dev.warnings)
