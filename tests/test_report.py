@@ -3,6 +3,7 @@ of a simulation, built from hand-made results (no simulator run)."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import os
@@ -282,7 +283,8 @@ def test_sweep_png_only_for_sweeps(reports):
 
 def test_sweep_map_places_runs_row_major():
     result = make_result("sweep2")
-    pos = figures_mod._grid_positions(result)
+    from compiler.sweeptable.build import grid_positions
+    pos = grid_positions(result)
     assert pos[0] == (0, 0) and pos[1] == (0, 1) and pos[4] == (1, 0) and pos[11] == (2, 3)
 
 
@@ -383,3 +385,55 @@ def test_many_steps_and_budget_sources_draw(tmp_path):
     assert (out / "steps.png").exists() and (out / "budget.png").exists()
     text = summary_text(r, max_rows=10)
     assert "showing the 10 steps with the largest infidelity of 120" in text
+
+
+# ---------------------------------------------------------------- the shared sweep table
+
+def test_in_file_sweep_writes_the_shared_sweep_table(reports):
+    """A sequence's own sweep is written by the same table writer as
+    ``dotseq sweep`` (compiler.sweeptable): sweep.json and sweep.csv with one
+    point per run, placed row-major, and the same ranking (issue 13)."""
+    import csv
+    out = reports["sweep2"]
+    doc = json.loads((out / "sweep.json").read_text(encoding="utf-8"))
+    assert doc["format"] == "dotseq-sweep" and doc["complete"] and doc["points_total"] == 12
+    assert [a["name"] for a in doc["axes"]] == ["amp", "detuning"]
+    assert doc["axes"][0]["source"] == "file" and doc["figure"] == "sweep.png"
+    result = make_result("sweep2")
+    for p, run in zip(doc["points"], result.runs):
+        assert p["average_gate_fidelity"] == run.average_fidelity
+        assert p["values"] == dict(run.sweep)
+    best = max(range(12), key=lambda k: result.runs[k].average_fidelity)
+    assert doc["best"]["index"] == best
+    with open(out / "sweep.csv", newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(line for line in f if not line.startswith("#")))
+    assert len(rows) == 12 and float(rows[5]["state_fidelity"]) == result.runs[5].state_fidelity
+    assert not (reports["single"] / "sweep.json").exists()
+
+
+def test_report_and_sweep_draw_with_one_figure_module():
+    """One figure code for both kinds of sweep: the report's sweep.png is the
+    shared figure of the table built from the result."""
+    from compiler.sweep import run as sweep_run
+    from compiler.sweeptable import figure as shared
+    from compiler.sweeptable.build import from_result
+    assert sweep_run.FIG is shared and figures_mod.SF is shared
+    table = from_result(make_result("sweep1"))
+    assert [p.index for p in table.points] == [0, 1, 2, 3, 4]
+    assert table.metric == "average gate fidelity"
+    fig = figures_mod.build("sweep.png", make_result("sweep1"))
+    assert fig.texts[0].get_text() == shared.figure(table).texts[0].get_text()
+
+
+def test_three_axis_sweep_map_is_the_slice_through_the_best_run():
+    result = make_result("sweep2")
+    runs = []
+    for extra in (0.0, 1.0):
+        for r in result.runs:
+            f = r.process_fidelity - (0.0 if extra else 1e-3)
+            runs.append(make_run(len(runs), r.sweep + (("gain", extra),), f, f - 0.002,
+                                 detail=False, traces=False))
+    three = dataclasses.replace(result, runs=tuple(runs),
+                                axes=result.axes + (("gain", (0.0, 1.0), ""),))
+    fig = figures_mod.build("sweep.png", three)
+    assert "slice at gain = 1" in fig.texts[0].get_text()

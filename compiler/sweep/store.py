@@ -29,14 +29,15 @@ from .types import INVALID, OK, PointResult, SweepPlan
 
 STATE_NAME = "points.jsonl"
 CSV_NAME, JSON_NAME, PNG_NAME = "sweep.csv", "sweep.json", "sweep.png"
-KNOWN = frozenset((STATE_NAME, CSV_NAME, JSON_NAME, PNG_NAME))
+OBSERVABLES_NAME = "observables.png"
+KNOWN = frozenset((STATE_NAME, CSV_NAME, JSON_NAME, PNG_NAME, OBSERVABLES_NAME))
 STATE_FORMAT = "dotseq-sweep-state"
 STATE_VERSION = 2
 
 
 def dumps(obj) -> str:
     """Compact deterministic JSON (floats with repr, so they read back exactly)."""
-    from ..report.data import jsonable
+    from ..jsontext import jsonable
     return json.dumps(jsonable(obj), sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
