@@ -177,3 +177,91 @@ def test_bad_readout_keys(kw, fragment, line):
 def test_readout_without_information_is_a_warning():
     dev = device(ra="    readout: {fidelity_up: 0.5, fidelity_down: 0.4}")
     assert any("records nothing" in w.message for w in dev.warnings)
+
+
+# ------------------------------------------------------------ what a read records
+
+from compiler.simulate import fidelity as F          # noqa: E402
+from compiler.simulate import observe as OB          # noqa: E402
+
+UP, DN = np.array([1, 0], complex), np.array([0, 1], complex)
+PAIR_STATES = {
+    "singlet": (np.kron(UP, DN) - np.kron(DN, UP)) / math.sqrt(2),
+    "T+": np.kron(UP, UP),
+    "T0": (np.kron(UP, DN) + np.kron(DN, UP)) / math.sqrt(2),
+    "T-": np.kron(DN, DN),
+}
+
+
+def _dm(psi):
+    return np.outer(psi, psi.conj())
+
+
+@pytest.mark.parametrize("state", sorted(PAIR_STATES))
+def test_blockade_readout_of_singlet_and_triplets(state):
+    """Pauli spin blockade records 'singlet' for the singlet only; the three
+    triplets are blocked (Ono et al., Science 297, 1313 (2002), value from
+    memory); with assignment fidelities F_S, F_T the singlet is recorded with
+    F_S, each triplet with 1 − F_T.  Parity: even for T+ and T−."""
+    # a three-dot register: spectator C (spin down) between the pair's dots
+    # in register order A, C, B
+    dev = device(rc="    readout: {fidelity_singlet: 0.98, fidelity_triplet: 0.95}")
+    pair = PAIR_STATES[state]
+    full = np.einsum("ab,c->acb", pair.reshape(2, 2), DN).reshape(-1)
+    rho = _dm(full)
+    p_singlet = OB._probability("blockade", rho, [0, 2], 3)
+    assert p_singlet == pytest.approx(1.0 if state == "singlet" else 0.0, abs=1e-14)
+    f_s, f_t = RO.pair_fidelities(dev.couplings[0])
+    want = 0.98 if state == "singlet" else 1 - 0.95
+    assert RO.recorded(p_singlet, f_s, f_t) == pytest.approx(want, abs=1e-14)
+    p_even = OB._probability("parity", rho, [0, 2], 3)
+    assert p_even == pytest.approx(1.0 if state in ("T+", "T-") else 0.0, abs=1e-14)
+
+
+def test_a_read_of_a_pair_with_a_readout_is_read_together():
+    dev = device(rc="    readout: {kind: parity, fidelity_even: 0.9, fidelity_odd: 0.8}")
+    assert OB.readouts(dev, ("A", "B")) == [("parity", ("A", "B"))]
+    assert OB.readouts(dev, ("B",)) == [("spin", ("B",))]
+    assert OB.readouts(device(), ("A", "B")) == [("spin", ("A",)), ("spin", ("B",))]
+
+
+def test_partial_trace_and_preparation_error():
+    """Tr_B(ρ_A ⊗ ρ_B) = ρ_A, in any order of the kept qubits; the
+    preparation error flips a prepared up with probability p (common
+    practice, no source)."""
+    rng = np.random.default_rng(4)
+    mats = []
+    for _ in range(3):
+        a = rng.normal(size=(2, 2)) + 1j * rng.normal(size=(2, 2))
+        r = a @ a.conj().T
+        mats.append(r / np.trace(r))
+    rho = np.kron(np.kron(mats[0], mats[1]), mats[2])
+    assert np.allclose(OB.partial_trace(rho, [1], 3), mats[1])
+    assert np.allclose(OB.partial_trace(rho, [2, 0], 3), np.kron(mats[2], mats[0]))
+    prepared = OB.prepared_state(_dm(np.kron(UP, DN)), [0.1, 0.0], 2)
+    # basis |↑↑⟩, |↑↓⟩, |↓↑⟩, |↓↓⟩: A's up flipped to down with p = 0.1
+    assert np.real(np.diag(prepared)) == pytest.approx([0.0, 0.9, 0.0, 0.1])
+
+
+def test_fidelity_restricted_to_the_acted_qubits():
+    """A π/2 rotation on B exactly, while spectators A and C relax: the
+    channel restricted to B (spectators in their initial state, traced out)
+    is the ideal rotation (fidelity 1), the whole register's is not.
+    Amplitude damping as the spectators' error (Nielsen & Chuang, textbook)."""
+    n = 3
+    u_b = F.rotation(0.0, math.pi / 2)
+    U = np.kron(np.kron(np.eye(2), u_b), np.eye(2))
+    g = 0.3                                              # damping towards down
+    k0 = np.array([[math.sqrt(1 - g), 0], [0, 1]], complex)
+    k1 = np.array([[0, 0], [math.sqrt(g), 0]], complex)
+    # the superoperator of the product channel, built from the Kraus operators
+    kraus = [np.kron(np.kron(a, u_b), c) for a in (k0, k1) for c in (k0, k1)]
+    S = sum(np.kron(k.conj(), k) for k in kraus)
+    psi0 = np.kron(np.kron(UP, DN), UP)
+    rho0 = _dm(psi0)
+    rho = (S @ rho0.reshape(-1, order="F")).reshape(8, 8, order="F")
+    S_b, U_b, rho_b, ideal_b = OB.restrict(S, U, rho, rho0, [1], n)
+    assert np.allclose(U_b, u_b)
+    assert F.process_fidelity(S_b, U_b) == pytest.approx(1.0, abs=1e-12)
+    assert F.process_fidelity(S, U) < 0.8
+    assert np.real(np.trace(ideal_b @ rho_b)) == pytest.approx(1.0, abs=1e-12)

@@ -34,6 +34,22 @@ class StepFidelity:
 
 
 @dataclass(frozen=True)
+class Observable:
+    """What one readout of a ``read`` at the end of a run records
+    (docs/report.md, "Observables"): the probability of its outcome "yes"
+    (spin up, singlet, even parity)."""
+    label: str                 # "P(up) A", "P(singlet) A-B", "P(even) A-B"
+    kind: str                  # "spin", "singlet" or "parity"
+    qubits: tuple[str, ...]
+    ideal: float               # a perfect readout of the simulated state
+    measured: float            # with the device's preparation and readout errors
+    target: float              # a perfect readout of the ideal circuit's state
+    shots: int = 0             # repetitions given (0: none)
+    counts: float | None = None    # expected number of "yes" outcomes, shots·measured
+    error: float | None = None     # binomial 1σ of the recorded probability, √(p(1−p)/N)
+
+
+@dataclass(frozen=True)
 class BudgetLine:
     source: str                # "T1", "T2", "T2*", "charge noise", ...
     infidelity: float          # contribution: total infidelity minus infidelity with it off
@@ -58,6 +74,7 @@ class RunResult:
     budget_remainder: float = 0.0            # total − floor − Σ contributions (interaction)
     traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
     stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
+    observables: tuple[Observable, ...] = ()     # what each trailing read records
 
 
 @dataclass(frozen=True)
