@@ -437,3 +437,52 @@ def test_three_axis_sweep_map_is_the_slice_through_the_best_run():
                                 axes=result.axes + (("gain", (0.0, 1.0), ""),))
     fig = figures_mod.build("sweep.png", three)
     assert "slice at gain = 1" in fig.texts[0].get_text()
+
+
+# ---------------------------------------------------------------- observables
+
+def _with_observables(result, shots: int = 0):
+    """Each run reads A (spin) and the pair A-B (blockade): a fringe over
+    the runs, recorded through F_up = 0.95, F_down = 0.99 (invented)."""
+    from compiler.readout import recorded
+    from compiler.simulate.types import Observable
+    runs = []
+    for k, r in enumerate(result.runs):
+        p = 0.5 * (1 + math.cos(0.7 * k))
+        obs = []
+        for label, kind, qubits, f_yes, f_no in (("P(up) A", "spin", ("A",), 0.95, 0.99),
+                                                  ("P(singlet) A-B", "singlet", ("A", "B"),
+                                                   0.98, 0.97)):
+            m = recorded(p, f_yes, f_no)
+            obs.append(Observable(label, kind, qubits, p, m, 1.0, shots,
+                                  shots * m if shots else None,
+                                  math.sqrt(m * (1 - m) / shots) if shots else None))
+        runs.append(dataclasses.replace(r, observables=tuple(obs), fidelity_qubits=("A",)))
+    return dataclasses.replace(result, runs=tuple(runs))
+
+
+def test_observables_in_summary_results_and_sweep_table(tmp_path):
+    result = _with_observables(make_result("sweep1"), shots=1000)
+    text = summary_text(result)
+    assert "observables" in text and "P(singlet) A-B" in text and "± 1σ" in text
+    assert "fidelities of the qubit the program acts on (A); idle spectator B" in text
+    out = write_report(result, tmp_path / "obs")
+    assert figures_mod.planned(result)[0] == "observables.png"       # first figure
+    assert png_size(out / "observables.png") == (1100, 660)
+    back = load_results(out)
+    assert back.runs[3].observables == result.runs[3].observables
+    assert back.runs[3].fidelity_qubits == ("A",)
+    doc = json.loads((out / "sweep.json").read_text(encoding="utf-8"))
+    entry = doc["points"][2]["observables"][0]
+    assert entry["label"] == "P(up) A" and entry["measured"] == result.runs[2].observables[0].measured
+    assert doc["observables_figure"] == "observables.png"
+    head = [line for line in (out / "sweep.csv").read_text(encoding="utf-8").splitlines()
+            if not line.startswith("#")][0]
+    assert "P(up) A measured,P(up) A ideal,P(up) A error" in head
+
+
+def test_observables_map_for_two_axes():
+    result = _with_observables(make_result("sweep2"))
+    fig = figures_mod.build("observables.png", result)
+    assert "What the readouts record over amp and detuning" in fig.texts[0].get_text()
+    assert "observables.png" not in figures_mod.planned(make_result("sweep2"))

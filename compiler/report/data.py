@@ -20,7 +20,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from ..jsontext import jsonable
-from ..simulate.types import BudgetLine, RunResult, SimulationResult, StepFidelity
+from ..simulate.types import BudgetLine, Observable, RunResult, SimulationResult, StepFidelity
 from .errors import fail
 
 FORMAT_NAME = "dotseq-report"
@@ -114,7 +114,16 @@ def _run(d: dict) -> RunResult:
         traces={k: np.asarray([_num(x) for x in v], dtype=float) if isinstance(v, list) else v
                 for k, v in d.get("traces", {}).items()},
         stats=dict(d.get("stats", {})),
+        observables=tuple(_observable(o) for o in d.get("observables", ())),
+        fidelity_qubits=tuple(str(q) for q in d.get("fidelity_qubits", ())),
     )
+
+
+def _observable(d: dict) -> Observable:
+    return Observable(label=str(d["label"]), kind=str(d["kind"]), qubits=tuple(d["qubits"]),
+                      ideal=_num(d["ideal"]), measured=_num(d["measured"]),
+                      target=_num(d["target"]), shots=int(d.get("shots", 0)),
+                      counts=_opt(d.get("counts")), error=_opt(d.get("error")))
 
 
 def result_from_document(doc: dict) -> SimulationResult:

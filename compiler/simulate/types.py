@@ -75,6 +75,9 @@ class RunResult:
     traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
     stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
     observables: tuple[Observable, ...] = ()     # what each trailing read records
+    # the qubits the whole-run fidelities are of (register order): those the
+    # program acts on by default, every dot with the whole-register option
+    fidelity_qubits: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)

@@ -224,8 +224,10 @@ class _Map:
                                (self.e1[r + 1] - self.e1[r]) / self.s1, **kw))
 
     def panel(self, fig, x0: float, bottom: float, w: float, h: float, values: np.ndarray, *,
-              norm, cmap, label: str, fmt, first: bool, title: str = ""):
-        """One heat map with its colour bar; returns the axes."""
+              norm, cmap, label: str, fmt, first: bool, title: str = "",
+              dark_low: bool = True):
+        """One heat map with its colour bar; returns the axes.  ``dark_low``:
+        the colour map is dark at its low end (white cell text there)."""
         ax = FS.axes(fig, x0, bottom, w, h)
         ax.grid(False)
         mesh = ax.pcolormesh(self.e0 / self.s0, self.e1 / self.s1, np.ma.masked_invalid(values),
@@ -261,7 +263,8 @@ class _Map:
                     if not np.isfinite(v):
                         continue
                     t = norm(v) if v > 0 or not isinstance(norm, LogNorm) else 0.0
-                    dark = float(np.ma.filled(t, 0.0)) < 0.45
+                    t = float(np.ma.filled(t, 0.0))
+                    dark = t < 0.45 if dark_low else t > 0.55
                     ax.text(self.xc[c], self.yc[r], fmt(v), ha="center", va="center",
                             fontsize=fs, color="white" if dark else S.TEXT, zorder=4)
         if title:
@@ -466,7 +469,7 @@ def _readout_note(table: SweepTable) -> str:
     text = ("solid: recorded (readout and preparation errors of the device); dashed: a perfect "
             "readout of the simulated state")
     if shots:
-        text += f"; error bars: binomial 1σ for {', '.join(str(s) for s in shots)} shots"
+        text += f"\nerror bars: binomial 1σ for {', '.join(str(s) for s in shots)} shots"
     return text
 
 
@@ -525,9 +528,9 @@ def _observable_maps(table: SweepTable, labels: list[str]):
         measured = M.grid(_observable_series(table, label)[0])
         M.panel(fig, left + k * (w + bar + gap), bottom, w, h, measured, norm=norm,
                 cmap=FIDELITY_MAP, label="recorded probability", fmt=lambda v: f"{v:.3f}",
-                first=k == 0, title=FS.short(label, 28))
+                first=k == 0, title=FS.short(label, 28), dark_low=False)
     more = len(labels) - len(shown)
-    notes = [_readout_note(table).split(";")[0].replace("solid: ", "")]
+    notes = ["recorded with the readout and preparation errors of the device"]
     if more:
         notes.append(f"{more} more observable{'s' * (more != 1)} in the table")
     what = f"over {M.a0.name} and {M.a1.name}" + (f"  (slice at {M.fixed})" if M.fixed else "")
