@@ -233,3 +233,78 @@ def prepared_state(rho0: np.ndarray, errors, n: int) -> np.ndarray:
         Xk = np.kron(np.kron(np.eye(2 ** k), X), np.eye(2 ** (n - k - 1)))
         rho = (1 - p) * rho + p * (Xk @ rho @ Xk)
     return rho
+
+
+# ---------------------------------------------------------------- one run, assessed
+
+def assess(run: P.Run, device, dots: tuple[str, ...], S: np.ndarray | None, rho: np.ndarray,
+           psi0: np.ndarray, U: np.ndarray, frames, *, scope: str = "program", shots: int = 0,
+           rerun=None) -> dict:
+    """The whole-run fidelities on the scope's qubits and the observables of
+    one simulated run.
+
+    Parameters
+    ----------
+    S : (4^n, 4^n) array or None
+        The run's channel on the qubit levels, in the rotating frames
+        (None above five qubits).
+    rho : (2^n, 2^n) array
+        The final state from ``psi0``, rotating frames.
+    psi0 : (2^n,) array
+        The declared initial state.
+    U : (2^n, 2^n) array
+        The ideal circuit, qubit frames.
+    frames : sequence of float
+        The qubits' frame angles at the end of the run.
+    scope : "program" or "register"
+        Fidelities of the qubits the program acts on (:func:`acted_qubits`;
+        the whole register when it acts on all or none), or of the whole
+        register.
+    rerun : callable, optional
+        ``rerun(rho0)`` -> final state (rotating frames) from another
+        initial state: needed for the preparation errors when ``S`` is None.
+
+    Returns
+    -------
+    dict
+        ``f_pro`` (None without ``S``), ``f_avg``, ``f_state``,
+        ``qubits`` (the scope's dots), ``observables``.
+    """
+    from . import fidelity as F
+    if scope not in SCOPES:
+        raise ValueError(f"unknown fidelity scope {scope!r}; use {' or '.join(SCOPES)}")
+    n = len(dots)
+    rho0 = np.outer(psi0, psi0.conj())
+    rq = F.rho_to_qubit_frames(rho, frames)
+    Sq = None if S is None else F.to_qubit_frames(S, [0.0] * n, frames)
+    acted = acted_qubits(run, dots) if scope == "program" else dots
+    keep = [dots.index(q) for q in acted]
+    if 0 < len(keep) < n:
+        S_a, U_a, rho_a, ideal_a = restrict(Sq, U, rq, rho0, keep, n)
+        qubits = tuple(acted)
+    else:
+        S_a, U_a, rho_a, ideal_a = Sq, U, rq, U @ rho0 @ U.conj().T
+        qubits = tuple(dots)
+    f_pro = f_avg = None
+    if S_a is not None:
+        f_pro = F.process_fidelity(S_a, U_a)
+        f_avg = F.average_fidelity(f_pro, U_a.shape[0])
+    f_state = float(np.real(np.trace(ideal_a @ rho_a)))
+    obs = ()
+    if trailing_reads(run):
+        errors = [RO.preparation_error(device, q) for q in dots]
+        if any(p > 0 for p in errors):
+            rho0p = prepared_state(rho0, errors, n)
+            if S is not None:
+                d = rho0p.shape[0]
+                rho_p = (S @ rho0p.reshape(-1, order="F")).reshape(d, d, order="F")
+            elif rerun is not None:
+                rho_p = rerun(rho0p)
+            else:
+                raise ValueError("preparation errors above five qubits need rerun")
+            rqp = F.rho_to_qubit_frames(rho_p, frames)
+        else:
+            rqp = rq
+        obs = observables(run, device, dots, rq, rqp, U @ rho0 @ U.conj().T, shots)
+    return {"f_pro": f_pro, "f_avg": f_avg, "f_state": f_state, "qubits": qubits,
+            "observables": obs}
