@@ -486,3 +486,15 @@ def test_observables_map_for_two_axes():
     fig = figures_mod.build("observables.png", result)
     assert "What the readouts record over amp and detuning" in fig.texts[0].get_text()
     assert "observables.png" not in figures_mod.planned(make_result("sweep2"))
+
+
+def test_spectra_figure_draws():
+    """spectra.png of a result with a Zeeman-noise spectrum is drawn (it
+    ended in a NameError: the figure called helpers that no longer exist)."""
+    from compiler.spectra import Spectrum
+    spec = Spectrum(1e6, 1.0, f_low=1e-2)
+    result = dataclasses.replace(make_result("single"), noise_spectra=(
+        ("A", spec, (("run 0 (1 π pulse)", 8e-6, (4e-6,)), ("rot A x 90° (worst step 1)", 4e-8, ()))),))
+    assert "spectra.png" in figures_mod.planned(result)
+    fig = figures_mod.build("spectra.png", result)
+    assert "Noise spectra" in fig.texts[0].get_text()

@@ -361,7 +361,7 @@ def spectra_figure(result: SimulationResult) -> Figure | None:
         return None
     n = len(result.noise_spectra)
     fig = new_figure(WIDTH, max(HEIGHT, 1.6 + 3.2 * n))
-    _titles(fig, "Noise spectra and filter functions",
+    FS.titles(fig, "Noise spectra and filter functions",
             "S(f) of the Larmor frequency; |Y(f)|² of the run and of its worst steps")
     top, bottom = 0.86, 0.10
     hgt = (top - bottom) / n
@@ -376,12 +376,12 @@ def spectra_figure(result: SimulationResult) -> Figure | None:
                   lw=2.0, label=f"S(f), dot {dot}")
         ax.set_ylabel("S(f)  (Hz²/Hz)")
         ax.set_xlabel("frequency (Hz)")
-        _style(ax)
+        FS.style(ax)
         ax2 = ax.twinx()
         for j, (label, t, pulses) in enumerate(filters):
             y = SP.filter_function(f, t, pulses)
             ax2.loglog(f, np.maximum(y, 1e-30), lw=1.0, alpha=0.85,
-                       color=S.GATE_COLOURS[j % len(S.GATE_COLOURS)], label=_short(label))
+                       color=S.GATE_COLOURS[j % len(S.GATE_COLOURS)], label=FS.short(label))
         ax2.set_ylabel("|Y(f)|²  (s²)")
         ymax = max(t for _, t, _ in filters) ** 2 if filters else 1.0
         ax2.set_ylim(ymax * 1e-8, ymax * 3)
