@@ -265,3 +265,26 @@ def test_fidelity_restricted_to_the_acted_qubits():
     assert F.process_fidelity(S_b, U_b) == pytest.approx(1.0, abs=1e-12)
     assert F.process_fidelity(S, U) < 0.8
     assert np.real(np.trace(ideal_b @ rho_b)) == pytest.approx(1.0, abs=1e-12)
+
+
+def test_reduced_channel_against_its_definition():
+    """E_A(ρ_A) = Tr_B S(ρ_A ⊗ σ_B) by tensor contraction against the
+    definition applied to each matrix unit (common practice, no source), for
+    a random channel on three qubits and A = the middle and last qubit."""
+    rng = np.random.default_rng(7)
+    n, d, keep = 3, 8, [1, 2]
+    kraus = [rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d)) for _ in range(3)]
+    norm = np.linalg.cholesky(sum(k.conj().T @ k for k in kraus))
+    kraus = [k @ np.linalg.inv(norm.conj().T) for k in kraus]          # Σ K†K = 1
+    S = sum(np.kron(k.conj(), k) for k in kraus)
+    sigma = _dm(np.array([0.6, 0.8j]))
+    E = OB.reduce_channel(S, sigma, keep, n)
+    for i in range(4):
+        for j in range(4):
+            e = np.zeros((4, 4), complex)
+            e[i, j] = 1
+            full = np.kron(sigma, e)                                    # qubit 0 is B
+            out = (S @ full.reshape(-1, order="F")).reshape(d, d, order="F")
+            want = OB.partial_trace(out, keep, n)
+            got = (E @ e.reshape(-1, order="F")).reshape(4, 4, order="F")
+            assert np.allclose(got, want, atol=1e-12)

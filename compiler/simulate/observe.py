@@ -84,18 +84,31 @@ def restrict(S: np.ndarray | None, U: np.ndarray, rho: np.ndarray, rho0: np.ndar
     eye_a = np.eye(da, dtype=complex)
     iso = _place_vector(eye_a, psi_b, keep, n)          # 2^n × da: |a⟩ ⊗ |ψ_B⟩
     U_a = iso.conj().T @ U @ iso
-    S_a = None
-    if S is not None:
-        S_a = np.zeros((da * da, da * da), dtype=complex)
-        for j in range(da):
-            for i in range(da):
-                e = np.zeros((da, da), dtype=complex)
-                e[i, j] = 1.0
-                full = _place(e, sigma_b, keep, n).reshape(-1, order="F")
-                out = (S @ full).reshape(2 ** n, 2 ** n, order="F")
-                S_a[:, i + da * j] = partial_trace(out, keep, n).reshape(-1, order="F")
+    S_a = None if S is None else reduce_channel(S, sigma_b, keep, n)
     ideal = U @ rho0 @ U.conj().T
     return S_a, U_a, partial_trace(rho, keep, n), partial_trace(ideal, keep, n)
+
+
+def reduce_channel(S: np.ndarray, sigma_b: np.ndarray, keep, n: int) -> np.ndarray:
+    """E_A(ρ_A) = Tr_B S(ρ_A ⊗ σ_B) as a (4^m × 4^m) superoperator (column
+    stacking), A the sorted register positions ``keep``, by one tensor
+    contraction of S over the spectators' indices."""
+    keep = sorted(keep)
+    rest = [k for k in range(n) if k not in keep]
+    m, d = len(keep), 2 ** n
+    letters = iter("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ")
+    # T[i', j', i, j]: out row, out column, in row, in column; each split per dot
+    groups = [[next(letters) for _ in range(n)] for _ in range(4)]
+    for k in rest:                           # output: traced over the spectators
+        groups[1][k] = groups[0][k]
+    out = "".join(groups[g][k] for g in range(4) for k in keep)
+    sig = "".join(groups[2][k] for k in rest) + "".join(groups[3][k] for k in rest)
+    T = S.reshape((d, d, d, d), order="F").reshape((2,) * (4 * n))
+    spec = "".join("".join(g) for g in groups) + ("," + sig if rest else "") + "->" + out
+    args = [T] + ([sigma_b.reshape((2,) * (2 * len(rest)))] if rest else [])
+    E = np.einsum(spec, *args, optimize=True)
+    da = 2 ** m
+    return E.reshape((da, da, da, da)).reshape((da * da, da * da), order="F")
 
 
 def _place_vector(a_cols: np.ndarray, psi_b: np.ndarray, keep, n: int) -> np.ndarray:
