@@ -288,3 +288,94 @@ def test_reduced_channel_against_its_definition():
             want = OB.partial_trace(out, keep, n)
             got = (E @ e.reshape(-1, order="F")).reshape(4, 4, order="F")
             assert np.allclose(got, want, atol=1e-12)
+
+
+# ------------------------------------------------------------ simulated runs
+
+from compiler import compile as compile_file, load            # noqa: E402
+from compiler.simulate import SimOptions, simulate            # noqa: E402
+
+PAIR_DEVICE = """\
+name: readout pair
+field: 500 mT
+temperature: 10 mK
+rotation: {{mode: duration, shape: square, duration: 20 ns}}
+dots:
+  A: {{g: 2.0, t1: 100 us, t2: 20 us, t2_star: 5 us, drive: {{line: mw, rabi_per_volt: 100 MHz/V}}, plunger: P_A{ra}}}
+  B: {{g: 2.02, t1: 20 us, t2: 10 us, t2_star: 5 us, drive: {{line: mw2, rabi_per_volt: 100 MHz/V}}, plunger: P_B}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], lo: 13.996 GHz, if_band: [-300 MHz, 300 MHz]}}
+  mw2: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], lo: 14.136 GHz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+"""
+
+
+def simulated(tmp_path, program: str, ra: str = "", **opts):
+    (tmp_path / "d.yaml").write_text(PAIR_DEVICE.format(ra=ra))
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\n' + program)
+    compiled = compile_file(load(tmp_path / "s.dotseq"))
+    return simulate(compiled, SimOptions(nodes=1, budget=False, steps=False, **opts))
+
+
+RAMSEY = "prepare A B down\nrot A x 90 deg\nwait 2 us on A\nrot A x 60 deg\nread A\n"
+
+
+def test_measured_spin_follows_the_assignment_fidelities(tmp_path):
+    """measured = F_up·P + (1 − F_down)·(1 − P) with P the simulated P(up) at
+    the read (the assignment matrix; common practice, no source); no readout
+    key: measured = ideal."""
+    plain = simulated(tmp_path, RAMSEY).runs[0]
+    (o,) = plain.observables
+    assert (o.label, o.kind, o.qubits) == ("P(up) A", "spin", ("A",))
+    assert o.ideal == pytest.approx(plain.populations["A"], abs=1e-12) and o.measured == o.ideal
+    run = simulated(tmp_path, RAMSEY, ra=", readout: {fidelity_up: 0.9, fidelity_down: 0.8, "
+                                          "preparation: 0}").runs[0]
+    (o,) = run.observables
+    assert o.measured == pytest.approx(0.9 * o.ideal + 0.2 * (1 - o.ideal), abs=1e-12)
+    # the ideal circuit: x 90 then x 60 from down: P(up) = sin²(150°/2)
+    assert o.target == pytest.approx(math.sin(math.radians(75)) ** 2, abs=1e-9)
+
+
+def test_preparation_error_mixes_the_flipped_start(tmp_path):
+    """A preparation error p: the run from (1 − p)·|↓⟩⟨↓| + p·|↑⟩⟨↑|, by
+    linearity (1 − p)·P(from down) + p·P(from up) (common practice, no
+    source)."""
+    from_down = simulated(tmp_path, RAMSEY).runs[0].observables[0].ideal
+    from_up = simulated(tmp_path, RAMSEY.replace("prepare A B down",
+                                                 "prepare A up\nprepare B down")
+                        ).runs[0].observables[0].ideal
+    run = simulated(tmp_path, RAMSEY, ra=", readout: {fidelity_up: 1, fidelity_down: 1, "
+                                          "preparation: 0.05}").runs[0]
+    assert run.observables[0].measured == pytest.approx(0.95 * from_down + 0.05 * from_up,
+                                                        abs=1e-10)
+
+
+def test_shots_give_counts_and_binomial_errors(tmp_path):
+    """Binomial statistics of N shots: counts N·p, 1σ √(p(1 − p)/N) (textbook)."""
+    run = simulated(tmp_path, RAMSEY, shots=400).runs[0]
+    (o,) = run.observables
+    assert o.shots == 400 and o.counts == pytest.approx(400 * o.measured)
+    assert o.error == pytest.approx(math.sqrt(o.measured * (1 - o.measured) / 400))
+
+
+def test_fidelity_restricted_to_the_qubits_the_program_acts_on(tmp_path):
+    """A Ramsey on A beside an idle B that relaxes (T1 = 20 us): the default
+    scores A alone, --whole-register the pair; with B's decay switched off
+    (B starting in its ground state, T1 only at 10 mK) both would agree, so
+    the restricted number is the one of the one-dot register (common
+    practice, no source)."""
+    prog = "prepare A down\nprepare B up\nrot A x 90 deg\nwait 2 us on A\nrot A x 90 deg\nread A\n"
+    acted = simulated(tmp_path, prog).runs[0]
+    whole = simulated(tmp_path, prog, fidelity_scope="register").runs[0]
+    assert acted.fidelity_qubits == ("A",) and whole.fidelity_qubits == ("A", "B")
+    assert acted.average_fidelity > whole.average_fidelity + 0.01      # B's T1 decay not counted
+    assert acted.state_fidelity > whole.state_fidelity + 0.01
+    # the same program on a device with dot A alone
+    alone = PAIR_DEVICE.replace("  B: {{g: 2.02", "#  B: {{g: 2.02")
+    (tmp_path / "one.yaml").write_text(alone.format(ra=""))
+    (tmp_path / "one.dotseq").write_text('device "one.yaml"\n' + prog.replace("prepare B up\n", ""))
+    one = simulate(compile_file(load(tmp_path / "one.dotseq")),
+                   SimOptions(nodes=1, budget=False, steps=False)).runs[0]
+    assert acted.average_fidelity == pytest.approx(one.average_fidelity, abs=1e-6)
+    assert acted.state_fidelity == pytest.approx(one.state_fidelity, abs=1e-6)
