@@ -300,6 +300,7 @@ name: readout pair
 field: 500 mT
 temperature: 10 mK
 rotation: {{mode: duration, shape: square, duration: 20 ns}}
+readout: {{marker: M1, duration: 1 us}}
 dots:
   A: {{g: 2.0, t1: 100 us, t2: 20 us, t2_star: 5 us, drive: {{line: mw, rabi_per_volt: 100 MHz/V}}, plunger: P_A{ra}}}
   B: {{g: 2.02, t1: 20 us, t2: 10 us, t2_star: 5 us, drive: {{line: mw2, rabi_per_volt: 100 MHz/V}}, plunger: P_B}}
@@ -308,6 +309,7 @@ channels:
   mw2: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], lo: 14.136 GHz, if_band: [-300 MHz, 300 MHz]}}
   P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
   P_B: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  M1: {{kind: marker, sample_rate: 1 GS/s}}
 """
 
 
@@ -379,3 +381,21 @@ def test_fidelity_restricted_to_the_qubits_the_program_acts_on(tmp_path):
                    SimOptions(nodes=1, budget=False, steps=False)).runs[0]
     assert acted.average_fidelity == pytest.approx(one.average_fidelity, abs=1e-6)
     assert acted.state_fidelity == pytest.approx(one.state_fidelity, abs=1e-6)
+
+
+def test_cli_shots_and_scope(tmp_path, capsys):
+    """--shots N and --whole-register reach the report; a negative count is
+    exit 2 with a hint."""
+    import json
+    from compiler.cli import main
+    (tmp_path / "d.yaml").write_text(PAIR_DEVICE.format(ra=""))
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\n' + RAMSEY)
+    out = tmp_path / "rep"
+    assert main(["simulate", str(tmp_path / "s.dotseq"), "-o", str(out), "--nodes", "1",
+                 "--no-budget", "--no-steps", "--shots", "250", "--whole-register"]) == 0
+    run = json.loads((out / "results.json").read_text())["result"]["runs"][0]
+    assert run["observables"][0]["shots"] == 250 and run["fidelity_qubits"] == ["A", "B"]
+    assert "fidelities of the whole register (A, B)" in capsys.readouterr().out
+    assert main(["simulate", str(tmp_path / "s.dotseq"), "-o", str(tmp_path / "r2"),
+                 "--shots", "-3"]) == 2
+    assert "--shots -3" in capsys.readouterr().err

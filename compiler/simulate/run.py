@@ -29,10 +29,12 @@ from . import fidelity as F
 from .build import build_model
 from .engines import ENGINES, make_engine
 from .model import dot_operator, embed, noise_points
+from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
+MAX_SHOTS = 10 ** 12
 
 
 @dataclass(frozen=True)
@@ -49,6 +51,9 @@ class SimOptions:
     max_step_entries: int = 200   # per-step fidelities for at most this many program steps
     sweep_nodes: int = 3          # quadrature nodes for the runs other than the detail run
     threads: int = 0              # threads for independent evaluations; 0: automatic
+    fidelity_scope: str = "program"   # whole-run fidelities of the qubits the program acts on,
+                                      # or "register" (docs/simulate.md, "Fidelity scope")
+    shots: int = 0                # repetitions of the experiment (observables' counts, errors)
 
     def worker_threads(self) -> int:
         """``threads``, or automatically one per core (at most 4), and one
@@ -70,6 +75,12 @@ class SimOptions:
             raise UsageError(f"nodes {self.nodes} must be from 1 to 15")
         if self.threads < 0 or self.threads > 256:
             raise UsageError(f"threads {self.threads} must be from 0 (automatic) to 256")
+        if self.fidelity_scope not in SCOPES:
+            raise UsageError(f"unknown fidelity scope '{self.fidelity_scope}'",
+                             hint=f"use {' or '.join(SCOPES)}")
+        if not 0 <= self.shots <= MAX_SHOTS:
+            raise UsageError(f"--shots {self.shots} must be from 1 to {MAX_SHOTS:.0e} "
+                             "(0: no shot statistics)", hint="e.g. --shots 1000")
         if self.quadrature not in ("tensor", "additive", "auto"):
             raise UsageError(f"unknown quadrature '{self.quadrature}'",
                              hint="use tensor, additive or auto")
@@ -176,6 +187,8 @@ class Whole:
     traces: dict
     duration: float
     dim: int = 0                 # dimension of the simulated register
+    observables: tuple = ()      # what each trailing read records (observe.observables)
+    qubits: tuple = ()           # the qubits the fidelities are of (the scope)
 
     @property
     def infidelity(self) -> float:
@@ -208,14 +221,16 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
                               correction=correction if model.profiles else None)
     U = F.ideal_unitary(program_steps(tl), dots)
     frames = [tl.frames[q] for q in dots]
-    f_pro = f_avg = None
-    if process:
-        Sq = F.to_qubit_frames(S, [0.0] * n, frames)
-        f_pro = F.process_fidelity(Sq, U)
-        f_avg = F.average_fidelity(f_pro, model.dim)
+
+    def rerun(rho0_other):
+        """The final state from another initial state (preparation errors
+        above five qubits, where the channel is not kept)."""
+        return _average(engine, model, pts, process=False, rho0=rho0_other)[1]
+
+    view = assess(tl.run, device, dots, S if process else None, rho, psi0, U, frames,
+                  scope=opts.fidelity_scope, shots=opts.shots, rerun=rerun)
+    f_pro, f_avg, f_state = view["f_pro"], view["f_avg"], view["f_state"]
     rq = F.rho_to_qubit_frames(rho, frames)
-    psi = U @ psi0
-    f_state = float(np.real(psi.conj() @ rq @ psi))
     pops = {}
     for k, q in enumerate(dots):
         up = embed(dot_operator(model.dots[k], "up"), k, model.levels)
@@ -225,7 +240,8 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim)
+    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim,
+                 view["observables"], view["qubits"])
 
 
 def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
@@ -396,7 +412,8 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
-                              whole.traces, {"wall_s": time.perf_counter() - t0}))
+                              whole.traces, {"wall_s": time.perf_counter() - t0},
+                              whole.observables, whole.qubits))
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
     warnings = tuple(sorted({w.render() for tl in checked.timelines for w in tl.warnings}))
@@ -406,13 +423,25 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                 "sweep_quadrature": f"additive, {min(opts.nodes, opts.sweep_nodes)} nodes "
                                     "(runs other than the detail run)" if n_runs > 1 else "",
                 "fidelity_metric": "budget and totals: 1 - average gate fidelity of the whole "
-                                   "run (1 - state fidelity above 5 dots)"}
+                                   "run (1 - state fidelity above 5 dots)",
+                "fidelity_scope": _scope_text(opts, runs[detail] if runs else None),
+                "shots": opts.shots}
     spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
                             tuple(runs), axes, coherence, settings, warnings, stats, spectra)
 
 
 WORST_STEPS = 3
+
+
+def _scope_text(opts: SimOptions, run: RunResult | None) -> str:
+    """What the whole-run fidelities are of, for the settings and the tables."""
+    if run is None:
+        return ""
+    q = ", ".join(run.fidelity_qubits)
+    if opts.fidelity_scope == "register" or set(run.fidelity_qubits) >= set(run.dots):
+        return f"the whole register ({q})"
+    return f"the qubits the program acts on ({q})"
 
 
 def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tuple:

@@ -76,7 +76,9 @@ def _sha256(paths) -> str:
 
 def sim_settings(opts: SimOptions) -> dict:
     return {"engine": opts.engine, "nodes": opts.nodes, "quadrature": opts.quadrature,
-            "substeps": opts.substeps, "rwa": opts.rwa}
+            "substeps": opts.substeps, "rwa": opts.rwa,
+            # the points' fidelities and observables depend on these too (--resume compares)
+            "fidelity_scope": opts.fidelity_scope, "shots": opts.shots}
 
 
 def _spec_record(s: VarySpec) -> dict:

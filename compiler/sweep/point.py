@@ -94,7 +94,8 @@ def simulate_point(task: PointTask) -> PointResult:
         None if whole.f_pro is None else float(whole.f_pro),
         None if whole.f_avg is None else float(whole.f_avg), float(whole.f_state),
         tuple((q, float(p)) for q, p in whole.pops.items()), float(whole.duration),
-        coherence(tl, task.device), budget, floor, remainder, time.perf_counter() - t0)
+        coherence(tl, task.device), budget, floor, remainder, time.perf_counter() - t0,
+        tuple(whole.observables))
 
 
 def evaluate_point(task: PointTask) -> PointResult:
