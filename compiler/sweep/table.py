@@ -18,4 +18,7 @@ def make_table(plan: SweepPlan, points, stats: dict | None = None) -> SweepTable
     return SweepTable(plan.key, plan.sequence, plan.device_name, plan.axes, plan.fixed, pts,
                       plan.n_points, options, metric, plan.budget, plan.warnings,
                       dict(stats or {}), dict(plan.point_warnings),
-                      getattr(plan.options, "fidelity_scope", ""))
+                      SCOPE_TEXT.get(plan.options.fidelity_scope, ""))
+
+
+SCOPE_TEXT = {"program": "the qubits the program acts on", "register": "the whole register"}

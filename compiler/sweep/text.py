@@ -105,7 +105,8 @@ def outcome_lines(outcome) -> list[str]:
                    f"{fmt_sci(best.infidelity)}) at {values_text(table, best.coords)}")
         out.append(f"worst     F = {fmt_fidelity(worst.fidelity)} at "
                    f"{values_text(table, worst.coords)}")
-        out.append(f"          F = {table.metric} of the whole run against the ideal circuit")
+        out.append(f"          F = {table.metric} of the whole run against the ideal circuit"
+                   + (f", of {table.scope}" if table.scope else ""))
         margins = [p.margin for p in ok if p.margin is not None]
         if margins:
             lo, hi = min(margins), max(margins)

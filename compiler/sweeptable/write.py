@@ -96,6 +96,7 @@ def _head_line(table: SweepTable) -> str:
     state = "complete" if table.complete else "PARTIAL"
     return (f"dotseq sweep of {table.sequence} on {table.device_name}: {state}, {done} of "
             f"{table.n_points} points; fidelity = {table.metric} of the whole run"
+            + (f" (of {table.scope})" if table.scope else "")
             + ("; budget = infidelity contribution of each source" if table.budget else
                "; no error budget (--budget adds it)"))
 
