@@ -399,3 +399,27 @@ def test_cli_shots_and_scope(tmp_path, capsys):
     assert main(["simulate", str(tmp_path / "s.dotseq"), "-o", str(tmp_path / "r2"),
                  "--shots", "-3"]) == 2
     assert "--shots -3" in capsys.readouterr().err
+
+
+def test_vary_sweep_records_observables_and_resumes_them(tmp_path):
+    """A --vary sweep writes the observables in its table and draws
+    observables.png with the shared figure code; a resumed sweep reads them
+    back from points.jsonl unchanged."""
+    import json
+    from compiler.sweep import plan_sweep, run_sweep
+    (tmp_path / "d.yaml").write_text(PAIR_DEVICE.format(
+        ra=", readout: {fidelity_up: 0.9, fidelity_down: 0.95, preparation: 0}"))
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\n' + RAMSEY)
+    plan = plan_sweep(tmp_path / "s.dotseq", ["A.t2_star=1us,4us"],
+                      options=SimOptions(nodes=3, budget=False, steps=False, shots=100))
+    out = run_sweep(plan, tmp_path / "sw")
+    assert (tmp_path / "sw" / "observables.png").exists()
+    doc = json.loads((tmp_path / "sw" / "sweep.json").read_text())
+    obs = [p["observables"][0] for p in doc["points"]]
+    assert [o["label"] for o in obs] == ["P(up) A", "P(up) A"] and obs[0]["shots"] == 100
+    for o in obs:
+        assert o["measured"] == pytest.approx(0.9 * o["ideal"] + 0.05 * (1 - o["ideal"]),
+                                              abs=1e-12)
+    assert obs[0]["ideal"] != pytest.approx(obs[1]["ideal"], abs=1e-3)   # T2* matters
+    again = run_sweep(plan, tmp_path / "sw", resume=True)
+    assert [p.observables for p in again.table.points] == [p.observables for p in out.table.points]

@@ -127,7 +127,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     options.check()
     options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
                          nodes=options.nodes, quadrature=options.quadrature, budget=False,
-                         steps=False)
+                         steps=False, fidelity_scope=options.fidelity_scope,
+                         shots=options.shots)
     raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
     tree = parse_path(path, confine=confine)
     expanded = expand(tree)
