@@ -186,7 +186,7 @@ class Whole:
     pops: dict
     traces: dict
     duration: float
-    dim: int = 0                 # dimension of the simulated register
+    dim: int = 0                 # dimension of the qubits the fidelities are of (2^n)
     observables: tuple = ()      # what each trailing read records (observe.observables)
     qubits: tuple = ()           # the qubits the fidelities are of (the scope)
 
@@ -240,7 +240,8 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, model.dim,
+    # the dimension the fidelities are of (the scope's qubits)
+    return Whole(f_pro, f_avg, f_state, pops, named, stop * tl.dt, 2 ** len(view["qubits"]),
                  view["observables"], view["qubits"])
 
 
