@@ -11,11 +11,9 @@ the same bytes.
 
 from __future__ import annotations
 
-import dataclasses
 import json
-import math
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any
 
 import numpy as np
 

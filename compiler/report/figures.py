@@ -19,7 +19,6 @@ function of the result; :func:`save_png` writes one.
 
 from __future__ import annotations
 
-import math
 from typing import Callable
 
 import numpy as np
@@ -30,11 +29,11 @@ from matplotlib.ticker import MaxNLocator
 from matplotlib.transforms import blended_transform_factory
 
 from .. import figstyle as FS
-from ..figstyle import BEST_COLOUR, FIDELITY_MAP, FONT, HEIGHT, WIDTH, new_figure
+from ..figstyle import BEST_COLOUR, FONT, HEIGHT, WIDTH, new_figure
 from ..figstyle import save_png  # noqa: F401  (write.py saves through this module)
 from ..preview import style as S
 from ..simulate.types import RunResult, SimulationResult
-from ..numfmt import axis_scale, fmt_fidelity, fmt_percent, fmt_sci, fmt_value, time_unit
+from ..numfmt import fmt_percent, fmt_sci, fmt_value, time_unit
 from ..sweeptable import figure as SF
 from ..sweeptable.build import from_result
 from .fmt import budget_rows, detail_index, has_budget, trace_series, traces_index

@@ -23,6 +23,7 @@ import numpy as np
 
 from .. import program as P
 from .. import readout as RO
+from . import fidelity as F
 from .types import Observable
 
 UP = np.array([1.0, 0.0], dtype=complex)
@@ -283,7 +284,6 @@ def assess(run: P.Run, device, dots: tuple[str, ...], S: np.ndarray | None, rho:
         ``f_pro`` (None without ``S``), ``f_avg``, ``f_state``,
         ``qubits`` (the scope's dots), ``observables``.
     """
-    from . import fidelity as F
     if scope not in SCOPES:
         raise ValueError(f"unknown fidelity scope {scope!r}; use {' or '.join(SCOPES)}")
     n = len(dots)
