@@ -209,7 +209,12 @@ def _model_flags(p) -> None:
                    help="fast (exact piecewise-constant propagation, default) or reference "
                    "(qutip mesolve, slow; for cross-checks)")
     p.add_argument("--nodes", type=int, default=5, help="quadrature nodes per quasi-static noise "
-                   "variable (default 5)")
+                   "variable to start from (default 5; 1 switches the averaging off); refined "
+                   "until two rules agree within --averaging-tolerance")
+    p.add_argument("--averaging-tolerance", type=float, default=1e-4, metavar="FIDELITY",
+                   help="every run's average over quasi-static noise is refined until the "
+                   "fidelities of two successive quadrature rules agree within this (default "
+                   "1e-4); the achieved averaging error is reported per run")
     p.add_argument("--quadrature", choices=("auto", "tensor", "additive"), default="auto",
                    help="full product grid, one noise at a time (exact to second order), or auto")
     p.add_argument("--substeps", type=int, default=2, help="piecewise-constant sub-steps per sample "
@@ -370,6 +375,7 @@ def cmd_preview(args) -> int:
 def _sim_options(args):
     from .simulate import SimOptions
     return SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes, rwa=not args.no_rwa,
+                      averaging_tolerance=args.averaging_tolerance,
                       quadrature=args.quadrature, budget=not args.no_budget,
                       steps=not args.no_steps, detail_run=args.detail_run,
                       fidelity_scope="register" if args.whole_register else "program",
@@ -486,6 +492,7 @@ def cmd_sweep(args) -> int:
         workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
+                      averaging_tolerance=args.averaging_tolerance,
                       fidelity_scope="register" if args.whole_register else "program",
                       shots=args.shots)
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,

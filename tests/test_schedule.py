@@ -185,3 +185,17 @@ def test_a_warning_inside_a_block_names_the_statement_and_the_call():
     text = w.render()
     assert text.startswith("t.dotseq:2:3: warning: J = ")
     assert "\n    in block 'g' called at t.dotseq:5:1" in text
+
+
+def test_readout_beside_a_burst_warns_with_its_position():
+    # 'rot B x 180 deg; read A': A is free, so its readout starts at 0 beside B's
+    # burst; the schedule warns at the readout's line and names the burst's line
+    tl = timeline("rot B x 180 deg\nread A\n")
+    msgs = [w for w in tl.warnings if "readout of A" in w.message]
+    assert len(msgs) == 1
+    w = msgs[0]
+    assert (w.span.line, w.span.col) == (2, 1)
+    assert "beside rot on B (line 1)" in w.message and "wait" in w.message
+    # a readout after the burst does not warn
+    tl2 = timeline("rot B x 180 deg\nwait 0 ns\nrot A x 180 deg\nread A\n")
+    assert not [w for w in tl2.warnings if "readout of" in w.message]

@@ -422,7 +422,8 @@ def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
     assert doc["metric"] == "average gate fidelity"
     assert doc["points"][0]["coherence"][0]["ratio"] == pytest.approx(1.0 / 20e-9)
     assert doc["settings"] == {"engine": "fast", "nodes": 3, "quadrature": "auto",
-                               "substeps": 1, "rwa": True, "fidelity_scope": "program",
+                               "substeps": 1, "rwa": True,
+                               "averaging_tolerance": 1e-4, "fidelity_scope": "program",
                                "shots": 0}
     head = (tmp_path / "s" / "sweep.csv").read_text().splitlines()
     assert head[0].startswith("# dotseq sweep of") and "complete, 3 of 3 points" in head[0]
@@ -552,6 +553,25 @@ def test_a_point_is_compiled_once(ramsey, monkeypatch):
     monkeypatch.setattr(PLAN, "KEEP_COMPILED_BYTES", 0)
     plan = plan_sweep(ramsey(), ["tau=100ns:200ns:2"], options=FAST)
     assert all(t.compiled is None for t in plan.tasks)
+
+
+def test_every_sweep_point_is_averaged_to_the_stated_accuracy(ramsey, tmp_path):
+    # Ramsey coherence exp(−(t/T2*)²) under quasi-static Gaussian detuning
+    # (Merkulov, Efros & Rosen, PRB 65, 205309 (2002)); T1 = T2 = 1 s, T2* = 1 µs,
+    # free time plus 2·(2/π)·20 ns for the two square π/2 pulses (first order).
+    # At 1.7·T2* and 3.4·T2* (beyond what the old 15-node cap could average) every
+    # point's averaging is refined to the default tolerance 1e-4 and recorded.
+    plan = plan_sweep(ramsey(), ["tau=1.7us:3.4us:2"], options=SimOptions(substeps=1))
+    assert not [w for w in plan.warnings if "quadrature" in w]
+    out = run_sweep(plan, tmp_path / "avg")
+    t_extra = 2 * 20e-9 * 2 / math.pi
+    for p in out.table.points:
+        (tau,) = p.coords
+        assert p.averaging_error is not None and p.averaging_error <= 1e-4
+        assert p.state_fidelity == pytest.approx((1 + math.exp(-((tau + t_extra) / 1e-6) ** 2)) / 2,
+                                                 abs=2e-4)
+    doc = json.loads((tmp_path / "avg" / "sweep.json").read_text())
+    assert all(pt["averaging_error"] <= 1e-4 for pt in doc["points"])
 
 
 def test_swept_device_gets_the_loader_warnings_too():

@@ -112,6 +112,10 @@ def _run(d: dict) -> RunResult:
         traces={k: np.asarray([_num(x) for x in v], dtype=float) if isinstance(v, list) else v
                 for k, v in d.get("traces", {}).items()},
         stats=dict(d.get("stats", {})),
+        averaging_error=_opt(d.get("averaging_error", 0.0)),
+        nodes=int(d.get("nodes", 1)),
+        compared_nodes=int(d.get("compared_nodes", max(0, int(d.get("nodes", 1)) - 2))),
+        budget_numerical_error=_num(d.get("budget_numerical_error", 0.0)),
         observables=tuple(_observable(o) for o in d.get("observables", ())),
         fidelity_qubits=tuple(str(q) for q in d.get("fidelity_qubits", ())),
     )

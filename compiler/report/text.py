@@ -15,6 +15,7 @@ from dataclasses import dataclass
 from typing import Any, Sequence
 
 from ..preview.style import CAUTION_TEXT
+from ..simulate.run import MAX_NODES
 from ..simulate.types import RunResult, SimulationResult
 from .data import jsonable
 from ..numfmt import (fmt_fidelity, fmt_infidelity, fmt_percent, fmt_population, fmt_ratio,
@@ -162,6 +163,7 @@ def _whole_run(result: SimulationResult, i: int, look: _Look) -> Section:
         rows.append((f"P(up) of dot {dot} at readout", fmt_population(p), ""))
     lines = [f"simulated span {fmt_value(run.duration, 's', 4, look.micro)} (to the start of "
              "the final readout)", scope_line(result, i)]
+    lines.append(averaging_line(result, run))
     notes = []
     if run.process_fidelity is None:
         notes.append("process fidelity not computed (more than five qubits)")
@@ -224,6 +226,28 @@ def _observables(result: SimulationResult, look: _Look, max_rows: int | None) ->
                    notes=tuple(notes))
 
 
+def averaging_line(result: SimulationResult, run: RunResult) -> str:
+    """The stated accuracy of the average over quasi-static noise."""
+    tol = result.settings.get("averaging_tolerance")
+    err = run.averaging_error
+    if err is None:
+        return "quasi-static noise not averaged (one quadrature node): its share is not in these figures"
+    if err == 0 and run.nodes <= 1:
+        return "no quasi-static noise to average"
+    m = run.compared_nodes
+    if tol is not None and err > tol:
+        over = (f"; ABOVE the tolerance {tol:.1e}: even {run.nodes} nodes (the most) do not "
+                "average this run to it (free evolution long against T2*, or exchange long "
+                "against its charge noise): the figures are uncertain by about this much"
+                if run.nodes >= MAX_NODES else
+                f"; ABOVE the tolerance {tol:.1e}: give --nodes higher")
+    else:
+        over = f" (tolerance {tol:.1e})" if tol is not None else ""
+    return (f"averaging error {err:.1e} in fidelity (|F({run.nodes}) - F({m})| of "
+            f"the Gauss-Hermite rules of {run.nodes} and {m} nodes per noise "
+            f"variable){over}")
+
+
 def _populations(run: RunResult) -> list[tuple[str, float]]:
     pops = dict(run.populations or {})
     order = [d for d in run.dots if d in pops] + sorted(k for k in pops if k not in run.dots)
@@ -245,7 +269,7 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
             if d not in dots:
                 dots.append(d)
     shown_dots = dots[:MAX_DOTS_IN_SWEEP_TABLE]
-    headers = (("run",) + tuple(names) + ("F process", "F average", "F state")
+    headers = (("run",) + tuple(names) + ("F process", "F average", "F state", "avg. error")
                + tuple(f"P(up) {d}" for d in shown_dots) + ("",))
     order = list(range(len(runs)))
     notes = []
@@ -264,7 +288,8 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
                     + tuple(fmt_value(sw[n], _unit_of(result, n), 4, look.micro) if n in sw else ""
                             for n in names)
                     + (fmt_fidelity(r.process_fidelity), fmt_fidelity(r.average_fidelity),
-                       fmt_fidelity(r.state_fidelity))
+                       fmt_fidelity(r.state_fidelity),
+                       "n/a" if r.averaging_error is None else f"{r.averaging_error:.1e}")
                     + tuple(fmt_population(pops[d]) if d in pops else "" for d in shown_dots)
                     + (("best" if not look.md else "**best**") if i == best else "",))
     if len(dots) > len(shown_dots):
@@ -272,7 +297,7 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
     lines = (f"one line per run; best = highest {metric} fidelity",
              scope_line(result, best if best is not None else 0))
     return Section("runs", lines=lines,
-                   table=Table(headers, tuple(rows), "r" + "r" * len(names) + "rrr"
+                   table=Table(headers, tuple(rows), "r" + "r" * len(names) + "rrrr"
                                + "r" * len(shown_dots) + "l"),
                    notes=tuple(notes))
 
@@ -334,6 +359,15 @@ def _budget(result: SimulationResult, i: int, look: _Look, top: int | None) -> S
     mismatch = budget_mismatch(run)
     if abs(mismatch) > 1e-9 * max(abs(run.budget_total), 1e-12) + 1e-15:
         notes.append(f"the lines do not add up to the total: difference {fmt_sci(mismatch)}")
+    num = float(getattr(run, "budget_numerical_error", 0.0) or 0.0)
+    if num > 0:
+        state = ("; the negative floor is within it (a fidelity above 1 is not claimed)"
+                 if run.budget_floor < 0 and -run.budget_floor <= num else
+                 ("; the floor is NEGATIVE BEYOND it: worth reporting with the input files"
+                  if run.budget_floor < 0 else ""))
+        notes.append(f"numerical error of the floor and of each line: about {fmt_sci(num)} "
+                     f"(sub-step model, from the floor run with twice the sub-steps, plus the "
+                     f"bound on dropped weak exchange){state}")
     if any(b.value < 0 for b in rows):
         notes.append("a negative contribution means the run is better with that source on "
                      "(or, for the remainder, that sources partly cancel)")

@@ -528,6 +528,31 @@ class _Scheduler:
                         self.slots[-1] = replace(last, info=replace(
                             last.info, spectator_frame_updates=tuple(shifts.items())))
 
+    def warn_readout_overlaps(self) -> None:
+        """A readout placed beside a burst or an exchange pulse (its dots are
+        free, another dot is driven): the register is still being operated on
+        while it is read, and the simulated span ends at the last operation,
+        not at the readout (simulate.run.end_sample)."""
+        active = [s for s in self.slots if s.n > 0 and (s.burst is not None
+                                                          or s.exchange is not None)]
+        for r in self.slots:
+            if not isinstance(r.step, P.Readout) or r.n == 0:
+                continue
+            hit = [s for s in active if s.start_sample < r.end_sample and r.start_sample < s.end_sample]
+            if not hit:
+                continue
+            first = min(hit, key=lambda s: s.start_sample)
+            where = f" (line {first.span.line})" if first.span is not None else ""
+            more = f" and {len(hit) - 1} more" if len(hit) > 1 else ""
+            end = max(s.end for s in hit)
+            dots = " ".join(r.qubits)
+            self.warn(f"readout of {dots} starts at {fq(r.start, TIME)}, beside {first.kind} on "
+                      f"{' '.join(first.qubits)}{where}{more}, which runs until {fq(end, TIME)}: "
+                      "the register is read while it is still driven or exchanged (simulate "
+                      "stops at the end of the last operation). To read after it, wait on the "
+                      f"read dots first, e.g. 'wait {fq(end - r.start, TIME)} on {dots}'",
+                      r.step, key=f"readout-overlap:{dots}")
+
     def schedule(self) -> Timeline:
         log = []
         for gi, step in enumerate(self.run.steps):
@@ -542,6 +567,7 @@ class _Scheduler:
                 log.append((step, tuple(range(first, len(self.slots))), before, dict(self.frames)))
         if self.problems:
             raise ScheduleError(list(self.problems.values()))
+        self.warn_readout_overlaps()
         n = max([s.end_sample for s in self.slots] + list(self.free.values()) + [0])
         order = sorted(range(len(self.slots)), key=lambda i: (self.slots[i].start_sample, i))
         slots = tuple(self.slots[i] for i in order)

@@ -74,6 +74,14 @@ class RunResult:
     budget_remainder: float = 0.0            # total − floor − Σ contributions (interaction)
     traces: dict = field(default_factory=dict)   # {"t": array, dot: P_up(t) array} for plots
     stats: dict = field(default_factory=dict)    # wall time, solver calls, ...
+    # |F(n) − F(m)| of the last two quadrature rules (fidelity; n = nodes,
+    # m = compared_nodes); 0 without quasi-static noise, None when not averaged
+    averaging_error: float | None = 0.0
+    nodes: int = 1                           # Gauss–Hermite nodes per noise variable used
+    # numerical error of the budget's floor: sub-step model (Richardson, twice the
+    # sub-steps) plus the fast engine's bound on dropped exchange
+    budget_numerical_error: float = 0.0
+    compared_nodes: int = 0                  # nodes of the coarser rule it was compared with
     observables: tuple[Observable, ...] = ()     # what each trailing read records
     # the qubits the whole-run fidelities are of (register order): those the
     # program acts on by default, every dot with the whole-register option

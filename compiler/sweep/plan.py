@@ -8,11 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import itertools
-import math
-from functools import lru_cache
 from pathlib import Path
-
-import numpy as np
 
 from .. import __version__, compile_run
 from ..check import check
@@ -23,8 +19,7 @@ from ..expand import expand
 from ..limits import MAX_SOURCE_CHARS
 from ..parse import parse_path
 from ..parse import tree as T
-from ..simulate.model import gauss_hermite
-from ..simulate.run import SimOptions, end_sample
+from ..simulate.run import SimOptions
 from ..source import Oversize, Unreadable, read_capped
 from ..units import format_quantity
 from . import params as PR
@@ -77,6 +72,7 @@ def _sha256(paths) -> str:
 def sim_settings(opts: SimOptions) -> dict:
     return {"engine": opts.engine, "nodes": opts.nodes, "quadrature": opts.quadrature,
             "substeps": opts.substeps, "rwa": opts.rwa,
+            "averaging_tolerance": opts.averaging_tolerance,
             # the points' fidelities and observables depend on these too (--resume compares)
             "fidelity_scope": opts.fidelity_scope, "shots": opts.shots}
 
@@ -126,7 +122,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     """
     options.check()
     options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
-                         nodes=options.nodes, quadrature=options.quadrature, budget=False,
+                         nodes=options.nodes, quadrature=options.quadrature,
+                         averaging_tolerance=options.averaging_tolerance, budget=False,
                          steps=False, fidelity_scope=options.fidelity_scope,
                          shots=options.shots)
     raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
@@ -190,7 +187,6 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     caution_hits: dict[str, list[str]] = {}
     stage_errors: list[tuple[DotseqError, str]] = []
     tasks: list[PointTask] = []
-    longest: dict[str, tuple[float, str]] = {}     # dot -> (largest run span / T2*, point)
     for index, coords in enumerate(itertools.product(*[a.values for a in axes])):
         label = point_label(axes, coords)
         dev_label = point_label(*zip(*[(a, v) for a, v in zip(axes, coords)
@@ -234,13 +230,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
             try:
                 check(ex, dev)
                 crun = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
-                tl = crun.timeline
                 scheduled[ck] = crun
-                run_warnings[ck] = point_warnings_of(tl, dev)
-                for q, d in dev.dots.items():
-                    r = end_sample(tl) * tl.dt / d.t2_star   # simulated span / T2*
-                    if r > longest.get(q, (0.0, ""))[0]:
-                        longest[q] = (r, label)
+                run_warnings[ck] = point_warnings_of(crun.timeline, dev)
             except DotseqError as e:
                 scheduled[ck] = e
         if isinstance(scheduled[ck], DotseqError):
@@ -269,8 +260,9 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
            "device_sha256": _sha256([dev_path]), "device_name": dev0.name,
            "axes": [_spec_record(a) for a in axes], "fixed": [_spec_record(s) for s in sets],
            "options": sim_settings(options), "budget": bool(budget)}
-    warnings = (tuple(_caution_lines(caution_hits)) + _quadrature_caution(longest, options.nodes)
-                + _worst_point_warning(per_point, worst_at, total))
+    # no quadrature caution: every point's average over quasi-static noise is
+    # refined to the stated tolerance (simulate.run.evaluate_whole)
+    warnings = tuple(_caution_lines(caution_hits)) + _worst_point_warning(per_point, worst_at, total)
     return SweepPlan(str(path), dev0.name, dev_path, tuple(axes), tuple(sets), tuple(tasks),
                      options, bool(budget), key, warnings, per_point)
 
@@ -295,45 +287,6 @@ def _worst_point_warning(per_point: dict, worst_at: tuple, total: int) -> tuple[
     text = per_point[idx][0][1].replace("warning: ", "", 1)
     return (f"{len(per_point)} of {total} points have warnings (column 'warnings' of the "
             f"table); the worst, at {where}: {text}",)
-
-
-@lru_cache(maxsize=None)
-def accurate_span(nodes: int, tol: float = 1e-3) -> float:
-    """Longest free precession, in units of T2*, for which ``nodes``
-    Gauss-Hermite nodes average the quasi-static Ramsey signal
-    exp(-(t/T2*)^2) to ``tol`` (the model's detuning rms is sqrt(2)/T2*;
-    Merkulov, Efros & Rosen, PRB 65, 205309 (2002))."""
-    x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
-    r = 0.0
-    while r < 50:
-        a = math.sqrt(2) * (r + 0.01)
-        if abs(float(np.dot(w, np.cos(a * x))) - math.exp(-a * a / 2)) > tol:
-            return r
-        r += 0.01
-    return r
-
-
-def _quadrature_caution(longest: dict[str, tuple[float, str]], nodes: int) -> tuple[str, ...]:
-    limit = accurate_span(nodes)
-    out = []
-    for q, (r, label) in longest.items():
-        if r > limit:
-            need = _nodes_for(r)
-            fix = (f"give --nodes {need}" if need else
-                   "even 15 nodes (the most) reach only "
-                   f"{accurate_span(15):.2g}·T2*, so trust only the points with shorter free "
-                   "precession")
-            out.append(f"runs last up to {r:.3g}·T2* of dot {q} (at {label}); {nodes} quadrature "
-                       f"nodes average free precession correctly (to 1e-3) only up to "
-                       f"{limit:.2g}·T2*: {fix}, unless the sequence refocuses (echoes)")
-    return tuple(out)
-
-
-def _nodes_for(r: float) -> int | None:
-    for n in range(3, 16):
-        if accurate_span(n) >= r:
-            return n
-    return None
 
 
 def _caution_lines(hits: dict[str, list[str]]) -> list[str]:

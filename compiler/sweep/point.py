@@ -86,7 +86,7 @@ def simulate_point(task: PointTask) -> PointResult:
     budget = ()
     floor = remainder = None
     if task.budget:
-        lines, floor, remainder = error_budget(crun, opts, engine, whole, RECOMPILER.run)
+        lines, floor, remainder, _ = error_budget(crun, opts, engine, whole, RECOMPILER.run)
         budget = tuple((b.source, float(b.infidelity)) for b in lines)
         floor, remainder = float(floor), float(remainder)
     return PointResult(
@@ -95,7 +95,7 @@ def simulate_point(task: PointTask) -> PointResult:
         None if whole.f_avg is None else float(whole.f_avg), float(whole.f_state),
         tuple((q, float(p)) for q, p in whole.pops.items()), float(whole.duration),
         coherence(tl, task.device), budget, floor, remainder, time.perf_counter() - t0,
-        tuple(whole.observables))
+        averaging_error=whole.averaging_error, observables=tuple(whole.observables))
 
 
 def evaluate_point(task: PointTask) -> PointResult:

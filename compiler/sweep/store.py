@@ -77,7 +77,7 @@ def point_from_dict(d: dict) -> PointResult:
                         for c in d.get("coherence", [])),
         budget=tuple((str(s), float(v)) for s, v in d.get("budget", [])),
         budget_floor=opt(d.get("budget_floor")), budget_remainder=opt(d.get("budget_remainder")),
-        wall_s=float(d.get("wall_s", 0.0)),
+        wall_s=float(d.get("wall_s", 0.0)), averaging_error=opt(d.get("averaging_error")),
         observables=tuple(_observable(o) for o in d.get("observables", [])))
 
 

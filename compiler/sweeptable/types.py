@@ -74,6 +74,7 @@ class PointResult:
     budget_floor: float | None = None
     budget_remainder: float | None = None
     wall_s: float = 0.0
+    averaging_error: float | None = None     # |F(n) − F(m)| of the last two quadrature rules (fidelity)
     # what each read records (compiler.simulate.types.Observable), in read order
     observables: tuple = ()
 

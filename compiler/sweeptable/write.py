@@ -185,6 +185,7 @@ def document(table: SweepTable, *, figure: str | None = None,
                  process_fidelity=p.process_fidelity, average_gate_fidelity=p.average_fidelity,
                  state_fidelity=p.state_fidelity, populations=dict(p.populations),
                  duration_s=p.duration, coherence_margin=p.margin, wall_s=p.wall_s,
+                 averaging_error=p.averaging_error,
                  coherence=[{"dot": q, "t2_s": t2, "longest_gate_s": g, "ratio": r,
                              "below_rule": r < COHERENCE_RULE} for q, t2, g, r in p.coherence],
                  observables=list(p.observables))

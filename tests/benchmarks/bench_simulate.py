@@ -145,6 +145,35 @@ def bench_w4(folder: Path, quick: bool) -> dict:
             "w4_state_fidelity": fa, "w4_max_abs_diff": abs(fa - fb)}
 
 
+def bench_weak_exchange(folder: Path) -> dict:
+    """Three dots, three π bursts, whole-run process with quadrature: idle
+    barriers leaving J = 1 mHz, 45 mHz, 1 Hz, 1 kHz against barriers fully
+    closed (J ≈ 1e-5 Hz); the worst time ratio and the fidelity shift."""
+    from compiler.simulate import fidelity as F
+    from compiler.simulate.engines import FastEngine
+    idles = {"closed": "-600 mV", "1 mHz": "-514 mV", "45 mHz": "-438 mV", "1 Hz": "-376 mV",
+             "1 kHz": "-238 mV"}
+    times, fids, notes = {}, {}, {}
+    for label, idle in idles.items():
+        seq = write_case(folder / f"weak_{label.replace(' ', '')}", 3, 3, long_range=False,
+                         charge_noise="10 uV")
+        dev = seq.parent / "device.yaml"
+        dev.write_text(dev.read_text().replace("idle_voltage: -600 mV", f"idle_voltage: {idle}"))
+        seq.write_text('device "device.yaml"\nprepare D0 D1 D2 down\nrot D0 x 180 deg\n'
+                       'rot D1 x 180 deg\nrot D2 x 180 deg\nread D0 D1 D2\n')
+        c, model, pts, U, psi0, frames = prepared(seq, 5)
+        t, ev = median_time(lambda: FastEngine().average(model, pts, process=True), 3)
+        times[label] = t
+        fids[label] = process_fidelity(ev.superop, U, frames)
+        notes[label] = ev.stats["largest_cluster"]
+        print(f"weak exchange {label:>6}: {t:.3f} s, largest cluster {notes[label]}, "
+              f"process fidelity {fids[label]:.9f}", flush=True)
+    worst = max(v for k, v in times.items() if k != "closed")
+    return {"weak_exchange_ratio": worst / times["closed"],
+            "weak_exchange_times_s": times,
+            "weak_exchange_max_fidelity_shift": max(abs(f - fids["closed"]) for f in fids.values())}
+
+
 def one_size(n: int, steps: int, folder: str) -> dict:
     """Run in a fresh process: compile, then time the state evolution alone."""
     from compiler.simulate.engines.fast import _apply
@@ -233,12 +262,19 @@ def main() -> None:
             out = bench_w2_spectral(Path(tmp))
         print(json.dumps({k: float(f"{v:.6g}") for k, v in out.items()}))
         return
+    if "--weak-exchange" in sys.argv:            # only the weak-exchange workload
+        with tempfile.TemporaryDirectory() as tmp:
+            out = bench_weak_exchange(Path(tmp))
+        print(json.dumps({k: (float(f"{v:.6g}") if isinstance(v, float) else v)
+                          for k, v in out.items()}))
+        return
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         out = {}
         out.update(bench_w2(folder, quick))
         out.update(bench_w2_spectral(folder))
         out.update(bench_w4(folder, quick))
+        out.update(bench_weak_exchange(folder))
         sizes = (4, 6, 8) if quick else (4, 6, 8, 10, 12)
         rows = bench_scaling(folder, sizes, 100)
     big = rows[-1]

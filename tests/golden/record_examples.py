@@ -29,15 +29,19 @@ GOLDEN = HERE / "examples_results.json"
 CASES = {
     "ramsey_pair": dict(nodes=3),
     "cnot_pair": dict(nodes=3),
-    "gaas_rabi": dict(nodes=3, budget=False),
+    # these two run many T2* of free precession, where the refinement goes to
+    # the most nodes (about 20 s and 70 s): here a loose tolerance (0.1) stops
+    # at 3 or 5 nodes, enough to pin the figures; the refinement itself is pinned by
+    # the other examples and tests/test_simulate.py
+    "gaas_rabi": dict(nodes=3, budget=False, averaging_tolerance=0.1),
     "ramsey_single": dict(nodes=3),
-    "ribbon_long_range": dict(nodes=3, budget=False, steps=False),
+    "ribbon_long_range": dict(nodes=3, budget=False, steps=False, averaging_tolerance=0.1),
     "hahn_cpmg_readout": dict(nodes=3, steps=False),
 }
 # Run-level figures of results.json that must not move (wall times and
 # engine statistics are left out: they are not physics).
 RUN_KEYS = ("duration", "process_fidelity", "average_fidelity", "state_fidelity",
-            "budget_total", "budget_floor", "budget_remainder")
+            "budget_total", "budget_floor", "budget_remainder", "averaging_error", "nodes")
 
 
 def figures(name: str) -> dict[str, float]:
