@@ -74,7 +74,8 @@ def _point(index: int, coords, run, coherence) -> PointResult:
         run.process_fidelity, run.average_fidelity, run.state_fidelity, pops, run.duration,
         coherence, budget, run.budget_floor if budget else None,
         run.budget_remainder if budget else None, float(run.stats.get("wall_s", 0.0)),
-        tuple(getattr(run, "observables", ()) or ()))
+        averaging_error=run.averaging_error,
+        observables=tuple(getattr(run, "observables", ()) or ()))
 
 
 def from_result(result) -> SweepTable | None:
