@@ -199,6 +199,7 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
     _model_flags(w)
+    _readout_flags(w)
     w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
                    "--substeps of 64 or more; slow)")
     w.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -236,10 +237,21 @@ def _model_flags(p) -> None:
                    "(default 2)")
 
 
+def _readout_flags(p) -> None:
+    """What the report counts: the fidelity scope and the shots (simulate,
+    run, sweep)."""
+    p.add_argument("--whole-register", action="store_true", help="score the whole-run "
+                   "fidelities on every dot (default: on the qubits the program acts on, so idle "
+                   "spectators do not dominate them)")
+    p.add_argument("--shots", type=int, default=0, metavar="N", help="repetitions of the "
+                   "experiment: the observables get expected counts and binomial error bars")
+
+
 def _sim_flags(p) -> None:
     p.add_argument("--run", type=int, default=0, dest="detail_run",
                    help="run of a sweep that gets per-step fidelities, the budget and traces")
     _model_flags(p)
+    _readout_flags(p)
     p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
                    "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
     p.add_argument("--no-budget", action="store_true", help="skip the error budget")
@@ -389,7 +401,9 @@ def _sim_options(args):
     return SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes, rwa=not args.no_rwa,
                       averaging_tolerance=args.averaging_tolerance,
                       quadrature=args.quadrature, budget=not args.no_budget,
-                      steps=not args.no_steps, detail_run=args.detail_run)
+                      steps=not args.no_steps, detail_run=args.detail_run,
+                      fidelity_scope="register" if args.whole_register else "program",
+                      shots=args.shots)
 
 
 def _simulated(args, compiled):
@@ -529,7 +543,9 @@ def cmd_sweep(args) -> int:
         workers = local_cores()
     opts = SimOptions(engine=args.engine, substeps=args.substeps, nodes=args.nodes,
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
-                      averaging_tolerance=args.averaging_tolerance)
+                      averaging_tolerance=args.averaging_tolerance,
+                      fidelity_scope="register" if args.whole_register else "program",
+                      shots=args.shots)
     if not cluster and workers > 1:
         pool_context()               # the workers' server imports the package while we plan
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,

@@ -3,6 +3,7 @@ of a simulation, built from hand-made results (no simulator run)."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import os
@@ -282,7 +283,8 @@ def test_sweep_png_only_for_sweeps(reports):
 
 def test_sweep_map_places_runs_row_major():
     result = make_result("sweep2")
-    pos = figures_mod._grid_positions(result)
+    from compiler.sweeptable.build import grid_positions
+    pos = grid_positions(result)
     assert pos[0] == (0, 0) and pos[1] == (0, 1) and pos[4] == (1, 0) and pos[11] == (2, 3)
 
 
@@ -398,3 +400,116 @@ def test_markdown_escapes_each_cell_once():
     assert "| Gaussian detuning, rms √2/T2\\*, by quadrature |" in md
     assert "| under\\_score \\`tick\\` \\| bar |" in md
     assert "\\\\" not in md                          # no escaped backslash anywhere
+
+
+# ---------------------------------------------------------------- the shared sweep table
+
+def test_in_file_sweep_writes_the_shared_sweep_table(reports):
+    """A sequence's own sweep is written by the same table writer as
+    ``dotseq sweep`` (compiler.sweeptable): sweep.json and sweep.csv with one
+    point per run, placed row-major, and the same ranking (issue 13)."""
+    import csv
+    out = reports["sweep2"]
+    doc = json.loads((out / "sweep.json").read_text(encoding="utf-8"))
+    assert doc["format"] == "dotseq-sweep" and doc["complete"] and doc["points_total"] == 12
+    assert [a["name"] for a in doc["axes"]] == ["amp", "detuning"]
+    assert doc["axes"][0]["source"] == "file" and doc["figure"] == "sweep.png"
+    result = make_result("sweep2")
+    for p, run in zip(doc["points"], result.runs):
+        assert p["average_gate_fidelity"] == run.average_fidelity
+        assert p["values"] == dict(run.sweep)
+    best = max(range(12), key=lambda k: result.runs[k].average_fidelity)
+    assert doc["best"]["index"] == best
+    with open(out / "sweep.csv", newline="", encoding="utf-8") as f:
+        rows = list(csv.DictReader(line for line in f if not line.startswith("#")))
+    assert len(rows) == 12 and float(rows[5]["state_fidelity"]) == result.runs[5].state_fidelity
+    assert not (reports["single"] / "sweep.json").exists()
+
+
+def test_report_and_sweep_draw_with_one_figure_module():
+    """One figure code for both kinds of sweep: the report's sweep.png is the
+    shared figure of the table built from the result."""
+    from compiler.sweep import run as sweep_run
+    from compiler.sweeptable import figure as shared
+    from compiler.sweeptable.build import from_result
+    assert sweep_run.FIG is shared and figures_mod.SF is shared
+    table = from_result(make_result("sweep1"))
+    assert [p.index for p in table.points] == [0, 1, 2, 3, 4]
+    assert table.metric == "average gate fidelity"
+    fig = figures_mod.build("sweep.png", make_result("sweep1"))
+    assert fig.texts[0].get_text() == shared.figure(table).texts[0].get_text()
+
+
+def test_three_axis_sweep_map_is_the_slice_through_the_best_run():
+    result = make_result("sweep2")
+    runs = []
+    for extra in (0.0, 1.0):
+        for r in result.runs:
+            f = r.process_fidelity - (0.0 if extra else 1e-3)
+            runs.append(make_run(len(runs), r.sweep + (("gain", extra),), f, f - 0.002,
+                                 detail=False, traces=False))
+    three = dataclasses.replace(result, runs=tuple(runs),
+                                axes=result.axes + (("gain", (0.0, 1.0), ""),))
+    fig = figures_mod.build("sweep.png", three)
+    assert "slice at gain = 1" in fig.texts[0].get_text()
+
+
+# ---------------------------------------------------------------- observables
+
+def _with_observables(result, shots: int = 0):
+    """Each run reads A (spin) and the pair A-B (blockade): a fringe over
+    the runs, recorded through F_up = 0.95, F_down = 0.99 (invented)."""
+    from compiler.readout import recorded
+    from compiler.simulate.types import Observable
+    runs = []
+    for k, r in enumerate(result.runs):
+        p = 0.5 * (1 + math.cos(0.7 * k))
+        obs = []
+        for label, kind, qubits, f_yes, f_no in (("P(up) A", "spin", ("A",), 0.95, 0.99),
+                                                  ("P(singlet) A-B", "singlet", ("A", "B"),
+                                                   0.98, 0.97)):
+            m = recorded(p, f_yes, f_no)
+            obs.append(Observable(label, kind, qubits, p, m, 1.0, shots,
+                                  shots * m if shots else None,
+                                  math.sqrt(m * (1 - m) / shots) if shots else None))
+        runs.append(dataclasses.replace(r, observables=tuple(obs), fidelity_qubits=("A",)))
+    return dataclasses.replace(result, runs=tuple(runs))
+
+
+def test_observables_in_summary_results_and_sweep_table(tmp_path):
+    result = _with_observables(make_result("sweep1"), shots=1000)
+    text = summary_text(result)
+    assert "observables" in text and "P(singlet) A-B" in text and "± 1σ" in text
+    assert "fidelities of the qubit the program acts on (A); idle spectator B" in text
+    out = write_report(result, tmp_path / "obs")
+    assert figures_mod.planned(result)[0] == "observables.png"       # first figure
+    assert png_size(out / "observables.png") == (1100, 660)
+    back = load_results(out)
+    assert back.runs[3].observables == result.runs[3].observables
+    assert back.runs[3].fidelity_qubits == ("A",)
+    doc = json.loads((out / "sweep.json").read_text(encoding="utf-8"))
+    entry = doc["points"][2]["observables"][0]
+    assert entry["label"] == "P(up) A" and entry["measured"] == result.runs[2].observables[0].measured
+    assert doc["observables_figure"] == "observables.png"
+    head = [line for line in (out / "sweep.csv").read_text(encoding="utf-8").splitlines()
+            if not line.startswith("#")][0]
+    assert "P(up) A measured,P(up) A ideal,P(up) A error" in head
+
+
+def test_observables_map_for_two_axes():
+    result = _with_observables(make_result("sweep2"))
+    fig = figures_mod.build("observables.png", result)
+    assert "What the readouts record over amp and detuning" in fig.texts[0].get_text()
+    assert "observables.png" not in figures_mod.planned(make_result("sweep2"))
+
+
+def test_spectra_figure_draws():
+    """spectra.png of a result with a Zeeman-noise spectrum is drawn (it
+    ended in a NameError: the figure called helpers that no longer exist)."""
+    from compiler.spectra import Spectrum
+    spec = Spectrum(1e6, 1.0, f_low=1e-2)
+    result = dataclasses.replace(make_result("single"), noise_spectra=(
+        ("A", spec, (("run 0 (1 π pulse)", 8e-6, (4e-6,)), ("rot A x 90° (worst step 1)", 4e-8, ()))),))
+    assert "spectra.png" in figures_mod.planned(result)
+    fig = figures_mod.build("spectra.png", result)
+    assert "Noise spectra" in fig.texts[0].get_text()

@@ -38,6 +38,8 @@ from . import levels as lv
 from .model import (MAX_BITS, MAX_GRANULARITY, MAX_MEMORY, MAX_MIN_LENGTH, Channel, Coupling,
                     Device, Dot, Drive, ExchangeModel, Mixer, Readout, RotationDefaults,
                     VoltagePoint, granularity_of)
+from .model import PairReadout, SpinReadout
+from .. import readout as RO
 from .presets import PRESETS
 from .rules import ERROR, validate
 
@@ -47,9 +49,14 @@ TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
 TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time",
                 "points")
 
-DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise",
+DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise", "readout",
             "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
 VALLEY_KEYS = ("spin_orbit", "valley_splitting", "valley_g")
+# a dot's single-spin readout (docs/device.md, "Readout and preparation")
+SPIN_READOUT_KEYS = ("kind", "fidelity_up", "fidelity_down", "tunnel_out", "relaxation",
+                     "integration_time", "snr", "preparation")
+PAIR_READOUT_KEYS = ("kind", "fidelity_singlet", "fidelity_triplet", "fidelity_even",
+                     "fidelity_odd")
 DRIVE_KEYS = ("line", "rabi_per_volt", "b1_per_volt", "direction")
 
 CHANNEL_KINDS = ("iq", "gate", "marker")
@@ -71,7 +78,7 @@ _SAMPLES_SCALE = {None: 1, "k": 10 ** 3, "M": 10 ** 6, "G": 10 ** 9, "Ki": 2 ** 
                   "Mi": 2 ** 20, "Gi": 2 ** 30}
 
 COUPLING_KEYS = ("dots", "barrier", "exchange", "idle_voltage", "pulse_voltage",
-                 "charge_noise", "detune", "barrier_noise")
+                 "charge_noise", "detune", "barrier_noise", "readout")
 # a noise spectrum S(f) = at_1hz/f^exponent + white on [f_low, f_high] (docs/device.md)
 SPECTRUM_KEYS = ("at_1hz", "exponent", "white", "f_low", "f_high")
 # every key of every exchange model (xch.MODELS), for the unknown-key check
@@ -559,13 +566,132 @@ def _read_dot(r: _Reader, name: str, knode: Node, vnode: Node) -> dict | None:
                                             "spin–valley dots",
                    "a spin-1/2's rabi_per_volt already holds its drive calibration")
     plunger = r.get(m, "plunger", r.ident, f"{path}.plunger", "channel")
+    spin_ro = _read_spin_readout(r, m["readout"], f"{path}.readout") if "readout" in m else None
     if len(r.problems.problems) > n_before or drive is None or plunger is None:
         return None
     return {"name": name, "values": values, "drive": drive, "plunger": plunger,
             "valley": valley if four else None, "qubit_levels": qlev,
-            "zeeman": zeeman,
+            "zeeman": zeeman, "readout": spin_ro,
             "preset": preset.value if preset else "", "sources": tuple(sources),
             "node": knode, "span": r.span(knode)}
+
+
+def _probability(r: _Reader, node: Node, path: str) -> float:
+    """A probability from 0 to 1 (a plain number)."""
+    x = r.number(node, path)
+    if not 0.0 <= x <= 1.0:
+        r.fail(node, f"{path} must be a probability from 0 to 1, got '{node.value}'",
+               "e.g. 0.98 (98 % of the shots record the right outcome)")
+    return x
+
+
+def _read_spin_readout(r: _Reader, kv: tuple[Node, Node], path: str) -> SpinReadout | None:
+    """A dot's ``readout``: the assignment fidelities, or the physical
+    parameters they follow from (compiler.readout), and the preparation."""
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, path, SPIN_READOUT_KEYS, anchor=knode,
+                      example=f"e.g. '{knode.value}: {{fidelity_up: 0.95, fidelity_down: 0.99}}'")
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    r.get(m, "kind", r.choice, f"{path}.kind", RO.DOT_KINDS)
+    f_up = r.get(m, "fidelity_up", _probability_of(r), f"{path}.fidelity_up")
+    f_down = r.get(m, "fidelity_down", _probability_of(r), f"{path}.fidelity_down")
+    tun = r.get(m, "tunnel_out", r.quantity, f"{path}.tunnel_out", FREQUENCY, positive=True)
+    relax = r.get(m, "relaxation", r.quantity, f"{path}.relaxation", TIME, positive=True)
+    tint = r.get(m, "integration_time", r.quantity, f"{path}.integration_time", TIME,
+                 positive=True)
+    snr = r.get(m, "snr", r.number, f"{path}.snr", positive=True)
+    kw: dict = {"span": r.span(knode)}
+    given = [k for k in ("fidelity_up", "fidelity_down") if k in m]
+    physical = [k for k in ("tunnel_out", "relaxation", "integration_time", "snr") if k in m]
+    if given and physical:
+        r.error(m[physical[0]][0], f"{path} gives both assignment fidelities ({', '.join(given)}) "
+                                   f"and the parameters they follow from ({', '.join(physical)})",
+                "give fidelity_up and fidelity_down, or tunnel_out and integration_time "
+                "(with relaxation and snr if known)")
+    elif physical:
+        for k in ("tunnel_out", "integration_time"):
+            if k not in m:
+                r.error(knode, f"{path} needs '{k}' to derive the fidelities from the tunnel and "
+                               "relaxation rates",
+                        "e.g. readout: {tunnel_out: 20 kHz, integration_time: 300 us} "
+                        "(or give fidelity_up and fidelity_down)")
+    elif len(given) == 1:
+        missing = "fidelity_down" if given[0] == "fidelity_up" else "fidelity_up"
+        r.error(knode, f"{path} gives '{given[0]}' but not '{missing}'",
+                f"give both, e.g. 'fidelity_up: 0.95, fidelity_down: 0.99'")
+    elif not given:
+        r.error(knode, f"{path} needs the assignment fidelities or the tunnel-out rate",
+                "e.g. readout: {fidelity_up: 0.95, fidelity_down: 0.99}, or readout: "
+                "{tunnel_out: 20 kHz, integration_time: 300 us}")
+    if f_up:
+        kw["fidelity_up"] = f_up.value
+    if f_down:
+        kw["fidelity_down"] = f_down.value
+    if tun:
+        kw["tunnel_out"] = tun.value
+    if relax:
+        kw["relaxation"] = relax.value
+    if tint:
+        kw["integration_time"] = tint.value
+    if snr:
+        kw["snr"] = snr.value
+    if "preparation" in m:
+        pn = m["preparation"][1]
+        if isinstance(pn, ScalarNode) and pn.value == "thermal":
+            kw["preparation"] = "thermal"
+        else:
+            try:
+                kw["preparation_error"] = _probability(r, pn, f"{path}.preparation")
+                kw["preparation"] = "given"
+            except _Skip:
+                pass
+    if len(r.problems.problems) > n_before:
+        return None
+    return SpinReadout(**kw)
+
+
+def _probability_of(r: _Reader):
+    return lambda node, path: _probability(r, node, path)
+
+
+def _read_pair_readout(r: _Reader, kv: tuple[Node, Node], path: str) -> PairReadout | None:
+    """A coupling's ``readout``: blockade (singlet or not) or parity."""
+    knode, vnode = kv
+    try:
+        m = r.mapping(vnode, path, PAIR_READOUT_KEYS, anchor=knode,
+                      example=f"e.g. '{knode.value}: {{kind: blockade, fidelity_singlet: 0.98, "
+                              "fidelity_triplet: 0.97}'")
+    except _Skip:
+        return None
+    n_before = len(r.problems.problems)
+    kind = r.get(m, "kind", r.choice, f"{path}.kind", RO.PAIR_KINDS)
+    kind = kind.value if kind else ("blockade" if "kind" not in m else None)
+    if kind is None:
+        return None
+    _, yes, no = RO.PAIR_RECORDS[kind]
+    values = {}
+    for key in PAIR_READOUT_KEYS[1:]:
+        if key not in m:
+            continue
+        if key not in (yes, no):
+            r.error(m[key][0], f"{path}.{key} does not belong to a {kind} readout "
+                               f"(it takes {yes} and {no})",
+                    f"use {yes} and {no}, or set kind to the readout this key belongs to")
+            continue
+        v = r.get(m, key, _probability_of(r), f"{path}.{key}")
+        if v is not None:
+            values[key] = v.value
+    for key in (yes, no):
+        if key not in m:
+            r.error(knode, f"{path} needs '{key}' (a {kind} readout's assignment fidelities)",
+                    f"e.g. '{yes}: 0.98, {no}: 0.97'")
+    if len(r.problems.problems) > n_before:
+        return None
+    return PairReadout(kind=kind, fidelity_yes=values[yes], fidelity_no=values[no],
+                       span=r.span(knode))
 
 
 def _read_drive(r: _Reader, kv: tuple[Node, Node], path: str, g: _Val | None) -> dict | None:
@@ -815,11 +941,13 @@ def _read_coupling(r: _Reader, i: int, node: Node, dots: dict, dot_names: set) -
                 detune.append((nm, off, kn))
         except _Skip:
             pass
+    pair_ro = (_read_pair_readout(r, m["readout"], f"{path}.readout") if "readout" in m
+               else None)
     if len(r.problems.problems) > n_before or None in (pair, barrier, model):
         return None
     return {"pair": pair, "barrier": barrier, "model": model, "idle": idle, "pulse": pulse,
             "noise": noise, "detune": detune, "node": node, "span": r.span(node), "index": i,
-            "bnoise": bnoise}
+            "bnoise": bnoise, "readout": pair_ro}
 
 
 def _read_spectrum(r: _Reader, kv: tuple[Node, Node], path: str, dim: Dim,
@@ -1152,7 +1280,7 @@ def _build(r: _Reader, root: Node) -> Device:
                                    d["drive"]["direction"].value if d["drive"]["direction"]
                                    else None),
                        plunger=pl, preset=d["preset"], sources=d["sources"], span=d["span"],
-                       **extra)
+                       readout=d["readout"], **extra)
 
     couplings: list[Coupling] = []
     for c in raw_couplings:
@@ -1239,7 +1367,8 @@ def _check_coupling(r: _Reader, c: dict, channels: dict) -> Coupling:
     return Coupling(dots=(a, b), barrier=c["barrier"].value, exchange=model,
                     idle_voltage=idle_v, pulse_voltage=pulse_v,
                     charge_noise=c["noise"].value if c["noise"] else 0.0,
-                    detune=tuple((nm, off) for nm, off, _ in c["detune"]), span=c["span"])
+                    detune=tuple((nm, off) for nm, off, _ in c["detune"]), span=c["span"],
+                    readout=c["readout"])
 
 
 # ------------------------------------------------------------------ entry points

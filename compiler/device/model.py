@@ -80,6 +80,38 @@ class Drive:
 
 
 @dataclass(frozen=True)
+class SpinReadout:
+    """A dot's single-spin readout and preparation (docs/device.md,
+    "Readout and preparation"; the physics is :mod:`compiler.readout`).
+
+    Either the assignment fidelities are given, or ``tunnel_out`` (and the
+    integration time, optionally the relaxation time during the readout and
+    the sensor's signal-to-noise ratio) from which they follow."""
+
+    kind: str = "energy_selective"
+    fidelity_up: float = 1.0        # P(record up | spin up)
+    fidelity_down: float = 1.0      # P(record down | spin down)
+    tunnel_out: float | None = None  # 1/s, spin-up tunnel-out rate (then fidelities derived)
+    relaxation: float | None = None  # s, T1 during the readout (None: the dot's t1)
+    integration_time: float = 0.0   # s
+    snr: float = math.inf           # sensor signal over noise in the integration time
+    preparation: str = "thermal"    # "thermal" or "given"
+    preparation_error: float = 0.0  # P(start flipped) when "given"
+    span: Span | None = None
+
+
+@dataclass(frozen=True)
+class PairReadout:
+    """A coupled pair's readout: Pauli spin blockade (records singlet or
+    not) or parity (records even or odd)."""
+
+    kind: str = "blockade"          # "blockade" or "parity"
+    fidelity_yes: float = 1.0       # P(record singlet | singlet) / P(record even | even)
+    fidelity_no: float = 1.0        # P(record triplet | triplet) / P(record odd | odd)
+    span: Span | None = None
+
+
+@dataclass(frozen=True)
 class Dot:
     name: str
     g: float
@@ -94,6 +126,7 @@ class Dot:
     # spectrum of the Larmor frequency's fluctuations (compiler.spectra.Spectrum,
     # Hz²/Hz); when given, t2 and t2_star hold the times it implies
     zeeman_noise: object = None
+    readout: SpinReadout | None = None   # single-spin readout and preparation errors
     # spin–valley dot (docs/device.md): present when the file or the preset
     # gives any of spin_orbit, valley_splitting, valley_g; None = a spin-1/2
     spin_orbit: float | None = None        # Hz, Kane–Mele gap Δ_SO/h
@@ -126,6 +159,7 @@ class Coupling:
     detune: tuple[tuple[str, float], ...] = ()  # intermediate dot -> plunger offset (V)
     span: Span | None = None
     barrier_noise: object = None    # spectrum of the barrier voltage (Spectrum, V²/Hz)
+    readout: PairReadout | None = None   # blockade or parity readout of the pair
 
     @property
     def key(self) -> frozenset[str]:

@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, replace
 
-from .. import physics
+from .. import physics, readout
 from ..units import (ANGLE, FIELD, FREQ_PER_VOLT, FREQUENCY, TEMPERATURE, TIME, VOLTAGE,
                      format_distinct, format_quantity)
 from .exchange import Hubbard
@@ -161,6 +161,7 @@ def _channel_rules(device: Device, name: str, ch, add) -> None:
 
 def _dot_rules(device: Device, q: str, d, add) -> None:
     p = f"dots.{q}"
+    _readout_rules(device, q, d, add)
     if d.g == 0:
         add(Finding(f"{p}.g", "g", f"{p}.g is zero", "a dot needs a non-zero g-factor"))
     for attr in ("t1", "t2", "t2_star"):
@@ -242,6 +243,24 @@ def _valley_rules(device: Device, q: str, lad, add) -> None:
                     "splitting)",
                     "spin relaxation is fast where E_Z = E_v (Yang et al., Nat. Commun. 4, "
                     "2069 (2013)); move the field or the valley splitting away from it",
+                    WARNING))
+
+
+def _readout_rules(device: Device, q: str, d, add) -> None:
+    """A readout whose two fidelities add up to 1 or less records nothing
+    about the state (visibility F_up + F_down − 1 ≤ 0; common practice, no
+    source)."""
+    if d.readout is None or not d.t1 > 0:
+        return
+    p = f"dots.{q}.readout"
+    f_up, f_down = readout.dot_fidelities(device, q)
+    if f_up + f_down <= 1.0:
+        derived = d.readout.tunnel_out is not None
+        add(Finding(p, "readout", f"{p}: fidelity_up + fidelity_down = {f_up + f_down:.4g}"
+                    + (" (derived from the tunnel-out rate)" if derived else "")
+                    + " is not above 1: the readout records nothing about the spin",
+                    "check the values; a useful readout has a visibility F_up + F_down − 1 > 0"
+                    + ("; lengthen integration_time or raise tunnel_out" if derived else ""),
                     WARNING))
 
 

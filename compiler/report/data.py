@@ -11,69 +11,19 @@ the same bytes.
 
 from __future__ import annotations
 
-import dataclasses
 import json
-import math
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any
 
 import numpy as np
 
-from ..simulate.types import BudgetLine, RunResult, SimulationResult, StepFidelity
+from ..jsontext import jsonable
+from ..simulate.types import BudgetLine, Observable, RunResult, SimulationResult, StepFidelity
 from .errors import fail
 
 FORMAT_NAME = "dotseq-report"
 FORMAT_VERSION = 2
 RESULTS_NAME = "results.json"
-
-
-def jsonable(obj: Any) -> Any:
-    """A plain JSON value (dict, list, str, int, float, bool, None) for ``obj``.
-
-    Parameters
-    ----------
-    obj : object
-        Dataclasses become dicts of their fields, mappings dicts with text
-        keys, tuples, lists and numpy arrays lists, sets sorted lists, numpy
-        scalars Python numbers, complex numbers ``{"re": x, "im": y}``,
-        paths text; non-finite floats the strings ``"nan"``, ``"inf"``,
-        ``"-inf"``.  Anything else becomes ``str(obj)``.
-
-    Returns
-    -------
-    object
-        Something :func:`json.dumps` writes with ``allow_nan=False``.
-    """
-    if obj is None or isinstance(obj, (bool, str)):
-        return obj
-    if isinstance(obj, np.generic):
-        return jsonable(obj.item())
-    if isinstance(obj, int):
-        return int(obj)
-    if isinstance(obj, float):
-        return _float(obj)
-    if isinstance(obj, complex):
-        return {"im": _float(obj.imag), "re": _float(obj.real)}
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return {f.name: jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
-    if isinstance(obj, Mapping):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, np.ndarray):
-        return jsonable(obj.tolist())
-    if isinstance(obj, (list, tuple)):
-        return [jsonable(v) for v in obj]
-    if isinstance(obj, (set, frozenset)):
-        return sorted((jsonable(v) for v in obj), key=lambda v: json.dumps(v, sort_keys=True))
-    if isinstance(obj, Path):
-        return str(obj)
-    return str(obj)
-
-
-def _float(x: float) -> float | str:
-    x = float(x)
-    if math.isfinite(x):
-        return x
-    return "nan" if math.isnan(x) else ("inf" if x > 0 else "-inf")
 
 
 def results_document(result: SimulationResult, *, figures: tuple[str, ...] = (),
@@ -168,7 +118,16 @@ def _run(d: dict) -> RunResult:
         compared_nodes=int(d.get("compared_nodes", max(0, int(d.get("nodes", 1)) - 2))),
         budget_numerical_error=_num(d.get("budget_numerical_error", 0.0)),
         leakage=_num(d.get("leakage", 0.0)),
+        observables=tuple(_observable(o) for o in d.get("observables", ())),
+        fidelity_qubits=tuple(str(q) for q in d.get("fidelity_qubits", ())),
     )
+
+
+def _observable(d: dict) -> Observable:
+    return Observable(label=str(d["label"]), kind=str(d["kind"]), qubits=tuple(d["qubits"]),
+                      ideal=_num(d["ideal"]), measured=_num(d["measured"]),
+                      target=_num(d["target"]), shots=int(d.get("shots", 0)),
+                      counts=_opt(d.get("counts")), error=_opt(d.get("error")))
 
 
 def result_from_document(doc: dict) -> SimulationResult:

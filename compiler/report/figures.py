@@ -5,8 +5,12 @@
 * ``steps.png``: the infidelity of each step simulated alone (log scale);
 * ``populations.png``: P(spin up) of each dot against time, from the run's
   traces, under a strip of its steps;
+* ``observables.png`` (first, for a sweep whose reads record something):
+  what each read records against the swept parameter, or maps over two;
 * ``sweep.png``: fidelity against the swept parameter (one sweep axis), or
   heat maps over the first two (two or more axes), the best point marked.
+  Both are the shared figures of the sweep table (:mod:`compiler.sweeptable`),
+  the same code as ``dotseq sweep``'s.
 
 Every figure is a :class:`matplotlib.figure.Figure` with its own Agg canvas
 (no pyplot, no global state), 10 in wide at 110 dpi, built by a pure
@@ -15,7 +19,6 @@ function of the result; :func:`save_png` writes one.
 
 from __future__ import annotations
 
-import math
 from typing import Callable
 
 import numpy as np
@@ -26,13 +29,14 @@ from matplotlib.ticker import MaxNLocator
 from matplotlib.transforms import blended_transform_factory
 
 from .. import figstyle as FS
-from ..figstyle import BEST_COLOUR, FIDELITY_MAP, FONT, HEIGHT, WIDTH, new_figure
+from ..figstyle import BEST_COLOUR, FONT, HEIGHT, WIDTH, new_figure
 from ..figstyle import save_png  # noqa: F401  (write.py saves through this module)
 from ..preview import style as S
 from ..simulate.types import RunResult, SimulationResult
-from ..numfmt import axis_scale, fmt_fidelity, fmt_percent, fmt_sci, fmt_value, time_unit
-from .fmt import (best_index, budget_rows, detail_index, has_budget, sweep_metric, trace_series,
-                  traces_index)
+from ..numfmt import fmt_percent, fmt_sci, fmt_value, time_unit
+from ..sweeptable import figure as SF
+from ..sweeptable.build import from_result
+from .fmt import budget_rows, detail_index, has_budget, trace_series, traces_index
 
 MAX_BARS = 16                # budget bars before the smallest sources are merged
 MAX_STEP_BARS = 40           # steps drawn as labelled horizontal bars; more: vertical
@@ -48,8 +52,9 @@ METRIC_NAMES = {"process": "process fidelity", "average": "average gate fidelity
                 "state": "state fidelity"}
 DOT_COLOURS = S.LARMOR_COLOURS      # one colour per dot, in register order
 
-FILES = ("budget.png", "steps.png", "populations.png", "sweep.png", "spectra.png")
-CAPTIONS = {"budget.png": "Error budget", "steps.png": "Infidelity of each step",
+FILES = ("observables.png", "budget.png", "steps.png", "populations.png", "sweep.png",
+         "spectra.png")
+CAPTIONS = {"observables.png": "What the readouts record over the sweep","budget.png": "Error budget", "steps.png": "Infidelity of each step",
             "populations.png": "Spin-up probability against time",
             "sweep.png": "Fidelity over the sweep",
             "spectra.png": "Noise spectra and the filter functions of the run and its worst steps"}
@@ -324,220 +329,21 @@ def _draw_strip(ax, run: RunResult, lanes: list[str], scale: float, xlim: tuple[
 
 # ---------------------------------------------------------------- sweep
 
-def _grid_positions(result: SimulationResult) -> list[tuple[int, ...]] | None:
-    """Grid index (one per axis) of every run: by its sweep values, else
-    row-major by position (first axis outermost); None when neither fits."""
-    axes = result.axes
-    shape = tuple(len(v) for _, v, _ in axes)
-    out: list[tuple[int, ...]] = []
-    for r in result.runs:
-        sw = dict(r.sweep)
-        idx = []
-        for name, values, _ in axes:
-            if name not in sw:
-                break
-            hits = [k for k, v in enumerate(values)
-                    if math.isclose(float(v), float(sw[name]), rel_tol=1e-9, abs_tol=1e-300)]
-            if len(hits) != 1:
-                break
-            idx.append(hits[0])
-        if len(idx) != len(axes):
-            out = []
-            break
-        out.append(tuple(idx))
-    if out and len(set(out)) == len(out):
-        return out
-    if len(result.runs) == int(np.prod(shape)) if shape else False:
-        return [tuple(int(x) for x in np.unravel_index(k, shape)) for k in range(len(result.runs))]
-    return None
-
-
-def _metrics(result: SimulationResult) -> list[tuple[str, np.ndarray]]:
-    """The curves of the sweep figure: process and average gate fidelity when
-    every run has them, and state fidelity (NaN where missing)."""
-    out = []
-    for key, get in (("process", lambda r: r.process_fidelity),
-                     ("average", lambda r: r.average_fidelity),
-                     ("state", lambda r: r.state_fidelity)):
-        vals = [get(r) for r in result.runs]
-        if key == "state" or any(v is not None for v in vals):
-            out.append((key, np.array([np.nan if v is None else float(v) for v in vals])))
-    return out
-
-
 def sweep_figure(result: SimulationResult) -> Figure | None:
-    """Fidelity over the sweep.  One axis: process, average gate and state
-    fidelity against the parameter (top) and their infidelities on a log
-    scale (bottom).  Two or more axes: heat maps of the ranking fidelity and
-    the state fidelity over the first two parameters (for more axes, the
-    slice through the best run).  The best run (highest process fidelity,
-    else average, else state) is starred.  None without sweep axes.
-    """
-    if not result.axes or not result.runs:
-        return None
-    pos = _grid_positions(result)
-    if len(result.axes) >= 2 and pos is not None:
-        return _sweep_map(result, pos)
-    return _sweep_lines(result, pos)
+    """Fidelity over the sweep: the shared figure of the sweep table
+    (:func:`compiler.sweeptable.figure.figure`, the same as ``dotseq
+    sweep``'s).  None without sweep axes."""
+    table = from_result(result)
+    return None if table is None else SF.figure(table)
 
 
-def _sweep_lines(result: SimulationResult, pos: list[tuple[int, ...]] | None) -> Figure:
-    name, values, unit = result.axes[0]
-    if pos is not None:
-        x = np.array([float(values[p[0]]) for p in pos])
-    else:
-        x = np.array([float(dict(r.sweep).get(name, np.nan)) for r in result.runs])
-        if np.all(np.isnan(x)):
-            x = np.arange(len(result.runs), dtype=float)
-            unit, name = "", "run position"
-    order = np.argsort(x, kind="stable")
-    scale, xunit = axis_scale(x, unit)
-    xs = x / scale
-    log_x = FS.log_spaced(x)
-    metric, _ = sweep_metric(result)
-    best = best_index(result)
-    curves = _metrics(result)
-    fig = new_figure()
-    left, right = 1.15, 2.0
-    top_h, bot_h = 2.35, 1.55
-    ax_b = FS.axes(fig, left, 0.8, WIDTH - left - right, bot_h)
-    ax_t = FS.axes(fig, left, 0.8 + bot_h + 0.22, WIDTH - left - right, top_h)
-    ax_t.sharex(ax_b)
-    few = len(x) <= 60
-    for key, v in curves:
-        c = METRIC_COLOURS[key]
-        kw = dict(color=c, lw=1.6, marker="o" if few else None, ms=4, label=METRIC_NAMES[key])
-        ax_t.plot(xs[order], v[order], **kw)
-        infid = 1.0 - v
-        ax_b.plot(xs[order], np.where(infid > 0, infid, np.nan)[order], **kw)
-    inf_all = np.concatenate([1.0 - v for _, v in curves])
-    inf_pos = inf_all[np.isfinite(inf_all) & (inf_all > 0)]
-    if inf_pos.size:
-        ax_b.set_yscale("log")
-        lo, hi = FS.log_limits(inf_pos)
-        ax_b.set_ylim(lo, hi)
-        FS.log_ticks(ax_b, "y")
-    if log_x:
-        for a in (ax_t, ax_b):
-            a.set_xscale("log")
-    ax_t.tick_params(axis="x", labelbottom=False)
-    ax_t.set_ylabel("fidelity", fontsize=FONT)
-    ax_b.set_ylabel("1 − F  (log)", fontsize=FONT)
-    ax_b.set_xlabel(f"{name} ({xunit})" if xunit else name, fontsize=FONT)
-    ax_t.yaxis.set_major_locator(MaxNLocator(nbins=6))
-    note = ""
-    if best is not None:
-        v_best = dict(curves)[metric][best]
-        for a, yv in ((ax_t, v_best), (ax_b, 1.0 - v_best)):
-            a.axvline(xs[best], color=BEST_COLOUR, lw=0.9, ls=(0, (2, 2)))
-            if a is ax_t or (np.isfinite(yv) and yv > 0):
-                a.plot([xs[best]], [yv], marker="*", ms=15, color=BEST_COLOUR, mec="white",
-                       mew=0.8, zorder=6, ls="")
-        note = (f"best: {_run_name(result, result.runs[best])}, {METRIC_NAMES[metric]} "
-                f"{fmt_fidelity(v_best)}")
-    handles = [Line2D([], [], color=METRIC_COLOURS[k], lw=1.6, marker="o" if few else None,
-                      ms=4, label=METRIC_NAMES[k]) for k, _ in curves]
-    handles.append(Line2D([], [], ls="", marker="*", ms=12, color=BEST_COLOUR, label="best run"))
-    ax_t.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False,
-                fontsize=FONT - 1)
-    extra = ""
-    if len(result.axes) > 1:
-        extra = "  (plotted against the first parameter only)"
-    FS.titles(fig, f"Fidelity against {name}{extra}", note)
-    return fig
-
-
-def _sweep_map(result: SimulationResult, pos: list[tuple[int, ...]]) -> Figure:
-    (n0, v0, u0), (n1, v1, u1) = result.axes[0], result.axes[1]
-    v0 = np.asarray(v0, dtype=float)
-    v1 = np.asarray(v1, dtype=float)
-    best = best_index(result)
-    metric, _ = sweep_metric(result)
-    fixed = ""
-    keep = list(range(len(result.runs)))
-    if len(result.axes) > 2:
-        ref = pos[best if best is not None else 0]
-        keep = [k for k in keep if pos[k][2:] == ref[2:]]
-        units = {n: u for n, _, u in result.axes}
-        fixed = ", ".join(f"{n} = {fmt_value(vals[ref[j + 2]], units[n])}"
-                          for j, (n, vals, _) in enumerate(result.axes[2:]))
-    curves = dict(_metrics(result))
-    panels = [metric] + (["state"] if metric != "state" else [])
-    s0, xu = axis_scale(v0, u0)
-    s1, yu = axis_scale(v1, u1)
-    o0, o1 = np.argsort(v0, kind="stable"), np.argsort(v1, kind="stable")
-    rank0, rank1 = np.argsort(o0), np.argsort(o1)
-    log0, log1 = FS.log_spaced(v0), FS.log_spaced(v1)
-    e0, e1 = FS.edges(v0[o0], log0), FS.edges(v1[o1], log1)
-    fig = new_figure()
-    gap, left, right_cb = 0.35, 1.1, 1.15   # right_cb: colour bar, its ticks and label
-    w_panel = (WIDTH - left - 0.3 - len(panels) * right_cb - (len(panels) - 1) * gap) / len(panels)
-    annotate = len(v0) * len(v1) <= 64
-    missing = False
-    for p, key in enumerate(panels):
-        grid = np.full((len(v1), len(v0)), np.nan)
-        for k in keep:
-            a, b = pos[k][0], pos[k][1]
-            grid[rank1[b], rank0[a]] = curves[key][k]
-        x0 = left + p * (w_panel + right_cb + gap)
-        ax = FS.axes(fig, x0, 0.95, w_panel, HEIGHT - 0.95 - 1.25)
-        ax.grid(False)
-        finite = grid[np.isfinite(grid)]
-        vmin, vmax = (float(finite.min()), float(finite.max())) if finite.size else (0.0, 1.0)
-        if vmax == vmin:
-            vmin, vmax = vmin - 5e-5, vmax + 5e-5
-        missing = missing or bool(np.isnan(grid).any())
-        mesh = ax.pcolormesh(e0 / s0, e1 / s1, np.ma.masked_invalid(grid), cmap=FIDELITY_MAP,
-                             vmin=vmin, vmax=vmax, edgecolors="white", linewidth=0.6)
-        if log0:
-            ax.set_xscale("log")
-        if log1:
-            ax.set_yscale("log")
-        ax.set_xlabel(f"{n0} ({xu})" if xu else n0, fontsize=FONT)
-        if p == 0:
-            ax.set_ylabel(f"{n1} ({yu})" if yu else n1, fontsize=FONT)
-        else:  # same y axis as the first panel
-            ax.tick_params(axis="y", labelleft=False)
-        cax = FS.axes(fig, x0 + w_panel + 0.15, 0.95, 0.16, HEIGHT - 0.95 - 1.25)
-        cb = fig.colorbar(mesh, cax=cax)
-        cb.set_label(METRIC_NAMES[key], fontsize=FONT - 1, color=S.TEXT)
-        cb.ax.tick_params(labelsize=FONT - 2)
-        cb.formatter.set_useOffset(False)
-        cb.update_ticks()
-        cb.outline.set_visible(False)
-        if annotate:
-            xc = np.sqrt(e0[1:] * e0[:-1]) if log0 else (e0[1:] + e0[:-1]) / 2
-            yc = np.sqrt(e1[1:] * e1[:-1]) if log1 else (e1[1:] + e1[:-1]) / 2
-            fs = FONT - 1 if len(v0) <= 6 else FONT - 2.5
-            for r in range(len(v1)):
-                for c in range(len(v0)):
-                    v = grid[r, c]
-                    if not np.isfinite(v):
-                        continue
-                    dark = (v - vmin) / (vmax - vmin) > 0.55
-                    ax.text(xc[c] / s0, yc[r] / s1, f"{v:.5f}", ha="center", va="center",
-                            fontsize=fs, color="white" if dark else S.TEXT)
-        if best is not None and best in keep:
-            a, b = pos[best][0], pos[best][1]
-            c, r = rank0[a], rank1[b]
-            ax.add_patch(Rectangle((e0[c] / s0, e1[r] / s1), (e0[c + 1] - e0[c]) / s0,
-                                   (e1[r + 1] - e1[r]) / s1, fill=False, edgecolor=BEST_COLOUR,
-                                   lw=2.2, zorder=5))
-            if p == 0 and not annotate:
-                ax.plot([v0[a] / s0], [v1[b] / s1], marker="*", ms=15, color=BEST_COLOUR,
-                        mec="white", mew=0.8, zorder=6)
-        ax.set_title(METRIC_NAMES[key], fontsize=FONT, color=S.TEXT, loc="left")
-    note = ""
-    if best is not None:
-        note = (f"best (outlined): {_run_name(result, result.runs[best])}, "
-                f"{METRIC_NAMES[metric]} {fmt_fidelity(curves[metric][best])}")
-    if missing:
-        note += ("; " if note else "") + "white cells: no result"
-    title = f"Fidelity over {n0} and {n1}"
-    if fixed:
-        title += f"  (slice at {fixed})"
-    FS.titles(fig, title, note)
-    return fig
+def observables_figure(result: SimulationResult) -> Figure | None:
+    """What the reads record against the swept parameters (a Ramsey fringe;
+    a map over two): the shared figure of the sweep table
+    (:func:`compiler.sweeptable.figure.observables_figure`).  None without
+    sweep axes or observables."""
+    table = from_result(result)
+    return None if table is None else SF.observables_figure(table)
 
 
 # ---------------------------------------------------------------- spectra
@@ -554,7 +360,7 @@ def spectra_figure(result: SimulationResult) -> Figure | None:
         return None
     n = len(result.noise_spectra)
     fig = new_figure(WIDTH, max(HEIGHT, 1.6 + 3.2 * n))
-    _titles(fig, "Noise spectra and filter functions",
+    FS.titles(fig, "Noise spectra and filter functions",
             "S(f) of the Larmor frequency; |Y(f)|² of the run and of its worst steps")
     top, bottom = 0.86, 0.10
     hgt = (top - bottom) / n
@@ -569,12 +375,12 @@ def spectra_figure(result: SimulationResult) -> Figure | None:
                   lw=2.0, label=f"S(f), dot {dot}")
         ax.set_ylabel("S(f)  (Hz²/Hz)")
         ax.set_xlabel("frequency (Hz)")
-        _style(ax)
+        FS.style(ax)
         ax2 = ax.twinx()
         for j, (label, t, pulses) in enumerate(filters):
             y = SP.filter_function(f, t, pulses)
             ax2.loglog(f, np.maximum(y, 1e-30), lw=1.0, alpha=0.85,
-                       color=S.GATE_COLOURS[j % len(S.GATE_COLOURS)], label=_short(label))
+                       color=S.GATE_COLOURS[j % len(S.GATE_COLOURS)], label=FS.short(label))
         ax2.set_ylabel("|Y(f)|²  (s²)")
         ymax = max(t for _, t, _ in filters) ** 2 if filters else 1.0
         ax2.set_ylim(ymax * 1e-8, ymax * 3)
@@ -588,6 +394,7 @@ def spectra_figure(result: SimulationResult) -> Figure | None:
 # ---------------------------------------------------------------- plan
 
 BUILDERS: dict[str, Callable[[SimulationResult], Figure | None]] = {
+    "observables.png": observables_figure,
     "budget.png": budget_figure,
     "steps.png": steps_figure,
     "populations.png": populations_figure,
@@ -601,6 +408,8 @@ def planned(result: SimulationResult) -> tuple[str, ...]:
     order (only those with something to draw)."""
     d = detail_index(result)
     out = []
+    if result.axes and any(getattr(r, "observables", ()) for r in result.runs):
+        out.append("observables.png")       # first: what a lab records, then the fidelities
     if d is not None and has_budget(result.runs[d]):
         out.append("budget.png")
     if d is not None and result.runs[d].steps:

@@ -162,13 +162,67 @@ def _whole_run(result: SimulationResult, i: int, look: _Look) -> Section:
     for dot, p in _populations(run):
         rows.append((f"P(up) of dot {dot} at readout", fmt_population(p), ""))
     lines = [f"simulated span {fmt_value(run.duration, 's', 4, look.micro)} (to the start of "
-             "the final readout)"]
+             "the final readout)", scope_line(result, i)]
     lines.append(averaging_line(result, run))
     notes = []
     if run.process_fidelity is None:
         notes.append("process fidelity not computed (more than five qubits)")
     return Section(f"whole run: {_run_title(result, i, look)}", lines=tuple(lines),
                    table=Table(("quantity", "value", look.minus_f), tuple(rows), "lrr"),
+                   notes=tuple(notes))
+
+
+def scope_line(result: SimulationResult, i: int) -> str:
+    """Which qubits the whole-run fidelities of run ``i`` are of."""
+    run = result.runs[i]
+    q = tuple(run.fidelity_qubits)
+    if not q or set(q) >= set(run.dots):
+        return "fidelities of the whole register (" + ", ".join(run.dots) + ")"
+    idle = [d for d in run.dots if d not in q]
+    return (f"fidelities of the qubit{'s' * (len(q) != 1)} the program acts on ({', '.join(q)}); "
+            f"idle spectator{'s' * (len(idle) != 1)} {', '.join(idle)} traced out "
+            "(--whole-register counts them)")
+
+
+def _observables(result: SimulationResult, look: _Look, max_rows: int | None) -> Section | None:
+    """What each trailing read records, per run: ideal (a perfect readout of
+    the simulated state), measured (with the readout and preparation errors),
+    and with shots the binomial error and the expected counts."""
+    runs = [r for r in result.runs if r.observables]
+    if not runs:
+        return None
+    sweep = len(result.runs) > 1
+    shots = any(o.shots for r in runs for o in r.observables)
+    names = []
+    for r in runs:
+        for n, _ in r.sweep:
+            if n not in names:
+                names.append(n)
+    headers = (("run",) + tuple(names) if sweep else ()) + (
+        "observable", "ideal", "measured") + (("± 1σ", "counts") if shots else ()) + ("target",)
+    rows = []
+    for r in runs:
+        sw = dict(r.sweep)
+        for o in r.observables:
+            lead = ((str(r.run_index),) + tuple(
+                fmt_value(sw[n], _unit_of(result, n), 4, look.micro) if n in sw else ""
+                for n in names)) if sweep else ()
+            extra = ((fmt_population(o.error) if o.error is not None else "",
+                      f"{o.counts:.1f} of {o.shots}" if o.counts is not None else "")
+                     if shots else ())
+            rows.append(lead + (_esc(o.label) if look.md else o.label, fmt_population(o.ideal),
+                                fmt_population(o.measured)) + extra
+                        + (fmt_population(o.target),))
+    notes = []
+    if max_rows is not None and len(rows) > max_rows:
+        notes.append(f"{len(rows) - max_rows} more lines in results.json (observables)")
+        rows = rows[:max_rows]
+    lines = ("what each read at the end of a run records: ideal = a perfect readout of the "
+             "simulated state; measured = with the device's preparation and readout errors; "
+             "target = the ideal circuit" + ("; ± 1σ: binomial, counts: expected" if shots else ""),)
+    lead_j = ("r" + "r" * len(names)) if sweep else ""
+    return Section("observables", lines=lines,
+                   table=Table(headers, tuple(rows), lead_j + "lrr" + ("rr" if shots else "") + "r"),
                    notes=tuple(notes))
 
 
@@ -240,7 +294,8 @@ def _sweep(result: SimulationResult, look: _Look, max_rows: int | None) -> Secti
                     + (("best" if not look.md else "**best**") if i == best else "",))
     if len(dots) > len(shown_dots):
         notes.append(f"P(up) of {len(dots) - len(shown_dots)} more dots in results.json")
-    lines = (f"one line per run; best = highest {metric} fidelity",)
+    lines = (f"one line per run; best = highest {metric} fidelity",
+             scope_line(result, best if best is not None else 0))
     return Section("runs", lines=lines,
                    table=Table(headers, tuple(rows), "r" + "r" * len(names) + "rrrr"
                                + "r" * len(shown_dots) + "l"),
@@ -384,6 +439,7 @@ def sections(result: SimulationResult, *, top: int | None = 5, markdown: bool = 
         out.append(_whole_run(result, d, look))
     else:
         out.append(_sweep(result, look, max_rows))
+    out.append(_observables(result, look, max_rows))
     if d is not None:
         out.append(_steps(result, d, look, max_rows))
         out.append(_budget(result, d, look, top))

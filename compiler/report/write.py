@@ -24,6 +24,8 @@ from pathlib import Path
 
 from ..export import atomic
 from ..simulate.types import SimulationResult
+from ..sweeptable.build import from_result
+from ..sweeptable.write import csv_text, json_text
 from . import figures as _figures
 from .data import RESULTS_NAME, FORMAT_NAME, is_report, results_json
 from .errors import ReportError, fail
@@ -31,7 +33,8 @@ from .fmt import best_index, detail_index
 from .text import render_markdown
 
 REPORT_NAME = "report.md"
-KNOWN_FILES = frozenset((REPORT_NAME, RESULTS_NAME) + _figures.FILES)
+SWEEP_CSV, SWEEP_JSON = "sweep.csv", "sweep.json"     # the shared sweep table, for sweeps
+KNOWN_FILES = frozenset((REPORT_NAME, RESULTS_NAME, SWEEP_CSV, SWEEP_JSON) + _figures.FILES)
 
 ABSENT, EMPTY, REPORT = "absent", "empty", "report"
 _PUBLISH_STATE = {ABSENT: atomic.ABSENT, EMPTY: atomic.EMPTY, REPORT: atomic.BUNDLE}
@@ -99,6 +102,12 @@ def _fill(tmp: Path, result: SimulationResult) -> tuple[str, ...]:
         _figures.save_png(fig, tmp / name)
         written.append(name)
         del fig
+    table = from_result(result)
+    if table is not None:       # the sweep table, written as dotseq sweep writes its own
+        _write_text(tmp / SWEEP_JSON, json_text(
+            table, figure="sweep.png" if "sweep.png" in written else None,
+            observables_figure="observables.png" if "observables.png" in written else None))
+        _write_text(tmp / SWEEP_CSV, csv_text(table))
     _write_text(tmp / RESULTS_NAME,
                 results_json(result, figures=tuple(written), detail_run=detail_index(result),
                              best_run=best_index(result) if result.axes else None))
@@ -126,9 +135,11 @@ def write_report(result: SimulationResult, out_dir: str | Path, *,
     -------
     Path
         The absolute report folder, holding ``report.md``, ``results.json``
-        and the figures (``budget.png``, ``steps.png``, ``populations.png``,
-        ``sweep.png``, each when there is something to draw; see
-        ``docs/report.md``).
+        and the figures (``observables.png``, ``budget.png``, ``steps.png``,
+        ``populations.png``, ``sweep.png``, ``spectra.png``, each when there
+        is something to draw), and for a sequence with its own sweep the
+        shared sweep table ``sweep.csv`` and ``sweep.json``; see
+        ``docs/report.md``.
 
     Raises
     ------

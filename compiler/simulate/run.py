@@ -30,10 +30,12 @@ from . import fidelity as F
 from .build import build_model
 from .engines import ENGINES, make_engine
 from .model import dot_operator, embed, noise_points
+from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
+MAX_SHOTS = 10 ** 12
 MAX_NODES = 41                    # Gauss–Hermite nodes per variable at most (refinement stops there)
 
 
@@ -51,6 +53,9 @@ class SimOptions:
     trace_points: int = 300
     max_step_entries: int = 200   # per-step fidelities for at most this many program steps
     threads: int = 0              # threads for independent evaluations; 0: automatic
+    fidelity_scope: str = "program"   # whole-run fidelities of the qubits the program acts on,
+                                      # or "register" (docs/simulate.md, "Fidelity scope")
+    shots: int = 0                # repetitions of the experiment (observables' counts, errors)
 
     def worker_threads(self) -> int:
         """``threads``, or automatically one per core (at most 4), and one
@@ -78,6 +83,12 @@ class SimOptions:
                              "1e-12 to 0.1", hint="a fidelity difference, e.g. 1e-4 (default)")
         if self.threads < 0 or self.threads > 256:
             raise UsageError(f"threads {self.threads} must be from 0 (automatic) to 256")
+        if self.fidelity_scope not in SCOPES:
+            raise UsageError(f"unknown fidelity scope '{self.fidelity_scope}'",
+                             hint=f"use {' or '.join(SCOPES)}")
+        if not 0 <= self.shots <= MAX_SHOTS:
+            raise UsageError(f"--shots {self.shots} must be from 1 to {MAX_SHOTS:.0e} "
+                             "(0: no shot statistics)", hint="e.g. --shots 1000")
         if self.quadrature not in ("tensor", "additive", "auto"):
             raise UsageError(f"unknown quadrature '{self.quadrature}'",
                              hint="use tensor, additive or auto")
@@ -189,12 +200,14 @@ class Whole:
     pops: dict
     traces: dict
     duration: float
-    dim: int = 0                 # dimension of the qubit register (2^n)
+    dim: int = 0                 # dimension of the qubits the fidelities are of (2^n)
     nodes: int = 1               # quadrature nodes per noise variable of the figures
     averaging_error: float | None = 0.0   # |F(nodes) − F(compared)|; None: not averaged
     quadrature: str = ""         # the rule: tensor or additive
     compared: int = 0            # nodes of the coarser rule compared with
     leakage: float = 0.0         # population outside the qubit levels at the end
+    observables: tuple = ()      # what each trailing read records (observe.observables)
+    qubits: tuple = ()           # the qubits the fidelities are of (the scope)
 
     @property
     def infidelity(self) -> float:
@@ -240,16 +253,17 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
     noisy = any(v.rms > 0 for v in model.noise)
     if nodes is not None or not noisy or opts.nodes <= 1:
         n = opts.nodes if nodes is None else nodes
-        w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts)
+        w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts, opts)
         # nothing to average: exact; averaging switched off (one node) or a
         # fixed rule asked for by the caller: not estimated here
         err = 0.0 if not noisy else None
         return dataclasses.replace(w, nodes=n, averaging_error=err, quadrature=rule(n))
     coarse_n = max(1, opts.nodes - 2)
-    coarse = _evaluate(crun, model, coarse_n, rule(coarse_n), engine, 0, correction, None)
+    coarse = _evaluate(crun, model, coarse_n, rule(coarse_n), engine, 0, correction, None, opts)
     fine_n = opts.nodes
     while True:
-        fine = _evaluate(crun, model, fine_n, rule(fine_n), engine, traces, correction, parts)
+        fine = _evaluate(crun, model, fine_n, rule(fine_n), engine, traces, correction, parts,
+                         opts)
         diff = max(abs(fine.f_state - coarse.f_state),
                    abs((fine.f_avg or 0.0) - (coarse.f_avg or 0.0)))
         if diff <= opts.averaging_tolerance or fine_n >= MAX_NODES:
@@ -261,8 +275,12 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
 
 
 def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: int,
-              correction=None, parts: dict | None = None) -> Whole:
-    """One quadrature rule over the model of one run."""
+              correction=None, parts: dict | None = None, opts: SimOptions | None = None
+              ) -> Whole:
+    """One quadrature rule over the model of one run; ``opts`` gives the
+    fidelity scope and the shots (default: the qubits the program acts on,
+    no shots)."""
+    opts = opts or SimOptions()
     tl, device = crun.timeline, crun.device
     dots = tuple(device.dots)
     n = len(dots)
@@ -284,17 +302,20 @@ def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: i
         S = F.restrict_channel(S, V) if S is not None else None
         rho = V.conj().T @ rho @ V
         leakage = float(1.0 - np.real(np.trace(rho)))
-    qdim = 2 ** n
     U = F.ideal_unitary(program_steps(tl), dots)
     frames = [tl.frames[q] for q in dots]
-    f_pro = f_avg = None
-    if process:
-        Sq = F.to_qubit_frames(S, [0.0] * n, frames)
-        f_pro = F.process_fidelity(Sq, U)
-        f_avg = F.average_fidelity(f_pro, qdim)
+
+    def rerun(rho0_other):
+        """The final state from another initial state (preparation errors
+        above five qubits, where the channel is not kept), on the qubit levels."""
+        r0 = rho0_other if V is None else V @ rho0_other @ V.conj().T
+        r = _average(engine, model, pts, process=False, rho0=r0)[1]
+        return r if V is None else V.conj().T @ r @ V
+
+    view = assess(tl.run, device, dots, S if process else None, rho, psi0, U, frames,
+                  scope=opts.fidelity_scope, shots=opts.shots, rerun=rerun)
+    f_pro, f_avg, f_state = view["f_pro"], view["f_avg"], view["f_state"]
     rq = F.rho_to_qubit_frames(rho, frames)
-    psi = U @ psi0
-    f_state = float(np.real(psi.conj() @ rq @ psi))
     pops = {}
     for k, q in enumerate(dots):
         if V is None:
@@ -307,8 +328,10 @@ def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: i
         named["t"] = tr["t"]
         for k, q in enumerate(dots):
             named[q] = tr[k]
-    return Whole(f_pro, f_avg, f_state, pops, named, end_sample(tl) * tl.dt, qdim, nodes,
-                 leakage=leakage)
+    # the dimension the fidelities are of (the scope's qubits)
+    return Whole(f_pro, f_avg, f_state, pops, named, end_sample(tl) * tl.dt,
+                 2 ** len(view["qubits"]), nodes, observables=view["observables"],
+                 qubits=view["qubits"], leakage=leakage)
 
 
 def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
@@ -514,7 +537,7 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                               whole.infidelity if budget else 0.0, floor, remainder,
                               whole.traces, {"wall_s": time.perf_counter() - t0},
                               whole.averaging_error, whole.nodes, numerical,
-                              whole.compared, whole.leakage))
+                              whole.compared, whole.leakage, whole.observables, whole.qubits))
     axes = tuple((a.name, a.values, a.dim.symbol()) for a in checked.expanded.axes)
     coherence = _coherence(checked)
     warnings = tuple(sorted(merged([tl.warnings for tl in checked.timelines])))
@@ -523,13 +546,25 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                 "quadrature": opts.quadrature, "rwa": opts.rwa, "detail_run": detail,
                 "averaging_tolerance": opts.averaging_tolerance,
                 "fidelity_metric": "budget and totals: 1 - average gate fidelity of the whole "
-                                   "run (1 - state fidelity above 5 dots)"}
+                                   "run (1 - state fidelity above 5 dots)",
+                "fidelity_scope": _scope_text(opts, runs[detail] if runs else None),
+                "shots": opts.shots}
     spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
                             tuple(runs), axes, coherence, settings, warnings, stats, spectra)
 
 
 WORST_STEPS = 3
+
+
+def _scope_text(opts: SimOptions, run: RunResult | None) -> str:
+    """What the whole-run fidelities are of, for the settings and the tables."""
+    if run is None:
+        return ""
+    q = ", ".join(run.fidelity_qubits)
+    if opts.fidelity_scope == "register" or set(run.fidelity_qubits) >= set(run.dots):
+        return f"the whole register ({q})"
+    return f"the qubits the program acts on ({q})"
 
 
 def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tuple:

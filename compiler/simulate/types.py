@@ -35,6 +35,22 @@ class StepFidelity:
 
 
 @dataclass(frozen=True)
+class Observable:
+    """What one readout of a ``read`` at the end of a run records
+    (docs/report.md, "Observables"): the probability of its outcome "yes"
+    (spin up, singlet, even parity)."""
+    label: str                 # "P(up) A", "P(singlet) A-B", "P(even) A-B"
+    kind: str                  # "spin", "singlet" or "parity"
+    qubits: tuple[str, ...]
+    ideal: float               # a perfect readout of the simulated state
+    measured: float            # with the device's preparation and readout errors
+    target: float              # a perfect readout of the ideal circuit's state
+    shots: int = 0             # repetitions given (0: none)
+    counts: float | None = None    # expected number of "yes" outcomes, shots·measured
+    error: float | None = None     # binomial 1σ of the recorded probability, √(p(1−p)/N)
+
+
+@dataclass(frozen=True)
 class BudgetLine:
     source: str                # "T1", "T2", "T2*", "charge noise", ...
     infidelity: float          # contribution: total infidelity minus infidelity with it off
@@ -69,6 +85,10 @@ class RunResult:
     compared_nodes: int = 0                  # nodes of the coarser rule it was compared with
     leakage: float = 0.0                     # population outside the qubit levels at the end
                                              # (from the declared initial state; spin–valley dots)
+    observables: tuple[Observable, ...] = ()     # what each trailing read records
+    # the qubits the whole-run fidelities are of (register order): those the
+    # program acts on by default, every dot with the whole-register option
+    fidelity_qubits: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)

@@ -72,7 +72,9 @@ def _sha256(paths) -> str:
 def sim_settings(opts: SimOptions) -> dict:
     return {"engine": opts.engine, "nodes": opts.nodes, "quadrature": opts.quadrature,
             "substeps": opts.substeps, "rwa": opts.rwa,
-            "averaging_tolerance": opts.averaging_tolerance}
+            "averaging_tolerance": opts.averaging_tolerance,
+            # the points' fidelities and observables depend on these too (--resume compares)
+            "fidelity_scope": opts.fidelity_scope, "shots": opts.shots}
 
 
 def _spec_record(s: VarySpec) -> dict:
@@ -122,7 +124,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
                          nodes=options.nodes, quadrature=options.quadrature,
                          averaging_tolerance=options.averaging_tolerance, budget=False,
-                         steps=False)
+                         steps=False, fidelity_scope=options.fidelity_scope,
+                         shots=options.shots)
     raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
     tree = parse_path(path, confine=confine)
     expanded = expand(tree)

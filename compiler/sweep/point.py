@@ -95,7 +95,7 @@ def simulate_point(task: PointTask) -> PointResult:
         None if whole.f_avg is None else float(whole.f_avg), float(whole.f_state),
         tuple((q, float(p)) for q, p in whole.pops.items()), float(whole.duration),
         coherence(tl, task.device), budget, floor, remainder, time.perf_counter() - t0,
-        whole.averaging_error)
+        averaging_error=whole.averaging_error, observables=tuple(whole.observables))
 
 
 def evaluate_point(task: PointTask) -> PointResult:

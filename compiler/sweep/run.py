@@ -8,7 +8,7 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from . import figure as FIG
+from ..sweeptable import figure as FIG
 from . import store
 from .execute import DEFAULT_CLUSTER_TIMEOUT, WorkersLost, connect, run_dask, run_pool, run_serial
 from .point import evaluate_point
@@ -158,23 +158,30 @@ def run_sweep(plan: SweepPlan, out, *, workers: int = 1, cluster: str | None = N
 
 
 def write_tables(folder: "store.Folder", table: SweepTable) -> dict[str, Path]:
-    """``sweep.png`` (when a point was computed), ``sweep.json``, ``sweep.csv``,
-    each written whole and renamed into place."""
+    """``sweep.png`` (when a point was computed), ``observables.png`` (when
+    the points record observables), ``sweep.json``, ``sweep.csv``, each
+    written whole and renamed into place (the shared writer and figures of
+    :mod:`compiler.sweeptable`)."""
     files: dict[str, Path] = {}
     drawing_error = None
-    try:
-        png = FIG.png_bytes(table)
-    except Exception as e:  # noqa: BLE001 - the tables are written first, then it is raised
-        png, drawing_error = None, e
-    if png is not None:
-        files["png"] = folder.write(store.PNG_NAME, png)
-    else:
+    drawn = {}
+    for key, name, build in (("png", store.PNG_NAME, FIG.figure),
+                             ("observables", store.OBSERVABLES_NAME, FIG.observables_figure)):
         try:
-            (folder.path / store.PNG_NAME).unlink()
-        except OSError:
-            pass
+            png = FIG.png_bytes(table, build)
+        except Exception as e:  # noqa: BLE001 - the tables are written first, then it is raised
+            png, drawing_error = None, drawing_error or e
+        if png is not None:
+            files[key] = folder.write(name, png)
+            drawn[key] = name
+        else:
+            try:
+                (folder.path / name).unlink()
+            except OSError:
+                pass
     files["json"] = folder.write(store.JSON_NAME, json_text(
-        table, figure=store.PNG_NAME if png is not None else None).encode("utf-8"))
+        table, figure=drawn.get("png"), observables_figure=drawn.get("observables")
+    ).encode("utf-8"))
     files["csv"] = folder.write(store.CSV_NAME, csv_text(table).encode("utf-8"))
     if drawing_error is not None:
         raise drawing_error

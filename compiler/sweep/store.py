@@ -23,20 +23,22 @@ from pathlib import Path
 from ..export import atomic
 from ..export.atomic import pid_alive
 from ..errors import Problem, Span
+from ..simulate.types import Observable
 from ..source import Unreadable, check_regular
 from .errors import SweepError, fail
 from .types import INVALID, OK, PointResult, SweepPlan
 
 STATE_NAME = "points.jsonl"
 CSV_NAME, JSON_NAME, PNG_NAME = "sweep.csv", "sweep.json", "sweep.png"
-KNOWN = frozenset((STATE_NAME, CSV_NAME, JSON_NAME, PNG_NAME))
+OBSERVABLES_NAME = "observables.png"
+KNOWN = frozenset((STATE_NAME, CSV_NAME, JSON_NAME, PNG_NAME, OBSERVABLES_NAME))
 STATE_FORMAT = "dotseq-sweep-state"
 STATE_VERSION = 2
 
 
 def dumps(obj) -> str:
     """Compact deterministic JSON (floats with repr, so they read back exactly)."""
-    from ..report.data import jsonable
+    from ..jsontext import jsonable
     return json.dumps(jsonable(obj), sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
@@ -75,7 +77,16 @@ def point_from_dict(d: dict) -> PointResult:
                         for c in d.get("coherence", [])),
         budget=tuple((str(s), float(v)) for s, v in d.get("budget", [])),
         budget_floor=opt(d.get("budget_floor")), budget_remainder=opt(d.get("budget_remainder")),
-        wall_s=float(d.get("wall_s", 0.0)), averaging_error=opt(d.get("averaging_error")))
+        wall_s=float(d.get("wall_s", 0.0)), averaging_error=opt(d.get("averaging_error")),
+        observables=tuple(_observable(o) for o in d.get("observables", [])))
+
+
+def _observable(d: dict) -> Observable:
+    def opt(x):
+        return None if x is None else float(x)
+    return Observable(str(d["label"]), str(d["kind"]), tuple(str(q) for q in d["qubits"]),
+                      float(d["ideal"]), float(d["measured"]), float(d["target"]),
+                      int(d.get("shots", 0)), opt(d.get("counts")), opt(d.get("error")))
 
 
 @dataclass

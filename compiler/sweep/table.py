@@ -1,202 +1,24 @@
-"""The results table of a sweep: ``sweep.csv`` and ``sweep.json``.
-
-Both list every grid point in row-major order (the first axis outermost)
-with its parameter values in SI units (the unit in the column name or next
-to the value), its status (``ok``, ``invalid`` with the reason, or
-``missing`` in a partial table), the whole-run fidelities, the P(spin up)
-of each dot at the end, the coherence margin T2 / longest gate of each dot,
-the error budget when it was computed, and the wall time of the point.
-A partial table says so: ``"complete": false`` in the JSON, a first
-comment line ``# PARTIAL ...`` in the CSV.
-"""
+"""The results table of a ``--vary`` sweep, built from the sweep's points
+(:func:`make_table`).  The table type, ``sweep.csv``, ``sweep.json`` and
+``sweep.png`` are the shared ones of :mod:`compiler.sweeptable`, which also
+hold the report's in-file sweeps."""
 
 from __future__ import annotations
 
-import csv
-import io
-import json
-import math
-
-from ..physics import COHERENCE_RULE
-from ..report.data import jsonable
-from ..units import format_quantity
-from .types import MISSING, OK, PointResult, SweepPlan, SweepTable
-
-FORMAT_NAME = "dotseq-sweep"
-FORMAT_VERSION = 3       # 3: per-point warnings (CSV columns warnings, worst_warning)
-METRIC_TEXT = {
-    "average gate fidelity": "average gate fidelity of the whole run (up to the start of its "
-                             "final readout) against the ideal circuit",
-    "state fidelity": "state fidelity of the whole run from the declared initial state (the "
-                      "process is not computed above five dots)",
-}
+from ..sweeptable.build import with_metric
+from ..sweeptable.write import (FORMAT_NAME, FORMAT_VERSION, METRIC_TEXT, best_point,  # noqa: F401
+                                csv_text, document, grid, json_text, values_text)
+from .types import SweepPlan, SweepTable
 
 
 def make_table(plan: SweepPlan, points, stats: dict | None = None) -> SweepTable:
-    pts = tuple(sorted(points, key=lambda p: p.index))
-    ok = [p for p in pts if p.status == OK]
-    metric = ("average gate fidelity" if all(p.average_fidelity is not None for p in ok)
-              else "state fidelity")
-    if metric == "state fidelity":
-        pts = tuple(_with_state_metric(p) for p in pts)
+    """The table of a sweep's points (any order; complete or partial)."""
+    metric, pts = with_metric(sorted(points, key=lambda p: p.index))
     options = dict(plan.key.get("options", {}))
     return SweepTable(plan.key, plan.sequence, plan.device_name, plan.axes, plan.fixed, pts,
                       plan.n_points, options, metric, plan.budget, plan.warnings,
-                      dict(stats or {}), dict(plan.point_warnings))
+                      dict(stats or {}), dict(plan.point_warnings),
+                      SCOPE_TEXT.get(plan.options.fidelity_scope, ""))
 
 
-def _with_state_metric(p: PointResult) -> PointResult:
-    import dataclasses
-    if p.status != OK or p.state_fidelity is None:
-        return p
-    return dataclasses.replace(p, fidelity=p.state_fidelity, infidelity=1 - p.state_fidelity)
-
-
-def best_point(table: SweepTable) -> PointResult | None:
-    """The computed point with the highest fidelity (the first of equals)."""
-    best = None
-    for p in table.points:
-        if p.status == OK and p.fidelity is not None and math.isfinite(p.fidelity):
-            if best is None or p.fidelity > best.fidelity:
-                best = p
-    return best
-
-
-def values_text(table: SweepTable, coords) -> str:
-    return ", ".join(f"{a.name} = {format_quantity(v, a.dim)}" for a, v in zip(table.axes, coords))
-
-
-def _dots(table: SweepTable) -> list[str]:
-    dots: dict[str, None] = {}
-    for p in table.points:
-        for q, _ in p.populations:
-            dots.setdefault(q, None)
-        for c in p.coherence:
-            dots.setdefault(c[0], None)
-    return list(dots)
-
-
-def _sources(table: SweepTable) -> list[str]:
-    src: dict[str, None] = {}
-    for p in table.points:
-        for s, _ in p.budget:
-            src.setdefault(s, None)
-    return list(src)
-
-
-def _grid(table: SweepTable):
-    """Every grid point: (index, coords, PointResult or None)."""
-    import itertools
-    have = {p.index: p for p in table.points}
-    for i, coords in enumerate(itertools.product(*[a.values for a in table.axes])):
-        yield i, coords, have.get(i)
-
-
-def _head_line(table: SweepTable) -> str:
-    done = len(table.points)
-    state = "complete" if table.complete else "PARTIAL"
-    return (f"dotseq sweep of {table.sequence} on {table.device_name}: {state}, {done} of "
-            f"{table.n_points} points; fidelity = {table.metric} of the whole run"
-            + ("; budget = infidelity contribution of each source" if table.budget else
-               "; no error budget (--budget adds it)"))
-
-
-def csv_text(table: SweepTable) -> str:
-    """The table as CSV: comment lines starting with '#', then a header row
-    and one row per grid point (read it with e.g. ``pandas.read_csv(path,
-    comment='#')``)."""
-    dots = _dots(table)
-    sources = _sources(table)
-    buf = io.StringIO()
-    buf.write(f"# {_head_line(table)}\n")
-    if not table.complete:
-        buf.write(f"# PARTIAL: {len(table.missing)} of {table.n_points} points missing "
-                  "(status 'missing'); continue the sweep with the same arguments and --resume\n")
-    w = csv.writer(buf, lineterminator="\n")
-    head = ["index"] + [f"{a.name} [{a.unit}]" if a.unit else a.name for a in table.axes]
-    head += ["status", "fidelity", "infidelity", "process_fidelity", "average_gate_fidelity",
-             "state_fidelity"]
-    head += [f"P_up {q}" for q in dots] + ["duration [s]", "coherence_margin"]
-    head += [f"margin {q}" for q in dots]
-    if table.budget:
-        head += [f"budget {s}" for s in sources] + ["budget floor", "budget remainder"]
-    head += ["wall [s]", "message", "warnings", "worst_warning"]
-    w.writerow(head)
-
-    def num(x):
-        return "" if x is None else repr(float(x))
-
-    for i, coords, p in _grid(table):
-        row = [str(i)] + [repr(float(v)) for v in coords]
-        warns = table.point_warnings.get(i, ())
-        if p is None:
-            row += [MISSING] + [""] * (len(head) - len(row) - 3)
-            row += [str(len(warns)), warns[0][1] if warns else ""]
-            w.writerow(row)
-            continue
-        pops = dict(p.populations)
-        margins = {c[0]: c[3] for c in p.coherence}
-        row += [p.status, num(p.fidelity), num(p.infidelity), num(p.process_fidelity),
-                num(p.average_fidelity), num(p.state_fidelity)]
-        row += [num(pops.get(q)) for q in dots] + [num(p.duration), num(p.margin)]
-        row += [num(margins.get(q)) for q in dots]
-        if table.budget:
-            b = dict(p.budget)
-            row += [num(b.get(s)) for s in sources] + [num(p.budget_floor),
-                                                       num(p.budget_remainder)]
-        row += [f"{p.wall_s:.4f}", p.message, str(len(warns)), warns[0][1] if warns else ""]
-        w.writerow(row)
-    return buf.getvalue()
-
-
-def _axis_record(a) -> dict:
-    return {"name": a.name, "kind": a.kind, "unit": a.unit, "values": list(a.values),
-            "spacing": a.spacing, "source": a.source, "argument": a.text,
-            "text": [format_quantity(v, a.dim) for v in a.values]}
-
-
-def document(table: SweepTable, *, figure: str | None = None) -> dict:
-    """``sweep.json`` as a plain dict (every number SI)."""
-    best = best_point(table)
-    points = []
-    for i, coords, p in _grid(table):
-        d = {"index": i, "values": {a.name: v for a, v in zip(table.axes, coords)},
-             "values_text": values_text(table, coords),
-             "warnings": [t for _, t in table.point_warnings.get(i, ())]}
-        if p is None:
-            d["status"] = MISSING
-            points.append(d)
-            continue
-        d.update(status=p.status, message=p.message, fidelity=p.fidelity, infidelity=p.infidelity,
-                 process_fidelity=p.process_fidelity, average_gate_fidelity=p.average_fidelity,
-                 state_fidelity=p.state_fidelity, populations=dict(p.populations),
-                 duration_s=p.duration, coherence_margin=p.margin, wall_s=p.wall_s,
-                 averaging_error=p.averaging_error,
-                 coherence=[{"dot": q, "t2_s": t2, "longest_gate_s": g, "ratio": r,
-                             "below_rule": r < COHERENCE_RULE} for q, t2, g, r in p.coherence])
-        if table.budget:
-            d.update(budget=[{"source": s, "infidelity": v} for s, v in p.budget],
-                     budget_floor=p.budget_floor, budget_remainder=p.budget_remainder)
-        points.append(d)
-    return {
-        "format": FORMAT_NAME, "format_version": FORMAT_VERSION,
-        "complete": table.complete, "points_total": table.n_points,
-        "points_done": len(table.points), "missing": list(table.missing),
-        "sequence": table.sequence, "device": table.device_name,
-        "metric": table.metric, "metric_text": METRIC_TEXT[table.metric],
-        "budget": table.budget, "settings": table.options,
-        "axes": [_axis_record(a) for a in table.axes],
-        "fixed": [_axis_record(a) for a in table.fixed],
-        "best": None if best is None else {"index": best.index, "fidelity": best.fidelity,
-                                           "values": {a.name: v for a, v in
-                                                      zip(table.axes, best.coords)},
-                                           "values_text": values_text(table, best.coords)},
-        "coherence_rule": COHERENCE_RULE,
-        "points": points, "warnings": list(table.warnings), "stats": table.stats,
-        "figure": figure, "key": table.plan_key,
-    }
-
-
-def json_text(table: SweepTable, *, figure: str | None = None) -> str:
-    return json.dumps(jsonable(document(table, figure=figure)), indent=2, sort_keys=True,
-                      allow_nan=False, ensure_ascii=False) + "\n"
+SCOPE_TEXT = {"program": "the qubits the program acts on", "register": "the whole register"}

@@ -9,7 +9,7 @@ import sys
 from ..physics import COHERENCE_RULE
 from ..numfmt import fmt_fidelity, fmt_ratio, fmt_sci
 from ..units import format_quantity
-from .table import _grid, best_point, values_text
+from .table import best_point, grid, values_text
 from .types import INVALID, OK
 
 
@@ -105,7 +105,8 @@ def outcome_lines(outcome) -> list[str]:
                    f"{fmt_sci(best.infidelity)}) at {values_text(table, best.coords)}")
         out.append(f"worst     F = {fmt_fidelity(worst.fidelity)} at "
                    f"{values_text(table, worst.coords)}")
-        out.append(f"          F = {table.metric} of the whole run against the ideal circuit")
+        out.append(f"          F = {table.metric} of the whole run against the ideal circuit"
+                   + (f", of {table.scope}" if table.scope else ""))
         margins = [p.margin for p in ok if p.margin is not None]
         if margins:
             lo, hi = min(margins), max(margins)
@@ -119,7 +120,7 @@ def outcome_lines(outcome) -> list[str]:
                        + ", ".join(f"{s} {fmt_sci(v)}" for s, v in top))
     if table.point_warnings:
         idx = max(table.point_warnings, key=lambda i: table.point_warnings[i][0][0])
-        coords = next(c for i, c, _ in _grid(table) if i == idx)
+        coords = next(c for i, c, _ in grid(table) if i == idx)
         text = table.point_warnings[idx][0][1].replace("warning: ", "", 1)
         out.append(f"warnings  {len(table.point_warnings)} of {table.n_points} points (column "
                    f"'warnings'); the worst, at {values_text(table, coords)}: {text}")

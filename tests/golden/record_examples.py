@@ -41,6 +41,7 @@ CASES = {
     "ribbon_long_range": dict(nodes=3, budget=False, steps=False, averaging_tolerance=0.1),
     "rabi_chevron": dict(nodes=3, budget=False, steps=False),
     "cz_bell": dict(nodes=3, budget=False),
+    "hahn_cpmg_readout": dict(nodes=3, steps=False),
 }
 # Run-level figures of results.json that must not move (wall times and
 # engine statistics are left out: they are not physics).
@@ -62,6 +63,9 @@ def figures(name: str) -> dict[str, float]:
                 out[f"{base}.populations.{q}.{j}"] = v
         for s in r["steps"]:
             out[f"{base}.step{s['index']}.fidelity"] = s["fidelity"]
+        for o in r.get("observables", ()):
+            for k in ("ideal", "measured", "target"):
+                out[f"{base}.observables.{o['label']}.{k}"] = o[k]
         for b in r["budget"]:
             out[f"{base}.budget.{b['source']}"] = b["infidelity"]
         for key, series in (r.get("traces") or {}).items():
