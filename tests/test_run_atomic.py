@@ -24,7 +24,7 @@ from conftest import SEQUENCES
 
 SEQ_A = SEQUENCES / "ramsey_single.dotseq"     # 5 runs
 SEQ_B = SEQUENCES / "cnot_pair.dotseq"
-FAST = ["--no-budget", "--no-steps"]
+FAST = ["--no-budget", "--no-steps", "--nodes", "1"]   # cnot_pair is four-level: keep a run short
 KILLS = int(os.environ.get("DOTSEQ_RUN_KILLS", "5"))   # random kills in the default run
 
 
