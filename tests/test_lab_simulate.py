@@ -49,10 +49,11 @@ channels:
 
 
 def state_fidelity(src: str, dev, correct: bool, switches=QUIET) -> float:
+    # the whole register: the disturbed dot B is not one the program acts on
     ex = expand(parse_text(src, "t.dotseq"))
     check(ex, dev)
     crun = compile_run(ex.runs[0], dev, CompileOptions(mixer_correction=correct))
-    return evaluate_whole(crun, switches, SimOptions(nodes=1, steps=False),
+    return evaluate_whole(crun, switches, SimOptions(nodes=1, steps=False, fidelity_scope="register"),
                           FastEngine()).f_state
 
 
@@ -98,7 +99,7 @@ def _budget(src: str, dev, correct: bool) -> dict:
     check(ex, dev)
     checked = Checked(ex, dev, tuple(schedule(r, dev) for r in ex.runs))
     r = simulate(compile_checked(checked, CompileOptions(mixer_correction=correct)),
-                 SimOptions(nodes=1, steps=False)).runs[0]
+                 SimOptions(nodes=1, steps=False, fidelity_scope="register")).runs[0]
     return {b.source: b.infidelity for b in r.budget}
 
 
