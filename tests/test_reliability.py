@@ -500,9 +500,13 @@ def test_simulation_is_the_same_run_to_run(tmp_path):
     quadrature, so two simulations give the same numbers exactly."""
     from compiler.simulate import SimOptions, simulate
     seq = tmp_path / "s.dotseq"
-    seq.write_text("prepare A B up\nrot A x 90 deg\nwait 10 ns\n", encoding="utf-8")
+    # the spin-1/2 test pair (the bundled pair is four-level: a run of it costs a minute)
+    pair = Path(__file__).parent / "data" / "spin_half_pair.yaml"
+    seq.write_text(f'device "{pair}"\nprepare A B up\nrot A x 90 deg\nwait 10 ns\n',
+                   encoding="utf-8")
     # two quadrature nodes per noise variable: the noise integration is exercised, cheaply
-    opts = SimOptions(budget=False, steps=False, nodes=2, substeps=1, quadrature="additive")
+    opts = SimOptions(budget=False, steps=False, nodes=2, substeps=1, quadrature="additive",
+                      averaging_tolerance=0.1)
     results = []
     for _ in range(2):
         _clear_caches()
@@ -520,7 +524,8 @@ def test_simulation_is_the_same_run_to_run(tmp_path):
     assert 0.5 < ra.process_fidelity < 1.0
 
 
-SIM_ARGS = ["--json", "--no-budget", "--no-steps", "--nodes", "3", "--substeps", "1"]
+SIM_ARGS = ["--json", "--no-budget", "--no-steps", "--nodes", "3", "--substeps", "1",
+            "--averaging-tolerance", "0.1"]
 
 
 def simulate_in_a_child(seq: Path, out: Path, hash_seed: str) -> dict:
