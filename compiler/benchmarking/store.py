@@ -17,6 +17,7 @@ import json
 import os
 from pathlib import Path
 
+from ..export.atomic import refuse_unusable_place
 from ..sweep.errors import fail
 from ..sweep.store import dumps, open_locked_state, write_atomic
 
@@ -47,9 +48,7 @@ class RBFolder:
 
     def _open(self, resume: bool) -> None:
         p = self.path
-        if p.is_symlink():
-            raise fail(p, "the output path is a symbolic link; dotseq does not write through links",
-                       "give the real folder, or choose another -o folder")
+        refuse_unusable_place(p, fail, "the run")
         if os.path.lexists(p) and not p.is_dir():
             raise fail(p, "the output path exists and is a file, not a folder; nothing was written",
                        "choose another -o folder")

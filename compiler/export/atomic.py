@@ -101,6 +101,21 @@ def _refuse_link_or_file(target: Path, fail_with, expected: str) -> None:
                                 "nothing was written", "choose another -o folder")
 
 
+def refuse_unusable_place(p: Path, fail_with, holds: str) -> None:
+    """The checks of a resumable output folder (the sweep's and rb's
+    stores) before anything is written: not a link, not a file, and its
+    parent exists (``holds`` names what the folder holds: "the sweep")."""
+    if p.is_symlink():
+        raise fail_with(p, "the output path is a symbolic link; dotseq does not write through "
+                           "links", "give the real folder, or choose another -o folder")
+    if os.path.lexists(p) and not p.is_dir():
+        raise fail_with(p, "the output path exists and is a file, not a folder; nothing was "
+                           "written", "choose another -o folder")
+    if not p.parent.is_dir():
+        raise fail_with(p, f"the folder that should hold {holds}, {p.parent}, does not exist",
+                        f"create it first (mkdir -p {p.parent}) or choose another -o folder")
+
+
 def output_state(target: Path, overwrite: bool, *, what: str, is_ours, ours: str, fail_with,
                  known: frozenset[str] | None = None) -> str:
     """The one check of an output folder before a writer replaces it (the

@@ -138,12 +138,7 @@ def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, produc
     if model.profiles and process and correction is not None:
         const = [p for p in pts if not p.modes]
         ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
-        S = ev.superop @ correction
-        rho = None
-        if rho0 is not None:
-            d = rho0.shape[0]
-            rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
-        return S, rho, ev.traces
+        return _corrected(ev, correction, rho0)
     if model.profiles and process and product:
         return combine_modes(engine, model, pts, rho0=rho0, traces=traces)
     ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
@@ -184,6 +179,11 @@ def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict
     corr = expm(gen)
     if parts is not None:
         parts["correction"] = corr
+    return _corrected(ev, corr, rho0)
+
+
+def _corrected(ev, corr, rho0):
+    """(S·corr, the final ρ of ``rho0`` under it, traces) of an average ``ev``."""
     S = ev.superop @ corr
     rho = None
     if rho0 is not None:

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..export import atomic
-from ..export.atomic import pid_alive
+from ..export.atomic import pid_alive, refuse_unusable_place
 from ..errors import Problem, Span
 from ..simulate.types import Observable
 from ..source import Unreadable, check_regular
@@ -186,9 +186,7 @@ class Folder:
     # ------------------------------------------------------------ checks
     def _check(self, resume: bool, command: str) -> None:
         p = self.path
-        if p.is_symlink():
-            raise fail(p, "the output path is a symbolic link; dotseq does not write through links",
-                       "give the real folder, or choose another -o folder")
+        refuse_unusable_place(p, fail, "the sweep")
         if os.path.lexists(p) and not p.is_dir():
             raise fail(p, "the output path exists and is a file, not a folder; nothing was written",
                        "choose another -o folder")
