@@ -62,6 +62,7 @@ from ...threads import one_thread
 from ..model import Model, NoisePoint, dot_operator
 from ..types import Evolution
 from . import pauli as PL
+from . import weak as weak_mod
 from .clusters import clusters
 
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
@@ -126,7 +127,8 @@ class FastEngine:
     name = "fast"
 
     def __init__(self, exchange_accuracy: float = 1e-6, max_batch_bytes: int = 512 * 2 ** 20,
-                 cache_entries: int = 20000, *, exchange_budget: float | None = None):
+                 cache_entries: int = 20000, *, exchange_budget: float | None = None,
+                 weak_exchange: bool = True):
         # the summed phase of dropped exchange, rad: |ΔF_avg| ≤ ¾·phase (module notes)
         self.exchange_accuracy = exchange_accuracy
         self.exchange_budget = (4.0 / 3.0 * exchange_accuracy if exchange_budget is None
@@ -139,7 +141,11 @@ class FastEngine:
         self.applications = 0
         self.fusions = 0
         self.neglected_exchange_rad = 0.0
+        self.weak_exchange_bound = 0.0
         self.largest_cluster = 0
+        self.weak_exchange = weak_exchange
+        self._weak_bound_now = 0.0
+        self._weak_chunks_now = 0
         self._pieces: dict = {}
         self._cache: dict = {}
 
@@ -150,7 +156,9 @@ class FastEngine:
                 "cache_hits": self.cache_hits, "channel_applications": self.applications,
                 "channel_fusions": self.fusions, "largest_cluster": self.largest_cluster,
                 "neglected_exchange_rad": self.neglected_exchange_rad,
-                "exchange_error_bound": 0.75 * self.neglected_exchange_rad}
+                "weak_exchange_bound": self.weak_exchange_bound,
+                "exchange_error_bound": (0.75 * self.neglected_exchange_rad
+                                         + self.weak_exchange_bound)}
 
     def evolve(self, model: Model, point: NoisePoint, *, rho0=None, process=False, trace_points=0):
         return self.average(model, [NoisePoint(point.detuning, point.dv, 1.0, point.modes)], rho0=rho0,
@@ -203,7 +211,9 @@ class FastEngine:
         st = {k: now[k] - stats0[k] for k in now}
         st["largest_cluster"] = self._largest_now
         st["neglected_exchange_rad"] = self._neglected_now
-        st["exchange_error_bound"] = 0.75 * self._neglected_now
+        st["weak_exchange_bound"] = self._weak_bound_now
+        st["weak_exchange_chunks"] = self._weak_chunks_now
+        st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         st["wall_s"] = time.perf_counter() - t0
         return Evolution(S, rho, traces, st, R_sum, r_sum)
 
@@ -247,14 +257,90 @@ class FastEngine:
                              np.ascontiguousarray(F.imag))
             pair_coef.append(coefs)
             jmax.append(np.max(np.abs(np.stack([c[0] for c in coefs.values()])), axis=0))
-        on = self._on_masks(jmax, h, K)
+        prep = {"drive": drive, "pairs": pair_coef, "points": list(points)}
+        on, ip = self._weak_plan(model, prep, jmax, h, K)
         bounds = {0, K}
-        for m in on:
+        for m in list(on) + list(ip):
             bounds.update((np.flatnonzero(m[1:] != m[:-1]) + 1).tolist())
-        return {"drive": drive, "pairs": pair_coef, "on": on, "bounds": sorted(bounds),
-                "points": list(points)}
+        prep.update({"on": on, "ip": ip, "bounds": sorted(bounds)})
+        return prep
+
+    def _weak_plan(self, model: Model, prep: dict, jmax: list, h: float, K: int):
+        """Which sub-steps of each pair are dropped, treated as weak (the
+        interaction picture of :mod:`.weak`) or kept exactly: (on, weak)
+        masks, weak ⊆ on.  The weakest exchange is dropped within the budget
+        as before; when what is left holds exchange weak enough for the
+        interaction picture, the accuracy is split in two halves, one for
+        dropping and one for the weak treatment (module notes, point 2)."""
+        on, total = self._drop(jmax, h, K, self.exchange_budget)
+        ip = [np.zeros(K, dtype=bool) for _ in jmax]
+        self._weak_bound_now = 0.0
+        self._weak_chunks_now = 0
+        if not self.weak_exchange or not K or not jmax or self.exchange_budget <= 0:
+            self._set_neglected(total)
+            return on, ip
+        eps = 0.75 * self.exchange_budget / 2          # fidelity for the weak treatment
+        # ‖B‖◇ ≤ 4π(|J|/4 + |F|/2) per pair and sub-step, at the worst charge offset
+        xn = []
+        for coefs in prep["pairs"]:
+            nrm = np.max(np.stack([np.abs(J) / 4 + np.hypot(Fr, Fi) / 2
+                                   for J, Fr, Fi in coefs.values()]), axis=0)
+            xn.append(4 * math.pi * nrm * h)
+        dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
+                                     for d in model.dissipators_of(q)]) for q in range(model.n)}
+        dnorm = 2 * max(dn.values(), default=0.0)
+        kmax = math.exp(dnorm * K * h)
+        weak, ystar = self._weak_masks(on, xn, kmax, eps)
+        if weak is None:
+            self._set_neglected(total)
+            return on, ip
+        on, total = self._drop(jmax, h, K, self.exchange_budget / 2)
+        weak, ystar = self._weak_masks(on, xn, kmax, eps)
+        if weak is None:
+            self._set_neglected(total)
+            return on, ip
+        self._set_neglected(total)
+        dets = {q: max((abs(pt.detuning[q]) if pt.detuning else 0.0) for pt in prep["points"])
+                for q in range(model.n)}
+        anorm = {}
+        for q in range(model.n):
+            re, im = prep["drive"].get(q, (None, None))
+            prof = None
+            for pt in prep["points"]:
+                d = model.detuning_profile(q, pt.modes) if pt.modes else None
+                if d is not None:
+                    prof = np.abs(d) if prof is None else np.maximum(prof, np.abs(d))
+            anorm[q] = weak_mod.one_dot_norms(re, im, dets[q], prof, dn[q], K)
+        prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm})
+        return on, weak
+
+    @staticmethod
+    def _weak_masks(on: list, xn: list, kmax: float, eps: float):
+        """Sub-steps that stay on and are weak enough for the interaction
+        picture: each one's first-order size κ·x within y*, where y* is tied
+        to the sum over all of them (Σ(e^y − 1 − y) ≤ ½y*(1 + y*)·Σy ≤ eps):
+        (masks, y*) or (None, 0) when there are none."""
+        X0 = sum(float(x[m].sum()) for x, m in zip(xn, on)) * kmax
+        if X0 <= 0:
+            return None, 0.0
+        ystar = 1.9 * eps / X0
+        weak = [m & (x * kmax <= ystar) for x, m in zip(xn, on)]
+        X1 = sum(float(x[w].sum()) for x, w in zip(xn, weak)) * kmax
+        if X1 <= 0:
+            return None, 0.0
+        return weak, 1.9 * eps / X1
+
+    def _set_neglected(self, total: float) -> None:
+        self.neglected_exchange_rad = max(self.neglected_exchange_rad, total)
+        self._neglected_now = total
 
     def _on_masks(self, jmax: list, h: float, K: int) -> list:
+        """Dropping alone, within the whole budget (the general-levels path)."""
+        on, total = self._drop(jmax, h, K, self.exchange_budget)
+        self._set_neglected(total)
+        return on
+
+    def _drop(self, jmax: list, h: float, K: int, budget: float):
         """Sub-steps where each pair must be kept.  Every sub-step of every
         pair is a candidate for dropping; they are dropped weakest first
         (by J, over all pairs together) while the phase 2π∫J dt summed over
@@ -265,12 +351,11 @@ class FastEngine:
         dropped phase (module notes)."""
         on = [np.ones(K, dtype=bool) for _ in jmax]
         if not K or not jmax:
-            self._neglected_now = 0.0
-            return on
+            return on, 0.0
         J = np.stack([np.abs(j) for j in jmax])              # (pairs, K)
         order = np.argsort(J, axis=None, kind="stable")
         phase = np.cumsum(2 * math.pi * J.ravel()[order] * h)
-        n_drop = int(np.searchsorted(phase, self.exchange_budget, side="right"))
+        n_drop = int(np.searchsorted(phase, budget, side="right"))
         # never split a pair inside a run of equal J: keep ties together
         if 0 < n_drop < len(order):
             j_last = J.ravel()[order[n_drop - 1]]
@@ -283,9 +368,7 @@ class FastEngine:
         flat = flat.reshape(J.shape)
         for i in range(len(jmax)):
             on[i] = flat[i]
-        self.neglected_exchange_rad = max(self.neglected_exchange_rad, total)
-        self._neglected_now = total
-        return on
+        return on, total
 
     def _cluster_pieces(self, model: Model, dots: tuple[int, ...], pairs: tuple[int, ...]) -> _Pieces:
         key = (dots, pairs, tuple(d for q in dots for d in model.dissipators_of(q)),
@@ -342,11 +425,44 @@ class FastEngine:
         self._pieces[key] = got
         return got
 
+    def _segment_split(self, model: Model, prep: dict, s: int):
+        """The pairs of the segment starting at sub-step ``s`` taken exactly,
+        and the weak ones with their dots ((pairs, dots) or None).  A weak
+        pair touching a dot of an exact cluster of two or more is taken
+        exactly too (it would need that cluster's channel inside)."""
+        exact = [i for i, (m, w) in enumerate(zip(prep["on"], prep["ip"])) if m[s] and not w[s]]
+        weak = [i for i, w in enumerate(prep["ip"]) if w[s]]
+        while weak:
+            big = set()
+            for dots, _ in clusters(model.n, [(model.pairs[i].a, model.pairs[i].b)
+                                              for i in exact], exact):
+                if len(dots) > 1:
+                    big.update(dots)
+            move = [i for i in weak if model.pairs[i].a in big or model.pairs[i].b in big]
+            if not move:
+                break
+            exact += move
+            weak = [i for i in weak if i not in move]
+        if not weak:
+            return exact, None
+        dots = tuple(sorted({q for i in weak for q in (model.pairs[i].a, model.pairs[i].b)}))
+        return exact, (tuple(weak), dots)
+
     # -------------------------------------------------------------- channels
 
     def _segment_channels(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
         """The cluster's channel over sub-steps [s, e) for every distinct value
         of its own noise variables: (channels (V, k, k), point -> variant)."""
+        statics, G, Cs, combos, which, theta = self._segment_terms(model, prep, pc, s, e,
+                                                                   points, idx)
+        chans = self._chain(statics, G, Cs, model.h, pc, combos, theta)
+        return chans, which
+
+    def _segment_terms(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
+        """The cluster's generator over sub-steps [s, e) as L_k = static_v +
+        Σ_t C_vkt·G_t for every distinct value v of its own noise variables:
+        (statics (V, k, k), G (T, k, k), C (V, e − s, T), variant keys,
+        point -> variant, frame angles or None)."""
         h = model.h
         combos: dict = {}
         which = []
@@ -405,9 +521,8 @@ class FastEngine:
                     cols.append(np.zeros(e - s) if d is None else d[s:e])
             statics.append(static)
             Cs.append(np.stack(cols, axis=1) if cols else np.zeros((e - s, 0)))
-        chans = self._chain(np.stack(statics), G, np.stack(Cs), h, pc, tuple(combos),
-                            theta if rotating else None)
-        return chans, np.array(which)
+        return (np.stack(statics), G, np.stack(Cs), tuple(combos), np.array(which),
+                theta if rotating else None)
 
     def _rz(self, pc: _Pieces, angles: dict) -> np.ndarray:
         """exp(Σ_q ϑ_q·Z_q): z rotations of the cluster's dots, in closed form
@@ -546,20 +661,37 @@ class FastEngine:
         if 0 in mark_set:
             record(0)
         pts = prep["points"]
+        weak_y, weak_q = [], []
         for s, e in zip(bounds[:-1], bounds[1:]):
             if e <= s:
                 continue
-            active = [i for i, m in enumerate(prep["on"]) if m[s]]
-            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in active],
-                                         active):
+            exact, weak = self._segment_split(model, prep, s)
+            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in exact],
+                                         exact):
+                if len(dots) == 1 and weak and dots[0] in weak[1]:
+                    continue                       # its own channel comes with the weak pairs
                 pc = self._cluster_pieces(model, dots, pairs)
                 self._largest_now = max(self._largest_now, len(dots))
                 self.largest_cluster = max(self.largest_cluster, len(dots))
                 chans, which = self._segment_channels(model, prep, pc, s, e, pts, idx)
                 M = chans if len(chans) == 1 else chans[which]
                 push(dots, M)
+            if weak:
+                self._largest_now = max(self._largest_now, 1)
+                self.largest_cluster = max(self.largest_cluster, 1)
+                pushes, y, q = weak_mod.weak_segment(self, model, prep, s, e, weak[0], weak[1],
+                                                     pts, idx)
+                weak_y.append(y)
+                weak_q.append(q)
+                for dots, chans, which in pushes:
+                    push(dots, chans if len(chans) == 1 else chans[which])
             if e in mark_set:
                 record(e)
+        if weak_y:
+            y, q = np.concatenate(weak_y), np.concatenate(weak_q)
+            self._weak_bound_now = max(self._weak_bound_now, weak_mod.weak_bound(y, q))
+            self._weak_chunks_now = max(self._weak_chunks_now, len(y))
+            self.weak_exchange_bound = max(self.weak_exchange_bound, self._weak_bound_now)
         for g in list(pending):
             flush(g)
         traces = {}

@@ -119,6 +119,14 @@ def hamiltonian_generator(H: np.ndarray) -> np.ndarray:
     return _ptm_of_map(lambda r: -2j * math.pi * (H @ r - r @ H), n)
 
 
+def anticommutator_map(A: np.ndarray) -> np.ndarray:
+    """PTM of ρ -> {A, ρ} = Aρ + ρA (A Hermitian): real.  With it a two-dot
+    Hamiltonian generator splits into products of one-dot maps:
+    −i[A⊗B, ·] = ½(−i[A, ·] ⊗ {B, ·} + {A, ·} ⊗ −i[B, ·])."""
+    n = int(round(math.log2(A.shape[0])))
+    return _ptm_of_map(lambda r: A @ r + r @ A, n)
+
+
 def dissipator_generator(c: np.ndarray) -> np.ndarray:
     """PTM of the Lindblad dissipator cρc† − ½{c†c, ρ}."""
     n = int(round(math.log2(c.shape[0])))
