@@ -65,6 +65,7 @@ from . import pauli as PL
 from . import weak as weak_mod
 from .clusters import clusters
 
+KAPPA = 1.1                    # weak exchange: chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (weak.py)
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
 
 
@@ -289,7 +290,9 @@ class FastEngine:
         dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
                                      for d in model.dissipators_of(q)]) for q in range(model.n)}
         dnorm = 2 * max(dn.values(), default=0.0)
-        kmax = math.exp(dnorm * K * h)
+        # chunks last at most τ_max, so that ‖E₀⁻¹‖◇ ≤ κ = exp(‖L_D‖◇·τ_max) ≤ 1.1
+        tau_max = math.log(KAPPA) / dnorm if dnorm > 0 else math.inf
+        kmax = min(KAPPA, math.exp(dnorm * K * h))
         weak, ystar = self._weak_masks(on, xn, kmax, eps)
         if weak is None:
             self._set_neglected(total)
@@ -311,24 +314,33 @@ class FastEngine:
                 if d is not None:
                     prof = np.abs(d) if prof is None else np.maximum(prof, np.abs(d))
             anorm[q] = weak_mod.one_dot_norms(re, im, dets[q], prof, dn[q], K)
-        prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm})
+        prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm,
+                     "kappa": kmax, "tau_max": tau_max})
         return on, weak
 
     @staticmethod
-    def _weak_masks(on: list, xn: list, kmax: float, eps: float):
+    def _weak_masks(on: list, xn: list, kappa: float, eps: float):
         """Sub-steps that stay on and are weak enough for the interaction
-        picture: each one's first-order size κ·x within y*, where y* is tied
-        to the sum over all of them (Σ(e^y − 1 − y) ≤ ½y*(1 + y*)·Σy ≤ eps):
+        picture, weakest first: the largest set whose every first-order size
+        κ·x is within y* = 1.9·eps/Y, Y = Σκ·x over the set (then
+        Σ(e^y − 1 − y) ≤ ½y*(1 + y*)·Y ≤ eps for chunks of size ≤ y*):
         (masks, y*) or (None, 0) when there are none."""
-        X0 = sum(float(x[m].sum()) for x, m in zip(xn, on)) * kmax
-        if X0 <= 0:
+        vals = np.concatenate([x[m] for x, m in zip(xn, on)]) * kappa if xn else np.zeros(0)
+        if not len(vals) or not vals.any():
             return None, 0.0
-        ystar = 1.9 * eps / X0
-        weak = [m & (x * kmax <= ystar) for x, m in zip(xn, on)]
-        X1 = sum(float(x[w].sum()) for x, w in zip(xn, weak)) * kmax
-        if X1 <= 0:
-            return None, 0.0
-        return weak, 1.9 * eps / X1
+        srt = np.sort(vals)
+        cum = np.cumsum(srt)
+        n_ok = int(np.count_nonzero(srt * cum <= 1.9 * eps))      # srt·cum grows with the index
+        while n_ok:
+            thr = srt[n_ok - 1]
+            weak = [m & (x * kappa <= thr) for x, m in zip(xn, on)]
+            Y = sum(float(x[w].sum()) for x, w in zip(xn, weak)) * kappa
+            if Y <= 0:
+                return None, 0.0
+            if thr * Y <= 1.9 * eps:
+                return weak, 1.9 * eps / Y
+            n_ok = int(np.searchsorted(srt, thr, side="left"))      # ties over: leave them out
+        return None, 0.0
 
     def _set_neglected(self, total: float) -> None:
         self.neglected_exchange_rad = max(self.neglected_exchange_rad, total)

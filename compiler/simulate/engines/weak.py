@@ -101,17 +101,17 @@ def kron_swap(Z: np.ndarray) -> np.ndarray:
     return Z.reshape(lead + (4, 4, 4, 4)).swapaxes(-3, -2).reshape(lead + (16, 16))
 
 
-def chunk_cuts(x: np.ndarray, ystar: float) -> np.ndarray:
+def chunk_cuts(x: np.ndarray, ystar: float, max_len: int) -> np.ndarray:
     """Starts of consecutive chunks of the sub-steps (weights ``x`` ≥ 0) so
-    that each chunk's sum stays within ``ystar`` (at least one sub-step per
-    chunk)."""
+    that each chunk's sum stays within ``ystar`` and its length within
+    ``max_len`` sub-steps (at least one sub-step per chunk)."""
     cum = np.concatenate([[0.0], np.cumsum(x)])
     starts = [0]
     n = len(x)
     while True:
         s = starts[-1]
         e = int(np.searchsorted(cum, cum[s] + ystar, side="right")) - 1
-        e = max(e, s + 1)
+        e = min(max(e, s + 1), s + max_len)
         if e >= n:
             return np.array(starts)
         starts.append(e)
@@ -200,8 +200,8 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
         change[1:] = np.any(np.abs(allc[1:] - allc[:-1]) > tol, axis=1)
     # ---- chunks: first-order size within y* (κ over the whole segment)
     x = sum(pi[7] for pi in pinfo)
-    kappa = math.exp(prep["dnorm"] * n * h)
-    cstart = chunk_cuts(kappa * x, prep["ystar"])
+    max_len = max(1, int(prep["tau_max"] / h)) if math.isfinite(prep["tau_max"]) else n
+    cstart = chunk_cuts(prep["kappa"] * x, prep["ystar"], max_len)
     is_cstart = np.zeros(n, dtype=bool)
     is_cstart[cstart] = True
     # pieces: single sub-steps, or runs of ≥ 4 equal ones (exact integral)
@@ -295,10 +295,9 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
             for m, i in enumerate(calc):
                 groups.setdefault(combos[i][0], []).append(m)
             Y = np.zeros((nm,) + Tb_all.shape[1:])                       # (M, nodes, 6, 16)
-            for m, i in enumerate(calc):
-                tb = Tb_all[combos[i][1]]
-                for kind, f, ia, ib in terms:
-                    Y[m, :, ia] += (f * W[m, kind])[:, None] * tb[:, ib]
+            tb = Tb_all[np.array([combos[i][1] for i in calc])]
+            for kind, f, ia, ib in terms:
+                Y[:, :, ia] += (f * W[:, kind])[:, :, None] * tb[:, :, ib]
             for va, ms in groups.items():
                 ta = T[d0][va]
                 for c in range(ncs):
@@ -324,12 +323,13 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
         Om = Om[base] * ratio[:, None, None, None]
         W = PL.expm_batch(Om)                                          # (V, chunks, 16, 16)
         out_pairs.append(((d0, d1), W, which))
-    # ---- sizes and quadrature errors per chunk
-    ysub = kappa * x
-    y = np.add.reduceat(ysub, cstart)
+    # ---- sizes and quadrature errors per chunk, each with its own κ
+    clen = np.diff(np.append(cstart, n))
+    kap = np.exp(prep["dnorm"] * clen * h)
+    y = np.add.reduceat(x, cstart) * kap
     a2 = sum(anorm[q] for q in dots)
-    qsub = np.where(np.isin(np.arange(n), starts[single]), ysub * (2 * a2 * h) ** 4 / 2880, 0.0)
-    qc = np.add.reduceat(qsub, cstart)
+    qsub = np.where(np.isin(np.arange(n), starts[single]), x * (2 * a2 * h) ** 4 / 2880, 0.0)
+    qc = np.add.reduceat(qsub, cstart) * kap
     # ---- channels in time order: per chunk, the pairs' corrections then the dots' own
     last = np.append(np.flatnonzero(first)[1:], npc) - 1             # last piece of each chunk
     pushes = []
@@ -344,10 +344,19 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
 def _chunk_prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
     """Ordered prefix products of the pieces (V, npc, 4, 4), restarting at
     every piece marked ``first``."""
-    out = np.empty_like(M)
-    bounds = np.append(np.flatnonzero(first), M.shape[1])
-    for a, b in zip(bounds[:-1], bounds[1:]):
-        out[:, a:b] = prefix_scan(M[:, a:b])
+    seg = np.cumsum(first)
+    out = M.copy()
+    n = M.shape[1]
+    d = 1
+    while d < n:
+        same = seg[d:] == seg[:-d]
+        if not same.any():
+            break
+        new = out.copy()
+        j = np.flatnonzero(same) + d
+        new[:, j] = out[:, j] @ out[:, j - d]
+        out = new
+        d *= 2
     return out
 
 
