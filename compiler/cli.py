@@ -251,6 +251,9 @@ def _sim_flags(p) -> None:
     p.add_argument("--run", type=int, default=0, dest="detail_run",
                    help="run of a sweep that gets per-step fidelities, the budget and traces")
     _model_flags(p)
+    p.add_argument("--exchange-accuracy", type=float, default=1e-6, metavar="FIDELITY",
+                   help="residual exchange of closed barriers is dropped or treated as weak "
+                   "within this change of the average gate fidelity (default 1e-6; 0: exact)")
     _readout_flags(p)
     p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
                    "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
@@ -403,7 +406,8 @@ def _sim_options(args):
                       quadrature=args.quadrature, budget=not args.no_budget,
                       steps=not args.no_steps, detail_run=args.detail_run,
                       fidelity_scope="register" if args.whole_register else "program",
-                      shots=args.shots)
+                      shots=args.shots, exchange_accuracy=args.exchange_accuracy,
+                      memory_limit=_memory_limit(args))
 
 
 def _simulated(args, compiled):
@@ -545,7 +549,8 @@ def cmd_sweep(args) -> int:
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
                       averaging_tolerance=args.averaging_tolerance,
                       fidelity_scope="register" if args.whole_register else "program",
-                      shots=args.shots)
+                      shots=args.shots, exchange_accuracy=args.exchange_accuracy,
+                      memory_limit=_memory_limit(args))
     if not cluster and workers > 1:
         pool_context()               # the workers' server imports the package while we plan
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
@@ -632,8 +637,9 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_OK
     except MemoryError:
         msg = ("dotseq: out of memory (the operating system refused an allocation although "
-               "dotseq's own estimate was below its limit); nothing was written. Shorten the "
-               "sequence or compile fewer runs; this is worth reporting with the input files.")
+               "dotseq's own estimate was below its limit); nothing was written. A smaller "
+               "--memory-limit makes dotseq refuse with the cause instead; this is worth "
+               "reporting with the input files.")
         if want_json:
             print(json.dumps({"ok": False, "stage": "memory", "errors": [{"message": msg}]}))
         else:

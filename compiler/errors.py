@@ -186,6 +186,11 @@ class SynthesisError(DotseqError):
     stage = "synthesis"
 
 
+class SimulationError(DotseqError):
+    """A simulation that cannot be run as asked (it would not fit in memory)."""
+    stage = "simulate"
+
+
 class UsageError(DotseqError):
     """Bad command-line arguments."""
     stage = "usage"

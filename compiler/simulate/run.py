@@ -22,13 +22,15 @@ import numpy as np
 from .. import program as P
 from ..device.model import Device
 from ..errors import UsageError
+from ..limits import default_limit
 from ..margin import coherence_margins
 from ..runwarnings import merged
 from ..synth.types import CompiledRun, Recompiler
 from ..threads import one_thread
 from . import fidelity as F
 from .build import build_model
-from .engines import ENGINES, make_engine
+from .engines import ENGINES, ClusterTooLarge, make_engine
+from .memory import too_large_error
 from .model import dot_operator, embed, noise_points
 from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
@@ -56,6 +58,8 @@ class SimOptions:
     fidelity_scope: str = "program"   # whole-run fidelities of the qubits the program acts on,
                                       # or "register" (docs/simulate.md, "Fidelity scope")
     shots: int = 0                # repetitions of the experiment (observables' counts, errors)
+    exchange_accuracy: float = 1e-6   # fidelity: residual exchange dropped or treated as weak
+    memory_limit: int = 0         # bytes; 0: half the memory available (compiler/limits.py)
 
     def worker_threads(self) -> int:
         """``threads``, or automatically one per core (at most 4), and one
@@ -89,6 +93,9 @@ class SimOptions:
         if not 0 <= self.shots <= MAX_SHOTS:
             raise UsageError(f"--shots {self.shots} must be from 1 to {MAX_SHOTS:.0e} "
                              "(0: no shot statistics)", hint="e.g. --shots 1000")
+        if not 0 <= self.exchange_accuracy <= 1e-2:
+            raise UsageError(f"exchange accuracy {self.exchange_accuracy:g} must be from 0 "
+                             "(exact) to 1e-2", hint="a fidelity, e.g. 1e-6 (default)")
         if self.quadrature not in ("tensor", "additive", "auto"):
             raise UsageError(f"unknown quadrature '{self.quadrature}'",
                              hint="use tensor, additive or auto")
@@ -500,14 +507,18 @@ def simulate(compiled, opts: SimOptions = SimOptions(), progress=None, *,
     before each long piece of work."""
     opts.check()
     with one_thread():
-        return _simulate(compiled, opts, progress, recompiler or compiled.recompiler)
+        try:
+            return _simulate(compiled, opts, progress, recompiler or compiled.recompiler)
+        except ClusterTooLarge as e:            # refused before any work (memory.py)
+            raise too_large_error(e.info) from None
 
 
 def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> SimulationResult:
     t_start = time.perf_counter()
     checked = compiled.checked
     device = checked.device
-    engine = make_engine(opts.engine)
+    engine = make_engine(opts.engine, exchange_accuracy=opts.exchange_accuracy,
+                         memory_limit=opts.memory_limit or default_limit())
     runs = []
     n_runs = len(checked.expanded.runs)
     if len(compiled.runs) != n_runs:

@@ -27,7 +27,7 @@ from typing import Protocol
 
 from ..model import Model, NoisePoint
 from ..types import Evolution
-from .fast import FastEngine
+from .fast import ClusterTooLarge, FastEngine
 from .reference import ReferenceEngine
 
 
@@ -46,9 +46,13 @@ class Engine(Protocol):
 ENGINES: dict[str, type] = {"fast": FastEngine, "reference": ReferenceEngine}
 
 
-def make_engine(name: str) -> Engine:
-    """A fresh engine of the given name (a key of :data:`ENGINES`)."""
-    return ENGINES[name]()
+def make_engine(name: str, **options) -> Engine:
+    """A fresh engine of the given name (a key of :data:`ENGINES`), with the
+    ``options`` its constructor takes (others are for other engines)."""
+    import inspect
+    cls = ENGINES[name]
+    params = inspect.signature(cls).parameters
+    return cls(**{k: v for k, v in options.items() if k in params})
 
 
-__all__ = ["ENGINES", "Engine", "Evolution", "FastEngine", "ReferenceEngine", "make_engine"]
+__all__ = ["ClusterTooLarge", "ENGINES", "Engine", "Evolution", "FastEngine", "ReferenceEngine", "make_engine"]

@@ -122,6 +122,18 @@ def _rotation_sign(G1: np.ndarray, G2: np.ndarray, Z: np.ndarray) -> float:
     return sign
 
 
+class ClusterTooLarge(Exception):
+    """A run whose largest cluster would not fit the memory limit: ``info``
+    names its dots, the pairs that join them (J and barrier voltage), its
+    dimension, noise variants, bytes, the limit and the time it forms
+    (:func:`compiler.simulate.run.simulate` turns it into the user's error)."""
+
+    def __init__(self, info: dict):
+        self.info = info
+        super().__init__(f"cluster of {len(info['dots'])} dots needs {info['bytes']} bytes, "
+                         f"above the limit of {info['limit']}")
+
+
 class FastEngine:
     """Exact cluster propagation of the piecewise-constant model (module notes)."""
 
@@ -129,7 +141,11 @@ class FastEngine:
 
     def __init__(self, exchange_accuracy: float = 1e-6, max_batch_bytes: int = 512 * 2 ** 20,
                  cache_entries: int = 20000, *, exchange_budget: float | None = None,
-                 weak_exchange: bool = True):
+                 weak_exchange: bool = True, memory_limit: int = 0):
+        # memory_limit: bytes a run may take (0: not checked; the simulation
+        # gives half the memory available, compiler.limits); a run whose
+        # largest cluster would not fit raises ClusterTooLarge before any work
+        self.memory_limit = memory_limit
         # the summed phase of dropped exchange, rad: |ΔF_avg| ≤ ¾·phase (module notes)
         self.exchange_accuracy = exchange_accuracy
         self.exchange_budget = (4.0 / 3.0 * exchange_accuracy if exchange_budget is None
@@ -147,6 +163,7 @@ class FastEngine:
         self.weak_exchange = weak_exchange
         self._weak_bound_now = 0.0
         self._weak_chunks_now = 0
+        self._estimate_now = {}
         self._pieces: dict = {}
         self._cache: dict = {}
 
@@ -188,6 +205,7 @@ class FastEngine:
         self._largest_now = 0
         with one_thread():
             prep = self._prepare(model, points)
+            self._check_plan(model, prep, points, 8 * 4 ** n * max(width, 1) * 2)
             for lo in range(0, len(points), chunk):
                 idx = list(range(lo, min(len(points), lo + chunk)))
                 state = self._initial(n, len(idx), process, rho0)
@@ -214,6 +232,7 @@ class FastEngine:
         st["neglected_exchange_rad"] = self._neglected_now
         st["weak_exchange_bound"] = self._weak_bound_now
         st["weak_exchange_chunks"] = self._weak_chunks_now
+        st["estimate"] = self._estimate_now
         st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         st["wall_s"] = time.perf_counter() - t0
         return Evolution(S, rho, traces, st, R_sum, r_sum)
@@ -437,6 +456,92 @@ class FastEngine:
         self._pieces[key] = got
         return got
 
+    # -------------------------------------------------------------- plan
+
+    def _check_plan(self, model: Model, prep: dict, points, state_bytes: int) -> None:
+        """Time and memory of every exact cluster before any work: its
+        dimension k = 4^c, the distinct values V of its own noise variables,
+        the distinct sub-steps R of each segment and its generators T.  The
+        least memory a cluster needs is its generators, the static parts and
+        one batch of exponentials of every variant (8·k²·(T + 2 + 7·V)
+        bytes; larger batches are cut to fit); the time is about
+        24·V·R·k³ flops for the exponentials (a 12-term series) and 2^(7c)
+        for building the generators.  A cluster over the limit is refused
+        with what forms it (ClusterTooLarge); with no limit only the estimate
+        is recorded (statistics ``estimate``)."""
+        limit = self.memory_limit
+        seen: dict = {}
+        bounds = prep["bounds"]
+        for s, e in zip(bounds[:-1], bounds[1:]):
+            if e <= s:
+                continue
+            exact, _ = self._segment_split(model, prep, s)
+            for dots, pairs in clusters(model.n, [(model.pairs[i].a, model.pairs[i].b)
+                                                  for i in exact], exact):
+                c = len(dots)
+                if c == 1:
+                    continue
+                rows = self._distinct_rows(model, prep, dots, pairs, s, e)
+                got = seen.get((dots, pairs))
+                if got is None:
+                    keys = {(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in dots),
+                             tuple(pt.dv[j] if pt.dv else 0.0 for j in pairs),
+                             tuple(pt.modes) if pt.modes else ()) for pt in points}
+                    V = len(keys)
+                    T = (2 * sum(q in prep["drive"] for q in dots) + 3 * len(pairs)
+                         + sum(any(p.dot == q for p in model.profiles) for q in dots))
+                    k = 4 ** c
+                    got = seen[(dots, pairs)] = {"dots": dots, "pairs": pairs, "dimension": k,
+                                                 "variants": V, "generators": T, "rows": 0,
+                                                 "bytes": 8 * k * k * (T + 2 + 7 * V),
+                                                 "start": s, "end": e}
+                got["rows"] += rows
+                if limit and got["bytes"] + state_bytes > limit:
+                    raise self._too_large(model, prep, got, limit, state_bytes)
+        est = {"clusters": len(seen), "bytes": state_bytes, "flops": 0.0, "largest": None}
+        for got in seen.values():
+            k, c = got["dimension"], len(got["dots"])
+            flops = 24.0 * got["variants"] * got["rows"] * k ** 3 + 2.0 ** (7 * c)
+            est["flops"] += flops
+            if est["largest"] is None or got["bytes"] > est["largest"]["bytes"]:
+                est["largest"] = {"dots": [model.dots[q].name for q in got["dots"]],
+                                  "dimension": k, "bytes": got["bytes"],
+                                  "distinct_substeps": got["rows"],
+                                  "variants": got["variants"]}
+            est["bytes"] = max(est["bytes"], got["bytes"] + state_bytes)
+        est["seconds"] = est["flops"] / 1e9          # about 1 Gflop/s on one thread
+        self._estimate_now = est
+
+    def _distinct_rows(self, model, prep, dots, pairs, s: int, e: int) -> int:
+        """Sub-steps of [s, e) whose drive or exchange differs from the one before."""
+        if e - s < 2:
+            return 1
+        change = np.zeros(e - s - 1, dtype=bool)
+        for q in dots:
+            if q in prep["drive"]:
+                for arr in prep["drive"][q]:
+                    change |= arr[s + 1:e] != arr[s:e - 1]
+        for j in pairs:
+            for J, Fr, Fi in prep["pairs"][j].values():
+                change |= (J[s + 1:e] != J[s:e - 1]) | (Fr[s + 1:e] != Fr[s:e - 1])
+        return 1 + int(change.sum())
+
+    def _too_large(self, model, prep, got, limit: int, state_bytes: int) -> "ClusterTooLarge":
+        pairs = []
+        for j in got["pairs"]:
+            p = model.pairs[j]
+            J = np.max(np.abs(np.stack([c[0] for c in prep["pairs"][j].values()])), axis=0)
+            seg = J[got["start"]:got["end"]]
+            at = got["start"] + int(np.argmin(seg))
+            pairs.append({"name": p.name, "j_min": float(seg.min()), "j_max": float(seg.max()),
+                          "volts": float(np.mean(p.volts[at]))})
+        return ClusterTooLarge({
+            "dots": [model.dots[q].name for q in got["dots"]], "pairs": pairs,
+            "dimension": got["dimension"], "variants": got["variants"],
+            "bytes": got["bytes"] + state_bytes, "limit": limit,
+            "start_s": model.t0 + got["start"] * model.h,
+            "end_s": model.t0 + got["end"] * model.h})
+
     def _segment_split(self, model: Model, prep: dict, s: int):
         """The pairs of the segment starting at sub-step ``s`` taken exactly,
         and the weak ones with their dots ((pairs, dots) or None).  A weak
@@ -587,20 +692,30 @@ class FastEngine:
         lengths = np.diff(np.append(starts, n))
         rows = C[:, starts]                                   # (V, R, T)
         R = len(starts)
-        L = np.broadcast_to(static[:, None], (V, R, k, k)).copy()
-        if T:
-            L += np.einsum("vrt,tij->vrij", rows, G)
-        if theta is None:
-            # no frame: a run of n equal sub-steps is one exponential exp(L·h·n)
-            mats = _expm(L * (h * lengths)[None, :, None, None])
-        else:
+        if theta is not None:
             step = {q: float(theta[q][1] - theta[q][0]) if n > 1 else 0.0 for q in pc.dots}
             Dinv = self._rz(pc, {q: -v for q, v in step.items()})
-            mats = np.matmul(Dinv, _expm(L * h))
-            for i in np.flatnonzero(lengths > 1):
-                mats[:, i] = np.linalg.matrix_power(mats[:, i], int(lengths[i]))
+        # exponentials in batches of at most max_batch_bytes (about six arrays of
+        # the batch's size are alive at once), at least one sub-step per batch
+        per_row = 6 * 8 * V * k * k
+        block = max(1, int(self.max_batch_bytes // per_row))
+        got = None
+        for lo in range(0, R, block):
+            hi = min(R, lo + block)
+            L = np.broadcast_to(static[:, None], (V, hi - lo, k, k)).copy()
+            if T:
+                L += np.einsum("vrt,tij->vrij", rows[:, lo:hi], G)
+            if theta is None:
+                # no frame: a run of n equal sub-steps is one exponential exp(L·h·n)
+                mats = _expm(L * (h * lengths[lo:hi])[None, :, None, None])
+            else:
+                mats = np.matmul(Dinv, _expm(L * h))
+                for i in np.flatnonzero(lengths[lo:hi] > 1):
+                    mats[:, i] = np.linalg.matrix_power(mats[:, i], int(lengths[lo + i]))
+            del L
+            part = ordered_product(mats)           # later sub-steps on the left
+            got = part if got is None else np.matmul(part, got)
         self.exponentials += V * R
-        got = ordered_product(mats)                # later sub-steps on the left
         if theta is not None:
             last = {q: float(v[-1]) + step[q] for q, v in theta.items()}
             first = {q: -float(v[0]) for q, v in theta.items()}

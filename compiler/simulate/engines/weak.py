@@ -81,20 +81,6 @@ def pair_generator(terms, cJ: float, cFr: float, cFi: float) -> np.ndarray:
     return sum(c[k] * f * np.kron(ONE_DOT[a], ONE_DOT[b]) for k, f, a, b in terms)
 
 
-def prefix_scan(M: np.ndarray) -> np.ndarray:
-    """Inclusive ordered prefix products along axis −3: out[j] = M[j]…M[0]
-    (later on the left), in log₂ steps (Hillis–Steele)."""
-    out = M.copy()
-    n = out.shape[-3]
-    d = 1
-    while d < n:
-        new = out.copy()
-        new[..., d:, :, :] = out[..., d:, :, :] @ out[..., :-d, :, :]
-        out = new
-        d *= 2
-    return out
-
-
 def kron_swap(Z: np.ndarray) -> np.ndarray:
     """Σ vec(A)·vec(B)ᵀ (rows (i_a, j_a), columns (i_b, j_b)) -> Σ A ⊗ B."""
     lead = Z.shape[:-2]
