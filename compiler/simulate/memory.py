@@ -25,7 +25,7 @@ def too_large_error(info: dict) -> SimulationError:
         f"the simulation would need about {human(info['bytes'])} of memory, above the limit of "
         f"{human(info['limit'])}: dots {', '.join(dots)} form one cluster of {len(dots)} dots "
         f"(channel {k}×{k}, {human(8 * k * k)} per matrix, {info['variants']} noise "
-        f"variants) from {format_quantity(info['start_s'], TIME)} to "
+        f"variant{'s' * (info['variants'] != 1)}) from {format_quantity(info['start_s'], TIME)} to "
         f"{format_quantity(info['end_s'], TIME)}, because the exchange of " + ", ".join(why)
         + (" is" if len(why) == 1 else " are") + " too strong to drop or to treat as weak at "
         "the requested accuracy; nothing was simulated",

@@ -1,0 +1,218 @@
+"""Weak residual exchange in the fast engine (compiler/simulate/engines/weak.py):
+the interaction-picture treatment against the exact one (exchange kept on),
+its building blocks, and the refusal of a cluster that cannot fit in memory."""
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.integrate import quad_vec
+from scipy.linalg import expm
+
+from compiler import compile_run, load
+from compiler.cli import main
+from compiler.simulate import fidelity as F
+from compiler.simulate.build import build_model
+from compiler.simulate.engines import ClusterTooLarge, FastEngine, ReferenceEngine
+from compiler.simulate.engines import weak as W
+from compiler.simulate.model import NoisePoint, noise_points
+from compiler.simulate.run import end_sample
+
+sys.path.insert(0, str(Path(__file__).parent / "benchmarks"))
+from workloads import write_case  # noqa: E402
+
+# idle barrier voltages of the benchmark line (J = 150 MHz·e^{V/20 mV}, invented device)
+IDLE = {"1 Hz": "-376 mV", "1 kHz": "-238 mV", "1 MHz": "-100 mV"}
+THREE_PI = "rot D0 x 180 deg\nrot D1 x 180 deg\nrot D2 x 180 deg\n"
+
+
+def _case(tmp_path, n, idle, body, *, long_range=False):
+    seq = write_case(tmp_path, n, 3, long_range=long_range, charge_noise="10 uV")
+    dev = tmp_path / "device.yaml"
+    dev.write_text(dev.read_text().replace("idle_voltage: -600 mV", f"idle_voltage: {idle}"))
+    dots = " ".join(f"D{k}" for k in range(n))
+    seq.write_text(f'device "device.yaml"\nprepare {dots} down\n{body}read {dots}\n')
+    return seq
+
+
+def _model(seq):
+    c = load(seq)
+    cr = compile_run(c.expanded.runs[0], c.device)
+    return c, cr, build_model(cr.waveforms, cr.device, m=2, stop=end_sample(cr.timeline))
+
+
+def _fidelity(ev, cr, c):
+    dots = tuple(c.device.dots)
+    U = F.ideal_unitary([s for s in c.expanded.runs[0].steps if s.kind != "read"], dots)
+    frames = [cr.timeline.frames[q] for q in dots]
+    return F.process_fidelity(F.to_qubit_frames(ev.superop, [0.0] * len(dots), frames), U)
+
+
+# ------------------------------------------------------------------ building blocks
+
+@pytest.mark.parametrize("swapped", [False, True])
+def test_pair_generator_splits_into_one_dot_maps(swapped):
+    # −i[A⊗B, ρ] = ½(−i[A, ·]⊗{B, ·} + {A, ·}⊗−i[B, ·]) (algebra: common practice,
+    # no source); the sum of the terms is the engine's own pair generator
+    from compiler.simulate.engines import pauli as PL
+    Z = PL.SIGMA[3]
+    sp = np.array([[0, 1], [0, 0]], complex)
+    sm = sp.T.copy()
+    a, b = (1, 0) if swapped else (0, 1)              # positions of the pair's first and second dot
+
+    def at(o, k):
+        return np.kron(o, np.eye(2)) if k == 0 else np.kron(np.eye(2), o)
+    spm, smp = at(sp, a) @ at(sm, b), at(sm, a) @ at(sp, b)
+    ref = (PL.hamiltonian_generator(at(Z, a) @ at(Z, b) / 4),
+           PL.hamiltonian_generator((spm + smp) / 2),
+           PL.hamiltonian_generator(1j * (spm - smp) / 2))
+    terms = W.kron_terms(swapped)
+    for k, G in enumerate(ref):
+        c = np.zeros(3)
+        c[k] = 1.0
+        assert np.allclose(W.pair_generator(terms, *c), G, atol=1e-12)
+
+
+def test_van_loan_integral_against_quadrature():
+    # ∫_0^τ e^{−Au}·B·e^{Au} du from the block exponential (Van Loan, IEEE Trans.
+    # Autom. Control 23, 395 (1978)) against adaptive quadrature
+    rng = np.random.default_rng(4)
+    A = rng.standard_normal((16, 16))
+    B = rng.standard_normal((16, 16))
+    tau = 0.3
+    got = W.van_loan(A[None], B[None], np.array([tau]))[0]
+    ref, _ = quad_vec(lambda u: expm(-A * u) @ B @ expm(A * u), 0, tau, epsabs=1e-13)
+    assert np.max(np.abs(got - ref)) < 1e-10
+
+
+def test_chunks_respect_size_and_length():
+    x = np.full(100, 0.1)
+    st = W.chunk_cuts(x, 0.35, 50)
+    sums = np.add.reduceat(x, st)
+    assert st[0] == 0 and np.all(sums <= 0.35 + 1e-12) and len(st) == 34
+    assert np.all(np.diff(np.append(st, 100)) <= 50)
+    assert list(W.chunk_cuts(np.full(10, 1e-9), 1.0, 4)) == [0, 4, 8]
+
+
+# ------------------------------------------------------------------ against the exact treatment
+
+@pytest.mark.parametrize("label, nodes", [("1 Hz", 1), ("1 kHz", 3)])
+def test_weak_idle_exchange_costs_one_dot_clusters_within_the_bound(tmp_path, label, nodes):
+    # three dots, three π bursts, idle barriers leaving J = 1 Hz or 1 kHz: too much
+    # to drop within 1e-6, so before the weak treatment the dots formed one exact
+    # three-dot cluster for the whole run.  Now every dot keeps its own channel,
+    # and the process fidelity moves from the exact treatment (exchange kept on)
+    # by less than the recorded bound, itself within the accuracy 1e-6 (bound:
+    # Magnus remainder e^y − 1 − y per chunk and |ΔF| ≤ ½‖ΔE‖◇, common practice,
+    # no source)
+    c, cr, model = _model(_case(tmp_path, 3, IDLE[label], THREE_PI))
+    pts = noise_points(model, nodes)
+    a = FastEngine().average(model, pts, process=True)
+    b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 1 and b.stats["largest_cluster"] == 3
+    assert a.stats["weak_exchange_chunks"] >= 1
+    bound = a.stats["exchange_error_bound"]
+    assert 0 < bound <= 1e-6
+    fa, fb = _fidelity(a, cr, c), _fidelity(b, cr, c)
+    assert abs(fa - fb) <= bound + 1e-12
+    # the channel itself within the diamond-norm bound (elements of the superoperator)
+    assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
+
+
+def test_exchange_pulses_waits_and_traces_with_weak_neighbours(tmp_path):
+    # √SWAPs between neighbours whose other barrier idles at 1 kHz (during the
+    # pulse the weak neighbour joins the exact cluster, outside it is weak) and
+    # a wait (runs of equal sub-steps: the block-exponential integral): the
+    # state and the population traces against the exact treatment, within the bound
+    body = ("rot D0 x 90 deg\nsqrtswap D0 D1\nwait 200 ns\nrot D2 y 90 deg\n"
+            "sqrtswap D1 D2\nrot D1 x 180 deg\n")
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], body))
+    pt = noise_points(model, 3)[2]
+    pts = [NoisePoint(pt.detuning, pt.dv, 1.0, pt.modes)]
+    rng = np.random.default_rng(2)
+    v = rng.standard_normal(8) + 1j * rng.standard_normal(8)
+    rho0 = np.outer(v, v.conj()) / np.vdot(v, v).real
+    a = FastEngine().average(model, pts, rho0=rho0, trace_points=15)
+    b = FastEngine(exchange_budget=0.0).average(model, pts, rho0=rho0, trace_points=15)
+    bound = a.stats["exchange_error_bound"]
+    assert a.stats["weak_exchange_chunks"] > 1 and 0 < bound <= 1e-6
+    assert a.stats["largest_cluster"] <= b.stats["largest_cluster"] == 3
+    assert np.max(np.abs(a.rho - b.rho)) <= 2 * bound
+    for q in range(3):
+        assert np.max(np.abs(a.traces[q] - b.traces[q])) <= 2 * bound
+
+
+def test_zero_accuracy_keeps_everything_exact(tmp_path):
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], THREE_PI))
+    pts = noise_points(model, 1)
+    a = FastEngine(exchange_accuracy=0.0).average(model, pts, process=True)
+    b = FastEngine(weak_exchange=False, exchange_budget=0.0).average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 3 and a.stats["exchange_error_bound"] == 0
+    assert np.array_equal(a.superop, b.superop)
+
+
+def test_batched_exponentials_in_small_batches_are_the_same(tmp_path):
+    # the exact three-dot cluster with its exponentials cut into batches of one
+    # sub-step (a tiny max_batch_bytes) gives the same channel
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], THREE_PI))
+    pts = noise_points(model, 1)
+    a = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
+    b = FastEngine(exchange_budget=0.0, max_batch_bytes=1).average(model, pts, process=True)
+    assert np.max(np.abs(a.superop - b.superop)) < 1e-12
+
+
+@pytest.mark.slow
+def test_weak_exchange_against_mesolve(tmp_path):
+    # two dots, a π burst and a wait with 1 kHz idle exchange: the fast engine's
+    # weak treatment against qutip's mesolve on the same piecewise-constant model
+    # (rtol 1e-11): the state within the bound plus the reference's 1e-7
+    c, cr, model = _model(_case(tmp_path, 2, IDLE["1 kHz"], "rot D0 x 180 deg\nwait 100 ns\n"))
+    pts = noise_points(model, 1)
+    rho0 = np.zeros((4, 4), complex)
+    rho0[3, 3] = 1
+    a = FastEngine().average(model, pts, rho0=rho0)
+    r = ReferenceEngine(rtol=1e-11, atol=1e-13).average(model, pts, rho0=rho0)
+    assert a.stats["weak_exchange_chunks"] >= 1
+    assert np.max(np.abs(a.rho - r.rho)) <= 2 * a.stats["exchange_error_bound"] + 1e-7
+
+
+# ------------------------------------------------------------------ memory: refuse before running
+
+def test_a_cluster_over_the_memory_limit_is_refused_before_any_work(tmp_path):
+    # five dots whose barriers idle at 1 MHz: one five-dot cluster (1024 × 1024
+    # channels) the whole run; with a 100 MB limit the engine refuses at once
+    c, cr, model = _model(_case(tmp_path, 5, IDLE["1 MHz"], "rot D0 x 180 deg\n"))
+    eng = FastEngine(memory_limit=100 * 10 ** 6)
+    with pytest.raises(ClusterTooLarge) as e:
+        eng.average(model, noise_points(model, 1), rho0=np.eye(32) / 32)
+    info = e.value.info
+    assert info["dots"] == ["D0", "D1", "D2", "D3", "D4"] and info["dimension"] == 1024
+    assert info["bytes"] > info["limit"] and len(info["pairs"]) == 4
+    assert info["pairs"][0]["j_min"] == pytest.approx(1.011e6, rel=0.01)
+    assert eng.exponentials == 0
+    # without a limit the estimate is recorded and the run goes ahead
+    assert FastEngine()._estimate_now == {}
+
+
+@pytest.mark.parametrize("command", ["simulate", "run"])
+def test_cli_refuses_a_too_large_cluster_naming_it(tmp_path, command, capsys):
+    seq = _case(tmp_path, 5, IDLE["1 MHz"], "rot D0 x 180 deg\n")
+    out = tmp_path / "out"
+    code = main([command, str(seq), "-o", str(out), "--memory-limit", "200MB", "--nodes", "1"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert not out.exists()                                 # nothing written
+    for part in ("dots D0, D1, D2, D3, D4 form one cluster of 5 dots", "1024×1024",
+                 "D0-D1 (J = 1.01", "MHz at -100 mV on its barrier", "from 0 s to",
+                 "idle_voltage", "--exchange-accuracy", "--nodes", "--memory-limit"):
+        assert part in err, part
+    assert "shorten" not in err.lower()
+
+
+def test_exchange_accuracy_option_is_checked(tmp_path, capsys):
+    seq = _case(tmp_path, 3, IDLE["1 Hz"], THREE_PI)
+    code = main(["simulate", str(seq), "-o", str(tmp_path / "o"), "--exchange-accuracy", "0.5"])
+    assert code == 2
+    assert "exchange accuracy 0.5 must be from 0" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
