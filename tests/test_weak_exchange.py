@@ -162,7 +162,6 @@ def test_batched_exponentials_in_small_batches_are_the_same(tmp_path):
     assert np.max(np.abs(a.superop - b.superop)) < 1e-12
 
 
-@pytest.mark.slow
 def test_weak_exchange_against_mesolve(tmp_path):
     # two dots, a π burst and a wait with 1 kHz idle exchange: the fast engine's
     # weak treatment against qutip's mesolve on the same piecewise-constant model

@@ -367,7 +367,7 @@ def _budget(result: SimulationResult, i: int, look: _Look, top: int | None) -> S
                   if run.budget_floor < 0 else ""))
         notes.append(f"numerical error of the floor and of each line: about {fmt_sci(num)} "
                      f"(sub-step model, from the floor run with twice the sub-steps, plus the "
-                     f"bound on dropped weak exchange){state}")
+                     f"bound on residual exchange, dropped or treated as weak){state}")
     if any(b.value < 0 for b in rows):
         notes.append("a negative contribution means the run is better with that source on "
                      "(or, for the remainder, that sources partly cancel)")

@@ -495,7 +495,8 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
     crun_floor, sw_floor = jobs[-1]
     fine = evaluate_whole(crun_floor, sw_floor, dataclasses.replace(opts, substeps=2 * opts.substeps),
                           engine, nodes=total.nodes, correction=correction)
-    numerical = 4 / 3 * abs(fine.infidelity - infid[-1]) + 1e-6 * (opts.engine == "fast")
+    numerical = (4 / 3 * abs(fine.infidelity - infid[-1])
+                 + opts.exchange_accuracy * (opts.engine == "fast"))
     return tuple(lines), floor_infidelity, remainder, numerical
 
 

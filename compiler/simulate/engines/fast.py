@@ -15,16 +15,26 @@ Method (docs/simulate.md, "The fast engine"):
    connected groups of dots joined by pairs that are on; a dot that only
    idles or is only driven is a cluster of one.  Drive never joins dots (each
    dot sees the shared line through its own rotating frame), so clusters come
-   from exchange alone.  A closed barrier still leaves a small exchange: it is
-   dropped on the sub-steps where it is weakest, weakest first, while the
-   phase φ = 2π∫J dt summed over every dropped sub-step stays within the
-   budget tied to the requested accuracy ``exchange_accuracy`` (default 1e-6
-   in average gate fidelity): ‖J·S1·S2‖ = ¾J, so dropping it changes the
-   channel by at most 2·¾·φ in diamond norm and the average gate fidelity by
-   at most ¾·φ (Duhamel; |ΔF| ≤ ½‖ΔE‖◇), and the budget is φ ≤ (4/3)·accuracy.
-   The dropped phase and that bound are recorded in the statistics
-   (``neglected_exchange_rad``, ``exchange_error_bound``).  What is over the
-   budget stays on (exact, slower: the pair's dots form one cluster).
+   from exchange alone.  A closed barrier still leaves a small exchange,
+   treated within the accuracy ``exchange_accuracy`` (default 1e-6 in
+   average gate fidelity; 0 keeps it on, exact):
+   (a) *dropped* on the sub-steps where it is weakest, weakest first, while
+   the phase φ = 2π∫J dt summed over every dropped sub-step stays within
+   (4/3)·accuracy: ‖J·S1·S2‖ = ¾J, so dropping it changes the channel by at
+   most 2·¾·φ in diamond norm and the average gate fidelity by at most ¾·φ
+   (Duhamel; |ΔF| ≤ ½‖ΔE‖◇);
+   (b) when more is left than that (idle barriers at 1 Hz…1 kHz), the
+   accuracy is split in halves, one for dropping, one for the *weak*
+   treatment of :mod:`.weak`: the pair's dots keep their own exact channels
+   and the exchange enters per chunk to first order in the interaction
+   picture (error second order per chunk, bound Σ(e^y − 1 − y); module notes
+   there);
+   (c) what is neither stays on exactly (the pair's dots form one cluster).
+   The dropped phase and the bounds are recorded in the statistics
+   (``neglected_exchange_rad``, ``weak_exchange_bound``,
+   ``exchange_error_bound`` = ¾·φ + weak bound).  Before any work every exact
+   cluster's memory and time are estimated (statistics ``estimate``); one
+   over ``memory_limit`` raises :class:`ClusterTooLarge`.
 3. Each cluster's channel over a segment is a small real Pauli transfer
    matrix (4^c × 4^c for c dots): runs of identical sub-steps take a single
    exponential exp(L·h·n) (or powers by squaring); identical contents across
