@@ -51,6 +51,12 @@ _SIG = {"x": PL.SIGMA[1], "y": PL.SIGMA[2], "z": PL.SIGMA[3]}
 # one-dot maps: −i·2π[σ, ·] (0..2) and {σ, ·} (3..5) for σ = x, y, z
 ONE_DOT = np.stack([PL.hamiltonian_generator(_SIG[c]) for c in "xyz"]
                    + [PL.anticommutator_map(_SIG[c]) for c in "xyz"])
+# their entries (two each, in op order): rows, columns, values
+_NZ = [np.argwhere(np.abs(o) > 1e-12) for o in ONE_DOT]
+assert all(len(z) == 2 for z in _NZ)
+_NZ_J = np.array([j for z in _NZ for j, _ in z])
+_NZ_K = np.array([k for z in _NZ for _, k in z])
+_NZ_V = np.array([ONE_DOT[i][j, k] for i, z in enumerate(_NZ) for j, k in z])
 _H = {"x": 0, "y": 1, "z": 2}
 _A = {"x": 3, "y": 4, "z": 5}
 # H_pair = J·ZZ/4 + Re F·(XX + YY)/4 + Im F·(XY − YX)/4 (model.Pair's generators);
@@ -254,8 +260,12 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
         Pn[:, k1] = Pm[q][:, node_src[k1]]
         Pn[:, k2] = Pe[q][:, node_piece[k2]]
         Pi = np.linalg.inv(Pn)
-        T[q] = (Pi[:, :, None] @ ONE_DOT[None, None] @ Pn[:, :, None]).reshape(
-            Pn.shape[:2] + (6, 16))
+        # every one-dot map has two entries O[j, k]: P⁻¹·O·P = Σ O[j, k]·P⁻¹[:, j] ⊗ P[k, :]
+        sh = Pn.shape[:2] + (6, 2, 4)
+        A_ = (Pi[:, :, :, _NZ_J] * _NZ_V).transpose(0, 1, 3, 2).reshape(sh)   # columns of P⁻¹
+        B_ = Pn[:, :, _NZ_K, :].reshape(sh)                                   # rows of P
+        T[q] = (A_[..., 0, :, None] * B_[..., 0, None, :]
+                + A_[..., 1, :, None] * B_[..., 1, None, :]).reshape(Pn.shape[:2] + (6, 16))
     out_pairs = []
     ncs = len(cstart)
     nn = len(node_piece)
