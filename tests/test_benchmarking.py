@@ -20,6 +20,7 @@ from compiler.simulate import fidelity as F
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_PAIR = ROOT / "sequences" / "devices" / "demo_pair.yaml"
 DEMO_SINGLE = ROOT / "sequences" / "devices" / "demo_single.yaml"
+SPIN_HALF_PAIR = ROOT / "tests" / "data" / "spin_half_pair.yaml"
 
 
 def _equal_mod_phase(u, v, tol=1e-9):
@@ -284,7 +285,9 @@ RB_KEYS = {"p", "p_interval", "error_per_clifford", "error_per_clifford_interval
 
 
 def _rb_args(out, *extra):
-    return ["rb", str(DEMO_PAIR), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
+    # the spin-1/2 pair: A with B as a spectator on two-level dots (seconds; the
+    # four-level demo pair takes minutes, tests/benchmarks/slow_tests.py)
+    return ["rb", str(SPIN_HALF_PAIR), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
             "--seed", "4", "--workers", "1", "--quiet", "--resamples", "20", "-o", str(out),
             *extra]
 
@@ -396,11 +399,15 @@ def test_rb_on_a_nearly_ideal_device_gives_r_below_1e_6(tmp_path, capsys):
     assert not any("slow noise" in r for r in data["comparison"]["possible_reasons"])
 
 
-def test_two_qubit_rb_command(tmp_path):
+@pytest.mark.parametrize("device", [
+    SPIN_HALF_PAIR,
+    # the four-level demo pair: the same, minutes (tests/benchmarks/slow_tests.py)
+    pytest.param(DEMO_PAIR, marks=pytest.mark.slow)], ids=["spin_half", "four_level"])
+def test_two_qubit_rb_command(tmp_path, device):
     out = tmp_path / "rb2"
     # (the interleaved files are checked without simulating them; simulated
     # interleaving is in test_rb_command_writes_results_and_checkable_sequences)
-    assert main(["rb", str(DEMO_PAIR), "--qubits", "A", "B", "--lengths", "1,2,3",
+    assert main(["rb", str(device), "--qubits", "A", "B", "--lengths", "1,2,3",
                  "--sequences", "2", "--seed", "2", "--workers", "1", "--quiet",
                  "--resamples", "20", "-o", str(out)]) == 0
     data = json.loads((out / "rb.json").read_text())
