@@ -549,8 +549,7 @@ def cmd_sweep(args) -> int:
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
                       averaging_tolerance=args.averaging_tolerance,
                       fidelity_scope="register" if args.whole_register else "program",
-                      shots=args.shots, exchange_accuracy=args.exchange_accuracy,
-                      memory_limit=_memory_limit(args))
+                      shots=args.shots)
     if not cluster and workers > 1:
         pool_context()               # the workers' server imports the package while we plan
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
