@@ -219,8 +219,12 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, dots, points, idx):
     for q in dots:
         Lp = L[q][:, starts]                                           # (V, npc, 4, 4)
         # exponentials only where this dot's own generator or the length changes
-        Mp = _expm_runs(Lp, h * lens)
+        # (a single sub-step from its half: exp(Lh) = exp(Lh/2)²)
         Mh = _expm_runs(Lp[:, single], np.full(int(single.sum()), h / 2))
+        Mp = np.empty_like(Lp)
+        Mp[:, single] = Mh @ Mh
+        if not single.all():
+            Mp[:, ~single] = _expm_runs(Lp[:, ~single], h * lens[~single])
         # prefix from the chunk's start: scan with resets (identity before a chunk's start)
         pref = _chunk_prefix(Mp, first)                                # after each piece
         before = np.empty_like(pref)
