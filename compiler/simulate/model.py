@@ -269,6 +269,39 @@ def gauss_hermite(n: int) -> tuple[np.ndarray, np.ndarray]:
     return math.sqrt(2) * t, w / math.sqrt(math.pi)
 
 
+TRAPEZOID_FROM = 17     # rules of this many nodes or more are equispaced (normal_rule)
+TRAPEZOID_HALF_WIDTH = 5.0
+# weight of N(0, 1) beyond ±TRAPEZOID_HALF_WIDTH, cut off by those rules: a fidelity moves by
+# at most twice it (added to the stated averaging error of an equispaced rule)
+TRAPEZOID_TAIL = math.erfc(TRAPEZOID_HALF_WIDTH / math.sqrt(2))
+
+
+def normal_rule(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes and weights for E[f(X)], X ~ N(0, 1), with ``n`` nodes.
+
+    Below :data:`TRAPEZOID_FROM` nodes: Gauss–Hermite (:func:`gauss_hermite`),
+    the best rule for smooth integrands.  From there on: the trapezoidal rule
+    on [−5, 5] with weights ∝ exp(−x²/2) (normalised).  A run of free
+    precession t under a quasi-static detuning of rms σ (Hz) makes the
+    integrand oscillate as e^{i·a·x}, a = 2π·σ·t; Gauss–Hermite needs about
+    e·a²/2 nodes for it, the trapezoidal rule only 2π/Δ ≳ a + 4.3 (spacing Δ:
+    its error is the aliased term e^{−(2π/Δ − a)²/2}, by Poisson summation,
+    plus the cut tails, :data:`TRAPEZOID_TAIL` = 5.7e-7 of the weight, which
+    moves a fidelity by at most twice that and is added to the stated
+    averaging error), i.e. about 1.6·(a + 4.3) nodes: linear in the free
+    time instead of quadratic (17 nodes: a ≤ 5.8; 33: a ≤ 15.8; 65: a ≤ 36;
+    129: a ≤ 76).  Measured on the
+    GaAs Rabi example (a ≈ 15): 33 trapezoidal nodes agree with 129 to 1e-6,
+    while 81 Gauss–Hermite nodes are still 0.1 off.  The rules of 2^k + 1
+    nodes are nested, so a refined rule reuses the channels of the coarser
+    one (the engines' caches)."""
+    if n < TRAPEZOID_FROM:
+        return gauss_hermite(n)
+    x = np.linspace(-TRAPEZOID_HALF_WIDTH, TRAPEZOID_HALF_WIDTH, n)
+    w = np.exp(-x ** 2 / 2)
+    return x, w / w.sum()
+
+
 @dataclass(frozen=True)
 class NoisePoint:
     detuning: tuple[float, ...]          # Hz per dot
@@ -310,7 +343,7 @@ def _mode_points(model: Model) -> list[NoisePoint]:
 
 
 def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> list[NoisePoint]:
-    x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
+    x, w = normal_rule(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
     vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms)
              for v in model.noise if v.rms > 0]
     nd, npair = model.n, len(model.pairs)

@@ -29,14 +29,15 @@ from ..threads import one_thread
 from . import fidelity as F
 from .build import build_model
 from .engines import ENGINES, make_engine
-from .model import dot_operator, embed, noise_points
+from .model import TRAPEZOID_FROM, TRAPEZOID_TAIL, dot_operator, embed, noise_points
 from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
 from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
 
 MAX_PROCESS_QUBITS = 5
 MAX_SHOTS = 10 ** 12
-MAX_NODES = 41                    # Gauss–Hermite nodes per variable at most (refinement stops there)
+MAX_NODES = 41                    # quadrature nodes per variable to start from, at most
+MAX_REFINED_NODES = 129           # the refinement stops there (model.normal_rule: nested rules)
 
 
 @dataclass(frozen=True)
@@ -137,12 +138,86 @@ def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, produc
     fidelities, whose errors are small)."""
     if model.profiles and process and correction is not None:
         const = [p for p in pts if not p.modes]
-        ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
+        ev = average_constant(engine, model, const, rho0=rho0, traces=traces)
         return _corrected(ev, correction, rho0)
     if model.profiles and process and product:
         return combine_modes(engine, model, pts, rho0=rho0, traces=traces)
+    if process and product:
+        ev = average_constant(engine, model, pts, rho0=rho0, traces=traces)
+        return ev.superop, ev.rho, ev.traces
     ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
+
+
+@dataclass(frozen=True)
+class _Averaged:
+    superop: np.ndarray
+    rho: np.ndarray | None
+    traces: dict
+
+
+CONDITION_LIMIT = 1e8     # R₀ worse conditioned than this: the sum is kept (see average_constant)
+
+
+def _one_at_a_time(pts):
+    """(centre point, [points of variable j, ...]) when ``pts`` is the
+    one-variable-at-a-time rule of two or more variables (model.noise_points,
+    "additive"), else None."""
+    centre, groups = None, {}
+    for p in pts:
+        if p.modes and any(p.modes):
+            return None
+        nz = [i for i, x in enumerate(tuple(p.detuning) + tuple(p.dv)) if x != 0.0]
+        if not nz:
+            if centre is not None:
+                return None
+            centre = p
+        elif len(nz) == 1:
+            groups.setdefault(nz[0], []).append(p)
+        else:
+            return None
+    if centre is None or len(groups) < 2:
+        return None
+    return centre, [groups[k] for k in sorted(groups)]
+
+
+def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
+    """The whole-run channel averaged over the quasi-static variables.
+
+    For the one-variable-at-a-time rule the per-variable averages are
+    combined as a product of channel corrections, S = R₀·Π_j R₀⁻¹·R_j (R₀ the
+    run at the centre, R_j the average over variable j alone, in the order
+    of the model's variables), not as the sum R₀ + Σ_j (R_j − R₀).  Both are
+    exact to second order in the noise; the product is also exact whenever
+    the corrections commute (independent dephasing of different dots, or
+    of one dot's coherences), where the sum makes a coherence 1 − Σ(1 − c_j)
+    instead of Π c_j and goes negative once several dots are dephased (the
+    ribbon example's whole-run fidelity came out −0.03 with the sum).
+    Where R₀ is ill conditioned (cond > :data:`CONDITION_LIMIT`: relaxation
+    that empties levels within the run) the sum is kept.  Other rules (the
+    product grid, one variable): the weighted sum."""
+    split = _one_at_a_time(pts)
+    if split is not None:
+        centre, groups = split
+        ev0 = engine.average(model, [dataclasses.replace(centre, weight=1.0)], process=True,
+                             rho0=rho0, trace_points=traces)
+        R0 = ev0.superop
+        if np.linalg.cond(R0) < CONDITION_LIMIT:
+            X = np.eye(len(R0), dtype=R0.dtype)
+            for grp in groups:
+                wsum = sum(p.weight for p in grp)
+                # the variable's own rule: its nodes off zero, and its node at zero
+                # (folded into the centre by noise_points) with the rest of the weight
+                Rj = engine.average(model, grp, process=True).superop + (1.0 - wsum) * R0
+                X = X @ np.linalg.solve(R0, Rj)
+            S = R0 @ X
+            rho = None
+            if rho0 is not None:
+                d = rho0.shape[0]
+                rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
+            return _Averaged(S, rho, ev0.traces)
+    ev = engine.average(model, pts, process=True, rho0=rho0, trace_points=traces)
+    return _Averaged(ev.superop, ev.rho, ev.traces)
 
 
 def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict | None = None):
@@ -157,7 +232,7 @@ def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict
     from scipy.linalg import expm, logm
     const = [p for p in pts if not p.modes]
     centre = [p for p in pts if p.modes and not any(p.modes)]
-    ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
+    ev = average_constant(engine, model, const, rho0=rho0, traces=traces)
     if not centre:
         return ev.superop, ev.rho, ev.traces
     zero = dataclasses.replace(centre[0], weight=1.0)
@@ -223,14 +298,15 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
     With ``nodes`` given, that Gauss–Hermite rule (the budget's what-if
     runs use the rule of the total).  Otherwise the average is refined:
     rules of ``opts.nodes − 2`` and ``opts.nodes`` nodes per variable (then
-    2n − 1 nodes at a time, up to :data:`MAX_NODES`) until the fidelities of
+    2n − 1 nodes at a time, up to :data:`MAX_REFINED_NODES`) until the fidelities of
     two successive rules agree within ``opts.averaging_tolerance``; the
     finer one is kept and their difference is the stated averaging error
     (``Whole.averaging_error``; it exceeds the tolerance only when
-    :data:`MAX_NODES` was reached).  The kind of rule follows the node count
+    :data:`MAX_REFINED_NODES` was reached).  The kind of rule follows the node count
     (:func:`quadrature_rule`: the product grid while it has at most 27
     points, then one variable at a time), so that refining never costs more
-    than 27 points or 2·``MAX_NODES`` per variable; when two successive rules
+    than 27 points or 2·``MAX_REFINED_NODES`` per variable (Gauss–Hermite rules
+    below 17 nodes, equispaced ones from 17: :func:`.model.normal_rule`); when two successive rules
     are of different kinds their difference, the stated error, includes the
     difference of the kinds.
 
@@ -266,12 +342,15 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
                          opts)
         diff = max(abs(fine.f_state - coarse.f_state),
                    abs((fine.f_avg or 0.0) - (coarse.f_avg or 0.0)))
-        if diff <= opts.averaging_tolerance or fine_n >= MAX_NODES:
+        if fine_n >= TRAPEZOID_FROM:
+            diff += 2 * TRAPEZOID_TAIL       # the equispaced rules' cut tails (model.normal_rule)
+        if diff <= opts.averaging_tolerance or fine_n >= MAX_REFINED_NODES:
             return dataclasses.replace(fine, nodes=fine_n, averaging_error=float(diff),
                                        quadrature=rule(fine_n), compared=coarse_n)
-        # nearly doubled each time (5, 9, 17, 33, 41): a handful of rules, and
-        # the stated error compares rules far enough apart to mean something
-        coarse, coarse_n, fine_n = fine, fine_n, min(2 * fine_n - 1, MAX_NODES)
+        # nearly doubled each time (5, 9, 17, 33, 65, 129): a handful of rules, the
+        # stated error compares rules far enough apart to mean something, and from
+        # 17 nodes on the rules are nested (model.normal_rule)
+        coarse, coarse_n, fine_n = fine, fine_n, min(2 * fine_n - 1, MAX_REFINED_NODES)
 
 
 def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: int,
