@@ -209,6 +209,20 @@ class Profile:
 
 
 @dataclass(frozen=True, eq=False)
+class GateBand:
+    """The gate band of a noise spectrum on one target, integrated as a
+    filter-function correction (:mod:`.toggling`; the engines do not read
+    it): ``moves`` "detuning" (a dot's σz/2, spectrum in Hz²/Hz) or
+    "barrier" (a pair's ∂H/∂V on the played barrier pulse, V²/Hz)."""
+    source: str                  # registry key
+    moves: str
+    target: int                  # dot or pair index
+    spectrum: object             # compiler.spectra.Spectrum
+    f_lo: float                  # Hz, band edges
+    f_hi: float
+
+
+@dataclass(frozen=True, eq=False)
 class Model:
     dots: tuple[DotSpec, ...]
     h: float                     # s, sub-step
@@ -222,6 +236,7 @@ class Model:
     # sub-step), ...), each term c·O + c*·O†
     drive_terms: dict = field(default_factory=dict)
     profiles: tuple[Profile, ...] = ()
+    gate_bands: tuple[GateBand, ...] = ()      # read by .toggling, not by the engines
 
     def detuning_profile(self, dot: int, modes) -> np.ndarray | None:
         """Σ x_j·shape_j over the profiles on ``dot`` (Hz per sub-step), or

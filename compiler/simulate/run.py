@@ -27,6 +27,7 @@ from ..runwarnings import merged
 from ..synth.types import CompiledRun, Recompiler
 from ..threads import one_thread
 from . import fidelity as F
+from . import toggling
 from .build import build_model
 from .engines import ENGINES, make_engine
 from .model import dot_operator, embed, noise_points
@@ -129,42 +130,68 @@ def program_steps(tl):
 
 def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, product: bool = True,
              correction=None):
-    """The model averaged over its quadrature points.  Gate-band modes: as a
+    """The model averaged over its quadrature points.  Gate band: as a
     product of channel corrections (``product``, :func:`combine_modes`), or
     with ``correction`` (a superoperator found once for the whole run) applied
-    to the average over the other variables, or else one at a time in the
-    points (the additive rule, exact to second order: the per-step
-    fidelities, whose errors are small)."""
-    if model.profiles and process and correction is not None:
+    to the average over the other variables, or else its modes one at a time
+    in the points (the additive rule, exact to second order: the per-step
+    fidelities of registers too large for :mod:`.toggling`)."""
+    if has_gate_band(model) and process and correction is not None:
         const = [p for p in pts if not p.modes]
         ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
         return _corrected(ev, correction, rho0)
-    if model.profiles and process and product:
+    if has_gate_band(model) and process and product:
         return combine_modes(engine, model, pts, rho0=rho0, traces=traces)
     ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
 
 
+def has_gate_band(model) -> bool:
+    """Whether the model holds a gate band (modes or bands)."""
+    return bool(model.profiles or model.gate_bands)
+
+
 def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict | None = None):
-    """The gate-band modes (points with ``modes``) combined as a product of
-    channel corrections instead of a sum: S = S_c·exp(Σ_j log(R₀⁻¹·R_j)),
-    S_c the average over the constant noise variables, R₀ the run without
-    noise variables, R_j the average over mode j's nodes.  Equal to the
-    additive rule to second order in the mode amplitudes, and exact when the
-    corrections commute (pure dephasing: χ adds over the modes, so decays to
-    1/e come out as exp(−Σχ_j) instead of 1 − Σ(1 − e^{−χ_j})).
-    Returns (superoperator, final ρ from ``rho0``, traces)."""
-    from scipy.linalg import expm, logm
+    """The gate band applied as a channel correction after the average over
+    the constant noise variables: S = S_c·C, S_c the engine's average over the
+    points without ``modes``, C = :func:`gate_correction`.
+    Returns (superoperator, final ρ from ``rho0``, traces); with ``parts``
+    given, C is left in ``parts["correction"]``."""
     const = [p for p in pts if not p.modes]
-    centre = [p for p in pts if p.modes and not any(p.modes)]
     ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
-    if not centre:
+    corr = gate_correction(engine, model)
+    if corr is None:
         return ev.superop, ev.rho, ev.traces
+    if parts is not None:
+        parts["correction"] = corr
+    return _corrected(ev, corr, rho0)
+
+
+def gate_correction(engine, model):
+    """The channel correction of the model's gate band (column-stacked
+    superoperator), or None without one.
+
+    Registers of dimension up to :data:`.toggling.MAX_DIM`: the band's
+    second-order cumulant in the toggling frame of the noise-free control,
+    from its covariance (:func:`.toggling.correction`; one propagation, no
+    engine evaluation).  Larger ones: the engine's modes, combined as a
+    product C = exp(Σ_j log(R₀⁻¹·R_j)), R₀ the run without noise variables,
+    R_j the average over mode j's nodes: equal to the additive rule to second
+    order in the mode amplitudes, and exact when the corrections commute
+    (pure dephasing: χ adds over the modes, so decays to 1/e come out as
+    exp(−Σχ_j) instead of 1 − Σ(1 − e^{−χ_j}))."""
+    if toggling.applies(model):
+        return toggling.correction(model)
+    if not model.profiles:
+        return None
+    from scipy.linalg import expm, logm
+    pts = [p for p in noise_points(model, 1) if p.modes]
+    centre = [p for p in pts if not any(p.modes)]
     zero = dataclasses.replace(centre[0], weight=1.0)
     R0 = engine.average(model, [zero], process=True).superop
     groups: dict = {}
     for p in pts:
-        if p.modes and any(p.modes):
+        if any(p.modes):
             j = next(i for i, x in enumerate(p.modes) if x)
             groups.setdefault(j, []).append(p)
     R0inv = np.linalg.inv(R0)
@@ -176,10 +203,7 @@ def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict
         X = R0inv @ Rj - np.eye(len(R0))
         nx = np.linalg.norm(X, 2)
         gen += (X - X @ X / 2 + X @ X @ X / 3) if nx < 0.05 else logm(np.eye(len(R0)) + X)
-    corr = expm(gen)
-    if parts is not None:
-        parts["correction"] = corr
-    return _corrected(ev, corr, rho0)
+    return expm(gen)
 
 
 def _corrected(ev, corr, rho0):
@@ -251,6 +275,12 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         return quadrature_rule(device, dataclasses.replace(opts, nodes=n))
 
     noisy = any(v.rms > 0 for v in model.noise)
+    if correction is None and has_gate_band(model) and len(device.dots) <= MAX_PROCESS_QUBITS:
+        # the gate band's correction does not depend on the quadrature rule:
+        # found once here, reused by every rule of the refinement
+        correction = gate_correction(engine, model)
+        if parts is not None and correction is not None:
+            parts["correction"] = correction
     if nodes is not None or not noisy or opts.nodes <= 1:
         n = opts.nodes if nodes is None else nodes
         w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts, opts)
@@ -291,11 +321,11 @@ def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: i
     if V is not None:
         rho0 = V @ rho0 @ V.conj().T
     process = n <= MAX_PROCESS_QUBITS
-    if parts is not None and model.profiles and process and correction is None:
+    if parts is not None and has_gate_band(model) and process and correction is None:
         S, rho, tr = combine_modes(engine, model, pts, rho0=rho0, traces=traces, parts=parts)
     else:
         S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces,
-                              correction=correction if model.profiles else None)
+                              correction=correction if has_gate_band(model) else None)
     leakage = 0.0
     if V is not None:
         # fidelities on the qubit levels, leakage counted as error
@@ -358,7 +388,10 @@ def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
         wf = part(crun, tuple(slots), after)
         model = build_model(wf, device, m=opts.substeps, start=a, stop=b_sim, rwa=opts.rwa)
         pts = noise_points(model, opts.nodes, opts.quadrature)
-        S, _, _ = _average(engine, model, pts, process=True, rho0=None, product=False)
+        # the gate band: the toggling-frame correction where it applies, else
+        # its modes one at a time (small errors of a step)
+        S, _, _ = _average(engine, model, pts, process=True, rho0=None,
+                           product=toggling.applies(model))
         V = F.qubit_isometry(model.levels)
         leak = 0.0
         if V is not None:

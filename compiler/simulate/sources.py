@@ -114,6 +114,10 @@ def _spectral(device: Device, window: float, band: str) -> tuple:
         if band == "static" and b.static_rms > 0:
             out.append(("detuning", i, b.static_rms))
         elif band == "gate":
+            # the band itself (integrated by .toggling) and its modes (the
+            # engines' representation, for registers too large for .toggling)
+            if b.f_hi > b.f_qs:
+                out.append(("band", "detuning", i, d.zeeman_noise, b.f_qs, b.f_hi))
             out += [("mode", i, f, sig) for f, sig in b.modes]
         elif band == "fast" and b.fast_rate > 0:
             out.append(("dissipator", i, "z", b.fast_rate))
