@@ -190,14 +190,20 @@ def test_device_without_spectra_has_no_band_terms():
     assert {d.source for d in m.dissipators} == {"t1", "t2"}
 
 
-def test_cpmg_example_decouples_through_the_whole_pipeline():
+@pytest.fixture(scope="module")
+def cpmg_result():
+    """sequences/cpmg_spectral.dotseq simulated (whole runs only) and its device."""
+    from compiler.simulate import simulate
+    checked = load(SEQUENCES / "cpmg_spectral.dotseq")
+    return checked, simulate(compile(checked), SimOptions(budget=False, steps=False))
+
+
+def test_cpmg_example_decouples_through_the_whole_pipeline(cpmg_result):
     # sequences/cpmg_spectral.dotseq: N = 1, 2, 4, 8 over the same 8 µs; the simulated
     # state fidelity grows with N as the filter-function integrals predict (Cywiński
     # et al. 2008); T1 and finite pulses lower it a little (measured 0.842, 0.901,
     # 0.940, 0.960 against (1 + e^{−χ})/2 = 0.849, 0.907, 0.948, 0.972)
-    from compiler.simulate import simulate
-    checked = load(SEQUENCES / "cpmg_spectral.dotseq")
-    r = simulate(compile(checked), SimOptions(budget=False, steps=False))
+    checked, r = cpmg_result
     sp = checked.device.dots["A"].zeeman_noise
     got = [run.state_fidelity for run in r.runs]
     assert all(b > a + 0.01 for a, b in zip(got, got[1:])), got
@@ -205,6 +211,44 @@ def test_cpmg_example_decouples_through_the_whole_pipeline():
         ff = (1 + S.coherence(sp, 8e-6 + (n + 2) * 40e-9, "cpmg", n)) / 2
         assert ff - 0.015 < f < ff, (n, f, ff)
     assert r.noise_spectra and r.noise_spectra[0][0] == "A"
+
+
+def test_results_json_holds_each_spectrum_its_bands_and_implied_times(cpmg_result, tmp_path):
+    # results.json "spectra": S₁ with its unit, β, white, f_low, f_high; the bands of the
+    # detail run (edges in Hz, variance per band: ∫S df, the power law's closed form,
+    # common practice, no source) and the implied T2*, Hahn T2, CPMG-N T2 (1/e times of
+    # the filter-function integrals, Cywiński et al., PRB 77, 174509 (2008)); read back
+    # by load_results
+    import json
+    from compiler.report import load_results, results_json
+    checked, r = cpmg_result
+    sp = checked.device.dots["A"].zeeman_noise
+    doc = json.loads(results_json(r))
+    (got,) = doc["result"]["spectra"]
+    assert got["target"] == "A" and got["quantity"] == "zeeman" and got["unit"] == "Hz^2/Hz"
+    assert got["at_1hz"] == 4e8 and got["exponent"] == 1.0 and got["white"] == 0.0
+    assert got["f_low"] == pytest.approx(1 / 600) and got["f_high"] == "inf"
+    T = r.runs[0].duration
+    assert got["window"] == T
+    bands = {b["name"]: b for b in got["bands"]}
+    assert list(bands) == ["quasi-static", "gate", "fast"]
+    assert bands["quasi-static"]["f_to"] == pytest.approx(0.1 / T)
+    assert bands["gate"]["f_from"] == bands["quasi-static"]["f_to"]
+    assert bands["gate"]["f_to"] == pytest.approx(64 / T) == bands["fast"]["f_from"]
+    # S₁·ln(b/a) per band for 1/f; the part above 64/T diverges without f_high
+    for b in ("quasi-static", "gate"):
+        assert bands[b]["variance"] == pytest.approx(4e8 * math.log(bands[b]["f_to"]
+                                                                      / bands[b]["f_from"]))
+    assert bands["fast"]["variance"] == "inf"
+    times = S.implied_times(sp)
+    assert got["t2_star_s"] == pytest.approx(times["t2_star_s"], rel=1e-12)
+    assert got["t2_s"] == pytest.approx(times["t2_s"], rel=1e-12)
+    assert {int(k): v for k, v in got["t2_cpmg_s"].items()} == pytest.approx(times["t2_cpmg_s"])
+    assert sorted(int(k) for k in got["t2_cpmg_s"]) == [1, 2, 4, 8, 16]
+    assert S.coherence(sp, got["t2_s"], "hahn") == pytest.approx(math.exp(-1), rel=1e-6)
+    (tmp_path / "results.json").write_text(results_json(r))
+    back = load_results(tmp_path)
+    assert back.spectra == r.spectra
 
 
 W2_SPECTRUM = "{at_1hz: 1e9 Hz^2/Hz, exponent: 1}"      # invented, as in bench_simulate.py

@@ -33,7 +33,8 @@ from .engines import ENGINES, make_engine
 from .model import dot_operator, embed, noise_points
 from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
-from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
+from .types import (BudgetLine, RunResult, SimulationResult, SpectrumBand, SpectrumSummary,
+                    StepFidelity)
 
 MAX_PROCESS_QUBITS = 5
 MAX_SHOTS = 10 ** 12
@@ -583,8 +584,10 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                 "fidelity_scope": _scope_text(opts, runs[detail] if runs else None),
                 "shots": opts.shots}
     spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
+    summaries = spectrum_summaries(device, runs[detail].duration if runs else 0.0)
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
-                            tuple(runs), axes, coherence, settings, warnings, stats, spectra)
+                            tuple(runs), axes, coherence, settings, warnings, stats, spectra,
+                            summaries)
 
 
 WORST_STEPS = 3
@@ -619,6 +622,51 @@ def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tupl
         filters += [(f"{s.label} (worst step {k + 1})", s.duration, ())
                     for k, s in enumerate(mine[:WORST_STEPS]) if s.duration > 0]
         out.append((q, d.zeeman_noise, tuple(filters)))
+    return tuple(out)
+
+
+def spectrum_summaries(device: Device, window: float) -> tuple[SpectrumSummary, ...]:
+    """Every spectrum of the device (Zeeman noise per dot, barrier noise per
+    coupling): its parameters, the bands it is split into for a window of
+    ``window`` seconds (:func:`.bands.split`, as the simulation splits it)
+    and, for Zeeman noise, the T2*, Hahn T2 and CPMG-N T2 it implies."""
+    from ..spectra import implied_times
+    from .bands import GATE_CYCLES, QS_FRACTION, split
+    out = []
+    items = [(q, "zeeman", "Hz^2/Hz", d.zeeman_noise) for q, d in device.dots.items()
+             if d.zeeman_noise is not None]
+    items += [("-".join(c.dots), "barrier", "V^2/Hz", c.barrier_noise) for c in device.couplings
+              if c.barrier_noise is not None]
+    for target, quantity, unit, sp in items:
+        b = split(sp, window)
+        bands = []
+        if not sp.is_white:
+            zeeman = quantity == "zeeman"
+            bands.append(SpectrumBand("quasi-static", sp.f_low, b.f_qs,
+                                      sp.band_variance(sp.f_low, b.f_qs, white=False),
+                                      f"below {QS_FRACTION:g}/T: a Gaussian offset held for the "
+                                      "window, by quadrature"))
+            if b.f_hi > b.f_qs:
+                bands.append(SpectrumBand("gate", b.f_qs, b.f_hi,
+                                          sp.band_variance(b.f_qs, b.f_hi, white=False),
+                                          f"{QS_FRACTION:g}/T to {GATE_CYCLES:g}/T: filter-function "
+                                          "correction on the played control"))
+            top = max(b.f_hi, sp.f_low)
+            if sp.f_high > top:
+                bands.append(SpectrumBand("fast", top, sp.f_high,
+                                          sp.band_variance(top, sp.f_high, white=False),
+                                          f"above {GATE_CYCLES:g}/T: Lindblad dephasing" if zeeman
+                                          else "not simulated"))
+        white = sp.white_level()
+        if white > 0:
+            bands.append(SpectrumBand("white", sp.f_low, sp.f_high,
+                                      white * (sp.f_high - sp.f_low),
+                                      "Lindblad dephasing" if quantity == "zeeman" else "not simulated"))
+        times = implied_times(sp) if quantity == "zeeman" else {}
+        out.append(SpectrumSummary(target, quantity, unit, sp.s1 if sp.beta else 0.0, sp.beta,
+                                   white, sp.f_low, sp.f_high, window, tuple(bands),
+                                   times.get("t2_star_s"), times.get("t2_s"),
+                                   dict(times.get("t2_cpmg_s", {}))))
     return tuple(out)
 
 
