@@ -164,8 +164,21 @@ def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict
     if corr is None:
         return ev.superop, ev.rho, ev.traces
     if parts is not None:
-        parts["correction"] = corr
+        parts["correction"] = GateCorrection(gate_key(model), corr)
     return _corrected(ev, corr, rho0)
+
+
+@dataclass(frozen=True, eq=False)
+class GateCorrection:
+    """A gate-band correction with the gate bands it is of (:func:`gate_key`)."""
+    key: tuple
+    matrix: np.ndarray
+
+
+def gate_key(model) -> tuple:
+    """Which gate bands (and modes) a model holds: sources and targets."""
+    return (tuple((b.source, b.moves, b.target) for b in model.gate_bands)
+            + tuple(sorted({(p.source, p.dot) for p in model.profiles})))
 
 
 def gate_correction(engine, model):
@@ -276,12 +289,20 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         return quadrature_rule(device, dataclasses.replace(opts, nodes=n))
 
     noisy = any(v.rms > 0 for v in model.noise)
-    if correction is None and has_gate_band(model) and len(device.dots) <= MAX_PROCESS_QUBITS:
+    if has_gate_band(model) and len(device.dots) <= MAX_PROCESS_QUBITS:
         # the gate band's correction does not depend on the quadrature rule:
-        # found once here, reused by every rule of the refinement
-        correction = gate_correction(engine, model)
+        # found once here, reused by every rule of the refinement; one handed
+        # in (the total's, for the budget) is reused while it is of the same
+        # gate bands (switching one of two gate sources off changes it)
+        key = gate_key(model)
+        if isinstance(correction, GateCorrection):
+            correction = correction.matrix if correction.key == key else None
+        if correction is None:
+            correction = gate_correction(engine, model)
         if parts is not None and correction is not None:
-            parts["correction"] = correction
+            parts["correction"] = GateCorrection(key, correction)
+    elif isinstance(correction, GateCorrection):
+        correction = None
     if nodes is not None or not noisy or opts.nodes <= 1:
         n = opts.nodes if nodes is None else nodes
         w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts, opts)
@@ -661,7 +682,9 @@ def spectrum_summaries(device: Device, window: float) -> tuple[SpectrumSummary, 
         if white > 0:
             bands.append(SpectrumBand("white", sp.f_low, sp.f_high,
                                       white * (sp.f_high - sp.f_low),
-                                      "Lindblad dephasing" if quantity == "zeeman" else "not simulated"))
+                                      "Lindblad dephasing" if quantity == "zeeman" else
+                                      f"in the gate band up to {GATE_CYCLES:g}/T, not simulated "
+                                      "above"))
         times = implied_times(sp) if quantity == "zeeman" else {}
         out.append(SpectrumSummary(target, quantity, unit, sp.s1 if sp.beta else 0.0, sp.beta,
                                    white, sp.f_low, sp.f_high, window, tuple(bands),

@@ -53,6 +53,7 @@ class Source:
     # bands of a noise spectrum, which depend on the simulated window T (s):
     # (device, T) -> items ("detuning", dot, rms Hz) | ("barrier", coupling, rms V)
     # | ("mode", dot, f Hz, σ Hz) | ("dissipator", dot, operator, rate 1/s)
+    # | ("band", "detuning" or "barrier", dot or coupling, Spectrum, f_from Hz, f_to Hz)
     window: Callable[[Device, float], tuple] | None = None
     # device -> whether the source is present at all; when it is not, its
     # budget line is 0 without an evaluation (None: always present)
@@ -126,7 +127,7 @@ def _spectral(device: Device, window: float, band: str) -> tuple:
 
 def _barrier_static(device: Device, window: float) -> tuple:
     """The barrier-voltage spectra below QS_FRACTION/T as a quasi-static
-    offset (their faster part is not simulated yet: docs/simulate.md)."""
+    offset (the band above it: :func:`_barrier_gate`)."""
     from .bands import split
     out = []
     for i, c in enumerate(device.couplings):
@@ -136,6 +137,26 @@ def _barrier_static(device: Device, window: float) -> tuple:
             var = sp.band_variance(sp.f_low, b.f_qs) if not sp.is_white else 0.0
             if var > 0:
                 out.append(("barrier", i, math.sqrt(var)))
+    return tuple(out)
+
+
+def _barrier_gate(device: Device, window: float) -> tuple:
+    """The barrier-voltage spectra from QS_FRACTION/T to GATE_CYCLES/T (white
+    part included) as a gate band: exchange fluctuations δJ = (dJ/dV)·δV on
+    the as-played barrier pulses, acting while exchange is on, integrated as
+    a filter-function correction (:mod:`.toggling`)."""
+    from .bands import GATE_CYCLES, QS_FRACTION
+    out = []
+    if window <= 0:
+        return ()
+    for i, c in enumerate(device.couplings):
+        sp = c.barrier_noise
+        if sp is None:
+            continue
+        lo = max(sp.f_low, QS_FRACTION / window) if not sp.is_white else sp.f_low
+        hi = min(sp.f_high, GATE_CYCLES / window)
+        if hi > lo and sp.band_variance(lo, hi) > 0:
+            out.append(("band", "barrier", i, sp, lo, hi))
     return tuple(out)
 
 
@@ -171,6 +192,10 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            "couplings.*.barrier_noise, acquisition_time",
            "barrier-voltage S(f) below 0.1/T as a held offset, through J(V)", "quasi-static",
            window=_barrier_static),
+    Source("barrier_gate", "barrier noise spectrum, gate band", "couplings.*.barrier_noise",
+           "barrier-voltage S(f) from 0.1/T to 64/T (white part included) as exchange "
+           "fluctuations (dJ/dV)·δV on the played barrier pulses, by its filter function",
+           "gate band", window=_barrier_gate),
     Source("crosstalk", "drive crosstalk", "the shared microwave lines",
            "each dot driven only by its own bursts (and no light-shift corrections)", "played",
            compile_off=(("spectator_correction", False), ("per_dot", True))),

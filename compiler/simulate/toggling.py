@@ -61,11 +61,12 @@ def applies(model: Model) -> bool:
 
 
 @functools.lru_cache(maxsize=256)
-def band_covariance(sp, f_lo: float, f_hi: float, tau: float, lags: int) -> np.ndarray:
+def band_covariance(sp, f_lo: float, f_hi: float, tau: float, lags: int,
+                    white: bool = False) -> np.ndarray:
     """C̄(m) = ∫_{f_lo}^{f_hi} S(f)·sinc²(fτ)·cos(2πf·mτ) df for m = 0 … lags − 1:
     the covariance of the means over chunks of length τ of noise whose
-    spectrum is S restricted to the band (unit²).  The white part of S is
-    not in the band (it is a Lindblad rate)."""
+    spectrum is S restricted to the band (unit²).  The white part of S is in
+    the band only with ``white`` (Zeeman noise: it is a Lindblad rate)."""
     a, b = max(f_lo, sp.f_low), min(f_hi, sp.f_high)
     if not b > a or lags <= 0:
         return np.zeros(max(lags, 0))
@@ -73,7 +74,7 @@ def band_covariance(sp, f_lo: float, f_hi: float, tau: float, lags: int) -> np.n
     # geometric panels (ratio ≤ 1.5) up to 1/T, then panels at most 1/(4T) wide
     top = min(b, 1 / T)
     edges = [a]
-    while edges[-1] < top:
+    while 0 < edges[-1] < top:             # (from zero: linear panels only)
         edges.append(min(edges[-1] * 1.5, top))
     if b > edges[-1]:
         lin_top = min(b, edges[-1] + 200000 / (4 * T))
@@ -86,7 +87,13 @@ def band_covariance(sp, f_lo: float, f_hi: float, tau: float, lags: int) -> np.n
     lo, hi = e[:-1], e[1:]
     f = ((hi - lo)[:, None] * (x[None, :] + 1) / 2 + lo[:, None]).ravel()
     wf = ((hi - lo)[:, None] * w[None, :] / 2).ravel()
-    g = wf * (sp.s1 * f ** (-sp.beta) if sp.beta else np.full_like(f, sp.s1)) * np.sinc(f * tau) ** 2
+    if sp.beta > 0:
+        level = sp.s1 * f ** (-sp.beta)
+    else:                                   # β = 0: S₁ is white noise
+        level = np.full_like(f, sp.s1 if white else 0.0)
+    if white:
+        level = level + sp.white
+    g = wf * level * np.sinc(f * tau) ** 2
     m = np.arange(lags)
     out = np.zeros(lags)
     for i in range(0, len(f), 2048):                 # bounded memory
@@ -224,7 +231,7 @@ def correction(model: Model) -> np.ndarray:
     gen = np.zeros((d * d, d * d), dtype=complex)
     tau = chunk * h
     for b, A in zip(model.gate_bands, chunks):
-        cov = band_covariance(b.spectrum, b.f_lo, b.f_hi, tau, nc)
+        cov = band_covariance(b.spectrum, b.f_lo, b.f_hi, tau, nc, b.moves == "barrier")
         if not np.any(cov):
             continue
         # the time-ordered weights: C̄(c − c') below the diagonal, ½C̄(0) on it
