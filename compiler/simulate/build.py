@@ -31,6 +31,7 @@ is on.  The ``played`` sources are switched here, by name.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -324,10 +325,15 @@ def window_terms(key: str, items, K: int, h: float, *, bands: bool = False, mode
     ``modes`` the gate-band modes are left out (the band is integrated by
     :mod:`.toggling` instead)."""
     noise, dissipators, profiles, gate = [], [], [], []
+    links = []
     chunk = max(1, K // MODE_CHUNKS)
     for item in items:
         if item[0] in ("detuning", "barrier"):
             noise.append(NoiseVariable(key, *item))
+        elif item[0] == "detuning_vector":
+            noise.append(NoiseVariable(key, "detuning", item[1], item[2], item[3]))
+        elif item[0] == "correlation":
+            links.append(item[1:])
         elif item[0] == "dissipator":
             dissipators.append(Dissipator(key, item[1], item[2], item[3]))
         elif item[0] == "mode":
@@ -339,4 +345,8 @@ def window_terms(key: str, items, K: int, h: float, *, bands: bool = False, mode
             gate.append(GateBand(key, *item[1:]))
         else:
             raise ValueError(f"source {key}: unknown band item {item[0]!r}")
+    if links and bands:
+        gate = [dataclasses.replace(b, partners=tuple(
+            (y if x == b.target else x, c) for x, y, c in links if b.target in (x, y)))
+            if b.moves == "detuning" else b for b in gate]
     return (noise, dissipators, profiles, gate) if bands else (noise, dissipators, profiles)

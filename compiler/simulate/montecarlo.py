@@ -68,17 +68,24 @@ def trajectories(sp: Spectrum, k: int, h: float, count: int, rng,
 
 
 def monte_carlo(engine, model: Model, spectra: dict, count: int, *, seed: int = 0,
-                rho0=None, process: bool = False, groups: int = 20):
+                rho0=None, process: bool = False, groups: int = 20,
+                correlation: dict | None = None):
     """Average of ``count`` trajectories: per dot index in ``spectra`` a
     trajectory of its spectrum is added to the dot's detuning (the model's
-    own noise variables and profiles are replaced).  The trajectories are
-    run in ``groups`` batches (one engine call each); the statistical error
-    is the standard error of the batch means.  Returns (mean, standard
-    error) elementwise of the final ρ from ``rho0``, or of the
-    superoperator with ``process``."""
+    own noise variables, profiles and gate bands are replaced).  With
+    ``correlation`` {(a, b): c} (dots of equal spectra), dot b's trajectory
+    is c·x_a + √(1 − c²)·x_b (correlation c at every frequency).  The
+    trajectories are run in ``groups`` batches (one engine call each); the
+    statistical error is the standard error of the batch means.  Returns
+    (mean, standard error) elementwise of the final ρ from ``rho0``, or of
+    the superoperator with ``process``."""
     rng = np.random.default_rng(seed)
-    base = dataclasses.replace(model, noise=())
+    base = dataclasses.replace(model, noise=(), gate_bands=())
     paths = {q: trajectories(sp, model.k, model.h, count, rng) for q, sp in spectra.items()}
+    for (a, b), c in (correlation or {}).items():
+        if spectra[a] != spectra[b]:
+            raise ValueError("correlated trajectories need equal spectra")
+        paths[b] = c * paths[a] + math.sqrt(1 - c * c) * paths[b]
     per = -(-count // groups)
     means = []
     for g in range(0, count, per):

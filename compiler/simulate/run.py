@@ -460,7 +460,7 @@ def quadrature_rule(device: Device, opts: SimOptions) -> str:
     # the held band of a spectrum (its gate-band modes are always one at a time)
     n_vars += sum(1 for src in SOURCES.values() if src.window is not None
                   for item in src.window(device, 1e-6)
-                  if item[0] in ("detuning", "barrier") and item[2] > 0)
+                  if item[0] in ("detuning", "barrier", "detuning_vector") and item[2] > 0)
     return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
 
 

@@ -105,14 +105,23 @@ def _charge_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
 
 def _spectral(device: Device, window: float, band: str) -> tuple:
     """One band (``static``, ``gate``, ``fast``) of every dot's Zeeman-noise
-    spectrum for a window of T seconds (:func:`.bands.split`)."""
+    spectrum for a window of T seconds (:func:`.bands.split`).  Correlated
+    dots (``zeeman_correlation``): their quasi-static detunings are
+    correlated Gaussians (one variable per eigenvector of their covariance)
+    and their gate bands carry the correlation; the fast band stays
+    independent per dot (docs/simulate.md)."""
     from .bands import split
     out = []
-    for i, d in enumerate(device.dots.values()):
+    names = list(device.dots)
+    corr = {frozenset((a, b)): c for a, b, c in device.zeeman_correlation if c}
+    linked = {q for k in corr for q in k}
+    splits = {q: split(d.zeeman_noise, window) for q, d in device.dots.items()
+              if d.zeeman_noise is not None}
+    for i, (q, d) in enumerate(device.dots.items()):
         if d.zeeman_noise is None:
             continue
-        b = split(d.zeeman_noise, window)
-        if band == "static" and b.static_rms > 0:
+        b = splits[q]
+        if band == "static" and b.static_rms > 0 and q not in linked:
             out.append(("detuning", i, b.static_rms))
         elif band == "gate":
             # the band itself (integrated by .toggling) and its modes (the
@@ -122,7 +131,44 @@ def _spectral(device: Device, window: float, band: str) -> tuple:
             out += [("mode", i, f, sig) for f, sig in b.modes]
         elif band == "fast" and b.fast_rate > 0:
             out.append(("dissipator", i, "z", b.fast_rate))
+    if band == "static" and linked:
+        out += _correlated_static(device, splits, corr, sorted(linked, key=names.index))
+    if band == "gate":
+        out += [("correlation", names.index(a), names.index(b), c)
+                for a, b, c in device.zeeman_correlation if c]
     return tuple(out)
+
+
+def _correlated_static(device: Device, splits: dict, corr: dict, dots: list) -> list:
+    """The quasi-static band of correlated dots: covariance
+    Σ_ab = c_ab·∫ √(S_a·S_b) df over the band (a frequency-independent
+    coherence c), as independent variables along its eigenvectors."""
+    import numpy as np
+    from ..spectra import Spectrum
+    names = list(device.dots)
+    n = len(dots)
+    cov = np.zeros((n, n))
+    for x, a in enumerate(dots):
+        for y, b in enumerate(dots):
+            sa, sb = device.dots[a].zeeman_noise, device.dots[b].zeeman_noise
+            c = 1.0 if a == b else corr.get(frozenset((a, b)), 0.0)
+            lo = max(sa.f_low, sb.f_low)
+            hi = min(splits[a].f_qs, splits[b].f_qs)
+            if c == 0 or not hi > lo or sa.is_white or sb.is_white:
+                continue
+            gm = Spectrum(math.sqrt(sa.s1 * sb.s1), (sa.beta + sb.beta) / 2, 0.0, lo, hi)
+            cov[x, y] = c * gm.band_variance(lo, hi, white=False)
+    lam, vec = np.linalg.eigh(cov)
+    out = []
+    for k in range(n):
+        if lam[k] <= 1e-12 * max(lam.max(), 1e-300):
+            continue
+        w = [0.0] * len(names)
+        for x, q in enumerate(dots):
+            w[names.index(q)] = float(vec[x, k])
+        top = max(range(len(w)), key=lambda j: abs(w[j]))
+        out.append(("detuning_vector", top, math.sqrt(lam[k]), tuple(w)))
+    return out
 
 
 def _barrier_static(device: Device, window: float) -> tuple:

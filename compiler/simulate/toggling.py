@@ -102,12 +102,18 @@ def band_covariance(sp, f_lo: float, f_hi: float, tau: float, lags: int,
     return out
 
 
-def _hamiltonian_terms(model: Model):
-    """The noise-free Hamiltonian as (operator d×d, coefficient per sub-step)
-    terms (Hz), exactly as the engines take the model; and per pair the
-    terms of ∂H/∂V (central difference of its sub-step means)."""
+def _hamiltonian_terms(model: Model, detuning=None, dv=None):
+    """The Hamiltonian without the gate band as (operator d×d, coefficient per
+    sub-step) terms (Hz), exactly as the engines take the model, at a point
+    of the constant noise variables (``detuning`` Hz per dot, ``dv`` V per
+    pair; zero when not given); and per pair a function of the barrier
+    offset giving its terms (for ∂H/∂V)."""
     lv = model.levels
     terms = []
+    for k, d in enumerate(detuning or ()):
+        if d:
+            terms.append((embed(dot_operator(model.dots[k], "z"), k, lv) / 2,
+                          np.full(model.k, float(d))))
     for k, c in model.drive.items():
         r = embed(dot_operator(model.dots[k], "raise"), k, lv)
         terms.append((r, c))
@@ -119,9 +125,9 @@ def _hamiltonian_terms(model: Model):
             terms.append((o.conj().T, np.conj(c)))
     pair_terms = []
     for p in model.pairs:
-        pair_terms.append(lambda dv, p=p: _pair_terms(model, p, dv))
-    for f in pair_terms:
-        terms += f(0.0)
+        pair_terms.append(lambda x, p=p: _pair_terms(model, p, x))
+    for i, f in enumerate(pair_terms):
+        terms += f(dv[i] if dv else 0.0)
     return terms, pair_terms
 
 
@@ -164,13 +170,14 @@ def _prefix(M: np.ndarray) -> np.ndarray:
     return P
 
 
-def toggled_chunks(model: Model, ops: list, chunk: int) -> list[np.ndarray]:
+def toggled_chunks(model: Model, ops: list, chunk: int, terms=None) -> list[np.ndarray]:
     """For each noise operator (a constant d×d matrix, or a callable giving the
     (B, d, d) operators of sub-steps [s, e)): A_c = ∫_chunk U(t)†·G·U(t) dt
     per chunk of ``chunk`` sub-steps (s), shape (chunks, d, d), with U the
     propagator of the noise-free Hamiltonian from the window start."""
     d, K, h = model.dim, model.k, model.h
-    terms, _ = _hamiltonian_terms(model)
+    if terms is None:
+        terms, _ = _hamiltonian_terms(model)
     nc = -(-K // chunk)
     out = [np.zeros((nc, d, d), dtype=complex) for _ in ops]
     U = np.eye(d, dtype=complex)
@@ -209,34 +216,63 @@ def _ad_pair(A: np.ndarray, B: np.ndarray) -> np.ndarray:
     return np.kron(eye, AB) - kron_sum(B, A) - kron_sum(A, B) + np.kron(BA.T, eye)
 
 
-def correction(model: Model) -> np.ndarray:
-    """exp(𝒦) of the model's gate bands (column-stacked superoperator, d² × d²):
-    the channel to apply before the engine's average over the other noise."""
+def correction(model: Model, detuning=None, dv=None) -> np.ndarray:
+    """exp(𝒦) of the model's gate bands (column-stacked superoperator, d² × d²)
+    in the toggling frame of the run at a point of the constant noise
+    variables (``detuning`` Hz per dot, ``dv`` V per pair; zero when not
+    given): the channel to apply before the engine's channel at that point."""
     from scipy.linalg import expm
     K, h, d = model.k, model.h, model.dim
     chunk = max(1, -(-K // CHUNKS))
     nc = -(-K // chunk)
     ops = []
-    _, pair_terms = _hamiltonian_terms(model) if model.pairs else (None, [])
+    terms, pair_terms = _hamiltonian_terms(model, detuning, dv)
     for b in model.gate_bands:
         if b.moves == "detuning":
             ops.append(embed(dot_operator(model.dots[b.target], "z"), b.target, model.levels) / 2)
         elif b.moves == "barrier":
-            plus, minus = pair_terms[b.target](DV), pair_terms[b.target](-DV)
+            x = dv[b.target] if dv else 0.0
+            plus, minus = pair_terms[b.target](x + DV), pair_terms[b.target](x - DV)
             ops.append(lambda s, e, plus=plus, minus=minus: (
                 _assemble(plus, s, e, d) - _assemble(minus, s, e, d)) / (2 * DV))
         else:
             raise ValueError(f"gate band of {b.source}: unknown target kind {b.moves!r}")
-    chunks = toggled_chunks(model, ops, chunk)
+    chunks = toggled_chunks(model, ops, chunk, terms)
     gen = np.zeros((d * d, d * d), dtype=complex)
     tau = chunk * h
+    lag = np.arange(nc)[:, None] - np.arange(nc)[None, :]
+
+    def ordered(cov):
+        # the time-ordered weights: C̄(c − c') below the diagonal, ½C̄(0) on it
+        return np.where(lag > 0, cov[np.abs(lag)], 0.0) + np.diag(np.full(nc, cov[0] / 2))
+
     for b, A in zip(model.gate_bands, chunks):
         cov = band_covariance(b.spectrum, b.f_lo, b.f_hi, tau, nc, b.moves == "barrier")
         if not np.any(cov):
             continue
-        # the time-ordered weights: C̄(c − c') below the diagonal, ½C̄(0) on it
-        lag = np.arange(nc)[:, None] - np.arange(nc)[None, :]
-        Wt = np.where(lag > 0, cov[np.abs(lag)], 0.0) + np.diag(np.full(nc, cov[0] / 2))
-        B = np.tensordot(Wt, A, axes=(1, 0))                       # Σ_c' W_cc' A_c'
-        gen += _ad_pair(A, B)
+        gen += _ad_pair(A, np.tensordot(ordered(cov), A, axes=(1, 0)))
+    # correlated Zeeman noise of two dots: the cross covariance
+    # c·∫√(S_a S_b)·sinc²·cos df (a frequency-independent coherence c) in both orders
+    found = {(b.moves, b.target): (b, A) for b, A in zip(model.gate_bands, chunks)}
+    for b, A in zip(model.gate_bands, chunks):
+        for other, c in b.partners:
+            if other < b.target or ("detuning", other) not in found:
+                continue                            # each pair once
+            b2, A2 = found[("detuning", other)]
+            cov = c * band_covariance(_geometric_mean(b.spectrum, b2.spectrum),
+                                      max(b.f_lo, b2.f_lo), min(b.f_hi, b2.f_hi), tau, nc)
+            if not np.any(cov):
+                continue
+            W = ordered(cov)
+            gen += (_ad_pair(A, np.tensordot(W, A2, axes=(1, 0)))
+                    + _ad_pair(A2, np.tensordot(W, A, axes=(1, 0))))
     return expm(-(2 * math.pi) ** 2 * gen)
+
+
+def _geometric_mean(a, b):
+    """√(S_a·S_b) of two power laws (their white parts are Lindblad rates)."""
+    from ..spectra import Spectrum
+    lo, hi = max(a.f_low, b.f_low), min(a.f_high, b.f_high)
+    if a.is_white or b.is_white or not hi > lo:
+        return Spectrum(0.0, 0.0, 0.0, 0.0, 1.0)
+    return Spectrum(math.sqrt(a.s1 * b.s1), (a.beta + b.beta) / 2, 0.0, lo, hi)
