@@ -396,11 +396,18 @@ def test_rb_on_a_nearly_ideal_device_gives_r_below_1e_6(tmp_path, capsys):
     assert not any("slow noise" in r for r in data["comparison"]["possible_reasons"])
 
 
-def test_two_qubit_rb_command(tmp_path):
+SPIN_HALF_PAIR = ROOT / "tests" / "data" / "spin_half_pair.yaml"
+
+
+@pytest.mark.parametrize("device", [
+    SPIN_HALF_PAIR,
+    # the four-level demo pair: the same, minutes (tests/benchmarks/slow_tests.py)
+    pytest.param(DEMO_PAIR, marks=pytest.mark.slow)], ids=["spin_half", "four_level"])
+def test_two_qubit_rb_command(tmp_path, device):
     out = tmp_path / "rb2"
     # (the interleaved files are checked without simulating them; simulated
     # interleaving is in test_rb_command_writes_results_and_checkable_sequences)
-    assert main(["rb", str(DEMO_PAIR), "--qubits", "A", "B", "--lengths", "1,2,3",
+    assert main(["rb", str(device), "--qubits", "A", "B", "--lengths", "1,2,3",
                  "--sequences", "2", "--seed", "2", "--workers", "1", "--quiet",
                  "--resamples", "20", "-o", str(out)]) == 0
     data = json.loads((out / "rb.json").read_text())

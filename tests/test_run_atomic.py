@@ -23,8 +23,9 @@ from compiler.export.runfolder import RUN_MARKER, UNKNOWN_OPTION, recover_run_fo
 from conftest import SEQUENCES
 
 SEQ_A = SEQUENCES / "ramsey_single.dotseq"     # 5 runs
-SEQ_B = SEQUENCES / "cnot_pair.dotseq"
-FAST = ["--no-budget", "--no-steps", "--nodes", "1"]   # cnot_pair is four-level: keep a run short
+# a two-qubit run on two-level dots (the demo pair is four-level: minutes per kill loop)
+SEQ_B = Path(__file__).parent / "data" / "cnot_spin_half.dotseq"
+FAST = ["--no-budget", "--no-steps", "--nodes", "1"]
 KILLS = int(os.environ.get("DOTSEQ_RUN_KILLS", "5"))   # random kills in the default run
 
 

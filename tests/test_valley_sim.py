@@ -157,6 +157,12 @@ def test_engines_agree_on_an_exchange_between_four_level_dots(tmp_path):
     model = build_model(wf, c.device, m=2, stop=stop)
     assert model.levels == (4, 4) and any(p.parts for p in model.pairs)
     pt = noise_points(model, 3, "tensor")[4]
-    a = FastEngine().evolve(model, pt, process=True)
+    # the weak idle exchange kept on everywhere (the default drops it within a stated
+    # 1e-6 of average gate fidelity, which moves entries by up to ~1e-6): an exact comparison
+    a = FastEngine(exchange_accuracy=1e-15).evolve(model, pt, process=True)
     b = ReferenceEngine().evolve(model, pt, process=True)
     assert np.abs(a.superop - b.superop).max() < 1e-7
+    # and the default, within its stated bound (common practice, no source)
+    eng = FastEngine()
+    c = eng.evolve(model, pt, process=True)
+    assert np.abs(c.superop - b.superop).max() < 2 * eng.stats()["exchange_error_bound"] + 1e-7

@@ -98,6 +98,9 @@ def _expm(A: np.ndarray) -> np.ndarray:
     return np.stack([expm(a) for a in A.reshape((-1,) + A.shape[-2:])]).reshape(A.shape)
 
 
+CACHE_BYTES = 1 << 30          # the channel cache is cleared when it would exceed this
+
+
 class LevelsPath:
     """General-levels propagation for :class:`.fast.FastEngine` (module notes)."""
 
@@ -179,9 +182,17 @@ class LevelsPath:
         return S_sum, rho_sum, traces, time.perf_counter() - t0
 
     # ------------------------------------------------------------------ channels
-    def _pieces(self, model: Model, dots, pairs):
-        """Generators of a cluster: (named real-coefficient generators, dissipator
-        sum, detuning generators) on the cluster's own levels."""
+    def _structure(self, model: Model, dots, pairs):
+        """What a cluster's channels are built from, found once per model and
+        cluster (building it took most of a four-level run's time when it was
+        redone for every segment): the dissipator sum and the detuning
+        generator of each dot in the real Hermitian basis, and the list of
+        time-dependent terms, each a real generator and a recipe for its
+        coefficient column ``(kind, index, part)``."""
+        ck = (id(model), dots, pairs)
+        hit = self._gens.get(ck)
+        if hit is not None and hit[0] is model:
+            return hit[1]
         dims = tuple(model.levels[q] for q in dots)
         pos = {q: i for i, q in enumerate(dots)}
         base = np.zeros((math.prod(dims) ** 2,) * 2, dtype=complex)
@@ -189,73 +200,100 @@ class LevelsPath:
             for dsp in model.dissipators_of(q):
                 base += dsp.rate * _diss(_at(dot_operator(model.dots[q], dsp.operator), pos[q], dims))
         det = {q: _ham(_at(dot_operator(model.dots[q], "z"), pos[q], dims) / 2) for q in dots}
-        return dims, pos, base, det
+        gens, recipe = [], []
 
-    def _channel(self, model, coefs, dots, pairs, s, e, pt):
-        eng = self.engine
-        dims, pos, base, det = self._pieces(model, dots, pairs)
-        gens, cols = [], []
-
-        def herm_pair(O, c):
+        def herm_pair(O, where):
             """c·O + c*·O†  =  Re c·(O + O†) + Im c·i(O − O†)."""
             gens.append(_ham(O + O.conj().T))
-            cols.append(np.real(c))
+            recipe.append(where + ("re",))
             gens.append(_ham(1j * (O - O.conj().T)))
-            cols.append(np.imag(c))
+            recipe.append(where + ("im",))
 
         for q in dots:
             if q in model.drive:
-                herm_pair(_at(dot_operator(model.dots[q], "raise"), pos[q], dims),
-                          model.drive[q][s:e])
-            for name, c in model.drive_terms.get(q, ()):
-                herm_pair(_at(dot_operator(model.dots[q], name), pos[q], dims), c[s:e])
+                herm_pair(_at(dot_operator(model.dots[q], "raise"), pos[q], dims), ("drive", q))
+            for k, (name, _) in enumerate(model.drive_terms.get(q, ())):
+                herm_pair(_at(dot_operator(model.dots[q], name), pos[q], dims), ("term", q, k))
         for i in pairs:
             p = model.pairs[i]
-            dv = pt.dv[i] if pt.dv else 0.0
             a, b = pos[p.a], pos[p.b]
             if isinstance(p, LevelPair):
-                _, Fs = coefs[i][dv]
-                for (nu, M), F in zip(p.parts, Fs):
+                for k, (nu, M) in enumerate(p.parts):
                     O = embed_pair(M, a, b, dims)
                     if nu == 0:
                         gens.append(_ham(O))
-                        cols.append(np.real(F[s:e]))
+                        recipe.append(("part", i, k, "re"))
                     else:
-                        herm_pair(O, F[s:e])
+                        herm_pair(O, ("part", i, k))
             else:
-                J, F = coefs[i][dv]
                 za = _at(dot_operator(model.dots[p.a], "z"), a, dims)
                 zb = _at(dot_operator(model.dots[p.b], "z"), b, dims)
                 gens.append(_ham(za @ zb / 4))
-                cols.append(J[s:e])
+                recipe.append(("J", i, 0, "re"))
                 spm = (_at(dot_operator(model.dots[p.a], "raise"), a, dims)
                        @ _at(dot_operator(model.dots[p.b], "lower"), b, dims))
-                herm_pair(spm / 2, F[s:e])
+                herm_pair(spm / 2, ("F", i, 0))
         # gate-band modes of a noise spectrum (bands.py): a detuning in time on
         # the dots that have profiles, one generator each whatever the point
-        # (zero columns where the point's modes are zero), so that the cached
+        # (zero columns where the point's modes are zero), so that the
         # generators of a model and cluster stay the same for every point
         prof_dots = {p.dot for p in model.profiles}
         for q in dots:
             if q in prof_dots:
-                prof = model.detuning_profile(q, pt.modes) if pt.modes else None
                 gens.append(det[q])
-                cols.append(np.zeros(e - s) if prof is None else np.real(prof[s:e]))
-        static = base.copy()
-        for q in dots:
-            dq = pt.detuning[q] if pt.detuning else 0.0
-            if dq:
-                static += dq * det[q]
+                recipe.append(("profile", q))
+        T = _basis(int(round(math.sqrt(base.shape[0]))))
+        Th = T.conj().T
+        real = lambda g: np.real(T @ g @ Th)          # noqa: E731
+        G_r = np.stack([real(g) for g in gens]) if gens else np.zeros((0,) + base.shape)
+        out = {"dims": dims, "T": T, "Th": Th, "base": real(base),
+               "det": {q: real(g) for q, g in det.items()}, "G": G_r, "recipe": tuple(recipe),
+               "sig": (tuple(model.dots[q] for q in dots),
+                       tuple((x.operator, x.rate) for q in dots for x in model.dissipators_of(q)),
+                       tuple(recipe))}
+        if len(self._gens) > 64:
+            self._gens.clear()
+        self._gens[ck] = (model, out)
+        return out
+
+    @staticmethod
+    def _column(model, coefs, recipe, s, e, pt) -> np.ndarray:
+        """The coefficient of one term (a :meth:`_structure` recipe) on
+        sub-steps s…e of the quadrature point ``pt``."""
+        kind = recipe[0]
+        part = recipe[-1]
+        if kind == "drive":
+            c = model.drive[recipe[1]][s:e]
+        elif kind == "term":
+            c = model.drive_terms[recipe[1]][recipe[2]][1][s:e]
+        elif kind == "profile":
+            prof = model.detuning_profile(recipe[1], pt.modes) if pt.modes else None
+            return np.zeros(e - s) if prof is None else np.real(prof[s:e])
+        else:
+            i = recipe[1]
+            dv = pt.dv[i] if pt.dv else 0.0
+            J, F = coefs[i][dv]
+            if kind == "part":
+                c = F[recipe[2]][s:e]
+            elif kind == "J":
+                c = J[s:e]
+            else:
+                c = F[s:e]
+        return np.real(c) if part == "re" else np.imag(c)
+
+    def _channel(self, model, coefs, dots, pairs, s, e, pt):
+        eng = self.engine
+        st = self._structure(model, dots, pairs)
+        cols = [self._column(model, coefs, r, s, e, pt) for r in st["recipe"]]
+        dets = tuple(float(pt.detuning[q]) if pt.detuning else 0.0 for q in dots)
         C = np.stack(cols, axis=1) if cols else np.zeros((e - s, 0))
-        key = (dots, pairs, dims, model.h, static.tobytes(), C.shape,
-               hashlib.blake2b(C.tobytes(), digest_size=16).digest(),
-               tuple(model.dots[q] for q in dots),
-               tuple(x.rate for q in dots for x in model.dissipators_of(q)))
+        key = (dots, pairs, st["dims"], model.h, dets, C.shape,
+               hashlib.blake2b(np.ascontiguousarray(C).tobytes(), digest_size=16).digest(),
+               st["sig"])
         got = self._cache.get(key)
         if got is not None:
             eng.cache_hits += 1
             return got
-        G = np.stack(gens) if gens else np.zeros((0,) + static.shape, dtype=complex)
         n_sub = e - s
         if C.shape[1] and n_sub > 1:
             scale = np.abs(C).max(axis=0)
@@ -267,26 +305,19 @@ class LevelsPath:
             starts = np.zeros(1, dtype=int)
         lengths = np.diff(np.append(starts, n_sub))
         # in a Hermitian basis every generator is real (a quarter of the work)
-        T = _basis(int(round(math.sqrt(static.shape[0]))))
-        Th = T.conj().T
-        static_r = np.real(T @ static @ Th)
-        ck = (id(model), dots, pairs)
-        hit = self._gens.get(ck)
-        if hit is not None and hit[0] is model:
-            G_r = hit[1]
-        else:
-            G_r = (np.stack([np.real(T @ g @ Th) for g in G]) if len(G)
-                   else np.zeros((0,) + static_r.shape))
-            if len(self._gens) > 64:
-                self._gens.clear()
-            self._gens[ck] = (model, G_r)
+        static_r = st["base"].copy()
+        for q, dq in zip(dots, dets):
+            if dq:
+                static_r += dq * st["det"][q]
         L = np.broadcast_to(static_r, (len(starts),) + static_r.shape).copy()
         if C.shape[1]:
-            L += np.einsum("rt,tij->rij", C[starts], G_r)
+            L += np.einsum("rt,tij->rij", C[starts], st["G"])
         mats = _expm(L * (model.h * lengths)[:, None, None])
         eng.exponentials += len(starts)
-        got = Th @ ordered_product(mats[None])[0] @ T
-        if len(self._cache) > eng.cache_entries:
+        got = st["Th"] @ ordered_product(mats[None])[0] @ st["T"]
+        # bounded in bytes as well as entries: a four-level pair's channel is 1 MB
+        if (len(self._cache) > eng.cache_entries
+                or (len(self._cache) + 1) * got.nbytes > CACHE_BYTES):
             self._cache.clear()
         self._cache[key] = got
         return got
@@ -307,7 +338,15 @@ def _apply(T: np.ndarray, dots, M: np.ndarray, levels) -> np.ndarray:
     t_axes = list(range(2 * n + 1))
     out_axes = [io[dots.index(q)] if q in dots else q for q in range(n)] + \
                [jo[dots.index(q)] if q in dots else n + q for q in range(n)] + [2 * n]
-    return np.einsum(Mt, jo + io + ji + ii, T, t_axes, out_axes, optimize=True)
+    key = (tuple(levels), tuple(dots), T.shape[-1])
+    path = _PATHS.get(key)
+    if path is None:
+        path = np.einsum_path(Mt, jo + io + ji + ii, T, t_axes, out_axes, optimize="greedy")[0]
+        _PATHS[key] = path
+    return np.einsum(Mt, jo + io + ji + ii, T, t_axes, out_axes, optimize=path)
+
+
+_PATHS: dict = {}                # contraction orders of _apply, per register, cluster and batch
 
 
 def _mshape(dims) -> tuple[int, ...]:
