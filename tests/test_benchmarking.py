@@ -20,6 +20,7 @@ from compiler.simulate import fidelity as F
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_PAIR = ROOT / "sequences" / "devices" / "demo_pair.yaml"
 DEMO_SINGLE = ROOT / "sequences" / "devices" / "demo_single.yaml"
+SPIN_HALF_PAIR = ROOT / "tests" / "data" / "spin_half_pair.yaml"
 
 
 def _equal_mod_phase(u, v, tol=1e-9):
@@ -284,7 +285,9 @@ RB_KEYS = {"p", "p_interval", "error_per_clifford", "error_per_clifford_interval
 
 
 def _rb_args(out, *extra):
-    return ["rb", str(DEMO_PAIR), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
+    # the spin-1/2 pair: A with B as a spectator on two-level dots (seconds; the
+    # four-level demo pair takes minutes, tests/benchmarks/slow_tests.py)
+    return ["rb", str(SPIN_HALF_PAIR), "--qubits", "A", "--lengths", "1,2,3", "--sequences", "2",
             "--seed", "4", "--workers", "1", "--quiet", "--resamples", "20", "-o", str(out),
             *extra]
 
@@ -394,9 +397,6 @@ def test_rb_on_a_nearly_ideal_device_gives_r_below_1e_6(tmp_path, capsys):
     data = json.loads((out / "rb.json").read_text())
     assert data["error_per_clifford"] < 1e-6
     assert not any("slow noise" in r for r in data["comparison"]["possible_reasons"])
-
-
-SPIN_HALF_PAIR = ROOT / "tests" / "data" / "spin_half_pair.yaml"
 
 
 @pytest.mark.parametrize("device", [

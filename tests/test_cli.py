@@ -303,7 +303,7 @@ def test_a_warning_of_many_runs_is_printed_once_with_its_run_count(tmp_path):
     code, out, _ = dotseq("compile", f, "-o", tmp_path / "b", "--json")
     assert code == 0 and len(json.loads(out)["warnings"]) == 1
     checked = load(f)
-    result = simulate(compile_checked(checked), SimOptions(nodes=3, substeps=1, budget=False,
+    result = simulate(compile_checked(checked), SimOptions(nodes=1, substeps=1, budget=False,
                                                            steps=False))
     assert len(result.warnings) == 1 and result.warnings[0].startswith(tag)
     assert result.warnings[0].endswith("(in 5 of 10 runs)")

@@ -449,11 +449,11 @@ def test_detuning_keeps_the_frames_consistent():
 
 
 def test_readout_beside_a_burst_does_not_cut_the_simulated_span(tmp_path):
-    # 'rot B x 180 deg; read A' on the demo pair: the readout of A starts at 0 beside
-    # B's burst; the simulated span must reach the end of the burst, so B ends up
-    # flipped (π pulse from spin down: P(up) near 1) and the whole-run fidelity is
+    # 'rot B x 180 deg; read A' on the (spin-1/2) pair: the readout of A starts at 0
+    # beside B's burst; the simulated span must reach the end of the burst, so B ends
+    # up flipped (π pulse from spin down: P(up) near 1) and the whole-run fidelity is
     # that of a π pulse, not 0.008 (issue 14; Rabi 1937 for the π flip)
-    dev = (SEQUENCES / "devices" / "demo_pair.yaml").read_text()
+    dev = SPIN_HALF_PAIR.read_text()
     (tmp_path / "dev.yaml").write_text(dev)
     seq = tmp_path / "s.dotseq"
     seq.write_text('device "dev.yaml"\nprepare A B down\nrot B x 180 deg\nread A\n')

@@ -98,7 +98,7 @@ def _expm(A: np.ndarray) -> np.ndarray:
     return np.stack([expm(a) for a in A.reshape((-1,) + A.shape[-2:])]).reshape(A.shape)
 
 
-CACHE_BYTES = 1 << 30          # the channel cache is cleared when it would exceed this
+CACHE_BYTES = 1 << 28          # the channel cache is cleared when it would exceed this
 
 
 class LevelsPath:
