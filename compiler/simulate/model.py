@@ -195,6 +195,9 @@ class NoiseVariable:
     moves: str                   # "detuning" (Hz, of a dot) or "barrier" (V, of a pair)
     target: int                  # dot or pair index
     rms: float
+    # correlated detunings: the variable moves every dot k by weights[k]·x
+    # (a unit vector over the register; target is then its largest entry)
+    weights: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -206,6 +209,22 @@ class Profile:
     source: str                  # registry key
     dot: int                     # register index
     shape: np.ndarray            # (K,) Hz per unit of the variable
+
+
+@dataclass(frozen=True, eq=False)
+class GateBand:
+    """The gate band of a noise spectrum on one target, integrated as a
+    filter-function correction (:mod:`.toggling`; the engines do not read
+    it): ``moves`` "detuning" (a dot's σz/2, spectrum in Hz²/Hz) or
+    "barrier" (a pair's ∂H/∂V on the played barrier pulse, V²/Hz)."""
+    source: str                  # registry key
+    moves: str
+    target: int                  # dot or pair index
+    spectrum: object             # compiler.spectra.Spectrum
+    f_lo: float                  # Hz, band edges
+    f_hi: float
+    # correlated Zeeman noise: ((other dot, correlation coefficient), ...)
+    partners: tuple = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -222,6 +241,7 @@ class Model:
     # sub-step), ...), each term c·O + c*·O†
     drive_terms: dict = field(default_factory=dict)
     profiles: tuple[Profile, ...] = ()
+    gate_bands: tuple[GateBand, ...] = ()      # read by .toggling, not by the engines
 
     def detuning_profile(self, dot: int, modes) -> np.ndarray | None:
         """Σ x_j·shape_j over the profiles on ``dot`` (Hz per sub-step), or
@@ -344,7 +364,7 @@ def _mode_points(model: Model) -> list[NoisePoint]:
 
 def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> list[NoisePoint]:
     x, w = normal_rule(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
-    vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms)
+    vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms, v.weights)
              for v in model.noise if v.rms > 0]
     nd, npair = model.n, len(model.pairs)
     if not vars_ or nodes <= 1:
@@ -356,20 +376,32 @@ def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> li
         import itertools
         for combo in itertools.product(range(len(x)), repeat=len(vars_)):
             det, dv, wt = [0.0] * nd, [0.0] * npair, 1.0
-            for (kind, i, s), c in zip(vars_, combo):
-                (det if kind == "d" else dv)[i] = s * x[c]
+            for (kind, i, s, wv), c in zip(vars_, combo):
+                _place(det, dv, kind, i, s * x[c], wv)
                 wt *= w[c]
             pts.append(NoisePoint(tuple(det), tuple(dv), wt))
         return pts
     # additive: ρ(0) + Σ_i Σ_j w_ij (ρ(x_ij) − ρ(0)); nodes at zero fold into the centre
     centre_w = 1.0 - len(vars_)
-    for kind, i, s in vars_:
+    for kind, i, s, vec in vars_:
         for xv, wv in zip(x, w):
             if abs(xv) < 1e-12:
                 centre_w += float(wv)
                 continue
             det, dv = [0.0] * nd, [0.0] * npair
-            (det if kind == "d" else dv)[i] = s * xv
+            _place(det, dv, kind, i, s * xv, vec)
             pts.append(NoisePoint(tuple(det), tuple(dv), float(wv)))
     centre_w += 0.0
     return [NoisePoint((0.0,) * nd, (0.0,) * npair, centre_w)] + pts
+
+
+def _place(det: list, dv: list, kind: str, i: int, value: float, weights: tuple) -> None:
+    """Add a noise variable's value to a point: one dot's detuning or one
+    pair's barrier offset, or (``weights``) correlated detunings of several dots."""
+    if kind == "d" and weights:
+        for k, wk in enumerate(weights):
+            det[k] += value * wk
+    elif kind == "d":
+        det[i] += value
+    else:
+        dv[i] += value
