@@ -25,6 +25,7 @@ t·(k − ½)/N.  :func:`coherence_time` finds the 1/e time (χ = 1),
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, replace
 
@@ -245,10 +246,18 @@ def coherence_time(spec: Spectrum, kind: str = "ramsey", n: int = 1) -> float:
 
 def implied_times(spec: Spectrum, ns=CPMG_NS) -> dict:
     """The T2* (Ramsey), Hahn T2 and CPMG-N T2 (1/e times, s) a spectrum of
-    frequency noise implies: ``{"t2_star_s", "t2_s", "t2_cpmg_s": {N: T2}}``."""
-    return {"t2_star_s": coherence_time(spec, "ramsey"),
-            "t2_s": coherence_time(spec, "hahn"),
-            "t2_cpmg_s": {int(n): coherence_time(spec, "cpmg", int(n)) for n in ns}}
+    frequency noise implies: ``{"t2_star_s", "t2_s", "t2_cpmg_s": {N: T2}}``
+    (remembered per spectrum: a pure function of it)."""
+    star, hahn, cpmg = _implied(spec, tuple(int(n) for n in ns))
+    return {"t2_star_s": star, "t2_s": hahn, "t2_cpmg_s": dict(cpmg)}
+
+
+@functools.lru_cache(maxsize=64)
+def _implied(spec: Spectrum, ns: tuple[int, ...]):
+    hahn = coherence_time(spec, "hahn")
+    # CPMG-1 is the Hahn echo (one π pulse in the middle)
+    return (coherence_time(spec, "ramsey"), hahn,
+            tuple((n, hahn if n == 1 else coherence_time(spec, "cpmg", n)) for n in ns))
 
 
 def fit_spectrum(measured: dict, *, f_low: float, f_high: float = math.inf,

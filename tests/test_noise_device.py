@@ -118,3 +118,53 @@ def test_sweep_refuses_t2_of_a_spectral_dot(tmp_path, capsys):
     code = main(["sweep", str(seq), "--vary", "A.t2_star=2us:5us:2", "-o", str(tmp_path / "o")])
     assert code == 2
     assert "zeeman_noise" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------------ correlated Zeeman noise
+
+def _line_device(correlation: str) -> tuple[str, int]:
+    """The benchmark line of three dots, each with a 1/f Zeeman spectrum, and a
+    zeeman_correlation section; the file line where the section starts."""
+    import sys
+    from pathlib import Path
+    sys.path.insert(0, str(Path(__file__).parent / "benchmarks"))
+    from workloads import line_device
+    text = line_device(3, zeeman_noise="{at_1hz: 1e9 Hz^2/Hz, exponent: 1}")
+    return text + "zeeman_correlation:\n" + correlation, text.count("\n") + 1
+
+
+def test_zeeman_correlation_is_read():
+    text, _ = _line_device("  - {dots: [D0, D1], coefficient: 0.8}\n"
+                           "  - {dots: [D2, D1], coefficient: -0.3}\n")
+    dev = load_device_text(text, "c.yaml")
+    assert dev.zeeman_correlation == (("D0", "D1", 0.8), ("D2", "D1", -0.3))
+
+
+@pytest.mark.parametrize("body,fragment,row", [
+    ("  - {dots: [D0, D1], coefficient: 1.5}\n", "must be from -1 to 1", 1),
+    ("  - {dots: [D0, D0], coefficient: 0.5}\n", "names 'D0' twice", 1),
+    ("  - {dots: [D0, D9], coefficient: 0.5}\n", "not in dots", 1),
+    ("  - {dots: [D0, D1], coefficient: 0.5}\n  - {dots: [D1, D0], coefficient: 0.2}\n",
+     "already given at zeeman_correlation[0]", 2),
+    # three dots cannot all be anticorrelated: the matrix has eigenvalue 1 − 2·0.9 < 0
+    ("  - {dots: [D0, D1], coefficient: -0.9}\n  - {dots: [D1, D2], coefficient: -0.9}\n"
+     "  - {dots: [D0, D2], coefficient: -0.9}\n", "not positive semidefinite", 0),
+    ("  - {dots: [D0, D1]}\n", "missing the required key 'coefficient'", 1),
+])
+def test_bad_zeeman_correlation(body, fragment, row):
+    # a correlation matrix must be symmetric (by construction here), have entries in
+    # [−1, 1] and be positive semidefinite (common practice, no source)
+    text, start = _line_device(body)
+    with pytest.raises(DeviceError) as exc:
+        load_device_text(text, "c.yaml")
+    p = problem_with(exc.value, fragment)
+    assert p.span.line == start + row, (p.span.line, start)
+    assert p.hint
+
+
+def test_zeeman_correlation_needs_spectra():
+    text = spectral() + "zeeman_correlation:\n  - {dots: [A, B], coefficient: 0.5}\n"
+    with pytest.raises(DeviceError) as exc:
+        load_device_text(text, "c.yaml")
+    p = problem_with(exc.value, "dot 'B' has no zeeman_noise")
+    assert "dots.B.zeeman_noise" in p.hint

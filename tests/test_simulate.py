@@ -501,3 +501,56 @@ def test_every_run_is_averaged_to_the_stated_accuracy(tmp_path):
         assert run.averaging_error is not None and run.averaging_error <= 1e-4
         assert run.state_fidelity == pytest.approx(expected, abs=2e-4)
     assert r.runs[1].nodes > 5                      # refined beyond the starting rule
+
+
+TWO_DOT_AVG_DEVICE = """
+name: two independent dephasing dots
+field: 500 mT
+temperature: 10 mK
+rotation: {{mode: duration, shape: square, duration: 20 ns}}
+readout: {{marker: M1, duration: 100 ns}}
+dots:
+  A: {{g: 2.0, t1: 1 s, t2: 1 s, t2_star: {ta}, drive: {{line: mw, rabi_per_volt: 100 MHz/V}}, plunger: P_A}}
+  B: {{g: 2.01, t1: 1 s, t2: 1 s, t2_star: {tb}, drive: {{line: mw, rabi_per_volt: 100 MHz/V}}, plunger: P_B}}
+channels:
+  mw: {{kind: iq, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V], lo: {lo:.3f} Hz, if_band: [-300 MHz, 300 MHz]}}
+  P_A: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  P_B: {{kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}}
+  M1: {{kind: marker, sample_rate: 1 GS/s}}
+"""
+
+
+@pytest.mark.parametrize("tau, long_free", [(2e-6, False), (12e-6, True)])
+def test_independent_dephasing_of_two_dots_multiplies(tmp_path, tau, long_free):
+    # Two uncoupled dots idle for τ under quasi-static Gaussian detuning: each
+    # keeps its coherence c = exp(−(τ/T2*)²) (Merkulov, Efros & Rosen, PRB 65,
+    # 205309 (2002)), a dephasing channel of process fidelity (1 + c)/2, and the
+    # process fidelity of the pair is the product (tensor product of channels;
+    # common practice, no source).  At τ = 2·T2* the one-variable-at-a-time rule,
+    # summed, gave 1 − Σ(1 − F_q) = 0.018 instead of 0.259; combined as a product
+    # of corrections it is exact here.  At τ = 12·T2* (a = 2π·σ·τ ≈ 17) the
+    # Gauss–Hermite rules of up to 41 nodes do not converge; the equispaced ones
+    # (model.normal_rule) do.
+    from compiler.simulate.model import normal_rule
+    (tmp_path / "dev.yaml").write_text(TWO_DOT_AVG_DEVICE.format(
+        ta="1 us", tb="1.5 us", lo=larmor_frequency(2.005, 0.5)))
+    seq = tmp_path / "w.dotseq"
+    seq.write_text(f'device "dev.yaml"\nprepare A B down\nwait {tau * 1e9:g} ns\nread A B\n')
+    r = simulate(compile(load(seq)), SimOptions(budget=False, steps=False, substeps=1,
+                                                quadrature="additive")).runs[0]
+    expected = 1.0
+    for t2s in (1e-6, 1.5e-6):
+        expected *= (1 + math.exp(-(tau / t2s) ** 2)) / 2
+    assert r.averaging_error <= 1e-4
+    assert r.process_fidelity == pytest.approx(expected, abs=2e-4)
+    if long_free:
+        assert r.nodes >= 33
+        # the same integral by Gauss–Hermite with 41 nodes is off by more than the
+        # default tolerance, the equispaced rule of 65 is not: E[cos(a·X)] = exp(−a²/2)
+        a = math.sqrt(2) * tau / 1e-6
+        x, w = np.polynomial.hermite.hermgauss(41)
+        gh = float(np.sum(w * np.cos(a * math.sqrt(2) * x)) / math.sqrt(math.pi))
+        xt, wt = normal_rule(65)
+        tr = float(np.sum(wt * np.cos(a * xt)))
+        assert abs(gh - math.exp(-a * a / 2)) > 1e-4
+        assert abs(tr - math.exp(-a * a / 2)) < 1e-6

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import yaml
 from yaml.constructor import ConstructorError, SafeConstructor
 from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
@@ -47,7 +48,7 @@ from .rules import ERROR, validate
 
 TOP_REQUIRED = ("name", "field", "temperature", "dots", "channels")
 TOP_OPTIONAL = ("notes", "rotation", "readout", "couplings", "field_tilt", "acquisition_time",
-                "points")
+                "points", "zeeman_correlation")
 
 DOT_KEYS = ("preset", "g", "t1", "t2", "t2_star", "drive", "plunger", "zeeman_noise", "readout",
             "spin_orbit", "valley_splitting", "valley_g", "valley_t1", "qubit_levels")
@@ -950,6 +951,80 @@ def _read_coupling(r: _Reader, i: int, node: Node, dots: dict, dot_names: set) -
             "bnoise": bnoise, "readout": pair_ro}
 
 
+CORRELATION_KEYS = ("dots", "coefficient")
+
+
+def _read_correlation(r: _Reader, kv: tuple[Node, Node], dots: dict) -> tuple:
+    """``zeeman_correlation``: a list of ``{dots: [A, B], coefficient: c}``, the
+    correlation coefficient of two dots' Zeeman noises (both given as
+    spectra).  Each c in [−1, 1], each pair once; the matrix they form (ones
+    on the diagonal, zero for pairs not listed; symmetric by construction)
+    must be positive semidefinite.  Returns ((A, B, c), ...)."""
+    knode, node = kv
+    path = "zeeman_correlation"
+    example = "e.g. 'zeeman_correlation: [{dots: [A, B], coefficient: 0.8}]'"
+    if not isinstance(node, SequenceNode):
+        r.error(node, f"{path} must be a list of '{{dots: [A, B], coefficient: c}}' entries, "
+                      f"got {_kind_of(node)}", example)
+        return ()
+    out, seen = [], {}
+    for i, item in enumerate(node.value):
+        ipath = f"{path}[{i}]"
+        try:
+            m = r.mapping(item, ipath, CORRELATION_KEYS, CORRELATION_KEYS, example=example)
+        except _Skip:
+            continue
+        dn = m["dots"][1]
+        if not isinstance(dn, SequenceNode) or len(dn.value) != 2:
+            r.error(dn, f"{ipath}.dots must list exactly two dots", "e.g. dots: [A, B]")
+            continue
+        names = []
+        for j, d in enumerate(dn.value):
+            try:
+                nm = r.ident(d, f"{ipath}.dots[{j}]", "dot")
+            except _Skip:
+                continue
+            if nm not in dots:
+                r.error(d, f"{ipath}.dots names the dot '{nm}', which is not in dots",
+                        suggest(nm, set(dots)))
+            elif dots[nm].zeeman_noise is None:
+                r.error(d, f"{ipath}: dot '{nm}' has no zeeman_noise spectrum to correlate",
+                        f"give dots.{nm}.zeeman_noise (a spectrum), or leave the pair out")
+            else:
+                names.append(nm)
+        c = r.get(m, "coefficient", r.number, f"{ipath}.coefficient")
+        if len(names) != 2 or c is None:
+            continue
+        if names[0] == names[1]:
+            r.error(dn, f"{ipath}.dots names '{names[0]}' twice",
+                    "a dot's noise is fully correlated with itself; list two different dots")
+            continue
+        if not -1.0 <= c.value <= 1.0:
+            r.error(c.node, f"{ipath}.coefficient {c.value:g} must be from -1 to 1",
+                    "a correlation coefficient: 1 common-mode, -1 opposite, 0 independent")
+            continue
+        key = frozenset(names)
+        if key in seen:
+            r.error(dn, f"{ipath}: the pair {names[0]}, {names[1]} is already given at "
+                        f"{path}[{seen[key]}]", "give each pair once")
+            continue
+        seen[key] = i
+        out.append((names[0], names[1], float(c.value)))
+    if out:
+        order = [q for q in dots if any(q in (a, b) for a, b, _ in out)]
+        C = np.eye(len(order))
+        for a, b, c in out:
+            C[order.index(a), order.index(b)] = C[order.index(b), order.index(a)] = c
+        low = float(np.linalg.eigvalsh(C).min())
+        if low < -1e-12:
+            r.error(knode, f"{path}: the correlation matrix of {', '.join(order)} is not positive "
+                           f"semidefinite (smallest eigenvalue {low:.3g}), so no noise has it",
+                    "lower the coefficients: e.g. three dots cannot all be anticorrelated; "
+                    "for A, B, C with c_AB = c_BC = c, c_AC must be at least 2c² − 1")
+            return ()
+    return tuple(out)
+
+
 def _read_spectrum(r: _Reader, kv: tuple[Node, Node], path: str, dim: Dim,
                    unit: str) -> dict | None:
     """A spectrum mapping (SPECTRUM_KEYS): values in SI; f_low may be left to
@@ -1290,6 +1365,9 @@ def _build(r: _Reader, root: Node) -> Device:
             cp = dataclasses.replace(cp, barrier_noise=bn)
         couplings.append(cp)
 
+    correlation = (_read_correlation(r, top["zeeman_correlation"], dots)
+                   if "zeeman_correlation" in top else ())
+
     points = _read_points(r, top["points"], channels) if "points" in top else {}
     for pt in points.values():
         # the generator plays the level, or behind a bias tee the level minus
@@ -1326,7 +1404,8 @@ def _build(r: _Reader, root: Node) -> Device:
                     rotation=rotation[0] if rotation else RotationDefaults(),
                     readout=readout[0] if readout else Readout(),
                     notes=notes.value if notes else "", field_tilt=tilt_v,
-                    acquisition_time=acq.value if acq else 0.0, points=points)
+                    acquisition_time=acq.value if acq else 0.0, points=points,
+                    zeeman_correlation=correlation)
     for f in validate(device):
         node = _locate(r, root, f.key, f.near)
         message = f.message

@@ -249,6 +249,8 @@ class Device:
     field_tilt: float = 0.0   # rad from the sample plane (0 = in-plane, π/2 = out of plane)
     acquisition_time: float = 0.0   # s, total time a measurement averages over (0: not given)
     points: dict[str, VoltagePoint] = field(default_factory=dict)  # named voltage points
+    # correlation coefficients of dots' Zeeman-noise spectra: ((dot A, dot B, c), ...)
+    zeeman_correlation: tuple[tuple[str, str, float], ...] = ()
     # Physically doubtful but legal settings (large idle exchange, weak
     # thermal polarisation, ...): positioned like errors, never raised.
     warnings: tuple[Problem, ...] = ()

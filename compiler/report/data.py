@@ -18,7 +18,8 @@ from typing import Any
 import numpy as np
 
 from ..jsontext import jsonable
-from ..simulate.types import BudgetLine, Observable, RunResult, SimulationResult, StepFidelity
+from ..simulate.types import (BudgetLine, Observable, RunResult, SimulationResult, SpectrumBand,
+                              SpectrumSummary, StepFidelity)
 from .errors import fail
 
 FORMAT_NAME = "dotseq-report"
@@ -153,7 +154,20 @@ def result_from_document(doc: dict) -> SimulationResult:
         settings=dict(r.get("settings", {})),
         warnings=tuple(str(w) for w in r.get("warnings", ())),
         stats=dict(r.get("stats", {})),
+        spectra=tuple(_spectrum(x) for x in r.get("spectra", ())),
     )
+
+
+def _spectrum(d: dict) -> SpectrumSummary:
+    return SpectrumSummary(
+        target=str(d["target"]), quantity=str(d["quantity"]), unit=str(d["unit"]),
+        at_1hz=_num(d["at_1hz"]), exponent=_num(d["exponent"]), white=_num(d["white"]),
+        f_low=_num(d["f_low"]), f_high=_num(d["f_high"]), window=_num(d["window"]),
+        bands=tuple(SpectrumBand(str(b["name"]), _num(b["f_from"]), _num(b["f_to"]),
+                                 _num(b["variance"]), str(b["treatment"]))
+                    for b in d.get("bands", ())),
+        t2_star_s=_opt(d.get("t2_star_s")), t2_s=_opt(d.get("t2_s")),
+        t2_cpmg_s={int(n): _num(t) for n, t in (d.get("t2_cpmg_s") or {}).items()})
 
 
 def load_results(path: str | Path) -> SimulationResult:

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from typing import Any, Sequence
 
 from ..preview.style import CAUTION_TEXT
-from ..simulate.run import MAX_NODES
+from ..simulate.run import MAX_REFINED_NODES
 from ..simulate.types import RunResult, SimulationResult
 from .data import jsonable
 from ..numfmt import (fmt_fidelity, fmt_infidelity, fmt_percent, fmt_population, fmt_ratio,
@@ -239,13 +239,13 @@ def averaging_line(result: SimulationResult, run: RunResult) -> str:
         over = (f"; ABOVE the tolerance {tol:.1e}: even {run.nodes} nodes (the most) do not "
                 "average this run to it (free evolution long against T2*, or exchange long "
                 "against its charge noise): the figures are uncertain by about this much"
-                if run.nodes >= MAX_NODES else
+                if run.nodes >= MAX_REFINED_NODES else
                 f"; ABOVE the tolerance {tol:.1e}: give --nodes higher")
     else:
         over = f" (tolerance {tol:.1e})" if tol is not None else ""
     return (f"averaging error {err:.1e} in fidelity (|F({run.nodes}) - F({m})| of "
-            f"the Gauss-Hermite rules of {run.nodes} and {m} nodes per noise "
-            f"variable){over}")
+            f"the rules of {run.nodes} and {m} nodes per noise variable: Gauss-Hermite "
+            f"below 17 nodes, equispaced from 17){over}")
 
 
 def _populations(run: RunResult) -> list[tuple[str, float]]:

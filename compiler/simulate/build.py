@@ -31,6 +31,7 @@ is on.  The ``played`` sources are switched here, by name.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -42,9 +43,10 @@ from ..physics import precession_sign
 from ..synth.types import Waveforms
 from ..device.levels import SPIN, qubit_basis
 from ..errors import UsageError
+from . import toggling
 from .bands import mode_shapes
-from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, LevelPair, Model,
-                    NoiseVariable, Pair, Profile, freeze)
+from .model import (GL_NODES, GL_W, GL_X, SPIN_HALF_LEVELS, Dissipator, DotSpec, GateBand,
+                    LevelPair, Model, NoiseVariable, Pair, Profile, freeze)
 
 CONNECT_TOL = 1e-6     # |matrix element|² below this: the drive does not connect two levels
 
@@ -254,8 +256,11 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         pairs.append(Pair(a, b, f"{cpl.dots[0]}-{cpl.dots[1]}", v, phase, cpl.exchange,
                           lo_v, hi_v, delta))
     specs = tuple(specs[q] for q in dots)
-    dissipators, noise, profiles = [], [], []
+    dissipators, noise, profiles, bands = [], [], [], []
     window = K * h
+    # a register small enough for the toggling-frame correction takes the gate
+    # bands there (.toggling), without the engines' modes
+    small = math.prod(s.levels for s in specs) <= toggling.MAX_DIM
     for src in SOURCES.values():
         if not sw.on(src.key):
             continue
@@ -269,14 +274,20 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
                       for moves, target, rms in src.noise(device)]
         if src.window is not None and sw.on(src.key):
             # the bands of a spectrum for this window (sources.py, bands.py)
-            nv, ds, pf = window_terms(src.key, src.window(device, window), K, h)
+            nv, ds, pf, gb = window_terms(src.key, src.window(device, window), K, h,
+                                          bands=True, modes=not small)
             noise += nv
             dissipators += ds
             profiles += pf
+            bands += gb
     # the engines take the dissipators dot by dot, in registry order
     dissipators.sort(key=lambda d: d.dot)
+    if not small:
+        # larger registers: the Zeeman bands go through the engines' modes; the
+        # barrier bands are not simulated there (docs/simulate.md, "Limits")
+        bands = []
     return Model(specs, h, start * dt, K, drive, tuple(pairs), tuple(dissipators), tuple(noise),
-                 drive_terms, tuple(profiles))
+                 drive_terms, tuple(profiles), tuple(bands))
 
 
 def _valley_drive(spec: DotSpec, c: np.ndarray, dt: float, tau: float, m: int, lo: float,
@@ -307,19 +318,35 @@ def _valley_drive(spec: DotSpec, c: np.ndarray, dt: float, tau: float, m: int, l
 MODE_CHUNKS = 1024     # gate-band modes are held on at most this many chunks per window
 
 
-def window_terms(key: str, items, K: int, h: float):
+def window_terms(key: str, items, K: int, h: float, *, bands: bool = False, modes: bool = True):
     """Model terms of a source's band items (:attr:`.sources.Source.window`):
-    (noise variables, dissipators, profiles)."""
-    noise, dissipators, profiles = [], [], []
+    (noise variables, dissipators, profiles), and with ``bands`` also the
+    gate bands (:class:`.model.GateBand`) as a fourth element; without
+    ``modes`` the gate-band modes are left out (the band is integrated by
+    :mod:`.toggling` instead)."""
+    noise, dissipators, profiles, gate = [], [], [], []
+    links = []
     chunk = max(1, K // MODE_CHUNKS)
     for item in items:
         if item[0] in ("detuning", "barrier"):
             noise.append(NoiseVariable(key, *item))
+        elif item[0] == "detuning_vector":
+            noise.append(NoiseVariable(key, "detuning", item[1], item[2], item[3]))
+        elif item[0] == "correlation":
+            links.append(item[1:])
         elif item[0] == "dissipator":
             dissipators.append(Dissipator(key, item[1], item[2], item[3]))
         elif item[0] == "mode":
+            if not modes:
+                continue
             c, s = mode_shapes(item[2], item[3], K, h, chunk)
             profiles += [Profile(key, item[1], c), Profile(key, item[1], s)]
+        elif item[0] == "band":
+            gate.append(GateBand(key, *item[1:]))
         else:
             raise ValueError(f"source {key}: unknown band item {item[0]!r}")
-    return noise, dissipators, profiles
+    if links and bands:
+        gate = [dataclasses.replace(b, partners=tuple(
+            (y if x == b.target else x, c) for x, y, c in links if b.target in (x, y)))
+            if b.moves == "detuning" else b for b in gate]
+    return (noise, dissipators, profiles, gate) if bands else (noise, dissipators, profiles)

@@ -195,6 +195,9 @@ class NoiseVariable:
     moves: str                   # "detuning" (Hz, of a dot) or "barrier" (V, of a pair)
     target: int                  # dot or pair index
     rms: float
+    # correlated detunings: the variable moves every dot k by weights[k]·x
+    # (a unit vector over the register; target is then its largest entry)
+    weights: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -206,6 +209,22 @@ class Profile:
     source: str                  # registry key
     dot: int                     # register index
     shape: np.ndarray            # (K,) Hz per unit of the variable
+
+
+@dataclass(frozen=True, eq=False)
+class GateBand:
+    """The gate band of a noise spectrum on one target, integrated as a
+    filter-function correction (:mod:`.toggling`; the engines do not read
+    it): ``moves`` "detuning" (a dot's σz/2, spectrum in Hz²/Hz) or
+    "barrier" (a pair's ∂H/∂V on the played barrier pulse, V²/Hz)."""
+    source: str                  # registry key
+    moves: str
+    target: int                  # dot or pair index
+    spectrum: object             # compiler.spectra.Spectrum
+    f_lo: float                  # Hz, band edges
+    f_hi: float
+    # correlated Zeeman noise: ((other dot, correlation coefficient), ...)
+    partners: tuple = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -222,6 +241,7 @@ class Model:
     # sub-step), ...), each term c·O + c*·O†
     drive_terms: dict = field(default_factory=dict)
     profiles: tuple[Profile, ...] = ()
+    gate_bands: tuple[GateBand, ...] = ()      # read by .toggling, not by the engines
 
     def detuning_profile(self, dot: int, modes) -> np.ndarray | None:
         """Σ x_j·shape_j over the profiles on ``dot`` (Hz per sub-step), or
@@ -269,6 +289,39 @@ def gauss_hermite(n: int) -> tuple[np.ndarray, np.ndarray]:
     return math.sqrt(2) * t, w / math.sqrt(math.pi)
 
 
+TRAPEZOID_FROM = 17     # rules of this many nodes or more are equispaced (normal_rule)
+TRAPEZOID_HALF_WIDTH = 5.0
+# weight of N(0, 1) beyond ±TRAPEZOID_HALF_WIDTH, cut off by those rules: a fidelity moves by
+# at most twice it (added to the stated averaging error of an equispaced rule)
+TRAPEZOID_TAIL = math.erfc(TRAPEZOID_HALF_WIDTH / math.sqrt(2))
+
+
+def normal_rule(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes and weights for E[f(X)], X ~ N(0, 1), with ``n`` nodes.
+
+    Below :data:`TRAPEZOID_FROM` nodes: Gauss–Hermite (:func:`gauss_hermite`),
+    the best rule for smooth integrands.  From there on: the trapezoidal rule
+    on [−5, 5] with weights ∝ exp(−x²/2) (normalised).  A run of free
+    precession t under a quasi-static detuning of rms σ (Hz) makes the
+    integrand oscillate as e^{i·a·x}, a = 2π·σ·t; Gauss–Hermite needs about
+    e·a²/2 nodes for it, the trapezoidal rule only 2π/Δ ≳ a + 4.3 (spacing Δ:
+    its error is the aliased term e^{−(2π/Δ − a)²/2}, by Poisson summation,
+    plus the cut tails, :data:`TRAPEZOID_TAIL` = 5.7e-7 of the weight, which
+    moves a fidelity by at most twice that and is added to the stated
+    averaging error), i.e. about 1.6·(a + 4.3) nodes: linear in the free
+    time instead of quadratic (17 nodes: a ≤ 5.8; 33: a ≤ 15.8; 65: a ≤ 36;
+    129: a ≤ 76).  Measured on the
+    GaAs Rabi example (a ≈ 15): 33 trapezoidal nodes agree with 129 to 1e-6,
+    while 81 Gauss–Hermite nodes are still 0.1 off.  The rules of 2^k + 1
+    nodes are nested, so a refined rule reuses the channels of the coarser
+    one (the engines' caches)."""
+    if n < TRAPEZOID_FROM:
+        return gauss_hermite(n)
+    x = np.linspace(-TRAPEZOID_HALF_WIDTH, TRAPEZOID_HALF_WIDTH, n)
+    w = np.exp(-x ** 2 / 2)
+    return x, w / w.sum()
+
+
 @dataclass(frozen=True)
 class NoisePoint:
     detuning: tuple[float, ...]          # Hz per dot
@@ -310,8 +363,8 @@ def _mode_points(model: Model) -> list[NoisePoint]:
 
 
 def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> list[NoisePoint]:
-    x, w = gauss_hermite(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
-    vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms)
+    x, w = normal_rule(nodes) if nodes > 1 else (np.zeros(1), np.ones(1))
+    vars_ = [("d" if v.moves == "detuning" else "v", v.target, v.rms, v.weights)
              for v in model.noise if v.rms > 0]
     nd, npair = model.n, len(model.pairs)
     if not vars_ or nodes <= 1:
@@ -323,20 +376,32 @@ def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> li
         import itertools
         for combo in itertools.product(range(len(x)), repeat=len(vars_)):
             det, dv, wt = [0.0] * nd, [0.0] * npair, 1.0
-            for (kind, i, s), c in zip(vars_, combo):
-                (det if kind == "d" else dv)[i] = s * x[c]
+            for (kind, i, s, wv), c in zip(vars_, combo):
+                _place(det, dv, kind, i, s * x[c], wv)
                 wt *= w[c]
             pts.append(NoisePoint(tuple(det), tuple(dv), wt))
         return pts
     # additive: ρ(0) + Σ_i Σ_j w_ij (ρ(x_ij) − ρ(0)); nodes at zero fold into the centre
     centre_w = 1.0 - len(vars_)
-    for kind, i, s in vars_:
+    for kind, i, s, vec in vars_:
         for xv, wv in zip(x, w):
             if abs(xv) < 1e-12:
                 centre_w += float(wv)
                 continue
             det, dv = [0.0] * nd, [0.0] * npair
-            (det if kind == "d" else dv)[i] = s * xv
+            _place(det, dv, kind, i, s * xv, vec)
             pts.append(NoisePoint(tuple(det), tuple(dv), float(wv)))
     centre_w += 0.0
     return [NoisePoint((0.0,) * nd, (0.0,) * npair, centre_w)] + pts
+
+
+def _place(det: list, dv: list, kind: str, i: int, value: float, weights: tuple) -> None:
+    """Add a noise variable's value to a point: one dot's detuning or one
+    pair's barrier offset, or (``weights``) correlated detunings of several dots."""
+    if kind == "d" and weights:
+        for k, wk in enumerate(weights):
+            det[k] += value * wk
+    elif kind == "d":
+        det[i] += value
+    else:
+        dv[i] += value

@@ -68,17 +68,24 @@ def trajectories(sp: Spectrum, k: int, h: float, count: int, rng,
 
 
 def monte_carlo(engine, model: Model, spectra: dict, count: int, *, seed: int = 0,
-                rho0=None, process: bool = False, groups: int = 20):
+                rho0=None, process: bool = False, groups: int = 20,
+                correlation: dict | None = None):
     """Average of ``count`` trajectories: per dot index in ``spectra`` a
     trajectory of its spectrum is added to the dot's detuning (the model's
-    own noise variables and profiles are replaced).  The trajectories are
-    run in ``groups`` batches (one engine call each); the statistical error
-    is the standard error of the batch means.  Returns (mean, standard
-    error) elementwise of the final ρ from ``rho0``, or of the
-    superoperator with ``process``."""
+    own noise variables, profiles and gate bands are replaced).  With
+    ``correlation`` {(a, b): c} (dots of equal spectra), dot b's trajectory
+    is c·x_a + √(1 − c²)·x_b (correlation c at every frequency).  The
+    trajectories are run in ``groups`` batches (one engine call each); the
+    statistical error is the standard error of the batch means.  Returns
+    (mean, standard error) elementwise of the final ρ from ``rho0``, or of
+    the superoperator with ``process``."""
     rng = np.random.default_rng(seed)
-    base = dataclasses.replace(model, noise=())
+    base = dataclasses.replace(model, noise=(), gate_bands=())
     paths = {q: trajectories(sp, model.k, model.h, count, rng) for q, sp in spectra.items()}
+    for (a, b), c in (correlation or {}).items():
+        if spectra[a] != spectra[b]:
+            raise ValueError("correlated trajectories need equal spectra")
+        paths[b] = c * paths[a] + math.sqrt(1 - c * c) * paths[b]
     per = -(-count // groups)
     means = []
     for g in range(0, count, per):
@@ -96,3 +103,30 @@ def monte_carlo(engine, model: Model, spectra: dict, count: int, *, seed: int = 
         means.append(ev.superop if process else ev.rho)
     arr = np.array(means)
     return arr.mean(axis=0), arr.std(axis=0, ddof=1) / math.sqrt(len(arr))
+
+
+def monte_carlo_barrier(engine, model: Model, spectra: dict, count: int, *, seed: int = 0,
+                        rho0=None, process: bool = False, groups: int = 20):
+    """Barrier-voltage noise: per pair index in ``spectra`` a trajectory δV(t)
+    of its spectrum (V²/Hz, the power-law part) is added to the pair's played
+    barrier voltage, so J(V + δV) follows the exchange model through the
+    whole pulse; each trajectory is one engine run (the model's own noise
+    variables, profiles and gate bands are dropped).  Returns (mean,
+    standard error of ``groups`` batch means) of the final ρ from ``rho0``,
+    or of the superoperator with ``process``."""
+    rng = np.random.default_rng(seed)
+    base = dataclasses.replace(model, noise=(), profiles=(), gate_bands=())
+    paths = {i: trajectories(sp, model.k, model.h, count, rng) for i, sp in spectra.items()}
+    point = NoisePoint((0.0,) * model.n, (0.0,) * len(model.pairs), 1.0)
+    out = []
+    for t in range(count):
+        pairs = list(base.pairs)
+        for i, p in paths.items():
+            pairs[i] = dataclasses.replace(pairs[i], volts=pairs[i].volts + p[t][:, None])
+        ev = engine.average(dataclasses.replace(base, pairs=tuple(pairs)), [point], rho0=rho0,
+                            process=process)
+        out.append(ev.superop if process else ev.rho)
+    arr = np.array(out)
+    per = -(-count // groups)
+    means = np.array([arr[g:g + per].mean(axis=0) for g in range(0, count, per)])
+    return arr.mean(axis=0), means.std(axis=0, ddof=1) / math.sqrt(len(means))

@@ -28,17 +28,20 @@ from ..runwarnings import merged
 from ..synth.types import CompiledRun, Recompiler
 from ..threads import one_thread
 from . import fidelity as F
+from . import toggling
 from .build import build_model
 from .engines import ENGINES, ClusterTooLarge, make_engine
 from .memory import too_large_error
-from .model import dot_operator, embed, noise_points
+from .model import TRAPEZOID_FROM, TRAPEZOID_TAIL, dot_operator, embed, noise_points
 from .observe import SCOPES, assess
 from .sources import ALL_ON, SOURCES, Switches, compile_changes, floor
-from .types import BudgetLine, RunResult, SimulationResult, StepFidelity
+from .types import (BudgetLine, RunResult, SimulationResult, SpectrumBand, SpectrumSummary,
+                    StepFidelity)
 
 MAX_PROCESS_QUBITS = 5
 MAX_SHOTS = 10 ** 12
-MAX_NODES = 41                    # Gauss–Hermite nodes per variable at most (refinement stops there)
+MAX_NODES = 41                    # quadrature nodes per variable to start from, at most
+MAX_REFINED_NODES = 129           # the refinement stops there (model.normal_rule: nested rules)
 
 
 @dataclass(frozen=True)
@@ -136,42 +139,155 @@ def program_steps(tl):
 
 def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, product: bool = True,
              correction=None):
-    """The model averaged over its quadrature points.  Gate-band modes: as a
+    """The model averaged over its quadrature points.  Gate band: as a
     product of channel corrections (``product``, :func:`combine_modes`), or
     with ``correction`` (a superoperator found once for the whole run) applied
-    to the average over the other variables, or else one at a time in the
-    points (the additive rule, exact to second order: the per-step
-    fidelities, whose errors are small)."""
-    if model.profiles and process and correction is not None:
+    to the average over the other variables, or else its modes one at a time
+    in the points (the additive rule, exact to second order: the per-step
+    fidelities of registers too large for :mod:`.toggling`)."""
+    if has_gate_band(model) and process and correction is not None:
         const = [p for p in pts if not p.modes]
-        ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
+        ev = average_constant(engine, model, const, rho0=rho0, traces=traces)
         return _corrected(ev, correction, rho0)
-    if model.profiles and process and product:
+    if has_gate_band(model) and process and product:
         return combine_modes(engine, model, pts, rho0=rho0, traces=traces)
+    if process and product:
+        ev = average_constant(engine, model, pts, rho0=rho0, traces=traces)
+        return ev.superop, ev.rho, ev.traces
     ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
 
 
+@dataclass(frozen=True)
+class _Averaged:
+    superop: np.ndarray
+    rho: np.ndarray | None
+    traces: dict
+
+
+CONDITION_LIMIT = 1e8     # R₀ worse conditioned than this: the sum is kept (see average_constant)
+
+
+def _one_at_a_time(pts):
+    """(centre point, [points of variable j, ...]) when ``pts`` is the
+    one-variable-at-a-time rule of two or more variables (model.noise_points,
+    "additive"), else None."""
+    centre, groups = None, {}
+    for p in pts:
+        if p.modes and any(p.modes):
+            return None
+        nz = [i for i, x in enumerate(tuple(p.detuning) + tuple(p.dv)) if x != 0.0]
+        if not nz:
+            if centre is not None:
+                return None
+            centre = p
+        elif len(nz) == 1:
+            groups.setdefault(nz[0], []).append(p)
+        else:
+            return None
+    if centre is None or len(groups) < 2:
+        return None
+    return centre, [groups[k] for k in sorted(groups)]
+
+
+def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
+    """The whole-run channel averaged over the quasi-static variables.
+
+    For the one-variable-at-a-time rule the per-variable averages are
+    combined as a product of channel corrections, S = R₀·Π_j R₀⁻¹·R_j (R₀ the
+    run at the centre, R_j the average over variable j alone, in the order
+    of the model's variables), not as the sum R₀ + Σ_j (R_j − R₀).  Both are
+    exact to second order in the noise; the product is also exact whenever
+    the corrections commute (independent dephasing of different dots, or
+    of one dot's coherences), where the sum makes a coherence 1 − Σ(1 − c_j)
+    instead of Π c_j and goes negative once several dots are dephased (the
+    ribbon example's whole-run fidelity came out −0.03 with the sum).
+    Where R₀ is ill conditioned (cond > :data:`CONDITION_LIMIT`: relaxation
+    that empties levels within the run) the sum is kept.  Other rules (the
+    product grid, one variable): the weighted sum."""
+    split = _one_at_a_time(pts)
+    if split is not None:
+        centre, groups = split
+        ev0 = engine.average(model, [dataclasses.replace(centre, weight=1.0)], process=True,
+                             rho0=rho0, trace_points=traces)
+        R0 = ev0.superop
+        if np.linalg.cond(R0) < CONDITION_LIMIT:
+            X = np.eye(len(R0), dtype=R0.dtype)
+            for grp in groups:
+                wsum = sum(p.weight for p in grp)
+                # the variable's own rule: its nodes off zero, and its node at zero
+                # (folded into the centre by noise_points) with the rest of the weight
+                Rj = engine.average(model, grp, process=True).superop + (1.0 - wsum) * R0
+                X = X @ np.linalg.solve(R0, Rj)
+            S = R0 @ X
+            rho = None
+            if rho0 is not None:
+                d = rho0.shape[0]
+                rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
+            return _Averaged(S, rho, ev0.traces)
+    ev = engine.average(model, pts, process=True, rho0=rho0, trace_points=traces)
+    return _Averaged(ev.superop, ev.rho, ev.traces)
+
+
+def has_gate_band(model) -> bool:
+    """Whether the model holds a gate band (modes or bands)."""
+    return bool(model.profiles or model.gate_bands)
+
+
 def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict | None = None):
-    """The gate-band modes (points with ``modes``) combined as a product of
-    channel corrections instead of a sum: S = S_c·exp(Σ_j log(R₀⁻¹·R_j)),
-    S_c the average over the constant noise variables, R₀ the run without
-    noise variables, R_j the average over mode j's nodes.  Equal to the
-    additive rule to second order in the mode amplitudes, and exact when the
-    corrections commute (pure dephasing: χ adds over the modes, so decays to
-    1/e come out as exp(−Σχ_j) instead of 1 − Σ(1 − e^{−χ_j})).
-    Returns (superoperator, final ρ from ``rho0``, traces)."""
-    from scipy.linalg import expm, logm
+    """The gate band applied as a channel correction after the average over
+    the constant noise variables: S = S_c·C, S_c the engine's average over the
+    points without ``modes``, C = :func:`gate_correction`.
+    Returns (superoperator, final ρ from ``rho0``, traces); with ``parts``
+    given, C is left in ``parts["correction"]``."""
     const = [p for p in pts if not p.modes]
-    centre = [p for p in pts if p.modes and not any(p.modes)]
-    ev = engine.average(model, const, process=True, rho0=rho0, trace_points=traces)
-    if not centre:
+    ev = average_constant(engine, model, const, rho0=rho0, traces=traces)
+    corr = gate_correction(engine, model)
+    if corr is None:
         return ev.superop, ev.rho, ev.traces
+    if parts is not None:
+        parts["correction"] = GateCorrection(gate_key(model), corr)
+    return _corrected(ev, corr, rho0)
+
+
+@dataclass(frozen=True, eq=False)
+class GateCorrection:
+    """A gate-band correction with the gate bands it is of (:func:`gate_key`)."""
+    key: tuple
+    matrix: np.ndarray
+
+
+def gate_key(model) -> tuple:
+    """Which gate bands (and modes) a model holds: sources and targets."""
+    return (tuple((b.source, b.moves, b.target) for b in model.gate_bands)
+            + tuple(sorted({(p.source, p.dot) for p in model.profiles})))
+
+
+def gate_correction(engine, model):
+    """The channel correction of the model's gate band (column-stacked
+    superoperator), or None without one.
+
+    Registers of dimension up to :data:`.toggling.MAX_DIM`: the band's
+    second-order cumulant in the toggling frame of the noise-free control,
+    from its covariance (:func:`.toggling.correction`; one propagation, no
+    engine evaluation).  Larger ones: the engine's modes, combined as a
+    product C = exp(Σ_j log(R₀⁻¹·R_j)), R₀ the run without noise variables,
+    R_j the average over mode j's nodes: equal to the additive rule to second
+    order in the mode amplitudes, and exact when the corrections commute
+    (pure dephasing: χ adds over the modes, so decays to 1/e come out as
+    exp(−Σχ_j) instead of 1 − Σ(1 − e^{−χ_j}))."""
+    if toggling.applies(model):
+        return toggling.correction(model)
+    if not model.profiles:
+        return None
+    from scipy.linalg import expm, logm
+    pts = [p for p in noise_points(model, 1) if p.modes]
+    centre = [p for p in pts if not any(p.modes)]
     zero = dataclasses.replace(centre[0], weight=1.0)
     R0 = engine.average(model, [zero], process=True).superop
     groups: dict = {}
     for p in pts:
-        if p.modes and any(p.modes):
+        if any(p.modes):
             j = next(i for i, x in enumerate(p.modes) if x)
             groups.setdefault(j, []).append(p)
     R0inv = np.linalg.inv(R0)
@@ -183,10 +299,7 @@ def combine_modes(engine, model, pts, *, rho0=None, traces: int = 0, parts: dict
         X = R0inv @ Rj - np.eye(len(R0))
         nx = np.linalg.norm(X, 2)
         gen += (X - X @ X / 2 + X @ X @ X / 3) if nx < 0.05 else logm(np.eye(len(R0)) + X)
-    corr = expm(gen)
-    if parts is not None:
-        parts["correction"] = corr
-    return _corrected(ev, corr, rho0)
+    return expm(gen)
 
 
 def _corrected(ev, corr, rho0):
@@ -227,17 +340,18 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
     """The whole run (to the start of its final readout) with the given
     sources switched on, averaged over the quadrature points.
 
-    With ``nodes`` given, that Gauss–Hermite rule (the budget's what-if
+    With ``nodes`` given, that rule (the budget's what-if
     runs use the rule of the total).  Otherwise the average is refined:
     rules of ``opts.nodes − 2`` and ``opts.nodes`` nodes per variable (then
-    2n − 1 nodes at a time, up to :data:`MAX_NODES`) until the fidelities of
+    2n − 1 nodes at a time, up to :data:`MAX_REFINED_NODES`) until the fidelities of
     two successive rules agree within ``opts.averaging_tolerance``; the
     finer one is kept and their difference is the stated averaging error
     (``Whole.averaging_error``; it exceeds the tolerance only when
-    :data:`MAX_NODES` was reached).  The kind of rule follows the node count
+    :data:`MAX_REFINED_NODES` was reached).  The kind of rule follows the node count
     (:func:`quadrature_rule`: the product grid while it has at most 27
     points, then one variable at a time), so that refining never costs more
-    than 27 points or 2·``MAX_NODES`` per variable; when two successive rules
+    than 27 points or 2·``MAX_REFINED_NODES`` per variable (Gauss–Hermite rules
+    below 17 nodes, equispaced ones from 17: :func:`.model.normal_rule`); when two successive rules
     are of different kinds their difference, the stated error, includes the
     difference of the kinds.
 
@@ -258,6 +372,20 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         return quadrature_rule(device, dataclasses.replace(opts, nodes=n))
 
     noisy = any(v.rms > 0 for v in model.noise)
+    if has_gate_band(model) and len(device.dots) <= MAX_PROCESS_QUBITS:
+        # the gate band's correction does not depend on the quadrature rule:
+        # found once here, reused by every rule of the refinement; one handed
+        # in (the total's, for the budget) is reused while it is of the same
+        # gate bands (switching one of two gate sources off changes it)
+        key = gate_key(model)
+        if isinstance(correction, GateCorrection):
+            correction = correction.matrix if correction.key == key else None
+        if correction is None:
+            correction = gate_correction(engine, model)
+        if parts is not None and correction is not None:
+            parts["correction"] = GateCorrection(key, correction)
+    elif isinstance(correction, GateCorrection):
+        correction = None
     if nodes is not None or not noisy or opts.nodes <= 1:
         n = opts.nodes if nodes is None else nodes
         w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts, opts)
@@ -273,12 +401,15 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
                          opts)
         diff = max(abs(fine.f_state - coarse.f_state),
                    abs((fine.f_avg or 0.0) - (coarse.f_avg or 0.0)))
-        if diff <= opts.averaging_tolerance or fine_n >= MAX_NODES:
+        if fine_n >= TRAPEZOID_FROM:
+            diff += 2 * TRAPEZOID_TAIL       # the equispaced rules' cut tails (model.normal_rule)
+        if diff <= opts.averaging_tolerance or fine_n >= MAX_REFINED_NODES:
             return dataclasses.replace(fine, nodes=fine_n, averaging_error=float(diff),
                                        quadrature=rule(fine_n), compared=coarse_n)
-        # nearly doubled each time (5, 9, 17, 33, 41): a handful of rules, and
-        # the stated error compares rules far enough apart to mean something
-        coarse, coarse_n, fine_n = fine, fine_n, min(2 * fine_n - 1, MAX_NODES)
+        # nearly doubled each time (5, 9, 17, 33, 65, 129): a handful of rules, the
+        # stated error compares rules far enough apart to mean something, and from
+        # 17 nodes on the rules are nested (model.normal_rule)
+        coarse, coarse_n, fine_n = fine, fine_n, min(2 * fine_n - 1, MAX_REFINED_NODES)
 
 
 def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: int,
@@ -298,11 +429,11 @@ def _evaluate(crun: CompiledRun, model, nodes: int, rule: str, engine, traces: i
     if V is not None:
         rho0 = V @ rho0 @ V.conj().T
     process = n <= MAX_PROCESS_QUBITS
-    if parts is not None and model.profiles and process and correction is None:
+    if parts is not None and has_gate_band(model) and process and correction is None:
         S, rho, tr = combine_modes(engine, model, pts, rho0=rho0, traces=traces, parts=parts)
     else:
         S, rho, tr = _average(engine, model, pts, process=process, rho0=rho0, traces=traces,
-                              correction=correction if model.profiles else None)
+                              correction=correction if has_gate_band(model) else None)
     leakage = 0.0
     if V is not None:
         # fidelities on the qubit levels, leakage counted as error
@@ -365,7 +496,10 @@ def step_fidelities(crun: CompiledRun, opts: SimOptions, engine,
         wf = part(crun, tuple(slots), after)
         model = build_model(wf, device, m=opts.substeps, start=a, stop=b_sim, rwa=opts.rwa)
         pts = noise_points(model, opts.nodes, opts.quadrature)
-        S, _, _ = _average(engine, model, pts, process=True, rho0=None, product=False)
+        # the gate band: the toggling-frame correction where it applies, else
+        # its modes one at a time (small errors of a step)
+        S, _, _ = _average(engine, model, pts, process=True, rho0=None,
+                           product=toggling.applies(model))
         V = F.qubit_isometry(model.levels)
         leak = 0.0
         if V is not None:
@@ -412,7 +546,7 @@ def quadrature_rule(device: Device, opts: SimOptions) -> str:
     # the held band of a spectrum (its gate-band modes are always one at a time)
     n_vars += sum(1 for src in SOURCES.values() if src.window is not None
                   for item in src.window(device, 1e-6)
-                  if item[0] in ("detuning", "barrier") and item[2] > 0)
+                  if item[0] in ("detuning", "barrier", "detuning_vector") and item[2] > 0)
     return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
 
 
@@ -562,8 +696,10 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
                 "fidelity_scope": _scope_text(opts, runs[detail] if runs else None),
                 "shots": opts.shots}
     spectra = _noise_spectra(device, compiled.runs[detail], runs[detail])
+    summaries = spectrum_summaries(device, runs[detail].duration if runs else 0.0)
     return SimulationResult(checked.expanded.file, device.name, engine.name, opts.rwa,
-                            tuple(runs), axes, coherence, settings, warnings, stats, spectra)
+                            tuple(runs), axes, coherence, settings, warnings, stats, spectra,
+                            summaries)
 
 
 WORST_STEPS = 3
@@ -598,6 +734,53 @@ def _noise_spectra(device: Device, crun: CompiledRun, result: RunResult) -> tupl
         filters += [(f"{s.label} (worst step {k + 1})", s.duration, ())
                     for k, s in enumerate(mine[:WORST_STEPS]) if s.duration > 0]
         out.append((q, d.zeeman_noise, tuple(filters)))
+    return tuple(out)
+
+
+def spectrum_summaries(device: Device, window: float) -> tuple[SpectrumSummary, ...]:
+    """Every spectrum of the device (Zeeman noise per dot, barrier noise per
+    coupling): its parameters, the bands it is split into for a window of
+    ``window`` seconds (:func:`.bands.split`, as the simulation splits it)
+    and, for Zeeman noise, the T2*, Hahn T2 and CPMG-N T2 it implies."""
+    from ..spectra import implied_times
+    from .bands import GATE_CYCLES, QS_FRACTION, split
+    out = []
+    items = [(q, "zeeman", "Hz^2/Hz", d.zeeman_noise) for q, d in device.dots.items()
+             if d.zeeman_noise is not None]
+    items += [("-".join(c.dots), "barrier", "V^2/Hz", c.barrier_noise) for c in device.couplings
+              if c.barrier_noise is not None]
+    for target, quantity, unit, sp in items:
+        b = split(sp, window)
+        bands = []
+        if not sp.is_white:
+            zeeman = quantity == "zeeman"
+            bands.append(SpectrumBand("quasi-static", sp.f_low, b.f_qs,
+                                      sp.band_variance(sp.f_low, b.f_qs, white=False),
+                                      f"below {QS_FRACTION:g}/T: a Gaussian offset held for the "
+                                      "window, by quadrature"))
+            if b.f_hi > b.f_qs:
+                bands.append(SpectrumBand("gate", b.f_qs, b.f_hi,
+                                          sp.band_variance(b.f_qs, b.f_hi, white=False),
+                                          f"{QS_FRACTION:g}/T to {GATE_CYCLES:g}/T: filter-function "
+                                          "correction on the played control"))
+            top = max(b.f_hi, sp.f_low)
+            if sp.f_high > top:
+                bands.append(SpectrumBand("fast", top, sp.f_high,
+                                          sp.band_variance(top, sp.f_high, white=False),
+                                          f"above {GATE_CYCLES:g}/T: Lindblad dephasing" if zeeman
+                                          else "not simulated"))
+        white = sp.white_level()
+        if white > 0:
+            bands.append(SpectrumBand("white", sp.f_low, sp.f_high,
+                                      white * (sp.f_high - sp.f_low),
+                                      "Lindblad dephasing" if quantity == "zeeman" else
+                                      f"in the gate band up to {GATE_CYCLES:g}/T, not simulated "
+                                      "above"))
+        times = implied_times(sp) if quantity == "zeeman" else {}
+        out.append(SpectrumSummary(target, quantity, unit, sp.s1 if sp.beta else 0.0, sp.beta,
+                                   white, sp.f_low, sp.f_high, window, tuple(bands),
+                                   times.get("t2_star_s"), times.get("t2_s"),
+                                   dict(times.get("t2_cpmg_s", {}))))
     return tuple(out)
 
 

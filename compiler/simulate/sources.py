@@ -53,6 +53,7 @@ class Source:
     # bands of a noise spectrum, which depend on the simulated window T (s):
     # (device, T) -> items ("detuning", dot, rms Hz) | ("barrier", coupling, rms V)
     # | ("mode", dot, f Hz, σ Hz) | ("dissipator", dot, operator, rate 1/s)
+    # | ("band", "detuning" or "barrier", dot or coupling, Spectrum, f_from Hz, f_to Hz)
     window: Callable[[Device, float], tuple] | None = None
     # device -> whether the source is present at all; when it is not, its
     # budget line is 0 without an evaluation (None: always present)
@@ -104,25 +105,75 @@ def _charge_noise(device: Device) -> tuple[tuple[str, int, float], ...]:
 
 def _spectral(device: Device, window: float, band: str) -> tuple:
     """One band (``static``, ``gate``, ``fast``) of every dot's Zeeman-noise
-    spectrum for a window of T seconds (:func:`.bands.split`)."""
+    spectrum for a window of T seconds (:func:`.bands.split`).  Correlated
+    dots (``zeeman_correlation``): their quasi-static detunings are
+    correlated Gaussians (one variable per eigenvector of their covariance)
+    and their gate bands carry the correlation; the fast band stays
+    independent per dot (docs/simulate.md)."""
     from .bands import split
     out = []
-    for i, d in enumerate(device.dots.values()):
+    names = list(device.dots)
+    corr = {frozenset((a, b)): c for a, b, c in device.zeeman_correlation if c}
+    linked = {q for k in corr for q in k}
+    splits = {q: split(d.zeeman_noise, window) for q, d in device.dots.items()
+              if d.zeeman_noise is not None}
+    for i, (q, d) in enumerate(device.dots.items()):
         if d.zeeman_noise is None:
             continue
-        b = split(d.zeeman_noise, window)
-        if band == "static" and b.static_rms > 0:
+        b = splits[q]
+        if band == "static" and b.static_rms > 0 and q not in linked:
             out.append(("detuning", i, b.static_rms))
         elif band == "gate":
+            # the band itself (integrated by .toggling) and its modes (the
+            # engines' representation, for registers too large for .toggling)
+            if b.f_hi > b.f_qs:
+                out.append(("band", "detuning", i, d.zeeman_noise, b.f_qs, b.f_hi))
             out += [("mode", i, f, sig) for f, sig in b.modes]
         elif band == "fast" and b.fast_rate > 0:
             out.append(("dissipator", i, "z", b.fast_rate))
+    if band == "static" and linked:
+        out += _correlated_static(device, splits, corr, sorted(linked, key=names.index))
+    if band == "gate":
+        out += [("correlation", names.index(a), names.index(b), c)
+                for a, b, c in device.zeeman_correlation if c]
     return tuple(out)
+
+
+def _correlated_static(device: Device, splits: dict, corr: dict, dots: list) -> list:
+    """The quasi-static band of correlated dots: covariance
+    Σ_ab = c_ab·∫ √(S_a·S_b) df over the band (a frequency-independent
+    coherence c), as independent variables along its eigenvectors."""
+    import numpy as np
+    from ..spectra import Spectrum
+    names = list(device.dots)
+    n = len(dots)
+    cov = np.zeros((n, n))
+    for x, a in enumerate(dots):
+        for y, b in enumerate(dots):
+            sa, sb = device.dots[a].zeeman_noise, device.dots[b].zeeman_noise
+            c = 1.0 if a == b else corr.get(frozenset((a, b)), 0.0)
+            lo = max(sa.f_low, sb.f_low)
+            hi = min(splits[a].f_qs, splits[b].f_qs)
+            if c == 0 or not hi > lo or sa.is_white or sb.is_white:
+                continue
+            gm = Spectrum(math.sqrt(sa.s1 * sb.s1), (sa.beta + sb.beta) / 2, 0.0, lo, hi)
+            cov[x, y] = c * gm.band_variance(lo, hi, white=False)
+    lam, vec = np.linalg.eigh(cov)
+    out = []
+    for k in range(n):
+        if lam[k] <= 1e-12 * max(lam.max(), 1e-300):
+            continue
+        w = [0.0] * len(names)
+        for x, q in enumerate(dots):
+            w[names.index(q)] = float(vec[x, k])
+        top = max(range(len(w)), key=lambda j: abs(w[j]))
+        out.append(("detuning_vector", top, math.sqrt(lam[k]), tuple(w)))
+    return out
 
 
 def _barrier_static(device: Device, window: float) -> tuple:
     """The barrier-voltage spectra below QS_FRACTION/T as a quasi-static
-    offset (their faster part is not simulated yet: docs/simulate.md)."""
+    offset (the band above it: :func:`_barrier_gate`)."""
     from .bands import split
     out = []
     for i, c in enumerate(device.couplings):
@@ -132,6 +183,26 @@ def _barrier_static(device: Device, window: float) -> tuple:
             var = sp.band_variance(sp.f_low, b.f_qs) if not sp.is_white else 0.0
             if var > 0:
                 out.append(("barrier", i, math.sqrt(var)))
+    return tuple(out)
+
+
+def _barrier_gate(device: Device, window: float) -> tuple:
+    """The barrier-voltage spectra from QS_FRACTION/T to GATE_CYCLES/T (white
+    part included) as a gate band: exchange fluctuations δJ = (dJ/dV)·δV on
+    the as-played barrier pulses, acting while exchange is on, integrated as
+    a filter-function correction (:mod:`.toggling`)."""
+    from .bands import GATE_CYCLES, QS_FRACTION
+    out = []
+    if window <= 0:
+        return ()
+    for i, c in enumerate(device.couplings):
+        sp = c.barrier_noise
+        if sp is None:
+            continue
+        lo = max(sp.f_low, QS_FRACTION / window) if not sp.is_white else sp.f_low
+        hi = min(sp.f_high, GATE_CYCLES / window)
+        if hi > lo and sp.band_variance(lo, hi) > 0:
+            out.append(("band", "barrier", i, sp, lo, hi))
     return tuple(out)
 
 
@@ -167,6 +238,10 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            "couplings.*.barrier_noise, acquisition_time",
            "barrier-voltage S(f) below 0.1/T as a held offset, through J(V)", "quasi-static",
            window=_barrier_static),
+    Source("barrier_gate", "barrier noise spectrum, gate band", "couplings.*.barrier_noise",
+           "barrier-voltage S(f) from 0.1/T to 64/T (white part included) as exchange "
+           "fluctuations (dJ/dV)·δV on the played barrier pulses, by its filter function",
+           "gate band", window=_barrier_gate),
     Source("crosstalk", "drive crosstalk", "the shared microwave lines",
            "each dot driven only by its own bursts (and no light-shift corrections)", "played",
            compile_off=(("spectator_correction", False), ("per_dot", True))),

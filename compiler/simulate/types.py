@@ -51,6 +51,38 @@ class Observable:
 
 
 @dataclass(frozen=True)
+class SpectrumBand:
+    """One band a noise spectrum was split into for the detail run's window
+    (docs/simulate.md, "Noise spectra")."""
+    name: str                  # "quasi-static", "gate", "fast" or "white"
+    f_from: float              # Hz
+    f_to: float                # Hz (inf: no upper cut-off)
+    variance: float            # unit², ∫S df over the band (inf where it diverges)
+    treatment: str             # how the simulation takes it
+
+
+@dataclass(frozen=True)
+class SpectrumSummary:
+    """A noise spectrum of the device as simulated: S(f) = at_1hz/f^exponent
+    + white on [f_low, f_high] (one-sided), its bands for the detail run and,
+    for Zeeman noise, the coherence times it implies (1/e times of the
+    filter-function integrals, :func:`compiler.spectra.implied_times`)."""
+    target: str                # dot name, or coupling "A-B"
+    quantity: str              # "zeeman" (qubit frequency) or "barrier" (barrier voltage)
+    unit: str                  # of at_1hz and white: "Hz^2/Hz" or "V^2/Hz"
+    at_1hz: float
+    exponent: float
+    white: float
+    f_low: float               # Hz
+    f_high: float              # Hz (inf: none)
+    window: float              # s, the detail run's simulated window the bands are for
+    bands: tuple[SpectrumBand, ...] = ()
+    t2_star_s: float | None = None
+    t2_s: float | None = None              # Hahn echo
+    t2_cpmg_s: dict = field(default_factory=dict)   # N -> T2 (s)
+
+
+@dataclass(frozen=True)
 class BudgetLine:
     source: str                # "T1", "T2", "T2*", "charge noise", ...
     infidelity: float          # contribution: total infidelity minus infidelity with it off
@@ -106,3 +138,6 @@ class SimulationResult:
     # per dot with a Zeeman-noise spectrum: (dot, Spectrum, ((label, length s,
     # π-pulse times s), ...)): the filter functions the report's spectra.png overlays
     noise_spectra: tuple = ()
+    # every noise spectrum of the device: parameters, bands of the detail run,
+    # implied coherence times (results.json "spectra")
+    spectra: tuple[SpectrumSummary, ...] = ()
