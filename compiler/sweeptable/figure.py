@@ -61,6 +61,7 @@ CONTOUR_COLOUR = "#20262e"
 INVALID_COLOUR = "#b8bcc4"
 MAX_SOURCES = 4
 MAX_LABEL = 34
+SUBTITLE_WIDTH = 120          # characters per subtitle line
 MAX_OBSERVABLE_MAPS = 4
 PLAIN = FuncFormatter(lambda v, _: f"{v:g}")   # log axes: 0.1, 1, 10 rather than 10^-1
 FOOTER = ("A simulation of the compiled sequence on the device model, not a measurement. "
@@ -75,7 +76,8 @@ def _settings_text(table: SweepTable) -> str:
     parts = [f"{o['engine']} engine"] if o.get("engine") else []
     if o.get("nodes") is not None:
         parts.append(f"{o['nodes']} quadrature node{'s' * (o['nodes'] != 1)}"
-                     + (f" ({o['quadrature']})" if o.get("quadrature") else ""))
+                     + (f" ({o['quadrature']})" if o.get("quadrature") else "")
+                     + (" to start, refined per run" if o['nodes'] > 1 else ""))
     if o.get("substeps") is not None:
         parts.append(f"{o['substeps']} sub-step{'s' * (o['substeps'] != 1)} per sample")
     if not o.get("rwa", True):
@@ -103,7 +105,9 @@ def _subtitle(table: SweepTable, *notes: str) -> str:
     if scope:
         sub += f"; {scope}"
     rest = "; ".join(n for n in notes if n)
-    return sub + ("\n" + rest if rest else "")
+    # wrapped to the figure's width (a long sequence path or device name ran off the right edge)
+    import textwrap
+    return "\n".join(textwrap.fill(line, SUBTITLE_WIDTH) for line in [sub] + ([rest] if rest else []))
 
 
 def _margin_note(margins: np.ndarray) -> tuple[str, bool]:
