@@ -215,3 +215,23 @@ def test_exchange_accuracy_option_is_checked(tmp_path, capsys):
     assert code == 2
     assert "exchange accuracy 0.5 must be from 0" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_a_slow_evaluation_is_announced_with_its_cluster(tmp_path, monkeypatch):
+    # three dots at 1 MHz idle exchange form one exact cluster (64 × 64): the
+    # engine's estimate (made before any work) is announced when above the
+    # threshold, naming the cluster and the fixes; below it, nothing is said
+    # (common practice, no source)
+    import compiler.simulate.engines.fast as fast
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 MHz"], THREE_PI))
+    said = []
+    eng = FastEngine()
+    eng.notify = said.append
+    eng.average(model, noise_points(model, 1), process=True)
+    assert said == []                                       # estimated well under 20 s
+    monkeypatch.setattr(fast, "SLOW_NOTE_S", 0.0)
+    eng.average(model, noise_points(model, 1), process=True)
+    assert len(said) == 1
+    for part in ("slow: one evaluation will take roughly", "dots D0, D1, D2 form one exact "
+                 "cluster (64×64 channels", "distinct sub-steps", "--exchange-accuracy"):
+        assert part in said[0], part

@@ -654,6 +654,14 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
     device = checked.device
     engine = make_engine(opts.engine, exchange_accuracy=opts.exchange_accuracy,
                          memory_limit=opts.memory_limit or default_limit())
+    if progress:
+        said: set = set()
+
+        def once(text: str) -> None:          # the engine's estimate, each text once
+            if text not in said:
+                said.add(text)
+                progress(text)
+        engine.notify = once
     runs = []
     n_runs = len(checked.expanded.runs)
     if len(compiled.runs) != n_runs:
