@@ -228,8 +228,10 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            "stretch, by quadrature", "quasi-static",
            window=lambda dev, t: _spectral(dev, t, "static")),
     Source("zeeman_gate", "Zeeman noise spectrum, gate band", "dots.*.zeeman_noise",
-           "S(f) from 0.1/T to 64/T as random-phase sinusoids on the played waveforms "
-           "(1/(2T) apart up to 10/T, then 4 per decade)", "gate band",
+           "S(f) from 0.1/T to 64/T on the played waveforms: by its filter function in "
+           "the toggling frame (second-order cumulant) up to 16 levels in all, as "
+           "random-phase sinusoids (1/(2T) apart up to 10/T, then 4 per decade) above",
+           "gate band",
            window=lambda dev, t: _spectral(dev, t, "gate")),
     Source("zeeman_fast", "Zeeman noise spectrum, white and fast band", "dots.*.zeeman_noise",
            "white part and S(f) above 64/T as Lindblad dephasing", "lindblad",
