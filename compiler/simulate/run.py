@@ -220,11 +220,7 @@ def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
                 Rj = engine.average(model, grp, process=True).superop + (1.0 - wsum) * R0
                 X = X @ np.linalg.solve(R0, Rj)
             S = R0 @ X
-            rho = None
-            if rho0 is not None:
-                d = rho0.shape[0]
-                rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
-            return _Averaged(S, rho, ev0.traces)
+            return _Averaged(S, _final_state(S, rho0), ev0.traces)
     ev = engine.average(model, pts, process=True, rho0=rho0, trace_points=traces)
     return _Averaged(ev.superop, ev.rho, ev.traces)
 
@@ -305,11 +301,15 @@ def gate_correction(engine, model):
 def _corrected(ev, corr, rho0):
     """(S·corr, the final ρ of ``rho0`` under it, traces) of an average ``ev``."""
     S = ev.superop @ corr
-    rho = None
-    if rho0 is not None:
-        d = rho0.shape[0]
-        rho = (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
-    return S, rho, ev.traces
+    return S, _final_state(S, rho0), ev.traces
+
+
+def _final_state(S, rho0):
+    """The final ρ of ``rho0`` under the column-stacked channel S (None without ``rho0``)."""
+    if rho0 is None:
+        return None
+    d = rho0.shape[0]
+    return (S @ rho0.reshape(-1, order="F")).reshape(d, d, order="F")
 
 
 @dataclass
