@@ -268,6 +268,9 @@ class FastEngine:
         st = {k: now[k] - stats0[k] for k in now}
         st["largest_cluster"] = self._largest_now
         st["neglected_exchange_rad"] = self._neglected_now
+        st["weak_exchange_bound"] = self._weak_bound_now
+        st["weak_exchange_chunks"] = self._weak_chunks_now
+        st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         st["wall_s"] = wall
         return Evolution(S, rho, traces, st)
 

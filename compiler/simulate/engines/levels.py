@@ -33,7 +33,9 @@ import numpy as np
 from ...pulses import ordered_product
 from ..model import LevelPair, Model, dot_operator, embed_pair
 from ..types import Evolution
+from . import levels_weak as LW
 from . import pauli as PL
+from . import weak as weak_mod
 from .clusters import clusters
 
 
@@ -124,15 +126,19 @@ class LevelsPath:
                 per[dv] = p.coefficients(dv)
             coefs.append(per)
             jmax.append(np.max(np.abs(np.stack([c[0] for c in per.values()])), axis=0))
-        on = eng._on_masks(jmax, h, K)
+        # closed barriers: dropped, weak (interaction picture, .levels_weak) or exact
+        on, ip, wprep = LW.plan(eng, model, coefs, jmax, points)
+        split = {"on": on, "ip": ip}
         bounds = {0, K}
-        for m in on:
+        for m in list(on) + list(ip):
             bounds.update((np.flatnonzero(m[1:] != m[:-1]) + 1).tolist())
         marks = (np.unique(np.linspace(0, K, max(trace_points, 2)).round().astype(int))
                  if trace_points and rho0 is not None else np.zeros(0, int))
         bounds = sorted(bounds | set(int(x) for x in marks))
         S_sum = rho_sum = None
         traces: dict = {}
+        wrun = LW.WeakRun(self, model, coefs, wprep, _basis) if wprep else None
+        weak_y, weak_q = [], []
         for ip, pt in enumerate(points):
             cols = []
             if process:
@@ -156,14 +162,26 @@ class LevelsPath:
             for s, e in zip(bounds[:-1], bounds[1:]):
                 if e <= s:
                     continue
-                active = [i for i, m in enumerate(on) if m[s]]
+                active, weak = eng._segment_split(model, split, s)
                 for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
                                                  for i in active], active):
+                    if len(dots) == 1 and weak and dots[0] in weak[1]:
+                        continue                   # its own channel comes with the weak pairs
                     eng._largest_now = max(eng._largest_now, len(dots))
                     eng.largest_cluster = max(eng.largest_cluster, len(dots))
                     M = self._channel(model, coefs, dots, pairs, s, e, pt)
                     T = _apply(T, dots, M, levels)
                     eng.applications += 1
+                if weak:
+                    eng._largest_now = max(eng._largest_now, 1)
+                    eng.largest_cluster = max(eng.largest_cluster, 1)
+                    pushes, y, q = wrun.segment(s, e, weak[0], pt)
+                    if ip == 0:
+                        weak_y.append(y)
+                        weak_q.append(q)
+                    for dots, M in pushes:
+                        T = _apply(T, dots, M, levels)
+                        eng.applications += 1
                 if ip == 0 and e in set(marks.tolist()):
                     record(e, T)
             out = T.reshape(d, d, B).reshape(d * d, B, order="F")
@@ -179,6 +197,15 @@ class LevelsPath:
                 arr = np.array(tp)
                 for q in range(n):
                     traces[q] = arr[:, q]
+        if weak_y:
+            # the chunks and their sizes are the same for every point (the plan's
+            # worst-case norms), so the first point's bound holds for each
+            y, q = np.concatenate(weak_y), np.concatenate(weak_q)
+            eng._weak_bound_now = weak_mod.weak_bound(y, q)
+            eng._weak_chunks_now = len(y)
+            eng.weak_exchange_bound = max(eng.weak_exchange_bound, eng._weak_bound_now)
+        if wrun is not None:
+            eng.exponentials += wrun.exponentials
         return S_sum, rho_sum, traces, time.perf_counter() - t0
 
     # ------------------------------------------------------------------ channels
