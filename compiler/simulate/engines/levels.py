@@ -110,6 +110,7 @@ class LevelsPath:
         self.engine = engine
         self._cache: dict = {}
         self._gens: dict = {}          # real generators per (model, cluster)
+        self._weak_maps: dict = {}     # weak pairs' one-dot maps (levels_weak.PairMaps)
 
     # ------------------------------------------------------------------ public
     def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0):
@@ -137,7 +138,7 @@ class LevelsPath:
         bounds = sorted(bounds | set(int(x) for x in marks))
         S_sum = rho_sum = None
         traces: dict = {}
-        wrun = LW.WeakRun(self, model, coefs, wprep, _basis) if wprep else None
+        wrun = LW.WeakRun(self, model, coefs, wprep, _basis, self._weak_maps) if wprep else None
         weak_y, weak_q = [], []
         for ip, pt in enumerate(points):
             cols = []

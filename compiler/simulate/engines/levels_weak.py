@@ -47,8 +47,9 @@ of that non-negative matrix (monotone in the |c_k|, which are rounded up
 to a grid of relative step 1e-6 so that equal rows are found once): ¾J for
 a spin–valley pair in the valley-polarised limit, as ‖J·S₁·S₂‖.  exp(Ω) is
 a Taylor polynomial of the order that brings its remainder,
-e^y' − Σ_{k≤m} y'^k/k! (y' = y + the quadrature error), below
-:data:`TAYLOR_TOL`; the remainder is added to the bound too.
+at most y'^(m+1)/(m+1)!·e^y' (y' = y + the quadrature error), below
+:data:`TAYLOR_TOL` or 1e-4 of the chunk's own e^y − 1 − y; the remainder
+is added to the bound too.
 """
 
 from __future__ import annotations
@@ -63,7 +64,9 @@ from . import weak as weak_mod
 
 KAPPA = 1.1                 # chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (as the Pauli path)
 SIMPSON_TOL = 1e-9          # Simpson panels on runs of equal sub-steps: (2‖A‖p)⁴/2880 ≤ this
-TAYLOR_TOL = 1e-17          # exp(Ω) as a Taylor polynomial: remainder at most this (added)
+QUAD_SHARE = 0.02           # midpoint rule on sub-steps while its errors stay within this share
+TAYLOR_TOL = 1e-17          # exp(Ω) as a Taylor polynomial: remainder at most this, or
+TAYLOR_REL = 1e-4           # this fraction of the chunk's Magnus term e^y − 1 − y (added)
 GRID = math.log1p(1e-6)     # |c_k| rounded up to this logarithmic grid for the norm bound
 
 
@@ -185,6 +188,18 @@ class PairMaps:
         self.Tp, self.Tph = Tp, Tp.conj().T
         self.bases = (Ta, Tb)
         self.D = D
+        # Tp = (Ta ⊗ Tb)[:, perm]: vec(A ⊗ B) = (vec A ⊗ vec B)[perm] (column stacking)
+        idx = np.arange(da * da * db * db).reshape(da, da, db, db)     # (j_a, i_a, j_b, i_b)
+        self.perm = idx.transpose(0, 2, 1, 3).reshape(-1)
+        assert np.allclose(np.kron(Ta, Tb)[:, self.perm], Tp)
+
+    def to_column_stacked(self, M: np.ndarray) -> np.ndarray:
+        """A real map in the product basis as the column-stacked complex
+        superoperator on (d0, d1): Tp†·M·Tp, by one-dot factors."""
+        Ta, Tb = self.bases
+        X = _kron_apply(Ta.conj().T, Tb.conj().T, M.astype(complex))
+        X = _kron_apply(Ta.T, Tb.T, X.T).T
+        return X[np.ix_(self.perm, self.perm)]
 
 
 def one_dot_norm(model, q: int, drive: dict, det: float, prof, dn: float, K: int) -> np.ndarray:
@@ -244,7 +259,7 @@ def plan(eng, model, coefs: list, jmax: list, points):
             if d is not None:
                 prof = np.abs(d) if prof is None else np.maximum(prof, np.abs(d))
         anorm[q] = one_dot_norm(model, q, model.drive, det, prof, dn[q], K)
-    prep = {"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm, "kappa": kmax,
+    prep = {"xn": xn, "ystar": ystar, "eps": eps, "dnorm": dnorm, "anorm": anorm, "kappa": kmax,
             "tau_max": tau_max, "on": on, "ip": w}
     return on, w, prep
 
@@ -263,9 +278,15 @@ class WeakRun:
     one pair of dot values, reused, scaled, for a charge offset that only
     scales the pair's coefficients (an exponential J(V))."""
 
-    def __init__(self, lp, model, coefs: list, prep: dict, basis):
+    def __init__(self, lp, model, coefs: list, prep: dict, basis, known: dict | None = None):
         self.lp, self.model, self.coefs, self.prep, self.basis = lp, model, coefs, prep, basis
+        # the pairs' maps, also from ``known`` (id(pair) -> (pair, PairMaps), kept by the caller)
+        self.known = {} if known is None else known
         self.maps: dict = {}
+        for j, p in enumerate(model.pairs):
+            hit = self.known.get(id(p))
+            if hit is not None and hit[0] is p:
+                self.maps[j] = hit[1]
         self._struct: dict = {}
         self._dots: dict = {}
         self._dot_bytes = 0
@@ -303,6 +324,9 @@ class WeakRun:
         for j in cpairs:
             if j not in self.maps:
                 self.maps[j] = PairMaps(model, j, self.basis)
+                if len(self.known) > 64:
+                    self.known.clear()
+                self.known[id(model.pairs[j])] = (model.pairs[j], self.maps[j])
         # runs of equal sub-steps in every point: drive, drive terms and
         # profiles of the dots, every charge offset's pair coefficients
         cols = []
@@ -342,21 +366,37 @@ class WeakRun:
         m = np.maximum(m, 1).astype(int)
         panel = lens * h / m
         chunk_of = np.searchsorted(cstart, starts, side="right") - 1
-        qp = kap[chunk_of] * np.add.reduceat(x, starts) * (2 * a2 * panel) ** 4 / 2880
+        xs = kap[chunk_of] * np.add.reduceat(x, starts)                  # κ·x per piece
+        qp = xs * (2 * a2 * panel) ** 4 / 2880                           # Simpson's error
+        # a single sub-step may take the midpoint rule instead (one node, error
+        # κ·x·(2‖A‖h)²/24): those of the smallest errors, while their sum stays
+        # within QUAD_SHARE of the weak treatment's accuracy (idle sub-steps
+        # whose pair coefficients turn; a burst at 1 Hz)
+        qm = np.where(lens == 1, xs * (2 * a2 * panel) ** 2 / 24, np.inf)
+        srt = np.argsort(qm, kind="stable")
+        k_mid = int(np.searchsorted(np.cumsum(qm[srt]), QUAD_SHARE * prep["eps"], side="right"))
+        mid = np.zeros(len(starts), dtype=bool)
+        mid[srt[:k_mid]] = True
+        qp = np.where(mid, qm, qp)
         q = np.bincount(chunk_of, weights=qp, minlength=nch)
         order, rem = _taylor_orders(y + q)
         q = q + rem
-        # quadrature nodes: per piece j = 0..2m−1 (start and interior), and the
-        # end of a piece whose successor starts a new chunk; the end weight of a
-        # piece goes to its successor's start node when both are in one chunk
+        # quadrature nodes (j counts half-panels from the piece's start): a
+        # Simpson piece j = 0..2m−1, and its end (j = 2m) unless the next piece
+        # of its chunk is a Simpson one, whose start node then takes the end's
+        # weight (the same channel); a midpoint piece j = 1 alone
         npc = len(starts)
         first = np.r_[True, chunk_of[1:] != chunk_of[:-1]]
         last_in_chunk = np.r_[first[1:], True]
-        cnt = 2 * m
+        nxt_simpson = np.r_[~mid[1:], False]
+        merged = np.flatnonzero(~mid & ~last_in_chunk & nxt_simpson)
+        ends = np.flatnonzero(~mid & (last_in_chunk | ~nxt_simpson))
+        cnt = np.where(mid, 1, 2 * m)
         piece = np.repeat(np.arange(npc), cnt)
         jj = np.arange(len(piece)) - np.repeat(np.cumsum(cnt) - cnt, cnt)
+        jj = np.where(mid[piece], 1, jj)
         wgt = np.where(jj == 0, 1.0, np.where(jj % 2 == 1, 4.0, 2.0)) * panel[piece] / 6
-        ends = np.flatnonzero(last_in_chunk)
+        wgt = np.where(mid[piece], panel[piece], wgt)
         node_piece = np.concatenate([piece, ends])
         node_j = np.concatenate([jj, 2 * m[ends]])
         node_w = np.concatenate([wgt, panel[ends] / 6])
@@ -366,7 +406,7 @@ class WeakRun:
         cuts = np.searchsorted(node_chunk, np.arange(nch + 1))
         return {"s": s, "e": e, "pairs": cpairs, "dots": cdots, "y": y, "q": q, "order": order,
                 "starts": starts, "m": m, "panel": panel, "first": first,
-                "last": np.flatnonzero(last_in_chunk), "merged": np.flatnonzero(~last_in_chunk),
+                "last": np.flatnonzero(last_in_chunk), "merged": merged,
                 "node_piece": node_piece, "node_j": node_j, "node_w": node_w,
                 "start_node": np.searchsorted(node_piece, np.arange(npc)), "cuts": cuts,
                 "nchunks": nch}
@@ -504,13 +544,13 @@ class WeakRun:
             for c in range(st["nchunks"]):
                 M = _taylor_apply(oms[j][c], M, int(order[c]))
                 M = _kron_apply(dd[a]["after"][c], dd[b]["after"][c], M)
-            return [((a, b), pm.Tph @ M @ pm.Tp)]
+            return [((a, b), pm.to_column_stacked(M))]
         out = []
         for c in range(st["nchunks"]):
             for j in st["pairs"]:
                 pm = self.maps[j]
                 W = _taylor_apply(oms[j][c], np.eye(pm.D ** 2), int(order[c]))
-                out.append((pm.dots, pm.Tph @ W @ pm.Tp))
+                out.append((pm.dots, pm.to_column_stacked(W)))
             for q in st["dots"]:
                 T = _dot_basis({j: self.maps[j] for j in st["pairs"]}, q)
                 out.append(((q,), T.conj().T @ dd[q]["after"][c] @ T))
@@ -532,15 +572,16 @@ def _components(model, pairs):
 
 def _taylor_orders(yq: np.ndarray):
     """Per chunk the smallest order m ≥ 1 whose Taylor remainder of exp,
-    y^(m+1)/(m+1)!·e^y (y the bound on ‖Ω‖◇), is within TAYLOR_TOL, and
-    that remainder."""
+    y^(m+1)/(m+1)!·e^y (y the bound on ‖Ω‖◇), is within TAYLOR_TOL or
+    TAYLOR_REL·(e^y − 1 − y), and that remainder."""
     orders = np.ones(len(yq), dtype=int)
     rems = np.zeros(len(yq))
     for i, y in enumerate(yq.tolist()):
         term, m = y, 1                                   # term = y^m/m!
+        tol = max(TAYLOR_TOL, TAYLOR_REL * (math.expm1(y) - y))
         while True:
             rest = term * y / (m + 1) * math.exp(y)
-            if rest <= TAYLOR_TOL or m >= 40:
+            if rest <= tol or m >= 40:
                 break
             m += 1
             term *= y / m
@@ -593,10 +634,8 @@ def _taylor_apply(Om: np.ndarray, M: np.ndarray, order: int) -> np.ndarray:
 def _kron_apply(A: np.ndarray, B: np.ndarray, M: np.ndarray) -> np.ndarray:
     """(A ⊗ B)·M without forming A ⊗ B."""
     ka, kb = A.shape[0], B.shape[0]
-    t = M.reshape(ka, kb, -1)
-    t = np.einsum("ab,bjx->ajx", A, t)
-    t = np.einsum("cj,ajx->acx", B, t)
-    return t.reshape(ka * kb, -1)
+    t = (A @ M.reshape(ka, -1)).reshape(ka, kb, -1)
+    return np.matmul(B, t).reshape(ka * kb, -1)
 
 
 def _prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
