@@ -9,9 +9,13 @@ transfer matrices:
    channel exp(L·h) exactly; runs of identical sub-steps take one
    exponential exp(L·h·n);
 2. the run is cut into segments in which the set of exchange pairs that are
-   on does not change (closed barriers dropped within the same phase budget
-   as the Pauli path); in a segment the register splits into clusters of
-   dots joined by pairs that are on, and each cluster's channel is computed
+   on does not change; a closed barrier's residual exchange is dropped
+   within the same phase budget as the Pauli path, or, when more is left
+   (idle barriers at 1 Hz…1 kHz), treated as weak in the interaction
+   picture of the dots' own channels with the same split of the accuracy
+   and the same bound (:mod:`.levels_weak`: one (d_a·d_b)² exponential per
+   pair and chunk); in a segment the register splits into clusters of
+   dots joined by pairs kept exactly, and each cluster's channel is computed
    on its own dots only (16×16 for one four-level dot, 256×256 for a pair);
 3. channels are cached by content (the same burst or wait again is one
    look-up) and applied to the state, a tensor with one row and one column
