@@ -132,10 +132,9 @@ class LevelsPath:
             coefs.append(per)
             jmax.append(np.max(np.abs(np.stack([c[0] for c in per.values()])), axis=0))
         # closed barriers: dropped, weak (interaction picture, .levels_weak) or exact
-        on, ip, wprep = LW.plan(eng, model, coefs, jmax, points)
-        split = {"on": on, "ip": ip}
+        on, wmask, wprep = LW.plan(eng, model, coefs, jmax, points)
         bounds = {0, K}
-        for m in list(on) + list(ip):
+        for m in list(on) + list(wmask):
             bounds.update((np.flatnonzero(m[1:] != m[:-1]) + 1).tolist())
         marks = (np.unique(np.linspace(0, K, max(trace_points, 2)).round().astype(int))
                  if trace_points and rho0 is not None else np.zeros(0, int))
@@ -167,7 +166,7 @@ class LevelsPath:
             for s, e in zip(bounds[:-1], bounds[1:]):
                 if e <= s:
                     continue
-                active, weak = eng._segment_split(model, split, s)
+                active, weak = LW.split(model, on, wmask, s)
                 for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
                                                  for i in active], active):
                     if len(dots) == 1 and weak and dots[0] in weak[1]:

@@ -61,6 +61,7 @@ import numpy as np
 from ..model import LevelPair, dot_operator
 from . import pauli as PL
 from . import weak as weak_mod
+from .clusters import clusters
 
 KAPPA = 1.1                 # chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (as the Pauli path)
 SIMPSON_TOL = 1e-9          # Simpson panels on runs of equal sub-steps: (2‖A‖p)⁴/2880 ≤ this
@@ -262,6 +263,30 @@ def plan(eng, model, coefs: list, jmax: list, points):
     prep = {"xn": xn, "ystar": ystar, "eps": eps, "dnorm": dnorm, "anorm": anorm, "kappa": kmax,
             "tau_max": tau_max, "on": on, "ip": w}
     return on, w, prep
+
+
+def split(model, on: list, weak: list, s: int):
+    """The pairs of the segment starting at sub-step ``s`` kept exactly, and the
+    weak ones with their dots ((pairs, dots) or None).  A weak pair touching a
+    dot of an exact cluster of two or more is kept exactly too (its dots must
+    be clusters of one here; an exchange pulse's neighbour joins the pulse)."""
+    exact = [i for i, (m, w) in enumerate(zip(on, weak)) if m[s] and not w[s]]
+    wk = [i for i, w in enumerate(weak) if w[s]]
+    while wk:
+        big = set()
+        for dots, _ in clusters(model.n, [(model.pairs[i].a, model.pairs[i].b) for i in exact],
+                                exact):
+            if len(dots) > 1:
+                big.update(dots)
+        move = [i for i in wk if model.pairs[i].a in big or model.pairs[i].b in big]
+        if not move:
+            break
+        exact += move
+        wk = [i for i in wk if i not in move]
+    if not wk:
+        return exact, None
+    return exact, (tuple(wk), tuple(sorted({q for i in wk for q in (model.pairs[i].a,
+                                                                    model.pairs[i].b)})))
 
 
 # ------------------------------------------------------------------ weak segments
