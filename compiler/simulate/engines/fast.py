@@ -899,3 +899,31 @@ def _apply(src: np.ndarray, dst: np.ndarray, dots: tuple[int, ...], M: np.ndarra
                     [0] + [20 + dots.index(q) if q in dots else 1 + q for q in range(n)] + [51],
                     optimize=True)
     dst[...] = out.reshape(dst.shape)
+
+
+# ------------------------------------------------------------------ estimate only
+
+def plan_estimate(model: Model, points, *, process: bool, state: bool = True,
+                  exchange_accuracy: float = 1e-6, memory_limit: int = 0) -> dict | None:
+    """What :meth:`FastEngine.average` would estimate before any work, for
+    the same model, points and outputs, without running, raising or
+    printing: the drop and weak plan and :meth:`FastEngine._check_plan` of a
+    fresh engine (so the very same estimate).  Returns ``{"estimate": ...``
+    (the statistics ``estimate``), ``"too_large": ...`` (the
+    :class:`ClusterTooLarge` info of the first cluster over ``memory_limit``,
+    or None), ``"slow": ...`` (the engine's text for an evaluation estimated
+    at ``SLOW_NOTE_S`` or more, or None)``}``; None for models with dots of
+    other than two levels (the general path makes no estimate).  Costs the
+    plan alone: no exponential is taken."""
+    if any(lv != 2 for lv in model.levels):
+        return None
+    eng = FastEngine(exchange_accuracy=exchange_accuracy, memory_limit=memory_limit)
+    said: list = []
+    eng.notify = said.append
+    width = (4 ** model.n if process else 0) + (1 if state else 0)
+    prep = eng._prepare(model, points)
+    try:
+        eng._check_plan(model, prep, points, 8 * 4 ** model.n * max(width, 1) * 2)
+    except ClusterTooLarge as e:
+        return {"estimate": None, "too_large": e.info, "slow": None}
+    return {"estimate": eng._estimate_now, "too_large": None, "slow": said[0] if said else None}
