@@ -25,6 +25,7 @@ from compiler.simulate.engines import FastEngine
 from compiler.simulate.engines.fast import plan_estimate
 from compiler.simulate.model import noise_points
 from compiler.simulate.run import SimOptions, end_sample
+from compiler.sweep import memory as MEM
 from compiler.sweep import plan_sweep, run_sweep
 from compiler.sweep.point import evaluate_point
 from compiler.sweep.types import INVALID, OK
@@ -49,16 +50,11 @@ def _line(tmp_path):
     return seq
 
 
-def _estimates(seq):
-    """Bytes the engine estimates for each point of VARY (closed, open)."""
-    plan = plan_sweep(seq, [VARY], options=SimOptions(nodes=1), memory_limit=2 ** 40)
-    out = []
-    for t in plan.tasks:
-        model = build_model(t.compiled.waveforms, t.device, m=2,
-                            stop=end_sample(t.compiled.timeline))
-        est = plan_estimate(model, noise_points(model, 1), process=True)
-        out.append(est["estimate"]["bytes"])
-    return out
+def _estimates(seq, nodes=1):
+    """Bytes the sweep estimates for each point of VARY (closed, open)."""
+    plan = plan_sweep(seq, [VARY], options=SimOptions(nodes=nodes), memory_limit=2 ** 40)
+    return [MEM.point_estimate(t.compiled, plan.options, 0)["estimate"]["bytes"]
+            for t in plan.tasks]
 
 
 def test_plan_estimate_is_the_engines_own_estimate(tmp_path):
@@ -68,14 +64,14 @@ def test_plan_estimate_is_the_engines_own_estimate(tmp_path):
     cr = compile_run(c.expanded.runs[0], c.device)
     model = build_model(cr.waveforms, cr.device, m=2, stop=end_sample(cr.timeline))
     pts = noise_points(model, 1)
-    got = plan_estimate(model, pts, process=True)
+    got = plan_estimate(model, [(pts, True)], process=True)
     eng = FastEngine()
     ev = eng.average(model, pts, process=True, rho0=np.eye(8) / 8)
     assert got["estimate"] == ev.stats["estimate"]
     assert got["estimate"]["largest"]["dots"] == ["D0", "D1", "D2"]
     assert got["too_large"] is None and got["slow"] is None
     # over a limit: the refusal's information, without raising; nothing computed
-    small = plan_estimate(model, pts, process=True, memory_limit=100_000)
+    small = plan_estimate(model, [(pts, True)], process=True, memory_limit=100_000)
     assert small["too_large"]["dots"] == ["D0", "D1", "D2"]
     assert small["too_large"]["limit"] == 100_000
 
@@ -211,3 +207,22 @@ def test_exchange_accuracy_reaches_the_sweep(tmp_path, capsys):
     plan = plan_sweep(seq, [VARY], options=SimOptions(nodes=1, exchange_accuracy=1e-3))
     assert plan.options.exchange_accuracy == 1e-3
     assert plan.key["options"]["exchange_accuracy"] == 1e-3      # --resume compares it
+
+
+def test_a_point_is_refused_exactly_where_simulate_refuses_it(tmp_path, capsys):
+    # the sweep estimates the evaluations the simulation makes with its first
+    # two quadrature rules (5 nodes: the rules of 3 and 5 nodes, one noise at a
+    # time; on this run they agree within the tolerance, so no finer rule
+    # follows) to the byte: simulate refuses the open point's run one byte
+    # below the sweep's estimate and runs it at the estimate; the sweep alike
+    seq = _line(tmp_path)
+    need = _estimates(seq, nodes=5)[1]
+    opts = SimOptions(nodes=5)
+    with pytest.raises(SimulationError):
+        plan_sweep(seq, ["D0-D1.idle_voltage=-100mV"], options=opts, memory_limit=need - 1)
+    assert plan_sweep(seq, ["D0-D1.idle_voltage=-100mV"], options=opts,
+                      memory_limit=need).memory["largest_point_bytes"] == need
+    args = ["simulate", str(seq), "--nodes", "5", "--no-budget", "--no-steps"]
+    assert main(args + ["-o", str(tmp_path / "a"), "--memory-limit", str(need - 1)]) == 2
+    assert "dots D0, D1, D2 form one cluster" in capsys.readouterr().err
+    assert main(args + ["-o", str(tmp_path / "b"), "--memory-limit", str(need)]) == 0

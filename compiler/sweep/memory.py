@@ -12,12 +12,15 @@ limit: it is then the memory of one worker."""
 
 from __future__ import annotations
 
+import dataclasses
+
 from ..limits import human
 from ..simulate.build import build_model
 from ..simulate.engines.fast import plan_estimate
 from ..simulate.memory import too_large_error
 from ..simulate.model import noise_points
-from ..simulate.run import MAX_PROCESS_QUBITS, SimOptions, end_sample, quadrature_rule
+from ..simulate.run import (MAX_PROCESS_QUBITS, SimOptions, end_sample, evaluations,
+                            quadrature_rule)
 from ..simulate.sources import ALL_ON
 
 
@@ -27,16 +30,21 @@ def per_point_limit(limit: int, processes: int) -> int:
 
 
 def point_estimate(crun, options: SimOptions, limit: int) -> dict | None:
-    """The fast engine's estimate of one point's first evaluation: the
-    whole-run model (every source on, ``options``' sub-steps and RWA) over
-    the points of the starting quadrature rule (``options.nodes``) taken at
-    once, as the simulation evaluates them when it does not split them by
-    variable, with the process when the register has at most
-    ``MAX_PROCESS_QUBITS`` dots (then without the gate-band modes, which are
-    evaluated apart).  ``limit``: bytes for the point (0: not checked).
-    None for the reference engine and for dots of more than two levels
-    (``dotseq simulate`` estimates neither); without couplings every
-    cluster is one dot and the model is not built."""
+    """The fast engine's estimate of one point, as
+    :func:`compiler.simulate.engines.fast.plan_estimate` gives it: the
+    whole-run model (every source on, ``options``' sub-steps and RWA) and
+    the evaluations of the first two quadrature rules every point averages
+    with (``options.nodes`` − 2 and ``options.nodes`` nodes per variable;
+    one rule with one node or without noise), each rule's points as the
+    simulation hands them to the engine (:func:`compiler.simulate.run.evaluations`:
+    one variable at a time, or all at once), with the process when the
+    register has at most ``MAX_PROCESS_QUBITS`` dots (then without the
+    gate-band modes, which are evaluated apart).  A finer rule that the
+    averaging may ask for later is checked by the point's own engine.
+    ``limit``: bytes for the point (0: not checked).  None for the reference
+    engine and for dots of more than two levels (``dotseq simulate``
+    estimates neither); without couplings every cluster is one dot and the
+    model is not built."""
     tl, device = crun.timeline, crun.device
     if options.engine != "fast" or any(d.spin_valley for d in device.dots.values()):
         return None
@@ -45,15 +53,24 @@ def point_estimate(crun, options: SimOptions, limit: int) -> dict | None:
     if not device.couplings:      # no exchange: every cluster is one dot; the state alone
         state = 8 * 4 ** n * ((4 ** n if process else 0) + 1) * 2
         return {"estimate": {"clusters": 0, "bytes": state, "flops": 0.0, "largest": None,
-                             "seconds": 0.0}, "too_large": None, "slow": None}
+                             "seconds": 0.0}, "too_large": None, "slow": None, "seconds": 0.0}
     model = build_model(crun.waveforms, device, switches=ALL_ON, m=options.substeps, start=0,
                         stop=end_sample(tl), rwa=options.rwa)
     if any(lv != 2 for lv in model.levels):
         return None
-    pts = noise_points(model, options.nodes, quadrature_rule(device, options))
-    if process:
-        pts = [p for p in pts if not p.modes] or pts
-    return plan_estimate(model, pts, process=process, state=True,
+    noisy = any(v.rms > 0 for v in model.noise)
+    rules = ({max(1, options.nodes - 2), options.nodes} if noisy and options.nodes > 1
+             else {options.nodes})
+    sets: list = []
+    for nodes in sorted(rules):
+        pts = noise_points(model, nodes,
+                           quadrature_rule(device, dataclasses.replace(options, nodes=nodes)))
+        if process:
+            pts = [p for p in pts if not p.modes] or pts
+            sets += evaluations(pts)
+        else:
+            sets.append((pts, True))
+    return plan_estimate(model, sets, process=process,
                          exchange_accuracy=options.exchange_accuracy, memory_limit=limit)
 
 

@@ -273,7 +273,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                 continue
             largest = max(largest or 0, got["estimate"]["bytes"])
             if got["slow"]:
-                slow.append((label, got["estimate"]["seconds"], got["slow"]))
+                slow.append((label, got["seconds"], got["slow"]))
         crun = scheduled[ck]
         if crun is not True and kept + compiled_bytes(crun) > KEEP_COMPILED_BYTES:
             scheduled[ck] = crun = True            # checked; compiled again at the point
