@@ -193,8 +193,8 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
     _worker_flags(w, "compute", "")
-    w.add_argument("--memory-limit", metavar="SIZE", help="memory the sweep may take, e.g. 4GiB (default: half "
-                   "the memory available); the points computed at once by the local worker "
+    w.add_argument("--memory-limit", metavar="SIZE", help="memory the sweep may take, e.g. "
+                   "4GiB (default: half the memory available); the points computed at once by the local worker "
                    "processes share it (each gets the limit / --workers; on a --cluster each "
                    "point gets the whole limit): a sweep whose point would not fit is refused "
                    "before any point is simulated")

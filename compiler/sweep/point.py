@@ -82,8 +82,8 @@ def simulate_point(task: PointTask) -> PointResult:
     crun = task.compiled or compile_run(task.run, task.device)
     tl = crun.timeline
     # the point's share of the sweep's memory limit (plan.py): the plan
-    # estimated the starting quadrature rule; a finer one the averaging asks
-    # for is refused here, before it runs, and the point is marked invalid
+    # estimated the first two quadrature rules; a finer one the averaging or
+    # the budget asks for is refused here, before it runs (an invalid point)
     engine = make_engine(opts.engine, exchange_accuracy=opts.exchange_accuracy,
                          memory_limit=opts.memory_limit)
     try:
