@@ -914,3 +914,46 @@ def _apply(src: np.ndarray, dst: np.ndarray, dots: tuple[int, ...], M: np.ndarra
                     [0] + [20 + dots.index(q) if q in dots else 1 + q for q in range(n)] + [51],
                     optimize=True)
     dst[...] = out.reshape(dst.shape)
+
+
+# ------------------------------------------------------------------ estimate only
+
+def plan_estimate(model: Model, evaluations, *, process: bool,
+                  exchange_accuracy: float = 1e-6, memory_limit: int = 0) -> dict | None:
+    """What :meth:`FastEngine.average` would estimate before any work, without
+    running, raising or printing: :meth:`FastEngine._check_plan` of a fresh
+    engine for each evaluation of ``evaluations``, a list of (noise points,
+    whether the initial state is evolved too), with the process when
+    ``process``.  The drop and weak plan is made once, for all their points
+    together: for one evaluation it is the engine's own, for several its
+    clusters are at least as large as each one's own.  Returns
+    ``{"estimate": ...`` (the statistics ``estimate`` of the evaluation
+    needing the most memory), ``"too_large": ...`` (the
+    :class:`ClusterTooLarge` information of the first cluster over
+    ``memory_limit``, or None), ``"slow": ...`` (the engine's text for the
+    slowest evaluation when it is estimated at ``SLOW_NOTE_S`` or more, or
+    None), ``"seconds": ...`` (the slowest evaluation's estimate)``}``; None
+    for models with dots of other than two levels (the general path makes
+    no estimate).  Costs the plan alone: no exponential is taken."""
+    if any(lv != 2 for lv in model.levels):
+        return None
+    eng = FastEngine(exchange_accuracy=exchange_accuracy, memory_limit=memory_limit)
+    said: list = []
+    eng.notify = said.append
+    prep = eng._prepare(model, [p for pts, _ in evaluations for p in pts])
+    out = {"estimate": None, "too_large": None, "slow": None, "seconds": 0.0}
+    for pts, state in evaluations:
+        width = (4 ** model.n if process else 0) + (1 if state else 0)
+        said.clear()
+        try:
+            eng._check_plan(model, prep, pts, 8 * 4 ** model.n * max(width, 1) * 2)
+        except ClusterTooLarge as e:
+            out["too_large"] = e.info
+            return out
+        est = eng._estimate_now
+        if out["estimate"] is None or est["bytes"] > out["estimate"]["bytes"]:
+            out["estimate"] = est
+        if est["seconds"] >= out["seconds"]:
+            out["seconds"] = est["seconds"]
+            out["slow"] = said[0] if said else out["slow"]
+    return out
