@@ -244,7 +244,6 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     (module notes), and the rule inside single sub-steps.  Each unit evolves exactly (its own generator,
     exchange inside it included); each weak pair adds Π exp(Ω) per chunk on
     the dots of its two units."""
-    import dataclasses
     h = model.h
     n = e - s
     unit_of = {q: u for u, (dots, _) in enumerate(units) for q in dots}
@@ -253,8 +252,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     # of the model itself at every node)
     gens, which_u, anorm, kdim = [], [], [], []
     for dots, upairs in units:
-        pc = eng._cluster_pieces(model, dots, upairs)
-        pc = dataclasses.replace(pc, w={q: 0.0 for q in dots})
+        pc = _frameless(eng, model, dots, upairs)
         statics, G, C, _, which, _ = eng._segment_terms(model, prep, pc, s, e, points, idx)
         gens.append((statics, G, C))
         which_u.append(which)
@@ -416,18 +414,14 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
                 Y = np.zeros(tb.shape)
                 for kind, f, ia, ib in terms:
                     Y[ia] += (f * Wn[:, kind]) * tb[ib]
-                groups: dict = {}
-                for m, i in enumerate(calc):
-                    groups.setdefault(combos[i][0], []).append(m)
-                for va, ms in groups.items():
-                    ta = T[(ua, d0)][:, :, va]                          # (6, k0², nodes)
-                    Ym = Y[:, :, ms]                                     # (6, k1², M', nodes)
-                    for c in np.unique(node_chunk):
-                        lo, hi = cuts[c], cuts[c + 1]
-                        # Σ_(node, α) vec T_a ⊗ vec Y: (M', 6, k0², k1²) summed over α
-                        Z = np.matmul(ta[None, :, :, lo:hi],
-                                      Ym[..., lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
-                        Omp[ms, c] += _kron_pair(Z, k0, k1)
+                va = np.array([combos[i][0] for i in calc])
+                ta_all = T[(ua, d0)]                                   # (6, k0², V_a, nodes)
+                for c in np.unique(node_chunk):
+                    lo, hi = cuts[c], cuts[c + 1]
+                    # Σ_(node, α) vec T_a ⊗ vec Y: (M, 6, k0², k1²) summed over α
+                    ta = ta_all[:, :, va, lo:hi].transpose(2, 0, 1, 3)
+                    Z = np.matmul(ta, Y[..., lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
+                    Omp[:, c] += _kron_pair(Z, k0, k1)
             # runs of equal sub-steps: the exact integral (Van Loan)
             if len(lp):
                 for m, ci in enumerate(calc):
@@ -459,6 +453,20 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
         for u, (dots, _) in enumerate(units):
             pushes.append((dots, chunk_end[u][:, c], which_u[u]))
     return pushes, y, q_rule, "simpson" if simpson else "midpoint"
+
+
+def _frameless(eng, model, dots, upairs):
+    """The cluster's generator pieces without rotating frames (kept per model
+    on the engine: building them is not free)."""
+    import dataclasses
+    store = getattr(eng, "_frameless", None)
+    if store is None or store[0] is not model:
+        store = eng._frameless = (model, {})
+    got = store[1].get((dots, upairs))
+    if got is None:
+        pc = eng._cluster_pieces(model, dots, upairs)
+        got = store[1][(dots, upairs)] = dataclasses.replace(pc, w={q: 0.0 for q in dots})
+    return got
 
 
 def pair_generator_on(terms, kind_coef, nza, nzb, k0: int, k1: int) -> np.ndarray:
