@@ -193,12 +193,18 @@ def _sweep_parser(sub) -> None:
     w.add_argument("--budget", action="store_true", help="also compute the error budget of every "
                    "point (about ten more simulations per point)")
     _worker_flags(w, "compute", "")
+    w.add_argument("--memory-limit", metavar="SIZE", help="memory the sweep may take, e.g. "
+                   "4GiB (default: half the memory available); the points computed at once by the local worker "
+                   "processes share it (each gets the limit / --workers; on a --cluster each "
+                   "point gets the whole limit): a sweep whose point would not fit is refused "
+                   "before any point is simulated")
     w.add_argument("--more-workers-than-cores", action="store_true", help="start as many local "
                    "worker processes as --workers asks even when that is more than the cores "
                    "(otherwise capped at the core count)")
     w.add_argument("--resume", action="store_true", help="continue the unfinished sweep in the -o "
                    "folder (same file, device and arguments): compute only the missing points")
     _model_flags(w)
+    _exchange_flag(w)
     _readout_flags(w)
     w.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive (needs "
                    "--substeps of 64 or more; slow)")
@@ -237,6 +243,13 @@ def _model_flags(p) -> None:
                    "(default 2)")
 
 
+def _exchange_flag(p) -> None:
+    """The fast engine's accuracy for residual exchange (simulate, run, sweep)."""
+    p.add_argument("--exchange-accuracy", type=float, default=1e-6, metavar="FIDELITY",
+                   help="residual exchange of closed barriers is dropped or treated as weak "
+                   "within this change of the average gate fidelity (default 1e-6; 0: exact)")
+
+
 def _readout_flags(p) -> None:
     """What the report counts: the fidelity scope and the shots (simulate,
     run, sweep)."""
@@ -251,9 +264,7 @@ def _sim_flags(p) -> None:
     p.add_argument("--run", type=int, default=0, dest="detail_run",
                    help="run of a sweep that gets per-step fidelities, the budget and traces")
     _model_flags(p)
-    p.add_argument("--exchange-accuracy", type=float, default=1e-6, metavar="FIDELITY",
-                   help="residual exchange of closed barriers is dropped or treated as weak "
-                   "within this change of the average gate fidelity (default 1e-6; 0: exact)")
+    _exchange_flag(p)
     _readout_flags(p)
     p.add_argument("--no-rwa", action="store_true", help="keep the counter-rotating drive "
                    "(Bloch-Siegert shifts); needs --substeps of 64 or more and is slow")
@@ -294,8 +305,10 @@ def cmd_check(args) -> int:
 
 
 def _memory_limit(args) -> int:
-    """--memory-limit in bytes, or the default (half the memory available)."""
-    return parse_size(args.memory_limit, "--memory-limit") if args.memory_limit else default_limit()
+    """--memory-limit in bytes, or the default (half the memory available);
+    an empty value is refused like any other that is not a size."""
+    return (parse_size(args.memory_limit, "--memory-limit") if args.memory_limit is not None
+            else default_limit())
 
 
 def _options(args) -> CompileOptions:
@@ -540,6 +553,7 @@ def cmd_sweep(args) -> int:
     from .sweep.text import Progress, outcome_lines, plan_lines, problem_lines
 
     cluster, timeout, workers = _where_to_compute(args, "the sweep goes")
+    limit = _memory_limit(args)
     capped = ""
     if workers > local_cores() and not args.more_workers_than_cores:
         capped = (f" (--workers {workers} capped at the {local_cores()} cores; "
@@ -549,11 +563,15 @@ def cmd_sweep(args) -> int:
                       rwa=not args.no_rwa, quadrature=args.quadrature, budget=False, steps=False,
                       averaging_tolerance=args.averaging_tolerance,
                       fidelity_scope="register" if args.whole_register else "program",
-                      shots=args.shots)
+                      shots=args.shots, exchange_accuracy=args.exchange_accuracy)
+    opts.check()
     if not cluster and workers > 1:
         pool_context()               # the workers' server imports the package while we plan
+    # every point's simulation estimated against its share of the limit
+    # (sweep/memory.py): the local workers' points run at once
     plan = plan_sweep(args.file, args.vary, args.fixed, device=args.device, options=opts,
-                      budget=args.budget, confine=args.confine)
+                      budget=args.budget, confine=args.confine, memory_limit=limit,
+                      processes=1 if cluster else workers)
     command = "dotseq " + shlex.join([a for a in args.argv if a != "--resume"] + ["--resume"])
     if not cluster and 1 < plan.n_points < workers:
         capped = (f" (--workers {workers} capped at the {plan.n_points} points)"

@@ -117,6 +117,7 @@ def test_weak_idle_exchange_on_four_level_dots_within_the_bound(idle_runs, label
     a, b = idle_runs(label)
     assert a.stats["largest_cluster"] == 1 and b.stats["largest_cluster"] == 2
     assert a.stats["weak_exchange_chunks"] >= 1
+    assert a.stats["weak_exchange_rule"] != "none"
     bound = a.stats["exchange_error_bound"]
     assert 0 < bound <= 1e-6
     assert a.stats["exchange_error_bound"] == pytest.approx(
@@ -150,6 +151,7 @@ def test_a_burst_during_the_weak_stretch(tmp_path):
                                                   trace_points=9)
     bound = a.stats["exchange_error_bound"]
     assert a.stats["largest_cluster"] == 1 and a.stats["weak_exchange_chunks"] >= 2
+    assert "simpson" in a.stats["weak_exchange_rule"]        # the burst's sub-steps
     assert 0 < bound <= 1e-6
     assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
     assert np.max(np.abs(a.rho - b.rho)) <= 2 * bound

@@ -451,7 +451,8 @@ def test_tables_hold_units_values_and_the_best_point(ramsey, tmp_path):
     assert doc["points"][0]["coherence"][0]["ratio"] == pytest.approx(1.0 / 20e-9)
     assert doc["settings"] == {"engine": "fast", "nodes": 3, "quadrature": "auto",
                                "substeps": 1, "rwa": True,
-                               "averaging_tolerance": 1e-4, "fidelity_scope": "program",
+                               "averaging_tolerance": 1e-4, "exchange_accuracy": 1e-6,
+                               "fidelity_scope": "program",
                                "shots": 0}
     head = (tmp_path / "s" / "sweep.csv").read_text().splitlines()
     assert head[0].startswith("# dotseq sweep of") and "complete, 3 of 3 points" in head[0]

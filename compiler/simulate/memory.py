@@ -1,7 +1,8 @@
 """The refusal of a simulation that would not fit in memory: the fast
 engine estimates every exact cluster before any work
 (:class:`~compiler.simulate.engines.fast.ClusterTooLarge`); this turns what
-it found into the user's error, with units and the fixes."""
+it found into the user's error, with units and the fixes.  A sweep refuses
+a point the same way (:mod:`compiler.sweep.memory`), naming the point."""
 
 from __future__ import annotations
 
@@ -9,9 +10,20 @@ from ..errors import SimulationError
 from ..limits import human
 from ..units import FREQUENCY, TIME, VOLTAGE, format_quantity
 
+FIXES = ("close those barriers further at idle (a lower idle_voltage of the couplings)",
+         "raise the exchange accuracy tolerance (--exchange-accuracy, default 1e-6) so that "
+         "the residual exchange is dropped or treated as weak",
+         "use fewer quadrature nodes (--nodes)")
 
-def too_large_error(info: dict) -> SimulationError:
-    """The error for a cluster (``ClusterTooLarge.info``) over the limit."""
+
+def too_large_error(info: dict, *, subject: str = "the simulation", limit_note: str = "",
+                    after: str = "", more_fixes: tuple[str, ...] = (),
+                    raise_fix: str = "raise --memory-limit") -> SimulationError:
+    """The error for a cluster (``ClusterTooLarge.info``) over the limit.
+    A sweep words it for one of its points: ``subject`` (what would need the
+    memory), ``limit_note`` (after the limit: how it was shared), ``after``
+    (appended to the message), ``more_fixes`` (before the last fix) and
+    ``raise_fix`` (the last fix)."""
     why = []
     for p in info["pairs"]:
         text = (f"{p['name']} (J = {format_quantity(p['j_min'], FREQUENCY)} at "
@@ -21,15 +33,13 @@ def too_large_error(info: dict) -> SimulationError:
         why.append(text + ")")
     k = info["dimension"]
     dots = info["dots"]
+    fixes = FIXES + tuple(more_fixes)
     return SimulationError(
-        f"the simulation would need about {human(info['bytes'])} of memory, above the limit of "
-        f"{human(info['limit'])}: dots {', '.join(dots)} form one cluster of {len(dots)} dots "
+        f"{subject} would need about {human(info['bytes'])} of memory, above the limit of "
+        f"{human(info['limit'])}{limit_note}: dots {', '.join(dots)} form one cluster of {len(dots)} dots "
         f"(channel {k}×{k}, {human(8 * k * k)} per matrix, {info['variants']} noise "
         f"variant{'s' * (info['variants'] != 1)}) from {format_quantity(info['start_s'], TIME)} to "
         f"{format_quantity(info['end_s'], TIME)}, because the exchange of " + ", ".join(why)
         + (" is" if len(why) == 1 else " are") + " too strong to drop or to treat as weak at "
-        "the requested accuracy; nothing was simulated",
-        hint="close those barriers further at idle (a lower idle_voltage of the couplings), "
-             "raise the exchange accuracy tolerance (--exchange-accuracy, default 1e-6) so "
-             "that the residual exchange is dropped or treated as weak, use fewer quadrature "
-             "nodes (--nodes), or raise --memory-limit")
+        "the requested accuracy; nothing was simulated" + after,
+        hint=", ".join(fixes) + f", or {raise_fix}")

@@ -190,6 +190,20 @@ def _one_at_a_time(pts):
     return centre, [groups[k] for k in sorted(groups)]
 
 
+def evaluations(pts) -> list[tuple[list, bool]]:
+    """The evaluations :func:`average_constant` asks of the engine when R₀
+    is well conditioned, each as (its points, whether it evolves the
+    initial state too): for the one-variable-at-a-time rule the centre
+    (with the state) and each variable's points (the process alone), else
+    all the points at once with the state (a sweep estimates them before it
+    runs, :mod:`compiler.sweep.memory`)."""
+    split = _one_at_a_time(pts)
+    if split is None:
+        return [(list(pts), True)]
+    centre, groups = split
+    return [([centre], True)] + [(list(g), False) for g in groups]
+
+
 def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
     """The whole-run channel averaged over the quasi-static variables.
 

@@ -16,12 +16,13 @@ from ..device import device_of
 from ..device.model import Device
 from ..errors import MAX_SHOWN, Problem, DotseqError, UsageError
 from ..expand import expand
-from ..limits import MAX_SOURCE_CHARS
+from ..limits import MAX_SOURCE_CHARS, budget as memory_budget, default_limit
 from ..parse import parse_path
 from ..parse import tree as T
 from ..simulate.run import SimOptions
 from ..source import Oversize, Unreadable, read_capped
 from ..units import format_quantity
+from . import memory as MEM
 from . import params as PR
 from .spec import MAX_POINTS, si_symbol, split_arg, to_spec
 from .types import PointTask, SweepPlan, VarySpec
@@ -73,6 +74,7 @@ def sim_settings(opts: SimOptions) -> dict:
     return {"engine": opts.engine, "nodes": opts.nodes, "quadrature": opts.quadrature,
             "substeps": opts.substeps, "rwa": opts.rwa,
             "averaging_tolerance": opts.averaging_tolerance,
+            "exchange_accuracy": opts.exchange_accuracy,
             # the points' fidelities and observables depend on these too (--resume compares)
             "fidelity_scope": opts.fidelity_scope, "shots": opts.shots}
 
@@ -85,7 +87,8 @@ def _spec_record(s: VarySpec) -> dict:
 def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                fixed: list[str] | tuple[str, ...] = (), *, device: str | Path | None = None,
                options: SimOptions = SimOptions(), budget: bool = False,
-               confine: bool = False) -> SweepPlan:
+               confine: bool = False, memory_limit: int | None = None,
+               processes: int = 1) -> SweepPlan:
     """Read, check and lay out a sweep.
 
     Parameters
@@ -103,6 +106,15 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         inside it are ignored).
     budget : bool
         Compute the error budget of every point (about ten evaluations each).
+    memory_limit : int, optional
+        Bytes the sweep may take (default ``options.memory_limit`` or, when
+        that is 0, half the memory available): it bounds the text read and
+        the steps expanded, and every point's simulation is estimated
+        against its share (module :mod:`.memory`).
+    processes : int
+        Points computed at the same time on this machine (the local worker
+        processes; 1 in this process or on a Dask cluster): each point gets
+        the limit divided by this (by the number of points when fewer).
 
     Returns
     -------
@@ -116,19 +128,19 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     UsageError
         Bad argument text, unknown or repeated names, wrong units, more than
         two axes or none, a point that breaks a physical constraint.
+    SimulationError
+        A point whose simulation would not fit its share of the memory limit
+        (the error names the point, the cluster and the fixes).
     DotseqError
         The sequence or device is wrong, or a point cannot be checked or
         scheduled (the error names the point's values).
     """
     options.check()
-    options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
-                         nodes=options.nodes, quadrature=options.quadrature,
-                         averaging_tolerance=options.averaging_tolerance, budget=False,
-                         steps=False, fidelity_scope=options.fidelity_scope,
-                         shots=options.shots)
+    limit = int(memory_limit or options.memory_limit or default_limit())
+    front = memory_budget(limit)
     raws = [split_arg(t, "--vary") for t in vary] + [split_arg(t, "--set") for t in fixed]
-    tree = parse_path(path, confine=confine)
-    expanded = expand(tree)
+    tree = parse_path(path, budget=front, confine=confine)
+    expanded = expand(tree, budget=front)
     dev0 = device_of(expanded, device, confine=confine)
     dev_path = str(dev0.path)
     device_ps = PR.device_params(dev0)
@@ -170,6 +182,17 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     if total > MAX_POINTS:
         raise UsageError(f"the sweep has {total} points, above the limit of {MAX_POINTS}",
                          hint="use fewer points per parameter")
+    # the points computed at once share the limit; each worker's engine checks
+    # its point against its share too (a finer quadrature rule than the
+    # estimated one is refused at the point, not run out of memory)
+    at_once = max(1, min(processes, total))
+    point_limit = MEM.per_point_limit(limit, at_once)
+    options = SimOptions(engine=options.engine, rwa=options.rwa, substeps=options.substeps,
+                         nodes=options.nodes, quadrature=options.quadrature,
+                         averaging_tolerance=options.averaging_tolerance, budget=False,
+                         steps=False, fidelity_scope=options.fidelity_scope,
+                         shots=options.shots, exchange_accuracy=options.exchange_accuracy,
+                         memory_limit=point_limit)
 
     seq_fixed = {s.name: (s.values[0], s.dim) for s in sets if s.kind == "sequence"}
     dev_fixed = {s.name: s.values[0] for s in sets if s.kind == "device"}
@@ -186,6 +209,10 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
     constraint_fails: dict[str, list[tuple[str, str, str]]] = {}
     caution_hits: dict[str, list[str]] = {}
     stage_errors: list[tuple[DotseqError, str]] = []
+    estimates: dict[tuple, dict | None] = {}
+    memory_fails: list[tuple[str, dict]] = []
+    slow: list[tuple[str, float, str]] = []
+    largest = None                # bytes of the largest point estimated
     tasks: list[PointTask] = []
     for index, coords in enumerate(itertools.product(*[a.values for a in axes])):
         label = point_label(axes, coords)
@@ -216,7 +243,7 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
             continue
         if skey not in expanded_cache:
             try:
-                expanded_cache[skey] = expand(PR.override(tree, seq_vals))
+                expanded_cache[skey] = expand(PR.override(tree, seq_vals), budget=front)
             except DotseqError as e:
                 expanded_cache[skey] = e
         ex = expanded_cache[skey]
@@ -232,11 +259,21 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
                 crun = compile_run(ex.runs[0], dev)   # schedule, synthesise: channel limits
                 scheduled[ck] = crun
                 run_warnings[ck] = point_warnings_of(crun.timeline, dev)
+                # before it may be dropped below: the simulation's own estimate
+                estimates[ck] = MEM.point_estimate(crun, options, point_limit)
             except DotseqError as e:
                 scheduled[ck] = e
         if isinstance(scheduled[ck], DotseqError):
             stage_errors.append((scheduled[ck], label))
             continue
+        got = estimates.get(ck)
+        if got is not None:
+            if got["too_large"] is not None:
+                memory_fails.append((label, got["too_large"]))
+                continue
+            largest = max(largest or 0, got["estimate"]["bytes"])
+            if got["slow"]:
+                slow.append((label, got["seconds"], got["slow"]))
         crun = scheduled[ck]
         if crun is not True and kept + compiled_bytes(crun) > KEEP_COMPILED_BYTES:
             scheduled[ck] = crun = True            # checked; compiled again at the point
@@ -254,6 +291,8 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
         raise _constraint_error(constraint_fails, len(device_cache))
     if stage_errors:
         raise _stage_error(stage_errors, total)
+    if memory_fails:
+        raise MEM.refusal(memory_fails, total, limit, at_once)
 
     key = {"format": "dotseq-sweep-key", "dotseq_version": __version__,
            "sequence_sha256": _sha256([tree.file] + _includes(tree.body, [])),
@@ -262,9 +301,12 @@ def plan_sweep(path: str | Path, vary: list[str] | tuple[str, ...] = (),
            "options": sim_settings(options), "budget": bool(budget)}
     # no quadrature caution: every point's average over quasi-static noise is
     # refined to the stated tolerance (simulate.run.evaluate_whole)
-    warnings = tuple(_caution_lines(caution_hits)) + _worst_point_warning(per_point, worst_at, total)
+    warnings = (tuple(_caution_lines(caution_hits)) + _worst_point_warning(per_point, worst_at, total)
+                + MEM.slow_warning(slow, total))
+    memory = {"limit_bytes": limit, "points_at_once": at_once, "point_limit_bytes": point_limit,
+              "largest_point_bytes": largest}
     return SweepPlan(str(path), dev0.name, dev_path, tuple(axes), tuple(sets), tuple(tasks),
-                     options, bool(budget), key, warnings, per_point)
+                     options, bool(budget), key, warnings, per_point, memory)
 
 
 def point_warnings_of(tl, device) -> tuple[tuple[float, str], ...]:

@@ -23,7 +23,8 @@ import traceback
 from .. import RECOMPILER, compile_run
 from ..margin import coherence_margins
 from ..errors import DotseqError
-from ..simulate.engines import make_engine
+from ..simulate.engines import ClusterTooLarge, make_engine
+from ..simulate.memory import too_large_error
 from ..simulate.run import error_budget, evaluate_whole
 from ..simulate.sources import ALL_ON
 from ..threads import one_thread
@@ -80,15 +81,23 @@ def simulate_point(task: PointTask) -> PointResult:
     opts = task.options
     crun = task.compiled or compile_run(task.run, task.device)
     tl = crun.timeline
-    engine = make_engine(opts.engine)
-    whole = evaluate_whole(crun, ALL_ON, opts, engine)
-    fid = whole.f_avg if whole.f_avg is not None else whole.f_state
-    budget = ()
-    floor = remainder = None
-    if task.budget:
-        lines, floor, remainder, _ = error_budget(crun, opts, engine, whole, RECOMPILER.run)
-        budget = tuple((b.source, float(b.infidelity)) for b in lines)
-        floor, remainder = float(floor), float(remainder)
+    # the point's share of the sweep's memory limit (plan.py): the plan
+    # estimated the first two quadrature rules; a finer one the averaging or
+    # the budget asks for is refused here, before it runs (an invalid point)
+    engine = make_engine(opts.engine, exchange_accuracy=opts.exchange_accuracy,
+                         memory_limit=opts.memory_limit)
+    try:
+        whole = evaluate_whole(crun, ALL_ON, opts, engine)
+        fid = whole.f_avg if whole.f_avg is not None else whole.f_state
+        budget = ()
+        floor = remainder = None
+        if task.budget:
+            lines, floor, remainder, _ = error_budget(crun, opts, engine, whole, RECOMPILER.run)
+            budget = tuple((b.source, float(b.infidelity)) for b in lines)
+            floor, remainder = float(floor), float(remainder)
+    except ClusterTooLarge as e:
+        raise too_large_error(e.info, subject="this point's simulation",
+                              limit_note=" for a point") from None
     return PointResult(
         task.index, task.coords, OK, "", float(fid), float(whole.infidelity),
         None if whole.f_pro is None else float(whole.f_pro),

@@ -6,6 +6,7 @@ from __future__ import annotations
 import os
 import sys
 
+from ..limits import human
 from ..physics import COHERENCE_RULE
 from ..numfmt import fmt_fidelity, fmt_ratio, fmt_sci
 from ..units import format_quantity
@@ -81,6 +82,13 @@ def plan_lines(plan, file: str, where: str) -> list[str]:
                + ("whole-run fidelity and error budget" if plan.budget else
                   "whole-run fidelity (--budget adds the error budget)"))
     out.append(f"workers   {where}")
+    mem = plan.memory or {}
+    if mem.get("largest_point_bytes") is not None:
+        shared = mem.get("points_at_once", 1)
+        out.append(f"memory    about {human(mem['largest_point_bytes'])} for the largest point "
+                   f"(estimated), limit {human(mem['point_limit_bytes'])} per point"
+                   + (f" ({human(mem['limit_bytes'])} shared by {shared} points at once)"
+                      if shared > 1 else ""))
     out += [f"warning: {w}" for w in plan.warnings]
     return out
 

@@ -52,6 +52,10 @@ class SweepPlan:
     # per grid index: the warnings of that point's compiled run, worst first
     # (as `dotseq check` words them), each (severity, text)
     point_warnings: dict = field(default_factory=dict)
+    # the memory check (sweep/memory.py): the sweep's limit, the points computed
+    # at once, each point's share and the largest point's estimate (bytes;
+    # None when no point was estimated: reference engine, dots of four levels)
+    memory: dict = field(default_factory=dict)
 
     @property
     def shape(self) -> tuple[int, ...]:

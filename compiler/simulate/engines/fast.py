@@ -26,9 +26,10 @@ Method (docs/simulate.md, "The fast engine"):
    (b) when more is left than that (idle barriers at 1 Hz…1 kHz), the
    accuracy is split in halves, one for dropping, one for the *weak*
    treatment of :mod:`.weak`: the pair's dots keep their own exact channels
+   (or, beside an exchange pulse, the channel of the pulse's exact pair)
    and the exchange enters per chunk to first order in the interaction
    picture (error second order per chunk, bound Σ(e^y − 1 − y); module notes
-   there);
+   there), so a weak neighbour never joins a pulse's cluster;
    (c) what is neither stays on exactly (the pair's dots form one cluster).
    The dropped phase and the bounds are recorded in the statistics
    (``neglected_exchange_rad``, ``weak_exchange_bound``,
@@ -175,6 +176,7 @@ class FastEngine:
         self.weak_exchange = weak_exchange
         self._weak_bound_now = 0.0
         self._weak_chunks_now = 0
+        self._weak_rules_now = set()
         self._estimate_now = {}
         self._pieces: dict = {}
         self._cache: dict = {}
@@ -244,6 +246,7 @@ class FastEngine:
         st["neglected_exchange_rad"] = self._neglected_now
         st["weak_exchange_bound"] = self._weak_bound_now
         st["weak_exchange_chunks"] = self._weak_chunks_now
+        st["weak_exchange_rule"] = " and ".join(sorted(self._weak_rules_now)) or "none"
         st["estimate"] = self._estimate_now
         st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         st["wall_s"] = time.perf_counter() - t0
@@ -270,6 +273,7 @@ class FastEngine:
         st["neglected_exchange_rad"] = self._neglected_now
         st["weak_exchange_bound"] = self._weak_bound_now
         st["weak_exchange_chunks"] = self._weak_chunks_now
+        st["weak_exchange_rule"] = " and ".join(sorted(self._weak_rules_now)) or "none"
         st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         st["wall_s"] = wall
         return Evolution(S, rho, traces, st)
@@ -311,6 +315,7 @@ class FastEngine:
         ip = [np.zeros(K, dtype=bool) for _ in jmax]
         self._weak_bound_now = 0.0
         self._weak_chunks_now = 0
+        self._weak_rules_now = set()
         if not self.weak_exchange or not K or not jmax or self.exchange_budget <= 0:
             self._set_neglected(total)
             return on, ip
@@ -323,7 +328,8 @@ class FastEngine:
             xn.append(4 * math.pi * nrm * h)
         dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
                                      for d in model.dissipators_of(q)]) for q in range(model.n)}
-        dnorm = 2 * max(dn.values(), default=0.0)
+        # a weak pair's correction acts on at most three dots (weak.MAX_UNION)
+        dnorm = sum(sorted(dn.values())[-3:])
         # chunks last at most τ_max, so that ‖E₀⁻¹‖◇ ≤ κ = exp(‖L_D‖◇·τ_max) ≤ 1.1
         tau_max = math.log(KAPPA) / dnorm if dnorm > 0 else math.inf
         kmax = min(KAPPA, math.exp(dnorm * K * h))
@@ -348,7 +354,7 @@ class FastEngine:
                 if d is not None:
                     prof = np.abs(d) if prof is None else np.maximum(prof, np.abs(d))
             anorm[q] = weak_mod.one_dot_norms(re, im, dets[q], prof, dn[q], K)
-        prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm,
+        prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm, "eps": eps,
                      "kappa": kmax, "tau_max": tau_max})
         return on, weak
 
@@ -571,26 +577,34 @@ class FastEngine:
 
     def _segment_split(self, model: Model, prep: dict, s: int):
         """The pairs of the segment starting at sub-step ``s`` taken exactly,
-        and the weak ones with their dots ((pairs, dots) or None).  A weak
-        pair touching a dot of an exact cluster of two or more is taken
-        exactly too (it would need that cluster's channel inside)."""
+        and the weak ones with the *units* they join ((pairs, units) or
+        None): a unit is an exact cluster (dots, pairs), of one dot or more,
+        that holds a weak pair's dot; it evolves exactly and the weak pair's
+        correction acts on its two units together.  A weak pair is taken
+        exactly after all when both its dots are in one unit (it joins no
+        one) or when its two units together would exceed
+        :data:`.weak.MAX_UNION` (4^3: an exchange pulse's cluster of two and
+        one weak neighbour)."""
         exact = [i for i, (m, w) in enumerate(zip(prep["on"], prep["ip"])) if m[s] and not w[s]]
         weak = [i for i, w in enumerate(prep["ip"]) if w[s]]
         while weak:
-            big = set()
-            for dots, _ in clusters(model.n, [(model.pairs[i].a, model.pairs[i].b)
-                                              for i in exact], exact):
-                if len(dots) > 1:
-                    big.update(dots)
-            move = [i for i in weak if model.pairs[i].a in big or model.pairs[i].b in big]
+            edges = [(model.pairs[i].a, model.pairs[i].b) for i in exact]
+            unit = {}
+            for dots, pairs in clusters(model.n, edges, exact):
+                for q in dots:
+                    unit[q] = (dots, pairs)
+            move = []
+            for i in weak:
+                ua, ub = unit[model.pairs[i].a], unit[model.pairs[i].b]
+                if ua == ub or 4 ** (len(ua[0]) + len(ub[0])) > weak_mod.MAX_UNION:
+                    move.append(i)
             if not move:
-                break
+                units = sorted({unit[q] for i in weak for q in (model.pairs[i].a,
+                                                                 model.pairs[i].b)})
+                return exact, (tuple(weak), tuple(units))
             exact += move
             weak = [i for i in weak if i not in move]
-        if not weak:
-            return exact, None
-        dots = tuple(sorted({q for i in weak for q in (model.pairs[i].a, model.pairs[i].b)}))
-        return exact, (tuple(weak), dots)
+        return exact, None
 
     # -------------------------------------------------------------- channels
 
@@ -822,7 +836,7 @@ class FastEngine:
             exact, weak = self._segment_split(model, prep, s)
             for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b) for i in exact],
                                          exact):
-                if len(dots) == 1 and weak and dots[0] in weak[1]:
+                if weak and (dots, pairs) in weak[1]:
                     continue                       # its own channel comes with the weak pairs
                 pc = self._cluster_pieces(model, dots, pairs)
                 self._largest_now = max(self._largest_now, len(dots))
@@ -831,10 +845,12 @@ class FastEngine:
                 M = chans if len(chans) == 1 else chans[which]
                 push(dots, M)
             if weak:
-                self._largest_now = max(self._largest_now, 1)
-                self.largest_cluster = max(self.largest_cluster, 1)
-                pushes, y, q = weak_mod.weak_segment(self, model, prep, s, e, weak[0], weak[1],
-                                                     pts, idx)
+                big = max(len(dots) for dots, _ in weak[1])
+                self._largest_now = max(self._largest_now, big)
+                self.largest_cluster = max(self.largest_cluster, big)
+                pushes, y, q, rule = weak_mod.weak_segment(self, model, prep, s, e, weak[0],
+                                                           weak[1], pts, idx)
+                self._weak_rules_now.add(rule)
                 weak_y.append(y)
                 weak_q.append(q)
                 for dots, chans, which in pushes:
@@ -902,3 +918,46 @@ def _apply(src: np.ndarray, dst: np.ndarray, dots: tuple[int, ...], M: np.ndarra
                     [0] + [20 + dots.index(q) if q in dots else 1 + q for q in range(n)] + [51],
                     optimize=True)
     dst[...] = out.reshape(dst.shape)
+
+
+# ------------------------------------------------------------------ estimate only
+
+def plan_estimate(model: Model, evaluations, *, process: bool,
+                  exchange_accuracy: float = 1e-6, memory_limit: int = 0) -> dict | None:
+    """What :meth:`FastEngine.average` would estimate before any work, without
+    running, raising or printing: :meth:`FastEngine._check_plan` of a fresh
+    engine for each evaluation of ``evaluations``, a list of (noise points,
+    whether the initial state is evolved too), with the process when
+    ``process``.  The drop and weak plan is made once, for all their points
+    together: for one evaluation it is the engine's own, for several its
+    clusters are at least as large as each one's own.  Returns
+    ``{"estimate": ...`` (the statistics ``estimate`` of the evaluation
+    needing the most memory), ``"too_large": ...`` (the
+    :class:`ClusterTooLarge` information of the first cluster over
+    ``memory_limit``, or None), ``"slow": ...`` (the engine's text for the
+    slowest evaluation when it is estimated at ``SLOW_NOTE_S`` or more, or
+    None), ``"seconds": ...`` (the slowest evaluation's estimate)``}``; None
+    for models with dots of other than two levels (the general path makes
+    no estimate).  Costs the plan alone: no exponential is taken."""
+    if any(lv != 2 for lv in model.levels):
+        return None
+    eng = FastEngine(exchange_accuracy=exchange_accuracy, memory_limit=memory_limit)
+    said: list = []
+    eng.notify = said.append
+    prep = eng._prepare(model, [p for pts, _ in evaluations for p in pts])
+    out = {"estimate": None, "too_large": None, "slow": None, "seconds": 0.0}
+    for pts, state in evaluations:
+        width = (4 ** model.n if process else 0) + (1 if state else 0)
+        said.clear()
+        try:
+            eng._check_plan(model, prep, pts, 8 * 4 ** model.n * max(width, 1) * 2)
+        except ClusterTooLarge as e:
+            out["too_large"] = e.info
+            return out
+        est = eng._estimate_now
+        if out["estimate"] is None or est["bytes"] > out["estimate"]["bytes"]:
+            out["estimate"] = est
+        if est["seconds"] >= out["seconds"]:
+            out["seconds"] = est["seconds"]
+            out["slow"] = said[0] if said else out["slow"]
+    return out

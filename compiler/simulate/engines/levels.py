@@ -210,6 +210,7 @@ class LevelsPath:
             eng.weak_exchange_bound = max(eng.weak_exchange_bound, eng._weak_bound_now)
         if wrun is not None:
             eng.exponentials += wrun.exponentials
+            eng._weak_rules_now = set(wrun.rules)
         return S_sum, rho_sum, traces, time.perf_counter() - t0
 
     # ------------------------------------------------------------------ channels

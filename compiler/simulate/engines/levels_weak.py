@@ -230,6 +230,7 @@ def plan(eng, model, coefs: list, jmax: list, points):
     K, h = model.k, model.h
     eng._weak_bound_now = 0.0
     eng._weak_chunks_now = 0
+    eng._weak_rules_now = set()
     on, total = eng._drop(jmax, h, K, eng.exchange_budget)
     weak = [np.zeros(K, dtype=bool) for _ in jmax]
     if not eng.weak_exchange or not K or not jmax or eng.exchange_budget <= 0:
@@ -318,6 +319,7 @@ class WeakRun:
         self._omega: dict = {}
         self._scaled: dict = {}
         self.exponentials = 0
+        self.rules: set = set()        # quadrature rules used inside sub-steps
 
     # -------------------------------------------------------------- public
     def segment(self, s: int, e: int, pairs, pt):
@@ -429,6 +431,8 @@ class WeakRun:
         node_piece, node_j, node_w = node_piece[o], node_j[o], node_w[o]
         node_chunk = chunk_of[node_piece]
         cuts = np.searchsorted(node_chunk, np.arange(nch + 1))
+        self.rules.update(["midpoint"] if mid.any() else [])
+        self.rules.update(["simpson"] if not mid.all() else [])
         return {"s": s, "e": e, "pairs": cpairs, "dots": cdots, "y": y, "q": q, "order": order,
                 "starts": starts, "m": m, "panel": panel, "first": first,
                 "last": np.flatnonzero(last_in_chunk), "merged": merged,
