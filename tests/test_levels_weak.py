@@ -199,6 +199,27 @@ def test_weak_segments_of_every_point_share_the_dots_work(tmp_path):
     assert len({o.tobytes() for o in outs}) == 27
 
 
+@pytest.mark.parametrize("length", [1, 2, 5])
+def test_short_weak_segments(tmp_path, length):
+    # weak segments of one, two and five sub-steps (as between the steps of a run
+    # whose per-step fidelities are evaluated): each against the pair's exact
+    # channel over the same sub-steps, within twice the bound
+    model = _model(tmp_path, IDLE["1 kHz"], "rot A x 90 deg\n", m=1)
+    pt = NoisePoint((3e4, -2e4), (1e-5,), 1.0)
+    eng = FastEngine()
+    lp = LevelsPath(eng)
+    coefs = [{1e-5: model.pairs[0].coefficients(1e-5)}]
+    on, ip, prep = LW.plan(eng, model, coefs, [coefs[0][1e-5][0]], [pt])
+    s = model.k // 2
+    run = LW.WeakRun(lp, model, coefs, prep, _basis)
+    pushes, y, q = run.segment(s, s + length, (0,), pt)
+    ((dots, M),) = pushes
+    exact = lp._channel(model, coefs, (0, 1), (0,), s, s + length, pt)
+    bound = LW.weak_mod.weak_bound(y, q)
+    assert dots == (0, 1) and 0 < bound
+    assert np.max(np.abs(M - exact)) <= 2 * bound
+
+
 # ------------------------------------------------------------------ against mesolve
 
 @pytest.mark.slow

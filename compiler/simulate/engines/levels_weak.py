@@ -625,7 +625,8 @@ def _expm_real(A: np.ndarray, t: np.ndarray):
     if n == 0:
         return A.copy(), 0
     change = np.ones(n, dtype=bool)
-    change[1:] = np.any((A[1:] != A[:-1]).reshape(n - 1, -1), axis=1) | (t[1:] != t[:-1])
+    if n > 1:
+        change[1:] = np.any((A[1:] != A[:-1]).reshape(n - 1, -1), axis=1) | (t[1:] != t[:-1])
     first = np.flatnonzero(change)
     if A.shape[-1] <= 16:
         E = PL.expm_batch(A[first] * t[first][:, None, None])
