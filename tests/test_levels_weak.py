@@ -236,3 +236,48 @@ def test_weak_exchange_on_four_level_dots_against_mesolve(tmp_path):
     r = ReferenceEngine(rtol=1e-11, atol=1e-13).evolve(model, pt, rho0=rho0)
     assert a.stats["weak_exchange_chunks"] >= 1
     assert np.max(np.abs(a.rho - r.rho)) <= 2 * a.stats["exchange_error_bound"] + 1e-7
+
+
+@pytest.mark.slow
+def test_two_weak_pairs_on_a_line_against_the_exact_three_dot_channel(tmp_path):
+    # A–B (four-level) and B–C (C a spin-1/2) both idling at 1 kHz: one weak
+    # component of two pairs, whose dots receive each chunk's maps in turn; over
+    # a few sub-steps against the exact 32-level three-dot channel (1024 × 1024,
+    # slow to build: about 10 s), within twice the bound (common practice, no source)
+    from compiler.simulate.engines.levels import _apply
+    dev = DEVICE.read_text().replace("idle_voltage: -600 mV", "idle_voltage: -238 mV")
+    dev = dev.replace("    plunger: P_B\n", "    plunger: P_B\n  C:\n    g: 2.0044\n    t1: 200 us\n"
+                      "    t2: 20 us\n    t2_star: 2 us\n"
+                      "    drive: {line: mw2, rabi_per_volt: 40 MHz/V}\n    plunger: P_C\n", 1)
+    dev = dev.replace("    charge_noise: 10 uV\n", "    charge_noise: 10 uV\n  - dots: [B, C]\n"
+                      "    barrier: B_BC\n    exchange: {model: exponential, j0: 150 MHz, v0: 20 mV}\n"
+                      "    idle_voltage: -238 mV\n    pulse_voltage: 0 mV\n", 1)
+    dev = dev.replace("  M1:", "  P_C:  {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}\n"
+                      "  B_BC: {kind: gate, sample_rate: 1 GS/s, bits: 16, range: [-1 V, 1 V]}\n"
+                      "  mw2:  {kind: iq, sample_rate: 1 GS/s, bits: 14, range: [-500 mV, 500 mV], "
+                      "lo: 11.3 GHz, if_band: [-250 MHz, 250 MHz]}\n  M1:")
+    (tmp_path / "d.yaml").write_text(dev)
+    (tmp_path / "s.dotseq").write_text('device "d.yaml"\nprepare A B C down\nrot A x 90 deg\n'
+                                       "read A B C\n")
+    c = load(tmp_path / "s.dotseq")
+    cr = compile_run(c.expanded.runs[0], c.device)
+    model = build_model(cr.waveforms, cr.device, m=1, stop=end_sample(cr.timeline))
+    assert model.levels == (4, 4, 2)
+    pt = NoisePoint((3e4, -2e4, 1e4), (1e-5, -1e-5), 1.0)
+    eng = FastEngine()
+    lp = LevelsPath(eng)
+    coefs = [{dv: p.coefficients(dv)} for p, dv in zip(model.pairs, pt.dv)]
+    on, ip, prep = LW.plan(eng, model, coefs, [coefs[i][pt.dv[i]][0] for i in range(2)], [pt])
+    s, L = model.k // 2, 3
+    pushes, y, q = LW.WeakRun(lp, model, coefs, prep, _basis).segment(s, s + L, (0, 1), pt)
+    assert [d for d, _ in pushes] == [(0, 1), (1, 2), (0,), (1,), (2,)]
+    rng = np.random.default_rng(1)
+    v = rng.standard_normal(32) + 1j * rng.standard_normal(32)
+    rho = np.outer(v, v.conj()) / np.vdot(v, v).real
+    T = rho.reshape(32, 32, 1, order="F").reshape(model.levels + model.levels + (1,))
+    for dots, M in pushes:
+        T = _apply(T, dots, M, model.levels)
+    got = T.reshape(32, 32, 1).reshape(1024, order="F")
+    want = lp._channel(model, coefs, (0, 1, 2), (0, 1), s, s + L, pt) @ rho.reshape(-1, order="F")
+    bound = LW.weak_mod.weak_bound(y, q)
+    assert 0 < bound and np.max(np.abs(got - want)) <= 2 * bound
