@@ -521,8 +521,11 @@ class WeakRun:
         return got
 
     def _omegas(self, st, j, da, db, dv):
-        """Ω of pair j per chunk (a list of real (d_a d_b)² matrices in the
-        product basis) for the dots' data ``da``, ``db`` at charge offset dv."""
+        """Ω of pair j per chunk for the dots' data ``da``, ``db`` at charge
+        offset dv: per chunk the powers [Ω, Ω², …] up to its Taylor order (real
+        (d_a d_b)² matrices in the product basis), shared by the charge offsets
+        that only scale Ω (exp(rΩ) = Σ r^k Ω^k/k!: one product per chunk and
+        point instead of one per order)."""
         key = (j, da["key"], db["key"], dv)
         got = self._omega.get(key)
         if got is not None:
@@ -548,8 +551,12 @@ class WeakRun:
                                  TNa[lo:hi].reshape(hi - lo, -1, ka * ka)], axis=1)
             Y_ = np.concatenate([YN[lo:hi], YC[lo:hi]], axis=1)
             Z = (A_.reshape(-1, ka * ka).T @ Y_.reshape(-1, kb * kb)).reshape(ka, ka, kb, kb)
-            out.append(Z.transpose(0, 2, 1, 3).reshape(ka * kb, ka * kb))
-        size = len(out) * out[0].nbytes if out else 0
+            Om = Z.transpose(0, 2, 1, 3).reshape(ka * kb, ka * kb)
+            pw = [Om]                                   # Ω, Ω², … to the chunk's Taylor order
+            for _ in range(int(st["order"][ch]) - 1):
+                pw.append(pw[-1] @ Om)
+            out.append(pw)
+        size = sum(len(pw) for pw in out) * out[0][0].nbytes if out else 0
         if size * (len(self._omega) + 1) > CACHE_BYTES:
             self._omega.clear()
         self._omega[key] = out
@@ -562,23 +569,22 @@ class WeakRun:
             a, b = self.maps[j].dots
             dv = pt.dv[j] if pt.dv else 0.0
             base, r = self._scale_of(st, j, dv)
-            oms[j] = [r * o for o in self._omegas(st, j, dd[a], dd[b], base)] if r != 1.0 \
-                else self._omegas(st, j, dd[a], dd[b], base)
-        order = st["order"]
+            oms[j] = (self._omegas(st, j, dd[a], dd[b], base), r)
         if len(st["pairs"]) == 1:
             (j,) = st["pairs"]
             pm = self.maps[j]
             a, b = pm.dots
-            M = np.eye(pm.D ** 2)
+            M = None
             for c in range(st["nchunks"]):
-                M = _taylor_apply(oms[j][c], M, int(order[c]))
+                E = _taylor(oms[j][0][c], oms[j][1])
+                M = E if M is None else E @ M
                 M = _kron_apply(dd[a]["after"][c], dd[b]["after"][c], M)
             return [((a, b), pm.to_column_stacked(M))]
         out = []
         for c in range(st["nchunks"]):
             for j in st["pairs"]:
                 pm = self.maps[j]
-                W = _taylor_apply(oms[j][c], np.eye(pm.D ** 2), int(order[c]))
+                W = _taylor(oms[j][0][c], oms[j][1])
                 out.append((pm.dots, pm.to_column_stacked(W)))
             for q in st["dots"]:
                 T = _dot_basis({j: self.maps[j] for j in st["pairs"]}, q)
@@ -653,12 +659,14 @@ def _transform(Pinv, X, P):
     return (Pinv @ XP).reshape(N, k, r, k).transpose(0, 2, 1, 3)
 
 
-def _taylor_apply(Om: np.ndarray, M: np.ndarray, order: int) -> np.ndarray:
-    """Σ_{k≤order} Ω^k/k! · M (Horner)."""
-    acc = M
-    for k in range(order, 0, -1):
-        acc = M + (Om @ acc) / k
-    return acc
+def _taylor(powers: list, r: float) -> np.ndarray:
+    """Σ_{k≤m} (rΩ)^k/k! from the powers [Ω, Ω², …, Ω^m]."""
+    out = np.eye(powers[0].shape[0])
+    f = 1.0
+    for k, P in enumerate(powers, start=1):
+        f *= r / k
+        out += f * P
+    return out
 
 
 def _kron_apply(A: np.ndarray, B: np.ndarray, M: np.ndarray) -> np.ndarray:
