@@ -54,6 +54,7 @@ is added to the bound too.
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -293,6 +294,8 @@ def split(model, on: list, weak: list, s: int):
 # ------------------------------------------------------------------ weak segments
 
 CACHE_BYTES = 1 << 28          # the per-dot and Ω caches are cleared when they would exceed this
+TRANSFORM_BYTES = 1 << 26      # a dot's transformed maps at every node kept up to this size
+NODE_BLOCK = 4096              # otherwise made for this many nodes at a time
 
 
 class WeakRun:
@@ -317,6 +320,7 @@ class WeakRun:
         self._dots: dict = {}
         self._dot_bytes = 0
         self._omega: dict = {}
+        self._omega_bytes = 0
         self._scaled: dict = {}
         self.exponentials = 0
         self.rules: set = set()        # quadrature rules used inside sub-steps
@@ -331,10 +335,10 @@ class WeakRun:
         of a component of several pairs receive each chunk's maps in turn."""
         out, ys, qs = [], [], []
         for st in self._structure(s, e, tuple(pairs)):
-            out += self._channels(st, pt)
+            out.append(self._channels(st, pt))
             ys.append(st["y"])
             qs.append(st["q"])
-        return out, np.concatenate(ys), np.concatenate(qs)
+        return itertools.chain.from_iterable(out), np.concatenate(ys), np.concatenate(qs)
 
     # -------------------------------------------------------------- structure (point-independent)
     def _structure(self, s, e, pairs):
@@ -479,16 +483,18 @@ class WeakRun:
         for jv in range(1, int(nj.max()) + 1):
             sel = np.flatnonzero(nj >= jv)
             Pn[sel] = cur[sel] @ Pn[sel]
-        Pi = np.linalg.inv(Pn)
-        maps = {}
-        for j in st["pairs"]:
-            pm = self.maps[j]
-            if q in pm.dots:
-                side = pm.dots.index(q)
-                Cm, Nm = (pm.CA, pm.NA) if side == 0 else (pm.CB, pm.NB)
-                maps[j] = (_transform(Pi, Cm, Pn), _transform(Pi, Nm, Pn))
-        got = {"after": after[st["last"]], "maps": maps, "key": key}
-        size = sum(a.nbytes + b.nbytes for a, b in maps.values())
+        # the transformed maps at every node, kept when they are small enough;
+        # otherwise made per block of nodes where they are used (_omegas)
+        sides = {j: self.maps[j].dots.index(q) for j in st["pairs"] if q in self.maps[j].dots}
+        k2 = Pn.shape[-1] ** 2
+        tbytes = sum(2 * 8 * len(Pn) * k2 * (self.maps[j].CA if sd == 0 else self.maps[j].CB).shape[0]
+                     for j, sd in sides.items())
+        maps = None
+        if tbytes <= TRANSFORM_BYTES:
+            Pi = np.linalg.inv(Pn)
+            maps = {j: _transforms(Pi, Pn, self.maps[j], sd) for j, sd in sides.items()}
+        got = {"after": after[st["last"]], "maps": maps, "Pn": Pn, "sides": sides, "key": key}
+        size = Pn.nbytes + got["after"].nbytes + (tbytes if maps is not None else 0)
         if self._dot_bytes + size > CACHE_BYTES:
             self._dots.clear()
             self._dot_bytes = 0
@@ -522,14 +528,16 @@ class WeakRun:
 
     def _omegas(self, st, j, da, db, dv):
         """Ω of pair j per chunk for the dots' data ``da``, ``db`` at charge
-        offset dv: per chunk the powers [Ω, Ω², …] up to its Taylor order (real
-        (d_a d_b)² matrices in the product basis), shared by the charge offsets
-        that only scale Ω (exp(rΩ) = Σ r^k Ω^k/k!: one product per chunk and
-        point instead of one per order)."""
+        offset dv: a function of the chunk giving the powers [Ω, Ω², …] up to
+        its Taylor order (real (d_a d_b)² matrices in the product basis).  They
+        are kept, for the charge offsets that only scale Ω (exp(rΩ) =
+        Σ r^k Ω^k/k!: one product per chunk and point instead of one per
+        order), when all chunks' powers fit in half of CACHE_BYTES; otherwise
+        made chunk by chunk as they are used (memory)."""
         key = (j, da["key"], db["key"], dv)
         got = self._omega.get(key)
         if got is not None:
-            return got
+            return got.__getitem__
         pm = self.maps[j]
         c = coefficient_rows(self.coefs[j][dv], pm.recipes, st["s"], st["e"])[:, st["starts"]]
         npce, w = st["node_piece"], st["node_w"]
@@ -537,30 +545,39 @@ class WeakRun:
         mg = st["merged"]
         np.add.at(W, (slice(None), st["start_node"][mg + 1]), c[:, mg] * st["panel"][mg] / 6)
         Wc = np.einsum("mn,mij->nij", W, pm.hm) / 2                     # (N, r_a, r_b)
-        TCa, TNa = da["maps"][j]
-        TCb, TNb = db["maps"][j]
-        N, rb, kb = TNb.shape[0], TNb.shape[1], TNb.shape[-1]
-        YN = (Wc @ TNb.reshape(N, rb, kb * kb)).reshape(N, -1, kb * kb)
-        YC = (Wc @ TCb.reshape(N, rb, kb * kb)).reshape(N, -1, kb * kb)
-        ka = TCa.shape[-1]
-        cuts = st["cuts"]
-        out = []
-        for ch in range(st["nchunks"]):
-            lo, hi = cuts[ch], cuts[ch + 1]
-            A_ = np.concatenate([TCa[lo:hi].reshape(hi - lo, -1, ka * ka),
-                                 TNa[lo:hi].reshape(hi - lo, -1, ka * ka)], axis=1)
-            Y_ = np.concatenate([YN[lo:hi], YC[lo:hi]], axis=1)
-            Z = (A_.reshape(-1, ka * ka).T @ Y_.reshape(-1, kb * kb)).reshape(ka, ka, kb, kb)
-            Om = Z.transpose(0, 2, 1, 3).reshape(ka * kb, ka * kb)
+        cuts, order = st["cuts"], st["order"]
+
+        def chunk(ch):
+            Z = None
+            for lo in range(cuts[ch], cuts[ch + 1], NODE_BLOCK):
+                hi = min(cuts[ch + 1], lo + NODE_BLOCK)
+                TCa, TNa = _node_maps(da, j, pm, lo, hi)
+                TCb, TNb = _node_maps(db, j, pm, lo, hi)
+                n_, rb, kb = TNb.shape[0], TNb.shape[1], TNb.shape[-1]
+                ka = TCa.shape[-1]
+                YN = (Wc[lo:hi] @ TNb.reshape(n_, rb, kb * kb)).reshape(n_, -1, kb * kb)
+                YC = (Wc[lo:hi] @ TCb.reshape(n_, rb, kb * kb)).reshape(n_, -1, kb * kb)
+                A_ = np.concatenate([TCa.reshape(n_, -1, ka * ka), TNa.reshape(n_, -1, ka * ka)],
+                                    axis=1)
+                Y_ = np.concatenate([YN, YC], axis=1)
+                part = A_.reshape(-1, ka * ka).T @ Y_.reshape(-1, kb * kb)
+                Z = part if Z is None else Z + part
+            Om = Z.reshape(ka, ka, kb, kb).transpose(0, 2, 1, 3).reshape(ka * kb, ka * kb)
             pw = [Om]                                   # Ω, Ω², … to the chunk's Taylor order
-            for _ in range(int(st["order"][ch]) - 1):
+            for _ in range(int(order[ch]) - 1):
                 pw.append(pw[-1] @ Om)
-            out.append(pw)
-        size = sum(len(pw) for pw in out) * out[0][0].nbytes if out else 0
-        if size * (len(self._omega) + 1) > CACHE_BYTES:
+            return pw
+
+        size = int(order.sum()) * 8 * pm.D ** 4
+        if size > CACHE_BYTES // 2:
+            return chunk
+        if self._omega_bytes + size > CACHE_BYTES:
             self._omega.clear()
+            self._omega_bytes = 0
+        out = [chunk(ch) for ch in range(st["nchunks"])]
         self._omega[key] = out
-        return out
+        self._omega_bytes += size
+        return out.__getitem__
 
     def _channels(self, st, pt):
         dd = {q: self._dot(st, q, pt) for q in st["dots"]}
@@ -576,20 +593,22 @@ class WeakRun:
             a, b = pm.dots
             M = None
             for c in range(st["nchunks"]):
-                E = _taylor(oms[j][0][c], oms[j][1])
+                E = _taylor(oms[j][0](c), oms[j][1])
                 M = E if M is None else E @ M
                 M = _kron_apply(dd[a]["after"][c], dd[b]["after"][c], M)
             return [((a, b), pm.to_column_stacked(M))]
-        out = []
+        return self._chunk_pushes(st, dd, oms)
+
+    def _chunk_pushes(self, st, dd, oms):
+        """A component of several pairs: per chunk each pair's exp(Ω), then each
+        dot's own channel over the chunk, made as they are applied."""
         for c in range(st["nchunks"]):
             for j in st["pairs"]:
                 pm = self.maps[j]
-                W = _taylor(oms[j][0][c], oms[j][1])
-                out.append((pm.dots, pm.to_column_stacked(W)))
+                yield pm.dots, pm.to_column_stacked(_taylor(oms[j][0](c), oms[j][1]))
             for q in st["dots"]:
                 T = _dot_basis({j: self.maps[j] for j in st["pairs"]}, q)
-                out.append(((q,), T.conj().T @ dd[q]["after"][c] @ T))
-        return out
+                yield (q,), T.conj().T @ dd[q]["after"][c] @ T
 
 
 def _components(model, pairs):
@@ -648,6 +667,21 @@ def _dot_basis(maps, q):
         if q in pm.dots:
             return pm.bases[pm.dots.index(q)]
     raise KeyError(q)
+
+
+def _transforms(Pi, Pn, pm, side):
+    """(P⁻¹·C·P, P⁻¹·N·P) of pair map set ``pm`` on its dot ``side`` at nodes."""
+    Cm, Nm = (pm.CA, pm.NA) if side == 0 else (pm.CB, pm.NB)
+    return _transform(Pi, Cm, Pn), _transform(Pi, Nm, Pn)
+
+
+def _node_maps(dd, j, pm, lo, hi):
+    """The transformed maps of one dot's data ``dd`` at nodes [lo, hi) for pair j."""
+    if dd["maps"] is not None:
+        TC, TN = dd["maps"][j]
+        return TC[lo:hi], TN[lo:hi]
+    P = dd["Pn"][lo:hi]
+    return _transforms(np.linalg.inv(P), P, pm, dd["sides"][j])
 
 
 def _transform(Pinv, X, P):
