@@ -341,12 +341,23 @@ class LevelsPath:
         for q, dq in zip(dots, dets):
             if dq:
                 static_r += dq * st["det"][q]
-        L = np.broadcast_to(static_r, (len(starts),) + static_r.shape).copy()
-        if C.shape[1]:
-            L += np.einsum("rt,tij->rij", C[starts], st["G"])
-        mats = _expm(L * (model.h * lengths)[:, None, None])
+        # generators and exponentials in batches of at most max_batch_bytes (about
+        # six arrays of the batch's size alive at once): a long exact stretch of
+        # a four-level pair (256 × 256 per distinct sub-step) took 21 GB at once
+        k = static_r.shape[-1]
+        block = max(1, int(eng.max_batch_bytes // (6 * 8 * k * k)))
+        prod = None
+        for lo in range(0, len(starts), block):
+            hi = min(len(starts), lo + block)
+            L = np.broadcast_to(static_r, (hi - lo,) + static_r.shape).copy()
+            if C.shape[1]:
+                L += np.einsum("rt,tij->rij", C[starts[lo:hi]], st["G"])
+            mats = _expm(L * (model.h * lengths[lo:hi])[:, None, None])
+            del L
+            part = ordered_product(mats[None])[0]
+            prod = part if prod is None else part @ prod
         eng.exponentials += len(starts)
-        got = st["Th"] @ ordered_product(mats[None])[0] @ st["T"]
+        got = st["Th"] @ prod @ st["T"]
         # bounded in bytes as well as entries: a four-level pair's channel is 1 MB
         if (len(self._cache) > eng.cache_entries
                 or (len(self._cache) + 1) * got.nbytes > CACHE_BYTES):
