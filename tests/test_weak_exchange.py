@@ -257,6 +257,25 @@ def test_cli_refuses_a_too_large_cluster_naming_it(tmp_path, command, capsys):
     assert "shorten" not in err.lower()
 
 
+def test_the_weak_treatment_is_in_the_estimate_and_announced(tmp_path, monkeypatch):
+    # at 1 kHz every dot keeps its own channel (no exact cluster to estimate): the
+    # weak treatment's work is in the estimate and an announcement above the
+    # threshold says what makes it slow (common practice, no source)
+    import compiler.simulate.engines.fast as fast
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], THREE_PI))
+    said = []
+    eng = FastEngine()
+    eng.notify = said.append
+    ev = eng.average(model, noise_points(model, 3), process=True)
+    est = ev.stats["estimate"]
+    assert est["weak_flops"] > 0 and est["flops"] == est["weak_flops"] and said == []
+    monkeypatch.setattr(fast, "SLOW_NOTE_S", 0.0)
+    eng.average(model, noise_points(model, 3), process=True)
+    assert len(said) == 1
+    assert "noise points each take the weak-exchange treatment" in said[0]
+    assert "--exchange-accuracy" in said[0]
+
+
 def test_exchange_accuracy_option_is_checked(tmp_path, capsys):
     seq = _case(tmp_path, 3, IDLE["1 Hz"], THREE_PI)
     code = main(["simulate", str(seq), "-o", str(tmp_path / "o"), "--exchange-accuracy", "0.5"])
