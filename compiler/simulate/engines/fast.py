@@ -881,13 +881,13 @@ class FastEngine:
                 big = max(len(dots) for dots, _ in weak[1])
                 self._largest_now = max(self._largest_now, big)
                 self.largest_cluster = max(self.largest_cluster, big)
-                pushes, y, q, rule = weak_mod.weak_segment(self, model, prep, s, e, weak[0],
-                                                           weak[1], pts, idx)
+                y, q, rule = weak_mod.weak_segment(
+                    self, model, prep, s, e, weak[0], weak[1], pts, idx,
+                    lambda dots, chans, which: push(dots, chans if len(chans) == 1
+                                                    else chans[which]))
                 self._weak_rules_now.add(rule)
                 weak_y.append(y)
                 weak_q.append(q)
-                for dots, chans, which in pushes:
-                    push(dots, chans if len(chans) == 1 else chans[which])
             if e in mark_set:
                 record(e)
         if weak_y:

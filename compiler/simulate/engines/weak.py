@@ -236,12 +236,13 @@ def _to_sorted(M: np.ndarray, order: tuple[int, ...]) -> np.ndarray:
     return t.reshape(M.shape)
 
 
-def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
+def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, emit):
     """Channels of the weak pairs ``pairs`` (indices) and of the *units* they
     join (``units``: exact clusters (dots, pairs), often single dots) over
-    sub-steps [s, e): a list, in time order, of (dots, channels (V, k, k),
-    point -> variant), the chunks' first-order sizes and quadrature errors
-    (module notes), and the rule inside single sub-steps.  Each unit evolves exactly (its own generator,
+    sub-steps [s, e), handed to ``emit(dots, channels (V, k, k), point ->
+    variant)`` in time order as each chunk is done (so only the chunks under
+    way are held); returns the chunks' first-order sizes and quadrature
+    errors (module notes) and the rule inside single sub-steps.  Each unit evolves exactly (its own generator,
     exchange inside it included); each weak pair adds Π exp(Ω) per chunk on
     the dots of its two units."""
     h = model.h
@@ -323,14 +324,19 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     # ---- transformed one-dot maps needed: (unit, dot) of every pair end
     ends = sorted({(pi[3], pi[1]) for pi in pinfo} | {(pi[4], pi[2]) for pi in pinfo})
     nzs = {(u, q): _embedded_nonzeros(units[u][0].index(q), len(units[u][0])) for u, q in ends}
-    # ---- accumulators
+    # ---- accumulators: Ω of the chunks under way, per pair (chunk -> (M, K, K));
+    # a chunk's channels are handed to ``emit`` as soon as its last piece is done
     Om = []
     for j, d0, d1, ua, ub, combos, which, coef, terms, xn in pinfo:
         base, ratio = _scaled_combos(combos, coef)
         calc = np.flatnonzero(base == np.arange(len(combos)))
-        Om.append((base, ratio, calc, np.zeros((len(calc), ncs, kdim[ua] * kdim[ub],
-                                                kdim[ua] * kdim[ub]))))
-    chunk_end = [np.empty((g[0].shape[0], ncs, k, k)) for g, k in zip(gens, kdim)]
+        Om.append((base, ratio, calc, {}))
+
+    def acc(store, c, m, K):
+        got = store.get(c)
+        if got is None:
+            got = store[c] = np.zeros((m, K, K))
+        return got
     last_of_chunk = np.append(np.flatnonzero(first)[1:], npc) - 1
     pair_gens = [[pair_generator_on(terms, e3, nzs[(ua, d0)], nzs[(ub, d1)], kdim[ua], kdim[ub])
                   for e3 in np.eye(3)] for j, d0, d1, ua, ub, _, _, _, terms, _ in pinfo]
@@ -338,7 +344,8 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     # ---- pieces in blocks (memory): prefix channels, nodes, contributions
     per_piece = sum(g[0].shape[0] * k * k * 8 * (10 + 3 * 7 * sum(u == ue for ue, _ in ends))
                     for u, (g, k) in enumerate(zip(gens, kdim)))
-    per_piece += sum(len(o[2]) * 3 * 6 * kdim[pi[4]] ** 2 * 8 for o, pi in zip(Om, pinfo))
+    per_piece += sum(len(o[2]) * (3 * 6 * kdim[pi[4]] ** 2 + 2 * (kdim[pi[3]] * kdim[pi[4]]) ** 2)
+                     * 8 for o, pi in zip(Om, pinfo))
     block = max(16, int(eng.max_batch_bytes // 2 // max(per_piece, 1)))
     for b0 in range(0, npc, block):
         b1 = min(npc, b0 + block)
@@ -370,8 +377,6 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
             Pm.append(Mh @ before[:, sing])
             Pe.append(pref)
             Lb.append(Lp)
-            done = last_of_chunk[(last_of_chunk >= b0) & (last_of_chunk < b1)]
-            chunk_end[u][:, chunk_of[done]] = pref[:, done - b0]
         # nodes of the single pieces: (piece in block, kind 0 start / 1 middle / 2 end)
         sp = np.flatnonzero(sing)
         if simpson:
@@ -421,7 +426,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
                     # Σ_(node, α) vec T_a ⊗ vec Y: (M, 6, k0², k1²) summed over α
                     ta = ta_all[:, :, va, lo:hi].transpose(2, 0, 1, 3)
                     Z = np.matmul(ta, Y[..., lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
-                    Omp[:, c] += _kron_pair(Z, k0, k1)
+                    acc(Omp, c, len(calc), k0 * k1)[...] += _kron_pair(Z, k0, k1)
             # runs of equal sub-steps: the exact integral (Van Loan)
             if len(lp):
                 for m, ci in enumerate(calc):
@@ -432,27 +437,27 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
                     I = van_loan(A, B, h * lens[b0 + lp])
                     Pr = np.einsum("kab,kcd->kacbd", P[ua][va][lp],
                                    P[ub][vb][lp]).reshape(-1, k0 * k1, k0 * k1)
-                    np.add.at(Omp[m], chunk_of[b0 + lp], np.linalg.solve(Pr, I @ Pr))
-    # ---- the pairs' corrections
-    out_pairs = []
-    for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn) in \
-            zip(Om, pinfo):
-        full = np.zeros((len(combos),) + Omp.shape[1:])
-        full[calc] = Omp
-        full = full[base] * ratio[:, None, None, None]
-        order = units[ua][0] + units[ub][0]
-        Wc = _to_sorted(_expm_any(full), order)
-        out_pairs.append((tuple(sorted(order)), Wc, which))
+                    contrib = np.linalg.solve(Pr, I @ Pr)
+                    cl_of = chunk_of[b0 + lp]
+                    for c in np.unique(cl_of):
+                        acc(Omp, c, len(calc), k0 * k1)[m] += contrib[cl_of == c].sum(axis=0)
+        # ---- the chunks that end in this block, in time order: the pairs'
+        # corrections, then the units' own channels
+        for last in last_of_chunk[(last_of_chunk >= b0) & (last_of_chunk < b1)]:
+            c = int(chunk_of[last])
+            for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, *_r) in \
+                    zip(Om, pinfo):
+                K = kdim[ua] * kdim[ub]
+                full = np.zeros((len(combos), K, K))
+                full[calc] = Omp.pop(c, 0.0)
+                full = full[base] * ratio[:, None, None]
+                order = units[ua][0] + units[ub][0]
+                emit(tuple(sorted(order)), _to_sorted(_expm_any(full), order), which)
+            for u, (dots, _) in enumerate(units):
+                emit(dots, Pe[u][:, last - b0].copy(), which_u[u])
     # ---- sizes and quadrature errors per chunk, each with its own κ
     y = np.add.reduceat(x, cstart) * kap
-    # ---- channels in time order: per chunk, the pairs' corrections then the units' own
-    pushes = []
-    for c in range(ncs):
-        for dd, Wc, which in out_pairs:
-            pushes.append((dd, Wc[:, c], which))
-        for u, (dots, _) in enumerate(units):
-            pushes.append((dots, chunk_end[u][:, c], which_u[u]))
-    return pushes, y, q_rule, "simpson" if simpson else "midpoint"
+    return y, q_rule, "simpson" if simpson else "midpoint"
 
 
 def _frameless(eng, model, dots, upairs):
