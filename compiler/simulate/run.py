@@ -171,7 +171,10 @@ CONDITION_LIMIT = 1e8     # R₀ worse conditioned than this: the sum is kept (s
 def _one_at_a_time(pts):
     """(centre point, [points of variable j, ...]) when ``pts`` is the
     one-variable-at-a-time rule of two or more variables (model.noise_points,
-    "additive"), else None."""
+    "additive"), else None.  Points are grouped by the variable they move
+    (``NoisePoint.variable``; a variable may move several dots at once: the
+    independent combinations of correlated Zeeman noise), or, for points
+    made without it, by the one coordinate they move."""
     centre, groups = None, {}
     for p in pts:
         if p.modes and any(p.modes):
@@ -181,8 +184,10 @@ def _one_at_a_time(pts):
             if centre is not None:
                 return None
             centre = p
+        elif p.variable >= 0:
+            groups.setdefault(("variable", p.variable), []).append(p)
         elif len(nz) == 1:
-            groups.setdefault(nz[0], []).append(p)
+            groups.setdefault(("coordinate", nz[0]), []).append(p)
         else:
             return None
     if centre is None or len(groups) < 2:
