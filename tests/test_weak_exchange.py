@@ -302,3 +302,23 @@ def test_a_slow_evaluation_is_announced_with_its_cluster(tmp_path, monkeypatch):
     for part in ("slow: one evaluation will take roughly", "dots D0, D1, D2 form one exact "
                  "cluster (64×64 channels", "distinct sub-steps", "--exchange-accuracy"):
         assert part in said[0], part
+
+
+def test_the_spread_bounds_the_commutator_in_the_diamond_norm():
+    # ‖−i[H, ·]‖◇ ≤ λ_max − λ_min (common practice, no source): the spread from
+    # the closed form against the eigenvalues of H, and the superoperator norm of
+    # the commutator on random Hermitian inputs (with an ancilla) below it
+    from compiler.simulate.engines import pauli as PL
+    rng = np.random.default_rng(7)
+    sp = np.array([[0, 1], [0, 0]], complex)
+    Z = PL.SIGMA[3]
+    for J, F in ((1.0, 1.0), (2.0, 0.3 + 0.4j), (-1.0, 2.0j), (0.5, 0.0)):
+        H = (J * np.kron(Z, Z) / 4 + (F * np.kron(sp, sp.T) + np.conj(F) * np.kron(sp.T, sp)) / 2)
+        ev = np.linalg.eigvalsh(H)
+        assert W.spread(J, abs(F)) == pytest.approx(ev[-1] - ev[0], abs=1e-12)
+        big = np.kron(H, np.eye(4))
+        for _ in range(50):
+            A = rng.standard_normal((16, 16)) + 1j * rng.standard_normal((16, 16))
+            rho = A + A.conj().T
+            lhs = np.abs(np.linalg.eigvalsh(big @ rho - rho @ big)).sum()
+            assert lhs <= (ev[-1] - ev[0]) * np.abs(np.linalg.eigvalsh(rho)).sum() + 1e-12

@@ -316,12 +316,13 @@ class FastEngine:
             self._set_neglected(total)
             return on, ip
         eps = 0.75 * self.exchange_budget / 2          # fidelity for the weak treatment
-        # ‖B‖◇ ≤ 4π(|J|/4 + |F|/2) per pair and sub-step, at the worst charge offset
+        # ‖B‖◇ ≤ 2π·(spread of H's eigenvalues) per pair and sub-step, at the worst
+        # charge offset (weak.spread)
         xn = []
         for coefs in prep["pairs"]:
-            nrm = np.max(np.stack([np.abs(J) / 4 + np.hypot(Fr, Fi) / 2
+            nrm = np.max(np.stack([weak_mod.spread(J, np.hypot(Fr, Fi))
                                    for J, Fr, Fi in coefs.values()]), axis=0)
-            xn.append(4 * math.pi * nrm * h)
+            xn.append(2 * math.pi * nrm * h)
         dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
                                      for d in model.dissipators_of(q)]) for q in range(model.n)}
         # a weak pair's correction acts on at most three dots (weak.MAX_UNION)

@@ -33,9 +33,9 @@ combination): with y = ∫‖B_I‖◇ dt over a chunk, T exp∫B_I and
 Π_p exp(Ω_p) both equal 1 + Σ_pΩ_p up to a remainder of at most
 e^y − 1 − y, so they differ by at most 2(e^y − 1 − y) ≈ y²; the
 chunk's channel E₀·V moves by no more (E₀ is a channel, norm 1).
-‖B_p‖◇ ≤ 2·2π‖H_p‖ ≤ 4π(|J|/4 + |F|/2) and ‖E₀⁻¹‖◇ ≤ exp(‖L_D‖◇·τ) over
-a chunk of length τ (the dissipators' norm ‖L_D‖◇ ≤ Σ 2γ‖c‖²), so
-y ≤ κ·∫4π(|J|/4 + |F|/2)dt with κ = exp(‖L_D‖◇τ).  Simpson's rule on a
+‖B_p‖◇ ≤ 2π·(λ_max − λ_min of H_p) (:func:`spread`; 2πJ for J·S₁·S₂) and
+‖E₀⁻¹‖◇ ≤ exp(‖L_D‖◇·τ) over a chunk of length τ (the dissipators' norm
+‖L_D‖◇ ≤ Σ 2γ‖c‖²), so y ≤ κ·∫2π·spread dt with κ = exp(‖L_D‖◇τ).  Simpson's rule on a
 sub-step of length h adds at most κ·x·(2‖A‖h)⁴/2880 to ‖Ω‖ (x the
 sub-step's share of y, ‖A‖ the units' generator norm, exchange inside a
 unit included); the midpoint rule (one node per sub-step) adds at most
@@ -140,6 +140,18 @@ def weak_bound(y: np.ndarray, q: np.ndarray) -> float:
     q = np.asarray(q, dtype=float)
     d = 2 * (np.expm1(y) - y) + q * np.exp(y + q)
     return float(0.5 * d.sum() * math.exp(d.sum()))
+
+
+def spread(J, F) -> np.ndarray:
+    """λ_max − λ_min of H = J·σzσz/4 + flip-flop of modulus |F| (Hz): its
+    eigenvalues are J/4 (twice) and −J/4 ± |F|/2.  ‖−i[H, ·]‖◇ ≤ λ_max −
+    λ_min (shift H by the middle of its spectrum: ‖[H', ρ]‖₁ ≤ 2‖H'‖·‖ρ‖₁,
+    with an ancilla alike), 1.5× below 2‖H‖ for the isotropic J·S₁·S₂."""
+    J = np.asarray(J, dtype=float)
+    F = np.abs(np.asarray(F, dtype=float))
+    hi = np.maximum(J / 4, -J / 4 + F / 2)
+    lo = np.minimum(J / 4, -J / 4 - F / 2)
+    return hi - lo
 
 
 def diss_norm(rates_ops) -> float:
