@@ -335,6 +335,9 @@ class FastEngine:
             self._set_neglected(total)
             return on, ip
         on, total = self._drop(jmax, h, K, self.exchange_budget / 2)
+        # the weak treatment takes what dropping left of the accuracy (a tenth
+        # kept for its quadrature and composition factors): ¾·φ + bound ≤ accuracy
+        eps = 0.9 * 0.75 * (self.exchange_budget - total)
         weak, ystar = self._weak_masks(on, xn, kmax, eps)
         if weak is None:
             self._set_neglected(total)
