@@ -154,8 +154,21 @@ def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, produc
     if process and product:
         ev = average_constant(engine, model, pts, rho0=rho0, traces=traces)
         return ev.superop, ev.rho, ev.traces
-    ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
+    ev = engine.average(model, _centre_first(pts) if traces else pts, process=process,
+                        rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
+
+
+def _centre_first(pts):
+    """The points with the one nearest the centre of the noise (all offsets
+    zero, or the smallest) first: the engine records the population traces
+    of the first point, which would otherwise be an extreme node of the rule
+    (−5σ for the equispaced ones)."""
+    def size(p):
+        return float(np.sum(np.abs(p.detuning)) + np.sum(np.abs(p.dv) * 1e6)
+                     + np.sum(np.abs(p.modes) if p.modes else 0.0))
+    k = min(range(len(pts)), key=lambda i: size(pts[i])) if pts else 0
+    return pts if k == 0 else [pts[k]] + pts[:k] + pts[k + 1:]
 
 
 @dataclass(frozen=True)
@@ -240,7 +253,8 @@ def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
                 X = X @ np.linalg.solve(R0, Rj)
             S = R0 @ X
             return _Averaged(S, _final_state(S, rho0), ev0.traces)
-    ev = engine.average(model, pts, process=True, rho0=rho0, trace_points=traces)
+    ev = engine.average(model, _centre_first(pts) if traces else pts, process=True, rho0=rho0,
+                        trace_points=traces)
     return _Averaged(ev.superop, ev.rho, ev.traces)
 
 
