@@ -150,7 +150,7 @@ def ev_of(model, pts):
     return FastEngine().average(model, pts, process=True)
 
 
-def bench_weak_exchange(folder: Path, repeats: int = 15) -> dict:
+def bench_weak_exchange(folder: Path, repeats: int = 11) -> dict:
     """Three dots, three π bursts, whole-run process with quadrature: idle
     barriers leaving J = 1 mHz, 45 mHz, 1 Hz, 1 kHz against barriers fully
     closed (J ≈ 1e-5 Hz); the worst time ratio, the fidelity shift from the
@@ -178,6 +178,9 @@ def bench_weak_exchange(folder: Path, repeats: int = 15) -> dict:
     walls: dict = {label: [] for label in idles}
     for _ in range(repeats):
         for label, (c, model, pts, U, psi0, frames) in cases.items():
+            # warmed once: a run right after a bigger one pays the page faults of
+            # freshly allocated memory (the first case of a round was up to 2× slower)
+            FastEngine().average(model, pts, process=True)
             t, w = time.process_time(), time.perf_counter()
             FastEngine().average(model, pts, process=True)
             runs[label].append(time.process_time() - t)
