@@ -160,13 +160,31 @@ def test_weak_pairs_beside_exact_ones_and_both_rules(tmp_path, body, long_range,
     a = FastEngine().average(model, pts, process=True)
     b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
     blocks = FastEngine(max_batch_bytes=1).average(model, pts, process=True)
-    assert a.stats["weak_exchange_rule"] == rule
+    assert rule in a.stats["weak_exchange_rule"]
     assert a.stats["largest_cluster"] < b.stats["largest_cluster"] == 3
     bound = a.stats["exchange_error_bound"]
     assert 0 < bound <= 1e-6
     assert abs(_fidelity(a, cr, c) - _fidelity(b, cr, c)) <= bound
     assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
     assert np.max(np.abs(a.superop - blocks.superop)) < 1e-12
+
+
+def test_a_pair_of_equal_zeeman_energies_integrates_its_idle_runs_exactly(tmp_path):
+    # D1 and D2 at the same g: their flip-flop does not turn, so while D0 is
+    # driven the pair (D1, D2) has runs of equal sub-steps (the exact block
+    # integral) inside pieces that are single for the pair (D0, D1); against the
+    # exact treatment within the bound (common practice, no source)
+    seq = _case(tmp_path, 3, IDLE["1 kHz"], "rot D0 x 180 deg\nwait 30 ns\nrot D1 x 90 deg\n")
+    dev = tmp_path / "device.yaml"
+    dev.write_text(dev.read_text().replace("g: 2.0040", "g: 2.0020"))
+    c, cr, model = _model(seq)
+    pts = noise_points(model, 1)
+    a = FastEngine().average(model, pts, process=True)
+    b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 1 and a.stats["weak_exchange_chunks"] >= 1
+    bound = a.stats["exchange_error_bound"]
+    assert 0 < bound <= 1e-6
+    assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
 
 
 def test_transformed_maps_and_inverses_against_dense_products():
