@@ -160,13 +160,31 @@ def test_weak_pairs_beside_exact_ones_and_both_rules(tmp_path, body, long_range,
     a = FastEngine().average(model, pts, process=True)
     b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
     blocks = FastEngine(max_batch_bytes=1).average(model, pts, process=True)
-    assert a.stats["weak_exchange_rule"] == rule
+    assert rule in a.stats["weak_exchange_rule"]
     assert a.stats["largest_cluster"] < b.stats["largest_cluster"] == 3
     bound = a.stats["exchange_error_bound"]
     assert 0 < bound <= 1e-6
     assert abs(_fidelity(a, cr, c) - _fidelity(b, cr, c)) <= bound
     assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
     assert np.max(np.abs(a.superop - blocks.superop)) < 1e-12
+
+
+def test_a_pair_of_equal_zeeman_energies_integrates_its_idle_runs_exactly(tmp_path):
+    # D1 and D2 at the same g: their flip-flop does not turn, so while D0 is
+    # driven the pair (D1, D2) has runs of equal sub-steps (the exact block
+    # integral) inside pieces that are single for the pair (D0, D1); against the
+    # exact treatment within the bound (common practice, no source)
+    seq = _case(tmp_path, 3, IDLE["1 kHz"], "rot D0 x 180 deg\nwait 30 ns\nrot D1 x 90 deg\n")
+    dev = tmp_path / "device.yaml"
+    dev.write_text(dev.read_text().replace("g: 2.0040", "g: 2.0020"))
+    c, cr, model = _model(seq)
+    pts = noise_points(model, 1)
+    a = FastEngine().average(model, pts, process=True)
+    b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 1 and a.stats["weak_exchange_chunks"] >= 1
+    bound = a.stats["exchange_error_bound"]
+    assert 0 < bound <= 1e-6
+    assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
 
 
 def test_transformed_maps_and_inverses_against_dense_products():
@@ -257,6 +275,25 @@ def test_cli_refuses_a_too_large_cluster_naming_it(tmp_path, command, capsys):
     assert "shorten" not in err.lower()
 
 
+def test_the_weak_treatment_is_in_the_estimate_and_announced(tmp_path, monkeypatch):
+    # at 1 kHz every dot keeps its own channel (no exact cluster to estimate): the
+    # weak treatment's work is in the estimate and an announcement above the
+    # threshold says what makes it slow (common practice, no source)
+    import compiler.simulate.engines.fast as fast
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], THREE_PI))
+    said = []
+    eng = FastEngine()
+    eng.notify = said.append
+    ev = eng.average(model, noise_points(model, 3), process=True)
+    est = ev.stats["estimate"]
+    assert est["weak_flops"] > 0 and est["flops"] == est["weak_flops"] and said == []
+    monkeypatch.setattr(fast, "SLOW_NOTE_S", 0.0)
+    eng.average(model, noise_points(model, 3), process=True)
+    assert len(said) == 1
+    assert "noise points each take the weak-exchange treatment" in said[0]
+    assert "--exchange-accuracy" in said[0]
+
+
 def test_exchange_accuracy_option_is_checked(tmp_path, capsys):
     seq = _case(tmp_path, 3, IDLE["1 Hz"], THREE_PI)
     code = main(["simulate", str(seq), "-o", str(tmp_path / "o"), "--exchange-accuracy", "0.5"])
@@ -283,3 +320,23 @@ def test_a_slow_evaluation_is_announced_with_its_cluster(tmp_path, monkeypatch):
     for part in ("slow: one evaluation will take roughly", "dots D0, D1, D2 form one exact "
                  "cluster (64×64 channels", "distinct sub-steps", "--exchange-accuracy"):
         assert part in said[0], part
+
+
+def test_the_spread_bounds_the_commutator_in_the_diamond_norm():
+    # ‖−i[H, ·]‖◇ ≤ λ_max − λ_min (common practice, no source): the spread from
+    # the closed form against the eigenvalues of H, and the superoperator norm of
+    # the commutator on random Hermitian inputs (with an ancilla) below it
+    from compiler.simulate.engines import pauli as PL
+    rng = np.random.default_rng(7)
+    sp = np.array([[0, 1], [0, 0]], complex)
+    Z = PL.SIGMA[3]
+    for J, F in ((1.0, 1.0), (2.0, 0.3 + 0.4j), (-1.0, 2.0j), (0.5, 0.0)):
+        H = (J * np.kron(Z, Z) / 4 + (F * np.kron(sp, sp.T) + np.conj(F) * np.kron(sp.T, sp)) / 2)
+        ev = np.linalg.eigvalsh(H)
+        assert W.spread(J, abs(F)) == pytest.approx(ev[-1] - ev[0], abs=1e-12)
+        big = np.kron(H, np.eye(4))
+        for _ in range(50):
+            A = rng.standard_normal((16, 16)) + 1j * rng.standard_normal((16, 16))
+            rho = A + A.conj().T
+            lhs = np.abs(np.linalg.eigvalsh(big @ rho - rho @ big)).sum()
+            assert lhs <= (ev[-1] - ev[0]) * np.abs(np.linalg.eigvalsh(rho)).sum() + 1e-12

@@ -245,7 +245,9 @@ def averaging_line(result: SimulationResult, run: RunResult) -> str:
         over = f" (tolerance {tol:.1e})" if tol is not None else ""
     return (f"averaging error {err:.1e} in fidelity (|F({run.nodes}) - F({m})| of "
             f"the rules of {run.nodes} and {m} nodes per noise variable: Gauss-Hermite "
-            f"below 17 nodes, equispaced from 17){over}")
+            f"below 17 nodes, equispaced from 17){over}; with several variables averaged "
+            "one at a time (as a product of corrections: exact to second order in the noise, "
+            "and exactly when the corrections commute) their higher cross terms are not in it")
 
 
 def _populations(run: RunResult) -> list[tuple[str, float]]:

@@ -328,6 +328,7 @@ class NoisePoint:
     dv: tuple[float, ...]                # V per pair
     weight: float
     modes: tuple[float, ...] = ()        # value of each of the model's profiles (unit variance)
+    variable: int = -1                   # the one variable it moves (one-at-a-time rule), else -1
 
 
 def noise_points(model: Model, nodes: int, mode: str = "auto", max_tensor: int = 27) -> list[NoisePoint]:
@@ -383,14 +384,14 @@ def _constant_points(model: Model, nodes: int, mode: str, max_tensor: int) -> li
         return pts
     # additive: ρ(0) + Σ_i Σ_j w_ij (ρ(x_ij) − ρ(0)); nodes at zero fold into the centre
     centre_w = 1.0 - len(vars_)
-    for kind, i, s, vec in vars_:
+    for k, (kind, i, s, vec) in enumerate(vars_):
         for xv, wv in zip(x, w):
             if abs(xv) < 1e-12:
                 centre_w += float(wv)
                 continue
             det, dv = [0.0] * nd, [0.0] * npair
             _place(det, dv, kind, i, s * xv, vec)
-            pts.append(NoisePoint(tuple(det), tuple(dv), float(wv)))
+            pts.append(NoisePoint(tuple(det), tuple(dv), float(wv), (), k))
     centre_w += 0.0
     return [NoisePoint((0.0,) * nd, (0.0,) * npair, centre_w)] + pts
 

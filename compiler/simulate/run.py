@@ -154,8 +154,21 @@ def _average(engine, model, pts, *, process: bool, rho0, traces: int = 0, produc
     if process and product:
         ev = average_constant(engine, model, pts, rho0=rho0, traces=traces)
         return ev.superop, ev.rho, ev.traces
-    ev = engine.average(model, pts, process=process, rho0=rho0, trace_points=traces)
+    ev = engine.average(model, _centre_first(pts) if traces else pts, process=process,
+                        rho0=rho0, trace_points=traces)
     return ev.superop, ev.rho, ev.traces
+
+
+def _centre_first(pts):
+    """The points with the one nearest the centre of the noise (all offsets
+    zero, or the smallest) first: the engine records the population traces
+    of the first point, which would otherwise be an extreme node of the rule
+    (−5σ for the equispaced ones)."""
+    def size(p):
+        return float(np.sum(np.abs(p.detuning)) + np.sum(np.abs(p.dv) * 1e6)
+                     + np.sum(np.abs(p.modes) if p.modes else 0.0))
+    k = min(range(len(pts)), key=lambda i: size(pts[i])) if pts else 0
+    return pts if k == 0 else [pts[k]] + pts[:k] + pts[k + 1:]
 
 
 @dataclass(frozen=True)
@@ -171,7 +184,10 @@ CONDITION_LIMIT = 1e8     # R₀ worse conditioned than this: the sum is kept (s
 def _one_at_a_time(pts):
     """(centre point, [points of variable j, ...]) when ``pts`` is the
     one-variable-at-a-time rule of two or more variables (model.noise_points,
-    "additive"), else None."""
+    "additive"), else None.  Points are grouped by the variable they move
+    (``NoisePoint.variable``; a variable may move several dots at once: the
+    independent combinations of correlated Zeeman noise), or, for points
+    made without it, by the one coordinate they move."""
     centre, groups = None, {}
     for p in pts:
         if p.modes and any(p.modes):
@@ -181,8 +197,10 @@ def _one_at_a_time(pts):
             if centre is not None:
                 return None
             centre = p
+        elif p.variable >= 0:
+            groups.setdefault(("variable", p.variable), []).append(p)
         elif len(nz) == 1:
-            groups.setdefault(nz[0], []).append(p)
+            groups.setdefault(("coordinate", nz[0]), []).append(p)
         else:
             return None
     if centre is None or len(groups) < 2:
@@ -235,7 +253,8 @@ def average_constant(engine, model, pts, *, rho0=None, traces: int = 0):
                 X = X @ np.linalg.solve(R0, Rj)
             S = R0 @ X
             return _Averaged(S, _final_state(S, rho0), ev0.traces)
-    ev = engine.average(model, pts, process=True, rho0=rho0, trace_points=traces)
+    ev = engine.average(model, _centre_first(pts) if traces else pts, process=True, rho0=rho0,
+                        trace_points=traces)
     return _Averaged(ev.superop, ev.rho, ev.traces)
 
 

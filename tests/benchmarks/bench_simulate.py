@@ -150,7 +150,7 @@ def ev_of(model, pts):
     return FastEngine().average(model, pts, process=True)
 
 
-def bench_weak_exchange(folder: Path, repeats: int = 15) -> dict:
+def bench_weak_exchange(folder: Path, repeats: int = 11) -> dict:
     """Three dots, three π bursts, whole-run process with quadrature: idle
     barriers leaving J = 1 mHz, 45 mHz, 1 Hz, 1 kHz against barriers fully
     closed (J ≈ 1e-5 Hz); the worst time ratio, the fidelity shift from the
@@ -176,12 +176,22 @@ def bench_weak_exchange(folder: Path, repeats: int = 15) -> dict:
     # than the wall time; both are reported
     runs: dict = {label: [] for label in idles}
     walls: dict = {label: [] for label in idles}
+    # under one BLAS thread, as the command runs (compiler.threads): outside it
+    # the small products after the engine's own block (the 64 × 64 transfer
+    # matrix to superoperator) took 25–45 ms instead of 0.1 ms on a busy machine
+    from compiler.threads import one_thread
+    guard = one_thread()
+    guard.__enter__()
     for _ in range(repeats):
         for label, (c, model, pts, U, psi0, frames) in cases.items():
+            # warmed once: a run right after a bigger one pays the page faults of
+            # freshly allocated memory (the first case of a round was up to 2× slower)
+            FastEngine().average(model, pts, process=True)
             t, w = time.process_time(), time.perf_counter()
             FastEngine().average(model, pts, process=True)
             runs[label].append(time.process_time() - t)
             walls[label].append(time.perf_counter() - w)
+    guard.__exit__(None, None, None)
     wall = {label: statistics.median(v) for label, v in walls.items()}
     for label, (c, model, pts, U, psi0, frames) in cases.items():
         t = times[label] = statistics.median(runs[label])

@@ -320,12 +320,13 @@ class FastEngine:
             self._set_neglected(total)
             return on, ip
         eps = 0.75 * self.exchange_budget / 2          # fidelity for the weak treatment
-        # ‖B‖◇ ≤ 4π(|J|/4 + |F|/2) per pair and sub-step, at the worst charge offset
+        # ‖B‖◇ ≤ 2π·(spread of H's eigenvalues) per pair and sub-step, at the worst
+        # charge offset (weak.spread)
         xn = []
         for coefs in prep["pairs"]:
-            nrm = np.max(np.stack([np.abs(J) / 4 + np.hypot(Fr, Fi) / 2
+            nrm = np.max(np.stack([weak_mod.spread(J, np.hypot(Fr, Fi))
                                    for J, Fr, Fi in coefs.values()]), axis=0)
-            xn.append(4 * math.pi * nrm * h)
+            xn.append(2 * math.pi * nrm * h)
         dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
                                      for d in model.dissipators_of(q)]) for q in range(model.n)}
         # a weak pair's correction acts on at most three dots (weak.MAX_UNION)
@@ -338,6 +339,9 @@ class FastEngine:
             self._set_neglected(total)
             return on, ip
         on, total = self._drop(jmax, h, K, self.exchange_budget / 2)
+        # the weak treatment takes what dropping left of the accuracy (a tenth
+        # kept for its quadrature and composition factors): ¾·φ + bound ≤ accuracy
+        eps = 0.9 * 0.75 * (self.exchange_budget - total)
         weak, ystar = self._weak_masks(on, xn, kmax, eps)
         if weak is None:
             self._set_neglected(total)
@@ -492,15 +496,18 @@ class FastEngine:
         is recorded (statistics ``estimate``)."""
         limit = self.memory_limit
         seen: dict = {}
+        weak_flops = 0.0
         bounds = prep["bounds"]
         for s, e in zip(bounds[:-1], bounds[1:]):
             if e <= s:
                 continue
-            exact, _ = self._segment_split(model, prep, s)
+            exact, weak = self._segment_split(model, prep, s)
+            if weak:
+                weak_flops += self._weak_flops(model, prep, points, weak, s, e)
             for dots, pairs in clusters(model.n, [(model.pairs[i].a, model.pairs[i].b)
                                                   for i in exact], exact):
                 c = len(dots)
-                if c == 1:
+                if c == 1 or (weak and (dots, pairs) in weak[1]):
                     continue
                 rows = self._distinct_rows(model, prep, dots, pairs, s, e)
                 got = seen.get((dots, pairs))
@@ -519,7 +526,8 @@ class FastEngine:
                 got["rows"] += rows
                 if limit and got["bytes"] + state_bytes > limit:
                     raise self._too_large(model, prep, got, limit, state_bytes)
-        est = {"clusters": len(seen), "bytes": state_bytes, "flops": 0.0, "largest": None}
+        est = {"clusters": len(seen), "bytes": state_bytes, "flops": weak_flops,
+               "weak_flops": weak_flops, "largest": None}
         for got in seen.values():
             k, c = got["dimension"], len(got["dots"])
             flops = 24.0 * got["variants"] * got["rows"] * k ** 3 + 2.0 ** (7 * c)
@@ -536,14 +544,47 @@ class FastEngine:
         est["seconds"] = est["flops"] / FLOP_RATE
         self._estimate_now = est
         notify = getattr(self, "notify", None)
-        if notify is not None and est["seconds"] >= SLOW_NOTE_S and est["largest"]:
+        if notify is not None and est["seconds"] >= SLOW_NOTE_S and (est["largest"]
+                                                                   or weak_flops):
             L = est["largest"]
-            k = L["dimension"]
+            if L and 24.0 * L["variants"] * L["distinct_substeps"] * L["dimension"] ** 3 \
+                    >= weak_flops:
+                k = L["dimension"]
+                why = (f"dots {', '.join(L['dots'])} form one exact cluster ({k}×{k} channels, "
+                       f"{L['distinct_substeps']} distinct sub-steps, {L['variants']} noise "
+                       "variants)")
+            else:
+                why = (f"{len(points)} noise points each take the weak-exchange treatment at "
+                       "every sub-step whose drive or exchange changes")
             notify(f"slow: one evaluation will take roughly {est['seconds']:.0f} s (about "
-                   f"{FLOP_RATE / 1e9:.0f} Gflop/s assumed; several per run): dots {', '.join(L['dots'])} form one "
-                   f"exact cluster ({k}×{k} channels, {L['distinct_substeps']} distinct "
-                   f"sub-steps, {L['variants']} noise variants); closing idle barriers further, "
-                   "a looser --exchange-accuracy or fewer --nodes make it cheaper")
+                   f"{FLOP_RATE / 1e9:.0f} Gflop/s assumed; several per run): {why}; closing "
+                   "idle barriers further, a looser --exchange-accuracy or fewer --nodes make "
+                   "it cheaper")
+
+    def _weak_flops(self, model, prep, points, weak, s: int, e: int) -> float:
+        """Rough work of the weak treatment of [s, e) (weak.weak_segment): per
+        sub-step whose drive or exchange changes, every unit's channel,
+        inverse and transformed maps for each of its noise variants
+        (about 240·k³) and every pair's contraction for each noise point
+        (about 100·k_a²·k_b²); constants fitted to a triple dot beside an 11 µs
+        exchange pulse (6.2 s CPU for 11 points, estimated 5.8 s); small runs
+        are dominated by fixed costs the estimate leaves out."""
+        pairs, units = weak
+        dots = tuple(sorted(q for d, _ in units for q in d))
+        inner = tuple(sorted(set(j for _, ps in units for j in ps) | set(pairs)))
+        rows = self._distinct_rows(model, prep, dots, inner, s, e)
+        if any(ps for _, ps in units):
+            rows = e - s              # in the model's frame a pulse's flip-flop turns every sub-step
+        unit_of = {q: d for d, _ in units for q in d}
+        per_row = 0.0
+        for d, ps in units:
+            V = len({(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in d),
+                      tuple(pt.dv[j] if pt.dv else 0.0 for j in ps)) for pt in points})
+            per_row += 240.0 * V * 4.0 ** (3 * len(d))
+        for j in pairs:
+            p = model.pairs[j]
+            per_row += 100.0 * len(points) * 16.0 ** (len(unit_of[p.a]) + len(unit_of[p.b]))
+        return rows * per_row
 
     def _distinct_rows(self, model, prep, dots, pairs, s: int, e: int) -> int:
         """Sub-steps of [s, e) whose drive or exchange differs from the one before."""
@@ -848,13 +889,13 @@ class FastEngine:
                 big = max(len(dots) for dots, _ in weak[1])
                 self._largest_now = max(self._largest_now, big)
                 self.largest_cluster = max(self.largest_cluster, big)
-                pushes, y, q, rule = weak_mod.weak_segment(self, model, prep, s, e, weak[0],
-                                                           weak[1], pts, idx)
+                y, q, rule = weak_mod.weak_segment(
+                    self, model, prep, s, e, weak[0], weak[1], pts, idx,
+                    lambda dots, chans, which: push(dots, chans if len(chans) == 1
+                                                    else chans[which]))
                 self._weak_rules_now.add(rule)
                 weak_y.append(y)
                 weak_q.append(q)
-                for dots, chans, which in pushes:
-                    push(dots, chans if len(chans) == 1 else chans[which])
             if e in mark_set:
                 record(e)
         if weak_y:

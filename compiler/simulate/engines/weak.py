@@ -33,9 +33,9 @@ combination): with y = ∫‖B_I‖◇ dt over a chunk, T exp∫B_I and
 Π_p exp(Ω_p) both equal 1 + Σ_pΩ_p up to a remainder of at most
 e^y − 1 − y, so they differ by at most 2(e^y − 1 − y) ≈ y²; the
 chunk's channel E₀·V moves by no more (E₀ is a channel, norm 1).
-‖B_p‖◇ ≤ 2·2π‖H_p‖ ≤ 4π(|J|/4 + |F|/2) and ‖E₀⁻¹‖◇ ≤ exp(‖L_D‖◇·τ) over
-a chunk of length τ (the dissipators' norm ‖L_D‖◇ ≤ Σ 2γ‖c‖²), so
-y ≤ κ·∫4π(|J|/4 + |F|/2)dt with κ = exp(‖L_D‖◇τ).  Simpson's rule on a
+‖B_p‖◇ ≤ 2π·(λ_max − λ_min of H_p) (:func:`spread`; 2πJ for J·S₁·S₂) and
+‖E₀⁻¹‖◇ ≤ exp(‖L_D‖◇·τ) over a chunk of length τ (the dissipators' norm
+‖L_D‖◇ ≤ Σ 2γ‖c‖²), so y ≤ κ·∫2π·spread dt with κ = exp(‖L_D‖◇τ).  Simpson's rule on a
 sub-step of length h adds at most κ·x·(2‖A‖h)⁴/2880 to ‖Ω‖ (x the
 sub-step's share of y, ‖A‖ the units' generator norm, exchange inside a
 unit included); the midpoint rule (one node per sub-step) adds at most
@@ -142,6 +142,18 @@ def weak_bound(y: np.ndarray, q: np.ndarray) -> float:
     return float(0.5 * d.sum() * math.exp(d.sum()))
 
 
+def spread(J, F) -> np.ndarray:
+    """λ_max − λ_min of H = J·σzσz/4 + flip-flop of modulus |F| (Hz): its
+    eigenvalues are J/4 (twice) and −J/4 ± |F|/2.  ‖−i[H, ·]‖◇ ≤ λ_max −
+    λ_min (shift H by the middle of its spectrum: ‖[H', ρ]‖₁ ≤ 2‖H'‖·‖ρ‖₁,
+    with an ancilla alike), 1.5× below 2‖H‖ for the isotropic J·S₁·S₂."""
+    J = np.asarray(J, dtype=float)
+    F = np.abs(np.asarray(F, dtype=float))
+    hi = np.maximum(J / 4, -J / 4 + F / 2)
+    lo = np.minimum(J / 4, -J / 4 - F / 2)
+    return hi - lo
+
+
 def diss_norm(rates_ops) -> float:
     """‖Σ γ·D[c]‖◇ ≤ Σ 2γ‖c‖² (D[c]ρ = cρc† − ½{c†c, ρ})."""
     return float(sum(2 * g * np.linalg.norm(c, 2) ** 2 for g, c in rates_ops))
@@ -236,12 +248,13 @@ def _to_sorted(M: np.ndarray, order: tuple[int, ...]) -> np.ndarray:
     return t.reshape(M.shape)
 
 
-def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
+def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, emit):
     """Channels of the weak pairs ``pairs`` (indices) and of the *units* they
     join (``units``: exact clusters (dots, pairs), often single dots) over
-    sub-steps [s, e): a list, in time order, of (dots, channels (V, k, k),
-    point -> variant), the chunks' first-order sizes and quadrature errors
-    (module notes), and the rule inside single sub-steps.  Each unit evolves exactly (its own generator,
+    sub-steps [s, e), handed to ``emit(dots, channels (V, k, k), point ->
+    variant)`` in time order as each chunk is done (so only the chunks under
+    way are held); returns the chunks' first-order sizes and quadrature
+    errors (module notes) and the rule inside single sub-steps.  Each unit evolves exactly (its own generator,
     exchange inside it included); each weak pair adds Π exp(Ω) per chunk on
     the dots of its two units."""
     h = model.h
@@ -276,15 +289,16 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
         coef = np.stack([np.stack([c[s:e] for c in prep["pairs"][j][k[2]]]) for k in combos])
         pinfo.append((j, d0, d1, ua, ub, tuple(combos), np.array(which), coef,
                       kron_terms(swapped=p.a > p.b), prep["xn"][j][s:e]))
-    # ---- runs of equal sub-steps (every unit, variant and pair coefficient)
-    cols = [C.transpose(1, 0, 2).reshape(n, -1) for _, _, C in gens]
-    cols += [pi[7].transpose(2, 0, 1).reshape(n, -1) for pi in pinfo]
-    allc = np.concatenate(cols, axis=1)
-    change = np.ones(n, dtype=bool)
-    if n > 1 and allc.shape[1]:
-        scale = np.abs(allc).max(axis=0)
-        tol = 1e-12 * np.where(scale > 0, scale, 1.0)
-        change[1:] = np.any(np.abs(allc[1:] - allc[:-1]) > tol, axis=1)
+    # ---- where each unit's generator and each pair's coefficients change
+    def changes(arr):                        # (n, columns) -> change before each sub-step
+        ch = np.ones(n, dtype=bool)
+        if n > 1 and arr.shape[1]:
+            scale = np.abs(arr).max(axis=0)
+            tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+            ch[1:] = np.any(np.abs(arr[1:] - arr[:-1]) > tol, axis=1)
+        return ch
+    unit_change = [changes(C.transpose(1, 0, 2).reshape(n, -1)) for _, _, C in gens]
+    pair_change = [changes(pi[7].transpose(2, 0, 1).reshape(n, -1)) for pi in pinfo]
     # ---- chunks: first-order size within y*
     x = sum(pi[9] for pi in pinfo)
     max_len = max(1, int(prep["tau_max"] / h)) if math.isfinite(prep["tau_max"]) else n
@@ -292,45 +306,75 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     ncs = len(cstart)
     is_cstart = np.zeros(n, dtype=bool)
     is_cstart[cstart] = True
-    # pieces: single sub-steps, or runs of ≥ 4 equal ones (exact integral)
-    run_start = np.flatnonzero(change | is_cstart)
-    run_len = np.diff(np.append(run_start, n))
-    long_run = run_len >= 4
-    rep = np.where(long_run, 1, run_len)
-    starts = np.repeat(run_start, rep) + (np.arange(rep.sum())
-                                          - np.repeat(np.cumsum(rep) - rep, rep))
-    lens = np.where(np.repeat(long_run, rep), np.repeat(run_len, rep), 1)
+
+    def runs(change):                       # sub-steps in runs of < 4 equal ones; runs of ≥ 4
+        rs = np.flatnonzero(change | is_cstart)
+        rl = np.diff(np.append(rs, n))
+        short = np.repeat(rl < 4, rl)
+        return short, rs[rl >= 4], rl[rl >= 4]
+    # each pair: its own runs (its two units and its coefficients): single
+    # sub-steps take nodes, runs of ≥ 4 the exact integral (Van Loan)
+    pair_short, pair_long = [], []
+    for pc_, pi in zip(pair_change, pinfo):
+        short, ls, ll = runs(unit_change[pi[3]] | unit_change[pi[4]] | pc_)
+        pair_short.append(short)
+        pair_long.append((ls, ll))
+    # global pieces (every unit's prefix is kept at their starts): single
+    # sub-steps, or runs of ≥ 4 equal ones
+    gshort, run_start, run_len = runs(np.any(unit_change + pair_change, axis=0))
+    long_run = np.zeros(n, dtype=bool)
+    long_run[run_start] = True
+    piece_start = np.flatnonzero(gshort | long_run)
+    starts = piece_start
+    lens = np.ones(len(starts), dtype=int)
+    is_long = long_run[starts] & ~gshort[starts]
+    lens[is_long] = run_len
     npc = len(starts)
     chunk_of = np.searchsorted(cstart, starts, side="right") - 1
     first = np.zeros(npc, dtype=bool)
     first[np.searchsorted(starts, cstart)] = True
     single = lens == 1
+    # per pair: which pieces take nodes (its short sub-steps; they are single
+    # pieces), and its long runs as (piece index, length)
+    ps = [short[starts] & single for short in pair_short]
+    pl = [(np.searchsorted(starts, ls), ll) for ls, ll in pair_long]
     # ---- the rule inside a single sub-step: the midpoint rule where its error
-    # (2‖A‖h)²/24 of the sub-step's share, summed, stays within a tenth of
-    # the accuracy given to this treatment; Simpson's rule otherwise
+    # (2‖A‖h)²/24 of the sub-step's share (‖A‖ of the pair's two units),
+    # summed, stays within a tenth of the accuracy given to this treatment;
+    # Simpson's rule otherwise
     clen = np.diff(np.append(cstart, n))
     kap = np.exp(prep["dnorm"] * clen * h)
-    a_all = sum(anorm)
-    xs = np.where(np.isin(np.arange(n), starts[single]), x, 0.0)
-    q_mid = np.add.reduceat(xs * (2 * a_all * h) ** 2 / 24, cstart) * kap
+    q_mid = np.zeros(ncs)
+    q_simp = np.zeros(ncs)
+    for short, pi in zip(pair_short, pinfo):
+        a2 = 2 * (anorm[pi[3]] + anorm[pi[4]]) * h
+        xs = np.where(short, pi[9], 0.0)
+        q_mid += np.add.reduceat(xs * a2 ** 2 / 24, cstart) * kap
+        q_simp += np.add.reduceat(xs * a2 ** 4 / 2880, cstart) * kap
     simpson = q_mid.sum() > 0.1 * prep["eps"]
-    q_rule = (np.add.reduceat(xs * (2 * a_all * h) ** 4 / 2880, cstart) * kap if simpson
-              else q_mid)
-    # node weights per single piece (Simpson: start, middle, end; the end of
-    # one merged into the start of the next single of the same chunk)
-    nxt_single = np.append(single[1:], False) & np.append(chunk_of[1:] == chunk_of[:-1], False)
+    q_rule = q_simp if simpson else q_mid
+    # node pieces: single pieces that take nodes for some pair; with Simpson
+    # the end of one merged into the start of the next of the same chunk
+    any_ps = np.any(ps, axis=0) if ps else np.zeros(npc, dtype=bool)
+    nxt_single = (np.append(any_ps[1:], False)
+                  & np.append(chunk_of[1:] == chunk_of[:-1], False) & any_ps)
     prev_single = np.append(False, nxt_single[:-1])
     # ---- transformed one-dot maps needed: (unit, dot) of every pair end
     ends = sorted({(pi[3], pi[1]) for pi in pinfo} | {(pi[4], pi[2]) for pi in pinfo})
     nzs = {(u, q): _embedded_nonzeros(units[u][0].index(q), len(units[u][0])) for u, q in ends}
-    # ---- accumulators
+    # ---- accumulators: Ω of the chunks under way, per pair (chunk -> (M, K, K));
+    # a chunk's channels are handed to ``emit`` as soon as its last piece is done
     Om = []
     for j, d0, d1, ua, ub, combos, which, coef, terms, xn in pinfo:
         base, ratio = _scaled_combos(combos, coef)
         calc = np.flatnonzero(base == np.arange(len(combos)))
-        Om.append((base, ratio, calc, np.zeros((len(calc), ncs, kdim[ua] * kdim[ub],
-                                                kdim[ua] * kdim[ub]))))
-    chunk_end = [np.empty((g[0].shape[0], ncs, k, k)) for g, k in zip(gens, kdim)]
+        Om.append((base, ratio, calc, {}))
+
+    def acc(store, c, m, K):
+        got = store.get(c)
+        if got is None:
+            got = store[c] = np.zeros((m, K, K))
+        return got
     last_of_chunk = np.append(np.flatnonzero(first)[1:], npc) - 1
     pair_gens = [[pair_generator_on(terms, e3, nzs[(ua, d0)], nzs[(ub, d1)], kdim[ua], kdim[ub])
                   for e3 in np.eye(3)] for j, d0, d1, ua, ub, _, _, _, terms, _ in pinfo]
@@ -338,7 +382,8 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
     # ---- pieces in blocks (memory): prefix channels, nodes, contributions
     per_piece = sum(g[0].shape[0] * k * k * 8 * (10 + 3 * 7 * sum(u == ue for ue, _ in ends))
                     for u, (g, k) in enumerate(zip(gens, kdim)))
-    per_piece += sum(len(o[2]) * 3 * 6 * kdim[pi[4]] ** 2 * 8 for o, pi in zip(Om, pinfo))
+    per_piece += sum(len(o[2]) * (3 * 6 * kdim[pi[4]] ** 2 + 2 * (kdim[pi[3]] * kdim[pi[4]]) ** 2)
+                     * 8 for o, pi in zip(Om, pinfo))
     block = max(16, int(eng.max_batch_bytes // 2 // max(per_piece, 1)))
     for b0 in range(0, npc, block):
         b1 = min(npc, b0 + block)
@@ -370,17 +415,17 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
             Pm.append(Mh @ before[:, sing])
             Pe.append(pref)
             Lb.append(Lp)
-            done = last_of_chunk[(last_of_chunk >= b0) & (last_of_chunk < b1)]
-            chunk_end[u][:, chunk_of[done]] = pref[:, done - b0]
-        # nodes of the single pieces: (piece in block, kind 0 start / 1 middle / 2 end)
-        sp = np.flatnonzero(sing)
+        # nodes of the pieces that take nodes for some pair: (piece in block,
+        # kind 0 start / 1 middle / 2 end)
+        sing_idx = np.flatnonzero(sing)
+        sp = np.flatnonzero(any_ps[sl])
         if simpson:
             cnt = 2 + (~nxt_single[b0 + sp]).astype(int)
             node_piece = np.repeat(sp, cnt)
             node_kind = np.arange(cnt.sum()) - np.repeat(np.cumsum(cnt) - cnt, cnt)
         else:
             node_piece, node_kind = sp, np.ones(len(sp), dtype=int)
-        node_sing = np.searchsorted(sp, node_piece)           # index among the block's singles
+        node_sing = np.searchsorted(sing_idx, node_piece)     # index among the block's singles
         node_chunk = chunk_of[b0 + node_piece]
         # transformed one-dot maps with the node axis last (long contiguous
         # rows for the elementwise work): (6, k², V, nodes)
@@ -395,64 +440,88 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx):
                         Pn[..., sel] = src[:, (node_sing if kind == 1 else node_piece)[sel]
                                            ].transpose(2, 3, 0, 1)
                 T[(u, q)] = _transformed_last(Pn, _inverse_last(Pn), nzs[(u, q)])
-        cuts = np.searchsorted(node_chunk, np.arange(ncs + 1))
-        lp = np.flatnonzero(~sing)
-        for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn), Gs in \
-                zip(Om, pinfo, pair_gens):
+        for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn), Gs, \
+                psp, (lpi, lpl) in zip(Om, pinfo, pair_gens, ps, pl):
             k0, k1 = kdim[ua], kdim[ub]
+            gp = b0 + node_piece
             if len(node_piece):
-                c_here = coef[calc][:, :, starts[b0 + node_piece]]      # (M, 3, nodes)
+                own = psp[gp]
+                prev = np.zeros(len(gp), dtype=bool)
                 if simpson:
-                    w = np.where(node_kind == 1, 4 * h / 6, h / 6)
-                    Wn = c_here * w
-                    prev = (node_kind == 0) & prev_single[b0 + node_piece]
-                    if prev.any():
-                        Wn[:, :, prev] += h / 6 * coef[calc][:, :, starts[b0 + node_piece[prev] - 1]]
+                    prev = (node_kind == 0) & prev_single[gp] & psp[np.maximum(gp - 1, 0)]
+                selp = own | prev
+            else:
+                selp = np.zeros(0, dtype=bool)
+            if selp.any():
+                nk, g = node_kind[selp], gp[selp]
+                c_here = coef[calc][:, :, starts[g]] * own[selp]         # (M, 3, nodes)
+                if simpson:
+                    Wn = c_here * np.where(nk == 1, 4 * h / 6, h / 6)
+                    pv = prev[selp]
+                    if pv.any():
+                        Wn[:, :, pv] += h / 6 * coef[calc][:, :, starts[g[pv] - 1]]
                 else:
                     Wn = c_here * h
-                tb = T[(ub, d1)][:, :, np.array([combos[i][1] for i in calc])]  # (6, k1², M, nodes)
-                Y = np.zeros(tb.shape)
+                nch = node_chunk[selp]
+                cuts = np.searchsorted(nch, np.arange(ncs + 1))
+                # Y = Σ_terms w·factor·T_b: one per distinct (dot-b variant, charge
+                # offset), shared by the combinations that differ only on dot a
+                ykeys = {}
+                yidx = np.array([ykeys.setdefault(combos[i][1:], len(ykeys)) for i in calc])
+                ym = [int(np.argmax(yidx == u)) for u in range(len(ykeys))]
+                tb = T[(ub, d1)][:, :, np.array([combos[calc[m]][1] for m in ym])][..., selp]
+                Wy = Wn[ym]                                            # (U, 3, nodes)
+                Y = np.zeros(tb.shape)                                 # (6, k1², U, nodes)
                 for kind, f, ia, ib in terms:
-                    Y[ia] += (f * Wn[:, kind]) * tb[ib]
+                    Y[ia] += (f * Wy[:, kind]) * tb[ib]
                 va = np.array([combos[i][0] for i in calc])
-                ta_all = T[(ua, d0)]                                   # (6, k0², V_a, nodes)
-                for c in np.unique(node_chunk):
+                ta_all = T[(ua, d0)][..., selp]                        # (6, k0², V_a, nodes)
+                for c in np.unique(nch):
                     lo, hi = cuts[c], cuts[c + 1]
                     # Σ_(node, α) vec T_a ⊗ vec Y: (M, 6, k0², k1²) summed over α
                     ta = ta_all[:, :, va, lo:hi].transpose(2, 0, 1, 3)
-                    Z = np.matmul(ta, Y[..., lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
-                    Omp[:, c] += _kron_pair(Z, k0, k1)
-            # runs of equal sub-steps: the exact integral (Van Loan)
-            if len(lp):
+                    Z = np.matmul(ta, Y[:, :, yidx, lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
+                    acc(Omp, c, len(calc), k0 * k1)[...] += _kron_pair(Z, k0, k1)
+            # the pair's runs of ≥ 4 equal sub-steps that start in this block:
+            # the exact integral (Van Loan)
+            inb = (lpi >= b0) & (lpi < b1)
+            if inb.any():
+                lp = lpi[inb] - b0
+                ln = lpl[inb]
                 for m, ci in enumerate(calc):
                     va, vb, _ = combos[ci]
                     A = (np.kron(Lb[ua][va][lp], np.eye(k1)) + np.kron(np.eye(k0), Lb[ub][vb][lp]))
                     cl = coef[ci][:, starts[b0 + lp]]
                     B = sum(cl[t][:, None, None] * Gs[t] for t in range(3))
-                    I = van_loan(A, B, h * lens[b0 + lp])
+                    I = van_loan(A, B, h * ln)
                     Pr = np.einsum("kab,kcd->kacbd", P[ua][va][lp],
                                    P[ub][vb][lp]).reshape(-1, k0 * k1, k0 * k1)
-                    np.add.at(Omp[m], chunk_of[b0 + lp], np.linalg.solve(Pr, I @ Pr))
-    # ---- the pairs' corrections
-    out_pairs = []
-    for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn) in \
-            zip(Om, pinfo):
-        full = np.zeros((len(combos),) + Omp.shape[1:])
-        full[calc] = Omp
-        full = full[base] * ratio[:, None, None, None]
-        order = units[ua][0] + units[ub][0]
-        Wc = _to_sorted(_expm_any(full), order)
-        out_pairs.append((tuple(sorted(order)), Wc, which))
+                    contrib = np.linalg.solve(Pr, I @ Pr)
+                    cl_of = chunk_of[b0 + lp]
+                    for c in np.unique(cl_of):
+                        acc(Omp, c, len(calc), k0 * k1)[m] += contrib[cl_of == c].sum(axis=0)
+        # ---- the chunks that end in this block, in time order: the pairs'
+        # corrections, then the units' own channels
+        lasts = last_of_chunk[(last_of_chunk >= b0) & (last_of_chunk < b1)]
+        done = [int(chunk_of[last]) for last in lasts]
+        corr = []                               # per pair: (dots, (chunks, V, K, K), which)
+        for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, *_r) in \
+                zip(Om, pinfo):
+            K = kdim[ua] * kdim[ub]
+            full = np.zeros((len(done), len(combos), K, K))
+            for i, c in enumerate(done):
+                full[i, calc] = Omp.pop(c, 0.0)
+            full = full[:, base] * ratio[:, None, None]
+            order = units[ua][0] + units[ub][0]
+            corr.append((tuple(sorted(order)), _to_sorted(_expm_any(full), order), which))
+        for i, last in enumerate(lasts):
+            for dots, Wc, which in corr:
+                emit(dots, Wc[i], which)
+            for u, (dots, _) in enumerate(units):
+                emit(dots, Pe[u][:, last - b0].copy(), which_u[u])
     # ---- sizes and quadrature errors per chunk, each with its own κ
     y = np.add.reduceat(x, cstart) * kap
-    # ---- channels in time order: per chunk, the pairs' corrections then the units' own
-    pushes = []
-    for c in range(ncs):
-        for dd, Wc, which in out_pairs:
-            pushes.append((dd, Wc[:, c], which))
-        for u, (dots, _) in enumerate(units):
-            pushes.append((dots, chunk_end[u][:, c], which_u[u]))
-    return pushes, y, q_rule, "simpson" if simpson else "midpoint"
+    return y, q_rule, "simpson" if simpson else "midpoint"
 
 
 def _frameless(eng, model, dots, upairs):
@@ -492,21 +561,15 @@ def _expm_any(A: np.ndarray) -> np.ndarray:
 
 
 def _chunk_prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
-    """Ordered prefix products of the pieces (V, npc, 4, 4), restarting at
-    every piece marked ``first``."""
-    seg = np.cumsum(first)
-    out = M.copy()
-    n = M.shape[1]
-    d = 1
-    while d < n:
-        same = seg[d:] == seg[:-d]
-        if not same.any():
-            break
-        new = out.copy()
-        j = np.flatnonzero(same) + d
-        new[:, j] = out[:, j] @ out[:, j - d]
-        out = new
-        d *= 2
+    """Ordered prefix products of the pieces (V, npc, k, k), restarting at
+    every piece marked ``first``: one product per piece in sequence (a
+    doubling scan takes log₂(npc) passes over the whole array, 1.7× slower
+    for one dot and 12× for a pair's 16 × 16 channels, measured)."""
+    out = np.empty_like(M)
+    cur = None
+    for i in range(M.shape[1]):
+        cur = M[:, i] if first[i] or cur is None else np.matmul(M[:, i], cur)
+        out[:, i] = cur
     return out
 
 
