@@ -64,19 +64,21 @@ def test_pair_generator_from_one_dot_maps_is_the_levels_paths_own(tmp_path):
     assert pm.CA.shape[0] < 16 and pm.CB.shape[0] < 16    # reduced operator sets
 
 
-def test_norm_bound_holds_and_is_tight(tmp_path):
-    # ‖H_pair‖ per sub-step against its bound (Perron root of the entrywise |H|):
-    # never below the exact spectral norm, and ¾J for J·S₁·S₂ in the valley-polarised
-    # limit (eigenvalues ¼ and −¾ of S₁·S₂: common practice, no source)
+def test_spread_bound_holds_and_is_tight(tmp_path):
+    # λ_max − λ_min of H_pair per sub-step against its bound (2·Perron root of the
+    # entrywise |H − s·c₀·1|, the best shift s): never below the exact spread, and J
+    # for J·S₁·S₂ in the valley-polarised limit (eigenvalues ¼ and −¾ of S₁·S₂:
+    # common practice, no source); ‖−i[H, ·]‖◇ ≤ λ_max − λ_min (as weak.spread)
     model = _model(tmp_path, IDLE["1 kHz"], "rot A x 90 deg\nwait 40 ns\n")
     p = model.pairs[0]
     J, F = p.coefficients(0.0)
-    b = LW.norm_bound(model, 0, {0.0: (J, F)})
+    b = LW.spread_bound(model, 0, {0.0: (J, F)})
     for k in range(0, model.k, 17):
         Hk = sum(F[i][k].real * O if nu == 0 else F[i][k] * O + np.conj(F[i][k]) * O.conj().T
                  for i, (nu, O) in enumerate(p.parts))
-        assert np.linalg.norm(Hk, 2) <= b[k] * (1 + 1e-12)
-        assert b[k] <= 0.75 * J[k] * (1 + 1e-4)
+        ev = np.linalg.eigvalsh(Hk)
+        assert ev[-1] - ev[0] <= b[k] * (1 + 1e-12)
+        assert b[k] <= J[k] * (1 + 1e-4)
 
 
 # ------------------------------------------------------------------ against the exact treatment

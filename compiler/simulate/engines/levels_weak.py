@@ -36,16 +36,13 @@ run and chunk here, far dearer than the panels).  The error of each panel,
 κ·x·(2‖A‖p)⁴/2880 (x its share of y), is added to the bound.
 
 Bound (the notes of :mod:`.weak`; common practice, no source for the
-combination): y = κ·∫‖B‖◇dt per chunk with ‖B‖◇ ≤ 4π‖H_pair‖ and
+combination): y = κ·∫‖B‖◇dt per chunk with ‖B‖◇ ≤ 2π(λ_max − λ_min) of H_pair and
 κ = exp(‖L_D‖◇τ) ≤ 1.1 (chunks at most τ_max long); chunks of y ≤ y*
 (:meth:`.fast.FastEngine._weak_masks`) so that Σ 2(e^y − 1 − y) is within
-the weak half of the accuracy; the fidelity bound is :func:`.weak.weak_bound`
-of the chunks' y and quadrature errors.  ‖H_pair‖ per sub-step: every matrix
-element of a :class:`.model.LevelPair` belongs to one part, so
-|H| ≤ Σ_k |c_k|·(|O_k| + |O_k|ᵀ) entrywise and ‖H‖ ≤ ‖|H|‖ ≤ the Perron root
-of that non-negative matrix (monotone in the |c_k|, which are rounded up
-to a grid of relative step 1e-6 so that equal rows are found once): ¾J for
-a spin–valley pair in the valley-polarised limit, as ‖J·S₁·S₂‖.  exp(Ω) is
+the accuracy dropping left (0.9·¾·(budget − dropped phase), as the
+two-level path); the fidelity bound is :func:`.weak.weak_bound`
+of the chunks' y and quadrature errors; λ_max − λ_min per sub-step from
+:func:`spread_bound` (J for a spin–valley pair, as for J·S₁·S₂).  exp(Ω) is
 a Taylor polynomial of the order that brings its remainder,
 at most y'^(m+1)/(m+1)!·e^y' (y' = y + the quadrature error), below
 :data:`TAYLOR_TOL` or 1e-4 of the chunk's own e^y − 1 − y; the remainder
@@ -124,26 +121,45 @@ def coefficient_rows(coef, recipes, s: int, e: int) -> np.ndarray:
     return np.stack(out)
 
 
-def norm_bound(model, j: int, coefs: dict) -> np.ndarray:
-    """Per sub-step a bound on ‖H_pair‖ (Hz) at the worst charge offset
-    (module notes)."""
+def spread_bound(model, j: int, coefs: dict) -> np.ndarray:
+    """Per sub-step a bound on λ_max − λ_min of H_pair (Hz) at the worst charge
+    offset: ‖−i[H, ·]‖◇ ≤ λ_max − λ_min (:func:`.weak.spread`, the two-level
+    path's bound).  For a :class:`.model.LevelPair`, λ_max − λ_min ≤
+    2‖H − s·c₀·1‖ for any s, every matrix element of the pair operator
+    belongs to one part (the turning parts are off the diagonal), so
+    |H − s·c₀·1| ≤ |c₀|·|O₀ − s·1| + Σ_k |c_k|·(|O_k| + |O_k|ᵀ) entrywise and
+    ‖H − s·c₀·1‖ is at most the Perron root of that non-negative matrix
+    (monotone in the |c_k|, rounded up to a grid of relative step 1e-6 so
+    that equal rows are found once); s runs over 0 and the diagonal values
+    of O₀: J for a spin–valley pair in the valley-polarised limit (s = −¼),
+    as the spread of J·S₁·S₂."""
     p = model.pairs[j]
     out = None
     if not isinstance(p, LevelPair):
         for J, F in coefs.values():
-            b = np.abs(J) / 4 + np.abs(F) / 2
+            b = weak_mod.spread(J, np.abs(F))
             out = b if out is None else np.maximum(out, b)
         return out
-    mats = np.stack([np.abs(np.asarray(O)) + (np.abs(np.asarray(O)).T if nu else 0)
-                     for nu, O in p.parts])                     # (parts, D, D), symmetric
+    D = p.parts[0][1].shape[0] if p.parts else 1
+    zero = [i for i, (nu, _) in enumerate(p.parts) if nu == 0]
+    O0 = np.asarray(p.parts[zero[0]][1]) if zero else np.zeros((D, D))
+    shifts = np.unique(np.round(np.concatenate([[0.0], np.real(np.diag(O0))]), 12))
+    rest = [np.abs(np.asarray(O)) + np.abs(np.asarray(O)).T for nu, O in p.parts if nu]
     for _, F in coefs.values():
         c = np.abs(np.stack([np.asarray(f) for f in F], axis=1))   # (K, parts)
         with np.errstate(divide="ignore"):
             g = np.where(c > 0, np.exp(np.ceil(np.log(np.where(c > 0, c, 1.0)) / GRID) * GRID), 0.0)
         rows, inv = np.unique(g, axis=0, return_inverse=True)
-        N = np.einsum("rk,kij->rij", rows, mats)
-        lam = np.linalg.eigvalsh(N)[:, -1] * (1 + 1e-12)
-        b = lam[inv.reshape(-1)]
+        c0 = rows[:, zero[0]] if zero else np.zeros(len(rows))
+        cr = rows[:, [i for i in range(len(p.parts)) if i not in zero]]
+        Nrest = np.einsum("rk,kij->rij", cr, np.stack(rest)) if rest else 0.0
+        best = None
+        for sh in shifts:
+            N = c0[:, None, None] * np.abs(O0 - sh * np.eye(D)) + Nrest
+            lam = np.linalg.eigvalsh(N)[:, -1]
+            best = lam if best is None else np.minimum(best, lam)
+        b = 2 * best * (1 + 1e-12)
+        b = b[inv.reshape(-1)]
         out = b if out is None else np.maximum(out, b)
     return out
 
@@ -238,7 +254,8 @@ def plan(eng, model, coefs: list, jmax: list, points):
         eng._set_neglected(total)
         return on, weak, None
     eps = 0.75 * eng.exchange_budget / 2             # fidelity for the weak treatment
-    xn = [4 * math.pi * norm_bound(model, j, coefs[j]) * h for j in range(len(jmax))]
+    # ‖B‖◇ ≤ 2π·(spread of H's eigenvalues) per pair and sub-step (spread_bound)
+    xn = [2 * math.pi * spread_bound(model, j, coefs[j]) * h for j in range(len(jmax))]
     dn = {q: weak_mod.diss_norm([(d.rate, dot_operator(model.dots[q], d.operator))
                                  for d in model.dissipators_of(q)]) for q in range(model.n)}
     dnorm = 2 * max(dn.values(), default=0.0)
@@ -249,6 +266,9 @@ def plan(eng, model, coefs: list, jmax: list, points):
         eng._set_neglected(total)
         return on, weak, None
     on, total = eng._drop(jmax, h, K, eng.exchange_budget / 2)
+    # what dropping left of the accuracy (a tenth kept for quadrature and
+    # composition), as the two-level path: ¾·φ + bound ≤ accuracy
+    eps = 0.9 * 0.75 * (eng.exchange_budget - total)
     w, ystar = eng._weak_masks(on, xn, kmax, eps)
     eng._set_neglected(total)
     if w is None:
