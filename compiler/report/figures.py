@@ -292,9 +292,8 @@ def populations_figure(result: SimulationResult, i: int | None = None) -> Figure
         sx = FS.axes(fig, left, 0.95 + main_h + 0.12, WIDTH - left - right, strip_h)
         _draw_strip(sx, run, lanes, scale, ax.get_xlim(), WIDTH - left - right)
     FS.titles(fig, f"Spin-up probability: {_run_name(result, run)}",
-            "P(spin up) of each dot in its qubit frame along the run at the centre of the "
-            "quasi-static noise (its dephasing not shown); diamonds: the averaged populations "
-            "at readout")
+            "P(spin up) in each qubit frame at the centre of the slow noise (its "
+            "dephasing not shown); diamonds: averaged, at readout")
     return fig
 
 
