@@ -469,13 +469,15 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 ykeys = {}
                 yidx = np.array([ykeys.setdefault(combos[i][1:], len(ykeys)) for i in calc])
                 ym = [int(np.argmax(yidx == u)) for u in range(len(ykeys))]
-                tb = T[(ub, d1)][:, :, np.array([combos[calc[m]][1] for m in ym])][..., selp]
+                every = bool(selp.all())
+                tb = T[(ub, d1)][:, :, np.array([combos[calc[m]][1] for m in ym])]
+                tb = tb if every else tb[..., selp]
                 Wy = Wn[ym]                                            # (U, 3, nodes)
                 Y = np.zeros(tb.shape)                                 # (6, k1², U, nodes)
                 for kind, f, ia, ib in terms:
                     Y[ia] += (f * Wy[:, kind]) * tb[ib]
                 va = np.array([combos[i][0] for i in calc])
-                ta_all = T[(ua, d0)][..., selp]                        # (6, k0², V_a, nodes)
+                ta_all = T[(ua, d0)] if every else T[(ua, d0)][..., selp]  # (6, k0², V_a, nodes)
                 for c in np.unique(nch):
                     lo, hi = cuts[c], cuts[c + 1]
                     # Σ_(node, α) vec T_a ⊗ vec Y: (M, 6, k0², k1²) summed over α
