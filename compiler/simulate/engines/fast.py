@@ -83,10 +83,7 @@ SMALL = 16                     # exponentials up to this size by our batched Tay
 
 
 def _expm(A: np.ndarray) -> np.ndarray:
-    if A.shape[-1] <= SMALL:
-        return PL.expm_batch(A)
-    from scipy.linalg import expm
-    return expm(A)
+    return PL.expm_any(A, SMALL)
 
 
 # ------------------------------------------------------------------ one-dot and two-dot operators

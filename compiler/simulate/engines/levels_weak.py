@@ -492,7 +492,7 @@ class WeakRun:
         Ep = Eh @ Eh
         for i in np.flatnonzero(st["m"] > 1):
             Ep[i] = np.linalg.matrix_power(Ep[i], int(st["m"][i]))
-        after = _prefix(Ep, st["first"])
+        after = weak_mod.chunk_prefix(Ep[None], st["first"])[0]
         before = np.empty_like(after)
         before[1:] = after[:-1]
         before[st["first"]] = np.eye(after.shape[-1])
@@ -728,22 +728,3 @@ def _kron_apply(A: np.ndarray, B: np.ndarray, M: np.ndarray) -> np.ndarray:
     ka, kb = A.shape[0], B.shape[0]
     t = (A @ M.reshape(ka, -1)).reshape(ka, kb, -1)
     return np.matmul(B, t).reshape(ka * kb, -1)
-
-
-def _prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
-    """Ordered prefix products of (n, k, k) (later on the left), restarting at
-    every entry marked ``first`` (log-depth scan)."""
-    seg = np.cumsum(first)
-    out = M.copy()
-    n = M.shape[0]
-    d = 1
-    while d < n:
-        same = seg[d:] == seg[:-d]
-        if not same.any():
-            break
-        new = out.copy()
-        j = np.flatnonzero(same) + d
-        new[j] = out[j] @ out[j - d]
-        out = new
-        d *= 2
-    return out

@@ -154,6 +154,15 @@ def _taylor_terms(theta: float) -> int:
     return m
 
 
+def expm_any(A: np.ndarray, small: int = 16) -> np.ndarray:
+    """exp(A) for a stack of matrices: up to ``small`` × ``small`` by
+    :func:`expm_batch` (faster there), larger ones by scipy."""
+    if A.shape[-1] <= small:
+        return expm_batch(A)
+    from scipy.linalg import expm
+    return expm(A)
+
+
 def expm_batch(A: np.ndarray) -> np.ndarray:
     """exp(A) for a stack of small real or complex matrices (..., k, k), by
     scaling and squaring with a truncated Taylor series evaluated in Horner

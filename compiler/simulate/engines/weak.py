@@ -91,15 +91,10 @@ def kron_terms(swapped: bool) -> tuple[tuple[int, float, int, int], ...]:
 
 
 def pair_generator(terms, cJ: float, cFr: float, cFi: float) -> np.ndarray:
-    """The 16 × 16 generator Σ c·factor·(O_a ⊗ O_b) (for checks and runs)."""
-    c = (cJ, cFr, cFi)
-    return sum(c[k] * f * np.kron(ONE_DOT[a], ONE_DOT[b]) for k, f, a, b in terms)
-
-
-def kron_swap(Z: np.ndarray) -> np.ndarray:
-    """Σ vec(A)·vec(B)ᵀ (rows (i_a, j_a), columns (i_b, j_b)) -> Σ A ⊗ B."""
-    lead = Z.shape[:-2]
-    return Z.reshape(lead + (4, 4, 4, 4)).swapaxes(-3, -2).reshape(lead + (16, 16))
+    """The 16 × 16 generator Σ c·factor·(O_a ⊗ O_b) of a pair of single dots
+    (:func:`pair_generator_on` with units of one dot)."""
+    one = _embedded_nonzeros(0, 1)
+    return pair_generator_on(terms, (cJ, cFr, cFi), one, one, 4, 4)
 
 
 def chunk_cuts(x: np.ndarray, ystar: float, max_len: int) -> np.ndarray:
@@ -402,7 +397,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             Mp[:, sing] = Mh @ Mh
             if not sing.all():
                 Mp[:, ~sing] = _expm_runs(Lp[:, ~sing], h * lens[sl][~sing])
-            pref = _chunk_prefix(Mp, fst)
+            pref = chunk_prefix(Mp, fst)
             if cont:
                 pref[:, :upto] = pref[:, :upto] @ carry[u][:, None]
             before = np.empty_like(pref)
@@ -515,7 +510,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 full[i, calc] = Omp.pop(c, 0.0)
             full = full[:, base] * ratio[:, None, None]
             order = units[ua][0] + units[ub][0]
-            corr.append((tuple(sorted(order)), _to_sorted(_expm_any(full), order), which))
+            corr.append((tuple(sorted(order)), _to_sorted(PL.expm_any(full), order), which))
         for i, last in enumerate(lasts):
             for dots, Wc, which in corr:
                 emit(dots, Wc[i], which)
@@ -555,14 +550,7 @@ def pair_generator_on(terms, kind_coef, nza, nzb, k0: int, k1: int) -> np.ndarra
     return out
 
 
-def _expm_any(A: np.ndarray) -> np.ndarray:
-    if A.shape[-1] <= 16:
-        return PL.expm_batch(A)
-    from scipy.linalg import expm
-    return expm(A)
-
-
-def _chunk_prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
+def chunk_prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
     """Ordered prefix products of the pieces (V, npc, k, k), restarting at
     every piece marked ``first``: one product per piece in sequence (a
     doubling scan takes log₂(npc) passes over the whole array, 1.7× slower
