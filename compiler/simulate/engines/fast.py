@@ -78,6 +78,7 @@ from .clusters import clusters
 
 KAPPA = 1.1                    # weak exchange: chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (weak.py)
 FLOP_RATE = 2e10               # flop/s the estimate assumes (see _check_plan)
+QUIET_MIN = 16                 # weak exchange: quiet stretches at least this long are exact
 SLOW_NOTE_S = 20.0             # an evaluation estimated at least this long is announced (notify)
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
 
@@ -151,7 +152,7 @@ class FastEngine:
 
     def __init__(self, exchange_accuracy: float = 1e-6, max_batch_bytes: int = 512 * 2 ** 20,
                  cache_entries: int = 20000, *, exchange_budget: float | None = None,
-                 weak_exchange: bool = True, memory_limit: int = 0):
+                 weak_exchange: bool = True, memory_limit: int = 0, quiet_exact: bool = True):
         # memory_limit: bytes a run may take (0: not checked; the simulation
         # gives half the memory available, compiler.limits); a run whose
         # largest cluster would not fit raises ClusterTooLarge before any work
@@ -172,6 +173,9 @@ class FastEngine:
         self.exchange_bound_max = 0.0
         self.largest_cluster = 0
         self.weak_exchange = weak_exchange
+        # quiet stretches of weak pairs exactly where that is cheaper (_quiet_exact);
+        # False keeps them in the weak treatment (to compare the two)
+        self.quiet_exact = quiet_exact
         self._weak_bound_now = 0.0
         self._weak_chunks_now = 0
         self._weak_rules_now = set()
@@ -348,6 +352,16 @@ class FastEngine:
         if weak is None:
             self._set_neglected(total)
             return on, ip
+        # quiet stretches (nothing changes but the flip-flop's turn) are cheaper
+        # exactly: the chosen sub-steps leave the weak set, and y* follows the
+        # smaller sum Y of what stays (each sub-step still fits: y* only grows)
+        if self.quiet_exact:
+            weak = self._quiet_exact(model, prep, on, weak, K)
+        Y = sum(float(x[w].sum()) for x, w in zip(xn, weak)) * kmax
+        if Y <= 0:
+            self._set_neglected(total)
+            return on, ip
+        ystar = 1.9 * eps / Y
         self._set_neglected(total)
         dets = {q: max((abs(pt.detuning[q]) if pt.detuning else 0.0) for pt in prep["points"])
                 for q in range(model.n)}
@@ -361,14 +375,76 @@ class FastEngine:
                     prof = np.abs(d) if prof is None else np.maximum(prof, np.abs(d))
             anorm[q] = weak_mod.one_dot_norms(re, im, dets[q], prof, dn[q], K)
         prep.update({"xn": xn, "ystar": ystar, "dnorm": dnorm, "anorm": anorm, "eps": eps,
+                     "dn": dn,
                      "kappa": kmax, "tau_max": tau_max})
         return on, weak
+
+    def _quiet_exact(self, model: Model, prep: dict, on: list, weak: list, K: int) -> list:
+        """The weak masks without the *quiet stretches* that are cheaper taken
+        exactly: runs of at least :data:`QUIET_MIN` sub-steps in which a weak
+        pair's two dots keep their drive and detuning and the pair its J and
+        |F| (its flip-flop only turns at δ, which the exact cluster's rotating
+        frames cancel).  There the exact cluster takes one exponential per
+        stretch and noise variant, where the weak treatment takes chunks of
+        y ≤ y* (their number grows as the square of the exchange phase).
+        Kept weak where that would make a cluster of more than three dots
+        (:data:`.weak.MAX_UNION`) or one with a loop of pairs (a flip-flop
+        no frame cancels: every sub-step distinct)."""
+        if K < QUIET_MIN:
+            return weak
+        same = {}
+        pts = prep["points"]
+        for q in range(model.n):
+            # equal to 1e-12 of the largest value, as the exact path's runs
+            # (_chain_compute): a pulse's tail of 1e-45 Hz is a quiet sub-step
+            ch = np.zeros(K, dtype=bool)
+            drive = prep["drive"].get(q, ())
+            if drive:
+                tol = 1e-12 * max(float(np.abs(arr).max()) for arr in drive)
+                for arr in drive:
+                    ch[1:] |= np.abs(arr[1:] - arr[:-1]) > tol
+            for pt in pts:
+                d = model.detuning_profile(q, pt.modes) if pt.modes else None
+                if d is not None:
+                    ch[1:] |= np.abs(d[1:] - d[:-1]) > 1e-12 * float(np.abs(d).max())
+            same[q] = ~ch
+        cand = []
+        for j, w in enumerate(weak):
+            p = model.pairs[j]
+            st = same[p.a] & same[p.b]
+            for J, Fr, Fi in prep["pairs"][j].values():
+                tol = 1e-12 * float(np.abs(J).max())
+                F = np.hypot(Fr, Fi)
+                st[1:] &= (np.abs(J[1:] - J[:-1]) <= tol) & (np.abs(F[1:] - F[:-1]) <= tol)
+            st[0] = False
+            # runs of equal sub-steps: the first (where it changed) and the rest
+            start = np.flatnonzero(~st)
+            length = np.diff(np.append(start, K))
+            long = length >= QUIET_MIN
+            c = np.repeat(long, length) & w
+            cand.append(c)
+        if not any(c.any() for c in cand):
+            return weak
+        # the clusters each distinct pattern of exact pairs would make
+        exact = np.stack([m & ~(w & ~c) for m, w, c in zip(on, weak, cand)])
+        pats, inv = np.unique(exact, axis=1, return_inverse=True)
+        bad = np.zeros(pats.shape[1], dtype=bool)
+        for col in range(pats.shape[1]):
+            act = [j for j in range(len(weak)) if pats[j, col]]
+            edges = [(model.pairs[j].a, model.pairs[j].b) for j in act]
+            for dots, prs in clusters(model.n, edges, act):
+                if 4 ** len(dots) > weak_mod.MAX_UNION or len(prs) > len(dots) - 1:
+                    if any(cand[j][inv == col].any() for j in prs):
+                        bad[col] = True
+        keep = ~bad[np.ravel(inv)]
+        return [w & ~(c & keep) for w, c in zip(weak, cand)]
 
     @staticmethod
     def _weak_masks(on: list, xn: list, kappa: float, eps: float):
         """Sub-steps that stay on and are weak enough for the interaction
         picture, weakest first: the largest set whose every first-order size
-        κ·x is within y* = 1.9·eps/Y, Y = Σκ·x over the set (then
+        κ·x, summed over the pairs weak in one sub-step, is within y* =
+        1.9·eps/Y, Y = Σκ·x over the set (then
         Σ(e^y − 1 − y) ≤ ½y*(1 + y*)·Y ≤ eps for chunks of size ≤ y*):
         (masks, y*) or (None, 0) when there are none."""
         vals = np.concatenate([x[m] for x, m in zip(xn, on)]) * kappa if xn else np.zeros(0)
@@ -383,7 +459,10 @@ class FastEngine:
             Y = sum(float(x[w].sum()) for x, w in zip(xn, weak)) * kappa
             if Y <= 0:
                 return None, 0.0
-            if thr * Y <= 1.9 * eps:
+            # a chunk holds at least one sub-step: every sub-step's sum over the
+            # pairs weak there must fit y* too
+            smax = float(np.max(sum(np.where(w, x, 0.0) for x, w in zip(xn, weak)))) * kappa
+            if smax * Y <= 1.9 * eps:
                 return weak, 1.9 * eps / Y
             n_ok = int(np.searchsorted(srt, thr, side="left"))      # ties over: leave them out
         return None, 0.0
@@ -767,6 +846,14 @@ class FastEngine:
         # scale: the frame rotation leaves rounding-level differences on a flat top)
         if T and n > 1:
             scale = np.abs(C).max(axis=(0, 1))
+            # the two parts of one complex coefficient (a drive's I and Q, a
+            # flip-flop's Re F and Im F) share their scale: in a rotating frame
+            # one part of a constant coefficient is rounding noise alone
+            for g0, g1 in ([pc.drive[q] for q in pc.dots if q in pc.drive]
+                           + [pc.pair[j][1:] for j in pc.pairs]):
+                cols = [t for t in range(T) if np.array_equal(G[t], g0) or np.array_equal(G[t], g1)]
+                if cols:
+                    scale[cols] = scale[cols].max()
             tol = 1e-12 * np.where(scale > 0, scale, 1.0)
             change = np.ones(n, dtype=bool)
             change[1:] = np.any(np.abs(C[:, 1:] - C[:, :-1]) > tol, axis=(0, 2))

@@ -98,13 +98,18 @@ def pauli_string(labels: str) -> np.ndarray:
 def _ptm_of_map(fn, n: int) -> np.ndarray:
     """R[P, Q] = Tr(σ_P·fn(σ_Q))/d for a linear map fn on d×d matrices."""
     d = 2 ** n
+    basis = _pauli_basis(n)                                   # (4^n, d, d)
+    imgs = np.stack([fn(sq) for sq in basis])
+    # Tr(σ_P·M) = Σ_ij σ_P[i, j]·M[j, i]: one product for every (P, Q)
+    return np.real(basis.reshape(len(basis), -1) @ imgs.transpose(0, 2, 1).reshape(len(basis), -1).T) / d
+
+
+@lru_cache(maxsize=8)
+def _pauli_basis(n: int) -> np.ndarray:
+    """σ_P for every Pauli string of n dots, in the PTM order (read only)."""
     labels = ["".join(p) for p in _products(n)]
-    basis = [pauli_string(s) if n else np.eye(1, dtype=complex) for s in labels]
-    out = np.empty((4 ** n, 4 ** n))
-    for q, sq in enumerate(basis):
-        img = fn(sq)
-        for p, sp in enumerate(basis):
-            out[p, q] = np.real(np.trace(sp @ img)) / d
+    out = np.stack([pauli_string(s) if n else np.eye(1, dtype=complex) for s in labels])
+    out.flags.writeable = False
     return out
 
 

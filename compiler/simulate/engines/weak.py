@@ -23,10 +23,20 @@ is cut into *chunks*; on each, V is replaced by Π_p exp(Ω_p) with Ω_p =
 pair and chunk).  Ω_p is computed on one-dot matrices: every two-dot term
 is a sum of products of one-dot maps (``pauli.anticommutator_map``), so
 ∫E₀⁻¹(O_a⊗O_b)E₀ = ∫(E₀ₐ⁻¹O_aE₀ₐ)⊗(E₀_b⁻¹O_bE₀_b).  Sub-steps whose
-coefficients differ (a burst) take Simpson's rule inside the sub-step;
-runs of equal sub-steps (idle) take the exact integral of the block
-exponential exp([[A, B], [0, A]]τ) (Van Loan, IEEE Trans. Autom. Control
-23, 395 (1978)).
+coefficients differ (a burst) take the midpoint or Simpson's rule inside
+the sub-step; runs of equal sub-steps (idle) take the exact integral of the
+block exponential exp([[A, B], [0, A]]τ) (Van Loan, IEEE Trans. Autom.
+Control 23, 395 (1978)).  In the model's frame a pair's flip-flop turns at
+its frequency δ (F of a sub-step is the one before times z = e^{i2πδh}), so
+an idle run is equal but for that turn: there B_k = J₀·G_J + Re(F₀z^k·G₋),
+G₋ = G_Re − i·G_Im, and its integral is the J part over the run plus
+Re(F₀·Σ_k z^k·e^{−Akh}·I₋·e^{Akh}), I₋ the block-exponential integral of G₋
+over one sub-step, the geometric sum by doubling (:func:`run_integral`;
+runs of at least :data:`ROT_RUN_MIN` sub-steps, where it is cheaper than
+nodes).  Runs are found to 1e-9 of the coefficients' scale (the phases'
+rounding); what the closed form leaves out of the sub-steps' own
+coefficients (:func:`run_deviation`, in the diamond norm) is added to the
+chunk's quadrature error.
 
 Error bound (diamond norm ‖·‖◇, common practice, no source for the
 combination): with y = ∫‖B_I‖◇ dt over a chunk, T exp∫B_I and
@@ -38,9 +48,18 @@ chunk's channel E₀·V moves by no more (E₀ is a channel, norm 1).
 ‖L_D‖◇ ≤ Σ 2γ‖c‖²), so y ≤ κ·∫2π·spread dt with κ = exp(‖L_D‖◇τ).  Simpson's rule on a
 sub-step of length h adds at most κ·x·(2‖A‖h)⁴/2880 to ‖Ω‖ (x the
 sub-step's share of y, ‖A‖ the units' generator norm, exchange inside a
-unit included); the midpoint rule (one node per sub-step) adds at most
-κ·x·(2‖A‖h)²/24 and is taken instead when that, summed over the stretch,
-is within a tenth of the accuracy given to this treatment (slow drive).
+unit included; ‖ad_A‖ ≤ 2‖A‖).  The midpoint rule (one node per sub-step)
+adds at most κ·x·(a·h)²/24, h³/24 times the second derivative of
+E₀⁻¹·B·E₀, ad_A²(B): for a Hamiltonian generator, ad_{L_H}(L_X) =
+L_{−i2π[H, X]} and ‖[H, X]‖ ≤ spread(H)·‖X‖, so ‖ad_{L_H}²(B)‖◇ ≤
+(2π·spread H)²·‖B‖◇ (B is the pair's Hamiltonian generator); with the
+dissipators' part ‖ad_{L_D}‖ ≤ 2‖L_D‖◇ the mixed terms sum to at most
+(2π·spread H + 3‖L_D‖◇)²‖B‖◇, so a = ‖A_H‖ + 3‖L_D‖◇ of the pair's two
+units (4× below (2‖A‖)² for a pure Hamiltonian; checked numerically in
+tests/test_weak_exchange.py).  It is taken when its error, summed over the
+segment, fits the segment's part of :data:`QUAD_SHARE` of the accuracy, or
+when shrinking the chunks' part to make room for it costs less (fewer
+nodes against more chunks, :data:`CHUNK_COST`); Simpson's rule otherwise.
 The nodes' transformed maps are kept with the node axis last, so the
 elementwise work runs along long rows.  Chunks are cut so
 that y ≤ y* with Σ y = Y over the run: Σ(e^y − 1 − y) ≤ ½y*(1 + y*)·Y,
@@ -50,6 +69,7 @@ gate fidelity is at most half the change of the channel (|ΔF| ≤ ½‖ΔE‖�
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -113,10 +133,10 @@ def chunk_cuts(x: np.ndarray, ystar: float, max_len: int) -> np.ndarray:
         starts.append(e)
 
 
-def van_loan(A: np.ndarray, B: np.ndarray, tau) -> np.ndarray:
+def van_loan(A: np.ndarray, B: np.ndarray, tau, with_exp: bool = False):
     """∫_0^τ e^{−Au}·B·e^{Au} du for stacks of A, B (…, k, k): the top right
     block of exp([[A, B], [0, A]]τ) is ∫ e^{A(τ−u)}Be^{Au}du (Van Loan 1978),
-    taken back by e^{−Aτ}."""
+    taken back by e^{−Aτ}; with ``with_exp`` also e^{Aτ}."""
     k = A.shape[-1]
     lead = np.broadcast_shapes(A.shape[:-2], B.shape[:-2])
     big = np.zeros(lead + (2 * k, 2 * k))
@@ -124,7 +144,8 @@ def van_loan(A: np.ndarray, B: np.ndarray, tau) -> np.ndarray:
     big[..., :k, k:] = B
     big[..., k:, k:] = A
     E = PL.expm_batch(big * np.asarray(tau, dtype=float)[..., None, None])
-    return np.linalg.solve(E[..., :k, :k], E[..., :k, k:])
+    I = np.linalg.solve(E[..., :k, :k], E[..., :k, k:])
+    return (I, E[..., :k, :k]) if with_exp else I
 
 
 def weak_bound(y: np.ndarray, q: np.ndarray) -> float:
@@ -166,9 +187,21 @@ def one_dot_norms(re: np.ndarray | None, im: np.ndarray | None, det: float,
     return 4 * math.pi * h + D
 
 
+# the cost of one more chunk (its corrections' exponentials and their
+# applications to the register) in nodes of the interaction picture, measured
+# on the three-dot benchmark (tests/benchmarks/bench_simulate.py): it decides
+# between the midpoint rule with smaller chunks and Simpson's rule
+CHUNK_COST = 20
+# the part of the weak treatment's accuracy kept for the rule inside single
+# sub-steps (the chunks take the rest, module notes)
+QUAD_SHARE = 0.1
+# shortest run of equal sub-steps (but for the flip-flop's turn) that takes
+# the closed form of :func:`run_integral` instead of nodes (cost, measured)
+ROT_RUN_MIN = 16
 MAX_UNION = 64          # largest channel (4^dots) a weak pair's correction may act on
 
 
+@functools.lru_cache(maxsize=None)
 def _embedded_nonzeros(pos: int, c: int):
     """The entries of every one-dot map of :data:`ONE_DOT` on position ``pos``
     of ``c`` dots (identity on the others): (rows (6, m), columns (6, m),
@@ -182,21 +215,30 @@ def _embedded_nonzeros(pos: int, c: int):
         rows.append(nz[:, 0])
         cols.append(nz[:, 1])
         vals.append(big[nz[:, 0], nz[:, 1]])
-    return np.array(rows), np.array(cols), np.array(vals)
+    out = (np.array(rows), np.array(cols), np.array(vals))
+    for a in out:
+        a.flags.writeable = False         # kept (lru_cache): shared by every call
+    return out
 
 
-def _transformed_last(Pn: np.ndarray, Pi: np.ndarray, nz) -> np.ndarray:
+def _transformed(Pn: np.ndarray, Pi: np.ndarray, nz) -> np.ndarray:
     """P⁻¹·O·P for the six embedded one-dot maps O (entries ``nz``) at every
-    node, node axes last: (k, k, …) -> (6, k², …); O = Σ o_jk·e_j e_kᵀ, so
-    P⁻¹OP = Σ o_jk·P⁻¹[:, j] ⊗ P[k, :]."""
+    node: channels (V, k, k, nodes) -> (V, 6, k², nodes), the node axis last
+    (long contiguous rows for the elementwise work); O = Σ o_jk·e_j e_kᵀ, so
+    P⁻¹OP = Σ o_jk·P⁻¹[:, j] ⊗ P[k, :] (one pass per entry, all six maps at
+    once)."""
     rows, cols, vals = nz
-    k = Pn.shape[0]
-    lead = Pn.shape[2:]
-    out = np.zeros((6, k, k) + lead)
-    for o in range(6):
-        for r, c_, v in zip(rows[o], cols[o], vals[o]):
-            out[o] += (v * Pi[:, r])[:, None] * Pn[c_][None, :]
-    return out.reshape((6, k * k) + lead)
+    V, k = Pn.shape[:2]
+    N = Pn.shape[3:]
+    out = None
+    for e in range(rows.shape[1]):
+        a = Pi[:, :, rows[:, e]].swapaxes(1, 2) * vals[:, e].reshape((1, 6, 1) + (1,) * len(N))
+        term = a[:, :, :, None] * Pn[:, cols[:, e]][:, :, None]          # (V, 6, k, k, …)
+        if out is None:
+            out = term
+        else:
+            out += term
+    return out.reshape((V, 6, k * k) + N)
 
 
 def _inverse_last(P: np.ndarray) -> np.ndarray:
@@ -207,15 +249,20 @@ def _inverse_last(P: np.ndarray) -> np.ndarray:
     b×c, c×a, a×b over a·(b×c))."""
     k = P.shape[0]
     if k == 4 and not np.any(P[0, 1:]) and np.all(P[0, 0] == 1):
-        a, b, c = P[1, 1:], P[2, 1:], P[3, 1:]
-        bc, ca, ab = np.cross(b, c, axis=0), np.cross(c, a, axis=0), np.cross(a, b, axis=0)
-        det = (a * bc).sum(axis=0)
+        (a1, a2, a3), (b1, b2, b3), (c1, c2, c3) = P[1, 1:], P[2, 1:], P[3, 1:]
+        bc = (b2 * c3 - b3 * c2, b3 * c1 - b1 * c3, b1 * c2 - b2 * c1)
+        ca = (c2 * a3 - c3 * a2, c3 * a1 - c1 * a3, c1 * a2 - c2 * a1)
+        ab = (a2 * b3 - a3 * b2, a3 * b1 - a1 * b3, a1 * b2 - a2 * b1)
+        det = a1 * bc[0] + a2 * bc[1] + a3 * bc[2]
         if np.all(np.abs(det) > 1e-8):
             out = np.zeros_like(P)
             out[0, 0] = 1
-            Ri = np.stack([bc, ca, ab], axis=1) / det
-            out[1:, 1:] = Ri
-            out[1:, 0] = -(Ri * P[None, 1:, 0]).sum(axis=1)
+            inv_det = 1.0 / det
+            t1, t2, t3 = P[1, 0], P[2, 0], P[3, 0]
+            for i in range(3):
+                r = (bc[i] * inv_det, ca[i] * inv_det, ab[i] * inv_det)
+                out[1 + i, 1], out[1 + i, 2], out[1 + i, 3] = r
+                out[1 + i, 0] = -(r[0] * t1 + r[1] * t2 + r[2] * t3)
             return out
     moved = np.moveaxis(np.moveaxis(P, 0, -1), 0, -1)     # (…, k, k)
     return np.moveaxis(np.moveaxis(np.linalg.inv(moved), -1, 0), -1, 0)
@@ -258,8 +305,9 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
     # ---- each unit's own generator per sub-step and variant, in the model's
     # frame (no rotating frames: the transformed one-dot maps need the channel
     # of the model itself at every node)
-    gens, which_u, anorm, kdim = [], [], [], []
+    gens, which_u, anorm, kdim, unit_d = [], [], [], [], []
     for dots, upairs in units:
+        unit_d.append(sum(prep["dn"][q] for q in dots))
         pc = _frameless(eng, model, dots, upairs)
         statics, G, C, _, which, _ = eng._segment_terms(model, prep, pc, s, e, points, idx)
         gens.append((statics, G, C))
@@ -285,19 +333,59 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
         pinfo.append((j, d0, d1, ua, ub, tuple(combos), np.array(which), coef,
                       kron_terms(swapped=p.a > p.b), prep["xn"][j][s:e]))
     # ---- where each unit's generator and each pair's coefficients change
-    def changes(arr):                        # (n, columns) -> change before each sub-step
+    def changes(arr, rel=1e-12):             # (n, columns) -> change before each sub-step
         ch = np.ones(n, dtype=bool)
         if n > 1 and arr.shape[1]:
             scale = np.abs(arr).max(axis=0)
-            tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+            tol = rel * np.where(scale > 0, scale, 1.0)
             ch[1:] = np.any(np.abs(arr[1:] - arr[:-1]) > tol, axis=1)
         return ch
     unit_change = [changes(C.transpose(1, 0, 2).reshape(n, -1)) for _, _, C in gens]
-    pair_change = [changes(pi[7].transpose(2, 0, 1).reshape(n, -1)) for pi in pinfo]
-    # ---- chunks: first-order size within y*
+    # a pair's flip-flop turns at its frequency δ in the model's frame (F of
+    # sub-step k is that of k − 1 times z = e^{i2πδh} when J stays): its runs
+    # are found on the coefficients taken back by z^k, to a relative 1e-9
+    # (the phases' rounding); what the run's closed form leaves out of the
+    # actual coefficients is added to the chunk's quadrature error
+    zs = [np.exp(2j * math.pi * model.pairs[pi[0]].delta * h) for pi in pinfo]
+    dem = [_demodulated(pi[7], z) for pi, z in zip(pinfo, zs)]
+    pair_change = [changes(d.transpose(2, 0, 1).reshape(n, -1), rel=1e-9) for d in dem]
+    # a turning flip-flop's closed form (three block exponentials and a
+    # geometric sum per run) pays from ROT_RUN_MIN sub-steps on: shorter runs
+    # take nodes
+    for i, (pi, z) in enumerate(zip(pinfo, zs)):
+        if z != 1:
+            ch = unit_change[pi[3]] | unit_change[pi[4]] | pair_change[i]
+            rs = np.flatnonzero(ch)
+            rl = np.diff(np.append(rs, n))
+            pair_change[i] = pair_change[i] | np.repeat(rl < ROT_RUN_MIN, rl)
+    # ---- the rule inside a single sub-step, and the chunks: first-order
+    # size within y*.  The midpoint rule errs by at most κ·x·(a·h)²/24 per
+    # sub-step, a = ‖A_H‖ + 3‖L_D‖ of the pair's two units (module notes);
+    # it is taken when that, summed over the segment (every sub-step counted:
+    # an upper bound), fits this segment's share of the tenth of the accuracy
+    # kept for quadrature, or when the share of the chunks can be shrunk to
+    # make room for it at a lower cost (fewer nodes against more chunks);
+    # Simpson's rule otherwise
     x = sum(pi[9] for pi in pinfo)
+    kx = prep["kappa"] * x
     max_len = max(1, int(prep["tau_max"] / h)) if math.isfinite(prep["tau_max"]) else n
-    cstart = chunk_cuts(prep["kappa"] * x, prep["ystar"], max_len)
+    ystar = prep["ystar"]
+    y_seg = float(kx.sum())
+    a_mid = [(anorm[pi[3]] + anorm[pi[4]] + 2 * (unit_d[pi[3]] + unit_d[pi[4]])) * h
+             for pi in pinfo]
+    q_ub = prep["kappa"] * float(sum((pi[9] * a ** 2).sum() for pi, a in zip(pinfo, a_mid))) / 24
+    # QUAD_SHARE·eps of the run for quadrature, by this segment's share of Y
+    # (y*·Y = 1.9·eps for the chunks)
+    share = QUAD_SHARE * ystar * y_seg / 1.9
+    simpson = q_ub > share
+    cstart = chunk_cuts(kx, ystar, max_len)
+    if simpson:
+        y_mid = ystar * (1 + QUAD_SHARE / 1.9) - q_ub / y_seg
+        if y_mid > 0:
+            c_mid = chunk_cuts(kx, y_mid, max_len)
+            nodes = max(1, int(np.count_nonzero(np.any(unit_change + pair_change, axis=0))))
+            if nodes + CHUNK_COST * len(c_mid) < 2 * nodes + CHUNK_COST * len(cstart):
+                simpson, cstart = False, c_mid
     ncs = len(cstart)
     is_cstart = np.zeros(n, dtype=bool)
     is_cstart[cstart] = True
@@ -333,21 +421,22 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
     # pieces), and its long runs as (piece index, length)
     ps = [short[starts] & single for short in pair_short]
     pl = [(np.searchsorted(starts, ls), ll) for ls, ll in pair_long]
-    # ---- the rule inside a single sub-step: the midpoint rule where its error
-    # (2‖A‖h)²/24 of the sub-step's share (‖A‖ of the pair's two units),
-    # summed, stays within a tenth of the accuracy given to this treatment;
-    # Simpson's rule otherwise
+    # ---- the quadrature error of the rule taken, per chunk (module notes):
+    # midpoint κ·x·(a·h)²/24, Simpson κ·x·(2‖A‖h)⁴/2880
     clen = np.diff(np.append(cstart, n))
     kap = np.exp(prep["dnorm"] * clen * h)
-    q_mid = np.zeros(ncs)
-    q_simp = np.zeros(ncs)
-    for short, pi in zip(pair_short, pinfo):
-        a2 = 2 * (anorm[pi[3]] + anorm[pi[4]]) * h
+    q_rule = np.zeros(ncs)
+    for short, pi, am in zip(pair_short, pinfo, a_mid):
         xs = np.where(short, pi[9], 0.0)
-        q_mid += np.add.reduceat(xs * a2 ** 2 / 24, cstart) * kap
-        q_simp += np.add.reduceat(xs * a2 ** 4 / 2880, cstart) * kap
-    simpson = q_mid.sum() > 0.1 * prep["eps"]
-    q_rule = q_simp if simpson else q_mid
+        if simpson:
+            q_rule += np.add.reduceat(xs * (2 * (anorm[pi[3]] + anorm[pi[4]]) * h) ** 4 / 2880,
+                                      cstart) * kap
+        else:
+            q_rule += np.add.reduceat(xs * am ** 2 / 24, cstart) * kap
+    for (ls, ll), pi, z in zip(pair_long, pinfo, zs):
+        for st, ln in zip(ls, ll):
+            c = int(np.searchsorted(cstart, st, side="right")) - 1
+            q_rule[c] += kap[c] * max(run_deviation(co, z, h, int(st), int(ln)) for co in pi[7])
     # node pieces: single pieces that take nodes for some pair; with Simpson
     # the end of one merged into the start of the next of the same chunk
     any_ps = np.any(ps, axis=0) if ps else np.zeros(npc, dtype=bool)
@@ -371,8 +460,9 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             got = store[c] = np.zeros((m, K, K))
         return got
     last_of_chunk = np.append(np.flatnonzero(first)[1:], npc) - 1
-    pair_gens = [[pair_generator_on(terms, e3, nzs[(ua, d0)], nzs[(ub, d1)], kdim[ua], kdim[ub])
-                  for e3 in np.eye(3)] for j, d0, d1, ua, ub, _, _, _, terms, _ in pinfo]
+    pair_gens = [_pair_gens(terms, units[ua][0].index(d0), len(units[ua][0]),
+                            units[ub][0].index(d1), len(units[ub][0]))
+                 for j, d0, d1, ua, ub, _, _, _, terms, _ in pinfo]
     carry = [None] * len(units)
     # ---- pieces in blocks (memory): prefix channels, nodes, contributions
     per_piece = sum(g[0].shape[0] * k * k * 8 * (10 + 3 * 7 * sum(u == ue for ue, _ in ends))
@@ -428,15 +518,23 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
         if len(node_piece):
             for u, q in ends:
                 k = kdim[u]
-                Pn = np.empty((k, k, P[u].shape[0], len(node_piece)))
+                Pn = np.empty((P[u].shape[0], k, k, len(node_piece)))
                 for kind, src in ((0, P[u]), (1, Pm[u]), (2, Pe[u])):
                     sel = node_kind == kind
                     if sel.any():
                         Pn[..., sel] = src[:, (node_sing if kind == 1 else node_piece)[sel]
-                                           ].transpose(2, 3, 0, 1)
-                T[(u, q)] = _transformed_last(Pn, _inverse_last(Pn), nzs[(u, q)])
+                                           ].transpose(0, 2, 3, 1)
+                Pi = np.moveaxis(_inverse_last(np.moveaxis(Pn, 0, 2)), 2, 0)
+                T[(u, q)] = _transformed(Pn, Pi, nzs[(u, q)])
+        roles: dict = {}
+
+        def role_b(u, q):                  # (V, 6, nodes, k²)
+            got = roles.get((u, q))
+            if got is None:
+                got = roles[(u, q)] = np.ascontiguousarray(T[(u, q)].transpose(0, 1, 3, 2))
+            return got
         for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn), Gs, \
-                psp, (lpi, lpl) in zip(Om, pinfo, pair_gens, ps, pl):
+                psp, (lpi, lpl), z in zip(Om, pinfo, pair_gens, ps, pl, zs):
             k0, k1 = kdim[ua], kdim[ub]
             gp = b0 + node_piece
             if len(node_piece):
@@ -460,24 +558,37 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 nch = node_chunk[selp]
                 cuts = np.searchsorted(nch, np.arange(ncs + 1))
                 # Y = Σ_terms w·factor·T_b: one per distinct (dot-b variant, charge
-                # offset), shared by the combinations that differ only on dot a
+                # offset), shared by the combinations that differ only on dot a,
+                # laid out (U, 6, nodes, k1²); T_a is (V_a, 6, k0², nodes): a
+                # chunk's sum over (α, node) is one product (k0² × 6·nodes)·
+                # (6·nodes × k1²) per group of combinations
                 ykeys = {}
                 yidx = np.array([ykeys.setdefault(combos[i][1:], len(ykeys)) for i in calc])
                 ym = [int(np.argmax(yidx == u)) for u in range(len(ykeys))]
                 every = bool(selp.all())
-                tb = T[(ub, d1)][:, :, np.array([combos[calc[m]][1] for m in ym])]
-                tb = tb if every else tb[..., selp]
+                tb = role_b(ub, d1)
+                vb_of = np.array([combos[calc[m]][1] for m in ym])
+                if not np.array_equal(vb_of, np.arange(tb.shape[0])):
+                    tb = tb[vb_of]
+                tb = tb if every else tb[:, :, selp]                   # (U, 6, nodes, k1²)
                 Wy = Wn[ym]                                            # (U, 3, nodes)
-                Y = np.zeros(tb.shape)                                 # (6, k1², U, nodes)
+                Y = np.zeros(tb.shape)
+                tmp = np.empty(tb.shape[:1] + tb.shape[2:])
                 for kind, f, ia, ib in terms:
-                    Y[ia] += (f * Wy[:, kind]) * tb[ib]
+                    np.multiply((f * Wy[:, kind])[:, :, None], tb[:, ib], out=tmp)
+                    Y[:, ia] += tmp
                 va = np.array([combos[i][0] for i in calc])
-                ta_all = T[(ua, d0)] if every else T[(ua, d0)][..., selp]  # (6, k0², V_a, nodes)
+                ta_all = T[(ua, d0)]                                   # (V_a, 6, k0², nodes)
+                ta_all = ta_all if every else ta_all[..., selp]
+                groups = _pair_groups(va, yidx)
                 for c in np.unique(nch):
                     lo, hi = cuts[c], cuts[c + 1]
-                    # Σ_(node, α) vec T_a ⊗ vec Y: (M, 6, k0², k1²) summed over α
-                    ta = ta_all[:, :, va, lo:hi].transpose(2, 0, 1, 3)
-                    Z = np.matmul(ta, Y[:, :, yidx, lo:hi].transpose(2, 0, 3, 1)).sum(axis=1)
+                    w = hi - lo
+                    Z = np.empty((len(calc), k0 * k0, k1 * k1))
+                    for ms, a_sel, y_sel in groups:
+                        ta = ta_all[a_sel, :, :, lo:hi].transpose(0, 2, 1, 3)
+                        Z[ms] = np.matmul(ta.reshape(ta.shape[0], k0 * k0, 6 * w),
+                                          Y[y_sel, :, lo:hi].reshape(-1, 6 * w, k1 * k1))
                     acc(Omp, c, len(calc), k0 * k1)[...] += _kron_pair(Z, k0, k1)
             # the pair's runs of ≥ 4 equal sub-steps that start in this block:
             # the exact integral (Van Loan)
@@ -489,8 +600,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                     va, vb, _ = combos[ci]
                     A = (np.kron(Lb[ua][va][lp], np.eye(k1)) + np.kron(np.eye(k0), Lb[ub][vb][lp]))
                     cl = coef[ci][:, starts[b0 + lp]]
-                    B = sum(cl[t][:, None, None] * Gs[t] for t in range(3))
-                    I = van_loan(A, B, h * ln)
+                    I = run_integral(A, cl, Gs, z, h, ln)
                     Pr = np.einsum("kab,kcd->kacbd", P[ua][va][lp],
                                    P[ub][vb][lp]).reshape(-1, k0 * k1, k0 * k1)
                     contrib = np.linalg.solve(Pr, I @ Pr)
@@ -535,6 +645,18 @@ def _frameless(eng, model, dots, upairs):
     return got
 
 
+@functools.lru_cache(maxsize=None)
+def _pair_gens(terms, pos_a: int, ca: int, pos_b: int, cb: int) -> tuple:
+    """The pair generators of J, Re F and Im F on its two units (dot
+    ``pos_a`` of ``ca`` and ``pos_b`` of ``cb``), kept: they depend on the
+    layout alone."""
+    nza, nzb = _embedded_nonzeros(pos_a, ca), _embedded_nonzeros(pos_b, cb)
+    out = tuple(pair_generator_on(terms, e3, nza, nzb, 4 ** ca, 4 ** cb) for e3 in np.eye(3))
+    for g in out:
+        g.flags.writeable = False
+    return out
+
+
 def pair_generator_on(terms, kind_coef, nza, nzb, k0: int, k1: int) -> np.ndarray:
     """The pair generator Σ c_kind·factor·(O_a ⊗ O_b) with the one-dot maps
     embedded in their units (entries ``nza``, ``nzb``): (k0·k1)²."""
@@ -552,15 +674,49 @@ def pair_generator_on(terms, kind_coef, nza, nzb, k0: int, k1: int) -> np.ndarra
 
 def chunk_prefix(M: np.ndarray, first: np.ndarray) -> np.ndarray:
     """Ordered prefix products of the pieces (V, npc, k, k), restarting at
-    every piece marked ``first``: one product per piece in sequence (a
-    doubling scan takes log₂(npc) passes over the whole array, 1.7× slower
-    for one dot and 12× for a pair's 16 × 16 channels, measured)."""
-    out = np.empty_like(M)
-    cur = None
-    for i in range(M.shape[1]):
-        cur = M[:, i] if first[i] or cur is None else np.matmul(M[:, i], cur)
-        out[:, i] = cur
-    return out
+    every piece marked ``first``.  In blocks of b ≈ √npc pieces: the prefixes
+    inside every block at once (b batched products), the carries from block
+    to block in sequence, then one product for the pieces before a block's
+    first restart: about 2√npc numpy calls instead of npc (a doubling scan
+    takes log₂(npc) passes over the whole array: 1.7× slower than one product
+    per piece for one dot and 12× for a pair's 16 × 16 channels, measured)."""
+    V, n = M.shape[:2]
+    k = M.shape[-1]
+    if n <= 16:
+        out = np.empty_like(M)
+        cur = None
+        for i in range(n):
+            cur = M[:, i] if first[i] or cur is None else np.matmul(M[:, i], cur)
+            out[:, i] = cur
+        return out
+    b = int(math.ceil(math.sqrt(n)))
+    nb = -(-n // b)
+    pad = nb * b - n
+    Mp = M if not pad else np.concatenate([M, np.broadcast_to(np.eye(k), (V, pad, k, k))], axis=1)
+    Mp = Mp.reshape(V, nb, b, k, k)
+    fp = np.concatenate([np.asarray(first, dtype=bool), np.zeros(pad, dtype=bool)]).reshape(nb, b)
+    loc = np.empty_like(Mp)
+    cur = Mp[:, :, 0]
+    loc[:, :, 0] = cur
+    for i in range(1, b):
+        prod = np.matmul(Mp[:, :, i], cur)
+        cur = np.where(fp[:, i, None, None], Mp[:, :, i], prod) if fp[:, i].any() else prod
+        loc[:, :, i] = cur
+    # carry into block j ≥ 1: the whole prefix at the end of block j − 1
+    restart = fp.any(axis=1)
+    carry = np.empty((V, nb, k, k))
+    has = np.arange(nb) > 0
+    if nb > 1:
+        carry[:, 1] = loc[:, 0, -1]
+    for j in range(2, nb):
+        carry[:, j] = (loc[:, j - 1, -1] if restart[j - 1]
+                       else np.matmul(loc[:, j - 1, -1], carry[:, j - 1]))
+    before_restart = np.cumsum(fp, axis=1) == 0                   # (nb, b)
+    sel = before_restart & has[:, None]
+    if sel.any():
+        loc[:, sel] = np.matmul(loc[:, sel], np.broadcast_to(
+            carry[:, :, None], (V, nb, b, k, k))[:, sel])
+    return loc.reshape(V, nb * b, k, k)[:, :n]
 
 
 def _expm_runs(L: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -575,6 +731,97 @@ def _expm_runs(L: np.ndarray, t: np.ndarray) -> np.ndarray:
     first = np.flatnonzero(change)
     E = PL.expm_batch(L[:, first] * t[first][None, :, None, None])
     return E[:, np.cumsum(change) - 1]
+
+
+def _demodulated(coef: np.ndarray, z: complex) -> np.ndarray:
+    """Pair coefficients (…, 3, n) (J, Re F, Im F per sub-step) with F taken
+    back by z^k (k the sub-step from the first): constant along a run where J
+    stays and the flip-flop turns at its frequency."""
+    n = coef.shape[-1]
+    F = (coef[..., 1, :] + 1j * coef[..., 2, :]) * np.exp(-1j * np.angle(z) * np.arange(n))
+    return np.stack([coef[..., 0, :], F.real, F.imag], axis=-2)
+
+
+def run_deviation(coef: np.ndarray, z: complex, h: float, start: int, length: int) -> float:
+    """Σ 2π·h·spread(J_k − J₀, F_k − F₀z^k) over a run (coefficients (3, n)):
+    how far the run's closed form (J₀ and F₀z^k) is from the sub-steps'
+    own exchange, in the diamond norm (:func:`spread`)."""
+    c = coef[:, start:start + length]
+    k = np.arange(length)
+    F = c[1] + 1j * c[2]
+    dF = F - F[0] * np.exp(1j * np.angle(z) * k)
+    return float((2 * math.pi * h * spread(c[0] - c[0, 0], np.abs(dF))).sum())
+
+
+def conj_geometric(E: np.ndarray, Ei: np.ndarray, X: np.ndarray, z: np.ndarray,
+                   n: np.ndarray) -> np.ndarray:
+    """Σ_{k<n} z^k·Ei^k·X·E^k for stacks E, Ei = E⁻¹, X (R, K, K), z (R,) and
+    n (R,) ≥ 1, by doubling: blocks of m = 1, 2, 4, … terms, S_2m = S_m +
+    z^m·Ei^m·S_m·E^m, added at the offset a of the terms already summed
+    (about 2·log₂n products instead of n)."""
+    R, K = X.shape[0], X.shape[-1]
+    out = np.zeros(X.shape, dtype=complex)
+    Ea = np.broadcast_to(np.eye(K), (R, K, K)).astype(complex)
+    Eia = Ea.copy()
+    za = np.ones(R, dtype=complex)
+    Sm, Em, Eim, zm = X.astype(complex), E.astype(complex), Ei.astype(complex), z.astype(complex)
+    n = np.asarray(n, dtype=np.int64).copy()
+    while n.any():
+        bit = (n & 1).astype(bool)
+        if bit.any():
+            out[bit] += za[bit, None, None] * (Eia[bit] @ Sm[bit] @ Ea[bit])
+            Ea[bit] = Em[bit] @ Ea[bit]
+            Eia[bit] = Eim[bit] @ Eia[bit]
+            za[bit] = za[bit] * zm[bit]
+        n >>= 1
+        if n.any():
+            Sm = Sm + zm[:, None, None] * (Eim @ Sm @ Em)
+            Em, Eim, zm = Em @ Em, Eim @ Eim, zm * zm
+    return out
+
+
+def run_integral(A: np.ndarray, cl: np.ndarray, Gs, z: complex, h: float,
+                 ln: np.ndarray) -> np.ndarray:
+    """∫ E₀⁻¹·B·E₀ over runs of ``ln`` equal sub-steps of the units' generator
+    A (R, K, K), from the run's start, with the pair's exchange J₀ constant
+    and its flip-flop F₀z^k in sub-step k (``cl`` (3, R): J₀, Re F₀, Im F₀;
+    ``Gs`` the pair generators of J, Re F and Im F).  B_k = J₀·G_J +
+    Re(F_k·G₋), G₋ = G_Re − i·G_Im: the J part by the block exponential over
+    the whole run (Van Loan 1978), the flip-flop by the block exponential over
+    one sub-step, I₋, and the geometric sum Σ z^k·e^{−Akh}·I₋·e^{Akh}
+    (:func:`conj_geometric`)."""
+    J0 = cl[0][:, None, None] * Gs[0]
+    if z == 1:
+        return van_loan(A, J0 + cl[1][:, None, None] * Gs[1] + cl[2][:, None, None] * Gs[2],
+                        h * ln)
+    R = A.shape[0]
+    B = np.stack([J0, np.broadcast_to(Gs[1], J0.shape), np.broadcast_to(Gs[2], J0.shape)], axis=1)
+    tau = np.stack([h * ln, np.full(R, h), np.full(R, h)], axis=1).astype(float)
+    I, E = van_loan(A[:, None], B, tau, with_exp=True)
+    Ei = np.linalg.inv(E[:, 1])
+    S = conj_geometric(E[:, 1], Ei, I[:, 1] - 1j * I[:, 2], np.full(R, z), ln)
+    F0 = cl[1] + 1j * cl[2]
+    return I[:, 0] + (F0[:, None, None] * S).real
+
+
+def _pair_groups(va: np.ndarray, yi: np.ndarray) -> list:
+    """The combinations (dot-a variant ``va``, Y index ``yi``) in groups that
+    each take one batched product with one side shared (broadcast, no copy):
+    those of the most common dot-a variant, then the rest by Y index (with
+    noise one variable at a time: the centre's dot-a variant with every Y,
+    then the other dot-a variants with the centre's Y).  Returns (combination
+    indices, dot-a index, Y index) per group, each index an array or a slice
+    of one."""
+    out = []
+    vals, counts = np.unique(va, return_counts=True)
+    a_top = vals[np.argmax(counts)]
+    first = np.flatnonzero(va == a_top)
+    out.append((first, slice(int(a_top), int(a_top) + 1), yi[first]))
+    rest = np.flatnonzero(va != a_top)
+    for y in np.unique(yi[rest]):
+        ms = rest[yi[rest] == y]
+        out.append((ms, va[ms], slice(int(y), int(y) + 1)))
+    return out
 
 
 def _scaled_combos(combos, coef: np.ndarray):
