@@ -735,8 +735,32 @@ class FastEngine:
         of its own noise variables: (channels (V, k, k), point -> variant)."""
         statics, G, Cs, combos, which, theta = self._segment_terms(model, prep, pc, s, e,
                                                                    points, idx)
-        chans = self._chain(statics, G, Cs, model.h, pc, combos, theta)
+        chans = self._chain(statics, G, Cs, model.h, pc, combos, theta,
+                            self._column_floor(prep, pc, Cs.shape[-1]))
         return chans, which
+
+    @staticmethod
+    def _column_floor(prep, pc: _Pieces, T: int) -> np.ndarray:
+        """Per column of the segment's coefficients (drive I and Q per driven
+        dot, J, Re F, Im F per pair, then detuning profiles): 1e-12 of that
+        coefficient's largest value over the whole run.  Runs of equal
+        sub-steps are found to at least this (_chain_compute): a pulse's
+        decaying tail (1e-45 Hz a few hundred ns on) is no change, although
+        it is on the scale of the segment's own values."""
+        sc = prep.setdefault("scales", {})
+        floor = []
+        for q in pc.dots:
+            if q in prep["drive"]:
+                if ("d", q) not in sc:
+                    sc[("d", q)] = max(float(np.abs(a).max()) for a in prep["drive"][q])
+                floor += [sc[("d", q)]] * 2
+        for j in pc.pairs:
+            if ("p", j) not in sc:
+                sc[("p", j)] = max(float(np.abs(c).max()) for cs in prep["pairs"][j].values()
+                                   for c in cs)
+            floor += [sc[("p", j)]] * 3
+        floor += [0.0] * (T - len(floor))
+        return 1e-12 * np.array(floor[:T])
 
     def _segment_terms(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
         """The cluster's generator over sub-steps [s, e) as L_k = static_v +
@@ -814,7 +838,7 @@ class FastEngine:
             out = np.kron(out, np.eye(4) + math.sin(th) * z + (1 - math.cos(th)) * (z @ z))
         return out
 
-    def _chain(self, static, G, C, h, pc, key, theta) -> np.ndarray:
+    def _chain(self, static, G, C, h, pc, key, theta, floor=None) -> np.ndarray:
         """Ordered products over the sub-steps of exp(L_k·h), L_k = static + Σ_t C_kt·G_t,
         for a batch of variants: static (V, k, k), C (V, n, T) -> (V, k, k).
 
@@ -824,14 +848,15 @@ class FastEngine:
         rotations commute with the dissipators, the detunings and σzσz)."""
         # cache per variant, by content
         ends = None if theta is None else tuple(round(float(v[0]), 12) for v in theta.values())
-        keys = [(pc.dots, pc.pairs, kv, static[v].tobytes(), C.shape[1:], h, ends,
+        fl = None if floor is None else floor.tobytes()
+        keys = [(pc.dots, pc.pairs, kv, static[v].tobytes(), C.shape[1:], h, ends, fl,
                  hashlib.blake2b(C[v].tobytes(), digest_size=16).digest())
                 for v, kv in enumerate(key)]
         found = [self._cache.get(k) for k in keys]
         missing = [v for v, f in enumerate(found) if f is None]
         self.cache_hits += len(keys) - len(missing)
         if missing:
-            new = self._chain_compute(static[missing], G, C[missing], h, pc, theta)
+            new = self._chain_compute(static[missing], G, C[missing], h, pc, theta, floor)
             if len(self._cache) + len(missing) > self.cache_entries:
                 self._cache.clear()
             for v, m in zip(missing, new):
@@ -839,7 +864,7 @@ class FastEngine:
                 found[v] = m
         return np.stack(found)
 
-    def _chain_compute(self, static, G, C, h, pc, theta) -> np.ndarray:
+    def _chain_compute(self, static, G, C, h, pc, theta, floor=None) -> np.ndarray:
         V, n, T = C.shape
         k = static.shape[-1]
         # runs of equal rows in every variant (equal to 1e-12 of each column's
@@ -855,6 +880,8 @@ class FastEngine:
                 if cols:
                     scale[cols] = scale[cols].max()
             tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+            if floor is not None:
+                tol = np.maximum(tol, floor)
             change = np.ones(n, dtype=bool)
             change[1:] = np.any(np.abs(C[:, 1:] - C[:, :-1]) > tol, axis=(0, 2))
             starts = np.flatnonzero(change)
