@@ -259,6 +259,27 @@ def test_quiet_stretches_are_exact_where_that_is_cheap(tmp_path, long_range):
         assert a.stats["weak_exchange_chunks"] < w.stats["weak_exchange_chunks"] / 3
 
 
+def test_a_long_wait_in_an_exact_cluster_costs_a_few_exponentials(tmp_path, monkeypatch):
+    # 100 µs of idle exchange at 1 MHz keep the three dots one exact cluster; in
+    # its rotating frames every sub-step of the wait is the same, although the
+    # frame angles reach 3·10⁴ rad (rounding of about ε·ϑ once made each
+    # sub-step distinct: an exponential per sub-step).  Cut into blocks of
+    # 1024 sub-steps (a tiny COEF_BLOCK_BYTES) the channel is the same to
+    # 1e-8: each block's frame rotations round to about ε·ϑ ≈ 10⁻¹¹, composed
+    # 200 times (measured 4.6e-10; composition of channels, common practice,
+    # no source)
+    import compiler.simulate.engines.fast as fast
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 MHz"], "rot D0 x 90 deg\nwait 100 us\n"
+                                "rot D0 x 90 deg\n"))
+    pts = noise_points(model, 1)
+    a = FastEngine().average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 3 and model.k > 2 * 10 ** 5
+    assert a.stats["exponentials"] < 2000
+    monkeypatch.setattr(fast, "COEF_BLOCK_BYTES", 1)
+    b = FastEngine().average(model, pts, process=True)
+    assert np.max(np.abs(a.superop - b.superop)) < 1e-8
+
+
 def test_blocked_prefix_products_against_one_product_per_piece():
     # chunk_prefix in blocks of about √n pieces against the plain sequence of
     # products, with restarts anywhere (linear algebra, common practice, no source)

@@ -78,6 +78,7 @@ from .clusters import clusters
 
 KAPPA = 1.1                    # weak exchange: chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (weak.py)
 FLOP_RATE = 2e10               # flop/s the estimate assumes (see _check_plan)
+COEF_BLOCK_BYTES = 64 * 2 ** 20  # exact path: a segment's coefficients in blocks of this size
 QUIET_MIN = 16                 # weak exchange: quiet stretches at least this long are exact
 SLOW_NOTE_S = 20.0             # an evaluation estimated at least this long is announced (notify)
 SMALL = 16                     # exponentials up to this size by our batched Taylor series (faster here)
@@ -671,14 +672,20 @@ class FastEngine:
         """Sub-steps of [s, e) whose drive or exchange differs from the one before."""
         if e - s < 2:
             return 1
+        # as the exact path finds its runs: to 1e-12 of each coefficient's
+        # largest value (a pulse's decaying tail is no change), and a
+        # flip-flop by its modulus (the cluster's frames cancel its turn)
         change = np.zeros(e - s - 1, dtype=bool)
         for q in dots:
             if q in prep["drive"]:
+                tol = 1e-12 * max(float(np.abs(a).max()) for a in prep["drive"][q])
                 for arr in prep["drive"][q]:
-                    change |= arr[s + 1:e] != arr[s:e - 1]
+                    change |= np.abs(arr[s + 1:e] - arr[s:e - 1]) > tol
         for j in pairs:
             for J, Fr, Fi in prep["pairs"][j].values():
-                change |= (J[s + 1:e] != J[s:e - 1]) | (Fr[s + 1:e] != Fr[s:e - 1])
+                tol = 1e-12 * float(np.abs(J).max())
+                F = np.hypot(Fr[s:e], Fi[s:e])
+                change |= (np.abs(J[s + 1:e] - J[s:e - 1]) > tol) | (np.abs(F[1:] - F[:-1]) > tol)
         return 1 + int(change.sum())
 
     def _too_large(self, model, prep, got, limit: int, state_bytes: int) -> "ClusterTooLarge":
@@ -733,10 +740,20 @@ class FastEngine:
     def _segment_channels(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
         """The cluster's channel over sub-steps [s, e) for every distinct value
         of its own noise variables: (channels (V, k, k), point -> variant)."""
-        statics, G, Cs, combos, which, theta = self._segment_terms(model, prep, pc, s, e,
-                                                                   points, idx)
-        chans = self._chain(statics, G, Cs, model.h, pc, combos, theta,
-                            self._column_floor(prep, pc, Cs.shape[-1]))
+        # the coefficients (variants × sub-steps × columns, and about three
+        # temporaries of that size) in blocks of at most COEF_BLOCK_BYTES: a
+        # 500 µs wait is 10⁶ sub-steps, and whole it took gigabytes per
+        # evaluation; the blocks' channels compose (later on the left)
+        cols = 2 * len(pc.dots) + 3 * len(pc.pairs) + len(pc.dots)
+        step = max(1024, int(COEF_BLOCK_BYTES // (4 * 8 * max(1, len(idx)) * max(1, cols))))
+        chans = which = None
+        for a in range(s, e, step):
+            b = min(e, a + step)
+            statics, G, Cs, combos, which, theta = self._segment_terms(model, prep, pc, a, b,
+                                                                       points, idx)
+            got = self._chain(statics, G, Cs, model.h, pc, combos, theta,
+                              self._column_floor(prep, pc, Cs.shape[-1]))
+            chans = got if chans is None else np.matmul(got, chans)
         return chans, which
 
     @staticmethod
@@ -879,7 +896,15 @@ class FastEngine:
                 cols = [t for t in range(T) if np.array_equal(G[t], g0) or np.array_equal(G[t], g1)]
                 if cols:
                     scale[cols] = scale[cols].max()
-            tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+            rel = 1e-12
+            if theta is not None:
+                # a frame's rotation by ϑ rounds to about ε·|ϑ| of the value
+                # (the flip-flop's own phase 2πδt alike): after 500 µs at 56 MHz
+                # that is 2·10⁻¹¹, over 1e-12, and every sub-step of a wait
+                # differed (778 000 exponentials of 64 × 64)
+                big = max(float(np.abs(v).max()) for v in theta.values()) if theta else 0.0
+                rel = max(rel, 16 * np.finfo(float).eps * 2 * big)
+            tol = rel * np.where(scale > 0, scale, 1.0)
             if floor is not None:
                 tol = np.maximum(tol, floor)
             change = np.ones(n, dtype=bool)
