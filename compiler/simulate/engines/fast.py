@@ -399,11 +399,7 @@ class FastEngine:
             # equal to 1e-12 of the largest value, as the exact path's runs
             # (_chain_compute): a pulse's tail of 1e-45 Hz is a quiet sub-step
             ch = np.zeros(K, dtype=bool)
-            drive = prep["drive"].get(q, ())
-            if drive:
-                tol = 1e-12 * max(float(np.abs(arr).max()) for arr in drive)
-                for arr in drive:
-                    ch[1:] |= np.abs(arr[1:] - arr[:-1]) > tol
+            ch[1:] = self._drive_changes(prep, q, 0, K)
             for pt in pts:
                 d = model.detuning_profile(q, pt.modes) if pt.modes else None
                 if d is not None:
@@ -413,10 +409,7 @@ class FastEngine:
         for j, w in enumerate(weak):
             p = model.pairs[j]
             st = same[p.a] & same[p.b]
-            for J, Fr, Fi in prep["pairs"][j].values():
-                tol = 1e-12 * float(np.abs(J).max())
-                F = np.hypot(Fr, Fi)
-                st[1:] &= (np.abs(J[1:] - J[:-1]) <= tol) & (np.abs(F[1:] - F[:-1]) <= tol)
+            st[1:] &= ~self._pair_changes(prep, j, 0, K)
             st[0] = False
             # runs of equal sub-steps: the first (where it changed) and the rest
             start = np.flatnonzero(~st)
@@ -677,16 +670,43 @@ class FastEngine:
         # flip-flop by its modulus (the cluster's frames cancel its turn)
         change = np.zeros(e - s - 1, dtype=bool)
         for q in dots:
-            if q in prep["drive"]:
-                tol = 1e-12 * max(float(np.abs(a).max()) for a in prep["drive"][q])
-                for arr in prep["drive"][q]:
-                    change |= np.abs(arr[s + 1:e] - arr[s:e - 1]) > tol
+            change |= self._drive_changes(prep, q, s, e)
         for j in pairs:
-            for J, Fr, Fi in prep["pairs"][j].values():
-                tol = 1e-12 * float(np.abs(J).max())
-                F = np.hypot(Fr[s:e], Fi[s:e])
-                change |= (np.abs(J[s + 1:e] - J[s:e - 1]) > tol) | (np.abs(F[1:] - F[:-1]) > tol)
+            change |= self._pair_changes(prep, j, s, e)
         return 1 + int(change.sum())
+
+    @staticmethod
+    def _scale(prep, key) -> float:
+        """Largest |value| over the whole run of a dot's drive (("d", dot)) or
+        of a pair's exchange (("p", pair): J at every charge offset, which
+        bounds |F|), kept in ``prep``."""
+        sc = prep.setdefault("scales", {})
+        if key not in sc:
+            kind, i = key
+            arrs = prep["drive"].get(i, ()) if kind == "d" else \
+                [c[0] for c in prep["pairs"][i].values()]
+            sc[key] = max((float(np.abs(a).max()) for a in arrs), default=0.0)
+        return sc[key]
+
+    def _drive_changes(self, prep, q: int, s: int, e: int) -> np.ndarray:
+        """Sub-steps s+1 … e−1 whose drive on dot q differs from the one
+        before by more than 1e-12 of its largest value over the run (a
+        pulse's decaying tail is no change), as the exact path finds runs."""
+        change = np.zeros(max(e - s - 1, 0), dtype=bool)
+        tol = 1e-12 * self._scale(prep, ("d", q))
+        for arr in prep["drive"].get(q, ()):
+            change |= np.abs(arr[s + 1:e] - arr[s:e - 1]) > tol
+        return change
+
+    def _pair_changes(self, prep, j: int, s: int, e: int) -> np.ndarray:
+        """The same for pair j's J and |F| at every charge offset (a flip-flop
+        by its modulus: the exact cluster's frames cancel its turn)."""
+        change = np.zeros(max(e - s - 1, 0), dtype=bool)
+        tol = 1e-12 * self._scale(prep, ("p", j))
+        for J, Fr, Fi in prep["pairs"][j].values():
+            F = np.hypot(Fr[s:e], Fi[s:e])
+            change |= (np.abs(J[s + 1:e] - J[s:e - 1]) > tol) | (np.abs(F[1:] - F[:-1]) > tol)
+        return change
 
     def _too_large(self, model, prep, got, limit: int, state_bytes: int) -> "ClusterTooLarge":
         pairs = []
@@ -764,18 +784,12 @@ class FastEngine:
         sub-steps are found to at least this (_chain_compute): a pulse's
         decaying tail (1e-45 Hz a few hundred ns on) is no change, although
         it is on the scale of the segment's own values."""
-        sc = prep.setdefault("scales", {})
         floor = []
         for q in pc.dots:
             if q in prep["drive"]:
-                if ("d", q) not in sc:
-                    sc[("d", q)] = max(float(np.abs(a).max()) for a in prep["drive"][q])
-                floor += [sc[("d", q)]] * 2
+                floor += [FastEngine._scale(prep, ("d", q))] * 2
         for j in pc.pairs:
-            if ("p", j) not in sc:
-                sc[("p", j)] = max(float(np.abs(c).max()) for cs in prep["pairs"][j].values()
-                                   for c in cs)
-            floor += [sc[("p", j)]] * 3
+            floor += [FastEngine._scale(prep, ("p", j))] * 3
         floor += [0.0] * (T - len(floor))
         return 1e-12 * np.array(floor[:T])
 
