@@ -259,6 +259,33 @@ def test_quiet_stretches_are_exact_where_that_is_cheap(tmp_path, long_range):
         assert a.stats["weak_exchange_chunks"] < w.stats["weak_exchange_chunks"] / 3
 
 
+def test_small_channels_after_a_large_pending_one_are_applied_not_multiplied_in(
+        tmp_path, monkeypatch):
+    # the cost rule of the pending channels (fast._fuses): multiplying a k × k
+    # channel into a pending K × K one costs K³ per point, applying it by
+    # itself 4ⁿ·B·k (common practice, no source: operation counts)
+    from compiler.simulate.engines import fast as FE
+    assert FE._fuses(4, 4, 3, 64) and FE._fuses(16, 4, 3, 64)
+    assert not FE._fuses(64, 4, 3, 64) and not FE._fuses(64, 16, 3, 64)
+    assert FE._fuses(64, 64, 3, 64)           # the process on a full-register cluster
+    assert not FE._fuses(64, 64, 3, 1)        # a state: applied, never a 64³ product
+    assert FE._fuses(4, 4, 12, 1)             # an idle dot of a long line: one pending channel
+    # the echo of the test above at 1 kHz: the three-dot waits are followed by
+    # the weak pairs' one- and two-dot channels, now applied after the wait
+    # instead of multiplied into it; the same superoperator to rounding
+    body = "rot D0 x 90 deg\nwait 300 ns\nrot D0 x 180 deg\nwait 300 ns\nrot D0 x 90 deg\n"
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], body))
+    pts = noise_points(model, 1)
+    a = FastEngine()
+    ra = a.average(model, pts, process=True)
+    monkeypatch.setattr(FE, "_fuses", lambda K, k, n, cols: True)
+    b = FastEngine()
+    rb = b.average(model, pts, process=True)
+    assert ra.stats["largest_cluster"] == 3
+    assert a.applications > b.applications and a.fusions < b.fusions
+    assert np.max(np.abs(ra.superop - rb.superop)) < 1e-12
+
+
 def test_a_long_wait_in_an_exact_cluster_costs_a_few_exponentials(tmp_path, monkeypatch):
     # 100 µs of idle exchange at 1 MHz keep the three dots one exact cluster; in
     # its rotating frames every sub-step of the wait is the same, although the

@@ -15,7 +15,9 @@ W4  four dots in a line with a long-range D0-D2 coupling, 60 steps, no
     quadrature.  Work: final state fidelity.
 Weak exchange  three dots on one line, idle barriers at 1 mHz … 1 kHz against
     fully closed: three π bursts (key weak_exchange_ratio) and a 2.4 µs Hahn
-    echo (key weak_exchange_echo_ratio), each against the exact treatment.
+    echo (key weak_exchange_echo_ratio), each against the exact treatment;
+    and both as the whole `dotseq simulate` command, closed against 1 kHz
+    (keys weak_exchange_command_ratio, weak_exchange_echo_command_ratio).
 Scaling  the W4 pattern on a line of N = 4 … 12 dots, 100 steps, state
     evolution only, each N in a fresh process: seconds of the evolution and
     the process's peak resident memory.  At N = 12 one channel application
@@ -239,6 +241,51 @@ def bench_weak_exchange_echo(folder: Path, repeats: int = 7) -> dict:
                                ("closed", "1 Hz", "1 kHz"))
 
 
+def bench_weak_exchange_command(folder: Path, repeats: int = 3) -> dict:
+    """What a user waits for: the whole ``dotseq simulate`` command (start-up,
+    compilation, the whole-run evaluation, per-step fidelities, the 15
+    evaluations of the error budget on two threads, the report and its
+    figures) on the two weak-exchange workloads, closed barriers against
+    1 kHz idle exchange, in fresh processes, interleaved; medians of the
+    wall time and of the child's CPU time (keys weak_exchange_command_ratio
+    and weak_exchange_echo_command_ratio, CPU over closed)."""
+    idles = {"closed": "-600 mV", "1 kHz": "-238 mV"}
+    seqs = {}
+    for body, key in ((THREE_PI, "weak_exchange"), (ECHO, "weak_exchange_echo")):
+        for label, idle in idles.items():
+            seq = write_case(folder / f"cmd_{key}_{label.replace(' ', '')}", 3, 3,
+                             long_range=False, charge_noise="10 uV")
+            dev = seq.parent / "device.yaml"
+            dev.write_text(dev.read_text().replace("idle_voltage: -600 mV",
+                                                   f"idle_voltage: {idle}"))
+            seq.write_text('device "device.yaml"\nprepare D0 D1 D2 down\n' + body
+                           + 'read D0 D1 D2\n')
+            seqs[(key, label)] = seq
+    cpu: dict = {k: [] for k in seqs}
+    wall: dict = {k: [] for k in seqs}
+    for r in range(repeats):
+        for (key, label), seq in seqs.items():
+            out = seq.parent / f"report{r}"
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
+            t = time.perf_counter()
+            subprocess.run([sys.executable, "-m", "compiler", "simulate", str(seq), "-o", str(out)],
+                           check=True, capture_output=True, cwd=str(HERE.parents[1]))
+            wall[(key, label)].append(time.perf_counter() - t)
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            cpu[(key, label)].append(after.ru_utime + after.ru_stime
+                                     - before.ru_utime - before.ru_stime)
+    out = {}
+    for key in ("weak_exchange", "weak_exchange_echo"):
+        c0, c1 = (statistics.median(cpu[(key, lb)]) for lb in idles)
+        w0, w1 = (statistics.median(wall[(key, lb)]) for lb in idles)
+        print(f"{key} whole command: closed {w0:.1f} s wall ({c0:.1f} s CPU), 1 kHz {w1:.1f} s "
+              f"wall ({c1:.1f} s CPU): {c1 / c0:.2f}x CPU, {w1 / w0:.2f}x wall", flush=True)
+        out[f"{key}_command_ratio"] = c1 / c0
+        out[f"{key}_command_wall_ratio"] = w1 / w0
+        out[f"{key}_command_s"] = {"closed": w0, "1 kHz": w1}
+    return out
+
+
 def one_size(n: int, steps: int, folder: str) -> dict:
     """Run in a fresh process: compile, then time the state evolution alone."""
     from compiler.simulate.engines.fast import _apply
@@ -331,6 +378,7 @@ def main() -> None:
         with tempfile.TemporaryDirectory() as tmp:
             out = bench_weak_exchange(Path(tmp))
             out.update(bench_weak_exchange_echo(Path(tmp)))
+            out.update(bench_weak_exchange_command(Path(tmp)))
         print(json.dumps({k: (float(f"{v:.6g}") if isinstance(v, float) else v)
                           for k, v in out.items()}))
         return
@@ -342,6 +390,7 @@ def main() -> None:
         out.update(bench_w4(folder, quick))
         out.update(bench_weak_exchange(folder))
         out.update(bench_weak_exchange_echo(folder))
+        out.update(bench_weak_exchange_command(folder))
         sizes = (4, 6, 8) if quick else (4, 6, 8, 10, 12)
         rows = bench_scaling(folder, sizes, 100)
     big = rows[-1]
