@@ -227,3 +227,29 @@ def test_budget_keeps_one_quadrature_rule(tmp_path):
     r = simulate(compile(c), SimOptions(nodes=5, steps=False))
     line = next(b for b in r.runs[0].budget if b.source.startswith("charge"))
     assert abs(line.infidelity) < 1e-5
+
+
+def test_cluster_pieces_are_shared_between_engines_within_a_memory_cap(tmp_path, monkeypatch):
+    # the generator pieces of a cluster are kept per process (fast._PIECES),
+    # read-only, and never more than PIECES_BYTES of them (common practice,
+    # no source)
+    from compiler.simulate.engines import fast as FE
+    seq = write_case(tmp_path, 3, 4, long_range=False)
+    c, model = _model(seq)
+    monkeypatch.setattr(FE, "_PIECES", {})
+    monkeypatch.setattr(FE, "_PIECES_BYTES", [0])
+    a = FastEngine()._cluster_pieces(model, (0, 1, 2), (0, 1))
+    assert FastEngine()._cluster_pieces(model, (0, 1, 2), (0, 1)) is a
+    assert not a.base.flags.writeable and not a.pair[0][1].flags.writeable
+    one = FastEngine()._cluster_pieces(model, (0,), ())
+    assert len(FE._PIECES) == 2
+    # a cap below one three-dot cluster's pieces: those are not kept, a dot's are
+    monkeypatch.setattr(FE, "PIECES_BYTES", 2 ** 16)
+    FE._PIECES.clear()
+    FE._PIECES_BYTES[0] = 0
+    b = FastEngine()._cluster_pieces(model, (0, 1, 2), (0, 1))
+    assert b is not a and len(FE._PIECES) == 0
+    FastEngine()._cluster_pieces(model, (0,), ())
+    assert len(FE._PIECES) == 1 and 0 < FE._PIECES_BYTES[0] <= 2 ** 16
+    assert np.array_equal(b.base, a.base) and np.array_equal(one.base, FE._PIECES[
+        next(iter(FE._PIECES))].base)

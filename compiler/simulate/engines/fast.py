@@ -125,9 +125,13 @@ class _Pieces:
 # clusters' generator pieces by what they are built from (the dots, their
 # dissipators, the pairs and their Zeeman differences): shared by every
 # engine of the process (a report's evaluations, a sweep's points), so a
-# three-dot cluster's 64 × 64 pieces (about 25 ms) are built once
+# three-dot cluster's 64 × 64 pieces (about 25 ms) are built once; at most
+# PIECES_KEPT clusters and PIECES_BYTES of arrays (a five-dot cluster's
+# pieces are about 200 MB: not kept), emptied when full
 _PIECES: dict = {}
+_PIECES_BYTES = [0]
 PIECES_KEPT = 256
+PIECES_BYTES = 128 * 2 ** 20
 
 
 def _rotation_sign(G1: np.ndarray, G2: np.ndarray, Z: np.ndarray) -> float:
@@ -563,12 +567,17 @@ class FastEngine:
                         todo.append(p.a)
         zone = PL.hamiltonian_generator(_Z / 2) / (2 * math.pi)
         got = _Pieces(dots, pairs, drive, det, pr, base, zrot, s_drive, s_pair, w, zone)
-        for a in [*(g for v in drive.values() for g in v), *det.values(), *zrot.values(),
-                  *(g for v in pr.values() for g in v), base, zone]:
+        arrays = [*(g for v in drive.values() for g in v), *det.values(), *zrot.values(),
+                  *(g for v in pr.values() for g in v), base, zone]
+        for a in arrays:
             a.flags.writeable = False          # shared by every engine (_PIECES)
-        if len(_PIECES) >= PIECES_KEPT:
+        size = sum(a.nbytes for a in arrays)
+        if len(_PIECES) >= PIECES_KEPT or _PIECES_BYTES[0] + size > PIECES_BYTES:
             _PIECES.clear()
-        _PIECES[key] = got
+            _PIECES_BYTES[0] = 0
+        if size <= PIECES_BYTES:
+            _PIECES[key] = got
+            _PIECES_BYTES[0] += size
         return got
 
     # -------------------------------------------------------------- plan
