@@ -161,6 +161,22 @@ ECHO = ("rot D0 x 90 deg\nwait 1 us\nrot D0 x 180 deg\nrot D1 x 180 deg\nwait 1 
         "rot D0 x 90 deg\n")
 
 
+# idle barrier voltages of the weak-exchange line (J = 150 MHz·e^{V/20 mV},
+# invented device): the idle exchange each gives
+WEAK_IDLES = {"closed": "-600 mV", "1 mHz": "-514 mV", "45 mHz": "-438 mV", "1 Hz": "-376 mV",
+              "1 kHz": "-238 mV"}
+
+
+def weak_case(folder: Path, idle: str, body: str) -> Path:
+    """Three dots on one line (charge noise 10 µV) with the barriers idling at
+    ``idle`` and the steps ``body``; returns the sequence path."""
+    seq = write_case(folder, 3, 3, long_range=False, charge_noise="10 uV")
+    dev = seq.parent / "device.yaml"
+    dev.write_text(dev.read_text().replace("idle_voltage: -600 mV", f"idle_voltage: {idle}"))
+    seq.write_text('device "device.yaml"\nprepare D0 D1 D2 down\n' + body + 'read D0 D1 D2\n')
+    return seq
+
+
 def bench_weak_exchange(folder: Path, repeats: int = 11, body: str = THREE_PI,
                         key: str = "weak_exchange", labels=None) -> dict:
     """Three dots on one line, whole-run process with quadrature (``body``:
@@ -170,19 +186,13 @@ def bench_weak_exchange(folder: Path, repeats: int = 11, body: str = THREE_PI,
     error against the exact treatment (exchange kept on:
     FastEngine(exchange_budget=0)) with the engine's stated bound."""
     from compiler.simulate.engines import FastEngine
-    idles = {"closed": "-600 mV", "1 mHz": "-514 mV", "45 mHz": "-438 mV", "1 Hz": "-376 mV",
-             "1 kHz": "-238 mV"}
+    idles = WEAK_IDLES
     if labels is not None:
         idles = {k: v for k, v in idles.items() if k in labels}
     times, fids, notes, errs, bounds = {}, {}, {}, {}, {}
     cases = {}
     for label, idle in idles.items():
-        seq = write_case(folder / f"{key}_{label.replace(' ', '')}", 3, 3, long_range=False,
-                         charge_noise="10 uV")
-        dev = seq.parent / "device.yaml"
-        dev.write_text(dev.read_text().replace("idle_voltage: -600 mV", f"idle_voltage: {idle}"))
-        seq.write_text('device "device.yaml"\nprepare D0 D1 D2 down\n' + body + 'read D0 D1 D2\n')
-        cases[label] = prepared(seq, 5)
+        cases[label] = prepared(weak_case(folder / f"{key}_{label.replace(' ', '')}", idle, body), 5)
     # interleaved repeats (the machine's load moves the same way for every case);
     # the median of each case
     # the cost is the process's CPU time (one thread: the engine runs under
@@ -249,18 +259,10 @@ def bench_weak_exchange_command(folder: Path, repeats: int = 3) -> dict:
     1 kHz idle exchange, in fresh processes, interleaved; medians of the
     wall time and of the child's CPU time (keys weak_exchange_command_ratio
     and weak_exchange_echo_command_ratio, CPU over closed)."""
-    idles = {"closed": "-600 mV", "1 kHz": "-238 mV"}
-    seqs = {}
-    for body, key in ((THREE_PI, "weak_exchange"), (ECHO, "weak_exchange_echo")):
-        for label, idle in idles.items():
-            seq = write_case(folder / f"cmd_{key}_{label.replace(' ', '')}", 3, 3,
-                             long_range=False, charge_noise="10 uV")
-            dev = seq.parent / "device.yaml"
-            dev.write_text(dev.read_text().replace("idle_voltage: -600 mV",
-                                                   f"idle_voltage: {idle}"))
-            seq.write_text('device "device.yaml"\nprepare D0 D1 D2 down\n' + body
-                           + 'read D0 D1 D2\n')
-            seqs[(key, label)] = seq
+    idles = {k: WEAK_IDLES[k] for k in ("closed", "1 kHz")}
+    seqs = {(key, label): weak_case(folder / f"cmd_{key}_{label.replace(' ', '')}", idle, body)
+            for body, key in ((THREE_PI, "weak_exchange"), (ECHO, "weak_exchange_echo"))
+            for label, idle in idles.items()}
     cpu: dict = {k: [] for k in seqs}
     wall: dict = {k: [] for k in seqs}
     for r in range(repeats):

@@ -1018,9 +1018,6 @@ class FastEngine:
 
         cols = state.shape[2]
 
-        def fuses(K, k):
-            return _fuses(K, k, n, cols)
-
         def push(dots, M):
             cset = frozenset(dots)
             groups = {owner[q] for q in dots if q in owner}
@@ -1028,14 +1025,14 @@ class FastEngine:
                 (g,) = groups
                 if cset <= g:
                     gd, gm = pending[g]
-                    if fuses(gm.shape[-1], M.shape[-1]):
+                    if _fuses(gm.shape[-1], M.shape[-1], n, cols):
                         pending[g] = (gd, np.matmul(_embed(M, dots, gd), gm))
                         self.fusions += 1
                         return
                     flush(g)
                     groups = set()
             for g in groups:
-                if not g <= cset or not fuses(M.shape[-1], pending[g][1].shape[-1]):
+                if not g <= cset or not _fuses(M.shape[-1], pending[g][1].shape[-1], n, cols):
                     flush(g)
             new = M
             for g in [g for g in groups if g in pending]:
