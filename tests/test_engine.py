@@ -253,3 +253,75 @@ def test_cluster_pieces_are_shared_between_engines_within_a_memory_cap(tmp_path,
     assert len(FE._PIECES) == 1 and 0 < FE._PIECES_BYTES[0] <= 2 ** 16
     assert np.array_equal(b.base, a.base) and np.array_equal(one.base, FE._PIECES[
         next(iter(FE._PIECES))].base)
+
+
+# ------------------------------------------------------------------ reused evaluations
+
+def test_content_digest_follows_content():
+    # equal content, equal digest; any changed byte, field or type, another;
+    # content of an unknown kind: no digest (nothing is reused)
+    from compiler.simulate.engines.memo import content_digest
+    from compiler.simulate.model import Dissipator
+    a = np.arange(12.0).reshape(3, 4)
+    d = Dissipator("t1", 0, "lower", 5e3)
+    k = content_digest(a, (d, {"x": 1.0}), [1, 2])
+    assert k == content_digest(a.copy(), (Dissipator("t1", 0, "lower", 5e3), {"x": 1.0}), [1, 2])
+    b = a.copy()
+    b[2, 3] = np.nextafter(b[2, 3], 20.0)                  # one bit of one entry
+    assert content_digest(b, (d, {"x": 1.0}), [1, 2]) != k
+    assert content_digest(a.reshape(4, 3), (d, {"x": 1.0}), [1, 2]) != k
+    assert content_digest(a.astype(np.float32), (d, {"x": 1.0}), [1, 2]) != k
+    assert content_digest(a, (Dissipator("t1", 0, "lower", 5.0001e3), {"x": 1.0}), [1, 2]) != k
+    assert content_digest(a, (d, {"x": 1}), [1, 2]) != k               # int, not float
+    assert content_digest(a, (d, {"x": 1.0}), (1, 2)) != k             # tuple, not list
+    assert content_digest(a, object()) is None
+
+
+def test_a_repeated_evaluation_is_reused_as_a_copy(tmp_path):
+    # the same model, points and options on one engine: computed once, the
+    # second answer equal and independent of the first; another rate, another
+    # setting or another engine computes afresh (common practice, no source)
+    import dataclasses
+    seq = write_case(tmp_path, 2, 4, charge_noise="10 uV")
+    c, model = _model(seq)
+    pts = noise_points(model, 3)
+    rho0 = _rand_rho(np.random.default_rng(5), 4)
+    eng = FastEngine()
+    a = eng.average(model, pts, process=True, rho0=rho0)
+    n_exp = eng.exponentials
+    b = eng.average(model, pts, process=True, rho0=rho0)
+    assert eng.exponentials == n_exp and eng.stats()["reused_evaluations"] == 1
+    assert b.stats["reused"] and b.stats["exponentials"] == 0
+    assert np.array_equal(a.superop, b.superop) and np.array_equal(a.rho, b.rho)
+    b.superop[:] = 0.0                                      # the kept result is a copy
+    assert np.array_equal(eng.average(model, pts, process=True, rho0=rho0).superop, a.superop)
+    slower = dataclasses.replace(model, dissipators=tuple(
+        dataclasses.replace(d, rate=d.rate * 1.01) for d in model.dissipators))
+    eng.average(slower, pts, process=True, rho0=rho0)
+    eng.average(model, pts[:-1], process=True, rho0=rho0)
+    eng.average(model, pts, process=True)
+    eng.exchange_accuracy = 2e-6
+    eng.average(model, pts, process=True, rho0=rho0)
+    assert eng.stats()["reused_evaluations"] == 2 and eng.calls == 5
+
+
+def test_the_budget_with_reused_evaluations_equals_the_budget_computed_afresh(tmp_path,
+                                                                                monkeypatch):
+    # sources that do not act on the run leave the total's model: their
+    # evaluations are reused, and every number of the report is the same as
+    # with nothing kept (common practice, no source)
+    from compiler.simulate import SimOptions, simulate
+    from compiler.simulate.engines import memo
+    seq = write_case(tmp_path, 3, 4, charge_noise="10 uV", long_range=False)
+    c = load(seq)
+    opts = SimOptions(nodes=3, steps=False, threads=1)
+    kept = simulate(compile(c), opts)
+    monkeypatch.setattr(memo, "MEMO_BYTES", 0)
+    fresh = simulate(compile(c), opts)
+    assert kept.stats["reused_evaluations"] > 0 and fresh.stats["reused_evaluations"] == 0
+    assert kept.stats["solver_calls"] < fresh.stats["solver_calls"]
+    ra, rb = kept.runs[0], fresh.runs[0]
+    assert [(x.source, x.infidelity) for x in ra.budget] == [(x.source, x.infidelity)
+                                                             for x in rb.budget]
+    assert (ra.average_fidelity, ra.state_fidelity, ra.budget_floor, ra.budget_remainder) == (
+        rb.average_fidelity, rb.state_fidelity, rb.budget_floor, rb.budget_remainder)

@@ -494,6 +494,10 @@ def test_the_weak_treatment_is_in_the_estimate_and_announced(tmp_path, monkeypat
     assert est["weak_flops"] > 0 and est["flops"] == est["weak_flops"] and said == []
     monkeypatch.setattr(fast, "SLOW_NOTE_S", 0.0)
     eng.average(model, noise_points(model, 3), process=True)
+    assert said == []               # the same evaluation again is reused: nothing to announce
+    eng = FastEngine()
+    eng.notify = said.append
+    eng.average(model, noise_points(model, 3), process=True)
     assert len(said) == 1
     assert "noise points each take the weak-exchange treatment" in said[0]
     assert "--exchange-accuracy" in said[0]
@@ -520,6 +524,8 @@ def test_a_slow_evaluation_is_announced_with_its_cluster(tmp_path, monkeypatch):
     eng.average(model, noise_points(model, 1), process=True)
     assert said == []                                       # estimated well under 20 s
     monkeypatch.setattr(fast, "SLOW_NOTE_S", 0.0)
+    eng = FastEngine()                  # a new engine: the same one would reuse its result
+    eng.notify = said.append
     eng.average(model, noise_points(model, 1), process=True)
     assert len(said) == 1
     for part in ("slow: one evaluation will take roughly", "dots D0, D1, D2 form one exact "
@@ -545,3 +551,32 @@ def test_the_spread_bounds_the_commutator_in_the_diamond_norm():
             rho = A + A.conj().T
             lhs = np.abs(np.linalg.eigvalsh(big @ rho - rho @ big)).sum()
             assert lhs <= (ev[-1] - ev[0]) * np.abs(np.linalg.eigvalsh(rho)).sum() + 1e-12
+
+
+def test_variants_of_one_detuning_share_their_coefficients(tmp_path, monkeypatch):
+    # an echo at 1 kHz (three-dot exact waits, weak bursts) over one dot's T2*
+    # points: the variants differ only in the static detuning, so the sub-steps'
+    # coefficients are built, compared and hashed once; the channels are those
+    # of one array per variant, bit for bit (common practice, no source)
+    from compiler.simulate.engines import fast as FE
+    body = "rot D0 x 90 deg\nwait 300 ns\nrot D0 x 180 deg\nwait 300 ns\nrot D0 x 90 deg\n"
+    c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], body))
+    pts = [p for p in noise_points(model, 5) if p.detuning[0] != 0.0]
+    assert len(pts) == 4 and all(not any(p.dv) for p in pts)
+    orig = FE.FastEngine._segment_terms_shared
+    shapes = []
+
+    def spy(self, *a):
+        got = orig(self, *a)
+        shapes.append((got[0].shape[0], got[2].shape[0]))
+        return got
+    monkeypatch.setattr(FE.FastEngine, "_segment_terms_shared", spy)
+    shared = FastEngine().average(model, pts, process=True)
+    assert (4, 1) in shapes and shared.stats["largest_cluster"] == 3
+
+    def one_each(self, *a):
+        st, G, C, cmap, combos, which, theta = orig(self, *a)
+        return st, G, C[cmap], np.arange(len(cmap)), combos, which, theta
+    monkeypatch.setattr(FE.FastEngine, "_segment_terms_shared", one_each)
+    each = FastEngine().average(model, pts, process=True)
+    assert np.array_equal(shared.superop, each.superop)

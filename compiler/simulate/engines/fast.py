@@ -67,6 +67,7 @@ from __future__ import annotations
 import hashlib
 import math
 import time
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -75,6 +76,7 @@ from ...pulses import ordered_product
 from ...threads import one_thread
 from ..model import Model, NoisePoint, dot_operator
 from ..types import Evolution
+from . import memo
 from . import pauli as PL
 from . import weak as weak_mod
 from .clusters import clusters
@@ -197,6 +199,8 @@ class FastEngine:
         self._weak_rules_now = set()
         self._estimate_now = {}
         self._cache: dict = {}
+        self._memo = memo.Memo()
+        self.reused = 0
 
     # -------------------------------------------------------------- public
 
@@ -204,6 +208,7 @@ class FastEngine:
         return {"solver_calls": self.calls, "exponentials": self.exponentials,
                 "cache_hits": self.cache_hits, "channel_applications": self.applications,
                 "channel_fusions": self.fusions, "largest_cluster": self.largest_cluster,
+                "reused_evaluations": self.reused,
                 "neglected_exchange_rad": self.neglected_exchange_rad,
                 "weak_exchange_bound": self.weak_exchange_bound,
                 # the largest of the evaluations' own sums (the sum of the two
@@ -221,7 +226,40 @@ class FastEngine:
         process (the weights sum to one), with populations against time for
         the first point.  ``pauli0`` (Pauli coefficients, shape (4**n,)) may
         replace ``rho0`` for registers too large for a dense density matrix;
-        the result then holds only ``pauli``."""
+        the result then holds only ``pauli``.
+
+        An evaluation of the same content as an earlier one of this engine
+        (model, points, initial state, options, the engine's settings) is
+        handed out again as a copy (:mod:`.memo`; statistic
+        ``reused_evaluations``)."""
+        key = memo.content_digest("fast", model, list(points), rho0, process, trace_points,
+                                  pauli0, self._settings())
+        got = self._memo.get(key)
+        if got is not None:
+            return self._reused(got)
+        ev = self._average(model, points, rho0=rho0, process=process,
+                           trace_points=trace_points, pauli0=pauli0)
+        self._memo.put(key, ev)
+        return ev
+
+    def _settings(self) -> tuple:
+        """What an evaluation depends on besides its arguments (the memo's key)."""
+        return (self.exchange_accuracy, self.exchange_budget, self.weak_exchange,
+                self.quiet_exact, self.memory_limit, self.max_batch_bytes)
+
+    def _reused(self, ev: Evolution) -> Evolution:
+        """A kept evaluation again: no work done, so its counters are zero."""
+        self.reused += 1
+        st = dict(ev.stats)
+        for k in ("solver_calls", "exponentials", "cache_hits", "channel_applications",
+                  "channel_fusions"):
+            if k in st:
+                st[k] = 0
+        st["reused"] = True
+        st["wall_s"] = 0.0
+        return dataclasses.replace(ev, stats=st)
+
+    def _average(self, model: Model, points, *, rho0, process, trace_points, pauli0):
         if any(lv != 2 for lv in model.levels):
             return self._levels_average(model, points, rho0=rho0, process=process,
                                         trace_points=trace_points, pauli0=pauli0)
@@ -411,7 +449,7 @@ class FastEngine:
         pts = prep["points"]
         for q in range(model.n):
             # equal to 1e-12 of the largest value, as the exact path's runs
-            # (_chain_compute): a pulse's tail of 1e-45 Hz is a quiet sub-step
+            # (_run_starts): a pulse's tail of 1e-45 Hz is a quiet sub-step
             ch = np.zeros(K, dtype=bool)
             ch[1:] = self._drive_changes(prep, q, 0, K)
             for pt in pts:
@@ -793,10 +831,10 @@ class FastEngine:
         chans = which = None
         for a in range(s, e, step):
             b = min(e, a + step)
-            statics, G, Cs, combos, which, theta = self._segment_terms(model, prep, pc, a, b,
-                                                                       points, idx)
+            statics, G, Cs, cmap, combos, which, theta = self._segment_terms_shared(
+                model, prep, pc, a, b, points, idx)
             got = self._chain(statics, G, Cs, model.h, pc, combos, theta,
-                              self._column_floor(prep, pc, Cs.shape[-1]))
+                              self._column_floor(prep, pc, Cs.shape[-1]), cmap=cmap)
             chans = got if chans is None else np.matmul(got, chans)
         return chans, which
 
@@ -805,7 +843,7 @@ class FastEngine:
         """Per column of the segment's coefficients (drive I and Q per driven
         dot, J, Re F, Im F per pair, then detuning profiles): 1e-12 of that
         coefficient's largest value over the whole run.  Runs of equal
-        sub-steps are found to at least this (_chain_compute): a pulse's
+        sub-steps are found to at least this (_run_starts): a pulse's
         decaying tail (1e-45 Hz a few hundred ns on) is no change, although
         it is on the scale of the segment's own values."""
         floor = []
@@ -822,7 +860,17 @@ class FastEngine:
         Σ_t C_vkt·G_t for every distinct value v of its own noise variables:
         (statics (V, k, k), G (T, k, k), C (V, e − s, T), variant keys,
         point -> variant, frame angles or None)."""
-        h = model.h
+        statics, G, Cu, cmap, combos, which, theta = self._segment_terms_shared(
+            model, prep, pc, s, e, points, idx)
+        return statics, G, Cu[cmap], combos, which, theta
+
+    def _segment_terms_shared(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
+        """As :meth:`_segment_terms`, with the coefficients of variants that
+        differ only in their dots' detunings (which go into the statics)
+        given once: (statics (V, k, k), G, C (U, e − s, T), variant ->
+        row of C (V,), variant keys, point -> variant, frame angles or None).
+        The sixteen detunings of one dot's T2* rule are sixteen variants and
+        one array of coefficients."""
         combos: dict = {}
         which = []
         # the gate-band profiles on the cluster's dots (time-dependent detuning)
@@ -835,7 +883,7 @@ class FastEngine:
                    + tuple(pt.modes[j] if pt.modes else 0.0 for j in prof))
             which.append(combos.setdefault(key, len(combos)))
         # frame angles ϑ_q(k) = 2π·w_q·t_k at the sub-step centres (module notes)
-        t = model.t0 + (np.arange(s, e) + 0.5) * h
+        t = model.t0 + (np.arange(s, e) + 0.5) * model.h
         theta = {q: 2 * math.pi * pc.w[q] * t for q in pc.dots}
         rotating = any(pc.w[q] for q in pc.dots)
         gens, cols_fixed = [], []
@@ -853,35 +901,46 @@ class FastEngine:
             gens += list(pc.pair[j])
         gens += [pc.det[q] for q in prof_dots]
         G = np.stack(gens) if gens else np.zeros((0,) + pc.base.shape)
-        statics, Cs = [], []
+        # the flip-flops' frame rotation, the same for every variant
+        turn = {}
+        if rotating:
+            for j in pc.pairs:
+                p = model.pairs[j]
+                ang = pc.s_pair * (theta[p.a] - theta[p.b])
+                turn[j] = (np.cos(ang), np.sin(ang))
+        nd = len(pc.dots)
+        statics, Cs, cmap, rows_of = [], [], [], {}
         for key in combos:
-            dets = key[:len(pc.dots)]
-            dvs = key[len(pc.dots):]
+            dets = key[:nd]
             static = pc.base.copy()
             for q, d in zip(pc.dots, dets):
                 if d:
                     static += d * pc.det[q]
-            cols = list(cols_fixed)
-            for j, dv in zip(pc.pairs, dvs):
-                J, Fr, Fi = prep["pairs"][j][dv]
-                Fr, Fi = Fr[s:e], Fi[s:e]
-                p = model.pairs[j]
-                if rotating:
-                    ang = pc.s_pair * (theta[p.a] - theta[p.b])
-                    cs, sn = np.cos(ang), np.sin(ang)
-                    Fr, Fi = Fr * cs - Fi * sn, Fr * sn + Fi * cs
-                cols += [J[s:e], Fr, Fi]
-            if prof_dots:
-                modes = [0.0] * len(model.profiles)
-                for j, x in zip(prof, key[len(pc.dots) + len(pc.pairs):]):
-                    modes[j] = x
-                for q in prof_dots:
-                    d = model.detuning_profile(q, modes)
-                    cols.append(np.zeros(e - s) if d is None else d[s:e])
             statics.append(static)
-            Cs.append(np.stack(cols, axis=1) if cols else np.zeros((e - s, 0)))
-        return (np.stack(statics), G, np.stack(Cs), tuple(combos), np.array(which),
-                theta if rotating else None)
+            rest = key[nd:]                     # charge offsets and gate-band modes
+            u = rows_of.get(rest)
+            if u is None:
+                u = rows_of[rest] = len(Cs)
+                dvs = rest[:len(pc.pairs)]
+                cols = list(cols_fixed)
+                for j, dv in zip(pc.pairs, dvs):
+                    J, Fr, Fi = prep["pairs"][j][dv]
+                    Fr, Fi = Fr[s:e], Fi[s:e]
+                    if rotating:
+                        cs, sn = turn[j]
+                        Fr, Fi = Fr * cs - Fi * sn, Fr * sn + Fi * cs
+                    cols += [J[s:e], Fr, Fi]
+                if prof_dots:
+                    modes = [0.0] * len(model.profiles)
+                    for j, x in zip(prof, rest[len(pc.pairs):]):
+                        modes[j] = x
+                    for q in prof_dots:
+                        d = model.detuning_profile(q, modes)
+                        cols.append(np.zeros(e - s) if d is None else d[s:e])
+                Cs.append(np.stack(cols, axis=1) if cols else np.zeros((e - s, 0)))
+            cmap.append(u)
+        return (np.stack(statics), G, np.stack(Cs), np.array(cmap), tuple(combos),
+                np.array(which), theta if rotating else None)
 
     def _rz(self, pc: _Pieces, angles: dict) -> np.ndarray:
         """exp(Σ_q ϑ_q·Z_q): z rotations of the cluster's dots, in closed form
@@ -893,25 +952,37 @@ class FastEngine:
             out = np.kron(out, np.eye(4) + math.sin(th) * z + (1 - math.cos(th)) * (z @ z))
         return out
 
-    def _chain(self, static, G, C, h, pc, key, theta, floor=None) -> np.ndarray:
+    def _chain(self, static, G, C, h, pc, key, theta, floor=None, cmap=None) -> np.ndarray:
         """Ordered products over the sub-steps of exp(L_k·h), L_k = static + Σ_t C_kt·G_t,
-        for a batch of variants: static (V, k, k), C (V, n, T) -> (V, k, k).
+        for a batch of variants: static (V, k, k), C (U, n, T) with variant v
+        on row ``cmap[v]`` of C (default: U = V, one each) -> (V, k, k).
 
         With frame angles ϑ(k) (linear in k) the rows of C are already those
         of L'_k = R_k⁻¹·L_k·R_k; with D = R_k⁻¹·R_(k+1) the product is
         R(ϑ_last + Δ)·Π_k(D⁻¹·exp(L'_k·h))·R(ϑ_first)⁻¹ (exact: the z
         rotations commute with the dissipators, the detunings and σzσz)."""
-        # cache per variant, by content
+        V = static.shape[0]
+        cmap = np.arange(V) if cmap is None else np.asarray(cmap)
+        n = C.shape[1]
+        starts = self._run_starts(C, G, pc, theta, floor)
+        lengths = np.diff(np.append(starts, n))
+        rows = C[:, starts]                                   # (U, R, T)
+        # cache per variant, by what its product is made of: its static part,
+        # its runs' rows and lengths, the frame angles at the start and their
+        # step (hashing the runs, not every sub-step)
         ends = None if theta is None else tuple(round(float(v[0]), 12) for v in theta.values())
-        fl = None if floor is None else floor.tobytes()
-        keys = [(pc.dots, pc.pairs, kv, static[v].tobytes(), C.shape[1:], h, ends, fl,
-                 hashlib.blake2b(C[v].tobytes(), digest_size=16).digest())
-                for v, kv in enumerate(key)]
+        step = None if theta is None else tuple(float(pc.w[q]) for q in pc.dots)
+        lb = lengths.tobytes()
+        rk = [hashlib.blake2b(rows[u].tobytes() + lb, digest_size=16).digest()
+              for u in range(C.shape[0])]
+        keys = [(pc.dots, pc.pairs, kv, static[v].tobytes(), rows.shape[1:], h, ends, step,
+                 rk[cmap[v]]) for v, kv in enumerate(key)]
         found = [self._cache.get(k) for k in keys]
         missing = [v for v, f in enumerate(found) if f is None]
         self.cache_hits += len(keys) - len(missing)
         if missing:
-            new = self._chain_compute(static[missing], G, C[missing], h, pc, theta, floor)
+            new = self._chain_compute(static[missing], G, rows, cmap[missing], lengths, n, h,
+                                      pc, theta)
             if len(self._cache) + len(missing) > self.cache_entries:
                 self._cache.clear()
             for v, m in zip(missing, new):
@@ -919,40 +990,46 @@ class FastEngine:
                 found[v] = m
         return np.stack(found)
 
-    def _chain_compute(self, static, G, C, h, pc, theta, floor=None) -> np.ndarray:
-        V, n, T = C.shape
-        k = static.shape[-1]
+    @staticmethod
+    def _run_starts(C, G, pc, theta, floor=None) -> np.ndarray:
+        """Starts of the runs of equal sub-steps of every row of C (U, n, T)."""
+        U, n, T = C.shape
+        if not (T and n > 1):
+            return np.zeros(1, dtype=int)
         # runs of equal rows in every variant (equal to 1e-12 of each column's
         # scale: the frame rotation leaves rounding-level differences on a flat top)
-        if T and n > 1:
-            scale = np.abs(C).max(axis=(0, 1))
-            # the two parts of one complex coefficient (a drive's I and Q, a
-            # flip-flop's Re F and Im F) share their scale: in a rotating frame
-            # one part of a constant coefficient is rounding noise alone
-            for g0, g1 in ([pc.drive[q] for q in pc.dots if q in pc.drive]
-                           + [pc.pair[j][1:] for j in pc.pairs]):
-                cols = [t for t in range(T) if np.array_equal(G[t], g0) or np.array_equal(G[t], g1)]
-                if cols:
-                    scale[cols] = scale[cols].max()
-            rel = 1e-12
-            if theta is not None:
-                # a frame's rotation by ϑ rounds to about ε·|ϑ| of the value
-                # (the flip-flop's own phase 2πδt alike): after 500 µs at 56 MHz
-                # that is 2·10⁻¹¹, over 1e-12, and every sub-step of a wait
-                # differed (778 000 exponentials of 64 × 64)
-                big = max(float(np.abs(v).max()) for v in theta.values()) if theta else 0.0
-                rel = max(rel, 16 * np.finfo(float).eps * 2 * big)
-            tol = rel * np.where(scale > 0, scale, 1.0)
-            if floor is not None:
-                tol = np.maximum(tol, floor)
-            change = np.ones(n, dtype=bool)
-            change[1:] = np.any(np.abs(C[:, 1:] - C[:, :-1]) > tol, axis=(0, 2))
-            starts = np.flatnonzero(change)
-        else:
-            starts = np.zeros(1, dtype=int)
-        lengths = np.diff(np.append(starts, n))
-        rows = C[:, starts]                                   # (V, R, T)
-        R = len(starts)
+        scale = np.abs(C).max(axis=(0, 1))
+        # the two parts of one complex coefficient (a drive's I and Q, a
+        # flip-flop's Re F and Im F) share their scale: in a rotating frame
+        # one part of a constant coefficient is rounding noise alone
+        for g0, g1 in ([pc.drive[q] for q in pc.dots if q in pc.drive]
+                       + [pc.pair[j][1:] for j in pc.pairs]):
+            cols = [t for t in range(T) if np.array_equal(G[t], g0) or np.array_equal(G[t], g1)]
+            if cols:
+                scale[cols] = scale[cols].max()
+        rel = 1e-12
+        if theta is not None:
+            # a frame's rotation by ϑ rounds to about ε·|ϑ| of the value
+            # (the flip-flop's own phase 2πδt alike): after 500 µs at 56 MHz
+            # that is 2·10⁻¹¹, over 1e-12, and every sub-step of a wait
+            # differed (778 000 exponentials of 64 × 64)
+            big = max(float(np.abs(v).max()) for v in theta.values()) if theta else 0.0
+            rel = max(rel, 16 * np.finfo(float).eps * 2 * big)
+        tol = rel * np.where(scale > 0, scale, 1.0)
+        if floor is not None:
+            tol = np.maximum(tol, floor)
+        change = np.ones(n, dtype=bool)
+        change[1:] = np.any(np.abs(np.diff(C, axis=1)) > tol, axis=(0, 2))
+        return np.flatnonzero(change)
+
+    def _chain_compute(self, static, G, rows, cmap, lengths, n, h, pc, theta) -> np.ndarray:
+        """The products of :meth:`_chain` for variants with statics ``static``
+        (V, k, k) and the runs' rows ``rows[cmap[v]]`` (R, T) of the given
+        ``lengths`` (summing to ``n`` sub-steps)."""
+        V = static.shape[0]
+        k = static.shape[-1]
+        R = rows.shape[1]
+        T = rows.shape[2]
         if theta is not None:
             step = {q: float(theta[q][1] - theta[q][0]) if n > 1 else 0.0 for q in pc.dots}
             Dinv = self._rz(pc, {q: -v for q, v in step.items()})
@@ -965,7 +1042,9 @@ class FastEngine:
             hi = min(R, lo + block)
             L = np.broadcast_to(static[:, None], (V, hi - lo, k, k)).copy()
             if T:
-                L += np.einsum("vrt,tij->vrij", rows[:, lo:hi], G)
+                # the sum over generators once per distinct row of coefficients
+                used, inv = np.unique(cmap, return_inverse=True)
+                L += np.einsum("urt,tij->urij", rows[used, lo:hi], G)[inv]
             if theta is None:
                 # no frame: a run of n equal sub-steps is one exponential exp(L·h·n)
                 mats = _expm(L * (h * lengths[lo:hi])[None, :, None, None])

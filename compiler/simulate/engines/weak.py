@@ -309,8 +309,10 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
     for dots, upairs in units:
         unit_d.append(sum(prep["dn"][q] for q in dots))
         pc = _frameless(eng, model, dots, upairs)
-        statics, G, C, _, which, _ = eng._segment_terms(model, prep, pc, s, e, points, idx)
-        gens.append((statics, G, C))
+        # variants that differ in detuning alone share their coefficients (C, cmap)
+        statics, G, C, cmap, _, which, _ = eng._segment_terms_shared(model, prep, pc, s, e,
+                                                                       points, idx)
+        gens.append((statics, G, C, cmap))
         which_u.append(which)
         a = sum(prep["anorm"][q][s:e] for q in dots)
         for j in upairs:
@@ -340,7 +342,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             tol = rel * np.where(scale > 0, scale, 1.0)
             ch[1:] = np.any(np.abs(arr[1:] - arr[:-1]) > tol, axis=1)
         return ch
-    unit_change = [changes(C.transpose(1, 0, 2).reshape(n, -1)) for _, _, C in gens]
+    unit_change = [changes(C.transpose(1, 0, 2).reshape(n, -1)) for _, _, C, _ in gens]
     # a pair's flip-flop turns at its frequency δ in the model's frame (F of
     # sub-step k is that of k − 1 times z = e^{i2πδh} when J stays): its runs
     # are found on the coefficients taken back by z^k, to a relative 1e-9
@@ -478,10 +480,10 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
         cont = carry[0] is not None and not fst[0]   # the first chunk began in an earlier block
         upto = int(np.argmax(fst)) if fst.any() else b1 - b0
         P, Pm, Pe, Lb = [], [], [], []
-        for u, ((statics, G, C), k) in enumerate(zip(gens, kdim)):
+        for u, ((statics, G, C, cmap), k) in enumerate(zip(gens, kdim)):
             Lp = np.broadcast_to(statics[:, None], (statics.shape[0], b1 - b0, k, k)).copy()
             if G.shape[0]:
-                Lp += np.einsum("vrt,tij->vrij", C[:, starts[sl]], G)
+                Lp += np.einsum("urt,tij->urij", C[:, starts[sl]], G)[cmap]
             Mh = _expm_runs(Lp[:, sing], np.full(int(sing.sum()), h / 2))
             Mp = np.empty_like(Lp)
             Mp[:, sing] = Mh @ Mh
