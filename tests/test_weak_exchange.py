@@ -563,20 +563,20 @@ def test_variants_of_one_detuning_share_their_coefficients(tmp_path, monkeypatch
     c, cr, model = _model(_case(tmp_path, 3, IDLE["1 kHz"], body))
     pts = [p for p in noise_points(model, 5) if p.detuning[0] != 0.0]
     assert len(pts) == 4 and all(not any(p.dv) for p in pts)
-    orig = FE.FastEngine._segment_terms_shared
+    orig = FE.FastEngine._segment_terms
     shapes = []
 
     def spy(self, *a):
         got = orig(self, *a)
         shapes.append((got[0].shape[0], got[2].shape[0]))
         return got
-    monkeypatch.setattr(FE.FastEngine, "_segment_terms_shared", spy)
+    monkeypatch.setattr(FE.FastEngine, "_segment_terms", spy)
     shared = FastEngine().average(model, pts, process=True)
     assert (4, 1) in shapes and shared.stats["largest_cluster"] == 3
 
     def one_each(self, *a):
         st, G, C, cmap, combos, which, theta = orig(self, *a)
         return st, G, C[cmap], np.arange(len(cmap)), combos, which, theta
-    monkeypatch.setattr(FE.FastEngine, "_segment_terms_shared", one_each)
+    monkeypatch.setattr(FE.FastEngine, "_segment_terms", one_each)
     each = FastEngine().average(model, pts, process=True)
     assert np.array_equal(shared.superop, each.superop)

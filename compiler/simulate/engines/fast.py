@@ -831,7 +831,7 @@ class FastEngine:
         chans = which = None
         for a in range(s, e, step):
             b = min(e, a + step)
-            statics, G, Cs, cmap, combos, which, theta = self._segment_terms_shared(
+            statics, G, Cs, cmap, combos, which, theta = self._segment_terms(
                 model, prep, pc, a, b, points, idx)
             got = self._chain(statics, G, Cs, model.h, pc, combos, theta,
                               self._column_floor(prep, pc, Cs.shape[-1]), cmap=cmap)
@@ -857,20 +857,13 @@ class FastEngine:
 
     def _segment_terms(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
         """The cluster's generator over sub-steps [s, e) as L_k = static_v +
-        Σ_t C_vkt·G_t for every distinct value v of its own noise variables:
-        (statics (V, k, k), G (T, k, k), C (V, e − s, T), variant keys,
-        point -> variant, frame angles or None)."""
-        statics, G, Cu, cmap, combos, which, theta = self._segment_terms_shared(
-            model, prep, pc, s, e, points, idx)
-        return statics, G, Cu[cmap], combos, which, theta
-
-    def _segment_terms_shared(self, model, prep, pc: _Pieces, s: int, e: int, points, idx):
-        """As :meth:`_segment_terms`, with the coefficients of variants that
-        differ only in their dots' detunings (which go into the statics)
-        given once: (statics (V, k, k), G, C (U, e − s, T), variant ->
-        row of C (V,), variant keys, point -> variant, frame angles or None).
-        The sixteen detunings of one dot's T2* rule are sixteen variants and
-        one array of coefficients."""
+        Σ_t C_(u(v))kt·G_t for every distinct value v of its own noise
+        variables, the coefficients given once for variants that differ
+        only in their dots' detunings (which go into the statics; the
+        sixteen detunings of one dot's T2* rule are sixteen variants and one
+        array of coefficients): (statics (V, k, k), G (T, k, k), C (U, e − s, T),
+        u: variant -> row of C (V,), variant keys, point -> variant, frame
+        angles or None)."""
         combos: dict = {}
         which = []
         # the gate-band profiles on the cluster's dots (time-dependent detuning)
@@ -1037,13 +1030,13 @@ class FastEngine:
         # the batch's size are alive at once), at least one sub-step per batch
         per_row = 6 * 8 * V * k * k
         block = max(1, int(self.max_batch_bytes // per_row))
+        # the sum over generators once per distinct row of coefficients
+        used, inv = np.unique(cmap, return_inverse=True)
         got = None
         for lo in range(0, R, block):
             hi = min(R, lo + block)
             L = np.broadcast_to(static[:, None], (V, hi - lo, k, k)).copy()
             if T:
-                # the sum over generators once per distinct row of coefficients
-                used, inv = np.unique(cmap, return_inverse=True)
                 L += np.einsum("urt,tij->urij", rows[used, lo:hi], G)[inv]
             if theta is None:
                 # no frame: a run of n equal sub-steps is one exponential exp(L·h·n)

@@ -103,7 +103,6 @@ class Memo:
         self._kept: dict = {}
         self._bytes = 0
         self._lock = threading.Lock()
-        self.hits = 0
 
     def get(self, key):
         """A copy of what is kept under ``key``, or None."""
@@ -111,10 +110,7 @@ class Memo:
             return None
         with self._lock:
             got = self._kept.get(key)
-            if got is None:
-                return None
-            self.hits += 1
-        return copy.deepcopy(got)
+        return None if got is None else copy.deepcopy(got)
 
     def put(self, key, value) -> None:
         if key is None:
@@ -131,6 +127,3 @@ class Memo:
                 self._bytes = 0
             self._kept[key] = value
             self._bytes += size
-
-    def __len__(self) -> int:
-        return len(self._kept)

@@ -310,8 +310,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
         unit_d.append(sum(prep["dn"][q] for q in dots))
         pc = _frameless(eng, model, dots, upairs)
         # variants that differ in detuning alone share their coefficients (C, cmap)
-        statics, G, C, cmap, _, which, _ = eng._segment_terms_shared(model, prep, pc, s, e,
-                                                                       points, idx)
+        statics, G, C, cmap, _, which, _ = eng._segment_terms(model, prep, pc, s, e, points, idx)
         gens.append((statics, G, C, cmap))
         which_u.append(which)
         a = sum(prep["anorm"][q][s:e] for q in dots)
