@@ -225,19 +225,22 @@ def _transformed(Pn: np.ndarray, Pi: np.ndarray, nz) -> np.ndarray:
     """P⁻¹·O·P for the six embedded one-dot maps O (entries ``nz``) at every
     node: channels (V, k, k, nodes) -> (V, 6, k², nodes), the node axis last
     (long contiguous rows for the elementwise work); O = Σ o_jk·e_j e_kᵀ, so
-    P⁻¹OP = Σ o_jk·P⁻¹[:, j] ⊗ P[k, :] (one pass per entry, all six maps at
-    once)."""
+    P⁻¹OP = Σ o_jk·P⁻¹[:, j] ⊗ P[k, :] (one pass per entry, written in
+    place: no temporary of the whole result per entry)."""
     rows, cols, vals = nz
     V, k = Pn.shape[:2]
     N = Pn.shape[3:]
-    out = None
-    for e in range(rows.shape[1]):
-        a = Pi[:, :, rows[:, e]].swapaxes(1, 2) * vals[:, e].reshape((1, 6, 1) + (1,) * len(N))
-        term = a[:, :, :, None] * Pn[:, cols[:, e]][:, :, None]          # (V, 6, k, k, …)
-        if out is None:
-            out = term
-        else:
-            out += term
+    out = np.empty((V, 6, k, k) + N)
+    tmp = np.empty((V, k, k) + N) if rows.shape[1] > 1 else None
+    for o in range(6):
+        for e in range(rows.shape[1]):
+            a = (Pi[:, :, rows[o, e]] * vals[o, e])[:, :, None]    # (V, k, 1, …)
+            b = Pn[:, cols[o, e]][:, None]                         # (V, 1, k, …)
+            if e == 0:
+                np.multiply(a, b, out=out[:, o])
+            else:
+                np.multiply(a, b, out=tmp)
+                out[:, o] += tmp
     return out.reshape((V, 6, k * k) + N)
 
 
@@ -513,20 +516,42 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             node_piece, node_kind = sp, np.ones(len(sp), dtype=int)
         node_sing = np.searchsorted(sing_idx, node_piece)     # index among the block's singles
         node_chunk = chunk_of[b0 + node_piece]
+        # the nodes each pair takes (its own single pieces, and with Simpson's
+        # rule the start node shared with its previous single piece)
+        gp = b0 + node_piece
+        sels = []
+        for psp in ps:
+            if len(node_piece):
+                own = psp[gp]
+                prev = np.zeros(len(gp), dtype=bool)
+                if simpson:
+                    prev = (node_kind == 0) & prev_single[gp] & psp[np.maximum(gp - 1, 0)]
+                sels.append((own, prev, own | prev))
+            else:
+                sels.append((None, None, np.zeros(0, dtype=bool)))
         # transformed one-dot maps with the node axis last (long contiguous
-        # rows for the elementwise work): (6, k², V, nodes)
+        # rows for the elementwise work): (V, 6, k², nodes), at the nodes of
+        # the pairs that end on that dot only (a pair idle beside a burst on
+        # another pair takes its runs' exact integrals, not nodes)
+        need = {end: np.zeros(len(node_piece), dtype=bool) for end in ends}
+        for pi, (_, _, selp) in zip(pinfo, sels):
+            need[(pi[3], pi[1])] |= selp
+            need[(pi[4], pi[2])] |= selp
         T = {}
-        if len(node_piece):
-            for u, q in ends:
-                k = kdim[u]
-                Pn = np.empty((P[u].shape[0], k, k, len(node_piece)))
-                for kind, src in ((0, P[u]), (1, Pm[u]), (2, Pe[u])):
-                    sel = node_kind == kind
-                    if sel.any():
-                        Pn[..., sel] = src[:, (node_sing if kind == 1 else node_piece)[sel]
-                                           ].transpose(0, 2, 3, 1)
-                Pi = np.moveaxis(_inverse_last(np.moveaxis(Pn, 0, 2)), 2, 0)
-                T[(u, q)] = _transformed(Pn, Pi, nzs[(u, q)])
+        for u, q in ends:
+            nd = need[(u, q)]
+            if not nd.any():
+                continue
+            k = kdim[u]
+            nkind = node_kind[nd]
+            Pn = np.empty((P[u].shape[0], k, k, len(nkind)))
+            for kind, src in ((0, P[u]), (1, Pm[u]), (2, Pe[u])):
+                sel = nkind == kind
+                if sel.any():
+                    Pn[..., sel] = src[:, (node_sing if kind == 1 else node_piece)[nd][sel]
+                                       ].transpose(0, 2, 3, 1)
+            Pi = np.moveaxis(_inverse_last(np.moveaxis(Pn, 0, 2)), 2, 0)
+            T[(u, q)] = _transformed(Pn, Pi, nzs[(u, q)])
         roles: dict = {}
 
         def role_b(u, q):                  # (V, 6, nodes, k²)
@@ -535,17 +560,8 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 got = roles[(u, q)] = np.ascontiguousarray(T[(u, q)].transpose(0, 1, 3, 2))
             return got
         for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, coef, terms, xn), Gs, \
-                psp, (lpi, lpl), z in zip(Om, pinfo, pair_gens, ps, pl, zs):
+                (own, prev, selp), (lpi, lpl), z in zip(Om, pinfo, pair_gens, sels, pl, zs):
             k0, k1 = kdim[ua], kdim[ub]
-            gp = b0 + node_piece
-            if len(node_piece):
-                own = psp[gp]
-                prev = np.zeros(len(gp), dtype=bool)
-                if simpson:
-                    prev = (node_kind == 0) & prev_single[gp] & psp[np.maximum(gp - 1, 0)]
-                selp = own | prev
-            else:
-                selp = np.zeros(0, dtype=bool)
             if selp.any():
                 nk, g = node_kind[selp], gp[selp]
                 c_here = coef[calc][:, :, starts[g]] * own[selp]         # (M, 3, nodes)
@@ -566,21 +582,29 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 ykeys = {}
                 yidx = np.array([ykeys.setdefault(combos[i][1:], len(ykeys)) for i in calc])
                 ym = [int(np.argmax(yidx == u)) for u in range(len(ykeys))]
-                every = bool(selp.all())
                 tb = role_b(ub, d1)
                 vb_of = np.array([combos[calc[m]][1] for m in ym])
                 if not np.array_equal(vb_of, np.arange(tb.shape[0])):
                     tb = tb[vb_of]
-                tb = tb if every else tb[:, :, selp]                   # (U, 6, nodes, k1²)
+                mb = selp[need[(ub, d1)]]                              # this pair's among the end's
+                tb = tb if mb.all() else tb[:, :, mb]                  # (U, 6, nodes, k1²)
                 Wy = Wn[ym]                                            # (U, 3, nodes)
-                Y = np.zeros(tb.shape)
+                Y = np.empty(tb.shape)
                 tmp = np.empty(tb.shape[:1] + tb.shape[2:])
+                written = set()
                 for kind, f, ia, ib in terms:
-                    np.multiply((f * Wy[:, kind])[:, :, None], tb[:, ib], out=tmp)
-                    Y[:, ia] += tmp
+                    if ia not in written:
+                        np.multiply((f * Wy[:, kind])[:, :, None], tb[:, ib], out=Y[:, ia])
+                        written.add(ia)
+                    else:
+                        np.multiply((f * Wy[:, kind])[:, :, None], tb[:, ib], out=tmp)
+                        Y[:, ia] += tmp
+                for ia in set(range(6)) - written:
+                    Y[:, ia] = 0.0
                 va = np.array([combos[i][0] for i in calc])
                 ta_all = T[(ua, d0)]                                   # (V_a, 6, k0², nodes)
-                ta_all = ta_all if every else ta_all[..., selp]
+                ma = selp[need[(ua, d0)]]
+                ta_all = ta_all if ma.all() else ta_all[..., ma]
                 groups = _pair_groups(va, yidx)
                 for c in np.unique(nch):
                     lo, hi = cuts[c], cuts[c + 1]
