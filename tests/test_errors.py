@@ -12,7 +12,7 @@ from compiler.parse import parse_text
 # (source, error class, line, column, message fragment, hint fragment)
 CASES = [
     pytest.param("rot A x 90", SequenceError, 1, 9, "needs an angle unit", "90 deg", id="angle-without-unit"),
-    pytest.param("isqrtswap A B", SequenceSyntaxError, 1, 1, "written 'sqrtswap_inv'", "write 'sqrtswap_inv'", id="old-inverse-keyword"),
+    pytest.param("sqrtswapinv A B", SequenceSyntaxError, 1, 1, "written 'sqrtswap_inv'", "write 'sqrtswap_inv'", id="old-inverse-keyword"),
     pytest.param("rot A x 90 dg", SequenceSyntaxError, 1, 12, "unknown unit 'dg'", "did you mean 'deg'", id="misspelt-unit"),
     pytest.param("rot A x 90dg", SequenceSyntaxError, 1, 11, "unknown unit 'dg'", "deg", id="glued-unit"),
     pytest.param("rott A x 90 deg", SequenceSyntaxError, 1, 1, "unknown statement 'rott'", "did you mean 'rot'", id="misspelt-keyword"),

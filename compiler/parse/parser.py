@@ -31,7 +31,7 @@ MOVE_OPTIONS = ("ramp",)
 SHAPES = ("square", "gauss", "flattop")
 # Spellings that are no keyword of the language, with the keyword they mean:
 # refused with a hint rather than read as a name.
-RENAMED_KEYWORDS = {"isqrtswap": "sqrtswap_inv"}
+RENAMED_KEYWORDS = {"sqrtswapinv": "sqrtswap_inv"}
 INSIDE_TOGETHER = ("rot", "sqrtswap", "sqrtswap_inv", "swap", "cz", "cphase", "wait", "read",
                    "do")
 CONNECTORS = ("on", "to", "in", "from", "over")
