@@ -473,7 +473,14 @@ class FastEngine:
             return weak
         # the clusters each distinct pattern of exact pairs would make
         exact = np.stack([m & ~(w & ~c) for m, w, c in zip(on, weak, cand)])
-        pats, inv = np.unique(exact, axis=1, return_inverse=True)
+        if len(weak) <= 62:
+            # each sub-step's pattern as one integer (a unique over the
+            # columns of a boolean array sorts them as records: 5 ms for 4800)
+            bit = np.arange(len(weak), dtype=np.int64)[:, None]
+            ucode, inv = np.unique((exact.astype(np.int64) << bit).sum(axis=0), return_inverse=True)
+            pats = ((ucode[None, :] >> bit) & 1).astype(bool)
+        else:
+            pats, inv = np.unique(exact, axis=1, return_inverse=True)
         bad = np.zeros(pats.shape[1], dtype=bool)
         for col in range(pats.shape[1]):
             act = [j for j in range(len(weak)) if pats[j, col]]

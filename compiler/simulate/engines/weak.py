@@ -271,6 +271,12 @@ def _inverse_last(P: np.ndarray) -> np.ndarray:
     return np.moveaxis(np.moveaxis(np.linalg.inv(moved), -1, 0), -1, 0)
 
 
+def _embed_last(M: np.ndarray, m: int) -> np.ndarray:
+    """M ⊗ 1_m for a stack of M (…, k, k)."""
+    lead, k = M.shape[:-2], M.shape[-1]
+    return (M[..., :, None, :, None] * np.eye(m)[:, None, :]).reshape(lead + (k * m, k * m))
+
+
 def _kron_pair(Z: np.ndarray, k0: int, k1: int) -> np.ndarray:
     """Σ vec(A)·vec(B)ᵀ (rows (i_a, j_a), columns (i_b, j_b)) -> Σ A ⊗ B
     for A of k0 × k0 and B of k1 × k1."""
@@ -333,7 +339,12 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             dv = pt.dv[j] if pt.dv else 0.0
             key = (int(which_u[ua][len(which)]), int(which_u[ub][len(which)]), dv)
             which.append(combos.setdefault(key, len(combos)))
-        coef = np.stack([np.stack([c[s:e] for c in prep["pairs"][j][k[2]]]) for k in combos])
+        # (combination, J / Re F / Im F, sub-step): one stack per charge offset
+        dvs = {}
+        for k in combos:
+            dvs.setdefault(k[2], len(dvs))
+        per_dv = np.stack([np.stack([c[s:e] for c in prep["pairs"][j][dv]]) for dv in dvs])
+        coef = per_dv[[dvs[k[2]] for k in combos]]
         pinfo.append((j, d0, d1, ua, ub, tuple(combos), np.array(which), coef,
                       kron_terms(swapped=p.a > p.b), prep["xn"][j][s:e]))
     # ---- where each unit's generator and each pair's coefficients change
@@ -468,6 +479,14 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                             units[ub][0].index(d1), len(units[ub][0]))
                  for j, d0, d1, ua, ub, _, _, _, terms, _ in pinfo]
     carry = [None] * len(units)
+    # each unit's own channel of a chunk goes out with the correction of the
+    # last pair that touches it (E₀ ⊗ … · exp(Ω), one channel on the pair's
+    # dots): by then every correction on the unit is out, and the ones after
+    # act on other dots and commute with it (fewer, larger channels for the
+    # register: five became two on a line of three dots)
+    absorb = {}
+    for pos, pi in enumerate(pinfo):
+        absorb[pi[3]] = absorb[pi[4]] = pos
     # ---- pieces in blocks (memory): prefix channels, nodes, contributions
     per_piece = sum(g[0].shape[0] * k * k * 8 * (10 + 3 * 7 * sum(u == ue for ue, _ in ends))
                     for u, (g, k) in enumerate(zip(gens, kdim)))
@@ -637,20 +656,37 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
         lasts = last_of_chunk[(last_of_chunk >= b0) & (last_of_chunk < b1)]
         done = [int(chunk_of[last]) for last in lasts]
         corr = []                               # per pair: (dots, (chunks, V, K, K), which)
-        for (base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, *_r) in \
-                zip(Om, pinfo):
-            K = kdim[ua] * kdim[ub]
+        for pos, ((base, ratio, calc, Omp), (j, d0, d1, ua, ub, combos, which, *_r)) in \
+                enumerate(zip(Om, pinfo)):
+            k0, k1 = kdim[ua], kdim[ub]
+            K = k0 * k1
             full = np.zeros((len(done), len(combos), K, K))
             for i, c in enumerate(done):
                 full[i, calc] = Omp.pop(c, 0.0)
             full = full[:, base] * ratio[:, None, None]
+            Wc = PL.expm_any(full)                                # (chunks, combos, K, K)
+            own = [absorb[ua] == pos, absorb[ub] == pos]
+            if any(own):
+                # the units' own channels of these chunks, per combination
+                ea, eb = (Pe[u][np.array([cb[side] for cb in combos])][:, lasts - b0]
+                          .swapaxes(0, 1) if mine else np.eye(kk)
+                          for side, (u, kk, mine) in enumerate(((ua, k0, own[0]),
+                                                                (ub, k1, own[1]))))
+                if own[0] and own[1]:
+                    loc = np.einsum("ncab,ncde->ncadbe", ea, eb).reshape(Wc.shape)
+                elif own[0]:
+                    loc = _embed_last(ea, k1)
+                else:
+                    loc = np.einsum("ab,ncde->ncadbe", ea, eb).reshape(Wc.shape)
+                Wc = np.matmul(loc, Wc)
             order = units[ua][0] + units[ub][0]
-            corr.append((tuple(sorted(order)), _to_sorted(PL.expm_any(full), order), which))
+            corr.append((tuple(sorted(order)), _to_sorted(Wc, order), which))
+        alone = [u for u in range(len(units)) if u not in absorb]
         for i, last in enumerate(lasts):
             for dots, Wc, which in corr:
                 emit(dots, Wc[i], which)
-            for u, (dots, _) in enumerate(units):
-                emit(dots, Pe[u][:, last - b0].copy(), which_u[u])
+            for u in alone:
+                emit(units[u][0], Pe[u][:, last - b0].copy(), which_u[u])
     # ---- sizes and quadrature errors per chunk, each with its own κ
     y = np.add.reduceat(x, cstart) * kap
     return y, q_rule, "simpson" if simpson else "midpoint"
