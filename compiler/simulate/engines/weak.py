@@ -271,12 +271,6 @@ def _inverse_last(P: np.ndarray) -> np.ndarray:
     return np.moveaxis(np.moveaxis(np.linalg.inv(moved), -1, 0), -1, 0)
 
 
-def _embed_last(M: np.ndarray, m: int) -> np.ndarray:
-    """M ⊗ 1_m for a stack of M (…, k, k)."""
-    lead, k = M.shape[:-2], M.shape[-1]
-    return (M[..., :, None, :, None] * np.eye(m)[:, None, :]).reshape(lead + (k * m, k * m))
-
-
 def _kron_pair(Z: np.ndarray, k0: int, k1: int) -> np.ndarray:
     """Σ vec(A)·vec(B)ᵀ (rows (i_a, j_a), columns (i_b, j_b)) -> Σ A ⊗ B
     for A of k0 × k0 and B of k1 × k1."""
@@ -667,17 +661,18 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             Wc = PL.expm_any(full)                                # (chunks, combos, K, K)
             own = [absorb[ua] == pos, absorb[ub] == pos]
             if any(own):
-                # the units' own channels of these chunks, per combination
-                ea, eb = (Pe[u][np.array([cb[side] for cb in combos])][:, lasts - b0]
-                          .swapaxes(0, 1) if mine else np.eye(kk)
-                          for side, (u, kk, mine) in enumerate(((ua, k0, own[0]),
-                                                                (ub, k1, own[1]))))
-                if own[0] and own[1]:
-                    loc = np.einsum("ncab,ncde->ncadbe", ea, eb).reshape(Wc.shape)
-                elif own[0]:
-                    loc = _embed_last(ea, k1)
-                else:
-                    loc = np.einsum("ab,ncde->ncadbe", ea, eb).reshape(Wc.shape)
+                # E_a ⊗ E_b of these chunks per combination (1 for a unit that
+                # goes out with a later pair)
+                ops, subs = [], []
+                for side, (u, kk, sa) in enumerate(((ua, k0, "ab"), (ub, k1, "de"))):
+                    if own[side]:
+                        vs = np.array([cb[side] for cb in combos])
+                        ops.append(Pe[u][vs][:, lasts - b0].swapaxes(0, 1))
+                        subs.append("nc" + sa)
+                    else:
+                        ops.append(np.eye(kk))
+                        subs.append(sa)
+                loc = np.einsum(f"{subs[0]},{subs[1]}->ncadbe", *ops).reshape(Wc.shape)
                 Wc = np.matmul(loc, Wc)
             order = units[ua][0] + units[ub][0]
             corr.append((tuple(sorted(order)), _to_sorted(Wc, order), which))
