@@ -334,9 +334,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
             key = (int(which_u[ua][len(which)]), int(which_u[ub][len(which)]), dv)
             which.append(combos.setdefault(key, len(combos)))
         # (combination, J / Re F / Im F, sub-step): one stack per charge offset
-        dvs = {}
-        for k in combos:
-            dvs.setdefault(k[2], len(dvs))
+        dvs = {dv: i for i, dv in enumerate(dict.fromkeys(k[2] for k in combos))}
         per_dv = np.stack([np.stack([c[s:e] for c in prep["pairs"][j][dv]]) for dv in dvs])
         coef = per_dv[[dvs[k[2]] for k in combos]]
         pinfo.append((j, d0, d1, ua, ub, tuple(combos), np.array(which), coef,
@@ -481,6 +479,7 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
     absorb = {}
     for pos, pi in enumerate(pinfo):
         absorb[pi[3]] = absorb[pi[4]] = pos
+    alone = [u for u in range(len(units)) if u not in absorb]
     # ---- pieces in blocks (memory): prefix channels, nodes, contributions
     per_piece = sum(g[0].shape[0] * k * k * 8 * (10 + 3 * 7 * sum(u == ue for ue, _ in ends))
                     for u, (g, k) in enumerate(zip(gens, kdim)))
@@ -676,7 +675,6 @@ def weak_segment(eng, model, prep, s: int, e: int, pairs, units, points, idx, em
                 Wc = np.matmul(loc, Wc)
             order = units[ua][0] + units[ub][0]
             corr.append((tuple(sorted(order)), _to_sorted(Wc, order), which))
-        alone = [u for u in range(len(units)) if u not in absorb]
         for i, last in enumerate(lasts):
             for dots, Wc, which in corr:
                 emit(dots, Wc[i], which)
