@@ -2,8 +2,9 @@
 imported): no import circle inside ``compiler/``; the simulation stage
 imports no compiler stage (nothing from ``schedule/`` or ``report/``, from
 ``synth/`` only its data types); no module imports another package's
-private (``_name``) definitions.  (Architecture rules of issue 13; common
-practice, no source.)"""
+private (``_name``) definitions; and the command's start-up leaves out
+the heavy scipy packages it needs only in places (one subprocess).
+(Architecture rules of issue 13; common practice, no source.)"""
 
 import ast
 from pathlib import Path
@@ -160,3 +161,18 @@ def test_engines_read_only_the_model():
             if not (mod.startswith("compiler.simulate.engines") or mod in allowed):
                 bad.append(f"{path.relative_to(ROOT)}:{line} imports {mod}")
     assert not bad, "\n".join(bad)
+
+
+def test_the_command_starts_without_the_optimiser_and_interpolation_packages():
+    """scipy.optimize (with scipy.interpolate, which imports it) costs about
+    0.4 s of every command's start-up and of every sweep worker's, and only a
+    root finder and the calibration tables' interpolation need them: they are
+    imported where used (common practice, no source)."""
+    import subprocess
+    import sys
+    code = ("import sys, compiler.cli; "
+            "print(sorted(m for m in sys.modules if m.startswith(('scipy.optimize', "
+            "'scipy.interpolate'))))")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,
+                         text=True, check=True).stdout
+    assert out.strip() == "[]", out

@@ -31,11 +31,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, replace
 from functools import lru_cache
-from typing import ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
-from scipy.optimize import brentq
+
+if TYPE_CHECKING:
+    from scipy.interpolate import PchipInterpolator
 
 
 def _out(x: np.ndarray) -> float | np.ndarray:
@@ -71,6 +72,9 @@ def _hubbard_j(t: np.ndarray | float, u: float, eps: float) -> np.ndarray | floa
 @lru_cache(maxsize=256)
 def _table_interp(volts: tuple[float, ...], joules: tuple[float, ...]) -> PchipInterpolator:
     """PCHIP of ln J against V (cached per calibration table)."""
+    # imported here: scipy.interpolate brings scipy.optimize (about 0.4 s of the
+    # command's start-up), and only calibration tables need it
+    from scipy.interpolate import PchipInterpolator
     return PchipInterpolator(np.asarray(volts, float), np.log(np.asarray(joules, float)),
                              extrapolate=False)
 
@@ -289,6 +293,9 @@ class Table(ExchangeModel):
                 return float(v0)
             if y >= interp(v1):
                 return float(v1)
+            # imported here: scipy.optimize takes about 0.4 s to import and only
+            # this root finder of it is needed (the command's start-up)
+            from scipy.optimize import brentq
             return brentq(lambda x: float(interp(x)) - y, v0, v1, xtol=1e-15)
 
         flat = np.array([root(float(x)) for x in j.ravel()])
