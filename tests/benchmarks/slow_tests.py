@@ -28,7 +28,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("-k", default="", help="pytest -k expression to run a subset")
     args = ap.parse_args(argv)
     cmd = [sys.executable, "-m", "pytest", "-q", "-m", "slow", "--durations=15",
-           "-p", "no:cacheprovider"] + (["-k", args.k] if args.k else [])
+           "-p", "no:cacheprovider", "-n", "0"] + (["-k", args.k] if args.k else [])
     t0 = time.perf_counter()
     proc = subprocess.run(cmd, cwd=ROOT, capture_output=True, text=True)
     wall = time.perf_counter() - t0
