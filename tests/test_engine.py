@@ -325,3 +325,31 @@ def test_the_budget_with_reused_evaluations_equals_the_budget_computed_afresh(tm
                                                              for x in rb.budget]
     assert (ra.average_fidelity, ra.state_fidelity, ra.budget_floor, ra.budget_remainder) == (
         rb.average_fidelity, rb.state_fidelity, rb.budget_floor, rb.budget_remainder)
+
+
+def test_the_reference_solves_again_with_bdf_when_the_default_method_gives_up(tmp_path,
+                                                                              monkeypatch):
+    """qutip's default (Adams) method can give up at the tight tolerances on
+    coefficients that jump every sub-step; the reference then solves the
+    same run with BDF and counts it (common practice, no source)."""
+    import qutip as qt
+    from qutip.solver.integrator import IntegratorException
+    seq = write_case(tmp_path, 2, 2)
+    c, model = _model(seq)
+    pts = noise_points(model, 1)
+    rho0 = _rand_rho(np.random.default_rng(3), 4)
+    real = qt.mesolve
+    methods = []
+
+    def picky(H, state, times, c_ops, options=None, **kw):
+        methods.append(options.get("method", "default"))
+        if options.get("method") != "bdf":
+            raise IntegratorException("Repeated error test failures. (Check all input.)")
+        return real(H, state, times, c_ops, options=options, **kw)
+    monkeypatch.setattr(qt, "mesolve", picky)
+    eng = ReferenceEngine(**TIGHT)
+    got = eng.average(model, pts, rho0=rho0)
+    assert methods == ["default", "bdf"] and eng.stats()["bdf_retries"] == 1
+    monkeypatch.setattr(qt, "mesolve", real)
+    fast = FastEngine().average(model, pts, rho0=rho0)
+    assert np.max(np.abs(got.rho - fast.rho)) < 1e-7
