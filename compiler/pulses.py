@@ -761,8 +761,15 @@ class PairGate:
     """What an exchange pulse does in the qubit frames, and how to make it the
     target: the pre-phase it needs, and the frame updates after it."""
     U_mean: np.ndarray          # 4×4 in the mean-Zeeman frame
-    xi_best: float              # optimal differential pre-phase ξ (rad, mod π)
+    xi_best: float              # optimal differential pre-phase ξ (rad, mod π); 0 if phase_free
     overlap_best: float         # |Tr(T†U_q)|/4 at ξ_best with the best post phases
+    phase_free: bool = False    # the best overlap is the same at every ξ (no alignment needed)
+
+
+# spread of the best overlap over the pre-phase ξ below which a gate needs no
+# phase alignment (rounding of the overlap's search is about 1e-15; a
+# sensitive gate's spread is of order 1: 0.4 to 0.5 for the demos' √SWAPs)
+PHASE_FREE_TOL = 1e-12
 
 
 @lru_cache(maxsize=256)
@@ -775,6 +782,12 @@ def _pair_gate_cached(design: ExchangeDesign, model, delta: float) -> PairGate:
         return PairGate(U, 0.0, float(_best_post(U, T, 0.0)[0]))
     xs = np.linspace(0, math.pi, 361, endpoint=False)
     vals = _best_post_many(_post_rows(U, T, xs))[0]
+    if vals.max() - vals.min() <= PHASE_FREE_TOL:
+        # a SWAP-like target: the pre-phase moves only entries whose phases the
+        # post phases absorb, so every ξ is as good (the grid's spread is
+        # rounding, 3e-16 for the ribbon's swap) and its argmax would be noise:
+        # no alignment, and the post phases follow the ξ there is
+        return PairGate(U, 0.0, float(vals.max()), phase_free=True)
     x0 = xs[int(np.argmax(vals))]
     step = xs[1] - xs[0]
     for _ in range(30):

@@ -56,10 +56,12 @@ def propagate(wf, device, *, stop: int | None = None, m: int = 8, ideal: bool = 
 
     def played(name):
         out = wf.outputs[name]
-        x = (out.ideal if ideal else out.volts)[:stop]
+        full = out.ideal if ideal else out.volts
+        x = full[:stop]
         ch = device.channels[out.channel]
         tau = analog.rc_tau(ch.rise_time) if filtered else 0.0
-        y0 = 0.0 if out.kind == "iq" else x[0]     # silent line, idle gate before the run
+        # silent line; a gate where the previous run left it (its last sample)
+        y0 = 0.0 if out.kind == "iq" else full[-1]
         y = analog.rc_oversampled(x, dt, tau, m, y0=y0)
         if ch.bias_tee > 0 and not ideal:
             y = analog.bias_tee(y, h, ch.bias_tee)

@@ -9,7 +9,8 @@ channels) and start as soon as all of them are free, in file order.
 Frames: z rotations are frame updates (F_q += α); later bursts on the dot
 are played with their axis phase minus F_q.  Exchange gates act on the
 *difference* of two dots' frames, so before each exchange the differential
-phase is brought to the value the gate needs (see :mod:`compiler.pulses`):
+phase is brought to the value the gate needs (see :mod:`compiler.pulses`; a
+SWAP-like gate, as good at every phase, needs none: ``PairGate.phase_free``):
 either by delaying the exchange (free precession at the Zeeman difference,
 an explicit ``phasewait`` entry) or, when that would take longer or the dots have
 the same Larmor frequency, by a physical z rotation made of two π bursts on
@@ -394,6 +395,8 @@ class _Scheduler:
         c = self.device.coupling(a, b)
         delta = self.delta(a, b)
         g = pair_gate(design, c.exchange, delta)
+        if g.phase_free:
+            return t0                     # every pre-phase is as good (a SWAP-like target)
 
         def residual(t: int) -> float:
             xi = (self.frames[a] - self.frames[b]) / 2 - math.pi * delta * t * self.dt
