@@ -16,7 +16,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-import scipy.signal  # noqa: F401  (imported up front: no case pays for it under its time limit)
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 from compiler import limits, load

@@ -436,6 +436,56 @@ def test_volt_range_is_the_volts_extremes_without_building_them():
         assert (lo, hi) == (float(o.volts.min()), float(o.volts.max())), name
 
 
+# ------------------------------------------------- the analog path's recursion
+
+def _recursion_by_samples(b, p, x, y0):
+    """y_{k+1} = p·y_k + b·x_k, one sample after the other (the reference)."""
+    x = np.asarray(x)
+    y = np.broadcast_to(np.asarray(y0, dtype=complex), x.shape[:-1]).copy()
+    out = np.empty(x.shape, dtype=complex)
+    for k in range(x.shape[-1]):
+        y = p * y + b * x[..., k]
+        out[..., k] = y
+    return out
+
+
+@pytest.mark.parametrize("p", [0.0, 1e-120, 0.3, -0.5, 0.9, 0.999, 0.999999, 1.0, -0.9995,
+                               0.97 * np.exp(0.3j), -0.9999 + 0.001j, 1.001],
+                         ids=lambda p: f"{p:.6g}")
+@pytest.mark.parametrize("n", [0, 1, 7, 255, 256, 257, 3000])
+def test_first_order_recursion_agrees_with_the_sample_by_sample_one(p, n):
+    """analog.first_order (blocks of partial sums) against the recursion run
+    sample by sample: real and complex input, two leading axes, a start
+    state per row; poles from 0 to beyond the unit circle, lengths around the
+    block length (common practice, no source)."""
+    rng = np.random.default_rng(n)
+    y0 = rng.normal(size=(2, 3))
+    for x in (rng.normal(size=(2, 3, n)), rng.normal(size=(2, 3, n)) + 1j * rng.normal(size=(2, 3, n))):
+        got = analog.first_order(0.7, p, x, y0)
+        want = _recursion_by_samples(0.7, p, x, y0)
+        assert got.shape == x.shape
+        if n:
+            scale = np.max(np.abs(want))
+            assert np.max(np.abs(got - want)) <= 1e-12 * scale, np.max(np.abs(got - want)) / scale
+
+
+def test_first_order_recursion_agrees_with_scipy_lfilter_on_a_long_line():
+    """10^6 samples (three levels of blocks) of the tone-burst inversion's
+    kind of pole, against scipy.signal.lfilter (an independent implementation
+    of the same recursion), and the RC step response against 1 − e^{−t/τ}
+    (common practice, no source)."""
+    from scipy.signal import lfilter
+    rng = np.random.default_rng(5)
+    x = rng.normal(size=10**6) + 1j * rng.normal(size=10**6)
+    for p in (0.995 * np.exp(0.2j), 0.99999, -0.9995):
+        want, _ = lfilter([0.3], [1.0, -p], x, zi=[0.1 * p])
+        got = analog.first_order(0.3, p, x, 0.1)
+        assert np.max(np.abs(got - want)) <= 1e-11 * np.max(np.abs(want))
+    dt, tau = 1e-9, 7.3e-9
+    y = analog.rc_boundaries(np.ones(400), dt, tau)
+    np.testing.assert_allclose(y, 1 - np.exp(-np.arange(401) * dt / tau), rtol=0, atol=1e-14)
+
+
 # ------------------------------------------------- SWAP-like gates, run start
 
 def test_a_swap_needs_no_phase_alignment_and_starts_where_it_is():

@@ -62,14 +62,14 @@ def child_threads():
 
 # What a local worker needs, imported once by the fork server that starts the
 # workers: the sweep's and rb's point functions with what they load, and the
-# libraries the stages import on first use (signal: the analog path;
-# integrate: noise spectra; threadpoolctl: one_thread).  A worker is then a
+# libraries the stages import on first use (integrate: noise spectra;
+# threadpoolctl: one_thread).  A worker is then a
 # fork of a process that has it all, ready in milliseconds, instead of a
 # fresh interpreter importing numpy, scipy, qutip and dotseq (1 to 1.5 s
 # each, on cores the other workers need; the first-use imports were another
 # 0.3 s of CPU in every worker).
 PRELOAD = ("compiler.sweep.point", "compiler.benchmarking.run", "compiler.simulate.run",
-           "compiler.simulate.engines.fast", "scipy.signal", "scipy.integrate",
+           "compiler.simulate.engines.fast", "scipy.integrate",
            "threadpoolctl")
 
 
