@@ -513,3 +513,29 @@ def test_spectra_figure_draws():
     assert "spectra.png" in figures_mod.planned(result)
     fig = figures_mod.build("spectra.png", result)
     assert "Noise spectra" in fig.texts[0].get_text()
+
+
+@pytest.mark.parametrize("floor_times, said", [(-1.0, "within twice it"), (-1.9, "within twice it"),
+                                               (-2.5, "NEGATIVE BEYOND twice it"), (1.0, "")])
+def test_the_sub_step_error_is_shown_beside_the_fidelities_and_bounds_the_floor(floor_times, said):
+    """The error budget's estimate of the sub-step model's error (4/3·|F(m) −
+    F(2m)|, Richardson) is printed in the whole-run section too, with the way
+    to lower it when above the averaging tolerance; a negative floor is
+    flagged only beyond twice the estimate (with nothing else acting the
+    floor is the sub-step error itself and sits at ± the estimate, within
+    about 1 %, measured) (common practice, no source)."""
+    num = 3.0e-4
+    run = dataclasses.replace(make_run(), budget_numerical_error=num, budget_floor=floor_times * num)
+    r = SimulationResult("seq.dotseq", "dev", "fast", False, (run,), (), (),
+                         settings={"substeps_per_sample": 2, "averaging_tolerance": 1e-4})
+    text = summary_text(r)
+    whole, budget = text.split("\nerror budget:")
+    assert ("sub-step model error about 3.0e-04 in fidelity (2 sub-steps per sample" in whole
+            and "--substeps 4 should lower it" in whole)
+    if said:
+        assert said in budget
+    else:
+        assert "twice it" not in budget
+    quiet = dataclasses.replace(run, budget_numerical_error=5e-5)
+    r2 = dataclasses.replace(r, runs=(quiet,))
+    assert "--substeps" not in summary_text(r2).split("\nerror budget:")[0]
