@@ -29,6 +29,7 @@ import numpy as np
 from . import analog, shapes
 from .device import exchange as X
 from .device.model import Coupling, Device, RotationDefaults
+from .roots import brentq
 from .steps import EXCHANGE_GATES
 from .units import VOLTAGE, format_quantity as fq
 
@@ -318,9 +319,6 @@ def _at_level(integral, model, v0: float, idle: float, target: float, dt: float)
         if n > 10_000_000:
             raise DesignError("the exchange pulse would be longer than 10^7 samples",
                               "raise the barrier level")
-    # imported here: scipy.optimize takes about 0.4 s to import and only
-    # this root finder of it is needed (the command's start-up)
-    from scipy.optimize import brentq
     level = brentq(lambda v: integral(v, n) - target, idle, v0, xtol=1e-16, rtol=1e-15,
                    maxiter=200)
     return n, float(level)
@@ -448,7 +446,6 @@ def _design_phase(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt: fl
         return hi_n
 
     def solve(n: int, top: float) -> float:
-        from scipy.optimize import brentq
         return float(brentq(lambda v: integral(v, n) - target, idle, top, xtol=1e-16,
                             rtol=1e-15, maxiter=200))
 
@@ -562,7 +559,6 @@ def _design_exchange(gate: str, coupling: Coupling, ch, plunger_taus: tuple, dt:
                 f"even at the top of the barrier range ({hi * 1e3:.4g} mV) exchange over "
                 f"{n} samples stays below the {gate} target",
                 _shortest_exchange_hint(integral, hi, n, target, dt))
-        from scipy.optimize import brentq
         level = brentq(lambda v: integral(v, n) - target, idle, hi, xtol=1e-16, rtol=1e-15,
                        maxiter=200)
     else:

@@ -31,6 +31,8 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from .roots import brentq
+
 CPMG_NS = (1, 2, 4, 8, 16)      # the N of check's CPMG table
 
 
@@ -240,9 +242,6 @@ def coherence_time(spec: Spectrum, kind: str = "ramsey", n: int = 1) -> float:
         if g(hi) > 0:
             break
         hi += 2
-    # imported here: scipy.optimize takes about 0.4 s to import and only
-    # this root finder of it is needed (the command's start-up)
-    from scipy.optimize import brentq
     return math.exp(brentq(g, lo, hi, xtol=1e-8))
 
 
@@ -285,5 +284,4 @@ def fit_spectrum(measured: dict, *, f_low: float, f_high: float = math.inf,
     if g(lo) * g(hi) > 0:
         raise ValueError(f"no exponent in {beta_range} gives the two times {k1}: {t1:.4g} s "
                          f"and {k2}: {t2:.4g} s")
-    from scipy.optimize import brentq
     return spectrum(brentq(g, lo, hi, xtol=1e-6))

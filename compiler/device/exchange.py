@@ -35,6 +35,8 @@ from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 
+from ..roots import brentq
+
 if TYPE_CHECKING:
     from scipy.interpolate import PchipInterpolator
 
@@ -293,9 +295,6 @@ class Table(ExchangeModel):
                 return float(v0)
             if y >= interp(v1):
                 return float(v1)
-            # imported here: scipy.optimize takes about 0.4 s to import and only
-            # this root finder of it is needed (the command's start-up)
-            from scipy.optimize import brentq
             return brentq(lambda x: float(interp(x)) - y, v0, v1, xtol=1e-15)
 
         flat = np.array([root(float(x)) for x in j.ravel()])
