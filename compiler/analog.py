@@ -114,10 +114,10 @@ def first_order(b, p, x: np.ndarray, y0=0.0) -> np.ndarray:
     imported for this alone, took about 1 s of every command's start-up."""
     x = np.asarray(x)
     n = x.shape[-1]
-    dt = np.result_type(x, np.asarray(p), np.asarray(b), np.asarray(y0), float)
+    kind = np.result_type(x, np.asarray(p), np.asarray(b), np.asarray(y0), float)
     lead = x.shape[:-1]
-    s0 = np.broadcast_to(np.asarray(y0, dtype=dt), lead)
-    bx = np.multiply(b, x, dtype=dt)
+    s0 = np.broadcast_to(np.asarray(y0, dtype=kind), lead)
+    bx = np.multiply(b, x, dtype=kind)
     if n == 0:
         return bx
     ap = abs(p)
@@ -127,9 +127,9 @@ def first_order(b, p, x: np.ndarray, y0=0.0) -> np.ndarray:
     L = n if ap == 1 else max(1, min(n, RECURSION_BLOCK, int(200 / abs(math.log10(ap)))))
     nb = -(-n // L)
     if nb * L > n:
-        bx = np.concatenate([bx, np.zeros(lead + (nb * L - n,), dtype=dt)], axis=-1)
+        bx = np.concatenate([bx, np.zeros(lead + (nb * L - n,), dtype=kind)], axis=-1)
     blocks = bx.reshape(lead + (nb, L))
-    pw = np.power(np.asarray(p, dtype=dt), np.arange(1, L + 1))        # p^(i+1)
+    pw = np.power(np.asarray(p, dtype=kind), np.arange(1, L + 1))      # p^(i+1)
     out = np.cumsum(blocks / pw, axis=-1)
     out *= pw
     if nb == 1:

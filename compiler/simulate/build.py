@@ -231,9 +231,7 @@ def build_model(wf: Waveforms, device: Device, *, switches: Switches = ALL_ON,
         out = wf.outputs[cpl.barrier]
         x = np.asarray(out.arrived(out.volts if sw.on("quantised") else out.ideal), dtype=float)
         tau = analog.rc_tau(ch.rise_time) if sw.on("filters") else 0.0
-        # the level before the run: where the previous run left the line, its
-        # last sample (runs repeat back to back and end in padding; synth.played)
-        y0 = float(x[-1]) if len(x) else 0.0
+        y0 = out.before_run(x)
         v = _node_values(x, dt, tau, m, y0)
         if sw.on("bias_tee") and ch.bias_tee > 0:
             # high-pass of the tee (τ_b ≫ h: its low-pass part is taken per sub-step),

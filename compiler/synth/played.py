@@ -24,11 +24,7 @@ def as_played(wf: Waveforms, device: Device, name: str, oversample: int = 1) -> 
     x = out.arrived()
     if out.kind == "marker":
         return np.repeat(x, oversample)
-    # before the run a microwave output is silent and a gate output is where the
-    # previous run left it: at its last sample (runs repeat back to back and
-    # end in padding).  Not the first sample: an exchange pulse may start
-    # there, and the line still has to rise to it
-    y0 = 0.0 if out.kind == "iq" or not len(x) else x[-1]
+    y0 = out.before_run(x)
     y = analog.rc_mean_per_sub(x, dt, analog.rc_tau(ch.rise_time), oversample, y0=y0)
     if ch.bias_tee > 0:
         y = analog.bias_tee(y, dt / oversample, ch.bias_tee)

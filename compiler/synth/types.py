@@ -85,6 +85,19 @@ class Output:
             return v
         return np.concatenate((v[sh:], np.full(min(sh, len(v)), v[-1])))
 
+    def before_run(self, values: np.ndarray | None = None) -> float:
+        """The level (V) the output holds before the run starts, for the
+        analog path's initial state (``values`` as in :meth:`arrived`): a
+        microwave output is silent; a gate output is where the previous run
+        left it, its last sample (runs repeat back to back and end in
+        padding).  Not its first sample: a pulse may start there, and the line
+        still has to rise to it.  The as-played model and the simulator both
+        take it from here."""
+        v = self.volts if values is None else values
+        if self.kind == "iq" or not len(v):
+            return 0.0
+        return float(v[-1])
+
 
 @dataclass(frozen=True)
 class StepRecord:
