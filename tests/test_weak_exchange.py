@@ -288,6 +288,35 @@ def test_quiet_stretches_are_exact_where_that_is_cheap(tmp_path, long_range):
         assert a.stats["weak_exchange_chunks"] < w.stats["weak_exchange_chunks"] / 3
 
 
+def test_quiet_pair_beside_a_busy_weak_pair_stays_weak(tmp_path):
+    # drive crosstalk off (the error budget's run): six π bursts on D0 (0.6 µs)
+    # beside D1 and D2 idle at 1 kHz.  D1–D2 is quiet for the whole time, D0–D1 is busy (D0's
+    # drive changes every sub-step, so that pair takes nodes).  Taking D1–D2
+    # exactly there made a two-dot unit on which every node's transformed maps
+    # were 16 × 16 (30× the closed-barrier time); it stays weak, every dot
+    # keeps its own channel, and the result agrees with the exact treatment
+    # within the recorded bound (common practice, no source)
+    from compiler import CompileOptions
+    from compiler.simulate.sources import Switches, compile_changes
+    off = Switches().off("crosstalk")
+    seq = _case(tmp_path, 3, IDLE["1 kHz"], "rot D0 x 180 deg\n" * 6)
+    c = load(seq)
+    cr = compile_run(c.expanded.runs[0], c.device, CompileOptions(**compile_changes(off)))
+    model = build_model(cr.waveforms, cr.device, m=2, stop=end_sample(cr.timeline),
+                        switches=off)
+    pts = noise_points(model, 1)
+    eng = FastEngine()
+    prep = eng._prepare(model, pts)
+    assert prep["ip"][0].any() and prep["ip"][1].any()      # both pairs weak in the burst
+    a = eng.average(model, pts, process=True)
+    assert a.stats["largest_cluster"] == 1
+    b = FastEngine(exchange_budget=0.0).average(model, pts, process=True)
+    bound = a.stats["exchange_error_bound"]
+    assert 0 < bound <= 1e-6
+    assert np.max(np.abs(a.superop - b.superop)) <= 2 * bound
+    assert abs(_fidelity(a, cr, c) - _fidelity(b, cr, c)) <= bound
+
+
 def test_small_channels_after_a_large_pending_one_are_applied_not_multiplied_in(
         tmp_path, monkeypatch):
     # the cost rule of the pending channels (fast._fuses): multiplying a k × k
