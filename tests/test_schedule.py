@@ -170,14 +170,37 @@ def test_zeeman_difference_warning():
 
 def test_weak_exchange_warning_says_how_to_fix_it():
     # J(250 mV) ≈ 10 MHz against ΔEz(A,C) ≈ 5.6 MHz: J = 5·ΔEz ≈ 28 MHz is at
-    # v0·ln(J/j0) = 40 mV·ln(28 MHz/20 kHz) ≈ 290 mV, inside the ±1 V barrier
+    # v0·ln(J/j0) = 40 mV·ln(28 MHz/20 kHz) ≈ 290 mV, inside the ±1 V barrier.
+    # That level is not offered: the pulse is whole samples and its level is
+    # lowered to give the exact exchange, so amplitude=289.8 mV played J =
+    # 27.78 MHz and the warning came back.  The offered pulse is designed first
+    # (8 samples, ⌊¼/(28 MHz·1 ns)⌋), and following either form of it clears
+    # the warning (common practice, no source)
     tl = timeline("sqrtswap A C amplitude=250 mV\n")
     m = tl.warnings[0].message
-    assert "fix: a larger J: J ≥ 27.99 MHz" in m and "give amplitude=289.8 mV" in m
-    assert "pulse_voltage of A-C" in m
+    assert "fix: a larger J: J ≥ 27.99 MHz needs a barrier pulse of 8 samples" in m
+    assert "give duration=8 ns or amplitude=294.17 mV" in m and "pulse_voltage of A-C" in m
+    for fix in ("duration=8 ns", "amplitude=294.17 mV"):
+        assert not timeline(f"sqrtswap A C {fix}\n").warnings
+    assert timeline("sqrtswap A C amplitude=289.8 mV\n").warnings     # the level of J(V) alone
     assert "a smaller Zeeman difference" in m
     # the regime where a controlled phase works instead (Russ et al., PRB 97, 085421 (2018))
     assert "or a controlled phase (cz A C), which needs J well below the Zeeman difference" in m
+
+
+def test_weak_exchange_fix_on_a_channel_too_slow_for_the_pulse():
+    # a 6 ns rise time on A–C's barrier (τ = 6 ns/2.2 = 2.7 ns, the 10–90 % rise
+    # of a first-order low-pass: common practice, no source): J ≥ 28 MHz needs
+    # a pulse of about 8.9 ns, under four RC times, so the filter would shape
+    # it; the hint says the channel is too slow instead of offering that pulse
+    slow = load_device_text(DEVICE.replace("B_AC: {kind: gate, sample_rate: 1 GS/s,",
+                                           "B_AC: {kind: gate, sample_rate: 1 GS/s, rise_time: 6 ns,"),
+                            "slow.yaml")
+    ex = expand(parse_text("sqrtswap A C amplitude=250 mV\n", "t.dotseq"))
+    check(ex, slow)
+    m = schedule(ex.runs[0], slow).warnings[0].message
+    assert "needs a pulse of about 8.931 ns, too short for the barrier channel of A-C" in m
+    assert "rise time 6 ns at 1 GS/s" in m and "duration=" not in m
 
 
 def test_a_warning_inside_a_block_names_the_statement_and_the_call():

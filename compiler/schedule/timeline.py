@@ -193,35 +193,74 @@ class Timeline:
         return self.n_samples * self.dt
 
 
-def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.25) -> str:
+SHAPED_TAUS = 4        # a pulse offered by duration= lasts at least this many RC times of its channel
+
+
+def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.25,
+                      gate: str = "sqrtswap") -> str:
     """What makes an exchange gate clean again: a larger J, at a higher
     barrier pulse level (and so a shorter pulse), with the level that gives
     J = CLEAN_EXCHANGE_RATIO × the Zeeman difference when the calibration
     and the channel reach it; or a smaller Zeeman difference; or, when the
     two-qubit gate may be a controlled phase, ``cz``, which works in this
-    regime (docs/language.md)."""
-    from ..analog import top_voltage
-    from ..device import exchange as X
+    regime (docs/language.md).
+
+    The suggested step is designed before it is offered: the pulse is whole
+    samples and its level is lowered to give the exact exchange, so the
+    level of J(V) = want realises less J (following that hint, the warning
+    came back).  The pulse of n = ⌊target/(want·dt)⌋ samples is offered
+    (duration=, and amplitude= at its level rounded up when that designs
+    the same pulse) when it lasts at least SHAPED_TAUS RC times of the
+    channel; otherwise that the channel is too slow for it is said."""
     want = CLEAN_EXCHANGE_RATIO * delta
+    pair = "-".join(coupling.dots)
+    dt = 1.0 / device.sample_rate
+
+    def designed(**kw):
+        try:
+            return design_exchange(gate, coupling, device, dt, **kw)
+        except DesignError:
+            return None
+    from ..analog import top_voltage
     ch = device.channels[coupling.barrier]
     top = min(top_voltage(ch.v_min, ch.v_max, ch.bits), X.v_range(coupling.exchange)[1])
     try:
         v = float(X.v_of_j(coupling.exchange, want))
     except ValueError:
         v = math.inf
-    pair = "-".join(coupling.dots)
-    dt = 1.0 / device.sample_rate
     if target / want < 2 * dt:
         level = (f"J ≥ {fq(want, FREQUENCY)} would make the pulse about "
                  f"{fq(target / want, TIME)}, under two samples at this sample rate")
-    elif v <= top:
-        level = (f"J ≥ {fq(want, FREQUENCY)} needs a barrier pulse level of about "
-                 f"{fq(v, VOLTAGE)}: give amplitude={fq(v, VOLTAGE)} on the step or raise "
-                 f"pulse_voltage of {pair} in the device file (the pulse gets shorter)")
-    else:
+    elif v > top:
         level = (f"J ≥ {fq(want, FREQUENCY)} is beyond the barrier's calibration and range "
                  f"(up to {fq(top, VOLTAGE)}): extend the J(V) calibration or the channel range "
                  f"of {pair}")
+    else:
+        # the level of J(V) = want realises less J on the sample grid (the
+        # pulse is whole samples and its level is lowered to give the exact
+        # exchange): design the pulse of n samples instead, offered when it is
+        # long against the channel's RC time (shorter, the filter sets its
+        # shape and J at the level is never reached)
+        level = None
+        n = int(target / (want * dt))
+        tau = rc_tau(ch.rise_time)
+        if n >= 1 and n * dt >= SHAPED_TAUS * tau:
+            d = designed(duration=n * dt)
+            if d is not None and d.j_peak >= want:
+                v_up = math.ceil(d.level / 1e-5) * 1e-5           # 10 µV, rounded up
+                a = designed(amplitude=v_up)
+                alt = (f" or amplitude={fq(v_up, VOLTAGE, 6)} (or that pulse_voltage of {pair} "
+                       "in the device file)" if a is not None and a.j_peak >= want else "")
+                level = (f"J ≥ {fq(want, FREQUENCY)} needs a barrier pulse of {n} samples at "
+                         f"about {fq(d.level, VOLTAGE)} (J there {fq(d.j_peak, FREQUENCY)}): give "
+                         f"duration={fq(n * dt, TIME)}{alt} on the step")
+        if level is None:
+            level = (f"J ≥ {fq(want, FREQUENCY)} needs a pulse of about "
+                     f"{fq(target / want, TIME)}, too short for the barrier channel of "
+                     f"{pair} (rise time {fq(ch.rise_time, TIME)} at "
+                     f"{fq(device.sample_rate, FREQUENCY).replace('Hz', 'S/s')}) to shape: the "
+                     "filter, not the level, would set the exchange; a faster channel (shorter "
+                     "rise time, higher sample rate)")
     return (f"fix: a larger J: {level}; or a smaller Zeeman difference (a lower field); or a "
             f"controlled phase (cz {coupling.dots[0]} {coupling.dots[1]}), which needs J well "
             "below the Zeeman difference")
@@ -460,7 +499,7 @@ class _Scheduler:
             self.warn(f"J = {fq(design.j_peak, FREQUENCY)} is not well above the Zeeman difference "
                       f"{fq(abs(delta), FREQUENCY)} of {a} and {b}: the {step.gate} is not clean "
                       f"(best {fid:.6f} average gate fidelity after frame compensation); "
-                      + weak_exchange_fix(c, self.device, abs(delta), design.target), step,
+                      + weak_exchange_fix(c, self.device, abs(delta), design.target, step.gate), step,
                       f"zeeman:{step.span}", 1 - fid)
         elif fid < EXCHANGE_FIDELITY_WARN:
             self.warn(f"this {step.gate} reaches only {fid:.6f} average gate fidelity in the "
