@@ -316,6 +316,31 @@ def test_budget_lines_follow_the_registry():
     assert {b.source for b in r.budget} == {s.name for s in SOURCES.values()}
 
 
+def test_a_long_error_budget_says_so_before_it_starts():
+    # the budget's evaluations take the total's rule with sources off, so the
+    # total's last evaluation (its wall time, recorded by evaluate_whole) bounds
+    # each about: 15 of them and the floor's second run at twice the sub-steps,
+    # on the worker threads; said only from SLOW_BUDGET_S on
+    from compiler.simulate import run as R
+    from compiler.simulate.sources import ALL_ON
+    dev = load_device_text(one_dot(), "d.yaml")
+    c = compile(load_checked_text("prepare A xplus\nrot A x 90 deg\nwait 1 us\n", dev))
+    said = []
+    simulate(c, SimOptions(nodes=1, steps=False, threads=2), progress=said.append)
+    assert "error budget: 15 evaluations" in said              # quick: nothing added
+    opts = SimOptions(nodes=1, steps=False, threads=2)
+    parts: dict = {}
+    total = R.evaluate_whole(c.runs[0], ALL_ON, opts, FastEngine(), parts=parts)
+    assert 0 < parts["final_s"] < 60
+    said.clear()
+    R.error_budget(c.runs[0], opts, FastEngine(), total, c.recompiler.run, said.append,
+                   None, 100.0)
+    # 100 s × (15 + 2) / 2 threads = 850 s
+    assert said == ["error budget: 15 evaluations, up to about 14 min on 2 threads (the whole "
+                    "run's last evaluation took 100 s)"]
+    assert R.format_duration(119.4) == "119 s" and R.format_duration(600) == "10 min"
+
+
 def test_a_lindblad_source_is_one_registry_entry(monkeypatch):
     # A new Lindblad source needs only a registry entry (and the device field it
     # reads; here an existing one, T1, read a second time as an extra pure

@@ -42,6 +42,7 @@ MAX_PROCESS_QUBITS = 5
 MAX_SHOTS = 10 ** 12
 MAX_NODES = 41                    # quadrature nodes per variable to start from, at most
 MAX_REFINED_NODES = 129           # the refinement stops there (model.normal_rule: nested rules)
+SLOW_BUDGET_S = 30.0              # s: an error budget expected to take longer says so before it starts
 
 
 @dataclass(frozen=True)
@@ -421,7 +422,10 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
         correction = None
     if nodes is not None or not noisy or opts.nodes <= 1:
         n = opts.nodes if nodes is None else nodes
+        t0 = time.perf_counter()
         w = _evaluate(crun, model, n, rule(n), engine, traces, correction, parts, opts)
+        if parts is not None:
+            parts["final_s"] = time.perf_counter() - t0
         # nothing to average: exact; averaging switched off (one node) or a
         # fixed rule asked for by the caller: not estimated here
         err = 0.0 if not noisy else None
@@ -430,8 +434,11 @@ def evaluate_whole(crun: CompiledRun, switches: Switches, opts: SimOptions, engi
     coarse = _evaluate(crun, model, coarse_n, rule(coarse_n), engine, 0, correction, None, opts)
     fine_n = opts.nodes
     while True:
+        t0 = time.perf_counter()
         fine = _evaluate(crun, model, fine_n, rule(fine_n), engine, traces, correction, parts,
                          opts)
+        if parts is not None:     # the wall time of the kept rule (the budget's runs take it)
+            parts["final_s"] = time.perf_counter() - t0
         diff = max(abs(fine.f_state - coarse.f_state),
                    abs((fine.f_avg or 0.0) - (coarse.f_avg or 0.0)))
         if fine_n >= TRAPEZOID_FROM:
@@ -583,8 +590,13 @@ def quadrature_rule(device: Device, opts: SimOptions) -> str:
     return "tensor" if opts.nodes ** n_vars <= 27 else "additive"
 
 
+def format_duration(s: float) -> str:
+    """A wall time for a person: seconds below two minutes, then minutes."""
+    return f"{s:.0f} s" if s < 120 else f"{s / 60:.0f} min"
+
+
 def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
-                 recompile, progress=None, correction=None):
+                 recompile, progress=None, correction=None, each_s: float = 0.0):
     """Contribution of each registry source with ``budget="switch"``: total
     infidelity minus the infidelity with that source switched off (the run
     recompiled through ``recompile`` under the source's ``compile_off``
@@ -609,7 +621,15 @@ def error_budget(base: CompiledRun, opts: SimOptions, engine, total: Whole,
     jobs = [ALL_ON.off(src.key) for src in switched] + [floor()]
     jobs = [(compiled_for(sw), sw) for sw in jobs]
     if progress:
-        progress(f"error budget: {len(jobs)} evaluations")
+        # each runs the total's rule with some sources off (no more noise
+        # variables than the total), so the total's last evaluation bounds
+        # it about; the floor is run twice (the second at twice the sub-steps)
+        threads = opts.worker_threads()
+        upto = each_s * (len(jobs) + 2) / threads
+        progress(f"error budget: {len(jobs)} evaluations"
+                 + (f", up to about {format_duration(upto)} on {threads} thread"
+                    f"{'s' * (threads != 1)} (the whole run's last evaluation took "
+                    f"{format_duration(each_s)})" if upto >= SLOW_BUDGET_S else ""))
 
     absent = {s.key for s in switched if s.applies is not None and not s.applies(device)}
 
@@ -718,7 +738,8 @@ def _simulate(compiled, opts: SimOptions, progress, recompiler: Recompiler) -> S
             steps = step_fidelities(crun, opts, engine, recompiler.part)
         if is_detail and opts.budget:
             budget, floor, remainder, numerical = error_budget(
-                crun, opts, engine, whole, recompiler.run, progress, parts.get("correction"))
+                crun, opts, engine, whole, recompiler.run, progress, parts.get("correction"),
+                parts.get("final_s", 0.0))
         runs.append(RunResult(run.index, run.sweep, tuple(device.dots), whole.duration, whole.f_pro,
                               whole.f_avg, whole.f_state, whole.pops, steps, budget,
                               whole.infidelity if budget else 0.0, floor, remainder,
