@@ -341,6 +341,37 @@ def test_a_long_error_budget_says_so_before_it_starts():
     assert R.format_duration(119.4) == "119 s" and R.format_duration(600) == "10 min"
 
 
+def test_sources_a_device_does_not_have_cost_no_evaluation(monkeypatch):
+    # a dot without a Zeeman noise spectrum, couplings without barrier
+    # spectra, no bias tee and no mixer calibration: those seven budget lines
+    # are exactly 0 and take no evaluation (each had been one more run of the
+    # whole sequence, 4·10⁻¹² off the total by rounding); the 8 others and the
+    # floor's second run at twice the sub-steps are evaluated
+    from compiler.simulate import run as R
+    from compiler.simulate import sources as S
+    dev = load_device_text(one_dot(), "d.yaml")
+    c = compile(load_checked_text("prepare A xplus\nrot A x 90 deg\nwait 1 us\n", dev))
+    calls = []
+    inner = R.evaluate_whole
+
+    def counted(crun, sw, *a, **k):
+        calls.append(sw)
+        return inner(crun, sw, *a, **k)
+    monkeypatch.setattr(R, "evaluate_whole", counted)
+    run = simulate(c, SimOptions(nodes=1, steps=False, threads=1)).runs[0]
+    absent = ("zeeman_static", "zeeman_gate", "zeeman_fast", "barrier_static", "barrier_gate",
+              "bias_tee", "mixer")
+    lines = {b.source: b.infidelity for b in run.budget}
+    assert all(lines[S.SOURCES[k].name] == 0.0 for k in absent)
+    assert len(calls) == 1 + (15 - len(absent)) + 1          # whole run, budget, fine floor
+    assert not any(sw.off_keys == {k} for sw in calls for k in absent)
+    # a device with a spectrum has those lines evaluated
+    spec = load_device_text(CORRELATED_DEVICE.format(c=0.5, lo=larmor_frequency(2.005, 0.5)),
+                            "s.yaml")
+    assert S._has_zeeman_spectrum(spec) and not S._has_zeeman_spectrum(dev)
+    assert not S._has_barrier_spectrum(dev) and not S._has_bias_tee(dev)
+
+
 def test_a_lindblad_source_is_one_registry_entry(monkeypatch):
     # A new Lindblad source needs only a registry entry (and the device field it
     # reads; here an existing one, T1, read a second time as an extra pure

@@ -211,6 +211,21 @@ def _has_mixer(device: Device) -> bool:
     return any(c.mixer is not None and not c.mixer.ideal for c in device.channels.values())
 
 
+def _has_zeeman_spectrum(device: Device) -> bool:
+    """Whether a dot of the device has a Zeeman noise spectrum."""
+    return any(d.zeeman_noise is not None for d in device.dots.values())
+
+
+def _has_barrier_spectrum(device: Device) -> bool:
+    """Whether a coupling of the device has a barrier noise spectrum."""
+    return any(c.barrier_noise is not None for c in device.couplings)
+
+
+def _has_bias_tee(device: Device) -> bool:
+    """Whether a channel of the device is AC coupled through a bias tee."""
+    return any(getattr(c, "bias_tee", 0.0) > 0 for c in device.channels.values())
+
+
 SOURCES: dict[str, Source] = {s.key: s for s in (
     Source("t1", "T1 relaxation", "dots.*.t1, temperature",
            "Lindblad relaxation with thermal excitation at the device temperature",
@@ -226,24 +241,24 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            "dots.*.zeeman_noise, acquisition_time",
            "S(f) below 0.1/T (T the simulated stretch) as a Gaussian detuning held for the "
            "stretch, by quadrature", "quasi-static",
-           window=lambda dev, t: _spectral(dev, t, "static")),
+           window=lambda dev, t: _spectral(dev, t, "static"), applies=_has_zeeman_spectrum),
     Source("zeeman_gate", "Zeeman noise spectrum, gate band", "dots.*.zeeman_noise",
            "S(f) from 0.1/T to 64/T on the played waveforms: by its filter function in "
            "the toggling frame (second-order cumulant) up to 16 levels in all, as "
            "random-phase sinusoids (1/(2T) apart up to 10/T, then 4 per decade) above",
            "gate band",
-           window=lambda dev, t: _spectral(dev, t, "gate")),
+           window=lambda dev, t: _spectral(dev, t, "gate"), applies=_has_zeeman_spectrum),
     Source("zeeman_fast", "Zeeman noise spectrum, white and fast band", "dots.*.zeeman_noise",
            "white part and S(f) above 64/T as Lindblad dephasing", "lindblad",
-           window=lambda dev, t: _spectral(dev, t, "fast")),
+           window=lambda dev, t: _spectral(dev, t, "fast"), applies=_has_zeeman_spectrum),
     Source("barrier_static", "barrier noise spectrum, quasi-static band",
            "couplings.*.barrier_noise, acquisition_time",
            "barrier-voltage S(f) below 0.1/T as a held offset, through J(V)", "quasi-static",
-           window=_barrier_static),
+           window=_barrier_static, applies=_has_barrier_spectrum),
     Source("barrier_gate", "barrier noise spectrum, gate band", "couplings.*.barrier_noise",
            "barrier-voltage S(f) from 0.1/T to 64/T (white part included) as exchange "
            "fluctuations (dJ/dV)·δV on the played barrier pulses, by its filter function",
-           "gate band", window=_barrier_gate),
+           "gate band", window=_barrier_gate, applies=_has_barrier_spectrum),
     Source("crosstalk", "drive crosstalk", "the shared microwave lines",
            "each dot driven only by its own bursts (and no light-shift corrections)", "played",
            compile_off=(("spectator_correction", False), ("per_dot", True))),
@@ -252,7 +267,8 @@ SOURCES: dict[str, Source] = {s.key: s for s in (
            compile_off=(("ideal_bandwidth", True),)),
     Source("quantised", "quantisation", "channels.*.bits, v_min, v_max",
            "unquantised samples", "played", compile_off=(("keep_ideal", True),)),
-    Source("bias_tee", "bias tee", "channels.*.bias_tee", "no high-pass droop", "played"),
+    Source("bias_tee", "bias tee", "channels.*.bias_tee", "no high-pass droop", "played",
+           applies=_has_bias_tee),
     Source("mixer", "I/Q mixer imbalance", "channels.*.mixer",
            "an ideal mixer, playing I/Q as designed (with the correction on, what is left of "
            "the image and LO leakage after the pre-distortion)", "played",
