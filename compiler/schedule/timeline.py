@@ -27,7 +27,7 @@ from dataclasses import dataclass, replace
 from .. import program as P
 from ..device.model import Device
 from ..errors import Problem, ScheduleError, Span, read_source_line
-from ..analog import burst_quantisation_loss, lsb, rc_tau
+from ..analog import burst_quantisation_loss, lsb, rc_tau, top_voltage
 from ..physics import precession_sign
 from ..steps import EXCHANGE_GATES, KINDS
 from ..device import exchange as X
@@ -221,7 +221,6 @@ def weak_exchange_fix(coupling, device: Device, delta: float, target: float = 0.
             return design_exchange(gate, coupling, device, dt, **kw)
         except DesignError:
             return None
-    from ..analog import top_voltage
     ch = device.channels[coupling.barrier]
     top = min(top_voltage(ch.v_min, ch.v_max, ch.bits), X.v_range(coupling.exchange)[1])
     try:

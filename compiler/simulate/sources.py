@@ -223,7 +223,7 @@ def _has_barrier_spectrum(device: Device) -> bool:
 
 def _has_bias_tee(device: Device) -> bool:
     """Whether a channel of the device is AC coupled through a bias tee."""
-    return any(getattr(c, "bias_tee", 0.0) > 0 for c in device.channels.values())
+    return any(c.bias_tee > 0 for c in device.channels.values())
 
 
 SOURCES: dict[str, Source] = {s.key: s for s in (
