@@ -318,3 +318,45 @@ def test_exact_pair_channels_in_small_batches_are_the_same(tmp_path):
     assert a.stats["largest_cluster"] == 2
     assert np.max(np.abs(a.superop - b.superop)) < 1e-12
     assert peak < 100e6
+
+
+# ------------------------------------------------------------------ the estimate
+
+def test_the_estimate_counts_the_work_it_is_made_of(tmp_path, monkeypatch):
+    # the levels path announces a slow evaluation before any work (a two-dot
+    # silicon device with valley levels took 28 s per point, 12 min per
+    # evaluation, without a word): its count of the exact pair's distinct
+    # sub-steps is the number of 256 × 256 exponentials the run then makes, its
+    # chunks are the run's; the seconds are count·N³ at a rate measured here
+    # (common practice, no source)
+    from compiler.simulate.engines import fast as FE
+    from compiler.simulate.engines import levels as LV
+    made = []
+    orig = LV._expm
+
+    def counted(A):
+        if A.shape[-1] >= 64:
+            made.append(int(np.prod(A.shape[:-2])))
+        return orig(A)
+    monkeypatch.setattr(LV, "_expm", counted)
+    monkeypatch.setattr(FE, "SLOW_NOTE_S", 0.0)
+    said = []
+    model = _model(tmp_path, IDLE["1 kHz"], "sqrtswap A B\nwait 100 ns\n", m=1)
+    pts = noise_points(model, 1)
+    eng = FastEngine()
+    eng.notify = said.append
+    ev = eng.average(model, pts, process=True)
+    est = ev.stats["estimate"]
+    assert est["largest"]["dots"] == ["A", "B"] and est["largest"]["dimension"] == 256
+    assert est["largest"]["distinct_substeps"] == sum(made) > 1
+    assert est["weak_chunks"] == ev.stats["weak_exchange_chunks"] >= 1
+    assert est["exact_seconds"] == pytest.approx(sum(made) * 256.0 ** 3 * LV.EXP_S_PER_N3)
+    assert len(said) == 1 and "dots A, B form one exact cluster (256×256" in said[0]
+    assert "carry more than two levels" in said[0]
+    # nothing is said below the threshold
+    monkeypatch.setattr(FE, "SLOW_NOTE_S", 1e9)
+    said.clear()
+    quiet = FastEngine()
+    quiet.notify = said.append
+    quiet.average(model, pts, process=True)
+    assert not said

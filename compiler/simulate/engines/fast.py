@@ -334,6 +334,7 @@ class FastEngine:
         st["weak_exchange_rule"] = " and ".join(sorted(self._weak_rules_now)) or "none"
         st["exchange_error_bound"] = 0.75 * self._neglected_now + self._weak_bound_now
         self.exchange_bound_max = max(self.exchange_bound_max, st["exchange_error_bound"])
+        st["estimate"] = self._estimate_now
         st["wall_s"] = wall
         return Evolution(S, rho, traces, st)
 

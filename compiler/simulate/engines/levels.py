@@ -105,6 +105,10 @@ def _expm(A: np.ndarray) -> np.ndarray:
 
 
 CACHE_BYTES = 1 << 28          # the channel cache is cleared when it would exceed this
+# seconds per N³ (N × N channels) of one exact exponential and of one weak
+# chunk's products per point, measured on one core here (LevelsPath._estimate)
+EXP_S_PER_N3 = 7.7e-10
+CHUNK_S_PER_N3 = 2.6e-10
 
 
 class LevelsPath:
@@ -142,6 +146,7 @@ class LevelsPath:
         S_sum = rho_sum = None
         traces: dict = {}
         wrun = LW.WeakRun(self, model, coefs, wprep, _basis, self._weak_maps) if wprep else None
+        eng._estimate_now = self._estimate(model, coefs, on, wmask, wrun, bounds, points)
         weak_y, weak_q = [], []
         for ip, pt in enumerate(points):
             cols = []
@@ -212,6 +217,93 @@ class LevelsPath:
             eng.exponentials += wrun.exponentials
             eng._weak_rules_now = set(wrun.rules)
         return S_sum, rho_sum, traces, time.perf_counter() - t0
+
+    # ------------------------------------------------------------------ estimate
+    def _estimate(self, model: Model, coefs, on, wmask, wrun, bounds, points) -> dict:
+        """Time of this evaluation before any work, announced through the
+        engine's ``notify`` when it is :data:`.fast.SLOW_NOTE_S` or more.
+
+        Exact clusters: one exponential of the cluster's N × N generator (N =
+        (Π levels)²) per distinct sub-step of every segment and per distinct
+        value of the cluster's own noise variables (the cache serves the
+        rest); weak segments: per chunk and point a few N × N products on the
+        pair.  Seconds = Σ count·N³·c with c measured on a 256 × 256 pair of
+        four-level dots (:data:`EXP_S_PER_N3`, :data:`CHUNK_S_PER_N3`): 1828
+        distinct sub-steps of an exchange pulse in 23.7 s with their product
+        (scipy's expm: the other valley's levels, tens of GHz off in the
+        qubit's frame, make every exponential one of a large norm), and
+        8831 more weak chunks in 39 s (one point, single thread)."""
+        from .fast import SLOW_NOTE_S
+        n = model.n
+        pt0 = points[0] if points else None
+        exact: dict = {}
+        weak_s = 0.0
+        chunks = 0
+        for s, e in zip(bounds[:-1], bounds[1:]):
+            if e <= s or pt0 is None:
+                continue
+            active, weak = LW.split(model, on, wmask, s)
+            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
+                                             for i in active], active):
+                if len(dots) == 1 and weak and dots[0] in weak[1]:
+                    continue
+                st = self._structure(model, dots, pairs)
+                N = st["base"].shape[-1]
+                if N < 64:
+                    continue                  # a single dot's channels: cheap
+                cols = [self._column(model, coefs, r, s, e, pt0) for r in st["recipe"]]
+                rows = 1
+                if cols and e - s > 1:
+                    C = np.stack(cols, axis=1)
+                    scale = np.abs(C).max(axis=0)
+                    tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+                    rows += int(np.count_nonzero(np.any(np.abs(C[1:] - C[:-1]) > tol, axis=1)))
+                got = exact.setdefault((dots, pairs), {"dots": dots, "N": N, "rows": 0})
+                got["rows"] += rows
+            if weak and wrun is not None:
+                for st in wrun._structure(s, e, tuple(weak[0])):
+                    D = math.prod(model.levels[q] for q in st["dots"])
+                    nc = int(st["nchunks"]) * len(st["pairs"])
+                    chunks += nc
+                    weak_s += nc * len(points) * float(D) ** 6 * CHUNK_S_PER_N3
+        exact_s = 0.0
+        largest = None
+        for (dots, pairs), got in exact.items():
+            keys = {(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in dots),
+                     tuple(pt.dv[j] if pt.dv else 0.0 for j in pairs),
+                     tuple(pt.modes) if pt.modes else ()) for pt in points}
+            got["variants"] = len(keys)
+            got["seconds"] = len(keys) * got["rows"] * float(got["N"]) ** 3 * EXP_S_PER_N3
+            exact_s += got["seconds"]
+            if largest is None or got["seconds"] > largest["seconds"]:
+                largest = got
+        est = {"seconds": exact_s + weak_s, "exact_seconds": exact_s, "weak_seconds": weak_s,
+               "weak_chunks": chunks, "largest": None}
+        if largest is not None:
+            est["largest"] = {"dots": [model.dots[q].name for q in largest["dots"]],
+                              "dimension": largest["N"], "distinct_substeps": largest["rows"],
+                              "variants": largest["variants"]}
+        notify = getattr(self.engine, "notify", None)
+        if notify is not None and est["seconds"] >= SLOW_NOTE_S:
+            multi = [model.dots[q].name for q in range(n) if model.levels[q] > 2]
+            if largest is not None and exact_s >= weak_s:
+                N = largest["N"]
+                why = (f"dots {', '.join(est['largest']['dots'])} form one exact cluster "
+                       f"({N}×{N} channels of their {'×'.join(str(model.levels[q]) for q in largest['dots'])} "
+                       f"levels, {largest['rows']} distinct sub-steps, {largest['variants']} "
+                       "noise variants)")
+            else:
+                why = (f"weak exchange in {chunks} chunks, each taken for every one of "
+                       f"{len(points)} noise points on the pair's "
+                       f"{'×'.join(str(lv) for lv in model.levels)} levels")
+            notify(f"slow: one evaluation will take roughly {est['seconds']:.0f} s (several per "
+                   f"run): {why}; dots {', '.join(multi)} carry more than two levels (their "
+                   "valley or spin–valley keys); where the other levels take no part in the "
+                   "run (no spin–valley coupling, far above the qubit), describing those dots "
+                   "without them makes each dot's channels 4 × 4 instead of 16 × 16; closing "
+                   "idle barriers further, a looser --exchange-accuracy or fewer --nodes also "
+                   "make it cheaper")
+        return est
 
     # ------------------------------------------------------------------ channels
     def _structure(self, model: Model, dots, pairs):
