@@ -323,7 +323,8 @@ class FastEngine:
         with one_thread():
             S, rho, traces, wall = self._levels.average(model, points, rho0=rho0,
                                                         process=process,
-                                                        trace_points=trace_points)
+                                                        trace_points=trace_points,
+                                                        slow_note_s=SLOW_NOTE_S)
         self.calls += 1
         now = self.stats()
         st = {k: now[k] - stats0[k] for k in now}

@@ -121,7 +121,8 @@ class LevelsPath:
         self._weak_maps: dict = {}     # weak pairs' one-dot maps (levels_weak.PairMaps)
 
     # ------------------------------------------------------------------ public
-    def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0):
+    def average(self, model: Model, points, *, rho0=None, process=False, trace_points=0,
+                slow_note_s: float = math.inf):
         eng = self.engine
         t0 = time.perf_counter()
         levels = model.levels
@@ -146,7 +147,8 @@ class LevelsPath:
         S_sum = rho_sum = None
         traces: dict = {}
         wrun = LW.WeakRun(self, model, coefs, wprep, _basis, self._weak_maps) if wprep else None
-        eng._estimate_now = self._estimate(model, coefs, on, wmask, wrun, bounds, points)
+        eng._estimate_now = self._estimate(model, coefs, on, wmask, wrun, bounds, points,
+                                           slow_note_s)
         weak_y, weak_q = [], []
         for ip, pt in enumerate(points):
             cols = []
@@ -219,9 +221,11 @@ class LevelsPath:
         return S_sum, rho_sum, traces, time.perf_counter() - t0
 
     # ------------------------------------------------------------------ estimate
-    def _estimate(self, model: Model, coefs, on, wmask, wrun, bounds, points) -> dict:
+    def _estimate(self, model: Model, coefs, on, wmask, wrun, bounds, points,
+                  slow_note_s: float = math.inf) -> dict:
         """Time of this evaluation before any work, announced through the
-        engine's ``notify`` when it is :data:`.fast.SLOW_NOTE_S` or more.
+        engine's ``notify`` when it is ``slow_note_s`` or more (the engine's
+        :data:`.fast.SLOW_NOTE_S`).
 
         Exact clusters: one exponential of the cluster's N × N generator (N =
         (Π levels)²) per distinct sub-step of every segment and per distinct
@@ -233,7 +237,6 @@ class LevelsPath:
         (scipy's expm: the other valley's levels, tens of GHz off in the
         qubit's frame, make every exponential one of a large norm), and
         8831 more weak chunks in 39 s (one point, single thread)."""
-        from .fast import SLOW_NOTE_S
         n = model.n
         pt0 = points[0] if points else None
         exact: dict = {}
@@ -284,7 +287,7 @@ class LevelsPath:
                               "dimension": largest["N"], "distinct_substeps": largest["rows"],
                               "variants": largest["variants"]}
         notify = getattr(self.engine, "notify", None)
-        if notify is not None and est["seconds"] >= SLOW_NOTE_S:
+        if notify is not None and est["seconds"] >= slow_note_s:
             multi = [model.dots[q].name for q in range(n) if model.levels[q] > 2]
             if largest is not None and exact_s >= weak_s:
                 N = largest["N"]
