@@ -336,6 +336,7 @@ def check_refused_at_the_step_budget(path: Path, n_lines: int, out: Path,
             "above_interpreter_MiB": round(extra / 2**20, 1), "message": err.splitlines()[0]}
 
 
+@pytest.mark.slow      # 16 s: the default suite was at 4m40s-4m56s of its 5 min on 2 cores
 def test_100k_lines_compile_within_the_estimated_memory(long_file, tmp_path):
     check_compiles_within_the_estimate(long_file, N_DEFAULT_LINES, tmp_path / "bundle")
 
