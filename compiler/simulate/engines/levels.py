@@ -255,12 +255,8 @@ class LevelsPath:
                 if N < 64:
                     continue                  # a single dot's channels: cheap
                 cols = [self._column(model, coefs, r, s, e, pt0) for r in st["recipe"]]
-                rows = 1
-                if cols and e - s > 1:
-                    C = np.stack(cols, axis=1)
-                    scale = np.abs(C).max(axis=0)
-                    tol = 1e-12 * np.where(scale > 0, scale, 1.0)
-                    rows += int(np.count_nonzero(np.any(np.abs(C[1:] - C[:-1]) > tol, axis=1)))
+                C = np.stack(cols, axis=1) if cols else np.zeros((e - s, 0))
+                rows = len(_run_starts(C))
                 got = exact.setdefault((dots, pairs), {"dots": dots, "N": N, "rows": 0})
                 got["rows"] += rows
             if weak and wrun is not None:
@@ -422,14 +418,7 @@ class LevelsPath:
             eng.cache_hits += 1
             return got
         n_sub = e - s
-        if C.shape[1] and n_sub > 1:
-            scale = np.abs(C).max(axis=0)
-            tol = 1e-12 * np.where(scale > 0, scale, 1.0)
-            change = np.ones(n_sub, dtype=bool)
-            change[1:] = np.any(np.abs(C[1:] - C[:-1]) > tol, axis=1)
-            starts = np.flatnonzero(change)
-        else:
-            starts = np.zeros(1, dtype=int)
+        starts = _run_starts(C)
         lengths = np.diff(np.append(starts, n_sub))
         # in a Hermitian basis every generator is real (a quarter of the work)
         static_r = st["base"].copy()
@@ -459,6 +448,19 @@ class LevelsPath:
             self._cache.clear()
         self._cache[key] = got
         return got
+
+
+def _run_starts(C: np.ndarray) -> np.ndarray:
+    """Starts of the runs of equal sub-steps of the coefficients C (sub-steps,
+    terms), equal to 1e-12 of each column's largest value."""
+    n = C.shape[0]
+    if not (C.shape[1] and n > 1):
+        return np.zeros(1, dtype=int)
+    scale = np.abs(C).max(axis=0)
+    tol = 1e-12 * np.where(scale > 0, scale, 1.0)
+    change = np.ones(n, dtype=bool)
+    change[1:] = np.any(np.abs(C[1:] - C[:-1]) > tol, axis=1)
+    return np.flatnonzero(change)
 
 
 def _apply(T: np.ndarray, dots, M: np.ndarray, levels) -> np.ndarray:
