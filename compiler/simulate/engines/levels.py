@@ -288,13 +288,11 @@ class LevelsPath:
             if largest is not None and exact_s >= weak_s:
                 N = largest["N"]
                 why = (f"dots {', '.join(est['largest']['dots'])} form one exact cluster "
-                       f"({N}×{N} channels of their {'×'.join(str(model.levels[q]) for q in largest['dots'])} "
-                       f"levels, {largest['rows']} distinct sub-steps, {largest['variants']} "
-                       "noise variants)")
+                       f"({N}×{N} channels, {largest['rows']} distinct sub-steps, "
+                       f"{largest['variants']} noise variants)")
             else:
                 why = (f"weak exchange in {chunks} chunks, each taken for every one of "
-                       f"{len(points)} noise points on the pair's "
-                       f"{'×'.join(str(lv) for lv in model.levels)} levels")
+                       f"{len(points)} noise points")
             notify(f"slow: one evaluation will take roughly {est['seconds']:.0f} s (several per "
                    f"run): {why}; dots {', '.join(multi)} carry more than two levels (their "
                    "valley or spin–valley keys); where the other levels take no part in the "
