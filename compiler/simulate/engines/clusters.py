@@ -25,3 +25,12 @@ def clusters(n: int, edges, active):
         pairs = tuple(i for i, (a, b) in zip(active, edges) if a in members)
         out.append((dots, pairs))
     return out
+
+
+def noise_variants(points, dots, pairs) -> int:
+    """How many distinct values the quadrature points give a cluster's own
+    noise variables (its dots' detunings, its pairs' charge offsets, the
+    gate-band modes): the channels an exact cluster needs per segment."""
+    return len({(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in dots),
+                 tuple(pt.dv[j] if pt.dv else 0.0 for j in pairs),
+                 tuple(pt.modes) if pt.modes else ()) for pt in points})

@@ -79,7 +79,7 @@ from ..types import Evolution
 from . import memo
 from . import pauli as PL
 from . import weak as weak_mod
-from .clusters import clusters
+from .clusters import clusters, noise_variants
 
 KAPPA = 1.1                    # weak exchange: chunks short enough that ‖E₀⁻¹‖◇ ≤ 1.1 (weak.py)
 FLOP_RATE = 2e10               # flop/s the estimate assumes (see _check_plan)
@@ -674,10 +674,7 @@ class FastEngine:
                 rows = self._distinct_rows(model, prep, dots, pairs, s, e)
                 got = seen.get((dots, pairs))
                 if got is None:
-                    keys = {(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in dots),
-                             tuple(pt.dv[j] if pt.dv else 0.0 for j in pairs),
-                             tuple(pt.modes) if pt.modes else ()) for pt in points}
-                    V = len(keys)
+                    V = noise_variants(points, dots, pairs)
                     T = (2 * sum(q in prep["drive"] for q in dots) + 3 * len(pairs)
                          + sum(any(p.dot == q for p in model.profiles) for q in dots))
                     k = 4 ** c

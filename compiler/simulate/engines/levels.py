@@ -40,7 +40,7 @@ from ..types import Evolution
 from . import levels_weak as LW
 from . import pauli as PL
 from . import weak as weak_mod
-from .clusters import clusters
+from .clusters import clusters, noise_variants
 
 
 def _ham(H: np.ndarray) -> np.ndarray:
@@ -173,11 +173,8 @@ class LevelsPath:
             for s, e in zip(bounds[:-1], bounds[1:]):
                 if e <= s:
                     continue
-                active, weak = LW.split(model, on, wmask, s)
-                for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
-                                                 for i in active], active):
-                    if len(dots) == 1 and weak and dots[0] in weak[1]:
-                        continue                   # its own channel comes with the weak pairs
+                exact, weak = _segment_clusters(model, on, wmask, s)
+                for dots, pairs in exact:
                     eng._largest_now = max(eng._largest_now, len(dots))
                     eng.largest_cluster = max(eng.largest_cluster, len(dots))
                     M = self._channel(model, coefs, dots, pairs, s, e, pt)
@@ -245,11 +242,8 @@ class LevelsPath:
         for s, e in zip(bounds[:-1], bounds[1:]):
             if e <= s or pt0 is None:
                 continue
-            active, weak = LW.split(model, on, wmask, s)
-            for dots, pairs in clusters(n, [(model.pairs[i].a, model.pairs[i].b)
-                                             for i in active], active):
-                if len(dots) == 1 and weak and dots[0] in weak[1]:
-                    continue
+            exact_clusters, weak = _segment_clusters(model, on, wmask, s)
+            for dots, pairs in exact_clusters:
                 st = self._structure(model, dots, pairs)
                 N = st["base"].shape[-1]
                 if N < 64:
@@ -268,11 +262,8 @@ class LevelsPath:
         exact_s = 0.0
         largest = None
         for (dots, pairs), got in exact.items():
-            keys = {(tuple(pt.detuning[q] if pt.detuning else 0.0 for q in dots),
-                     tuple(pt.dv[j] if pt.dv else 0.0 for j in pairs),
-                     tuple(pt.modes) if pt.modes else ()) for pt in points}
-            got["variants"] = len(keys)
-            got["seconds"] = len(keys) * got["rows"] * float(got["N"]) ** 3 * EXP_S_PER_N3
+            got["variants"] = noise_variants(points, dots, pairs)
+            got["seconds"] = got["variants"] * got["rows"] * float(got["N"]) ** 3 * EXP_S_PER_N3
             exact_s += got["seconds"]
             if largest is None or got["seconds"] > largest["seconds"]:
                 largest = got
@@ -446,6 +437,18 @@ class LevelsPath:
             self._cache.clear()
         self._cache[key] = got
         return got
+
+
+def _segment_clusters(model, on, wmask, s: int):
+    """The exact clusters (dots, pairs) of the segment starting at sub-step
+    ``s`` that take their own channel, and its weak pairs with their dots
+    (:func:`.levels_weak.split`; a dot of a weak pair gets its channel with
+    the pair's corrections)."""
+    active, weak = LW.split(model, on, wmask, s)
+    exact = [(dots, pairs) for dots, pairs in
+             clusters(model.n, [(model.pairs[i].a, model.pairs[i].b) for i in active], active)
+             if not (len(dots) == 1 and weak and dots[0] in weak[1])]
+    return exact, weak
 
 
 def _run_starts(C: np.ndarray) -> np.ndarray:
